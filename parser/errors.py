@@ -1,4 +1,7 @@
-"""The parser library's exceptions: every error raised on purpose descends from ParserError."""
+"""The parser library's exceptions: every error raised on purpose descends from ParserError.
+
+Contributors: read DEVELOPERS.md at the repository root first; its rules are binding.
+"""
 
 from __future__ import annotations
 
