@@ -1,0 +1,161 @@
+"""The application factory: settings -> migrated database -> FastAPI app with every router.
+
+Routers are found, not listed: each module in ``app/routes`` that defines ``router`` is
+included, so adding a page or API module needs no edit here.
+"""
+
+from __future__ import annotations
+
+import importlib
+import pkgutil
+from typing import Any
+from urllib.parse import quote
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse, RedirectResponse
+from fastapi.staticfiles import StaticFiles
+from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+import app.routes
+from app.db import make_engine, make_sessionmaker, upgrade_to_head
+from app.deps import LoginRequired
+from app.settings import STATIC_DIR, Settings, get_settings
+
+CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
+       "connect-src 'self'; font-src 'self'; object-src 'none'; base-uri 'none'; "
+       "form-action 'self'; frame-ancestors 'none'")
+# The interactive API docs page needs its own scripts; it gets a CSP of its own (still no
+# inline script of ours, and nothing from other hosts since the assets are served locally).
+DOCS_PATHS = ("/docs", "/redoc")
+
+
+class SecurityHeaders:
+    """Adds CSP, nosniff, frame and referrer headers to every response."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        path: str = scope.get("path", "")
+
+        async def send_with_headers(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                headers = list(message.get("headers", []))
+                if not path.startswith(DOCS_PATHS):
+                    headers.append((b"content-security-policy", CSP.encode()))
+                else:
+                    headers.append((b"content-security-policy", b"frame-ancestors 'none'"))
+                headers.append((b"x-content-type-options", b"nosniff"))
+                headers.append((b"x-frame-options", b"DENY"))
+                headers.append((b"referrer-policy", b"same-origin"))
+                message["headers"] = headers
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
+class BodySizeLimit:
+    """Answers 413 when a request body is larger than the configured limit."""
+
+    def __init__(self, app: ASGIApp, limit: int) -> None:
+        self.app = app
+        self.limit = limit
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        for name, value in scope.get("headers", []):
+            if name == b"content-length" and value.isdigit() and int(value) > self.limit:
+                await _too_large(send, self.limit)
+                return
+        seen = 0
+
+        async def limited_receive() -> Message:
+            nonlocal seen
+            message = await receive()
+            if message["type"] == "http.request":
+                seen += len(message.get("body", b""))
+                if seen > self.limit:
+                    raise _BodyTooLarge
+            return message
+
+        try:
+            await self.app(scope, limited_receive, send)
+        except _BodyTooLarge:
+            await _too_large(send, self.limit)
+
+
+class _BodyTooLarge(Exception):
+    pass
+
+
+async def _too_large(send: Send, limit: int) -> None:
+    body = (b'{"detail":"request body larger than the limit of %d bytes"}' % limit)
+    await send({"type": "http.response.start", "status": 413,
+                "headers": [(b"content-type", b"application/json"),
+                            (b"content-length", str(len(body)).encode())]})
+    await send({"type": "http.response.body", "body": body})
+
+
+def _include_routers(application: FastAPI) -> None:
+    for info in sorted(pkgutil.iter_modules(app.routes.__path__), key=lambda m: m.name):
+        module = importlib.import_module(f"app.routes.{info.name}")
+        router = getattr(module, "router", None)
+        if router is not None:
+            application.include_router(router)
+
+
+def create_app(settings: Settings | None = None, *, migrate: bool = True) -> FastAPI:
+    """Build the service for ``settings`` (default: from the environment)."""
+    settings = settings or get_settings()
+    if migrate:
+        upgrade_to_head(settings)
+    settings.resolved_secret_key()  # create the key file on first run
+    engine = make_engine(settings)
+    application = FastAPI(
+        title="Treewright",
+        version="0.1.0",
+        description="Build a constituency treebank with a parser in the loop. The JSON API "
+                    "below is what the pages use; it needs a login cookie and, for changes, "
+                    "the session's CSRF token in the X-CSRF-Token header.",
+    )
+    application.state.settings = settings
+    application.state.engine = engine
+    application.state.sessionmaker = make_sessionmaker(engine)
+    application.mount("/static", StaticFiles(directory=str(STATIC_DIR)), name="static")
+    _include_routers(application)
+
+    @application.exception_handler(LoginRequired)
+    async def _to_login(request: Request, exc: LoginRequired) -> RedirectResponse:
+        return RedirectResponse(f"/login?next={quote(exc.next_url)}", status_code=303)
+
+    @application.exception_handler(RequestValidationError)
+    async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors: list[dict[str, Any]] = []
+        for err in exc.errors():
+            errors.append({"loc": list(err.get("loc", ())), "msg": str(err.get("msg", "")),
+                           "type": str(err.get("type", ""))})
+        return JSONResponse({"detail": errors}, status_code=422)
+
+    @application.exception_handler(StarletteHTTPException)
+    async def _http_error(request: Request, exc: StarletteHTTPException) -> Any:
+        accepts_html = "text/html" in request.headers.get("accept", "")
+        if accepts_html and not request.url.path.startswith("/api/"):
+            from app.web import templates
+
+            return templates.TemplateResponse(
+                request, "error.html", {"status": exc.status_code, "detail": exc.detail,
+                                        "user": None, "csrf_token": ""},
+                status_code=exc.status_code)
+        return JSONResponse({"detail": exc.detail}, status_code=exc.status_code,
+                            headers=getattr(exc, "headers", None))
+
+    application.add_middleware(BodySizeLimit, limit=settings.max_upload_bytes)
+    application.add_middleware(SecurityHeaders)
+    return application

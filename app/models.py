@@ -1,0 +1,322 @@
+"""The ORM: users, corpora, sentences, annotations with append-only revisions, gold, grammars.
+
+States are plain strings checked by the services (see the constants below) so that PostgreSQL
+and SQLite store them alike. Trees are stored as one-line bracketed text (parser.trees).
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    Boolean,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, deferred, mapped_column, relationship
+
+# Roles, from most to least powerful.
+ROLE_ADMIN = "admin"
+ROLE_ADJUDICATOR = "adjudicator"
+ROLE_ANNOTATOR = "annotator"
+ROLES = (ROLE_ADMIN, ROLE_ADJUDICATOR, ROLE_ANNOTATOR)
+
+# Sentence states.
+SENT_QUEUED = "queued"
+SENT_IN_PROGRESS = "in_progress"
+SENT_IN_REVIEW = "in_review"
+SENT_GOLD = "gold"
+SENTENCE_STATES = (SENT_QUEUED, SENT_IN_PROGRESS, SENT_IN_REVIEW, SENT_GOLD)
+
+# Annotation states.
+ANN_DRAFT = "draft"
+ANN_SUBMITTED = "submitted"
+ANN_FLAGGED = "flagged"
+ANNOTATION_STATES = (ANN_DRAFT, ANN_SUBMITTED, ANN_FLAGGED)
+
+# Where a revision's tree came from.
+REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat")
+
+# Grammar version states.
+GV_QUEUED = "queued"
+GV_TRAINING = "training"
+GV_READY = "ready"
+GV_REJECTED = "rejected"
+GV_FAILED = "failed"
+
+DEFAULT_CORPUS_SETTINGS: dict[str, Any] = {
+    "annotators_per_sentence": 2,
+    "auto_gold_when_identical": True,
+    "retrain_every": 25,
+    "max_f1_drop": 0.01,
+    "heldout_every": 10,
+    "unknown_label_policy": "confirm",  # or "refuse"
+}
+
+
+def utcnow() -> datetime:
+    return datetime.now(UTC).replace(tzinfo=None)
+
+
+class Base(DeclarativeBase):
+    type_annotation_map = {dict[str, Any]: JSON, list[Any]: JSON}
+
+
+class User(Base):
+    __tablename__ = "users"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), unique=True)
+    display_name: Mapped[str] = mapped_column(String(128), default="")
+    password_hash: Mapped[str] = mapped_column(String(255))
+    role: Mapped[str] = mapped_column(String(16), default=ROLE_ANNOTATOR)
+    active: Mapped[bool] = mapped_column(Boolean, default=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+    @property
+    def is_admin(self) -> bool:
+        return self.role == ROLE_ADMIN
+
+    @property
+    def can_adjudicate(self) -> bool:
+        return self.role in (ROLE_ADMIN, ROLE_ADJUDICATOR)
+
+
+class UserSession(Base):
+    """A server-side login session; the cookie holds only ``token``'s value."""
+
+    __tablename__ = "user_sessions"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    csrf_token: Mapped[str] = mapped_column(String(64))
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    expires_at: Mapped[datetime] = mapped_column(DateTime)
+    user: Mapped[User] = relationship()
+
+
+class LoginFailure(Base):
+    """One failed login, for the per-account and per-address delay."""
+
+    __tablename__ = "login_failures"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), index=True)
+    address: Mapped[str] = mapped_column(String(64), index=True)
+    at: Mapped[datetime] = mapped_column(DateTime, default=utcnow, index=True)
+
+
+class Corpus(Base):
+    __tablename__ = "corpora"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(128), unique=True)
+    description: Mapped[str] = mapped_column(Text, default="")
+    label_set: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    tag_set: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    settings: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    active_grammar_id: Mapped[int | None] = mapped_column(
+        ForeignKey("grammar_versions.id", use_alter=True, name="fk_corpora_active_grammar",
+                   ondelete="SET NULL"), nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+    documents: Mapped[list[Document]] = relationship(
+        back_populates="corpus", order_by="Document.position", cascade="all, delete-orphan",
+        passive_deletes=True)
+
+    def setting(self, key: str) -> Any:
+        return (self.settings or {}).get(key, DEFAULT_CORPUS_SETTINGS.get(key))
+
+
+class Document(Base):
+    __tablename__ = "documents"
+    __table_args__ = (UniqueConstraint("corpus_id", "name"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    name: Mapped[str] = mapped_column(String(255))
+    position: Mapped[int] = mapped_column(Integer, default=0)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+    corpus: Mapped[Corpus] = relationship(back_populates="documents")
+    sentences: Mapped[list[Sentence]] = relationship(
+        back_populates="document", order_by="Sentence.position", cascade="all, delete-orphan",
+        passive_deletes=True)
+
+
+class Sentence(Base):
+    __tablename__ = "sentences"
+    __table_args__ = (UniqueConstraint("document_id", "position"),
+                      Index("ix_sentences_corpus_state", "corpus_id", "state"))
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"))
+    document_id: Mapped[int] = mapped_column(ForeignKey("documents.id", ondelete="CASCADE"),
+                                             index=True)
+    position: Mapped[int] = mapped_column(Integer)
+    tokens: Mapped[list[Any]] = mapped_column(JSON)
+    text: Mapped[str] = mapped_column(Text)
+    state: Mapped[str] = mapped_column(String(16), default=SENT_QUEUED)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+    document: Mapped[Document] = relationship(back_populates="sentences")
+
+
+class Assignment(Base):
+    __tablename__ = "assignments"
+    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+
+class Annotation(Base):
+    """One annotator's tree for one sentence; its history is the list of revisions.
+
+    ``head`` is the number of the newest revision (0 before the first save). A save carries the
+    head it was based on; the unique (annotation_id, number) pair of revisions makes a stale or
+    racing save fail instead of overwriting (the service answers 409).
+    """
+
+    __tablename__ = "annotations"
+    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    state: Mapped[str] = mapped_column(String(16), default=ANN_DRAFT)
+    head: Mapped[int] = mapped_column(Integer, default=0)
+    comment: Mapped[str] = mapped_column(Text, default="")
+    flag: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    updated_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    submitted_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+
+
+class Revision(Base):
+    """An append-only saved tree. Never updated or deleted by the service."""
+
+    __tablename__ = "revisions"
+    __table_args__ = (UniqueConstraint("annotation_id", "number"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    annotation_id: Mapped[int] = mapped_column(ForeignKey("annotations.id", ondelete="CASCADE"),
+                                               index=True)
+    number: Mapped[int] = mapped_column(Integer)
+    tree: Mapped[str] = mapped_column(Text)
+    pins: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    source: Mapped[str] = mapped_column(String(16), default="edit")
+    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
+                                                nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+
+class Gold(Base):
+    """A gold tree with provenance. Reopening retires it (``retired_at``) but keeps it."""
+
+    __tablename__ = "gold"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    tree: Mapped[str] = mapped_column(Text)
+    provenance: Mapped[str] = mapped_column(String(16))  # import | agreement | adjudication
+    adjudicator_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+    source_annotation_id: Mapped[int | None] = mapped_column(
+        ForeignKey("annotations.id", ondelete="SET NULL"), nullable=True)
+    note: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    retired_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+    retired_by_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+
+
+class GrammarVersion(Base):
+    """A trained grammar (or a training job in progress) of one corpus."""
+
+    __tablename__ = "grammar_versions"
+    __table_args__ = (UniqueConstraint("corpus_id", "number"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    number: Mapped[int] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(16), default=GV_QUEUED)
+    progress: Mapped[float] = mapped_column(Float, default=0.0)
+    message: Mapped[str] = mapped_column(Text, default="")
+    options: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    training_size: Mapped[int] = mapped_column(Integer, default=0)
+    heldout_size: Mapped[int] = mapped_column(Integer, default=0)
+    heldout_f1: Mapped[float | None] = mapped_column(Float, nullable=True)
+    gold_count_at_start: Mapped[int] = mapped_column(Integer, default=0)
+    train_seconds: Mapped[float | None] = mapped_column(Float, nullable=True)
+    data: Mapped[bytes | None] = deferred(mapped_column(LargeBinary, nullable=True))
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+
+
+class Suggestion(Base):
+    """The parser's output for one sentence under one grammar version (k trees, posteriors)."""
+
+    __tablename__ = "suggestions"
+    __table_args__ = (UniqueConstraint("sentence_id", "grammar_version_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    grammar_version_id: Mapped[int] = mapped_column(
+        ForeignKey("grammar_versions.id", ondelete="CASCADE"), index=True)
+    trees: Mapped[list[Any]] = mapped_column(JSON)
+    logprobs: Mapped[list[Any]] = mapped_column(JSON)
+    posteriors: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    fallback: Mapped[bool] = mapped_column(Boolean, default=False)
+    seconds: Mapped[float] = mapped_column(Float, default=0.0)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+
+class AgreementRecord(Base):
+    """Agreement of one pair of submitted annotations of one sentence."""
+
+    __tablename__ = "agreement_records"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    annotation_a_id: Mapped[int] = mapped_column(ForeignKey("annotations.id",
+                                                            ondelete="CASCADE"))
+    annotation_b_id: Mapped[int] = mapped_column(ForeignKey("annotations.id",
+                                                            ondelete="CASCADE"))
+    user_a_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"))
+    user_b_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"))
+    matched: Mapped[int] = mapped_column(Integer, default=0)
+    count_a: Mapped[int] = mapped_column(Integer, default=0)
+    count_b: Mapped[int] = mapped_column(Integer, default=0)
+    labelled_precision: Mapped[float] = mapped_column(Float)
+    labelled_recall: Mapped[float] = mapped_column(Float)
+    labelled_f1: Mapped[float] = mapped_column(Float)
+    unlabelled_f1: Mapped[float] = mapped_column(Float)
+    pos_agreement: Mapped[float] = mapped_column(Float)
+    identical: Mapped[bool] = mapped_column(Boolean, default=False)
+    detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow, index=True)
+
+
+class Event(Base):
+    """The audit log: who did what, when."""
+
+    __tablename__ = "events"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    at: Mapped[datetime] = mapped_column(DateTime, default=utcnow, index=True)
+    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
+                                                nullable=True)
+    kind: Mapped[str] = mapped_column(String(64))
+    corpus_id: Mapped[int | None] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                                  nullable=True, index=True)
+    sentence_id: Mapped[int | None] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), nullable=True)
+    detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)

@@ -1,0 +1,74 @@
+"""Login and logout pages."""
+
+from __future__ import annotations
+
+import asyncio
+
+from fastapi import APIRouter, Form, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+
+from app.deps import OptionalLogin, PageUser, SessionDep, SettingsDep
+from app.models import Event
+from app.security import (
+    SESSION_COOKIE,
+    authenticate,
+    clear_failures,
+    create_session,
+    end_session,
+    login_delay,
+    recent_failures,
+    record_failure,
+)
+from app.web import render
+
+router = APIRouter(tags=["pages"], include_in_schema=False)
+
+
+def _safe_next(nxt: str | None) -> str:
+    # Only same-site paths: never redirect to another host after login.
+    if nxt and nxt.startswith("/") and not nxt.startswith("//") and "\\" not in nxt:
+        return nxt
+    return "/"
+
+
+@router.get("/login", response_class=HTMLResponse)
+def login_form(request: Request, login: OptionalLogin, next: str | None = None) -> Response:
+    if login is not None:
+        return RedirectResponse(_safe_next(next), status_code=303)
+    return render(request, "login.html", None, next=_safe_next(next), error=None)
+
+
+@router.post("/login", response_class=HTMLResponse)
+async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
+                       username: str = Form(""), password: str = Form(""),
+                       next: str = Form("/")) -> Response:
+    address = request.client.host if request.client else "unknown"
+    username = username.strip()
+    delay = login_delay(recent_failures(db, username, address), settings)
+    if delay:
+        await asyncio.sleep(delay)
+    user = authenticate(db, username, password)
+    if user is None:
+        record_failure(db, username, address)
+        db.commit()
+        return render(request, "login.html", None, status_code=401, next=_safe_next(next),
+                      error="That user name and password do not match an active account.")
+    clear_failures(db, username, address)
+    token, _ = create_session(db, user, settings)
+    db.add(Event(user_id=user.id, kind="login", detail={"address": address}))
+    db.commit()
+    response = RedirectResponse(_safe_next(next), status_code=303)
+    response.set_cookie(SESSION_COOKIE, token, httponly=True, samesite="strict",
+                        secure=settings.cookie_secure, max_age=settings.session_hours * 3600,
+                        path="/")
+    return response
+
+
+@router.post("/logout")
+def logout(request: Request, login: PageUser, db: SessionDep) -> Response:
+    end_session(db, request.cookies.get(SESSION_COOKIE))
+    db.add(Event(user_id=login.user.id, kind="logout"))
+    db.commit()
+    response = RedirectResponse("/login", status_code=303)
+    response.delete_cookie(SESSION_COOKIE, path="/")
+    return response

@@ -1,0 +1,79 @@
+"""One settings object for the service, the CLI and Alembic.
+
+Every setting can be given as an environment variable with the prefix ``TREEWRIGHT_``
+(``TREEWRIGHT_DATA_DIR``, ``TREEWRIGHT_DATABASE_URL``...). The README lists them all; a test
+fails when a setting is undocumented.
+"""
+
+from __future__ import annotations
+
+import os
+import secrets
+from functools import lru_cache
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+PROJECT_ROOT = Path(__file__).resolve().parent.parent
+TEMPLATES_DIR = PROJECT_ROOT / "templates"
+STATIC_DIR = PROJECT_ROOT / "static"
+MIGRATIONS_DIR = PROJECT_ROOT / "migrations"
+
+
+class Settings(BaseSettings):
+    """Service configuration; defaults give a single-user SQLite install under ``./data``."""
+
+    model_config = SettingsConfigDict(env_prefix="TREEWRIGHT_", extra="ignore")
+
+    data_dir: Path = Field(default=Path("data"), description="Folder for the SQLite database, "
+                           "the secret key and backups.")
+    database_url: str | None = Field(default=None, description="SQLAlchemy URL; default is "
+                                     "SQLite at DATA_DIR/treewright.db. For PostgreSQL: "
+                                     "postgresql+psycopg://user@host/dbname")
+    host: str = Field(default="127.0.0.1", description="Address `serve` binds to.")
+    port: int = Field(default=8000, description="Port `serve` listens on.")
+    secret_key: str | None = Field(default=None, description="Key for signing; by default "
+                                   "generated on first run into DATA_DIR/secret_key (mode 0600).")
+    max_upload_bytes: int = Field(default=20 * 1024 * 1024, description="Largest accepted "
+                                  "upload or request body, in bytes (larger gets 413).")
+    session_hours: int = Field(default=12, description="Hours a login session lasts.")
+    cookie_secure: bool = Field(default=False, description="Mark cookies Secure (set true "
+                                "behind TLS).")
+    suggestion_k: int = Field(default=5, description="Number of alternative trees offered.")
+    login_delay_after: int = Field(default=3, description="Failed logins (per account and "
+                                   "address) before each further attempt is delayed.")
+    login_delay_seconds: float = Field(default=2.0, description="Delay per failed login past "
+                                       "the threshold.")
+    training_in_process: bool = Field(default=False, description="Train grammars in a thread "
+                                      "instead of a separate process (tests use this).")
+
+    @property
+    def resolved_database_url(self) -> str:
+        if self.database_url:
+            return self.database_url
+        return f"sqlite:///{(self.data_dir / 'treewright.db').resolve()}"
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.resolved_database_url.startswith("sqlite")
+
+    def ensure_data_dir(self) -> None:
+        self.data_dir.mkdir(parents=True, exist_ok=True)
+
+    def resolved_secret_key(self) -> str:
+        """The signing key: the setting, else DATA_DIR/secret_key, created 0600 on first use."""
+        if self.secret_key:
+            return self.secret_key
+        self.ensure_data_dir()
+        path = self.data_dir / "secret_key"
+        if not path.exists():
+            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+            with os.fdopen(fd, "w") as fh:
+                fh.write(secrets.token_urlsafe(48))
+        return path.read_text().strip()
+
+
+@lru_cache
+def get_settings() -> Settings:
+    return Settings()
