@@ -21,6 +21,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 import app.routes
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
+from app.services.errors import ServiceError
 from app.settings import STATIC_DIR, Settings, get_settings
 
 CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
@@ -134,6 +135,18 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
     @application.exception_handler(LoginRequired)
     async def _to_login(request: Request, exc: LoginRequired) -> RedirectResponse:
         return RedirectResponse(f"/login?next={quote(exc.next_url)}", status_code=303)
+
+    @application.exception_handler(ServiceError)
+    async def _service_error(request: Request, exc: ServiceError) -> Any:
+        accepts_html = "text/html" in request.headers.get("accept", "")
+        if accepts_html and not request.url.path.startswith("/api/"):
+            from app.web import templates
+
+            return templates.TemplateResponse(
+                request, "error.html", {"status": exc.status_code, "detail": exc.detail,
+                                        "user": None, "csrf_token": ""},
+                status_code=exc.status_code)
+        return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code)
 
     @application.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:
