@@ -1,0 +1,590 @@
+"""Parse a sentence with a PCFG: Viterbi, lazy k-best, inside probability, span posteriors,
+under constraints, with a well-formed fallback when no tree fits.
+
+What it computes (model: :mod:`parser.grammar`; compiled loops: :mod:`parser.kernels`)
+    * the Viterbi best derivation (exact; no pruning) by CKY in log space;
+    * the k best derivations by lazy k-best extraction (Huang and Chiang 2005, algorithm 3) on
+      the Viterbi chart, un-binarized, keeping the first (best) derivation of each distinct tree;
+    * the sentence's inside log-probability and, by inside-outside (Lari and Young 1990), the
+      posterior probability of every labelled span (labels of the user's label set, i.e. with
+      annotations removed), each conditioned on the constraints;
+    * constraints, honoured exactly by all of the above: required spans (a constituent with the
+      given label, or any constituent, spans exactly those words), forbidden spans (no
+      constituent spans them), fixed POS tags.
+
+A required span rules out every node crossing it; in a binary tree, a span that no node crosses
+is itself a node, so that plus a check on the labels the span's node (or its unary chain)
+carries is exact. A binarization node (``@...``) is not a constituent.
+
+Complexity: O(n^3 R) per chart pass (R binary rules); k-best adds O(k n log k) node visits,
+each a vectorized scan of one node's incoming rules. Memory O(n^2 N) (N symbols).
+Limits: one sentence per call (see :mod:`parser.batch` for many).
+"""
+
+from __future__ import annotations
+
+import heapq
+import math
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from nltk import Tree
+
+from parser import kernels
+from parser.binarize import base_label, unbinarize
+from parser.errors import ConstraintError, ParserError
+from parser.grammar import Grammar
+
+POSTERIOR_THRESHOLD = 1e-3
+_TOP = 0
+_BOT = 1
+
+
+@dataclass(frozen=True)
+class Constraints:
+    """What a parse must respect. Spans are 0-based (start, end), end exclusive.
+
+    required: (start, end, label or None): a constituent with that label (None: any label)
+        spans exactly those words; forbidden: no constituent spans exactly those words;
+    tags: one POS tag or None per word (or an empty list for no fixed tags).
+    """
+
+    required: Sequence[tuple[int, int, str | None]] = ()
+    forbidden: Sequence[tuple[int, int]] = ()
+    tags: Sequence[str | None] = ()
+
+
+@dataclass
+class ParseResult:
+    """Trees best first (distinct), their log-probabilities, and the other outputs of parse."""
+
+    trees: list[Tree]
+    logprobs: list[float]
+    inside_logprob: float | None = None
+    posteriors: list[tuple[str, int, int, float]] = field(default_factory=list)
+    fallback: bool = False
+    seconds: float = 0.0
+
+
+class _Tables:
+    """Grammar arrays arranged for the chart (built once per grammar, then cached)."""
+
+    def __init__(self, g: Grammar) -> None:
+        n = g.n_symbols
+        order = np.lexsort((g.bin_right, g.bin_left))
+        self.lo_left = g.bin_left[order]
+        self.lo_right = np.ascontiguousarray(g.bin_right[order])
+        self.lo_parent = np.ascontiguousarray(g.bin_parent[order])
+        self.lo_logp = np.ascontiguousarray(g.bin_logp[order])
+        self.lo_w = np.exp(self.lo_logp)
+        self.lo_off = _offsets(self.lo_left, n)
+        order = np.lexsort((g.bin_right, g.bin_left, g.bin_parent))
+        self.po_parent = g.bin_parent[order]
+        self.po_left = np.ascontiguousarray(g.bin_left[order])
+        self.po_right = np.ascontiguousarray(g.bin_right[order])
+        self.po_logp = np.ascontiguousarray(g.bin_logp[order])
+        self.po_w = np.exp(self.po_logp)
+        self.po_off = _offsets(self.po_parent, n)
+        order = np.argsort(g.un_parent, kind="stable")
+        self.up = np.ascontiguousarray(g.un_parent[order])
+        self.uc = np.ascontiguousarray(g.un_child[order])
+        self.uchain = g.un_chain[order]
+        self.ulogp = np.ascontiguousarray(g.un_logp[order])
+        self.uw = np.exp(self.ulogp)
+        self.u_off = _offsets(self.up, n)
+        # Label sets of each edge: kind 0 (one-word span: the bottom is a preterminal) and
+        # kind 1 (longer span: the bottom branches and counts unless it is intermediate).
+        self.labels = list(g.labels)
+        label_id = {lab: i for i, lab in enumerate(self.labels)}
+        n_edge = len(self.up)
+        self.haslab = np.zeros((n_edge, 2, len(self.labels)), dtype=np.bool_)
+        lab_ids: list[int] = []
+        lab_off = [0]
+        for e in range(n_edge):
+            chain = g.chains[self.uchain[e]]
+            for kind in (0, 1):
+                nodes = chain if kind == 1 else chain[:-1]
+                ids = sorted({label_id[base_label(x)] for x in nodes
+                              if not x.startswith("@") and base_label(x) in label_id})
+                self.haslab[e, kind, ids] = True
+                lab_ids.extend(ids)
+                lab_off.append(len(lab_ids))
+        self.nonempty = self.haslab.any(axis=2)
+        self.lab_ids = np.array(lab_ids, dtype=np.int32)
+        self.lab_off = np.array(lab_off, dtype=np.int64)
+        self.tag_symbols: dict[str, np.ndarray] = {}
+        for t in g.tags:
+            self.tag_symbols[t] = np.array(
+                [s for s in g.lex_symbols if g.base[s] == t], dtype=np.int64)
+
+
+def _offsets(sorted_keys: np.ndarray, n: int) -> np.ndarray:
+    return np.searchsorted(sorted_keys, np.arange(n + 1)).astype(np.int64)
+
+
+def tables(g: Grammar) -> _Tables:
+    """The chart's view of ``g`` (cached on the grammar object)."""
+    t = g.__dict__.get("_chart_tables")
+    if t is None:
+        t = _Tables(g)
+        g.__dict__["_chart_tables"] = t
+    return t
+
+
+def span_ids(n: int) -> np.ndarray:
+    """int32[n + 1, n + 1]: id of span (i, k), ordered by length then start; -1 elsewhere."""
+    sid = np.full((n + 1, n + 1), -1, dtype=np.int32)
+    s = 0
+    for length in range(1, n + 1):
+        for i in range(n - length + 1):
+            sid[i, i + length] = s
+            s += 1
+    return sid
+
+
+@dataclass
+class _Problem:
+    n: int
+    sid: np.ndarray
+    dead: np.ndarray
+    code: np.ndarray
+    req_off: np.ndarray
+    req_lab: np.ndarray
+    lex: np.ndarray
+    satisfiable: bool
+    required: list[tuple[int, int, str | None]]
+    tags: list[str | None]
+
+
+def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
+             constraints: Constraints | None) -> _Problem:
+    n = len(words)
+    c = constraints or Constraints()
+    required = [(int(a), int(b), lab) for a, b, lab in c.required]
+    forbidden = [(int(a), int(b)) for a, b in c.forbidden]
+    tags = list(c.tags) if c.tags else [None] * n
+    if len(tags) != n:
+        raise ConstraintError(f"{len(tags)} fixed tags given for {n} words")
+    for a, b, lab in required:
+        if not 0 <= a < b <= n:
+            raise ConstraintError(f"required span ({a}, {b}) is outside 0..{n}")
+        if lab is not None and not isinstance(lab, str):
+            raise ConstraintError(f"required span ({a}, {b}) has a label that is not a string")
+    for a, b in forbidden:
+        if not 0 <= a < b <= n:
+            raise ConstraintError(f"forbidden span ({a}, {b}) is outside 0..{n}")
+        if (a, b) == (0, n):
+            raise ConstraintError(f"forbidden span ({a}, {b}) covers the whole sentence")
+    req_spans = {(a, b) for a, b, _ in required}
+    for a, b in forbidden:
+        if (a, b) in req_spans:
+            raise ConstraintError(f"span ({a}, {b}) is both required and forbidden")
+    for x, (a, b, _) in enumerate(required):
+        for c2, d, _ in required[x + 1:]:
+            if a < c2 < b < d or c2 < a < d < b:
+                raise ConstraintError(f"required spans ({a}, {b}) and ({c2}, {d}) cross")
+    sid = span_ids(n)
+    n_span = n * (n + 1) // 2
+    starts = np.empty(n_span, dtype=np.int64)
+    ends = np.empty(n_span, dtype=np.int64)
+    ii, kk = np.nonzero(sid >= 0)
+    starts[sid[ii, kk]] = ii
+    ends[sid[ii, kk]] = kk
+    dead = np.zeros(n_span, dtype=np.bool_)
+    code = np.full(n_span, -1, dtype=np.int32)
+    satisfiable = True
+    label_id = {lab: i for i, lab in enumerate(tab.labels)}
+    per_span: dict[int, list[int]] = {}
+    for a, b, lab in required:
+        dead |= ((starts < a) & (a < ends) & (ends < b)) | ((a < starts) & (starts < b) & (b < ends))
+        s = int(sid[a, b])
+        per_span.setdefault(s, [])
+        if lab is not None:
+            if lab not in label_id:
+                satisfiable = False
+            else:
+                per_span[s].append(label_id[lab])
+    for a, b in forbidden:
+        code[sid[a, b]] = -2
+    req_off = np.zeros(n_span + 1, dtype=np.int64)
+    req_lab_list: list[int] = []
+    for s in range(n_span):
+        if s in per_span:
+            code[s] = 0
+            req_lab_list.extend(sorted(set(per_span[s])))
+        req_off[s + 1] = len(req_lab_list)
+    lex = g.lexical_scores(words)
+    for i, tag in enumerate(tags):
+        if tag is None:
+            continue
+        allowed = tab.tag_symbols.get(tag)
+        if allowed is None:
+            satisfiable = False
+            continue
+        # A fixed tag lets every derivation emit word i from that tag; the emission factor is
+        # then common to all of them, so any positive value keeps the ranking and posteriors.
+        keep = lex[i, allowed]
+        keep = np.where(np.isfinite(keep), keep, _FIXED_TAG_FLOOR)
+        lex[i, :] = -np.inf
+        lex[i, allowed] = keep
+    return _Problem(n=n, sid=sid, dead=dead, code=code, req_off=req_off,
+                    req_lab=np.array(req_lab_list, dtype=np.int32), lex=lex,
+                    satisfiable=satisfiable, required=required, tags=tags)
+
+
+_FIXED_TAG_FLOOR = math.log(1e-12)
+
+
+def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False,
+          constraints: Constraints | None = None,
+          posterior_threshold: float = POSTERIOR_THRESHOLD) -> ParseResult:
+    """Parse ``words``; see the module docstring. Raises ConstraintError for malformed
+    constraints and ParserError for an empty sentence; never for ordinary words."""
+    t0 = time.perf_counter()
+    words = [str(w) for w in words]
+    if not words:
+        raise ParserError("cannot parse an empty sentence")
+    if k < 1:
+        raise ParserError(f"k must be at least 1, got {k}")
+    tab = tables(g)
+    prob = _prepare(g, tab, words, constraints)
+    chart = _Chart(g, tab, prob) if prob.satisfiable else None
+    if chart is None or not chart.ok:
+        tree = fallback_tree(g, words, prob)
+        return ParseResult(trees=[tree], logprobs=[-math.inf], inside_logprob=None,
+                           posteriors=[], fallback=True, seconds=time.perf_counter() - t0)
+    if k == 1:
+        trees = [chart.viterbi_tree(words)]
+        logprobs = [chart.best]
+    else:
+        trees, logprobs = chart.kbest(words, k)
+    result = ParseResult(trees=trees, logprobs=logprobs)
+    if posteriors:
+        result.inside_logprob, result.posteriors = chart.posteriors(posterior_threshold)
+    result.seconds = time.perf_counter() - t0
+    return result
+
+
+def inside_logprob(g: Grammar, words: Sequence[str],
+                   constraints: Constraints | None = None) -> float:
+    """log of the total probability of all trees of ``words`` (that satisfy the constraints);
+    -inf when there is none."""
+    tab = tables(g)
+    prob = _prepare(g, tab, [str(w) for w in words], constraints)
+    if not prob.satisfiable:
+        return -math.inf
+    chart = _Chart(g, tab, prob)
+    if not chart.ok:
+        return -math.inf
+    return chart.inside()
+
+
+class _Chart:
+    def __init__(self, g: Grammar, tab: _Tables, p: _Problem) -> None:
+        self.g, self.tab, self.p = g, tab, p
+        (self.vt, self.vb, self.bp_rule, self.bp_split, self.bp_edge, self.act,
+         self.nact) = kernels.viterbi(
+            p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab, p.lex,
+            tab.lo_off, tab.lo_right, tab.lo_parent, tab.lo_logp,
+            tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab)
+        self.full = int(p.sid[0, p.n])
+        self.best = float(self.vt[self.full, g.start])
+        self.ok = self.best > -math.inf
+        self._inside: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+
+    # ------------------------------------------------------------- Viterbi tree
+    def viterbi_tree(self, words: Sequence[str]) -> Tree:
+        return unbinarize(self._vit_top(0, self.p.n, self.g.start, words))
+
+    def _vit_top(self, i: int, k: int, a: int, words: Sequence[str]) -> Tree:
+        s = self.p.sid[i, k]
+        e = int(self.bp_edge[s, a])
+        chain = self.g.chains[self.tab.uchain[e]]
+        return _wrap_chain(chain, self._vit_bot(i, k, int(self.tab.uc[e]), words))
+
+    def _vit_bot(self, i: int, k: int, b: int, words: Sequence[str]) -> list[Tree | str]:
+        if k - i == 1:
+            return [words[i]]
+        s = self.p.sid[i, k]
+        r = int(self.bp_rule[s, b])
+        j = int(self.bp_split[s, b])
+        return [self._vit_top(i, j, int(self.tab.lo_left[r]), words),
+                self._vit_top(j, k, int(self.tab.lo_right[r]), words)]
+
+    # ------------------------------------------------------------- inside / outside
+    def _inside_chart(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if self._inside is None:
+            p, tab = self.p, self.tab
+            self._inside = kernels.inside(
+                p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab, p.lex,
+                self.act, self.nact, tab.lo_off, tab.lo_right, tab.lo_parent, tab.lo_w,
+                tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab)
+        return self._inside
+
+    def inside(self) -> float:
+        it, _, sigma = self._inside_chart()
+        return float(np.log(it[self.full, self.g.start]) + sigma[self.full])
+
+    def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
+        it, ib, sigma = self._inside_chart()
+        p, tab = self.p, self.tab
+        post = kernels.outside(
+            p.n, self.g.n_symbols, self.g.start, p.sid, p.dead, p.code, p.req_off, p.req_lab,
+            self.act, self.nact, it, ib, sigma, tab.po_off, tab.po_left, tab.po_right,
+            tab.po_w, tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
+            tab.lab_ids, len(tab.labels))
+        spans, labs = np.nonzero(post > threshold)
+        ii, kk = np.nonzero(p.sid >= 0)
+        start = np.empty(len(ii), dtype=np.int64)
+        end = np.empty(len(ii), dtype=np.int64)
+        start[p.sid[ii, kk]] = ii
+        end[p.sid[ii, kk]] = kk
+        out = [(tab.labels[b], int(start[s]), int(end[s]), min(1.0, float(post[s, b])))
+               for s, b in zip(spans, labs, strict=True)]
+        out.sort(key=lambda x: (x[1], -x[2], x[0]))
+        return self.inside(), out
+
+    # ------------------------------------------------------------- k-best
+    def kbest(self, words: Sequence[str], k: int) -> tuple[list[Tree], list[float]]:
+        cap = 3 * k + 20
+        kb = _LazyKBest(self, cap)
+        root = (_TOP, self.full, self.g.start)
+        trees: list[Tree] = []
+        scores: list[float] = []
+        seen: set[str] = set()
+        for rank in range(cap):
+            d = kb.get(root, rank)
+            if d is None:
+                break
+            tree = unbinarize(kb.build(root, rank, words))
+            key = _tree_key(tree)
+            if key in seen:
+                continue
+            seen.add(key)
+            trees.append(tree)
+            scores.append(d[0])
+            if len(trees) == k:
+                break
+        return trees, scores
+
+
+# A derivation: (score, edge, tails, ranks); edge is ("u", e), ("b", r) or ("l",).
+_Deriv = tuple[float, tuple, tuple, tuple]
+
+
+class _LazyKBest:
+    """Huang and Chiang 2005, algorithm 3, on the hypergraph the Viterbi chart describes.
+
+    Nodes are (TOP, span, symbol) and (BOT, span, symbol). A node's candidate set starts with
+    the best derivation along each incoming hyperedge, limited to the ``cap`` best of them:
+    a node never yields more than ``cap`` derivations, and a hyperedge whose best derivation
+    ranks below ``cap`` cannot hold one of the first ``cap``.
+    """
+
+    def __init__(self, chart: _Chart, cap: int) -> None:
+        self.c = chart
+        self.cap = cap
+        self.derivs: dict[tuple, list[_Deriv]] = {}
+        self.cand: dict[tuple, list] = {}
+        self.seen: dict[tuple, set] = {}
+        self.tick = 0
+        p = chart.p
+        self.start_of = np.empty(p.n * (p.n + 1) // 2, dtype=np.int64)
+        self.end_of = np.empty_like(self.start_of)
+        ii, kk = np.nonzero(p.sid >= 0)
+        self.start_of[p.sid[ii, kk]] = ii
+        self.end_of[p.sid[ii, kk]] = kk
+
+    def _init(self, node: tuple) -> None:
+        kind, s, a = node
+        c, tab = self.c, self.c.tab
+        i, k = int(self.start_of[s]), int(self.end_of[s])
+        heap: list = []
+        seen: set = set()
+        if kind == _TOP:
+            lo, hi = int(tab.u_off[a]), int(tab.u_off[a + 1])
+            es = np.arange(lo, hi)
+            scores = tab.ulogp[es] + c.vb[s, tab.uc[es]]
+            kind_id = 0 if k - i == 1 else 1
+            for e, sc in zip(es, scores, strict=True):
+                if sc == -np.inf or not _allowed_py(c.p, tab, int(e), kind_id, s):
+                    continue
+                heap.append((-float(sc), self._t(), ("u", int(e)),
+                             ((_BOT, s, int(tab.uc[e])),), (0,)))
+        elif k - i == 1:
+            sc = float(c.p.lex[i, a])
+            if sc > -np.inf:
+                heap.append((-sc, self._t(), ("l",), (), ()))
+        else:
+            lo, hi = int(tab.po_off[a]), int(tab.po_off[a + 1])
+            if hi > lo:
+                js = np.arange(i + 1, k)
+                sl = c.p.sid[i, js]
+                sr = c.p.sid[js, k]
+                left = tab.po_left[lo:hi]
+                right = tab.po_right[lo:hi]
+                scores = (c.vt[sl][:, left] + c.vt[sr][:, right]) + tab.po_logp[lo:hi][None, :]
+                flat = scores.ravel()
+                finite = np.flatnonzero(flat > -np.inf)
+                if len(finite) > self.cap:
+                    part = np.argpartition(-flat[finite], self.cap - 1)[: self.cap]
+                    finite = finite[part]
+                n_rules = hi - lo
+                for f in finite:
+                    jx, rx = divmod(int(f), n_rules)
+                    r = lo + rx
+                    heap.append((-float(flat[f]), self._t(), ("b", r, int(js[jx])),
+                                 ((_TOP, int(sl[jx]), int(tab.po_left[r])),
+                                  (_TOP, int(sr[jx]), int(tab.po_right[r]))), (0, 0)))
+        heapq.heapify(heap)
+        for item in heap:
+            seen.add((item[2], item[4]))
+        self.cand[node] = heap
+        self.seen[node] = seen
+        self.derivs[node] = []
+
+    def _t(self) -> int:
+        self.tick += 1
+        return self.tick
+
+    def _weight(self, edge: tuple, node: tuple) -> float:
+        tab = self.c.tab
+        if edge[0] == "u":
+            return float(tab.ulogp[edge[1]])
+        if edge[0] == "b":
+            return float(tab.po_logp[edge[1]])
+        i = int(self.start_of[node[1]])
+        return float(self.c.p.lex[i, node[2]])
+
+    def get(self, node: tuple, rank: int) -> _Deriv | None:
+        """The rank-th best derivation of ``node`` (0-based), or None if it has fewer."""
+        if node not in self.derivs:
+            self._init(node)
+        found = self.derivs[node]
+        heap = self.cand[node]
+        while len(found) <= rank:
+            if found:
+                self._lazy_next(node, found[-1])
+            if not heap:
+                break
+            neg, _, edge, tails, ranks = heapq.heappop(heap)
+            found.append((-neg, edge, tails, ranks))
+        return found[rank] if rank < len(found) else None
+
+    def _lazy_next(self, node: tuple, d: _Deriv) -> None:
+        _, edge, tails, ranks = d
+        seen = self.seen[node]
+        for x in range(len(tails)):
+            new = ranks[:x] + (ranks[x] + 1,) + ranks[x + 1:]
+            if (edge, new) in seen:
+                continue
+            if self.get(tails[x], new[x]) is None:
+                continue
+            seen.add((edge, new))
+            parts = [self.get(t, r) for t, r in zip(tails, new, strict=True)]
+            score = self._weight(edge, node) + sum(d[0] for d in parts if d is not None)
+            heapq.heappush(self.cand[node], (-score, self._t(), edge, tails, new))
+
+    def build(self, node: tuple, rank: int, words: Sequence[str]) -> Tree:
+        """The binarized tree of a top node's rank-th derivation."""
+        d = self.get(node, rank)
+        if d is None:
+            raise ParserError(f"k-best: node {node} has no derivation of rank {rank}")
+        _, edge, tails, ranks = d
+        chain = self.c.g.chains[self.c.tab.uchain[edge[1]]]
+        return _wrap_chain(chain, self._build_bottom(tails[0], ranks[0], words))
+
+    def _build_bottom(self, node: tuple, rank: int, words: Sequence[str]) -> list[Tree | str]:
+        d = self.get(node, rank)
+        if d is None:
+            raise ParserError(f"k-best: node {node} has no derivation of rank {rank}")
+        _, edge, tails, ranks = d
+        if edge[0] == "l":
+            return [words[int(self.start_of[node[1]])]]
+        return [self.build(tails[0], ranks[0], words), self.build(tails[1], ranks[1], words)]
+
+
+def _allowed_py(p: _Problem, tab: _Tables, e: int, kind: int, s: int) -> bool:
+    c = p.code[s]
+    if c == -1:
+        return True
+    if c == -2:
+        return not bool(tab.nonempty[e, kind])
+    if kind == 1 and not tab.nonempty[e, 1]:
+        return False
+    return all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]])
+
+
+def _wrap_chain(chain: Sequence[str], children: list) -> Tree:
+    node = Tree(chain[-1], children)
+    for label in reversed(chain[:-1]):
+        node = Tree(label, [node])
+    return node
+
+
+def _tree_key(tree: Tree | str) -> str:
+    if isinstance(tree, str):
+        return tree
+    return "(" + tree.label() + " " + " ".join(_tree_key(c) for c in tree) + ")"
+
+
+# ------------------------------------------------------------------------- fallback
+def fallback_tree(g: Grammar, words: Sequence[str], p: _Problem) -> Tree:
+    """A well-formed tree keeping the constraints: the required spans nested under the root,
+    each word under its fixed tag or the tag the lexicon likes best for it."""
+    tags = []
+    counts = g.meta.get("tag_counts", {})
+    default_tag = max(counts, key=counts.get) if counts else (g.tags[0] if g.tags else "X")
+    default_tag = base_label(default_tag)
+    for i, w in enumerate(words):
+        if p.tags[i] is not None:
+            tags.append(p.tags[i])
+            continue
+        row = p.lex[i]
+        best = int(np.argmax(row))
+        tags.append(g.base[best] if row[best] > -np.inf else default_tag)
+    default_label = _default_phrase(g)
+    # Nest required spans: longest first, children inside.
+    spans = sorted({(a, b): lab for a, b, lab in p.required}.items(),
+                   key=lambda x: (x[0][0], -(x[0][1] - x[0][0])))
+    leaves: list[Tree] = [Tree(t, [w]) for t, w in zip(tags, words, strict=True)]
+
+    def build(a: int, b: int, inner: list[tuple[tuple[int, int], str | None]]) -> list[Tree]:
+        out: list[Tree] = []
+        pos = a
+        x = 0
+        while x < len(inner):
+            (c, d), lab = inner[x]
+            out.extend(leaves[pos:c])
+            y = x + 1
+            while y < len(inner) and inner[y][0][1] <= d:
+                y += 1
+            kids = build(c, d, inner[x + 1:y])
+            if (c, d) == (a, b):
+                out.extend(kids)
+            elif d - c == 1 and lab is None:
+                out.extend(kids)
+            else:
+                out.append(Tree(lab or default_label, kids))
+            pos = d
+            x = y
+        out.extend(leaves[pos:b])
+        return out
+
+    full = [(sp, lab) for sp, lab in spans if sp == (0, len(words))]
+    rest = [(sp, lab) for sp, lab in spans if sp != (0, len(words))]
+    kids = build(0, len(words), rest)
+    for _, lab in full:
+        if lab is not None and lab != g.root_label:
+            kids = [Tree(lab, kids)]
+    return Tree(g.root_label, kids)
+
+
+def _default_phrase(g: Grammar) -> str:
+    for lab in ("FRAG", "X", "NP"):
+        if lab in g.labels:
+            return lab
+    others = [lab for lab in g.labels if lab != g.root_label]
+    return others[0] if others else g.root_label

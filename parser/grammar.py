@@ -1,0 +1,462 @@
+"""PCFG estimation, the grammar's saved form, and its tightness check.
+
+What it computes
+    :func:`train_grammar` cleans and binarizes training trees (:mod:`parser.binarize`), collapses
+    each unary chain into one *unary edge*, and estimates every probability by relative frequency.
+    The model is a proper PCFG over binarized trees whose unary chains are collapsed; each
+    symbol A appears in two roles:
+
+    * **top** A: the node as its parent sees it. It expands by one unary edge
+      ``A -> X1 -> ... -> B`` into the bottom of B, or by the *identity edge* ``A -> A`` (no unary
+      chain at all). P(edge | A) = count(edge) / count(A as a top node).
+    * **bottom** B: the node that does the branching. It expands by a binary rule ``B -> C D``
+      (C and D are tops) with P = count(rule) / count(B as a bottom node), or, for POS tags,
+      emits a word through the lexicon (:mod:`parser.lexicon`).
+
+    So every left-hand side (top and bottom) is locally normalized, and a chart needs exactly one
+    unary layer per span, with no closure and no cycles.
+
+    :meth:`Grammar.from_text` builds a grammar from explicit rules (tests and small examples):
+    acyclic unary chains are composed into edges, so the result is the same PCFG.
+
+    :meth:`Grammar.tightness` iterates the partition function Z = F(Z) from Z = 0 (the least
+    fixed point), reporting whether each symbol's Z is 1.
+
+Saved form: one ``.npz`` file of numpy arrays plus a JSON metadata blob (stored in the same file
+as a uint8 array) carrying ``format_version``; loaded with ``allow_pickle=False``.
+
+Complexity: training is linear in the number of tree nodes; the lexicon costs O(tags x vocab).
+Limits: labels may not contain the annotation characters of :mod:`parser.binarize`.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import re
+import time
+from collections import Counter
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from nltk import Tree
+
+from parser import binarize as bz
+from parser.errors import GrammarError
+from parser.lexicon import SCHEME, estimate_lexicon, signature_backoff
+
+FORMAT_VERSION = 1
+DEFAULT_HORIZONTAL = 1
+DEFAULT_VERTICAL = 2
+
+Progress = Callable[[int, int], None]
+
+
+@dataclass(frozen=True)
+class TightnessReport:
+    """Whether every symbol's partition function is 1 (to ``tolerance``)."""
+
+    tight: bool
+    partition: dict[str, float]
+    iterations: int
+
+
+class Grammar:
+    """An immutable PCFG in log space (see the module docstring for the model).
+
+    Arrays (N symbols, R binary rules, E unary edges, T lexical symbols, X lexicon columns):
+        bin_parent, bin_left, bin_right: int32[R]; bin_logp: float64[R]
+        un_parent, un_child, un_chain: int32[E]; un_logp: float64[E]
+        lex_symbols: int32[T]; lex_logp: float64[T, X]  (includes the lexical share of B)
+    """
+
+    def __init__(self, *, symbols: Sequence[str], start: int,
+                 bin_parent: np.ndarray, bin_left: np.ndarray, bin_right: np.ndarray,
+                 bin_logp: np.ndarray, un_parent: np.ndarray, un_child: np.ndarray,
+                 un_chain: np.ndarray, un_logp: np.ndarray, chains: Sequence[Sequence[str]],
+                 lex_symbols: np.ndarray, lex_logp: np.ndarray, vocab: Sequence[str],
+                 signatures: Sequence[str], meta: dict | None = None) -> None:
+        self.symbols: tuple[str, ...] = tuple(symbols)
+        self.start = int(start)
+        self.bin_parent = _frozen(bin_parent, np.int32)
+        self.bin_left = _frozen(bin_left, np.int32)
+        self.bin_right = _frozen(bin_right, np.int32)
+        self.bin_logp = _frozen(bin_logp, np.float64)
+        self.un_parent = _frozen(un_parent, np.int32)
+        self.un_child = _frozen(un_child, np.int32)
+        self.un_chain = _frozen(un_chain, np.int32)
+        self.un_logp = _frozen(un_logp, np.float64)
+        self.chains: tuple[tuple[str, ...], ...] = tuple(tuple(c) for c in chains)
+        self.lex_symbols = _frozen(lex_symbols, np.int32)
+        self.lex_logp = _frozen(lex_logp, np.float64)
+        self.vocab: tuple[str, ...] = tuple(vocab)
+        self.signatures: tuple[str, ...] = tuple(signatures)
+        self.meta: dict = dict(meta or {})
+        self._validate()
+        self._derive()
+
+    # ----------------------------------------------------------------- derived views
+    def _validate(self) -> None:
+        n = len(self.symbols)
+        if not 0 <= self.start < n:
+            raise GrammarError(f"start symbol index {self.start} out of range")
+        for name, arr in (("bin_parent", self.bin_parent), ("bin_left", self.bin_left),
+                          ("bin_right", self.bin_right), ("un_parent", self.un_parent),
+                          ("un_child", self.un_child), ("lex_symbols", self.lex_symbols)):
+            if arr.size and (arr.min() < 0 or arr.max() >= n):
+                raise GrammarError(f"{name} refers to a symbol outside 0..{n - 1}")
+        if self.un_chain.size and (self.un_chain.min() < 0
+                                   or self.un_chain.max() >= len(self.chains)):
+            raise GrammarError("un_chain refers to a chain that does not exist")
+        if self.lex_logp.shape != (len(self.lex_symbols),
+                                   len(self.vocab) + len(self.signatures)):
+            raise GrammarError(f"lexicon shape {self.lex_logp.shape} does not match "
+                               f"{len(self.lex_symbols)} tags x "
+                               f"{len(self.vocab) + len(self.signatures)} columns")
+
+    def _derive(self) -> None:
+        n = len(self.symbols)
+        self.base: tuple[str, ...] = tuple(bz.base_label(s) for s in self.symbols)
+        self.intermediate = np.array([bz.is_intermediate(s) for s in self.symbols], dtype=bool)
+        self.intermediate.flags.writeable = False
+        lexical = np.zeros(n, dtype=bool)
+        lexical[self.lex_symbols] = True
+        phrasal = np.zeros(n, dtype=bool)
+        phrasal[self.bin_parent] = True
+        phrasal[self.un_parent[self.un_child != self.un_parent]] = True
+        phrase_labels: set[str] = set()
+        for i in np.flatnonzero(phrasal & ~self.intermediate):
+            phrase_labels.add(self.base[i])
+        for chain in self.chains:
+            for lab in chain[:-1] if len(chain) > 1 else ():
+                phrase_labels.add(bz.base_label(lab))
+        phrase_labels.add(self.base[self.start])
+        self.labels: tuple[str, ...] = tuple(sorted(phrase_labels))
+        self.tags: tuple[str, ...] = tuple(sorted({self.base[i] for i in self.lex_symbols}))
+        self.root_label = self.base[self.start]
+        self._vocab_index = {w: i for i, w in enumerate(self.vocab)}
+        self._sig_index = {s: len(self.vocab) + i for i, s in enumerate(self.signatures)}
+        self.n_symbols = n
+
+    # ----------------------------------------------------------------- lexical scores
+    def word_column(self, word: str, first: bool = False) -> int:
+        """Lexicon column of ``word``: its own if known, else its finest known signature, else -1."""
+        col = self._vocab_index.get(word)
+        if col is not None:
+            return col
+        if self.meta.get("signature_scheme") == SCHEME:
+            for sig in signature_backoff(word, first):
+                col = self._sig_index.get(sig)
+                if col is not None:
+                    return col
+        return -1
+
+    def lexical_scores(self, words: Sequence[str]) -> np.ndarray:
+        """log P(word_i | symbol) as a float64[n, N] array (-inf where a symbol cannot emit)."""
+        n = len(words)
+        out = np.full((n, self.n_symbols), -np.inf)
+        cols = np.array([self.word_column(w, i == 0) for i, w in enumerate(words)], dtype=np.int64)
+        known = cols >= 0
+        if known.any() and len(self.lex_symbols):
+            rows = np.flatnonzero(known)
+            out[np.ix_(rows, self.lex_symbols)] = self.lex_logp[:, cols[known]].T
+        return out
+
+    # ----------------------------------------------------------------- tightness
+    def tightness(self, tolerance: float = 1e-6, max_iterations: int = 200_000) -> TightnessReport:
+        """Partition function per symbol (top role) by fixed-point iteration from zero.
+
+        Z_bot[B] = sum_r p_r Z_top[C_r] Z_top[D_r] + lexical share of B,
+        Z_top[A] = sum_e p_e Z_bot[B_e]. The iteration increases monotonically to the least
+        fixed point; it stops when an update changes no value by more than 1e-15.
+        """
+        n = self.n_symbols
+        lex_mass = np.zeros(n)
+        if len(self.lex_symbols):
+            with np.errstate(under="ignore"):
+                lex_mass[self.lex_symbols] = np.exp(self.lex_logp).sum(axis=1)
+        wb = np.exp(self.bin_logp)
+        wu = np.exp(self.un_logp)
+        z_top = np.zeros(n)
+        it = 0
+        for it in range(1, max_iterations + 1):
+            z_bot = lex_mass.copy()
+            np.add.at(z_bot, self.bin_parent, wb * z_top[self.bin_left] * z_top[self.bin_right])
+            new_top = np.zeros(n)
+            np.add.at(new_top, self.un_parent, wu * z_bot[self.un_child])
+            delta = np.max(np.abs(new_top - z_top)) if n else 0.0
+            z_top = new_top
+            if delta < 1e-15:
+                break
+        partition = {self.symbols[i]: float(z_top[i]) for i in range(n)}
+        used = np.zeros(n, dtype=bool)
+        used[self.un_parent] = True
+        tight = bool(np.all(np.abs(z_top[used] - 1.0) <= tolerance))
+        return TightnessReport(tight=tight, partition=partition, iterations=it)
+
+    # ----------------------------------------------------------------- saving
+    def save(self, path: str | Path) -> None:
+        """Write the grammar as one ``.npz`` file (arrays + JSON metadata, no pickle)."""
+        meta = {
+            "format_version": FORMAT_VERSION,
+            "symbols": list(self.symbols),
+            "start": self.start,
+            "chains": [list(c) for c in self.chains],
+            "vocab": list(self.vocab),
+            "signatures": list(self.signatures),
+            "meta": self.meta,
+        }
+        blob = np.frombuffer(json.dumps(meta).encode("utf-8"), dtype=np.uint8)
+        with open(path, "wb") as fh:
+            np.savez(fh, meta=blob, bin_parent=self.bin_parent, bin_left=self.bin_left,
+                     bin_right=self.bin_right, bin_logp=self.bin_logp,
+                     un_parent=self.un_parent, un_child=self.un_child,
+                     un_chain=self.un_chain, un_logp=self.un_logp,
+                     lex_symbols=self.lex_symbols, lex_logp=self.lex_logp)
+
+    @classmethod
+    def load(cls, path: str | Path) -> Grammar:
+        """Read a grammar written by :meth:`save`; GrammarError on anything else."""
+        try:
+            with open(path, "rb") as fh:
+                data = fh.read()
+            arrays = np.load(io.BytesIO(data), allow_pickle=False)
+            meta = json.loads(arrays["meta"].tobytes().decode("utf-8"))
+        except (OSError, ValueError, KeyError, UnicodeDecodeError) as exc:
+            raise GrammarError(f"{path}: not a Treewright grammar file ({exc})") from exc
+        version = meta.get("format_version")
+        if version != FORMAT_VERSION:
+            raise GrammarError(f"{path}: grammar format version {version!r} is not supported "
+                               f"(this build reads version {FORMAT_VERSION})")
+        try:
+            return cls(symbols=meta["symbols"], start=meta["start"], chains=meta["chains"],
+                       vocab=meta["vocab"], signatures=meta["signatures"], meta=meta["meta"],
+                       **{k: arrays[k] for k in ("bin_parent", "bin_left", "bin_right",
+                                                 "bin_logp", "un_parent", "un_child",
+                                                 "un_chain", "un_logp", "lex_symbols",
+                                                 "lex_logp")})
+        except KeyError as exc:
+            raise GrammarError(f"{path}: grammar file lacks {exc}") from exc
+
+    # ----------------------------------------------------------------- explicit rules
+    @classmethod
+    def from_text(cls, text: str, start: str | None = None) -> Grammar:
+        """Build a grammar from rule lines ``PROB  LHS -> RHS``.
+
+        RHS is one or two symbols, or one quoted terminal (``'word'``). ``#`` starts a
+        comment. The start symbol is ``start`` or the first rule's left-hand side. Unary rules
+        between symbols must form no cycle. Probabilities are used as given (no renormalizing).
+        """
+        rules: list[tuple[str, tuple[str, ...], float, bool]] = []
+        for lineno, raw in enumerate(text.splitlines(), 1):
+            line = raw.split("#", 1)[0].strip()
+            if not line:
+                continue
+            m = _RULE_LINE.match(line)
+            if not m:
+                raise GrammarError(f"line {lineno}: expected 'PROB  LHS -> RHS', got {raw!r}")
+            prob = float(m.group(1))
+            lhs = m.group(2)
+            rhs = m.group(3).split()
+            if not 0.0 < prob <= 1.0:
+                raise GrammarError(f"line {lineno}: probability {prob} not in (0, 1]")
+            if len(rhs) == 1 and len(rhs[0]) >= 2 and rhs[0][0] == rhs[0][-1] == "'":
+                rules.append((lhs, (rhs[0][1:-1],), prob, True))
+            elif 1 <= len(rhs) <= 2 and not any("'" in r for r in rhs):
+                rules.append((lhs, tuple(rhs), prob, False))
+            else:
+                raise GrammarError(f"line {lineno}: right-hand side must be one or two symbols "
+                                   f"or one quoted word, got {m.group(3)!r}")
+        if not rules:
+            raise GrammarError("no rules")
+        return _from_rules(rules, start or rules[0][0])
+
+    def __repr__(self) -> str:
+        return (f"Grammar({self.n_symbols} symbols, {len(self.bin_logp)} binary rules, "
+                f"{len(self.un_logp)} unary edges, {len(self.vocab)} words)")
+
+
+_RULE_LINE = re.compile(r"^([0-9.eE+-]+)\s+(\S+)\s*->\s*(.+)$")
+
+
+def _frozen(arr: np.ndarray, dtype: type) -> np.ndarray:
+    out = np.ascontiguousarray(np.asarray(arr, dtype=dtype))
+    if out is arr:
+        out = out.copy()
+    out.flags.writeable = False
+    return out
+
+
+def _from_rules(rules: list[tuple[str, tuple[str, ...], float, bool]], start: str) -> Grammar:
+    names: dict[str, int] = {}
+
+    def sym(name: str) -> int:
+        return names.setdefault(name, len(names))
+
+    sym(start)
+    unary: dict[str, list[tuple[str, float]]] = {}
+    binary: list[tuple[int, int, int, float]] = []
+    lexical: list[tuple[str, str, float]] = []
+    for lhs, rhs, prob, terminal in rules:
+        sym(lhs)
+        if terminal:
+            lexical.append((lhs, rhs[0], prob))
+        elif len(rhs) == 1:
+            sym(rhs[0])
+            unary.setdefault(lhs, []).append((rhs[0], prob))
+        else:
+            binary.append((sym(lhs), sym(rhs[0]), sym(rhs[1]), prob))
+    u_mass = {a: sum(p for _, p in lst) for a, lst in unary.items()}
+    for a, m in u_mass.items():
+        if m > 1.0 + 1e-9:
+            raise GrammarError(f"unary rules of {a} sum to {m} > 1")
+    # Bottom role of B: its binary and lexical rules, renormalized by 1 - u(B).
+    stay = {a: 1.0 - u_mass.get(a, 0.0) for a in names}
+    chains: list[tuple[str, ...]] = []
+    chain_index: dict[tuple[str, ...], int] = {}
+    edges: list[tuple[int, int, int, float]] = []
+
+    def walk(chain: tuple[str, ...], prob: float) -> None:
+        head = chain[-1]
+        if stay[head] > 1e-15:
+            key = chain
+            ci = chain_index.setdefault(key, len(chains))
+            if ci == len(chains):
+                chains.append(key)
+            edges.append((names[chain[0]], names[head], ci, prob * stay[head]))
+        for child, p in unary.get(head, []):
+            if child in chain:
+                raise GrammarError(f"unary cycle through {' -> '.join(chain + (child,))}")
+            walk(chain + (child,), prob * p)
+
+    for a in list(names):
+        walk((a,), 1.0)
+    vocab = sorted({w for _, w, _ in lexical})
+    lex_names = sorted({a for a, _, _ in lexical}, key=names.__getitem__)
+    lex_row = {a: i for i, a in enumerate(lex_names)}
+    col = {w: i for i, w in enumerate(vocab)}
+    lex = np.full((len(lex_names), len(vocab)), -np.inf)
+    for a, w, p in lexical:
+        lex[lex_row[a], col[w]] = np.logaddexp(lex[lex_row[a], col[w]], math.log(p / stay[a]))
+    b = np.array(binary, dtype=float).reshape(-1, 4)
+    stays = np.array([stay[n] for n in names])
+    e = np.array(edges, dtype=float).reshape(-1, 4)
+    symbols = sorted(names, key=names.__getitem__)
+    return Grammar(
+        symbols=symbols, start=names[start],
+        bin_parent=b[:, 0], bin_left=b[:, 1], bin_right=b[:, 2],
+        bin_logp=np.log(b[:, 3]) - np.log(stays[b[:, 0].astype(int)]),
+        un_parent=e[:, 0], un_child=e[:, 1], un_chain=e[:, 2], un_logp=np.log(e[:, 3]),
+        chains=chains, lex_symbols=np.array([names[a] for a in lex_names]), lex_logp=lex,
+        vocab=vocab, signatures=[], meta={"signature_scheme": "none", "source": "rules"})
+
+
+# --------------------------------------------------------------------------- training
+def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
+                  vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
+                  tag_ancestors: int = 0, features: Sequence[str] = (),
+                  alpha: float = 1.0, beta: float = 1.0) -> Grammar:
+    """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
+
+    ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
+    ``tag_ancestors``: parent annotation of POS tags; ``features``: names of extra
+    annotations from :mod:`parser.annotate`; ``alpha``/``beta``: lexicon smoothing
+    (see :mod:`parser.lexicon`). ``progress(done, total)`` is called now and then.
+    Raises GrammarError when there is no tree or the trees disagree on the root label.
+    """
+    from parser.annotate import annotators_for
+
+    t0 = time.perf_counter()
+    tree_list = list(trees)
+    if not tree_list:
+        raise GrammarError("cannot train a grammar from zero trees")
+    annotators = annotators_for(features)
+    names: dict[str, int] = {}
+    chains: dict[tuple[str, ...], int] = {}
+    edge_count: Counter[tuple[int, int, int]] = Counter()
+    top_count: Counter[int] = Counter()
+    bin_count: Counter[tuple[int, int, int]] = Counter()
+    bottom_count: Counter[int] = Counter()
+    lex_obs: list[tuple[int, str, bool]] = []
+    root_label: str | None = None
+
+    def sym(label: str) -> int:
+        return names.setdefault(label, len(names))
+
+    def top(node: Tree) -> int:
+        chain = [node.label()]
+        cur = node
+        while len(cur) == 1 and not isinstance(cur[0], str):
+            cur = cur[0]
+            chain.append(cur.label())
+        key = tuple(chain)
+        ci = chains.setdefault(key, len(chains))
+        a = sym(chain[0])
+        b = sym(chain[-1])
+        edge_count[(a, b, ci)] += 1
+        top_count[a] += 1
+        bottom_count[b] += 1
+        if len(cur) == 1:
+            lex_obs.append((b, cur[0], False))
+        elif len(cur) == 2:
+            bin_count[(b, top(cur[0]), top(cur[1]))] += 1
+        else:
+            raise GrammarError(f"node {cur.label()!r} has {len(cur)} children after binarizing")
+        return a
+
+    total = len(tree_list)
+    for i, tree in enumerate(tree_list):
+        if not isinstance(tree, Tree):
+            raise GrammarError(f"training item {i} is not a tree: {tree!r}")
+        cleaned = bz.clean_tree(tree)
+        if root_label is None:
+            root_label = cleaned.label()
+        elif cleaned.label() != root_label:
+            raise GrammarError(f"tree {i} has root label {cleaned.label()!r}, "
+                               f"the first tree had {root_label!r}")
+        binary = bz.binarize(cleaned, horizontal, vertical, tag_ancestors, annotators)
+        n_before = len(lex_obs)
+        top(binary)
+        if len(lex_obs) > n_before:
+            first_tag, first_word, _ = lex_obs[n_before]
+            lex_obs[n_before] = (first_tag, first_word, True)
+        if progress is not None and (i % 200 == 0 or i == total - 1):
+            progress(i + 1, total)
+    assert root_label is not None
+    start = names[root_label]
+    symbols = sorted(names, key=names.__getitem__)
+    n = len(symbols)
+    bottom = np.array([bottom_count[i] for i in range(n)], dtype=float)
+    tops = np.array([top_count[i] for i in range(n)], dtype=float)
+
+    bins = np.array([(a, b, c, k) for (a, b, c), k in bin_count.items()], dtype=float)
+    bins = bins.reshape(-1, 4)
+    bin_logp = np.log(bins[:, 3]) - np.log(bottom[bins[:, 0].astype(int)])
+    edges = np.array([(a, b, ci, k) for (a, b, ci), k in edge_count.items()], dtype=float)
+    un_logp = np.log(edges[:, 3]) - np.log(tops[edges[:, 0].astype(int)])
+
+    lex_ids = sorted({t for t, _, _ in lex_obs})
+    lex_row = {t: i for i, t in enumerate(lex_ids)}
+    lex_logp, vocab, sigs = estimate_lexicon(
+        ((lex_row[t], w, f) for t, w, f in lex_obs), len(lex_ids), alpha=alpha, beta=beta)
+    # Lexical share of each lexical symbol's bottom role (1 for pure POS tags).
+    lex_count = Counter(t for t, _, _ in lex_obs)
+    share = np.array([lex_count[t] / bottom[t] for t in lex_ids])
+    lex_logp = lex_logp + np.log(share)[:, None]
+    chain_list = sorted(chains, key=chains.__getitem__)
+    meta = {
+        "signature_scheme": SCHEME, "source": "trees", "horizontal": horizontal,
+        "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
+        "alpha": alpha, "beta": beta, "trees": total,
+        "tag_counts": {symbols[t]: lex_count[t] for t in lex_ids},
+        "seconds": round(time.perf_counter() - t0, 3),
+    }
+    return Grammar(symbols=symbols, start=start,
+                   bin_parent=bins[:, 0], bin_left=bins[:, 1], bin_right=bins[:, 2],
+                   bin_logp=bin_logp, un_parent=edges[:, 0], un_child=edges[:, 1],
+                   un_chain=edges[:, 2], un_logp=un_logp, chains=chain_list,
+                   lex_symbols=np.array(lex_ids), lex_logp=lex_logp, vocab=vocab,
+                   signatures=sigs, meta=meta)
