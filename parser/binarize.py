@@ -28,6 +28,7 @@ from collections.abc import Callable, Sequence
 from nltk import Tree
 
 from parser.errors import GrammarError
+from parser.trees import drop_empty_elements, strip_function_tags
 
 INTERMEDIATE = "@"
 ANCESTOR = "^"
@@ -40,43 +41,20 @@ _RESERVED = (ANCESTOR, FEATURE, SIBLINGS)
 Annotator = Callable[[Tree, Sequence[str]], str]
 
 
-def strip_function_tags(label: str) -> str:
-    """``NP-SBJ-1`` -> ``NP``, ``NP=2`` -> ``NP``; labels starting with ``-`` stay whole."""
-    if label.startswith("-"):
-        return label
-    for i, ch in enumerate(label):
-        if ch in "-=" and i > 0:
-            return label[:i]
-    return label
-
-
 def is_preterminal(node: Tree) -> bool:
     """True for a node whose only child is a word."""
     return len(node) == 1 and isinstance(node[0], str)
 
 
-def clean_tree(tree: Tree, empty_tag: str = "-NONE-") -> Tree:
+def clean_tree(tree: Tree) -> Tree:
     """Return a copy with function tags stripped and empty elements removed.
 
     Raises GrammarError when nothing is left (a tree made only of empty elements).
     """
-    cleaned = _clean(tree, empty_tag)
+    cleaned = drop_empty_elements(strip_function_tags(tree))
     if cleaned is None:
         raise GrammarError(f"tree has no words after removing empty elements: {tree}")
     return cleaned
-
-
-def _clean(node: Tree | str, empty_tag: str) -> Tree | str | None:
-    if isinstance(node, str):
-        return node
-    if is_preterminal(node):
-        if node.label() == empty_tag:
-            return None
-        return Tree(strip_function_tags(node.label()), [node[0]])
-    kids = [c for c in (_clean(child, empty_tag) for child in node) if c is not None]
-    if not kids:
-        return None
-    return Tree(strip_function_tags(node.label()), kids)
 
 
 def base_label(label: str) -> str:

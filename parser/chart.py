@@ -36,6 +36,7 @@ from parser import kernels
 from parser.binarize import base_label, unbinarize
 from parser.errors import ConstraintError, ParserError
 from parser.grammar import Grammar
+from parser.trees import tree_from_spans
 
 POSTERIOR_THRESHOLD = 1e-3
 _TOP = 0
@@ -546,40 +547,15 @@ def fallback_tree(g: Grammar, words: Sequence[str], p: _Problem) -> Tree:
         best = int(np.argmax(row))
         tags.append(g.base[best] if row[best] > -np.inf else default_tag)
     default_label = _default_phrase(g)
-    # Nest required spans: longest first, children inside.
-    spans = sorted({(a, b): lab for a, b, lab in p.required}.items(),
-                   key=lambda x: (x[0][0], -(x[0][1] - x[0][0])))
-    leaves: list[Tree] = [Tree(t, [w]) for t, w in zip(tags, words, strict=True)]
-
-    def build(a: int, b: int, inner: list[tuple[tuple[int, int], str | None]]) -> list[Tree]:
-        out: list[Tree] = []
-        pos = a
-        x = 0
-        while x < len(inner):
-            (c, d), lab = inner[x]
-            out.extend(leaves[pos:c])
-            y = x + 1
-            while y < len(inner) and inner[y][0][1] <= d:
-                y += 1
-            kids = build(c, d, inner[x + 1:y])
-            if (c, d) == (a, b):
-                out.extend(kids)
-            elif d - c == 1 and lab is None:
-                out.extend(kids)
-            else:
-                out.append(Tree(lab or default_label, kids))
-            pos = d
-            x = y
-        out.extend(leaves[pos:b])
-        return out
-
-    full = [(sp, lab) for sp, lab in spans if sp == (0, len(words))]
-    rest = [(sp, lab) for sp, lab in spans if sp != (0, len(words))]
-    kids = build(0, len(words), rest)
-    for _, lab in full:
-        if lab is not None and lab != g.root_label:
-            kids = [Tree(lab, kids)]
-    return Tree(g.root_label, kids)
+    n = len(words)
+    spans: list[tuple[str, int, int]] = []
+    for a, b, lab in p.required:
+        if lab is None and (b - a == 1 or (a, b) == (0, n)):
+            continue  # the preterminal or the root already spans these words
+        if lab == g.root_label and (a, b) == (0, n):
+            continue
+        spans.append((lab or default_label, a, b))
+    return tree_from_spans(words, tags, spans, root=g.root_label)
 
 
 def _default_phrase(g: Grammar) -> str:

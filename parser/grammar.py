@@ -47,6 +47,7 @@ from nltk import Tree
 from parser import binarize as bz
 from parser.errors import GrammarError
 from parser.lexicon import SCHEME, estimate_lexicon, signature_backoff
+from parser.trees import escape_word
 
 FORMAT_VERSION = 1
 DEFAULT_HORIZONTAL = 1
@@ -145,6 +146,10 @@ class Grammar:
     def word_column(self, word: str, first: bool = False) -> int:
         """Lexicon column of ``word``: its own if known, else its finest known signature, else -1."""
         col = self._vocab_index.get(word)
+        if col is None:
+            col = self._vocab_index.get(escape_word(word, all_brackets=True))
+        if col is None:
+            col = self._vocab_index.get(escape_word(word))
         if col is not None:
             return col
         if self.meta.get("signature_scheme") == SCHEME:

@@ -1,0 +1,150 @@
+"""Command-line front ends of the parser: ``train`` a grammar from bracketed trees, ``parse``
+sentences from standard input. The coordinator registers both in the ``treewright`` group.
+
+``train TREEFILE... --out GRAMMAR [--horizontal H] [--vertical V]`` prints the grammar's size
+and the training time. ``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one
+sentence per line (tokens split on whitespace; with ``--tagged`` each token is ``word/TAG``,
+split at the last slash) and writes exactly one line per input line: the best tree in bracketed
+form, or with ``--json`` an object with the k trees, their log-probabilities, the inside
+log-probability, the span posteriors and the fallback flag. Empty input lines give empty
+output lines (``--json``: an object with no trees).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+import time
+from pathlib import Path
+
+import click
+from tqdm import tqdm
+
+from parser.batch import parse_many
+from parser.chart import Constraints, ParseResult
+from parser.errors import ParserError
+from parser.grammar import DEFAULT_HORIZONTAL, DEFAULT_VERTICAL, Grammar, train_grammar
+from parser.trees import read_trees, write_tree
+
+
+@click.command("train")
+@click.argument("treefiles", nargs=-1, required=True,
+                type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="Where to write the grammar (.npz).")
+@click.option("--horizontal", type=click.IntRange(min=0), default=DEFAULT_HORIZONTAL,
+              show_default=True, help="Previous siblings an intermediate node remembers.")
+@click.option("--vertical", type=click.IntRange(min=1), default=DEFAULT_VERTICAL,
+              show_default=True, help="1: plain labels; 2: parent annotation; 3: grandparent.")
+def train_command(treefiles: tuple[Path, ...], out: Path, horizontal: int,
+                  vertical: int) -> None:
+    """Train a grammar from bracketed tree files."""
+    t0 = time.perf_counter()
+    trees = []
+    for path in treefiles:
+        try:
+            text = path.read_text(encoding="utf-8")
+            trees.extend(read_trees(text, source=str(path)))
+        except UnicodeDecodeError as exc:
+            raise click.ClickException(f"{path}: not UTF-8 text ({exc})") from exc
+        except ParserError as exc:
+            raise click.ClickException(str(exc)) from exc
+    try:
+        with tqdm(total=len(trees), desc="training", unit="tree", file=sys.stderr,
+                  disable=len(trees) < 500) as bar:
+            def progress(done: int, total: int) -> None:
+                bar.update(done - bar.n)
+            g = train_grammar(trees, horizontal=horizontal, vertical=vertical,
+                              progress=progress)
+        g.save(out)
+    except ParserError as exc:
+        raise click.ClickException(str(exc)) from exc
+    seconds = time.perf_counter() - t0
+    click.echo(f"trees: {len(trees)}")
+    click.echo(f"rules: {len(g.bin_logp)} binary, {len(g.un_logp)} unary edges")
+    click.echo(f"nonterminals: {g.n_symbols} symbols ({len(g.labels)} labels, "
+               f"{len(g.tags)} POS tags)")
+    click.echo(f"vocabulary: {len(g.vocab)} words, {len(g.signatures)} unknown-word classes")
+    click.echo(f"time: {seconds:.2f} s")
+    click.echo(f"wrote {out}")
+
+
+def _tokens(line: str, lineno: int, tagged: bool) -> tuple[list[str], list[str | None]]:
+    words: list[str] = []
+    tags: list[str | None] = []
+    for col, token in enumerate(line.split(), 1):
+        if not tagged:
+            words.append(token)
+            continue
+        word, slash, tag = token.rpartition("/")
+        if not slash or not word or not tag:
+            raise click.ClickException(
+                f"line {lineno}, token {col} {token!r}: expected word/TAG")
+        words.append(word)
+        tags.append(tag)
+    return words, tags
+
+
+def _finite(x: float | None) -> float | None:
+    return x if x is not None and math.isfinite(x) else None
+
+
+def _as_json(r: ParseResult | None) -> str:
+    if r is None:
+        return json.dumps({"trees": [], "logprobs": [], "inside_logprob": None,
+                           "posteriors": [], "fallback": False})
+    return json.dumps({
+        "trees": [write_tree(t) for t in r.trees],
+        "logprobs": [_finite(x) for x in r.logprobs],
+        "inside_logprob": _finite(r.inside_logprob),
+        "posteriors": [[lab, a, b, round(p, 6)] for lab, a, b, p in r.posteriors],
+        "fallback": r.fallback,
+    })
+
+
+@click.command("parse")
+@click.option("--grammar", "grammar_path", required=True,
+              type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="A grammar written by train.")
+@click.option("--k", "k", type=click.IntRange(min=1), default=1, show_default=True,
+              help="How many trees per sentence (with --json).")
+@click.option("--tagged", is_flag=True, help="Tokens are word/TAG; the tags are kept.")
+@click.option("--json", "as_json", is_flag=True,
+              help="One JSON object per line: trees, log-probabilities, posteriors, fallback.")
+@click.option("--jobs", type=click.IntRange(min=1), default=2, show_default=True,
+              help="Worker processes.")
+def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, jobs: int) -> None:
+    """Parse sentences from standard input, one per line."""
+    try:
+        g = Grammar.load(grammar_path)
+    except ParserError as exc:
+        raise click.ClickException(str(exc)) from exc
+    stdin = click.get_text_stream("stdin")
+    lines = stdin.read().splitlines()
+    sentences: list[list[str]] = []
+    constraints: list[Constraints | None] = []
+    where: list[int] = []
+    for lineno, line in enumerate(lines, 1):
+        words, tags = _tokens(line, lineno, tagged)
+        if words:
+            sentences.append(words)
+            constraints.append(Constraints(tags=tags) if tagged else None)
+            where.append(lineno - 1)
+    with tqdm(total=len(sentences), desc="parsing", unit="sentence", file=sys.stderr,
+              disable=len(sentences) < 50) as bar:
+        def progress(done: int, total: int) -> None:
+            bar.update(done - bar.n)
+        try:
+            results = parse_many(g, sentences, k=k if as_json else 1, posteriors=as_json,
+                                 constraints=constraints, processes=jobs, progress=progress)
+        except ParserError as exc:
+            raise click.ClickException(str(exc)) from exc
+    by_line: list[ParseResult | None] = [None] * len(lines)
+    for x, r in zip(where, results, strict=True):
+        by_line[x] = r
+    for r in by_line:
+        if as_json:
+            click.echo(_as_json(r))
+        else:
+            click.echo(write_tree(r.trees[0]) if r is not None else "")
