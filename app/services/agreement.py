@@ -1,0 +1,335 @@
+"""The agreement log: labelled bracket agreement between the annotators of a sentence.
+
+What it computes
+    :func:`on_submitted` runs in the transaction that marks an annotation submitted. When every
+    annotation the sentence waits for is submitted, it scores each pair of submitted trees with
+    PARSEVAL labelled bracketing (:func:`parser.scoring.score_pair`, default conventions) and
+    stores one :class:`AgreementRecord` per pair. The earlier annotation (lower id) of a pair is
+    scored as "gold" and the later one as "test", so the record's precision is
+    ``matched / count_b`` and its recall ``matched / count_a``; F1 does not depend on the order.
+
+    When the sentence waits: if it has Assignment rows, it waits for every assigned annotator;
+    without assignments, for ``annotators_per_sentence`` submitted annotations (corpus setting).
+
+    Then the sentence moves on. All trees identical as bracketed trees (the same text once
+    written by :func:`parser.trees.write_tree`; the scoring conventions ignore punctuation
+    attachment and function tags, so "F1 = 1" is not enough to skip a human look) and the corpus
+    setting ``auto_gold_when_identical`` on: the tree becomes gold with provenance
+    ``agreement``. Otherwise the sentence goes to review. A single submitted annotation (a corpus
+    with one annotator per sentence) has no partner, so it goes to review too: nobody has
+    checked it yet. A sentence that is already gold keeps its gold; its records are still logged.
+
+    The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records:
+    corpus labelled F1 micro-averaged over all pairs (summed matched and constituent counts),
+    the same per annotator pair, per label (from each record's ``detail["per_label"]``), the
+    most frequent label confusions (``detail["confusions"]``) and F1 per week.
+
+Complexity: on_submitted scores k(k-1)/2 pairs for k annotations, each O(n + g*t) (see
+parser.scoring); corpus_figures reads every record of the corpus once, O(records * labels).
+Limits: records are never updated; a re-submission after a reopen logs new records beside
+the old ones (both stay in the log; the page counts each record once).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from collections import Counter, defaultdict
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta
+from itertools import combinations
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.models import (
+    ANN_SUBMITTED,
+    SENT_GOLD,
+    SENT_IN_REVIEW,
+    AgreementRecord,
+    Annotation,
+    Assignment,
+    Corpus,
+    Event,
+    Revision,
+    Sentence,
+    User,
+)
+from parser.scoring import Counts, label_confusions, score_pair
+from parser.trees import read_tree, write_tree
+
+# --------------------------------------------------------------------------------------------
+# logging agreement when annotations are submitted
+
+
+@dataclass(frozen=True)
+class SubmittedTree:
+    annotation: Annotation
+    revision: Revision
+    text: str  # canonical one-line form
+
+
+def current_revision(db: Session, annotation: Annotation) -> Revision | None:
+    """The annotation's newest revision (number == head), or None before the first save."""
+    return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
+                                            Revision.number == annotation.head))
+
+
+def submitted_trees(db: Session, sentence: Sentence) -> list[SubmittedTree]:
+    """Every submitted annotation of the sentence with its current tree, oldest first."""
+    anns = db.scalars(select(Annotation).where(Annotation.sentence_id == sentence.id,
+                                               Annotation.state == ANN_SUBMITTED)
+                      .order_by(Annotation.id)).all()
+    out: list[SubmittedTree] = []
+    for ann in anns:
+        rev = current_revision(db, ann)
+        if rev is None:
+            continue
+        out.append(SubmittedTree(ann, rev, write_tree(read_tree(rev.tree))))
+    return out
+
+
+def is_complete(db: Session, sentence: Sentence, corpus: Corpus,
+                submitted: Sequence[SubmittedTree]) -> bool:
+    """Whether every annotation the sentence waits for is submitted (see the module doc)."""
+    assigned = set(db.scalars(select(Assignment.user_id)
+                              .where(Assignment.sentence_id == sentence.id)).all())
+    done = {s.annotation.user_id for s in submitted}
+    if assigned:
+        return assigned <= done
+    return len(done) >= int(corpus.setting("annotators_per_sentence") or 1)
+
+
+def _record_exists(db: Session, a: SubmittedTree, b: SubmittedTree) -> bool:
+    rows = db.scalars(select(AgreementRecord).where(
+        AgreementRecord.annotation_a_id == a.annotation.id,
+        AgreementRecord.annotation_b_id == b.annotation.id)).all()
+    return any(r.detail.get("revision_a") == a.revision.id
+               and r.detail.get("revision_b") == b.revision.id for r in rows)
+
+
+def score_record(corpus_id: int, sentence_id: int, a: SubmittedTree,
+                 b: SubmittedTree) -> AgreementRecord:
+    """An (unsaved) agreement record of tree ``b`` scored against tree ``a``."""
+    tree_a = read_tree(a.text)
+    tree_b = read_tree(b.text)
+    s = score_pair(tree_a, tree_b)
+    confusions = label_confusions(tree_a, tree_b)
+    return AgreementRecord(
+        corpus_id=corpus_id, sentence_id=sentence_id,
+        annotation_a_id=a.annotation.id, annotation_b_id=b.annotation.id,
+        user_a_id=a.annotation.user_id, user_b_id=b.annotation.user_id,
+        matched=s.labelled.matched, count_a=s.labelled.gold, count_b=s.labelled.test,
+        labelled_precision=s.labelled.precision, labelled_recall=s.labelled.recall,
+        labelled_f1=s.labelled.f1, unlabelled_f1=s.unlabelled.f1,
+        pos_agreement=s.pos_accuracy, identical=a.text == b.text,
+        detail={
+            "revision_a": a.revision.id, "revision_b": b.revision.id,
+            "unlabelled": [s.unlabelled.matched, s.unlabelled.gold, s.unlabelled.test],
+            "pos": [s.pos_correct, s.pos_total],
+            "crossing": s.crossing, "words": s.length,
+            "per_label": {label: [c.matched, c.gold, c.test]
+                          for label, c in sorted(s.per_label.items())},
+            "confusions": [[ga, tb, n] for (ga, tb), n in sorted(confusions.items())],
+        })
+
+
+def on_submitted(db: Session, sentence: Sentence) -> None:
+    """Log agreement and route the sentence once all its annotations are submitted.
+
+    Called by the Bench's submit in the same transaction, after the annotation is marked
+    submitted (and flushed or not: this function flushes). Does not commit.
+    """
+    from app.services.review import make_gold  # review imports this module's helpers
+    from app.services.training import queue_if_due
+
+    db.flush()
+    corpus = db.get(Corpus, sentence.corpus_id)
+    if corpus is None:  # the corpus was deleted under us; nothing to route
+        return
+    submitted = submitted_trees(db, sentence)
+    if not submitted or not is_complete(db, sentence, corpus, submitted):
+        return
+    logged = 0
+    for a, b in combinations(submitted, 2):
+        if _record_exists(db, a, b):
+            continue
+        db.add(score_record(corpus.id, sentence.id, a, b))
+        logged += 1
+    identical = len(submitted) > 1 and len({s.text for s in submitted}) == 1
+    if sentence.state == SENT_GOLD:
+        outcome = "already gold"
+    elif identical and corpus.setting("auto_gold_when_identical"):
+        make_gold(db, sentence, submitted[0].text, provenance="agreement",
+                  source_annotation_id=submitted[0].annotation.id)
+        outcome = "gold"
+    else:
+        sentence.state = SENT_IN_REVIEW
+        outcome = "in_review"
+    db.add(Event(kind="agreement.logged", corpus_id=corpus.id, sentence_id=sentence.id,
+                 detail={"pairs": logged, "annotations": [s.annotation.id for s in submitted],
+                         "outcome": outcome}))
+    db.flush()
+    if outcome == "gold":
+        queue_if_due(db, corpus)
+
+
+# --------------------------------------------------------------------------------------------
+# figures for the Agreement page
+
+
+@dataclass
+class PairFigures:
+    user_a: str
+    user_b: str
+    sentences: int = 0
+    counts: Counts = field(default_factory=Counts)
+    unlabelled: Counts = field(default_factory=Counts)
+    pos_correct: int = 0
+    pos_total: int = 0
+    identical: int = 0
+
+    @property
+    def pos_agreement(self) -> float:
+        return self.pos_correct / self.pos_total if self.pos_total else 1.0
+
+
+@dataclass(frozen=True)
+class LabelFigures:
+    label: str
+    counts: Counts
+
+
+@dataclass(frozen=True)
+class PeriodFigures:
+    start: datetime
+    records: int
+    counts: Counts
+
+
+@dataclass
+class CorpusAgreement:
+    records: int
+    sentences: int
+    counts: Counts
+    unlabelled: Counts
+    pos_correct: int
+    pos_total: int
+    identical: int
+    pairs: list[PairFigures]
+    labels: list[LabelFigures]  # worst F1 first
+    confusions: list[tuple[str, str, int]]  # most frequent first
+    weeks: list[PeriodFigures]
+
+    @property
+    def pos_agreement(self) -> float:
+        return self.pos_correct / self.pos_total if self.pos_total else 1.0
+
+
+def _triple(v: object) -> Counts:
+    if isinstance(v, list | tuple) and len(v) == 3:
+        return Counts(int(v[0]), int(v[1]), int(v[2]))
+    return Counts()
+
+
+def week_start(at: datetime) -> datetime:
+    """Monday 00:00 of ``at``'s week."""
+    day = at - timedelta(days=at.weekday())
+    return day.replace(hour=0, minute=0, second=0, microsecond=0)
+
+
+def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
+    """Sum every agreement record of the corpus into the Agreement page's figures."""
+    records = db.scalars(select(AgreementRecord).where(AgreementRecord.corpus_id == corpus_id)
+                         .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
+    names = _user_names(db, {r.user_a_id for r in records} | {r.user_b_id for r in records})
+    total = unl = Counts()
+    pos_c = pos_t = identical = 0
+    pairs: dict[tuple[int, int], PairFigures] = {}
+    pair_sentences: dict[tuple[int, int], set[int]] = defaultdict(set)
+    labels: dict[str, Counts] = {}
+    confusions: Counter[tuple[str, str]] = Counter()
+    weeks: dict[datetime, list[Counts]] = defaultdict(list)
+    for r in records:
+        c = Counts(r.matched, r.count_a, r.count_b)
+        u = _triple(r.detail.get("unlabelled"))
+        pos = r.detail.get("pos") or [0, 0]
+        total += c
+        unl += u
+        pos_c += int(pos[0])
+        pos_t += int(pos[1])
+        identical += bool(r.identical)
+        key = (min(r.user_a_id, r.user_b_id), max(r.user_a_id, r.user_b_id))
+        pf = pairs.get(key)
+        if pf is None:
+            pf = pairs[key] = PairFigures(names.get(key[0], "?"), names.get(key[1], "?"))
+        pf.counts += c
+        pf.unlabelled += u
+        pf.pos_correct += int(pos[0])
+        pf.pos_total += int(pos[1])
+        pf.identical += bool(r.identical)
+        pair_sentences[key].add(r.sentence_id)
+        for label, v in (r.detail.get("per_label") or {}).items():
+            labels[label] = labels.get(label, Counts()) + _triple(v)
+        for ga, tb, n in r.detail.get("confusions") or []:
+            # a confusion is unordered between two annotators: NP/QP is QP/NP
+            confusions[tuple(sorted((str(ga), str(tb))))] += int(n)  # type: ignore[index]
+        weeks[week_start(r.created_at)].append(c)
+    for key, pf in pairs.items():
+        pf.sentences = len(pair_sentences[key])
+    label_rows = sorted((LabelFigures(k, v) for k, v in labels.items()),
+                        key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test),
+                                        lf.label))
+    week_rows = [PeriodFigures(w, len(cs), sum(cs, Counts())) for w, cs in sorted(weeks.items())]
+    return CorpusAgreement(
+        records=len(records), sentences=len({r.sentence_id for r in records}), counts=total,
+        unlabelled=unl, pos_correct=pos_c, pos_total=pos_t, identical=identical,
+        pairs=sorted(pairs.values(), key=lambda p: (p.user_a, p.user_b)),
+        labels=label_rows,
+        confusions=[(a, b, n) for (a, b), n in confusions.most_common(top_confusions)],
+        weeks=week_rows)
+
+
+def _user_names(db: Session, ids: Iterable[int]) -> dict[int, str]:
+    wanted = list(ids)
+    if not wanted:
+        return {}
+    return {u.id: u.display_name or u.username
+            for u in db.scalars(select(User).where(User.id.in_(wanted))).all()}
+
+
+CSV_COLUMNS = ("record_id", "logged_at", "sentence_id", "document", "position",
+               "annotator_a", "annotator_b", "annotation_a_id", "annotation_b_id",
+               "matched", "count_a", "count_b", "labelled_precision", "labelled_recall",
+               "labelled_f1", "unlabelled_f1", "pos_agreement", "crossing", "identical")
+
+
+def agreement_csv(db: Session, corpus_id: int) -> str:
+    """The corpus's agreement log as CSV (one row per record, oldest first)."""
+    from app.models import Document
+
+    rows = db.execute(
+        select(AgreementRecord, Sentence.position, Document.name)
+        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+        .join(Document, Document.id == Sentence.document_id)
+        .where(AgreementRecord.corpus_id == corpus_id)
+        .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
+    names = _user_names(db, {r.user_a_id for r, _, _ in rows} | {r.user_b_id for r, _, _ in rows})
+    out = io.StringIO()
+    w = csv.writer(out, lineterminator="\n")
+    w.writerow(CSV_COLUMNS)
+    for r, position, doc in rows:
+        w.writerow([r.id, r.created_at.isoformat(timespec="seconds"), r.sentence_id,
+                    _csv_safe(doc), position, _csv_safe(names.get(r.user_a_id, "")),
+                    _csv_safe(names.get(r.user_b_id, "")), r.annotation_a_id, r.annotation_b_id,
+                    r.matched, r.count_a, r.count_b, f"{r.labelled_precision:.4f}",
+                    f"{r.labelled_recall:.4f}", f"{r.labelled_f1:.4f}",
+                    f"{r.unlabelled_f1:.4f}", f"{r.pos_agreement:.4f}",
+                    r.detail.get("crossing", ""), int(r.identical)])
+    return out.getvalue()
+
+
+def _csv_safe(text: str) -> str:
+    """Defuse spreadsheet formulas in user-chosen names (a leading = + - @ becomes text)."""
+    return "'" + text if text[:1] in ("=", "+", "-", "@") else text

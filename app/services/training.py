@@ -1,0 +1,593 @@
+"""The gold loop: train the next grammar version of a corpus on its gold, in the background.
+
+What it computes
+    A *job* is a GrammarVersion row. It is queued (status ``queued``) either on demand
+    (:func:`schedule_training`, the Grammars page's button) or by :func:`queue_if_due` when the
+    corpus has ``retrain_every`` (corpus setting) more current gold trees than it had when the
+    latest version was queued. A runner claims queued rows one at a time
+    (``UPDATE ... WHERE status = 'queued'``, so two runners never take the same row) and runs
+    :func:`run_version`:
+
+    1. read every current gold tree of the corpus (imported seed gold included), in sentence-id
+       order; a tree's root is normalised to ``ROOT`` (an empty or TOP wrapper is renamed, any
+       other root gets a ROOT above it) because the grammar needs one root label;
+    2. hold out the gold of every sentence whose ``id % heldout_every == 0`` (corpus setting).
+       Keyed on the sentence id, not on the position in the list, so a sentence held out once
+       stays held out while gold grows, and versions are scored on nested slices;
+    3. train a grammar on the rest (parser.grammar.train_grammar, default markovization),
+       parse the words of each held-out tree with it (Viterbi, parser.chart.parse) and score
+       the parses against the held-out gold with PARSEVAL (parser.scoring.score_corpus,
+       default conventions): that is ``heldout_f1``;
+    4. train the grammar that is stored and used on *all* gold, held-out slice included. The
+       held-out F1 is then an estimate for a grammar trained on slightly less data (a
+       ``1/heldout_every`` share less); we accept that small pessimism because every version is
+       measured the same way and the suggestions get all the gold there is;
+    5. make the version active unless the active version's held-out F1 exceeds the new one's
+       by more than ``max_f1_drop`` (corpus setting): then its status is ``rejected`` (the
+       grammar is still stored; nothing is thrown away);
+    6. refresh the suggestions of sentences nobody has started
+       (app.services.suggestions.refresh_unstarted).
+
+    Progress (0..1) and a message are written to the row as the job goes; ``train_seconds`` is
+    the wall time of steps 1-5 and ``options["timing"]`` splits it.
+
+Where jobs run
+    A :class:`TrainingRunner` per app (``app.state.training_runner``) owns an executor with one
+    worker: a separate process (``ProcessPoolExecutor``, spawn start method, so the web
+    process's threads and connections are not forked) or, with the setting
+    ``training_in_process`` (tests), a thread. The web process only submits a "drain the
+    queue" call, which takes microseconds; the worker does all the reading, training, parsing
+    and writing with its own database connection. Only one job per corpus is queued or
+    training at a time; a runner runs one job at a time overall.
+
+    A job queued inside a request's transaction (a settle, or a submit that made gold) starts
+    after that transaction commits: a SQLAlchemy ``after_commit`` hook kicks the runner
+    registered for the session's engine. A runner that starts (first use, or service start)
+    marks rows left in ``training`` by a dead process as failed, then drains the queue.
+
+Complexity: training is linear in the gold tree nodes; held-out scoring costs one CKY parse
+per held-out tree (O(n^3) each), which dominates on large corpora.
+Limits: one process trains at a time; a job cannot be cancelled once it runs.
+"""
+
+from __future__ import annotations
+
+import logging
+import multiprocessing
+import os
+import tempfile
+import threading
+import time
+import weakref
+from collections.abc import Callable
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from nltk import Tree
+from sqlalchemy import Engine, event, func, select, update
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session, sessionmaker
+
+from app.models import (
+    GV_FAILED,
+    GV_QUEUED,
+    GV_READY,
+    GV_REJECTED,
+    GV_TRAINING,
+    Corpus,
+    Event,
+    Gold,
+    GrammarVersion,
+    Sentence,
+    utcnow,
+)
+from app.services.errors import NotFound
+from parser.grammar import Grammar, train_grammar
+from parser.scoring import score_corpus
+from parser.trees import drop_empty_elements, read_tree, words
+
+log = logging.getLogger(__name__)
+
+ROOT_LABEL = "ROOT"
+KICK_FLAG = "treewright_training_kick"
+#: Seconds between two progress writes to the database (a job writes far less often than this
+#: in its slow phases; the cap keeps the fast ones from hammering the row).
+PROGRESS_EVERY = 0.5
+
+# --------------------------------------------------------------------------------------------
+# queueing
+
+
+def current_gold_count(db: Session, corpus_id: int) -> int:
+    return db.scalar(select(func.count(Gold.id)).join(Sentence, Sentence.id == Gold.sentence_id)
+                     .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))) or 0
+
+
+def latest_version(db: Session, corpus_id: int) -> GrammarVersion | None:
+    return db.scalar(select(GrammarVersion).where(GrammarVersion.corpus_id == corpus_id)
+                     .order_by(GrammarVersion.number.desc()).limit(1))
+
+
+def open_job(db: Session, corpus_id: int) -> GrammarVersion | None:
+    """The corpus's queued or running job, if any."""
+    return db.scalar(select(GrammarVersion).where(
+        GrammarVersion.corpus_id == corpus_id,
+        GrammarVersion.status.in_((GV_QUEUED, GV_TRAINING))).order_by(GrammarVersion.number)
+        .limit(1))
+
+
+def new_gold_since_last(db: Session, corpus: Corpus) -> int:
+    last = latest_version(db, corpus.id)
+    return current_gold_count(db, corpus.id) - (last.gold_count_at_start if last else 0)
+
+
+def _queue(db: Session, corpus: Corpus, reason: str, user_id: int | None) -> GrammarVersion | None:
+    """Insert the next queued version (in a savepoint) or return None when another
+    transaction took the number first."""
+    last = latest_version(db, corpus.id)
+    version = GrammarVersion(corpus_id=corpus.id, number=(last.number + 1) if last else 1,
+                             status=GV_QUEUED, progress=0.0, message="waiting for the trainer",
+                             options={"reason": reason, "requested_by": user_id},
+                             gold_count_at_start=current_gold_count(db, corpus.id))
+    try:
+        with db.begin_nested():
+            db.add(version)
+            db.flush()
+    except IntegrityError:
+        return None
+    db.add(Event(user_id=user_id, kind="grammar.queued", corpus_id=corpus.id,
+                 detail={"version": version.number, "reason": reason}))
+    db.info[KICK_FLAG] = True
+    return version
+
+
+def queue_if_due(db: Session, corpus: Corpus) -> GrammarVersion | None:
+    """Queue the next version when ``retrain_every`` new gold trees have arrived. Does not
+    commit; the job starts once the caller's transaction commits."""
+    every = int(corpus.setting("retrain_every") or 0)
+    if every <= 0 or open_job(db, corpus.id) is not None:
+        return None
+    if new_gold_since_last(db, corpus) < every:
+        return None
+    return _queue(db, corpus, f"{every} new gold trees", None)
+
+
+def request_training(db: Session, corpus_id: int, *, reason: str,
+                     user_id: int | None = None) -> GrammarVersion:
+    """Queue a version of the corpus now, or return the one already queued or training.
+    Commits."""
+    corpus = db.get(Corpus, corpus_id)
+    if corpus is None:
+        raise NotFound(f"no corpus with id {corpus_id}")
+    for _ in range(3):
+        existing = open_job(db, corpus_id)
+        if existing is not None:
+            return existing
+        version = _queue(db, corpus, reason, user_id)
+        if version is not None:
+            db.commit()
+            return version
+    raise NotFound(f"could not queue a grammar for corpus {corpus_id}")  # pragma: no cover
+
+
+# --------------------------------------------------------------------------------------------
+# one job
+
+
+def rooted(tree: Tree) -> Tree:
+    """``tree`` with ROOT as its root label (see step 1 of the module docstring)."""
+    if tree.label() == ROOT_LABEL:
+        return tree
+    if tree.label() in ("", "TOP"):
+        return Tree(ROOT_LABEL, list(tree))
+    return Tree(ROOT_LABEL, [tree])
+
+
+def grammar_bytes(grammar: Grammar) -> bytes:
+    """The grammar's saved form (Grammar.save's .npz file) as bytes for the database."""
+    fd, path = tempfile.mkstemp(suffix=".npz")
+    os.close(fd)
+    try:
+        grammar.save(path)
+        with open(path, "rb") as fh:
+            return fh.read()
+    finally:
+        os.unlink(path)
+
+
+@dataclass(frozen=True)
+class GoldTree:
+    sentence_id: int
+    tree: Tree
+
+
+def load_gold(db: Session, corpus_id: int) -> list[GoldTree]:
+    """Current gold of the corpus in sentence-id order, empty elements removed, ROOT-rooted."""
+    rows = db.execute(select(Gold.sentence_id, Gold.tree, Gold.id)
+                      .join(Sentence, Sentence.id == Gold.sentence_id)
+                      .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+                      .order_by(Gold.sentence_id, Gold.id)).all()
+    latest: dict[int, str] = {}
+    for sid, text, _ in rows:
+        latest[sid] = text  # the newest current row wins (there should be one)
+    out = []
+    for sid, text in latest.items():
+        tree = drop_empty_elements(read_tree(text))
+        if tree is not None and words(tree):
+            out.append(GoldTree(sid, rooted(tree)))
+    return out
+
+
+def split_heldout(gold: list[GoldTree], every: int) -> tuple[list[GoldTree], list[GoldTree]]:
+    """(training slice, held-out slice): held out are sentences with ``id % every == 0``."""
+    if every < 2:
+        return list(gold), []
+    train = [g for g in gold if g.sentence_id % every]
+    held = [g for g in gold if not g.sentence_id % every]
+    if not train:  # too little gold to hold any out
+        return list(gold), []
+    return train, held
+
+
+class _Progress:
+    """Writes progress to the version row, at most every PROGRESS_EVERY seconds."""
+
+    def __init__(self, factory: sessionmaker[Session], version_id: int) -> None:
+        self.factory = factory
+        self.version_id = version_id
+        self.last = 0.0
+
+    def __call__(self, progress: float, message: str, force: bool = False) -> None:
+        now = time.monotonic()
+        if not force and now - self.last < PROGRESS_EVERY:
+            return
+        self.last = now
+        with self.factory() as db:
+            db.execute(update(GrammarVersion).where(GrammarVersion.id == self.version_id)
+                       .values(progress=round(min(max(progress, 0.0), 1.0), 4),
+                               message=message))
+            db.commit()
+
+    def phase(self, lo: float, hi: float, what: str) -> Callable[[int, int], None]:
+        def report(done: int, total: int) -> None:
+            self(lo + (hi - lo) * done / max(total, 1), f"{what} ({done} of {total})")
+        return report
+
+
+def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int | None:
+    """Take the oldest queued job (or the given one) for this worker; None if none left."""
+    with factory() as db:
+        query = select(GrammarVersion.id).where(GrammarVersion.status == GV_QUEUED)
+        if version_id is not None:
+            query = query.where(GrammarVersion.id == version_id)
+        for vid in db.scalars(query.order_by(GrammarVersion.created_at, GrammarVersion.id)):
+            moved = db.execute(update(GrammarVersion)
+                               .where(GrammarVersion.id == vid, GrammarVersion.status == GV_QUEUED)
+                               .values(status=GV_TRAINING, progress=0.0, message="starting")
+                               .execution_options(synchronize_session=False))
+            db.commit()
+            if moved.rowcount == 1:
+                return vid
+        return None
+
+
+def run_version(factory: sessionmaker[Session], version_id: int) -> None:
+    """Run one claimed job (status ``training``) to its end; failures land in the row."""
+    progress = _Progress(factory, version_id)
+    try:
+        _run(factory, version_id, progress)
+    except Exception as exc:  # noqa: BLE001 - every failure must reach the row, not vanish
+        log.exception("training grammar version %s failed", version_id)
+        with factory() as db:
+            db.execute(update(GrammarVersion).where(GrammarVersion.id == version_id)
+                       .values(status=GV_FAILED, message=f"failed: {exc}"[:2000],
+                               finished_at=utcnow()))
+            db.commit()
+
+
+def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -> None:
+    t0 = time.perf_counter()
+    with factory() as db:
+        version = db.get(GrammarVersion, version_id)
+        if version is None:
+            return
+        corpus = db.get(Corpus, version.corpus_id)
+        assert corpus is not None
+        corpus_id = corpus.id
+        every = int(corpus.setting("heldout_every") or 0)
+        max_drop = float(corpus.setting("max_f1_drop") or 0.0)
+        gold = load_gold(db, corpus_id)
+        version.gold_count_at_start = current_gold_count(db, corpus_id)
+        db.commit()
+    progress(0.02, f"read {len(gold)} gold trees", force=True)
+    if not gold:
+        raise ValueError("the corpus has no gold trees to train on")
+    train, held = split_heldout(gold, every)
+    t_load = time.perf_counter()
+
+    heldout_f1: float | None = None
+    heldout_detail: dict[str, Any] = {}
+    if held:
+        g_slice = train_grammar([g.tree for g in train],
+                                progress=progress.phase(0.02, 0.2, "training on the slice"))
+        heldout_f1, heldout_detail = _score_heldout(g_slice, held, progress)
+    t_eval = time.perf_counter()
+    grammar = train_grammar([g.tree for g in gold],
+                            progress=progress.phase(0.85, 0.95, "training on all gold"))
+    data = grammar_bytes(grammar)
+    t_final = time.perf_counter()
+
+    with factory() as db:
+        version = db.get(GrammarVersion, version_id)
+        corpus = db.get(Corpus, corpus_id)
+        assert version is not None and corpus is not None
+        active = db.get(GrammarVersion, corpus.active_grammar_id) if corpus.active_grammar_id \
+            else None
+        rejected = (active is not None and active.id != version.id
+                    and active.heldout_f1 is not None and heldout_f1 is not None
+                    and heldout_f1 < active.heldout_f1 - max_drop)
+        version.data = data
+        version.training_size = len(gold)
+        version.heldout_size = len(held)
+        version.heldout_f1 = heldout_f1
+        version.train_seconds = round(t_final - t0, 3)
+        version.options = {**(version.options or {}),
+                           "heldout_every": every, "max_f1_drop": max_drop,
+                           "markovization": {"horizontal": grammar.meta.get("horizontal"),
+                                             "vertical": grammar.meta.get("vertical")},
+                           "slice_size": len(train), "heldout": heldout_detail,
+                           "timing": {"load": round(t_load - t0, 3),
+                                      "slice_and_heldout": round(t_eval - t_load, 3),
+                                      "final": round(t_final - t_eval, 3)}}
+        version.finished_at = utcnow()
+        version.progress = 1.0
+        f1_text = "no held-out gold" if heldout_f1 is None else f"held-out F1 {heldout_f1:.4f}"
+        if rejected:
+            assert active is not None and active.heldout_f1 is not None
+            version.status = GV_REJECTED
+            version.message = (f"rejected: {f1_text} is more than {max_drop:g} below the active "
+                               f"version {active.number} ({active.heldout_f1:.4f})")
+        else:
+            version.status = GV_READY
+            version.message = f"active; {f1_text}"
+            corpus.active_grammar_id = version.id
+        db.add(Event(kind="grammar.trained", corpus_id=corpus_id,
+                     detail={"version": version.number, "status": version.status,
+                             "heldout_f1": heldout_f1, "training_size": len(gold)}))
+        db.commit()
+        if rejected:
+            return
+        version.message = f"active; {f1_text}; {_refresh(db, corpus, version)}"
+        db.commit()
+
+
+def _score_heldout(grammar: Grammar, held: list[GoldTree],
+                   progress: _Progress) -> tuple[float, dict[str, Any]]:
+    from parser.chart import parse
+
+    pairs = []
+    fallbacks = 0
+    report = progress.phase(0.2, 0.85, "parsing the held-out gold")
+    for i, g in enumerate(held):
+        result = parse(grammar, words(g.tree))
+        fallbacks += bool(result.fallback)
+        pairs.append((g.tree, rooted(result.trees[0])))
+        report(i + 1, len(held))
+    score = score_corpus(pairs)
+    return score.f1, {"precision": score.precision, "recall": score.recall,
+                      "exact": score.exact, "sentences": score.sentences,
+                      "fallbacks": fallbacks}
+
+
+def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
+    """Re-suggest the sentences nobody has started; a short summary for the row's message."""
+    from app.services.suggestions import refresh_unstarted
+
+    # one process: the web service keeps the other core
+    done = refresh_unstarted(db, corpus, version, processes=1)
+    db.commit()
+    return f"new suggestions for {done} unstarted sentences"
+
+
+def drain(factory: sessionmaker[Session]) -> int:
+    """Run queued jobs until none is left; returns how many ran."""
+    ran = 0
+    while (vid := claim(factory)) is not None:
+        run_version(factory, vid)
+        ran += 1
+    return ran
+
+
+def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
+                 user_id: int | None = None) -> GrammarVersion:
+    """Train the corpus's next version now, in this thread, and return its finished row.
+
+    Uses the queued job of the corpus if there is one; raises Conflict if one is running.
+    """
+    from app.services.errors import Conflict
+
+    with factory() as db:
+        version = request_training(db, corpus_id, reason=reason, user_id=user_id)
+        version_id = version.id
+        if version.status == GV_TRAINING:
+            raise Conflict(f"grammar version {version.number} of corpus {corpus_id} is "
+                           "training already")
+    if claim(factory, version_id) is None:
+        raise Conflict(f"grammar version {version_id} was taken by another trainer")
+    run_version(factory, version_id)
+    with factory() as db:
+        row = db.get(GrammarVersion, version_id)
+        assert row is not None
+        db.expunge(row)
+        return row
+
+
+def fail_interrupted(factory: sessionmaker[Session]) -> int:
+    """Mark jobs left in ``training`` (their process died with the service) as failed."""
+    with factory() as db:
+        n = db.execute(update(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
+                       .values(status=GV_FAILED, finished_at=utcnow(),
+                               message="interrupted: the service stopped while it trained")
+                       .execution_options(synchronize_session=False)).rowcount
+        db.commit()
+        return int(n or 0)
+
+
+# --------------------------------------------------------------------------------------------
+# the runner
+
+
+_WORKER_FACTORIES: dict[str, sessionmaker[Session]] = {}
+
+
+def _drain_in_worker(url: str) -> int:
+    """Entry point in the worker process: its own engine, then drain the queue."""
+    factory = _WORKER_FACTORIES.get(url)
+    if factory is None:
+        from sqlalchemy.engine import make_url
+
+        from app.db import make_engine, make_sessionmaker
+        from app.settings import Settings
+
+        parsed = make_url(url)
+        # make_engine creates the data folder of a SQLite URL; point it at the file's own one
+        folder = Path(parsed.database).parent if parsed.get_backend_name() == "sqlite" \
+            and parsed.database else Path(tempfile.gettempdir())
+        factory = make_sessionmaker(make_engine(Settings(database_url=url, data_dir=folder)))
+        _WORKER_FACTORIES[url] = factory
+    return drain(factory)
+
+
+class TrainingRunner:
+    """One worker (process or thread) that drains the job queue whenever it is kicked."""
+
+    def __init__(self, factory: sessionmaker[Session], *, url: str, in_process: bool) -> None:
+        self.factory = factory
+        self.url = url
+        self.in_process = in_process
+        self._lock = threading.Lock()
+        self._executor: Executor | None = None
+        self._pending: Future[int] | None = None
+        self.last_error: BaseException | None = None
+
+    def _ensure_executor(self) -> Executor:
+        if self._executor is None:
+            if self.in_process:
+                self._executor = ThreadPoolExecutor(max_workers=1,
+                                                    thread_name_prefix="treewright-train")
+            else:
+                self._executor = ProcessPoolExecutor(
+                    max_workers=1, mp_context=multiprocessing.get_context("spawn"))
+        return self._executor
+
+    def kick(self) -> None:
+        """Make sure a drain runs after this call (cheap; never blocks on training)."""
+        with self._lock:
+            pending = self._pending
+            if pending is not None and not pending.done() and not pending.running():
+                return  # a drain that has not started yet will see the new job
+            executor = self._ensure_executor()
+            try:
+                if self.in_process:
+                    fut = executor.submit(drain, self.factory)
+                else:
+                    fut = executor.submit(_drain_in_worker, self.url)
+            except RuntimeError:  # a broken or shut-down pool: start a fresh one
+                self._executor = None
+                executor = self._ensure_executor()
+                fut = (executor.submit(drain, self.factory) if self.in_process
+                       else executor.submit(_drain_in_worker, self.url))
+            self._pending = fut
+            fut.add_done_callback(self._finished)
+
+    def _finished(self, fut: Future[int]) -> None:
+        exc = fut.exception()
+        if exc is None:
+            return
+        self.last_error = exc
+        log.error("the training worker failed: %r", exc)
+        with self._lock:
+            self._executor = None  # e.g. BrokenProcessPool: the next kick starts a new one
+        fail_interrupted(self.factory)
+
+    def wait_idle(self, timeout: float = 600.0) -> None:
+        """Block until no drain is pending or running (for tests, scripts and shutdown)."""
+        deadline = time.monotonic() + timeout
+        while True:
+            with self._lock:
+                pending = self._pending
+            if pending is None or pending.done():
+                return
+            remaining = deadline - time.monotonic()
+            if remaining <= 0:
+                raise TimeoutError("the training worker is still busy")
+            try:
+                pending.result(timeout=remaining)
+            except Exception:  # noqa: BLE001 - reported by _finished; here we only wait
+                return
+
+    def shutdown(self, wait: bool = True) -> None:
+        with self._lock:
+            executor, self._executor = self._executor, None
+        if executor is not None:
+            executor.shutdown(wait=wait, cancel_futures=not wait)
+
+
+_RUNNERS: weakref.WeakKeyDictionary[Engine, TrainingRunner] = weakref.WeakKeyDictionary()
+_RUNNERS_LOCK = threading.Lock()
+
+
+def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner:
+    """The runner of an app (pass ``app.state``) or of a sessionmaker, created on first use.
+
+    With app state the setting ``training_in_process`` decides thread or process; with a bare
+    sessionmaker ``in_process`` does (default: a process).
+    """
+    factory: sessionmaker[Session] = getattr(target, "sessionmaker", target)
+    engine = factory.kw["bind"]
+    settings = getattr(target, "settings", None)
+    if in_process is None:
+        in_process = bool(settings.training_in_process) if settings is not None else False
+    with _RUNNERS_LOCK:
+        runner = _RUNNERS.get(engine)
+        if runner is not None:
+            return runner
+        url = engine.url.render_as_string(hide_password=False)
+        runner = TrainingRunner(factory, url=url, in_process=in_process)
+        _RUNNERS[engine] = runner
+        if settings is not None:
+            target.training_runner = runner
+    fail_interrupted(factory)
+    runner.kick()
+    return runner
+
+
+def schedule_training(target: Any, corpus_id: int, reason: str,
+                      user_id: int | None = None) -> GrammarVersion:
+    """Queue a version of the corpus (or return its open job) and start the runner.
+
+    ``target`` is ``app.state`` or a sessionmaker (see :func:`get_runner`).
+    """
+    runner = get_runner(target)
+    with runner.factory() as db:
+        version = request_training(db, corpus_id, reason=reason, user_id=user_id)
+        db.expunge(version)
+    runner.kick()
+    return version
+
+
+@event.listens_for(Session, "after_commit")
+def _kick_after_commit(session: Session) -> None:
+    if not session.info.pop(KICK_FLAG, False):
+        return
+    bind = session.get_bind()
+    runner = _RUNNERS.get(bind) if isinstance(bind, Engine) else None
+    if runner is not None:
+        runner.kick()
+
+
+@event.listens_for(Session, "after_rollback")
+def _forget_kick(session: Session) -> None:
+    session.info.pop(KICK_FLAG, None)
