@@ -1,0 +1,165 @@
+"""The Bench's JSON API: open a sentence, save revisions, submit, notes, re-parse; the Queue.
+
+Every route acts on the caller's own annotation of a sentence assigned to them; anything else
+is 404 (see :mod:`app.services.annotation`). Errors: 422 with ``kind`` (brackets, words, labels,
+pins, shape, state), 409 with the current revision for a stale save.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from fastapi import APIRouter, Request
+from sqlalchemy.orm import Session
+
+from app.deps import ApiUser, SessionDep
+from app.models import ANN_DRAFT, ANN_SUBMITTED, SENT_GOLD, SENT_IN_REVIEW, Annotation, Corpus
+from app.schemas.annotation import (
+    AlternativePublic,
+    AnnotationPublic,
+    BenchErrorPublic,
+    BenchPublic,
+    NoteUpdate,
+    Pins,
+    QueuePlace,
+    QueuePublic,
+    ReparsePublic,
+    ReparseRequest,
+    RevisionCreate,
+    RevisionPublic,
+    SavePublic,
+    SentencePublic,
+    SubmitRequest,
+    SuggestionPublic,
+)
+from app.services import annotation as svc
+from app.services import suggestions
+from app.services.errors import NotFound
+
+router = APIRouter(tags=["bench"])
+
+ERRORS: dict[int | str, dict[str, Any]] = {
+    404: {"model": BenchErrorPublic, "description": "not in your queue"},
+    409: {"model": BenchErrorPublic, "description": "stale save: carries the current revision"},
+    422: {"model": BenchErrorPublic, "description": "refused tree, pins or body"},
+}
+
+
+def _annotation_public(a: Annotation | None) -> AnnotationPublic:
+    if a is None:
+        return AnnotationPublic(id=None, state=ANN_DRAFT, head=0)
+    return AnnotationPublic(id=a.id, state=a.state, head=a.head, comment=a.comment or "",
+                            flag=a.flag, submitted_at=a.submitted_at)
+
+
+def _corpus(db: Session, corpus_id: int) -> Corpus:
+    corpus = db.get(Corpus, corpus_id)
+    if corpus is None:
+        raise NotFound(f"no corpus with id {corpus_id}")
+    return corpus
+
+
+@router.get("/api/bench/{sentence_id}", response_model=BenchPublic, responses=ERRORS)
+def open_bench(sentence_id: int, login: ApiUser, db: SessionDep,
+               request: Request) -> BenchPublic:
+    """Everything the Bench shows for one sentence: your newest revision (or the start tree),
+    the grammar's suggestion with span posteriors, the label sets, your place in the queue."""
+    user = login.user
+    sentence = svc.assigned_sentence(db, user, sentence_id)
+    corpus = _corpus(db, sentence.corpus_id)
+    k = request.app.state.settings.suggestion_k
+    annotation = svc.own_annotation(db, user, sentence)
+    head = svc.head_revision(db, annotation)
+    suggestion = suggestions.suggestion_for(db, sentence, corpus, k)
+    if head is not None:
+        tree, pins, source, note = head.tree, head.pins or {}, head.source, None
+    else:
+        start = suggestions.start_tree(sentence, suggestion)
+        tree, pins, source, note = start.tree, {}, start.source, start.note
+    queue = svc.queue_for(db, user)
+    prev_id, next_id, index = queue.neighbours(sentence.id)
+    sugg_public = None
+    if suggestion is not None:
+        version = suggestions.active_version(db, corpus)
+        sugg_public = SuggestionPublic(
+            grammar_version=version.number if version else 0,
+            alternatives=[AlternativePublic(tree=t, probability=_prob(lp))
+                          for t, lp in zip(suggestion.trees, suggestion.logprobs, strict=False)],
+            posteriors=[tuple(p) for p in suggestion.posteriors],
+            fallback=suggestion.fallback, seconds=suggestion.seconds)
+    editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
+        and sentence.state not in (SENT_IN_REVIEW, SENT_GOLD)
+    return BenchPublic(
+        sentence=SentencePublic(id=sentence.id, corpus_id=corpus.id, corpus_name=corpus.name,
+                                document_name=sentence.document.name,
+                                position=sentence.position,
+                                tokens=svc.stored_words(sentence), text=sentence.text,
+                                state=sentence.state),
+        annotation=_annotation_public(annotation), tree=tree, pins=Pins(**pins),
+        source=source, start_note=note, editable=editable, suggestion=sugg_public,
+        labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
+        unknown_label_policy=corpus.setting("unknown_label_policy"),
+        queue=QueuePlace(index=index, total=queue.total, submitted=queue.submitted,
+                         prev_id=prev_id, next_id=next_id,
+                         next_open_id=queue.next_open(sentence.id)))
+
+
+def _prob(logprob: float | None) -> float | None:
+    return None if logprob is None else round(math.exp(logprob), 6)
+
+
+@router.post("/api/bench/{sentence_id}/revisions", response_model=SavePublic, status_code=201,
+             responses=ERRORS)
+def save_revision(sentence_id: int, body: RevisionCreate, login: ApiUser,
+                  db: SessionDep) -> SavePublic:
+    """Append a revision. ``base`` must be your current head, else 409 with the current
+    revision (nothing is written)."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    result = svc.save_revision(db, login.user, sentence, base=body.base, tree_text=body.tree,
+                               pins=body.pins.model_dump(), source=body.source,
+                               confirm_labels=body.confirm_labels)
+    rev = result.revision
+    return SavePublic(annotation=_annotation_public(result.annotation),
+                      revision=RevisionPublic(number=rev.number, tree=rev.tree,
+                                              pins=Pins(**(rev.pins or {})), source=rev.source,
+                                              created_at=rev.created_at))
+
+
+@router.post("/api/bench/{sentence_id}/submit", response_model=AnnotationPublic,
+             responses=ERRORS)
+def submit(sentence_id: int, body: SubmitRequest, login: ApiUser,
+           db: SessionDep) -> AnnotationPublic:
+    """Mark your annotation submitted; ``base`` must be your current head."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    return _annotation_public(svc.submit(db, login.user, sentence, base=body.base))
+
+
+@router.patch("/api/bench/{sentence_id}/note", response_model=AnnotationPublic,
+              responses=ERRORS)
+def set_note(sentence_id: int, body: NoteUpdate, login: ApiUser,
+             db: SessionDep) -> AnnotationPublic:
+    """Set your comment, hold the sentence back with a reason (``flag``), or release it."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    return _annotation_public(svc.set_note(db, login.user, sentence, comment=body.comment,
+                                           flag=body.flag, clear_flag=body.clear_flag))
+
+
+@router.post("/api/bench/{sentence_id}/reparse", response_model=ReparsePublic,
+             responses=ERRORS)
+def reparse(sentence_id: int, body: ReparseRequest, login: ApiUser,
+            db: SessionDep) -> ReparsePublic:
+    """The best trees that keep every pinned constituent and POS tag (nothing is saved)."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    corpus = _corpus(db, sentence.corpus_id)
+    out = suggestions.reparse(db, sentence, corpus, body.pins.model_dump(), k=body.k)
+    return ReparsePublic(trees=out.trees, fallback=out.fallback, seconds=out.seconds,
+                         grammar_version=out.grammar_version)
+
+
+@router.get("/api/queue", response_model=QueuePublic)
+def my_queue(login: ApiUser, db: SessionDep, corpus_id: int | None = None) -> QueuePublic:
+    """Your assigned sentences in reading order, with your progress."""
+    queue = svc.queue_for(db, login.user, corpus_id)
+    return QueuePublic(total=queue.total, submitted=queue.submitted,
+                       items=queue.items)

@@ -1,0 +1,153 @@
+"""Pydantic shapes of the Bench's JSON API (``/api/bench/...``) and the Queue (``/api/queue``).
+
+Pins: ``spans`` lists ``[start, end, label]`` (0-based words, end exclusive) of pinned
+constituents; ``tags`` lists ``[word index, tag]`` of pinned POS tags.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Literal
+
+from pydantic import BaseModel, Field
+
+from app.services.annotation import QueueItem
+
+RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
+                         "flat"]
+MAX_PINS = 2_000
+
+
+class Pins(BaseModel):
+    spans: list[tuple[int, int, str]] = Field(default_factory=list, max_length=MAX_PINS)
+    tags: list[tuple[int, str]] = Field(default_factory=list, max_length=MAX_PINS)
+
+
+class SentencePublic(BaseModel):
+    id: int
+    corpus_id: int
+    corpus_name: str
+    document_name: str
+    position: int
+    tokens: list[str]
+    text: str
+    state: str
+
+
+class AnnotationPublic(BaseModel):
+    id: int | None = Field(description="None until the first save or note")
+    state: str = Field(description="draft, submitted or flagged")
+    head: int = Field(description="number of the newest revision (0: nothing saved yet)")
+    comment: str = ""
+    flag: str | None = None
+    submitted_at: datetime | None = None
+
+
+class RevisionPublic(BaseModel):
+    number: int
+    tree: str
+    pins: Pins
+    source: str
+    created_at: datetime
+
+
+class AlternativePublic(BaseModel):
+    tree: str
+    probability: float | None = Field(description="P(tree | words) under the grammar; None "
+                                                  "for a fallback tree")
+
+
+class SuggestionPublic(BaseModel):
+    grammar_version: int = Field(description="number of the grammar version that parsed")
+    alternatives: list[AlternativePublic]
+    posteriors: list[tuple[str, int, int, float]] = Field(
+        description="[label, start, end, p]: posterior of each labelled span (labels without "
+                    "function tags); spans not listed are below 0.001")
+    fallback: bool
+    seconds: float
+
+
+class QueuePlace(BaseModel):
+    index: int = Field(description="1-based place of this sentence in the user's queue")
+    total: int
+    submitted: int
+    prev_id: int | None
+    next_id: int | None
+    next_open_id: int | None = Field(description="next sentence neither submitted nor flagged")
+
+
+class BenchPublic(BaseModel):
+    sentence: SentencePublic
+    annotation: AnnotationPublic
+    tree: str = Field(description="the tree to show: the newest revision, or the start tree")
+    pins: Pins
+    source: str
+    start_note: str | None = Field(description="set when the tree is a start tree, not a "
+                                               "saved revision")
+    editable: bool
+    suggestion: SuggestionPublic | None
+    labels: list[str]
+    tags: list[str]
+    unknown_label_policy: Literal["confirm", "refuse"]
+    queue: QueuePlace
+
+
+class RevisionCreate(BaseModel):
+    base: int = Field(ge=0, description="the head revision this change was built on")
+    tree: str = Field(max_length=200_000, description="bracketed text of the whole tree")
+    pins: Pins = Field(default_factory=Pins)
+    source: RevisionSource = "edit"
+    confirm_labels: bool = Field(default=False, description="accept labels outside the "
+                                 "corpus's sets (only when its policy is confirm)")
+
+
+class SavePublic(BaseModel):
+    annotation: AnnotationPublic
+    revision: RevisionPublic
+
+
+class SubmitRequest(BaseModel):
+    base: int = Field(ge=0, description="the head revision the annotator saw when submitting")
+
+
+class NoteUpdate(BaseModel):
+    comment: str | None = Field(default=None, max_length=4_000)
+    flag: str | None = Field(default=None, max_length=64,
+                             description="hold the sentence back with this reason")
+    clear_flag: bool = False
+
+
+class ReparseRequest(BaseModel):
+    pins: Pins = Field(default_factory=Pins)
+    k: int = Field(default=1, ge=1, le=20)
+
+
+class ReparsePublic(BaseModel):
+    trees: list[str] = Field(description="best first; every one keeps every pin")
+    fallback: bool = Field(description="the grammar had no parse keeping the pins; the tree "
+                                       "is a well-formed stand-in that still keeps them")
+    seconds: float
+    grammar_version: int
+
+
+class BenchErrorPublic(BaseModel):
+    """A refused change (422) or a stale one (409)."""
+
+    detail: str
+    kind: str | None = None
+    line: int | None = None
+    column: int | None = None
+    position: int | None = None
+    expected: str | None = None
+    found: str | None = None
+    labels: list[str] | None = None
+    can_confirm: bool | None = None
+    current: RevisionPublic | None = None
+    head: int | None = None
+    state: str | None = None
+
+
+class QueuePublic(BaseModel):
+    total: int
+    submitted: int
+    items: list[QueueItem]

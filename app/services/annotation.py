@@ -1,0 +1,436 @@
+"""Annotations on the Bench: opening, validated append-only saves, submit, notes, the Queue.
+
+Rules this module enforces (routes only translate its errors into HTTP answers):
+
+* **Blind**: a user reaches a sentence here only through an Assignment row of their own; every
+  other sentence (absent, or assigned to someone else only) answers 404 with the same message,
+  so an annotator cannot even learn which ids exist. There is no call that takes an annotation
+  id: a user can only ever read or write *their own* annotation of a sentence.
+* **Append-only**: each save inserts ``Revision(number=head + 1)`` and moves ``head`` with a
+  compare-and-set ``UPDATE ... WHERE head = base``; a save based on an older head, or one that
+  loses a race (the unique (annotation_id, number) pair), raises :class:`Conflict` carrying the
+  current revision, and nothing is written.
+* **Valid trees only**: :func:`validate_tree_text` reads the bracketed text with
+  :func:`parser.trees.read_tree`, checks the words against the sentence's tokens and the labels
+  against the corpus's label and tag sets (policy ``refuse`` or ``confirm``).
+* **Submit** marks the annotation submitted and calls ``app.services.agreement.on_submitted``
+  in the same transaction; a submitted annotation takes no further saves.
+
+Cost: a save is one read of the annotation, one validation (linear in the text length) and two
+writes; the Queue is one joined query over the user's assignments.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from nltk import Tree
+from sqlalchemy import select, update
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from app.models import (
+    ANN_DRAFT,
+    ANN_FLAGGED,
+    ANN_SUBMITTED,
+    REV_SOURCES,
+    SENT_IN_PROGRESS,
+    SENT_QUEUED,
+    Annotation,
+    Assignment,
+    Corpus,
+    Document,
+    Event,
+    Revision,
+    Sentence,
+    User,
+    utcnow,
+)
+from app.services.errors import BadInput, Conflict, NotFound
+from parser.errors import BracketSyntaxError
+from parser.trees import (
+    UNKNOWN_TAG,
+    constituents,
+    escape_word,
+    is_preterminal,
+    pos_tags,
+    read_tree,
+    words,
+    write_tree,
+)
+
+#: Longest bracketed text accepted for one sentence's tree.
+MAX_TREE_CHARS = 200_000
+#: Longest comment and flag reason.
+MAX_COMMENT_CHARS = 4_000
+MAX_FLAG_CHARS = 64
+
+
+# --------------------------------------------------------------------------- access
+def assigned_sentence(db: Session, user: User, sentence_id: int) -> Sentence:
+    """The sentence if it is assigned to ``user``; NotFound otherwise (same message whether the
+    sentence is absent or someone else's, so nothing leaks)."""
+    sentence = db.scalar(
+        select(Sentence).join(Assignment, Assignment.sentence_id == Sentence.id)
+        .where(Sentence.id == sentence_id, Assignment.user_id == user.id))
+    if sentence is None:
+        raise NotFound(f"sentence {sentence_id} is not in your queue")
+    return sentence
+
+
+def own_annotation(db: Session, user: User, sentence: Sentence) -> Annotation | None:
+    return db.scalar(select(Annotation).where(Annotation.sentence_id == sentence.id,
+                                              Annotation.user_id == user.id))
+
+
+def head_revision(db: Session, annotation: Annotation | None) -> Revision | None:
+    if annotation is None or annotation.head == 0:
+        return None
+    return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
+                                            Revision.number == annotation.head))
+
+
+# --------------------------------------------------------------------------- validation
+def stored_words(sentence: Sentence) -> list[str]:
+    """The sentence's tokens in the form a stored tree carries them (``(`` as ``-LRB-``)."""
+    return [escape_word(str(t)) for t in sentence.tokens]
+
+
+def unknown_labels(tree: Tree, corpus: Corpus) -> list[str]:
+    """Labels and tags of ``tree`` outside the corpus's sets, sorted; the root label and the
+    placeholder tag of a flat tree are always allowed. An empty set allows everything."""
+    label_set = set(corpus.label_set or [])
+    tag_set = set(corpus.tag_set or [])
+    found: set[str] = set()
+    if label_set:
+        for label, _, _ in constituents(tree)[1:]:
+            if label not in label_set:
+                found.add(label)
+    if tag_set:
+        for tag in pos_tags(tree):
+            if tag != UNKNOWN_TAG and tag not in tag_set:
+                found.add(tag)
+    return sorted(found)
+
+
+def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
+                       confirm_labels: bool = False) -> Tree:
+    """Read ``text`` as the tree of ``sentence`` or raise BadInput saying what and where.
+
+    The error's extra fields (merged into the JSON answer) carry ``kind``: ``"brackets"`` with
+    ``line``/``column``; ``"shape"``; ``"words"`` with ``position`` (0-based), ``expected`` and
+    ``found``; ``"labels"`` with ``labels`` and ``can_confirm`` (policy ``confirm`` and the
+    request did not say ``confirm_labels``: resend with it to accept them).
+    """
+    if len(text) > MAX_TREE_CHARS:
+        raise BadInput(f"tree text is {len(text)} characters long; the limit is "
+                       f"{MAX_TREE_CHARS}", kind="shape")
+    if not text.strip():
+        raise BadInput("tree text is empty", kind="shape")
+    try:
+        tree = read_tree(text)
+    except BracketSyntaxError as exc:
+        raise BadInput(f"line {exc.line}, column {exc.column}: {exc.message}",
+                       kind="brackets", line=exc.line, column=exc.column) from exc
+    if is_preterminal(tree):
+        raise BadInput("the tree needs a constituent above the POS tags, e.g. (ROOT (NN word))",
+                       kind="shape")
+    expected = stored_words(sentence)
+    found = words(tree)
+    for i in range(max(len(expected), len(found))):
+        want = expected[i] if i < len(expected) else None
+        got = escape_word(found[i]) if i < len(found) else None
+        if want != got:
+            if got is None:
+                msg = f"the tree ends after word {i} but the sentence goes on with {want!r}"
+            elif want is None:
+                msg = f"word {i + 1} {got!r} is extra: the sentence has {len(expected)} words"
+            else:
+                msg = f"word {i + 1} is {got!r} but the sentence has {want!r} there"
+            raise BadInput(msg, kind="words", position=i, expected=want, found=got)
+    unknown = unknown_labels(tree, corpus)
+    if unknown:
+        policy = corpus.setting("unknown_label_policy")
+        names = ", ".join(unknown)
+        if policy == "refuse":
+            raise BadInput(f"not in this corpus's label or tag set: {names}", kind="labels",
+                           labels=unknown, can_confirm=False)
+        if not confirm_labels:
+            raise BadInput(f"not in this corpus's label or tag set: {names}; confirm to use "
+                           "them anyway", kind="labels", labels=unknown, can_confirm=True)
+    return tree
+
+
+def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
+    """Check that every pinned span is a constituent of ``tree`` with that label and every pinned
+    tag is the tree's tag at that word; return the pins in canonical (sorted) form."""
+    spans_in = pins.get("spans") or []
+    tags_in = pins.get("tags") or []
+    have = {(s, e, lab) for lab, s, e in constituents(tree)}
+    tags = pos_tags(tree)
+    spans_out: list[list[Any]] = []
+    for item in spans_in:
+        s, e, label = int(item[0]), int(item[1]), str(item[2])
+        if (s, e, label) not in have:
+            raise BadInput(f"pinned constituent {label} over words {s + 1}..{e} is not in the "
+                           "tree", kind="pins")
+        spans_out.append([s, e, label])
+    tags_out: list[list[Any]] = []
+    for item in tags_in:
+        i, tag = int(item[0]), str(item[1])
+        if not 0 <= i < len(tags) or tags[i] != tag:
+            raise BadInput(f"pinned tag {tag} at word {i + 1} is not in the tree", kind="pins")
+        tags_out.append([i, tag])
+    spans_out.sort(key=lambda x: (x[0], -x[1], x[2]))
+    tags_out.sort()
+    return {"spans": _unique(spans_out), "tags": _unique(tags_out)}
+
+
+def _unique(items: list[list[Any]]) -> list[list[Any]]:
+    out: list[list[Any]] = []
+    for x in items:
+        if not out or out[-1] != x:
+            out.append(x)
+    return out
+
+
+# --------------------------------------------------------------------------- saving
+@dataclass
+class SaveResult:
+    annotation: Annotation
+    revision: Revision
+
+
+def revision_view(revision: Revision | None) -> dict[str, Any] | None:
+    """What a 409 answer carries about the current revision (JSON-ready)."""
+    if revision is None:
+        return None
+    return {"number": revision.number, "tree": revision.tree, "pins": revision.pins or {},
+            "source": revision.source, "created_at": revision.created_at.isoformat()}
+
+
+def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict:
+    db.rollback()
+    annotation = own_annotation(db, user, sentence)
+    current = head_revision(db, annotation)
+    return Conflict(why, current=revision_view(current),
+                    head=annotation.head if annotation else 0,
+                    state=annotation.state if annotation else ANN_DRAFT)
+
+
+def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
+    """Create the user's (empty) annotation; a concurrent creation wins and this is a 409."""
+    annotation = Annotation(sentence_id=sentence.id, user_id=user.id, state=ANN_DRAFT, head=0)
+    db.add(annotation)
+    try:
+        db.flush()
+    except IntegrityError:
+        raise _conflict(db, user, sentence, "another request created this annotation first; "
+                        "try again") from None
+    return annotation
+
+
+def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tree_text: str,
+                  pins: dict[str, Any] | None = None, source: str = "edit",
+                  confirm_labels: bool = False) -> SaveResult:
+    """Append a revision to ``user``'s annotation of ``sentence`` (created on first save).
+
+    ``base`` is the head the client's change was built on; anything else is a Conflict
+    carrying the current revision. Commits on success.
+    """
+    if source not in REV_SOURCES:
+        raise BadInput(f"unknown revision source {source!r}; one of {', '.join(REV_SOURCES)}",
+                       kind="shape")
+    corpus = db.get(Corpus, sentence.corpus_id)
+    if corpus is None:  # cannot happen while the foreign key holds; say so rather than crash
+        raise NotFound(f"sentence {sentence.id} has no corpus")
+    tree = validate_tree_text(sentence, tree_text, corpus, confirm_labels=confirm_labels)
+    clean_pins = validate_pins(tree, pins or {})
+    annotation = own_annotation(db, user, sentence)
+    if annotation is None:
+        if base != 0:
+            raise _conflict(db, user, sentence, f"save based on revision {base}, but you have "
+                            "no saved revision of this sentence")
+        annotation = _new_annotation(db, user, sentence)
+    if annotation.state == ANN_SUBMITTED:
+        raise _conflict(db, user, sentence, "this annotation is submitted and takes no more "
+                        "changes")
+    if base != annotation.head:
+        raise _conflict(db, user, sentence, f"save based on revision {base}, but the newest "
+                        f"is revision {annotation.head}")
+    now = utcnow()
+    moved = db.execute(
+        update(Annotation).where(Annotation.id == annotation.id, Annotation.head == base)
+        .values(head=base + 1, updated_at=now)
+        .execution_options(synchronize_session=False))
+    if moved.rowcount != 1:
+        raise _conflict(db, user, sentence, "another save of this annotation came first")
+    revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
+                        pins=clean_pins, source=source, user_id=user.id, created_at=now)
+    db.add(revision)
+    if sentence.state == SENT_QUEUED:
+        sentence.state = SENT_IN_PROGRESS
+    try:
+        db.commit()
+    except IntegrityError:
+        raise _conflict(db, user, sentence, "another save of this annotation came "
+                        "first") from None
+    db.refresh(annotation)
+    return SaveResult(annotation=annotation, revision=revision)
+
+
+def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotation:
+    """Mark the annotation submitted (its head must be ``base``) and let agreement run."""
+    annotation = own_annotation(db, user, sentence)
+    if annotation is None or annotation.head == 0:
+        raise BadInput("nothing to submit: save a tree first", kind="state")
+    if annotation.state == ANN_SUBMITTED:
+        raise _conflict(db, user, sentence, "this annotation is already submitted")
+    if base != annotation.head:
+        raise _conflict(db, user, sentence, f"submit based on revision {base}, but the newest "
+                        f"is revision {annotation.head}")
+    now = utcnow()
+    moved = db.execute(
+        update(Annotation)
+        .where(Annotation.id == annotation.id, Annotation.head == base,
+               Annotation.state != ANN_SUBMITTED)
+        .values(state=ANN_SUBMITTED, submitted_at=now, updated_at=now)
+        .execution_options(synchronize_session=False))
+    if moved.rowcount != 1:
+        raise _conflict(db, user, sentence, "the annotation changed while submitting")
+    db.add(Event(user_id=user.id, kind="annotation.submitted", corpus_id=sentence.corpus_id,
+                 sentence_id=sentence.id, detail={"revision": base}))
+    db.flush()
+    db.refresh(annotation)
+    _agreement_hook(db, sentence)
+    db.commit()
+    db.refresh(annotation)
+    return annotation
+
+
+def _agreement_hook(db: Session, sentence: Sentence) -> None:
+    # The agreement service owns what happens once every assigned annotation is in.
+    from app.services import agreement
+
+    agreement.on_submitted(db, sentence)
+
+
+def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None,
+             flag: str | None, clear_flag: bool = False) -> Annotation:
+    """Store the annotator's comment and/or flag reason. A flag sets the state ``flagged``
+    (the annotator holds the sentence back instead of submitting); ``clear_flag`` returns it to
+    ``draft``. Works before the first save too (the annotation is created without revisions)."""
+    if comment is not None and len(comment) > MAX_COMMENT_CHARS:
+        raise BadInput(f"comment is {len(comment)} characters; the limit is "
+                       f"{MAX_COMMENT_CHARS}", kind="shape")
+    if flag is not None:
+        flag = flag.strip()
+        if not flag or len(flag) > MAX_FLAG_CHARS:
+            raise BadInput(f"a flag reason needs 1 to {MAX_FLAG_CHARS} characters",
+                           kind="shape")
+    annotation = own_annotation(db, user, sentence) or _new_annotation(db, user, sentence)
+    if annotation.state == ANN_SUBMITTED and (flag is not None or clear_flag):
+        raise _conflict(db, user, sentence, "this annotation is submitted; it can no longer "
+                        "be flagged")
+    if comment is not None:
+        annotation.comment = comment
+    if flag is not None:
+        annotation.flag = flag
+        annotation.state = ANN_FLAGGED
+        db.add(Event(user_id=user.id, kind="annotation.flagged", corpus_id=sentence.corpus_id,
+                     sentence_id=sentence.id, detail={"flag": flag}))
+    elif clear_flag and annotation.state == ANN_FLAGGED:
+        annotation.flag = None
+        annotation.state = ANN_DRAFT
+    annotation.updated_at = utcnow()
+    db.commit()
+    db.refresh(annotation)
+    return annotation
+
+
+# --------------------------------------------------------------------------- the queue
+@dataclass
+class QueueItem:
+    sentence_id: int
+    corpus_id: int
+    corpus_name: str
+    document_name: str
+    position: int
+    text: str
+    sentence_state: str
+    annotation_state: str | None
+    head: int
+    flag: str | None
+
+
+@dataclass
+class Queue:
+    items: list[QueueItem] = field(default_factory=list)
+
+    @property
+    def total(self) -> int:
+        return len(self.items)
+
+    @property
+    def submitted(self) -> int:
+        return sum(1 for it in self.items if it.annotation_state == ANN_SUBMITTED)
+
+    def neighbours(self, sentence_id: int) -> tuple[int | None, int | None, int]:
+        """(previous id, next id, 1-based index) of ``sentence_id`` in this queue."""
+        ids = [it.sentence_id for it in self.items]
+        i = ids.index(sentence_id)
+        return (ids[i - 1] if i > 0 else None, ids[i + 1] if i + 1 < len(ids) else None, i + 1)
+
+    def next_open(self, after: int | None = None) -> int | None:
+        """The first sentence after ``after`` (wrapping round) not yet submitted or flagged."""
+        ids = [it.sentence_id for it in self.items]
+        start = ids.index(after) + 1 if after in ids else 0
+        for it in self.items[start:] + self.items[:start]:
+            if it.annotation_state not in (ANN_SUBMITTED, ANN_FLAGGED) \
+                    and it.sentence_id != after:
+                return it.sentence_id
+        return None
+
+
+def queue_for(db: Session, user: User, corpus_id: int | None = None) -> Queue:
+    """The user's assigned sentences in reading order (corpus, document, position)."""
+    stmt = (
+        select(Sentence.id, Sentence.corpus_id, Corpus.name, Document.name, Sentence.position,
+               Sentence.text, Sentence.state, Annotation.state, Annotation.head,
+               Annotation.flag)
+        .join(Assignment, Assignment.sentence_id == Sentence.id)
+        .join(Document, Document.id == Sentence.document_id)
+        .join(Corpus, Corpus.id == Sentence.corpus_id)
+        .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
+                   & (Annotation.user_id == user.id))
+        .where(Assignment.user_id == user.id)
+        .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)
+    )
+    if corpus_id is not None:
+        stmt = stmt.where(Sentence.corpus_id == corpus_id)
+    items = [QueueItem(sentence_id=r[0], corpus_id=r[1], corpus_name=r[2], document_name=r[3],
+                       position=r[4], text=r[5], sentence_state=r[6], annotation_state=r[7],
+                       head=r[8] or 0, flag=r[9])
+             for r in db.execute(stmt)]
+    return Queue(items=items)
+
+
+__all__ = [
+    "MAX_TREE_CHARS",
+    "Queue",
+    "QueueItem",
+    "SaveResult",
+    "assigned_sentence",
+    "head_revision",
+    "own_annotation",
+    "queue_for",
+    "revision_view",
+    "save_revision",
+    "set_note",
+    "stored_words",
+    "submit",
+    "unknown_labels",
+    "validate_pins",
+    "validate_tree_text",
+]

@@ -1,0 +1,312 @@
+"""Parser suggestions for the Bench: grammar cache, cached k-best suggestions, constrained
+re-parse around the annotator's pins.
+
+* :func:`grammar_for` loads a GrammarVersion's saved bytes once per process and keeps the few
+  most recently used grammars in memory (an LRU of :data:`GRAMMAR_CACHE_SIZE`), so a request
+  never pays for loading a grammar twice.
+* :func:`suggestion_for` returns the Suggestion row of (sentence, active grammar), parsing only
+  when the row does not exist yet (k-best with span posteriors); :func:`refresh_unstarted`
+  fills those rows for every sentence nobody has started, after a new grammar becomes active.
+* :func:`reparse` asks for the best tree that keeps every pinned constituent and POS tag
+  (constrained CKY), then puts the pinned labels back exactly as the annotator wrote them (the
+  grammar knows labels without function tags: a pin ``NP-SBJ`` is parsed as ``NP`` and
+  relabelled), so every pin survives to the letter.
+
+What a Suggestion row holds (this module writes them; the JSON columns are plain lists):
+``trees`` one-line bracketed texts, best first; ``logprobs`` log P(tree | words), i.e. the
+parser's joint log-probability minus the sentence's inside log-probability (``None`` for a
+fallback tree, which has no probability); ``posteriors`` ``[label, start, end, p]`` for every
+labelled span with p >= the parser's threshold; ``fallback`` true when the grammar had no
+parse and the tree is the parser's well-formed stand-in.
+
+Cost: one parse is O(n^3 R) (see :mod:`parser.chart`); about 0.1-0.5 s for 30 words with a
+grammar trained on GUM, which is why suggestions are cached in the table.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from typing import Any
+
+from nltk import Tree
+from sqlalchemy import exists, select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session, undefer
+
+from app.models import (
+    GV_READY,
+    Annotation,
+    Corpus,
+    GrammarVersion,
+    Sentence,
+    Suggestion,
+)
+from app.services.errors import BadInput, Conflict, NotFound
+from parser.batch import parse_many
+from parser.chart import Constraints, ParseResult, parse
+from parser.errors import ConstraintError, GrammarError
+from parser.grammar import Grammar
+from parser.trees import (
+    constituents,
+    flat_tree,
+    pos_tags,
+    strip_label,
+    tree_from_spans,
+    words,
+    write_tree,
+)
+
+GRAMMAR_CACHE_SIZE = 3
+
+_grammars: OrderedDict[int, Grammar] = OrderedDict()
+_grammar_lock = threading.Lock()
+
+
+# --------------------------------------------------------------------------- grammars
+def grammar_from_bytes(data: bytes) -> Grammar:
+    """A Grammar from the bytes :meth:`Grammar.save` wrote (via a private temporary file)."""
+    fd, path = tempfile.mkstemp(suffix=".npz", prefix="tw-grammar-")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        return Grammar.load(path)
+    finally:
+        os.unlink(path)
+
+
+def grammar_for(db: Session, version_id: int) -> Grammar:
+    """The loaded grammar of a GrammarVersion, from the per-process cache when possible."""
+    with _grammar_lock:
+        cached = _grammars.get(version_id)
+        if cached is not None:
+            _grammars.move_to_end(version_id)
+            return cached
+    version = db.scalar(select(GrammarVersion).options(undefer(GrammarVersion.data))
+                        .where(GrammarVersion.id == version_id))
+    if version is None or not version.data:
+        raise NotFound(f"grammar version {version_id} has no saved grammar")
+    try:
+        grammar = grammar_from_bytes(version.data)
+    except GrammarError as exc:
+        raise Conflict(f"grammar version {version_id} cannot be loaded: {exc}",
+                       kind="no_grammar") from exc
+    # The first parse in a process compiles the chart's loops; pay it here, not on a request
+    # that an annotator is waiting for more than this one.
+    parse(grammar, ["a", "b"])
+    with _grammar_lock:
+        _grammars[version_id] = grammar
+        _grammars.move_to_end(version_id)
+        while len(_grammars) > GRAMMAR_CACHE_SIZE:
+            _grammars.popitem(last=False)
+    return grammar
+
+
+def forget_grammars() -> None:
+    """Empty the per-process cache (tests; a grammar row that was replaced)."""
+    with _grammar_lock:
+        _grammars.clear()
+
+
+def active_version(db: Session, corpus: Corpus) -> GrammarVersion | None:
+    if corpus.active_grammar_id is None:
+        return None
+    version = db.get(GrammarVersion, corpus.active_grammar_id)
+    if version is None or version.status != GV_READY:
+        return None
+    return version
+
+
+# --------------------------------------------------------------------------- suggestions
+def parse_suggestion(grammar: Grammar, word_list: list[str], k: int) -> dict[str, Any]:
+    """Parse once and return the Suggestion row's column values (see the module docstring)."""
+    return suggestion_values(parse(grammar, word_list, k=k, posteriors=True))
+
+
+def suggestion_values(result: ParseResult) -> dict[str, Any]:
+    """A Suggestion row's column values from a parse with posteriors."""
+    inside = result.inside_logprob
+    logprobs: list[float | None] = []
+    for lp in result.logprobs:
+        if result.fallback or inside is None or not math.isfinite(lp):
+            logprobs.append(None)
+        else:
+            logprobs.append(min(0.0, lp - inside))
+    return {
+        "trees": [write_tree(t) for t in result.trees],
+        "logprobs": logprobs,
+        "posteriors": [[lab, int(s), int(e), round(float(p), 4)]
+                       for lab, s, e, p in result.posteriors],
+        "fallback": bool(result.fallback),
+        "seconds": float(result.seconds),
+    }
+
+
+def _sentence_words(sentence: Sentence) -> list[str]:
+    from app.services.annotation import stored_words
+
+    return stored_words(sentence)
+
+
+def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus,
+                   k: int) -> Suggestion | None:
+    """The cached suggestion under the active grammar, parsed now if missing; None when the
+    corpus has no active grammar. Commits when it adds a row."""
+    version = active_version(db, corpus)
+    if version is None:
+        return None
+    row = db.scalar(select(Suggestion).where(Suggestion.sentence_id == sentence.id,
+                                             Suggestion.grammar_version_id == version.id))
+    if row is not None and len(row.trees) >= min(k, 1):
+        return row
+    grammar = grammar_for(db, version.id)
+    values = parse_suggestion(grammar, _sentence_words(sentence), k)
+    row = Suggestion(sentence_id=sentence.id, grammar_version_id=version.id, **values)
+    db.add(row)
+    try:
+        db.commit()
+    except IntegrityError:  # another request cached it first: use theirs
+        db.rollback()
+        row = db.scalar(select(Suggestion).where(
+            Suggestion.sentence_id == sentence.id, Suggestion.grammar_version_id == version.id))
+    return row
+
+
+def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersion,
+                      k: int = 5, batch: int = 200, processes: int | None = None) -> int:
+    """Cache suggestions under ``grammar_version`` for every sentence of ``corpus`` that nobody
+    has started (no annotation with a saved revision) and that lacks one.
+
+    Sentences are parsed ``batch`` at a time on every core (:func:`parser.batch.parse_many`;
+    ``processes=1`` keeps it in this process) and each batch is committed, so an interrupted
+    refresh keeps what it finished. Returns the number of suggestions computed."""
+    started = exists().where(Annotation.sentence_id == Sentence.id, Annotation.head > 0)
+    cached = exists().where(Suggestion.sentence_id == Sentence.id,
+                            Suggestion.grammar_version_id == grammar_version.id)
+    todo = db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id, ~started,
+                                             ~cached).order_by(Sentence.id)).all()
+    if not todo:
+        return 0
+    grammar = grammar_for(db, grammar_version.id)
+    done = 0
+    for at in range(0, len(todo), batch):
+        part = todo[at:at + batch]
+        results = parse_many(grammar, [_sentence_words(s) for s in part], k=k,
+                             posteriors=True, processes=processes)
+        for sentence, result in zip(part, results, strict=True):
+            db.add(Suggestion(sentence_id=sentence.id, grammar_version_id=grammar_version.id,
+                              **suggestion_values(result)))
+        db.commit()
+        done += len(part)
+    return done
+
+
+# --------------------------------------------------------------------------- start tree
+@dataclass
+class StartTree:
+    """What a new annotation starts from: the best suggestion, or a flat tree."""
+
+    tree: str
+    source: str  # "suggestion" | "flat"
+    note: str
+
+
+def start_tree(sentence: Sentence, suggestion: Suggestion | None) -> StartTree:
+    if suggestion is not None and suggestion.trees:
+        note = ("The grammar found no full parse; this is its fallback tree."
+                if suggestion.fallback else "Best suggestion of the active grammar.")
+        return StartTree(suggestion.trees[0], "suggestion", note)
+    tree = flat_tree(_sentence_words(sentence))
+    return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")
+
+
+# --------------------------------------------------------------------------- re-parse
+@dataclass
+class Reparse:
+    trees: list[str]
+    fallback: bool
+    seconds: float
+    grammar_version: int
+
+
+def _constraint_label(label: str, known: frozenset[str]) -> str | None:
+    if label in known:
+        return label
+    stripped = strip_label(label)
+    return stripped if stripped in known else None
+
+
+def _graft_pins(tree: Tree, spans: list[tuple[int, int, str]],
+                tags: dict[int, str]) -> Tree:
+    """``tree`` with every pinned (start, end, label) present exactly and pinned tags set.
+
+    A pinned label the grammar knew only without its function tag replaces the node of that
+    span with the same stripped label; a pin the grammar could not label at all is added over
+    its span (constrained parsing guarantees nothing crosses it)."""
+    items = constituents(tree)
+    word_list = words(tree)
+    tag_list = pos_tags(tree)
+    for i, tag in tags.items():
+        tag_list[i] = tag
+    for s, e, label in spans:
+        if (label, s, e) in items:
+            continue
+        same = [j for j, (lab, a, b) in enumerate(items) if (a, b) == (s, e)
+                and strip_label(lab) == strip_label(label) and (lab, a, b) not in
+                [(pl, ps, pe) for ps, pe, pl in spans]]
+        if same:
+            items[same[0]] = (label, s, e)
+            continue
+        first = next((j for j, (_, a, b) in enumerate(items) if (a, b) == (s, e)), None)
+        if first is None or first == 0:
+            items.append((label, s, e))
+        else:
+            items.insert(first, (label, s, e))
+    return tree_from_spans(word_list, tag_list, items, root=None)
+
+
+def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any],
+            k: int = 1) -> Reparse:
+    """The best ``k`` trees keeping every pin (see the module docstring)."""
+    version = active_version(db, corpus)
+    if version is None:
+        raise Conflict("this corpus has no active grammar yet; re-parse needs one",
+                       kind="no_grammar")
+    grammar = grammar_for(db, version.id)
+    word_list = _sentence_words(sentence)
+    n = len(word_list)
+    spans: list[tuple[int, int, str]] = []
+    for item in pins.get("spans") or []:
+        s, e, label = int(item[0]), int(item[1]), str(item[2])
+        if not 0 <= s < e <= n:
+            raise BadInput(f"pinned span ({s}, {e}) lies outside the sentence's {n} words",
+                           kind="pins")
+        spans.append((s, e, label))
+    tags: dict[int, str] = {}
+    for item in pins.get("tags") or []:
+        i, tag = int(item[0]), str(item[1])
+        if not 0 <= i < n:
+            raise BadInput(f"pinned tag at word {i + 1} lies outside the sentence's {n} "
+                           "words", kind="pins")
+        tags[i] = tag
+    labels = frozenset(grammar.labels)
+    tagset = frozenset(grammar.tags)
+    constraints = Constraints(
+        required=[(s, e, _constraint_label(lab, labels)) for s, e, lab in spans],
+        tags=[_constraint_label(tags[i], tagset) if i in tags else None for i in range(n)]
+        if tags else [])
+    try:
+        result = parse(grammar, word_list, k=k, constraints=constraints)
+    except ConstraintError as exc:
+        raise BadInput(f"the pins contradict each other: {exc}", kind="pins") from exc
+    out: list[str] = []
+    for t in result.trees:
+        text = write_tree(_graft_pins(t, spans, tags))
+        if text not in out:
+            out.append(text)
+    return Reparse(trees=out, fallback=bool(result.fallback), seconds=float(result.seconds),
+                   grammar_version=version.number)
