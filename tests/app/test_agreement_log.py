@@ -1,0 +1,195 @@
+"""The agreement log: records written when the last assigned annotation is submitted.
+
+Trees are submitted through the Bench's JSON API, so the hook runs exactly as in the service.
+The figures are worked out by hand below (PARSEVAL conventions of parser.scoring: no ROOT,
+no preterminals, the final "." removed before spans are counted).
+"""
+
+from __future__ import annotations
+
+import pytest
+from sqlalchemy import select
+
+from app.models import (
+    SENT_GOLD,
+    SENT_IN_PROGRESS,
+    SENT_IN_REVIEW,
+    AgreementRecord,
+    Annotation,
+    Corpus,
+    Event,
+    Gold,
+    Sentence,
+)
+from app.services import agreement
+from tests.app.bench_helpers import assign, make_corpus
+
+SENTENCE = "the ferry left the quay at dawn ."
+# A: S(0,7) NP(0,2) VP(2,7) NP(3,5) PP(5,7) NP(6,7)                 -> 6 constituents
+TREE_A = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (DT the) (NN quay)) "
+          "(PP (IN at) (NP (NN dawn)))) (. .)))")
+# B: S(0,7) NP(0,2) VP(2,7) NP(3,7) NP(3,5) ADVP(5,7) NP(6,7)       -> 7 constituents
+TREE_B = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (NP (DT the) (NN quay)) "
+          "(ADVP (IN at) (NP (NN dawn))))) (. .)))")
+LABELS = ["ROOT", "S", "NP", "VP", "PP", "ADVP"]
+TAGS = ["DT", "NN", "VBD", "IN", "."]
+
+
+def _submit(client, sentence_id: int, tree: str) -> None:  # type: ignore[no-untyped-def]
+    saved = client.client.post(f"/api/bench/{sentence_id}/revisions",
+                               json={"base": 0, "tree": tree}, headers=client.headers())
+    assert saved.status_code == 201, saved.text
+    head = saved.json()["annotation"]["head"]
+    done = client.client.post(f"/api/bench/{sentence_id}/submit", json={"base": head},
+                              headers=client.headers())
+    assert done.status_code == 200, done.text
+
+
+@pytest.fixture
+def one_sentence(db, people):  # type: ignore[no-untyped-def]
+    corpus, sentences = make_corpus(db, [SENTENCE], labels=LABELS, tags=TAGS)
+    assign(db, sentences, people.ann1, people.ann2)
+    return corpus, sentences[0]
+
+
+def test_different_trees_log_hand_worked_figures_and_go_to_review(db, login, one_sentence):
+    corpus, sentence = one_sentence
+    ann1, ann2 = login("ann1"), login("ann2")
+    _submit(ann1, sentence.id, TREE_A)
+    db.expire_all()
+    assert db.scalars(select(AgreementRecord)).all() == []  # ann2 has not submitted yet
+    assert db.get(Sentence, sentence.id).state == SENT_IN_PROGRESS
+    _submit(ann2, sentence.id, TREE_B)
+    db.expire_all()
+    [rec] = db.scalars(select(AgreementRecord)).all()
+    assert (rec.user_a_id, rec.user_b_id) == (ann1.user_id, ann2.user_id)
+    # shared labelled: S, NP(0,2), VP, NP(3,5), NP(6,7) = 5; PP(5,7) vs ADVP(5,7) differ
+    assert (rec.matched, rec.count_a, rec.count_b) == (5, 6, 7)
+    assert rec.labelled_precision == pytest.approx(5 / 7)  # B scored against A
+    assert rec.labelled_recall == pytest.approx(5 / 6)
+    assert rec.labelled_f1 == pytest.approx(10 / 13)  # 2*5 / (6+7)
+    # unlabelled: every span of A is in B: 6 matched of 6 and 7 -> 12/13
+    assert rec.unlabelled_f1 == pytest.approx(12 / 13)
+    assert rec.pos_agreement == 1.0  # the same tags on the 7 counted words
+    assert rec.identical is False
+    assert rec.detail["confusions"] == [["PP", "ADVP", 1]]
+    assert rec.detail["per_label"]["PP"] == [0, 1, 0]
+    assert rec.detail["per_label"]["NP"] == [3, 3, 4]
+    assert db.get(Sentence, sentence.id).state == SENT_IN_REVIEW
+    assert db.scalars(select(Gold)).all() == []
+
+
+def test_identical_trees_become_gold_by_agreement(db, login, one_sentence):
+    corpus, sentence = one_sentence
+    _submit(login("ann1"), sentence.id, TREE_A)
+    _submit(login("ann2"), sentence.id, TREE_A)
+    db.expire_all()
+    [rec] = db.scalars(select(AgreementRecord)).all()
+    assert rec.identical and rec.labelled_f1 == 1.0 and (rec.count_a, rec.count_b) == (6, 6)
+    [gold] = db.scalars(select(Gold)).all()
+    assert gold.provenance == "agreement" and gold.tree == TREE_A
+    first = db.scalar(select(Annotation).order_by(Annotation.id))
+    assert gold.source_annotation_id == first.id
+    assert db.get(Sentence, sentence.id).state == SENT_GOLD
+
+
+def test_identical_trees_go_to_review_when_the_setting_is_off(db, login, one_sentence):
+    corpus, sentence = one_sentence
+    c = db.get(Corpus, corpus.id)
+    c.settings = {**c.settings, "auto_gold_when_identical": False}
+    db.commit()
+    _submit(login("ann1"), sentence.id, TREE_A)
+    _submit(login("ann2"), sentence.id, TREE_A)
+    db.expire_all()
+    assert db.get(Sentence, sentence.id).state == SENT_IN_REVIEW
+    assert db.scalars(select(Gold)).all() == []
+
+
+def test_same_scores_but_different_brackets_are_not_identical(db, login, one_sentence):
+    # Moving the final "." inside the VP changes no counted span (punctuation is removed
+    # before counting), so F1 is 1.0, but the trees differ: a human must look.
+    corpus, sentence = one_sentence
+    moved = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (DT the) (NN quay)) "
+             "(PP (IN at) (NP (NN dawn))) (. .))))")
+    _submit(login("ann1"), sentence.id, TREE_A)
+    _submit(login("ann2"), sentence.id, moved)
+    db.expire_all()
+    [rec] = db.scalars(select(AgreementRecord)).all()
+    assert rec.labelled_f1 == 1.0 and rec.identical is False
+    assert db.get(Sentence, sentence.id).state == SENT_IN_REVIEW
+
+
+def test_calling_the_hook_again_logs_nothing_new(db, login, one_sentence):
+    corpus, sentence = one_sentence
+    _submit(login("ann1"), sentence.id, TREE_A)
+    _submit(login("ann2"), sentence.id, TREE_B)
+    db.expire_all()
+    agreement.on_submitted(db, db.get(Sentence, sentence.id))
+    db.commit()
+    assert len(db.scalars(select(AgreementRecord)).all()) == 1
+    events = db.scalars(select(Event).where(Event.kind == "agreement.logged")).all()
+    assert [e.detail["pairs"] for e in events] == [1, 0]
+
+
+def test_three_annotators_give_three_pairs(db, login, people):
+    corpus, [sentence] = make_corpus(db, [SENTENCE], labels=LABELS, tags=TAGS)
+    assign(db, [sentence], people.ann1, people.ann2, people.adjudicator)
+    _submit(login("ann1"), sentence.id, TREE_A)
+    _submit(login("ann2"), sentence.id, TREE_B)
+    db.expire_all()
+    assert db.scalars(select(AgreementRecord)).all() == []  # adj has not submitted
+    _submit(login("adj"), sentence.id, TREE_A)
+    db.expire_all()
+    recs = db.scalars(select(AgreementRecord).order_by(AgreementRecord.id)).all()
+    assert [(r.matched, r.count_a, r.count_b) for r in recs] == [(5, 6, 7), (6, 6, 6),
+                                                                  (5, 7, 6)]
+    assert db.get(Sentence, sentence.id).state == SENT_IN_REVIEW  # B differs from A and C
+
+
+def test_without_assignments_the_corpus_setting_decides(db, people):
+    from app.models import ANN_SUBMITTED, Revision
+
+    corpus, [sentence] = make_corpus(db, [SENTENCE], labels=LABELS, tags=TAGS)
+
+    def submitted(user_id: int, tree: str) -> None:
+        ann = Annotation(sentence_id=sentence.id, user_id=user_id, state=ANN_SUBMITTED, head=1)
+        db.add(ann)
+        db.flush()
+        db.add(Revision(annotation_id=ann.id, number=1, tree=tree, user_id=user_id))
+        db.flush()
+        agreement.on_submitted(db, sentence)
+        db.commit()
+
+    submitted(people.ann1.id, TREE_A)
+    assert db.scalars(select(AgreementRecord)).all() == []  # 1 of the default 2
+    submitted(people.ann2.id, TREE_A)
+    assert len(db.scalars(select(AgreementRecord)).all()) == 1
+    assert db.get(Sentence, sentence.id).state == SENT_GOLD
+
+
+def test_figures_sum_records_of_the_corpus(db, login, people):
+    corpus, sentences = make_corpus(db, [SENTENCE, SENTENCE.replace("dawn", "noon")],
+                                    labels=LABELS, tags=TAGS)
+    assign(db, sentences, people.ann1, people.ann2)
+    a1, a2 = login("ann1"), login("ann2")
+    _submit(a1, sentences[0].id, TREE_A)
+    _submit(a2, sentences[0].id, TREE_B)
+    _submit(a1, sentences[1].id, TREE_A.replace("dawn", "noon"))
+    _submit(a2, sentences[1].id, TREE_A.replace("dawn", "noon"))
+    fig = agreement.corpus_figures(db, corpus.id)
+    # micro-average: matched 5 + 6 = 11 over 6+7 and 6+6 constituents -> 22 / 25
+    assert fig.records == 2 and fig.identical == 1
+    assert fig.counts.f1 == pytest.approx(22 / 25)
+    [pair] = fig.pairs
+    assert (pair.user_a, pair.user_b, pair.sentences) == ("Ann1", "Ann2", 2)
+    worst = fig.labels[0]
+    # ADVP: only in B of the first pair -> F1 0. PP: first pair [0 matched, 1 in A, 0 in B],
+    # second pair [1, 1, 1] -> matched 1 of 2 and 1: F1 = 2*1 / (2+1) = 2/3
+    assert worst.label == "ADVP" and worst.counts.f1 == 0.0
+    assert {lf.label: lf.counts.f1 for lf in fig.labels}["PP"] == pytest.approx(2 / 3)
+    assert fig.confusions == [("ADVP", "PP", 1)]
+    assert len(fig.weeks) == 1 and fig.weeks[0].records == 2
+    csv_text = agreement.agreement_csv(db, corpus.id)
+    lines = csv_text.strip().split("\n")
+    assert lines[0].split(",") == list(agreement.CSV_COLUMNS)
+    assert len(lines) == 3 and ",0.7692," in lines[1]  # 10/13 rounded to 4 places
