@@ -63,7 +63,9 @@ from parser.trees import (
 
 GRAMMAR_CACHE_SIZE = 3
 
-_grammars: OrderedDict[int, Grammar] = OrderedDict()
+# keyed by (database URL, version id): ids repeat across databases (tests, several corpora
+# files), a grammar row never changes once ready.
+_grammars: OrderedDict[tuple[str, int], Grammar] = OrderedDict()
 _grammar_lock = threading.Lock()
 
 
@@ -81,10 +83,11 @@ def grammar_from_bytes(data: bytes) -> Grammar:
 
 def grammar_for(db: Session, version_id: int) -> Grammar:
     """The loaded grammar of a GrammarVersion, from the per-process cache when possible."""
+    key = (str(db.get_bind().url), version_id)
     with _grammar_lock:
-        cached = _grammars.get(version_id)
+        cached = _grammars.get(key)
         if cached is not None:
-            _grammars.move_to_end(version_id)
+            _grammars.move_to_end(key)
             return cached
     version = db.scalar(select(GrammarVersion).options(undefer(GrammarVersion.data))
                         .where(GrammarVersion.id == version_id))
@@ -99,8 +102,8 @@ def grammar_for(db: Session, version_id: int) -> Grammar:
     # that an annotator is waiting for more than this one.
     parse(grammar, ["a", "b"])
     with _grammar_lock:
-        _grammars[version_id] = grammar
-        _grammars.move_to_end(version_id)
+        _grammars[key] = grammar
+        _grammars.move_to_end(key)
         while len(_grammars) > GRAMMAR_CACHE_SIZE:
             _grammars.popitem(last=False)
     return grammar

@@ -1,0 +1,110 @@
+"""Suggestions: parsed once, cached in the Suggestion table, k alternatives with
+probabilities, posteriors; refresh_unstarted after a new grammar; the per-process grammar
+cache. Grammar trained on a slice of GUM (Zeldes 2017, CC BY)."""
+
+from __future__ import annotations
+
+import math
+
+from sqlalchemy import func, select
+
+from app.models import Suggestion
+from app.services import suggestions
+from parser.trees import constituents, read_tree
+from tests.app.bench_helpers import (
+    assign,
+    flat_text,
+    gum_grammar_bytes,
+    install_grammar,
+    make_corpus,
+)
+
+
+def _world(db, people):
+    corpus, sentences = make_corpus(db, labels=[], tags=[])
+    assign(db, sentences, people.ann1)
+    version = install_grammar(db, corpus, gum_grammar_bytes())
+    return corpus, sentences, version
+
+
+def _count(db) -> int:
+    db.expire_all()
+    return db.scalar(select(func.count()).select_from(Suggestion))
+
+
+def test_suggestions_new_annotation_starts_from_best_and_is_cached(db, people, login,
+                                                                   settings) -> None:
+    _, sentences, _ = _world(db, people)
+    me = login("ann1")
+    s = sentences[0]
+    first = me.client.get(f"/api/bench/{s.id}").json()
+    assert first["source"] == "suggestion"
+    sugg = first["suggestion"]
+    assert sugg["grammar_version"] == 1 and sugg["fallback"] is False
+    alts = sugg["alternatives"]
+    assert len(alts) == settings.suggestion_k
+    assert first["tree"] == alts[0]["tree"]
+    probs = [a["probability"] for a in alts]
+    assert all(0 < p <= 1 for p in probs)
+    assert probs == sorted(probs, reverse=True)
+    assert sum(probs) <= 1 + 1e-6  # distinct trees of one sentence
+    assert len({a["tree"] for a in alts}) == len(alts)
+    assert _count(db) == 1
+    again = me.client.get(f"/api/bench/{s.id}").json()
+    assert again["suggestion"] == sugg and _count(db) == 1
+
+
+def test_suggestions_posteriors_cover_the_root_and_the_best_tree(db, people, login) -> None:
+    _, sentences, _ = _world(db, people)
+    me = login("ann1")
+    s = sentences[1]
+    body = me.client.get(f"/api/bench/{s.id}").json()
+    post = {(lab, a, b): p for lab, a, b, p in body["suggestion"]["posteriors"]}
+    n = len(s.tokens)
+    assert math.isclose(post[("ROOT", 0, n)], 1.0, abs_tol=1e-3)
+    assert all(0 < p <= 1 + 1e-6 for p in post.values())
+    # every constituent of the Viterbi tree has a posterior above the parser's threshold
+    best = read_tree(body["tree"])
+    for lab, a, b in constituents(best):
+        assert (lab, a, b) in post
+
+
+def test_suggestions_returning_annotator_gets_their_revision_not_the_suggestion(
+        db, people, login) -> None:
+    _, sentences, _ = _world(db, people)
+    me = login("ann1")
+    s = sentences[2]
+    mine = flat_text(s.tokens, ["DT", "JJ", "NN", "VBZ", "RB", "VBN", "VBN", "."])
+    me.client.post(f"/api/bench/{s.id}/revisions", headers=me.headers(),
+                   json={"base": 0, "tree": mine})
+    body = me.client.get(f"/api/bench/{s.id}").json()
+    assert body["tree"] == mine and body["source"] == "edit"
+    assert body["suggestion"] is not None  # still offered as alternatives
+
+
+def test_suggestions_refresh_unstarted_skips_started_sentences(db, people, login) -> None:
+    corpus, sentences, _ = _world(db, people)
+    me = login("ann1")
+    started = sentences[0]
+    me.client.post(f"/api/bench/{started.id}/revisions", headers=me.headers(),
+                   json={"base": 0, "tree": flat_text(started.tokens)})
+    newer = install_grammar(db, corpus, gum_grammar_bytes(), number=2)
+    done = suggestions.refresh_unstarted(db, corpus, newer, k=3, processes=1)
+    assert done == len(sentences) - 1
+    rows = db.scalars(select(Suggestion).where(Suggestion.grammar_version_id == newer.id)).all()
+    assert {r.sentence_id for r in rows} == {s.id for s in sentences[1:]}
+    assert all(len(r.trees) == 3 for r in rows)
+    assert suggestions.refresh_unstarted(db, corpus, newer, k=3, processes=1) == 0
+    # the Bench now uses the cached row of the new version without parsing again
+    before = _count(db)
+    body = me.client.get(f"/api/bench/{sentences[1].id}").json()
+    assert body["suggestion"]["grammar_version"] == 2 and _count(db) == before
+
+
+def test_suggestions_grammar_is_loaded_once_per_process(db, people) -> None:
+    _, _, version = _world(db, people)
+    suggestions.forget_grammars()
+    first = suggestions.grammar_for(db, version.id)
+    assert suggestions.grammar_for(db, version.id) is first
+    suggestions.forget_grammars()
+    assert suggestions.grammar_for(db, version.id) is not first

@@ -1,0 +1,109 @@
+"""Constrained re-parse through the API keeps every pin: 50 held-out GUM sentences (Zeldes
+2017, CC BY; ../shared/data/gum-trees) with random pinned constituents and POS tags taken from
+their gold trees."""
+
+from __future__ import annotations
+
+import pytest
+
+from app.models import Corpus, Document, Sentence
+from parser.trees import constituents, pos_tags, read_tree, words
+from tests.app.bench_helpers import assign, gum_grammar_bytes, heldout_gum_trees, install_grammar
+
+
+@pytest.fixture
+def gum_bench(db, people, login):
+    trees = heldout_gum_trees(50, min_words=4, max_words=30)
+    corpus = Corpus(name="GUM slice", label_set=[], tag_set=[], settings={})
+    db.add(corpus)
+    db.flush()
+    doc = Document(corpus_id=corpus.id, name="gum", position=0)
+    db.add(doc)
+    db.flush()
+    sentences = []
+    for i, tree in enumerate(trees):
+        s = Sentence(corpus_id=corpus.id, document_id=doc.id, position=i, tokens=words(tree),
+                     text=" ".join(words(tree)))
+        db.add(s)
+        sentences.append(s)
+    db.commit()
+    assign(db, sentences, people.ann1)
+    install_grammar(db, corpus, gum_grammar_bytes())
+    return login("ann1"), list(zip(sentences, trees, strict=True))
+
+
+def test_suggestions_reparse_keeps_every_pin_on_50_gum_sentences(gum_bench, rng) -> None:
+    me, pairs = gum_bench
+    assert len(pairs) == 50
+    pinned_spans = pinned_tags = 0
+    for sentence, gold in pairs:
+        spans = [(s, e, lab) for lab, s, e in constituents(gold)[1:]]
+        chosen = rng.sample(spans, min(len(spans), rng.randint(1, 3)))
+        tags = list(enumerate(pos_tags(gold)))
+        chosen_tags = rng.sample(tags, rng.randint(0, 2))
+        pins = {"spans": [[s, e, lab] for s, e, lab in chosen],
+                "tags": [[i, t] for i, t in chosen_tags]}
+        resp = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                              json={"pins": pins})
+        assert resp.status_code == 200, (sentence.text, pins, resp.text)
+        tree = read_tree(resp.json()["trees"][0])
+        assert words(tree) == words(gold)
+        have = set(constituents(tree))
+        for s, e, lab in chosen:
+            assert (lab, s, e) in have, (sentence.text, pins, resp.json()["trees"][0])
+        got_tags = pos_tags(tree)
+        for i, t in chosen_tags:
+            assert got_tags[i] == t
+        pinned_spans += len(chosen)
+        pinned_tags += len(chosen_tags)
+        # the server accepts the re-parsed tree with those pins as a revision
+        saved = me.client.post(f"/api/bench/{sentence.id}/revisions", headers=me.headers(),
+                               json={"base": 0, "tree": resp.json()["trees"][0], "pins": pins,
+                                     "source": "reparse"})
+        assert saved.status_code == 201, saved.text
+    assert pinned_spans >= 50
+
+
+def test_suggestions_reparse_without_pins_is_the_best_suggestion(gum_bench) -> None:
+    me, pairs = gum_bench
+    sentence = pairs[0][0]
+    bench = me.client.get(f"/api/bench/{sentence.id}").json()
+    resp = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                          json={"pins": {"spans": [], "tags": []}})
+    assert resp.json()["trees"][0] == bench["suggestion"]["alternatives"][0]["tree"]
+
+
+def test_suggestions_reparse_refuses_crossing_or_outside_pins(gum_bench) -> None:
+    me, pairs = gum_bench
+    sentence = next(s for s, g in pairs if len(s.tokens) >= 6)
+    url = f"/api/bench/{sentence.id}/reparse"
+    crossing = me.client.post(url, headers=me.headers(), json={
+        "pins": {"spans": [[0, 3, "NP"], [2, 5, "VP"]], "tags": []}})
+    assert crossing.status_code == 422 and crossing.json()["kind"] == "pins"
+    assert "cross" in crossing.json()["detail"]
+    outside = me.client.post(url, headers=me.headers(), json={
+        "pins": {"spans": [[0, 99, "NP"]], "tags": []}})
+    assert outside.status_code == 422 and "outside" in outside.json()["detail"]
+
+
+def test_suggestions_reparse_without_grammar_is_409(db, people, login) -> None:
+    from tests.app.bench_helpers import make_corpus
+
+    _, sentences = make_corpus(db)
+    assign(db, sentences, people.ann1)
+    me = login("ann1")
+    resp = me.client.post(f"/api/bench/{sentences[0].id}/reparse", headers=me.headers(),
+                          json={"pins": {"spans": [], "tags": []}})
+    assert resp.status_code == 409 and resp.json()["kind"] == "no_grammar"
+
+
+def test_suggestions_reparse_keeps_a_label_the_grammar_never_saw(gum_bench) -> None:
+    me, pairs = gum_bench
+    sentence, gold = next((s, g) for s, g in pairs if len(s.tokens) >= 5)
+    pins = {"spans": [[1, 3, "NP-ODDITY"]], "tags": [[0, "NN-ODD"]]}
+    resp = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                          json={"pins": pins})
+    assert resp.status_code == 200, resp.text
+    tree = read_tree(resp.json()["trees"][0])
+    assert ("NP-ODDITY", 1, 3) in constituents(tree)
+    assert pos_tags(tree)[0] == "NN-ODD"
