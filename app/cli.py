@@ -1,0 +1,551 @@
+"""The ``treewright`` command line: serve, demo, import, export, users, assignment, backup.
+
+Every command that touches the database takes ``--data-dir`` (default ``./data`` or
+``TREEWRIGHT_DATA_DIR``); ``TREEWRIGHT_DATABASE_URL`` points it at PostgreSQL instead. The
+database is brought to the newest schema before any command uses it. Service errors end the
+command with exit status 1 and a one-line message saying what and where.
+
+The parser's own commands (``train``, ``parse``, ``score``) are registered here too; they work
+on files and need no database.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from datetime import datetime
+from pathlib import Path
+from typing import Any, TypeVar
+
+import click
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.db import alembic_config, make_engine, make_sessionmaker, upgrade_to_head
+from app.models import ROLES, Corpus, Document
+from app.services.errors import ServiceError
+from app.settings import Settings
+
+F = TypeVar("F", bound=Callable[..., Any])
+#: Imports with more sentences than this show a progress bar.
+PROGRESS_MIN = 300
+
+
+def data_dir_option(func: F) -> F:
+    return click.option(
+        "--data-dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+        help="Folder of the SQLite database, secret key and backups "
+             "[default: ./data or TREEWRIGHT_DATA_DIR].")(func)
+
+
+def make_settings(data_dir: Path | None, **overrides: Any) -> Settings:
+    values = {k: v for k, v in overrides.items() if v is not None}
+    if data_dir is not None:
+        values["data_dir"] = data_dir
+    return Settings(**values)
+
+
+@contextmanager
+def open_db(settings: Settings) -> Iterator[Session]:
+    """A session on the migrated database; the engine is closed afterwards."""
+    upgrade_to_head(settings)
+    engine = make_engine(settings)
+    db = make_sessionmaker(engine)()
+    try:
+        yield db
+    finally:
+        db.close()
+        engine.dispose()
+
+
+@contextmanager
+def friendly_errors() -> Iterator[None]:
+    """Service errors become a one-line message and exit status 1."""
+    try:
+        yield
+    except ServiceError as err:
+        raise click.ClickException(str(err.detail)) from None
+
+
+def corpus_named(db: Session, name: str) -> Corpus:
+    corpus = db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
+    if corpus is None:
+        known = ", ".join(repr(n) for n in db.scalars(select(Corpus.name).order_by(Corpus.name)))
+        raise click.ClickException(f"no corpus named {name!r}"
+                                   + (f" (there are: {known})" if known else " (none yet)"))
+    return corpus
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(package_name="treewright")
+def main() -> None:
+    """Treewright: build a constituency treebank with a parser in the loop."""
+
+
+# ---------------------------------------------------------------------------------------------
+# serving
+
+
+def _serve(settings: Settings, host: str, port: int, workers: int) -> None:
+    import uvicorn
+
+    from app.main import create_app
+
+    click.echo(f"Treewright serves on http://{host}:{port}  (Ctrl-C stops it)")
+    if workers > 1:
+        # Workers build their own app from the environment, so hand the settings over there.
+        os.environ["TREEWRIGHT_DATA_DIR"] = str(settings.data_dir.resolve())
+        if settings.database_url:
+            os.environ["TREEWRIGHT_DATABASE_URL"] = settings.database_url
+        upgrade_to_head(settings)  # once, before the workers race to do it
+        uvicorn.run("app.main:create_app", factory=True, host=host, port=port,
+                    workers=workers, log_level="info", proxy_headers=False)
+        return
+    uvicorn.run(create_app(settings), host=host, port=port, log_level="info")
+
+
+@main.command()
+@click.option("--host", default=None, help="Address to bind [default: 127.0.0.1].")
+@click.option("--port", type=click.IntRange(1, 65535), default=None,
+              help="Port to listen on [default: 8000].")
+@click.option("--workers", type=click.IntRange(1, 64), default=1, show_default=True,
+              help="Worker processes (use more than one only with PostgreSQL).")
+@data_dir_option
+def serve(host: str | None, port: int | None, workers: int, data_dir: Path | None) -> None:
+    """Run the web service."""
+    settings = make_settings(data_dir, host=host, port=port)
+    if workers > 1 and settings.is_sqlite:
+        click.echo("note: several workers on SQLite serialize every write; PostgreSQL is the "
+                   "better fit", err=True)
+    _serve(settings, settings.host, settings.port, workers)
+
+
+def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
+    """Remove the database (SQLite: the file, after a copy when asked; PostgreSQL: every
+    table)."""
+    if settings.is_sqlite:
+        from app.services.backup import backup_sqlite, database_path
+
+        path = database_path(settings)
+        kept = None
+        if keep_copy and path.exists():
+            stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
+            kept = backup_sqlite(settings, settings.data_dir / "backups"
+                                 / f"before-demo-{stamp}.db").path
+        for suffix in ("", "-wal", "-shm"):
+            Path(str(path) + suffix).unlink(missing_ok=True)
+        return kept
+    from alembic import command
+
+    command.downgrade(alembic_config(settings), "base")
+    return None
+
+
+@main.command()
+@click.option("--host", default=None, help="Address to bind [default: 127.0.0.1].")
+@click.option("--port", type=click.IntRange(1, 65535), default=None,
+              help="Port to listen on [default: 8000].")
+@click.option("--force", is_flag=True,
+              help="Replace a database that is not a demo (a SQLite copy is kept in "
+                   "DATA_DIR/backups first).")
+@click.option("--no-serve", is_flag=True, help="Load the demo and stop.")
+@data_dir_option
+def demo(host: str | None, port: int | None, force: bool, no_serve: bool,
+         data_dir: Path | None) -> None:
+    """Load fresh demo data (invented ferry cooperative), print the logins, then serve."""
+    from app.demo.loader import is_demo_database, load_demo
+
+    settings = make_settings(data_dir, host=host, port=port)
+    with open_db(settings) as db:
+        demo_db = is_demo_database(db)
+    if not demo_db and not force:
+        raise click.ClickException(
+            f"the database at {settings.resolved_database_url} holds data that is not the "
+            "demo's; refusing to replace it. Use another --data-dir, or --force (a SQLite "
+            "copy is kept in DATA_DIR/backups first).")
+    kept = _wipe(settings, keep_copy=not demo_db)
+    if kept:
+        click.echo(f"kept a copy of the previous database: {kept}")
+    with open_db(settings) as db, friendly_errors():
+        summary = load_demo(db)
+    click.echo(f"demo loaded: {summary.gold} gold trees and {summary.queued} sentences to "
+               f"annotate in {len(summary.documents)} documents "
+               f"({summary.assignments} assignments)")
+    if summary.grammar:
+        number, status, f1 = summary.grammar
+        score = f", held-out F1 {f1:.3f}" if f1 is not None else ""
+        click.echo(f"grammar version {number}: {status}{score}")
+    click.echo("Demo logins (passwords are new on every `treewright demo`):")
+    for username, role, password in summary.logins:
+        click.echo(f"  {username:<10} {role:<12} {password}")
+    if not no_serve:
+        _serve(settings, settings.host, settings.port, 1)
+
+
+# ---------------------------------------------------------------------------------------------
+# import / export
+
+
+class _Bar:
+    """A tqdm bar that appears only for imports larger than PROGRESS_MIN sentences."""
+
+    def __init__(self, label: str) -> None:
+        self.label = label
+        self.bar: Any = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if total <= PROGRESS_MIN:
+            return
+        if self.bar is None:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, desc=self.label, unit="sentence", file=sys.stderr)
+        self.bar.update(done - self.bar.n)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+@main.command("import")
+@click.argument("files", nargs=-1, required=True,
+                type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--corpus", "corpus_name", required=True,
+              help="Corpus to import into (made when missing).")
+@click.option("--document", "document_name", default=None,
+              help="Document name [default: each file's name without extension].")
+@click.option("--as", "kind", type=click.Choice(["text", "gold", "annotation"]),
+              default="text", show_default=True,
+              help="text: one sentence per line, queued; gold: bracketed trees as gold; "
+                   "annotation: bracketed trees as --annotator's submitted annotations.")
+@click.option("--annotator", default=None, help="User name for --as annotation.")
+@click.option("--tokenizer", type=click.Choice(["whitespace", "treebank"]),
+              default="whitespace", show_default=True,
+              help="How text lines are split into tokens (treebank: NLTK's Treebank-style "
+                   "word tokenizer).")
+@click.option("--skip-duplicates", is_flag=True,
+              help="Leave out sentences already in the file or the corpus (default: import "
+                   "them and report them).")
+@click.option("--assign", "do_assign", is_flag=True,
+              help="Afterwards, assign the corpus's open sentences to the team.")
+@data_dir_option
+def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str | None,
+                   kind: str, annotator: str | None, tokenizer: str, skip_duplicates: bool,
+                   do_assign: bool, data_dir: Path | None) -> None:
+    """Import sentences or bracketed trees; each file is stored whole or not at all."""
+    from app.services.assignment import assign_sentences
+    from app.services.imports import import_file
+
+    if kind == "annotation" and not annotator:
+        raise click.UsageError("--as annotation needs --annotator USERNAME")
+    if document_name and len(files) > 1:
+        raise click.UsageError("--document names one document; give one file with it")
+    settings = make_settings(data_dir)
+    with open_db(settings) as db:
+        for path in files:
+            bar = _Bar(path.name)
+            try:
+                with friendly_errors():
+                    result = import_file(db, path, corpus_name=corpus_name, kind=kind,
+                                         document_name=document_name or path.stem,
+                                         tokenizer=tokenizer, annotator=annotator,
+                                         skip_duplicates=skip_duplicates, progress=bar)
+            finally:
+                bar.close()
+            click.echo(f"{path.name}: {result.summary()}")
+            for dup in result.duplicates[:20]:
+                click.echo(f"  duplicate: {dup.describe()}")
+            if len(result.duplicates) > 20:
+                click.echo(f"  ... and {len(result.duplicates) - 20} more duplicate(s)")
+        if do_assign:
+            with friendly_errors():
+                corpus = corpus_named(db, corpus_name)
+                assigned = assign_sentences(db, corpus.id)
+                db.commit()
+            click.echo(assigned.summary())
+
+
+@main.command("export")
+@click.option("--corpus", "corpus_name", required=True, help="Corpus whose gold to export.")
+@click.option("--document", "document_name", default=None, help="Only this document.")
+@click.option("--strip-function-tags", is_flag=True,
+              help="Write NP-SBJ-1 as NP (labels such as -LRB- stay whole).")
+@click.option("--split", "ratios", default=None, metavar="TRAIN/DEV/TEST",
+              help="Split into train, dev and test files by these ratios, e.g. 80/10/10.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the split.")
+@click.option("--by", type=click.Choice(["document", "sentence"]), default="document",
+              show_default=True, help="Keep documents whole, or shuffle sentences.")
+@click.option("--out", type=click.Path(path_type=Path), default=None,
+              help="Output file (without --split; default: standard output) or folder "
+                   "(with --split; default: the current folder).")
+@click.option("--zip", "as_zip", is_flag=True, help="With --split: write one .zip file.")
+@data_dir_option
+def export_command(corpus_name: str, document_name: str | None, strip_function_tags: bool,
+                   ratios: str | None, seed: int, by: str, out: Path | None, as_zip: bool,
+                   data_dir: Path | None) -> None:
+    """Export gold trees as bracketed text, one tree per line."""
+    from app.services.exports import SplitSpec, export_gold, parse_ratios, slug
+
+    settings = make_settings(data_dir)
+    with open_db(settings) as db, friendly_errors():
+        corpus = corpus_named(db, corpus_name)
+        document_id = None
+        if document_name:
+            document_id = db.scalar(select(Document.id).where(
+                Document.corpus_id == corpus.id, Document.name == document_name))
+            if document_id is None:
+                raise click.ClickException(f"no document {document_name!r} in {corpus.name!r}")
+        split = SplitSpec(parse_ratios(ratios), seed=seed, by=by) if ratios else None
+        result = export_gold(db, corpus.id, document_id=document_id,
+                             function_tags=not strip_function_tags, split=split)
+    for warning in result.warnings:
+        click.echo(f"warning: {warning}", err=True)
+    if split is None and not as_zip:
+        (text,) = result.files.values()
+        if out is None:
+            click.echo(text, nl=False)
+        else:
+            out.write_text(text, encoding="utf-8")
+            click.echo(f"wrote {out} ({sum(result.counts.values())} trees)", err=True)
+        return
+    folder = out or Path(".")
+    if as_zip:
+        target = folder if folder.suffix == ".zip" else folder / f"{slug(corpus.name)}-gold.zip"
+        target.parent.mkdir(parents=True, exist_ok=True)
+        target.write_bytes(result.zip_bytes())
+        click.echo(f"wrote {target}: " + ", ".join(f"{n} ({c} trees)"
+                                                   for n, c in result.counts.items()))
+        return
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, text in result.files.items():
+        (folder / name).write_text(text, encoding="utf-8")
+        click.echo(f"wrote {folder / name} ({result.counts[name]} trees)")
+
+
+# ---------------------------------------------------------------------------------------------
+# corpora and assignment
+
+
+@main.group()
+def corpus() -> None:
+    """List corpora or remove one."""
+
+
+@corpus.command("list")
+@data_dir_option
+def corpus_list(data_dir: Path | None) -> None:
+    """Corpora with their sentence counts per state and gold count."""
+    from app.services.corpora import corpus_overview
+
+    with open_db(make_settings(data_dir)) as db:
+        rows = corpus_overview(db)
+    if not rows:
+        click.echo("no corpora yet")
+    for row in rows:
+        states = ", ".join(f"{state} {n}" for state, n in row.states.items())
+        click.echo(f"{row.corpus.id:>4}  {row.corpus.name}  ({row.sentences} sentences: "
+                   f"{states}; gold trees {row.gold})")
+
+
+@corpus.command("remove")
+@click.argument("name")
+@click.option("--confirm", "typed", prompt="Type the corpus name to confirm its removal",
+              help="The corpus name again, to confirm.")
+@data_dir_option
+def corpus_remove(name: str, typed: str, data_dir: Path | None) -> None:
+    """Remove a corpus and everything in it (asks for its name as confirmation)."""
+    from app.services.corpora import delete_corpus
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        target = corpus_named(db, name)
+        removed = delete_corpus(db, target.id, typed)
+        db.commit()
+    click.echo(f"removed corpus {removed!r}")
+
+
+@main.command()
+@click.option("--corpus", "corpus_name", required=True, help="Corpus whose sentences to assign.")
+@click.option("--per-sentence", type=click.IntRange(1, 10), default=None,
+              help="Annotators per sentence [default: the corpus setting].")
+@click.option("--user", "usernames", multiple=True,
+              help="Assign only to these users (repeatable) [default: every active "
+                   "annotator and adjudicator].")
+@data_dir_option
+def assign(corpus_name: str, per_sentence: int | None, usernames: tuple[str, ...],
+           data_dir: Path | None) -> None:
+    """Give every open sentence its annotators, balanced across the team."""
+    from app.services.assignment import assign_sentences
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        target = corpus_named(db, corpus_name)
+        result = assign_sentences(db, target.id, per_sentence=per_sentence,
+                                  usernames=list(usernames) or None)
+        db.commit()
+    click.echo(result.summary())
+    for username, n in sorted(result.per_user.items()):
+        click.echo(f"  {username}: {n}")
+
+
+# ---------------------------------------------------------------------------------------------
+# users
+
+
+@main.group()
+def user() -> None:
+    """Manage accounts: add, list, set-role, disable, enable, set-password."""
+
+
+def _password(value: str | None, generate: bool) -> tuple[str, bool]:
+    import secrets
+
+    if generate:
+        return secrets.token_urlsafe(12), True
+    if value:
+        return value, False
+    return click.prompt("Password", hide_input=True, confirmation_prompt=True), False
+
+
+@user.command("add")
+@click.argument("username")
+@click.option("--role", type=click.Choice(ROLES), default="annotator", show_default=True)
+@click.option("--display-name", default="", help="Name shown on the pages.")
+@click.option("--password", default=None,
+              help="The password (prefer the prompt: a command line can be seen by others).")
+@click.option("--generate", is_flag=True, help="Make up a password and print it.")
+@data_dir_option
+def user_add(username: str, role: str, display_name: str, password: str | None,
+             generate: bool, data_dir: Path | None) -> None:
+    """Create an account."""
+    from app.services.users import create_user
+
+    secret, made_up = _password(password, generate)
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        create_user(db, username, secret, role, display_name=display_name)
+        db.commit()
+    click.echo(f"created {username} ({role})" + (f", password: {secret}" if made_up else ""))
+
+
+@user.command("list")
+@data_dir_option
+def user_list(data_dir: Path | None) -> None:
+    """Every account with its role and whether it is active."""
+    from app.services.users import list_users
+
+    with open_db(make_settings(data_dir)) as db:
+        for u in list_users(db):
+            state = "active" if u.active else "disabled"
+            click.echo(f"{u.username:<20} {u.role:<12} {state:<9} {u.display_name}")
+
+
+@user.command("set-role")
+@click.argument("username")
+@click.argument("role", type=click.Choice(ROLES))
+@data_dir_option
+def user_set_role(username: str, role: str, data_dir: Path | None) -> None:
+    """Change an account's role."""
+    from app.services.users import set_role, user_by_name
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        set_role(db, user_by_name(db, username), role)
+        db.commit()
+    click.echo(f"{username} is now {role}")
+
+
+def _set_active(username: str, active: bool, data_dir: Path | None) -> None:
+    from app.services.users import set_active, user_by_name
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        set_active(db, user_by_name(db, username), active)
+        db.commit()
+    click.echo(f"{username} is {'enabled' if active else 'disabled'}")
+
+
+@user.command("disable")
+@click.argument("username")
+@data_dir_option
+def user_disable(username: str, data_dir: Path | None) -> None:
+    """Disable an account and end its sessions (its work stays)."""
+    _set_active(username, False, data_dir)
+
+
+@user.command("enable")
+@click.argument("username")
+@data_dir_option
+def user_enable(username: str, data_dir: Path | None) -> None:
+    """Enable a disabled account again."""
+    _set_active(username, True, data_dir)
+
+
+@user.command("set-password")
+@click.argument("username")
+@click.option("--password", default=None, help="The new password (default: prompt).")
+@click.option("--generate", is_flag=True, help="Make up a password and print it.")
+@data_dir_option
+def user_set_password(username: str, password: str | None, generate: bool,
+                      data_dir: Path | None) -> None:
+    """Set a new password; the account's sessions end."""
+    from app.services.users import set_password, user_by_name
+
+    secret, made_up = _password(password, generate)
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        set_password(db, user_by_name(db, username), secret)
+        db.commit()
+    click.echo(f"password of {username} changed" + (f": {secret}" if made_up else ""))
+
+
+# ---------------------------------------------------------------------------------------------
+# backup
+
+
+@main.command()
+@click.option("--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Backup file [default: DATA_DIR/backups/treewright-<time>.db].")
+@data_dir_option
+def backup(out: Path | None, data_dir: Path | None) -> None:
+    """Write a consistent copy of the live SQLite database (safe while serving)."""
+    from app.services.backup import backup_sqlite
+
+    settings = make_settings(data_dir)
+    with friendly_errors():
+        info = backup_sqlite(settings, out)
+    click.echo(f"backup written: {info.path} ({info.bytes} bytes, integrity ok)")
+
+
+@main.command()
+@click.argument("source", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--yes", is_flag=True, help="Do not ask for confirmation.")
+@data_dir_option
+def restore(source: Path, yes: bool, data_dir: Path | None) -> None:
+    """Replace the database with a backup (the current one is kept in DATA_DIR/backups).
+
+    Stop the service first.
+    """
+    from app.services.backup import restore_sqlite
+
+    settings = make_settings(data_dir)
+    if not yes:
+        click.confirm(f"Replace the database in {settings.data_dir} with {source}?",
+                      abort=True)
+    with friendly_errors():
+        safety, live = restore_sqlite(settings, source)
+    if safety:
+        click.echo(f"the previous database was kept as {safety.path}")
+    click.echo(f"restored {source} into {live}")
+
+
+# ---------------------------------------------------------------------------------------------
+# the parser's commands
+
+
+def _register_parser_commands() -> None:
+    from parser.cli_parse import parse_command, train_command
+    from parser.cli_score import score as score_command
+
+    main.add_command(train_command, "train")
+    main.add_command(parse_command, "parse")
+    main.add_command(score_command, "score")
+
+
+_register_parser_commands()

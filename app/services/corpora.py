@@ -1,0 +1,382 @@
+"""Corpora: creation with a label set and tag set, settings, overview counts, removal.
+
+A corpus's *label set* holds the phrasal labels as annotators write them (function tags
+included, ``NP-SBJ`` beside ``NP``; never the empty wrapper label) and its *tag set* the POS
+tags. When a corpus is created without them, they are *derived*: every bracketed import adds
+the labels and tags its trees use (:func:`absorb_tree_inventory`). An empty set allows every
+label (the Bench checks labels only against a non-empty set). :data:`PTB_LABELS` and
+:data:`PTB_TAGS` are offered as a starting point when a corpus is created by hand. Explicit
+sets stay as given.
+
+Removing a corpus needs its exact name typed as confirmation; the database's ON DELETE
+CASCADE removes documents, sentences, annotations, revisions, gold, grammars and suggestions in
+the same transaction.
+
+Cost: the overview runs one grouped COUNT per query (O(sentences) in the database, no rows
+loaded); a sentence page loads only its rows (LIMIT/OFFSET).
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+from typing import Any
+
+from nltk import Tree
+from sqlalchemy import delete, func, select
+from sqlalchemy.orm import Session
+
+from app.models import (
+    DEFAULT_CORPUS_SETTINGS,
+    SENTENCE_STATES,
+    Assignment,
+    Corpus,
+    Document,
+    Event,
+    Gold,
+    Sentence,
+    User,
+)
+from app.services.errors import BadInput, Conflict, NotFound
+
+# Phrase labels of Treebank II bracketing (Bies, Ferguson, Katz and MacIntyre 1995, "Bracketing
+# Guidelines for Treebank II Style", clause and phrase level labels; from memory) plus NML
+# (Vadas and Curran 2007; from memory) and the ROOT wrapper (common practice, no source).
+PTB_LABELS: tuple[str, ...] = tuple(
+    "ROOT S SBAR SBARQ SINV SQ ADJP ADVP CONJP FRAG INTJ LST NAC NML NP NX PP PRN PRT QP RRC "
+    "UCP VP WHADJP WHADVP WHNP WHPP X".split())
+# POS tags of the Penn Treebank (Marcus, Santorini and Marcinkiewicz 1993, Computational
+# Linguistics 19(2), the POS tag table; from memory), with HYPH and NFP as GUM uses them.
+PTB_TAGS: tuple[str, ...] = tuple(
+    "CC CD DT EX FW IN JJ JJR JJS LS MD NN NNS NNP NNPS PDT POS PRP PRP$ RB RBR RBS RP SYM TO "
+    "UH VB VBD VBG VBN VBP VBZ WDT WP WP$ WRB # $ . , : `` '' -LRB- -RRB- HYPH NFP".split())
+
+LABEL_POLICIES = ("confirm", "refuse")
+MAX_NAME = 128
+_LABEL_RE = re.compile(r"^[^\s()]+$")
+#: Settings key that records whether the label and tag sets grow with imports.
+DERIVED_KEY = "derive_inventory"
+
+
+@dataclass(frozen=True)
+class SettingSpec:
+    """One editable corpus setting: its type, bounds and a line of help for the pages."""
+
+    key: str
+    kind: type
+    low: float | None
+    high: float | None
+    help: str
+
+
+SETTING_SPECS: dict[str, SettingSpec] = {s.key: s for s in (
+    SettingSpec("annotators_per_sentence", int, 1, 10,
+                "How many people annotate each sentence blind."),
+    SettingSpec("auto_gold_when_identical", bool, None, None,
+                "Identical submitted trees become gold without review."),
+    SettingSpec("retrain_every", int, 0, 100000,
+                "Train the next grammar after this many new gold trees (0: only on demand)."),
+    SettingSpec("max_f1_drop", float, 0.0, 1.0,
+                "A new grammar becomes active unless its held-out F1 is lower by more than this."),
+    SettingSpec("heldout_every", int, 2, 1000,
+                "Every n-th gold tree is held out to score a new grammar."),
+    SettingSpec("unknown_label_policy", str, None, None,
+                "A label outside the label set: 'confirm' asks, 'refuse' rejects."),
+)}
+
+
+def clean_name(name: str, what: str = "corpus", limit: int = MAX_NAME) -> str:
+    """``name`` with runs of whitespace made single; empty or too long is an error."""
+    cleaned = " ".join((name or "").split())
+    if not cleaned:
+        raise BadInput(f"a {what} needs a name")
+    if len(cleaned) > limit:
+        raise BadInput(f"a {what} name has at most {limit} characters, not {len(cleaned)}")
+    return cleaned
+
+
+def _check_inventory(items: Iterable[str], what: str) -> list[str]:
+    out: list[str] = []
+    for position, item in enumerate(items, start=1):
+        item = item.strip()
+        if not item:
+            continue
+        if not _LABEL_RE.match(item):
+            raise BadInput(f"{what} entry {position} {item!r} has a space or a bracket")
+        if item not in out:
+            out.append(item)
+    return out
+
+
+def parse_inventory(text: str) -> list[str]:
+    """A label or tag list typed as text, separated by spaces, commas or line breaks."""
+    return [item for item in re.split(r"[\s,]+", text or "") if item]
+
+
+def create_corpus(db: Session, name: str, *, description: str = "",
+                  label_set: Iterable[str] | None = None, tag_set: Iterable[str] | None = None,
+                  settings: dict[str, Any] | None = None, user: User | None = None) -> Corpus:
+    """A new, empty corpus. Without ``label_set``/``tag_set`` both are derived from imports."""
+    name = clean_name(name)
+    if db.scalar(select(Corpus.id).where(Corpus.name == name)) is not None:
+        raise Conflict(f"a corpus named {name!r} exists already")
+    labels = _check_inventory(label_set, "label set") if label_set is not None else []
+    tags = _check_inventory(tag_set, "tag set") if tag_set is not None else []
+    values = validate_settings(settings or {})
+    values[DERIVED_KEY] = label_set is None and tag_set is None
+    corpus = Corpus(name=name, description=description.strip(), label_set=labels,
+                    tag_set=tags, settings=values)
+    db.add(corpus)
+    db.flush()
+    db.add(Event(user_id=user.id if user else None, kind="corpus_created", corpus_id=corpus.id,
+                 detail={"name": name}))
+    return corpus
+
+
+def corpus_by_name(db: Session, name: str) -> Corpus | None:
+    return db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
+
+
+def get_corpus(db: Session, corpus_id: int) -> Corpus:
+    corpus = db.get(Corpus, corpus_id)
+    if corpus is None:
+        raise NotFound(f"no corpus with id {corpus_id}")
+    return corpus
+
+
+def tree_inventory(trees: Iterable[Tree]) -> tuple[set[str], set[str]]:
+    """(phrasal labels, POS tags) used in ``trees``; the empty wrapper label is left out."""
+    labels: set[str] = set()
+    tags: set[str] = set()
+    for tree in trees:
+        stack = [tree]
+        while stack:
+            node = stack.pop()
+            if len(node) == 1 and isinstance(node[0], str):
+                tags.add(node.label())
+                continue
+            if node.label():
+                labels.add(node.label())
+            stack.extend(child for child in node if isinstance(child, Tree))
+    return labels, tags
+
+
+def absorb_tree_inventory(corpus: Corpus, labels: set[str], tags: set[str]) -> None:
+    """Add labels and tags to a derived inventory (explicit ones are left alone)."""
+    if not corpus.setting(DERIVED_KEY):
+        return
+    corpus.label_set = sorted(set(corpus.label_set or []) | labels)
+    corpus.tag_set = sorted(set(corpus.tag_set or []) | tags)
+
+
+def _coerce(spec: SettingSpec, raw: Any) -> Any:
+    if spec.kind is bool:
+        if isinstance(raw, bool):
+            return raw
+        text = str(raw).strip().lower()
+        if text in ("1", "true", "yes", "on"):
+            return True
+        if text in ("0", "false", "no", "off", ""):
+            return False
+        raise BadInput(f"setting {spec.key}: {raw!r} is not yes or no")
+    if spec.kind is str:
+        value = str(raw).strip()
+        if spec.key == "unknown_label_policy" and value not in LABEL_POLICIES:
+            raise BadInput(f"setting {spec.key}: {value!r} is not one of "
+                           f"{', '.join(LABEL_POLICIES)}")
+        return value
+    try:
+        number = spec.kind(raw) if not isinstance(raw, bool) else None
+    except (TypeError, ValueError):
+        number = None
+    if number is None or (spec.kind is int and isinstance(raw, float) and raw != int(raw)):
+        what = "an integer" if spec.kind is int else "a number"
+        raise BadInput(f"setting {spec.key}: {raw!r} is not {what}")
+    if spec.low is not None and number < spec.low or spec.high is not None and number > spec.high:
+        raise BadInput(f"setting {spec.key}: {number} is outside {spec.low}..{spec.high}")
+    return number
+
+
+def validate_settings(values: dict[str, Any]) -> dict[str, Any]:
+    """Checked, typed copies of known settings; an unknown key is an error."""
+    out: dict[str, Any] = {}
+    for key, raw in values.items():
+        spec = SETTING_SPECS.get(key)
+        if spec is None:
+            raise BadInput(f"unknown corpus setting {key!r}; known: {', '.join(SETTING_SPECS)}")
+        out[key] = _coerce(spec, raw)
+    return out
+
+
+def effective_settings(corpus: Corpus) -> dict[str, Any]:
+    """Every editable setting with its value for this corpus (defaults filled in)."""
+    return {key: corpus.setting(key) for key in SETTING_SPECS}
+
+
+def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | None = None,
+                  description: str | None = None, label_set: Iterable[str] | None = None,
+                  tag_set: Iterable[str] | None = None, user: User | None = None) -> Corpus:
+    """Change settings, description or inventories. Explicit inventories stop derivation."""
+    merged = dict(corpus.settings or {})
+    if settings:
+        merged.update(validate_settings(settings))
+    for attribute, given in (("label_set", label_set), ("tag_set", tag_set)):
+        if given is None:
+            continue
+        what = attribute.replace("_", " ")
+        items = _check_inventory(given, what)
+        if not items:
+            raise BadInput(f"the {what} cannot be empty")
+        setattr(corpus, attribute, items)
+        merged[DERIVED_KEY] = False
+    if description is not None:
+        corpus.description = description.strip()
+    corpus.settings = merged
+    db.add(Event(user_id=user.id if user else None, kind="corpus_settings", corpus_id=corpus.id,
+                 detail={"settings": settings or {},
+                         "label_set": label_set is not None, "tag_set": tag_set is not None}))
+    db.flush()
+    return corpus
+
+
+def delete_corpus(db: Session, corpus_id: int, typed_name: str, user: User | None = None) -> str:
+    """Remove a corpus and everything in it, only when ``typed_name`` is exactly its name."""
+    corpus = get_corpus(db, corpus_id)
+    if (typed_name or "").strip() != corpus.name:
+        raise BadInput(f"to remove the corpus type its name exactly: {corpus.name!r}")
+    name = corpus.name
+    db.expunge(corpus)
+    db.execute(delete(Corpus).where(Corpus.id == corpus_id))
+    db.add(Event(user_id=user.id if user else None, kind="corpus_removed",
+                 detail={"name": name, "corpus_id": corpus_id}))
+    db.flush()
+    return name
+
+
+# ---------------------------------------------------------------------------------------------
+# overview and sentence pages
+
+
+@dataclass
+class CorpusCounts:
+    corpus: Corpus
+    states: dict[str, int] = field(default_factory=lambda: dict.fromkeys(SENTENCE_STATES, 0))
+    gold: int = 0
+    documents: int = 0
+
+    @property
+    def sentences(self) -> int:
+        return sum(self.states.values())
+
+
+def _state_counts(db: Session, *where: Any) -> dict[tuple[int, str], int]:
+    rows = db.execute(select(Sentence.corpus_id, Sentence.state, func.count())
+                      .where(*where).group_by(Sentence.corpus_id, Sentence.state))
+    return {(cid, state): n for cid, state, n in rows}
+
+
+def _gold_counts(db: Session, *where: Any) -> dict[int, int]:
+    rows = db.execute(select(Sentence.corpus_id, func.count(func.distinct(Gold.sentence_id)))
+                      .join(Sentence, Sentence.id == Gold.sentence_id)
+                      .where(Gold.retired_at.is_(None), *where).group_by(Sentence.corpus_id))
+    return {cid: n for cid, n in rows}
+
+
+def corpus_overview(db: Session) -> list[CorpusCounts]:
+    """Every corpus with its sentence count per state, gold count and document count."""
+    corpora = db.scalars(select(Corpus).order_by(Corpus.name)).all()
+    states = _state_counts(db)
+    gold = _gold_counts(db)
+    docs = dict(db.execute(select(Document.corpus_id, func.count())
+                           .group_by(Document.corpus_id)).all())
+    out = []
+    for corpus in corpora:
+        counts = CorpusCounts(corpus=corpus, gold=gold.get(corpus.id, 0),
+                              documents=docs.get(corpus.id, 0))
+        for state in SENTENCE_STATES:
+            counts.states[state] = states.get((corpus.id, state), 0)
+        out.append(counts)
+    return out
+
+
+def corpus_counts(db: Session, corpus: Corpus) -> CorpusCounts:
+    states = _state_counts(db, Sentence.corpus_id == corpus.id)
+    counts = CorpusCounts(corpus=corpus,
+                          gold=_gold_counts(db, Sentence.corpus_id == corpus.id).get(corpus.id, 0),
+                          documents=db.scalar(select(func.count()).select_from(Document)
+                                              .where(Document.corpus_id == corpus.id)) or 0)
+    for state in SENTENCE_STATES:
+        counts.states[state] = states.get((corpus.id, state), 0)
+    return counts
+
+
+@dataclass
+class DocumentRow:
+    document: Document
+    sentences: int
+    states: dict[str, int]
+
+
+def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
+    rows = db.execute(select(Sentence.document_id, Sentence.state, func.count())
+                      .where(Sentence.corpus_id == corpus.id)
+                      .group_by(Sentence.document_id, Sentence.state))
+    per_doc: dict[int, dict[str, int]] = {}
+    for doc_id, state, n in rows:
+        per_doc.setdefault(doc_id, dict.fromkeys(SENTENCE_STATES, 0))[state] = n
+    docs = db.scalars(select(Document).where(Document.corpus_id == corpus.id)
+                      .order_by(Document.position, Document.id)).all()
+    return [DocumentRow(document=d, states=per_doc.get(d.id, dict.fromkeys(SENTENCE_STATES, 0)),
+                        sentences=sum(per_doc.get(d.id, {}).values())) for d in docs]
+
+
+@dataclass
+class SentenceRow:
+    sentence: Sentence
+    document_name: str
+    assignees: list[str]
+
+
+@dataclass
+class SentencePage:
+    rows: list[SentenceRow]
+    page: int
+    per_page: int
+    total: int
+
+    @property
+    def pages(self) -> int:
+        return max(1, -(-self.total // self.per_page))
+
+
+def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int = 50,
+                  state: str | None = None, document_id: int | None = None) -> SentencePage:
+    """One page of the corpus's sentences in document order, with who is assigned to each."""
+    if state and state not in SENTENCE_STATES:
+        raise BadInput(f"unknown sentence state {state!r}; one of {', '.join(SENTENCE_STATES)}")
+    per_page = min(max(per_page, 1), 500)
+    page = max(page, 1)
+    where = [Sentence.corpus_id == corpus.id]
+    if state:
+        where.append(Sentence.state == state)
+    if document_id is not None:
+        where.append(Sentence.document_id == document_id)
+    total = db.scalar(select(func.count()).select_from(Sentence).where(*where)) or 0
+    rows = db.execute(select(Sentence, Document.name).join(Document)
+                      .where(*where).order_by(Document.position, Document.id, Sentence.position)
+                      .limit(per_page).offset((page - 1) * per_page)).all()
+    ids = [s.id for s, _ in rows]
+    who: dict[int, list[str]] = {}
+    if ids:
+        for sid, username in db.execute(select(Assignment.sentence_id, User.username)
+                                        .join(User, User.id == Assignment.user_id)
+                                        .where(Assignment.sentence_id.in_(ids))
+                                        .order_by(User.username)):
+            who.setdefault(sid, []).append(username)
+    return SentencePage(rows=[SentenceRow(s, name, who.get(s.id, [])) for s, name in rows],
+                        page=page, per_page=per_page, total=total)
+
+
+def settings_defaults() -> dict[str, Any]:
+    return {key: DEFAULT_CORPUS_SETTINGS.get(key) for key in SETTING_SPECS}

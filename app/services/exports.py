@@ -1,0 +1,210 @@
+"""Export gold trees as bracketed text, whole or split into train / dev / test.
+
+The export holds the current gold tree (the newest one not retired) of every gold sentence of
+a corpus, or of one document, in document order then sentence order, one tree per line.
+Function tags and indices are kept, or stripped (``NP-SBJ-1`` -> ``NP``; labels that start
+with ``-`` such as ``-LRB-`` stay whole).
+
+Splits are deterministic: the same gold, ratios and seed give the same files byte for byte.
+
+``by="sentence"``
+    The gold sentences are shuffled with ``random.Random(seed)`` and cut by the ratios; part
+    sizes are the ratios times the count, rounded by largest remainder (so they add up and
+    each is within one of its exact share).
+``by="document"``
+    Documents stay whole. They are shuffled with the seed, then each goes, in that order, to
+    the part furthest below its target share of sentences. With few documents the shares can
+    only be approximate; :class:`ExportResult` reports the actual counts.
+
+Inside each part the trees keep corpus order. A part whose ratio is 0 gets no file.
+
+Cost: O(gold trees) rows loaded and written once; stripping function tags copies each tree.
+"""
+
+from __future__ import annotations
+
+import io
+import random
+import re
+import zipfile
+from dataclasses import dataclass, field
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.models import SENT_GOLD, Corpus, Document, Gold, Sentence
+from app.services.corpora import get_corpus
+from app.services.errors import BadInput, NotFound
+from parser.trees import read_tree, strip_function_tags, write_tree
+
+PART_NAMES = ("train", "dev", "test")
+SPLIT_MODES = ("document", "sentence")
+
+
+@dataclass(frozen=True)
+class SplitSpec:
+    """Ratios for train, dev and test (any non-negative numbers, normalised), a seed, a mode."""
+
+    ratios: tuple[float, float, float] = (0.8, 0.1, 0.1)
+    seed: int = 0
+    by: str = "document"
+
+    def __post_init__(self) -> None:
+        if len(self.ratios) != 3:
+            raise BadInput(f"give three ratios (train, dev, test), not {len(self.ratios)}")
+        if any(r < 0 for r in self.ratios) or sum(self.ratios) <= 0:
+            raise BadInput(f"ratios must be non-negative and not all zero: {self.ratios}")
+        if self.by not in SPLIT_MODES:
+            raise BadInput(f"split by {self.by!r}? one of {', '.join(SPLIT_MODES)}")
+
+    @property
+    def shares(self) -> tuple[float, ...]:
+        total = sum(self.ratios)
+        return tuple(r / total for r in self.ratios)
+
+
+def parse_ratios(text: str) -> tuple[float, float, float]:
+    """``"0.8,0.1,0.1"``, ``"80/10/10"`` or ``"8:1:1"`` as three numbers."""
+    parts = [p for p in re.split(r"[\s,/:]+", (text or "").strip()) if p]
+    if len(parts) != 3:
+        raise BadInput(f"ratios {text!r}: give three numbers for train, dev and test, "
+                       "e.g. 80/10/10")
+    try:
+        a, b, c = (float(p) for p in parts)
+    except ValueError:
+        raise BadInput(f"ratios {text!r}: {', '.join(parts)} are not all numbers") from None
+    return a, b, c
+
+
+@dataclass
+class GoldItem:
+    sentence_id: int
+    document_id: int
+    document_name: str
+    tree: str
+
+
+@dataclass
+class ExportResult:
+    """File name -> text, plus how many trees went into each file."""
+
+    files: dict[str, str] = field(default_factory=dict)
+    counts: dict[str, int] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    def zip_bytes(self) -> bytes:
+        """The files as one zip archive (fixed timestamps, so equal exports give equal bytes)."""
+        buffer = io.BytesIO()
+        with zipfile.ZipFile(buffer, "w", compression=zipfile.ZIP_DEFLATED) as archive:
+            for name, text in self.files.items():
+                info = zipfile.ZipInfo(name, date_time=(2000, 1, 1, 0, 0, 0))
+                info.compress_type = zipfile.ZIP_DEFLATED
+                archive.writestr(info, text.encode("utf-8"))
+        return buffer.getvalue()
+
+
+def slug(name: str) -> str:
+    """A file-name-safe form of a corpus or document name."""
+    out = re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower()
+    return out or "corpus"
+
+
+def gold_items(db: Session, corpus: Corpus, document_id: int | None = None) -> list[GoldItem]:
+    """Current gold of the corpus (or one document) in document, then sentence order."""
+    where = [Sentence.corpus_id == corpus.id, Sentence.state == SENT_GOLD,
+             Gold.retired_at.is_(None)]
+    if document_id is not None:
+        if db.scalar(select(Document.id).where(Document.id == document_id,
+                                               Document.corpus_id == corpus.id)) is None:
+            raise NotFound(f"no document with id {document_id} in corpus {corpus.name!r}")
+        where.append(Sentence.document_id == document_id)
+    rows = db.execute(select(Sentence.id, Document.id, Document.name, Gold.tree, Gold.id)
+                      .join(Document, Document.id == Sentence.document_id)
+                      .join(Gold, Gold.sentence_id == Sentence.id).where(*where)
+                      .order_by(Document.position, Document.id, Sentence.position, Gold.id))
+    latest: dict[int, GoldItem] = {}
+    for sid, did, dname, tree, _gid in rows:
+        latest[sid] = GoldItem(sid, did, dname, tree)  # the newest gold row wins
+    return list(latest.values())
+
+
+def _render(items: list[GoldItem], function_tags: bool) -> str:
+    if function_tags:
+        lines = [item.tree for item in items]
+    else:
+        lines = [write_tree(strip_function_tags(read_tree(item.tree))) for item in items]
+    return "".join(line + "\n" for line in lines)
+
+
+def _largest_remainder(total: int, shares: tuple[float, ...]) -> list[int]:
+    exact = [total * s for s in shares]
+    sizes = [int(x) for x in exact]
+    order = sorted(range(len(shares)), key=lambda i: (-(exact[i] - sizes[i]), i))
+    for i in order[: total - sum(sizes)]:
+        sizes[i] += 1
+    return sizes
+
+
+def split_items(items: list[GoldItem], spec: SplitSpec) -> list[list[GoldItem]]:
+    """The items of each part (train, dev, test), each in corpus order."""
+    rng = random.Random(spec.seed)
+    position = {item.sentence_id: i for i, item in enumerate(items)}
+    parts: list[list[GoldItem]] = [[], [], []]
+    if spec.by == "sentence":
+        shuffled = list(items)
+        rng.shuffle(shuffled)
+        start = 0
+        for part, size in enumerate(_largest_remainder(len(items), spec.shares)):
+            parts[part] = shuffled[start:start + size]
+            start += size
+    else:
+        documents: dict[int, list[GoldItem]] = {}
+        for item in items:
+            documents.setdefault(item.document_id, []).append(item)
+        order = list(documents)
+        rng.shuffle(order)
+        targets = [len(items) * s for s in spec.shares]
+        filled = [0, 0, 0]
+        for doc_id in order:
+            # the part with the largest shortfall; ties go to the earlier part
+            part = max(range(3), key=lambda i: (targets[i] - filled[i], -i)
+                       if spec.shares[i] > 0 else (float("-inf"), -i))
+            parts[part].extend(documents[doc_id])
+            filled[part] += len(documents[doc_id])
+    return [sorted(p, key=lambda item: position[item.sentence_id]) for p in parts]
+
+
+def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
+                function_tags: bool = True, split: SplitSpec | None = None) -> ExportResult:
+    """Gold of a corpus (or document) as bracketed text files.
+
+    Without ``split`` one file ``<corpus>[-<document>].ptb``; with it one file per part whose
+    ratio is above zero, ``<corpus>-train.ptb`` and so on.
+    """
+    corpus = get_corpus(db, corpus_id)
+    items = gold_items(db, corpus, document_id)
+    result = ExportResult()
+    base = slug(corpus.name)
+    if document_id is not None and items:
+        base += "-" + slug(items[0].document_name)
+    elif document_id is not None:
+        doc = db.get(Document, document_id)
+        base += "-" + slug(doc.name if doc else str(document_id))
+    if not items:
+        result.warnings.append("there is no gold yet: the export is empty")
+    if split is None:
+        result.files[f"{base}.ptb"] = _render(items, function_tags)
+        result.counts[f"{base}.ptb"] = len(items)
+        return result
+    for name, share, part in zip(PART_NAMES, split.shares, split_items(items, split),
+                                 strict=True):
+        if share <= 0:
+            continue
+        file_name = f"{base}-{name}.ptb"
+        result.files[file_name] = _render(part, function_tags)
+        result.counts[file_name] = len(part)
+        if not part and items:
+            result.warnings.append(f"the {name} part is empty (too few "
+                                   f"{'documents' if split.by == 'document' else 'sentences'} "
+                                   f"for the ratios)")
+    return result
