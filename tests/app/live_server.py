@@ -1,0 +1,143 @@
+"""A real Treewright server in a subprocess on a loopback port, for concurrency, crash and load
+checks, plus logged-in httpx clients for it.
+
+The server is ``uvicorn app.main:create_app --factory`` with its settings in the environment
+(``TREEWRIGHT_DATA_DIR``, ``TREEWRIGHT_DATABASE_URL``...), so it reads the same database as the
+test's own session. It binds 127.0.0.1 only. ``kill()`` sends SIGKILL (no clean shutdown), which
+is what the crash tests want; ``stop()`` terminates politely.
+
+Limits: one server per instance; start-up waits at most ``start_timeout`` seconds for
+``/api/health``.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import httpx
+
+from app.settings import PROJECT_ROOT, Settings
+
+LOOPBACK = "127.0.0.1"
+
+
+def free_port() -> int:
+    """A port the kernel just handed out on loopback (free unless raced by another process)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
+        sock.bind((LOOPBACK, 0))
+        return int(sock.getsockname()[1])
+
+
+def server_env(settings: Settings, **extra: str) -> dict[str, str]:
+    """The environment that makes a subprocess use ``settings``' database and data folder."""
+    env = dict(os.environ)
+    env["TREEWRIGHT_DATA_DIR"] = str(Path(settings.data_dir).resolve())
+    env["TREEWRIGHT_SECRET_KEY"] = settings.secret_key or "live-server-secret"
+    env["TREEWRIGHT_LOGIN_DELAY_SECONDS"] = str(settings.login_delay_seconds)
+    if settings.database_url:
+        env["TREEWRIGHT_DATABASE_URL"] = settings.database_url
+    else:
+        env.pop("TREEWRIGHT_DATABASE_URL", None)
+    env.update(extra)
+    return env
+
+
+class LiveServer:
+    """``with LiveServer(settings) as server:`` runs the app at ``server.url`` until the end."""
+
+    def __init__(self, settings: Settings, *, log: Path | None = None, workers: int = 1,
+                 start_timeout: float = 60.0, **env: str) -> None:
+        self.settings = settings
+        self.env = server_env(settings, **env)
+        self.log = log
+        self.workers = workers
+        self.start_timeout = start_timeout
+        self.port = 0
+        self.proc: subprocess.Popen[bytes] | None = None
+        self._log_fh: Any = None
+
+    @property
+    def url(self) -> str:
+        return f"http://{LOOPBACK}:{self.port}"
+
+    def start(self) -> LiveServer:
+        self.port = free_port()
+        cmd = [sys.executable, "-m", "uvicorn", "app.main:create_app", "--factory",
+               "--host", LOOPBACK, "--port", str(self.port), "--log-level", "warning",
+               "--workers", str(self.workers)]
+        if self.log is not None:
+            self._log_fh = open(self.log, "ab")  # noqa: SIM115 - closed in _reap
+        out = self._log_fh if self._log_fh is not None else subprocess.DEVNULL
+        self.proc = subprocess.Popen(cmd, cwd=PROJECT_ROOT, env=self.env, stdout=out,
+                                     stderr=subprocess.STDOUT, start_new_session=True)
+        deadline = time.monotonic() + self.start_timeout
+        while time.monotonic() < deadline:
+            if self.proc.poll() is not None:
+                raise RuntimeError(f"server exited with {self.proc.returncode} on start; "
+                                   f"log: {self.log}")
+            try:
+                if httpx.get(self.url + "/api/health", timeout=2).status_code == 200:
+                    return self
+            except httpx.HTTPError:
+                pass
+            time.sleep(0.1)
+        self.kill()
+        raise RuntimeError(f"server did not answer /api/health within {self.start_timeout} s")
+
+    def kill(self) -> None:
+        """SIGKILL the server (and its workers: they share its process group)."""
+        if self.proc is not None and self.proc.poll() is None:
+            os.killpg(self.proc.pid, signal.SIGKILL)
+        self._reap()
+
+    def stop(self) -> None:
+        if self.proc is not None and self.proc.poll() is None:
+            os.killpg(self.proc.pid, signal.SIGTERM)
+            try:
+                self.proc.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                os.killpg(self.proc.pid, signal.SIGKILL)
+        self._reap()
+
+    def _reap(self) -> None:
+        if self.proc is not None:
+            self.proc.wait(timeout=30)
+        if self._log_fh is not None:
+            self._log_fh.close()
+            self._log_fh = None
+
+    def __enter__(self) -> LiveServer:
+        return self.start()
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
+
+
+class Client:
+    """An httpx client logged in to a live server as ``username``; ``csrf`` is its token."""
+
+    def __init__(self, base_url: str, username: str, password: str,
+                 timeout: float = 30.0) -> None:
+        self.http = httpx.Client(base_url=base_url, timeout=timeout)
+        resp = self.http.post("/login", data={"username": username, "password": password})
+        if resp.status_code != 303:
+            raise RuntimeError(f"login as {username} answered {resp.status_code}")
+        me = self.http.get("/api/session").json()
+        self.csrf: str = me["csrf_token"]
+        self.user_id: int = me["user_id"]
+        self.username = username
+
+    def save(self, sentence_id: int, base: int, tree: str, **extra: Any) -> httpx.Response:
+        return self.http.post(f"/api/bench/{sentence_id}/revisions",
+                              headers={"X-CSRF-Token": self.csrf},
+                              json={"base": base, "tree": tree, **extra})
+
+    def close(self) -> None:
+        self.http.close()
