@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Protocol
 
 from markupsafe import Markup, escape
 
@@ -187,5 +188,98 @@ def score_bar(value: float | None, *, width: int = 120, height: int = 12) -> Mar
         w = max(0.0, min(1.0, value)) * width
         parts.append(f'<rect class="score-bar-fill" x="0" y="0" width="{_fmt(w)}" '
                      f'height="{height}"/>')
+    parts.append("</svg>")
+    return Markup("".join(parts))
+
+
+# --------------------------------------------------------------------------------------------
+# the span ladder: the Review page's combined view of several annotators' brackets
+
+
+class LadderLabel(Protocol):
+    label: str
+    owners: list[str]
+
+
+class LadderSpan(Protocol):
+    start: int
+    end: int
+    kind: str  # all | split | some
+    labels: Sequence[LadderLabel]
+
+
+CHAR_W = 7.8  # width of one character of the ladder's monospace text at 13px (approximate)
+WORD_PAD = 10.0
+WORD_GAP = 4.0
+ROW_H = 24.0
+BAR_H = 18.0
+
+
+def ladder_rows(spans: Sequence[LadderSpan]) -> list[int]:
+    """A row (1 = lowest) for each span: above every span it contains, and never on the same
+    row as a span it overlaps (crossing brackets from different annotators)."""
+    order = sorted(range(len(spans)), key=lambda i: (spans[i].end - spans[i].start,
+                                                     spans[i].start))
+    rows = [0] * len(spans)
+    placed: list[int] = []
+    for i in order:
+        s = spans[i]
+        row = 1 + max((rows[j] for j in placed
+                       if spans[j].start >= s.start and spans[j].end <= s.end), default=0)
+        while any(rows[j] == row and spans[j].start < s.end and s.start < spans[j].end
+                  for j in placed):
+            row += 1
+        rows[i] = row
+        placed.append(i)
+    return rows
+
+
+def _chip_text(span: LadderSpan, everyone: int) -> str:
+    if span.kind == "all":
+        return " ".join(x.label for x in span.labels)
+    return "  ".join(x.label if len(x.owners) == everyone else f"{x.label}·{''.join(x.owners)}"
+                     for x in span.labels)
+
+
+def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: int, *,
+                title: str = "Combined brackets") -> Markup:
+    """Words along the bottom; above them one bar per bracketed span, stacked so that a span
+    sits above the spans inside it. The bar's class says whether everyone agrees on it
+    (``lad-all``), everyone has the span with different labels (``lad-split``) or only some
+    annotators have it (``lad-some``; their letters follow the label)."""
+    widths = [max(len(w), 1) * CHAR_W + WORD_PAD for w in words]
+    xs: list[float] = []
+    x = 4.0
+    for w in widths:
+        xs.append(x)
+        x += w + WORD_GAP
+    total_w = max(x, 120.0)
+    rows = ladder_rows(spans)
+    top_row = max(rows, default=0)
+    word_y = (top_row + 1) * ROW_H + 8
+    height = word_y + 22
+    parts = [f'<svg class="ladder" role="img" viewBox="0 0 {_fmt(total_w)} {_fmt(height)}" '
+             f'width="{_fmt(total_w)}" height="{_fmt(height)}" '
+             'xmlns="http://www.w3.org/2000/svg">', f"<title>{escape(title)}</title>"]
+    for span, row in sorted(zip(spans, rows, strict=True), key=lambda p: -p[1]):
+        x0 = xs[span.start]
+        x1 = xs[span.end - 1] + widths[span.end - 1]
+        y = word_y - 14 - row * ROW_H + (ROW_H - BAR_H)
+        text = _chip_text(span, annotators)
+        tip = "; ".join(f"{x.label}: {', '.join(x.owners)}" for x in span.labels)
+        parts.append(
+            f'<g class="lad-span lad-{escape(span.kind)}" data-start="{span.start}" '
+            f'data-end="{span.end}"><title>words {span.start + 1}-{span.end}: '
+            f"{escape(tip)}</title>"
+            f'<rect class="lad-bar" x="{_fmt(x0 + 1)}" y="{_fmt(y)}" '
+            f'width="{_fmt(x1 - x0 - 2)}" height="{BAR_H}" rx="3"/>'
+            f'<text class="lad-label" x="{_fmt((x0 + x1) / 2)}" y="{_fmt(y + BAR_H - 5)}" '
+            f'text-anchor="middle">{escape(text)}</text></g>')
+    for i, word in enumerate(words):
+        cx = xs[i] + widths[i] / 2
+        parts.append(f'<text class="lad-word" x="{_fmt(cx)}" y="{_fmt(word_y + 4)}" '
+                     f'text-anchor="middle">{escape(word)}</text>')
+        parts.append(f'<text class="lad-index" x="{_fmt(cx)}" y="{_fmt(word_y + 18)}" '
+                     f'text-anchor="middle">{i + 1}</text>')
     parts.append("</svg>")
     return Markup("".join(parts))

@@ -338,11 +338,13 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
                            "markovization": {"horizontal": grammar.meta.get("horizontal"),
                                              "vertical": grammar.meta.get("vertical")},
                            "slice_size": len(train), "heldout": heldout_detail,
+                           "worker_pid": os.getpid(),
                            "timing": {"load": round(t_load - t0, 3),
                                       "slice_and_heldout": round(t_eval - t_load, 3),
                                       "final": round(t_final - t_eval, 3)}}
         version.finished_at = utcnow()
-        version.progress = 1.0
+        # an active version still refreshes suggestions (step 6): 1.0 once that is done
+        version.progress = 1.0 if rejected else 0.97
         f1_text = "no held-out gold" if heldout_f1 is None else f"held-out F1 {heldout_f1:.4f}"
         if rejected:
             assert active is not None and active.heldout_f1 is not None
@@ -351,7 +353,7 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
                                f"version {active.number} ({active.heldout_f1:.4f})")
         else:
             version.status = GV_READY
-            version.message = f"active; {f1_text}"
+            version.message = f"active; {f1_text}; refreshing suggestions"
             corpus.active_grammar_id = version.id
         db.add(Event(kind="grammar.trained", corpus_id=corpus_id,
                      detail={"version": version.number, "status": version.status,
@@ -359,7 +361,14 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         db.commit()
         if rejected:
             return
-        version.message = f"active; {f1_text}; {_refresh(db, corpus, version)}"
+        try:
+            refreshed = _refresh(db, corpus, version)
+        except Exception as exc:  # noqa: BLE001 - the grammar is good; only the cache lags
+            log.exception("refreshing suggestions under grammar version %s failed", version_id)
+            db.rollback()
+            refreshed = f"refreshing the suggestions failed: {exc}"[:1000]
+        db.execute(update(GrammarVersion).where(GrammarVersion.id == version_id)
+                   .values(message=f"active; {f1_text}; {refreshed}", progress=1.0))
         db.commit()
 
 
@@ -591,3 +600,20 @@ def _kick_after_commit(session: Session) -> None:
 @event.listens_for(Session, "after_rollback")
 def _forget_kick(session: Session) -> None:
     session.info.pop(KICK_FLAG, None)
+
+
+# --------------------------------------------------------------------------------------------
+# what the Grammars page shows
+
+
+def versions(db: Session, corpus_id: int) -> list[GrammarVersion]:
+    """Every grammar version of the corpus, newest first (the saved grammar is not loaded)."""
+    return list(db.scalars(select(GrammarVersion).where(GrammarVersion.corpus_id == corpus_id)
+                           .order_by(GrammarVersion.number.desc())))
+
+
+def get_version(db: Session, version_id: int) -> GrammarVersion:
+    version = db.get(GrammarVersion, version_id)
+    if version is None:
+        raise NotFound(f"no grammar version with id {version_id}")
+    return version

@@ -1,8 +1,10 @@
 """The agreement log: records written when the last assigned annotation is submitted.
 
 Trees are submitted through the Bench's JSON API, so the hook runs exactly as in the service.
-The figures are worked out by hand below (PARSEVAL conventions of parser.scoring: no ROOT,
-no preterminals, the final "." removed before spans are counted).
+The figures are worked out by hand below for the trees A and B of review_helpers (PARSEVAL
+conventions of parser.scoring: no ROOT, no preterminals, the final "." removed before spans
+are counted): A has S(0,7) NP(0,2) VP(2,7) NP(3,5) PP(5,7) NP(6,7), 6 constituents; B has
+S(0,7) NP(0,2) VP(2,7) NP(3,7) NP(3,5) ADVP(5,7) NP(6,7), 7 constituents.
 """
 
 from __future__ import annotations
@@ -23,26 +25,8 @@ from app.models import (
 )
 from app.services import agreement
 from tests.app.bench_helpers import assign, make_corpus
-
-SENTENCE = "the ferry left the quay at dawn ."
-# A: S(0,7) NP(0,2) VP(2,7) NP(3,5) PP(5,7) NP(6,7)                 -> 6 constituents
-TREE_A = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (DT the) (NN quay)) "
-          "(PP (IN at) (NP (NN dawn)))) (. .)))")
-# B: S(0,7) NP(0,2) VP(2,7) NP(3,7) NP(3,5) ADVP(5,7) NP(6,7)       -> 7 constituents
-TREE_B = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (NP (DT the) (NN quay)) "
-          "(ADVP (IN at) (NP (NN dawn))))) (. .)))")
-LABELS = ["ROOT", "S", "NP", "VP", "PP", "ADVP"]
-TAGS = ["DT", "NN", "VBD", "IN", "."]
-
-
-def _submit(client, sentence_id: int, tree: str) -> None:  # type: ignore[no-untyped-def]
-    saved = client.client.post(f"/api/bench/{sentence_id}/revisions",
-                               json={"base": 0, "tree": tree}, headers=client.headers())
-    assert saved.status_code == 201, saved.text
-    head = saved.json()["annotation"]["head"]
-    done = client.client.post(f"/api/bench/{sentence_id}/submit", json={"base": head},
-                              headers=client.headers())
-    assert done.status_code == 200, done.text
+from tests.app.review_helpers import LABELS, SENTENCE, TAGS, TREE_A, TREE_B
+from tests.app.review_helpers import submit_tree as _submit
 
 
 @pytest.fixture

@@ -1,0 +1,95 @@
+"""The Grammars JSON API: list a corpus's grammar versions, poll a job, train on demand.
+
+The router's lifespan starts the app's training runner when the service starts, so jobs
+queued while it was down (or by a request before it started) are picked up.
+"""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from datetime import datetime
+
+from fastapi import APIRouter, FastAPI, Request
+from pydantic import BaseModel, Field
+
+from app.deps import ApiAdjudicator, ApiUser, SessionDep
+from app.models import Corpus, GrammarVersion
+from app.services import training
+from app.services.errors import NotFound
+
+
+@asynccontextmanager
+async def _runner_lifespan(app: FastAPI) -> AsyncIterator[None]:
+    runner = training.get_runner(app.state)
+    yield
+    runner.shutdown(wait=False)
+
+
+router = APIRouter(tags=["grammars"], lifespan=_runner_lifespan)
+
+
+class GrammarVersionPublic(BaseModel):
+    id: int
+    corpus_id: int
+    number: int
+    status: str = Field(description="queued, training, ready, rejected or failed")
+    progress: float = Field(description="0..1 while training")
+    message: str
+    active: bool
+    reason: str | None
+    training_size: int
+    heldout_size: int
+    heldout_f1: float | None
+    train_seconds: float | None
+    gold_count_at_start: int
+    created_at: datetime
+    finished_at: datetime | None
+
+
+class TrainCreate(BaseModel):
+    corpus_id: int
+
+
+def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPublic:
+    return GrammarVersionPublic(
+        id=v.id, corpus_id=v.corpus_id, number=v.number, status=v.status,
+        progress=v.progress, message=v.message, active=v.id == active_id,
+        reason=(v.options or {}).get("reason"), training_size=v.training_size,
+        heldout_size=v.heldout_size, heldout_f1=v.heldout_f1, train_seconds=v.train_seconds,
+        gold_count_at_start=v.gold_count_at_start, created_at=v.created_at,
+        finished_at=v.finished_at)
+
+
+def _corpus(db: SessionDep, corpus_id: int) -> Corpus:
+    corpus = db.get(Corpus, corpus_id)
+    if corpus is None:
+        raise NotFound(f"no corpus with id {corpus_id}")
+    return corpus
+
+
+@router.get("/api/grammars", response_model=list[GrammarVersionPublic])
+def list_versions(corpus_id: int, login: ApiUser, db: SessionDep) -> list[GrammarVersionPublic]:
+    """The corpus's grammar versions, newest first."""
+    corpus = _corpus(db, corpus_id)
+    return [version_public(v, corpus.active_grammar_id)
+            for v in training.versions(db, corpus.id)]
+
+
+@router.get("/api/grammars/{version_id}", response_model=GrammarVersionPublic)
+def get_version(version_id: int, login: ApiUser, db: SessionDep) -> GrammarVersionPublic:
+    """One version: poll this while it trains (status, progress, message)."""
+    v = training.get_version(db, version_id)
+    corpus = _corpus(db, v.corpus_id)
+    return version_public(v, corpus.active_grammar_id)
+
+
+@router.post("/api/grammars", response_model=GrammarVersionPublic, status_code=202)
+def train_now(body: TrainCreate, login: ApiAdjudicator, db: SessionDep,
+              request: Request) -> GrammarVersionPublic:
+    """Queue the corpus's next version now (or return the job already queued or training)."""
+    corpus = _corpus(db, body.corpus_id)
+    v = training.schedule_training(request.app.state, corpus.id,
+                                   f"on demand by {login.user.username}", login.user.id)
+    db.expire_all()
+    return version_public(v, _corpus(db, corpus.id).active_grammar_id)

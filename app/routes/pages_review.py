@@ -1,0 +1,57 @@
+"""Review pages (adjudicators and admins): the list of sentences in review and one sentence.
+
+The sentence page is complete as HTML (trees as indented bracketed text, the combined view as
+server-drawn SVG); static/js/review.js draws the trees, runs the result panel (take a tree,
+edit, validate, settle, reopen) through the JSON API in api_review.py, and the shortcuts.
+"""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+from fastapi.responses import HTMLResponse
+from sqlalchemy import func, select
+
+from app.deps import PageAdjudicator, SessionDep
+from app.models import SENT_IN_REVIEW, Corpus, Sentence
+from app.services import review as svc
+from app.services.charts import span_ladder
+from app.services.errors import NotFound
+from app.web import render
+from parser.trees import read_tree, write_tree
+
+router = APIRouter(tags=["pages"], include_in_schema=False)
+
+
+def corpus_choices(db: SessionDep) -> list[tuple[int, str, int]]:
+    """(id, name, sentences in review) of every corpus, by name."""
+    waiting = dict(db.execute(select(Sentence.corpus_id, func.count(Sentence.id))
+                              .where(Sentence.state == SENT_IN_REVIEW)
+                              .group_by(Sentence.corpus_id)).all())
+    return [(c.id, c.name, waiting.get(c.id, 0))
+            for c in db.scalars(select(Corpus).order_by(Corpus.name))]
+
+
+@router.get("/review", response_class=HTMLResponse)
+def review_index(request: Request, login: PageAdjudicator, db: SessionDep,
+                 corpus: int | None = None) -> HTMLResponse:
+    if corpus is not None and db.get(Corpus, corpus) is None:
+        raise NotFound(f"no corpus with id {corpus}")
+    listing = svc.review_list(db, corpus)
+    return render(request, "review_list.html", login, nav="review", listing=listing,
+                  corpora=corpus_choices(db), corpus_id=corpus)
+
+
+def _indented(text: str) -> str:
+    return write_tree(read_tree(text), indent=True)
+
+
+@router.get("/review/{sentence_id}", response_class=HTMLResponse)
+def review_page(request: Request, sentence_id: int, login: PageAdjudicator,
+                db: SessionDep) -> HTMLResponse:
+    detail = svc.review_detail(db, sentence_id)
+    ladder = span_ladder(detail.words, detail.combined, len(detail.trees),
+                         title="Combined brackets of " + ", ".join(t.letter for t in detail.trees))
+    return render(request, "review.html", login, nav="review", d=detail, ladder=ladder,
+                  indented={t.letter: _indented(t.tree) for t in detail.trees},
+                  gold_indented={g.gold_id: _indented(g.tree) for g in detail.history},
+                  in_review=detail.sentence.state == SENT_IN_REVIEW)
