@@ -220,7 +220,8 @@ class CorpusAgreement:
     pairs: list[PairFigures]
     labels: list[LabelFigures]  # worst F1 first
     confusions: list[tuple[str, str, int]]  # most frequent first
-    weeks: list[PeriodFigures]
+    periods: list[PeriodFigures]  # by day, or by week when the log spans many days
+    period: str  # "day" or "week"
 
     @property
     def pos_agreement(self) -> float:
@@ -233,10 +234,30 @@ def _triple(v: object) -> Counts:
     return Counts()
 
 
+#: More days than this with records: the timeline counts weeks instead of days.
+MAX_DAYS_SHOWN = 31
+
+
+def day_start(at: datetime) -> datetime:
+    return at.replace(hour=0, minute=0, second=0, microsecond=0)
+
+
 def week_start(at: datetime) -> datetime:
     """Monday 00:00 of ``at``'s week."""
-    day = at - timedelta(days=at.weekday())
-    return day.replace(hour=0, minute=0, second=0, microsecond=0)
+    return day_start(at - timedelta(days=at.weekday()))
+
+
+def timeline(days: dict[datetime, list[Counts]]) -> tuple[str, list[PeriodFigures]]:
+    """Records per day, or per week when more than MAX_DAYS_SHOWN days have records."""
+    period = "day"
+    buckets = days
+    if len(days) > MAX_DAYS_SHOWN:
+        period = "week"
+        buckets = defaultdict(list)
+        for day, counts in days.items():
+            buckets[week_start(day)].extend(counts)
+    return period, [PeriodFigures(at, len(cs), sum(cs, Counts()))
+                    for at, cs in sorted(buckets.items())]
 
 
 def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
@@ -250,7 +271,7 @@ def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> 
     pair_sentences: dict[tuple[int, int], set[int]] = defaultdict(set)
     labels: dict[str, Counts] = {}
     confusions: Counter[tuple[str, str]] = Counter()
-    weeks: dict[datetime, list[Counts]] = defaultdict(list)
+    days: dict[datetime, list[Counts]] = defaultdict(list)
     for r in records:
         c = Counts(r.matched, r.count_a, r.count_b)
         u = _triple(r.detail.get("unlabelled"))
@@ -275,20 +296,20 @@ def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> 
         for ga, tb, n in r.detail.get("confusions") or []:
             # a confusion is unordered between two annotators: NP/QP is QP/NP
             confusions[tuple(sorted((str(ga), str(tb))))] += int(n)  # type: ignore[index]
-        weeks[week_start(r.created_at)].append(c)
+        days[day_start(r.created_at)].append(c)
     for key, pf in pairs.items():
         pf.sentences = len(pair_sentences[key])
     label_rows = sorted((LabelFigures(k, v) for k, v in labels.items()),
                         key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test),
                                         lf.label))
-    week_rows = [PeriodFigures(w, len(cs), sum(cs, Counts())) for w, cs in sorted(weeks.items())]
+    period, period_rows = timeline(days)
     return CorpusAgreement(
         records=len(records), sentences=len({r.sentence_id for r in records}), counts=total,
         unlabelled=unl, pos_correct=pos_c, pos_total=pos_t, identical=identical,
         pairs=sorted(pairs.values(), key=lambda p: (p.user_a, p.user_b)),
         labels=label_rows,
         confusions=[(a, b, n) for (a, b), n in confusions.most_common(top_confusions)],
-        weeks=week_rows)
+        periods=period_rows, period=period)
 
 
 def _user_names(db: Session, ids: Iterable[int]) -> dict[int, str]:

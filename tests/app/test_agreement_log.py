@@ -172,7 +172,7 @@ def test_figures_sum_records_of_the_corpus(db, login, people):
     assert worst.label == "ADVP" and worst.counts.f1 == 0.0
     assert {lf.label: lf.counts.f1 for lf in fig.labels}["PP"] == pytest.approx(2 / 3)
     assert fig.confusions == [("ADVP", "PP", 1)]
-    assert len(fig.weeks) == 1 and fig.weeks[0].records == 2
+    assert fig.period == "day" and len(fig.periods) == 1 and fig.periods[0].records == 2
     csv_text = agreement.agreement_csv(db, corpus.id)
     lines = csv_text.strip().split("\n")
     assert lines[0].split(",") == list(agreement.CSV_COLUMNS)

@@ -1,0 +1,69 @@
+"""The Agreement page: how far the annotators of a corpus agree, where they differ, how the
+parser's held-out F1 grows with gold; and the agreement log as CSV."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from sqlalchemy import select
+
+from app.deps import PageUser, SessionDep, corpus_or_404
+from app.models import GV_READY, GV_REJECTED, Corpus, GrammarVersion
+from app.services import agreement
+from app.services.charts import Point, Series, line_chart, score_bar
+from app.services.exports import slug
+from app.web import render
+
+router = APIRouter(tags=["pages"], include_in_schema=False)
+
+
+def corpus_list(db: SessionDep) -> list[tuple[int, str, int]]:
+    return [(c.id, c.name, 0) for c in db.scalars(select(Corpus).order_by(Corpus.name))]
+
+
+def learning_curve(db: SessionDep, corpus_id: int) -> tuple[list[GrammarVersion], object]:
+    """The scored versions (oldest first) and their chart: held-out F1 by training size."""
+    scored = [v for v in db.scalars(select(GrammarVersion).where(
+        GrammarVersion.corpus_id == corpus_id,
+        GrammarVersion.status.in_((GV_READY, GV_REJECTED)))
+        .order_by(GrammarVersion.number)) if v.heldout_f1 is not None]
+    series = [Series("held-out F1", [Point(v.training_size, v.heldout_f1 or 0.0,
+                                           f"version {v.number}: {v.heldout_f1:.3f} "
+                                           f"({v.training_size} gold trees, {v.status})")
+                                     for v in scored], css="s2")]
+    chart = line_chart(series, title="Parser F1 on held-out gold by grammar version",
+                       x_title="gold trees in training", y_title="held-out F1")
+    return scored, chart
+
+
+@router.get("/agreement", response_class=HTMLResponse)
+def agreement_page(request: Request, login: PageUser, db: SessionDep,
+                   corpus: int | None = None) -> Response:
+    corpora = corpus_list(db)
+    if corpus is None:
+        if len(corpora) >= 1:
+            return RedirectResponse(f"/agreement?corpus={corpora[0][0]}", status_code=303)
+        return render(request, "agreement.html", login, nav="agreement", corpora=corpora,
+                      corpus_id=None, c=None)
+    c = corpus_or_404(db, corpus)
+    fig = agreement.corpus_figures(db, c.id)
+    fmt = "%Y-%m-%d"
+    labels = [p.start.strftime(fmt) for p in fig.periods]
+    over_time = line_chart(
+        [Series("labelled F1", [Point(i, p.counts.f1, f"{labels[i]}: {p.counts.f1:.3f} over "
+                                f"{p.records} pairs") for i, p in enumerate(fig.periods)],
+                css="s1")],
+        title=f"Labelled F1 between annotators per {fig.period}", categories=labels,
+        x_title=f"{fig.period} the pairs were logged", y_title="labelled F1")
+    scored, curve = learning_curve(db, c.id)
+    return render(request, "agreement.html", login, nav="agreement", corpora=corpora,
+                  corpus_id=c.id, c=c, fig=fig, over_time=over_time, curve=curve,
+                  scored=scored, bar=score_bar)
+
+
+@router.get("/agreement/log.csv")
+def agreement_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
+    c = corpus_or_404(db, corpus)
+    body = agreement.agreement_csv(db, c.id)
+    return Response(body, media_type="text/csv; charset=utf-8", headers={
+        "Content-Disposition": f'attachment; filename="{slug(c.name)}-agreement.csv"'})
