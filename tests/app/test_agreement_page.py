@@ -96,7 +96,7 @@ def test_grammars_page_lists_versions_and_trains_on_demand(app, db, people, logi
     first = training.run_training(app.state.sessionmaker, corpus.id, reason="seed")
     adj = login("adj")
     html = adj.client.get(f"/grammars?corpus={corpus.id}").text
-    assert re.search(r'data-version="%d" data-status="ready"' % first.id, html)
+    assert f'data-version="{first.id}" data-status="ready"' in html
     assert "active</span>" in html and f"{first.heldout_f1:.3f}" in html
     assert 'id="gv-train-now"' in html and "Automatic training is off" in html
     resp = adj.client.post("/grammars/train", data={"corpus_id": corpus.id,
