@@ -1,0 +1,168 @@
+"""Corpora pages: the list of corpora (``/``) and one corpus (``/corpora/{id}``).
+
+Everyone logged in sees the counts and the sentence list; admins also create corpora, assign
+sentences, change settings and remove a corpus (typing its name). Forms post back here; a
+successful change redirects to the page with a short ``done`` code, a refused one shows the
+page again with the reason.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, Form, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from sqlalchemy import select
+
+from app.deps import Login, PageAdmin, PageUser, SessionDep
+from app.models import SENTENCE_STATES, Assignment, Corpus, Sentence
+from app.services import corpora as svc
+from app.services.assignment import assign_sentences
+from app.services.errors import ServiceError
+from app.web import render
+
+router = APIRouter(tags=["pages"], include_in_schema=False)
+
+PER_PAGE = 50
+DONE_MESSAGES = {
+    "created": "The corpus was created. Import sentences or trees on the Transfer page.",
+    "settings": "The settings were saved.",
+}
+
+
+def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus, *,
+                 page: int = 1, state: str | None = None, document: int | None = None,
+                 error: str | None = None, notice: str | None = None,
+                 form: dict[str, Any] | None = None, status_code: int = 200) -> HTMLResponse:
+    if state not in SENTENCE_STATES:
+        state = None
+    listing = svc.sentence_page(db, corpus, page=page, per_page=PER_PAGE, state=state,
+                                document_id=document)
+    ids = [row.sentence.id for row in listing.rows]
+    mine = set(db.scalars(select(Assignment.sentence_id).where(
+        Assignment.user_id == login.user.id, Assignment.sentence_id.in_(ids)))) if ids else set()
+    return render(request, "corpus.html", login, status_code=status_code, nav="corpora",
+                  corpus=corpus, counts=svc.corpus_counts(db, corpus),
+                  documents=svc.document_rows(db, corpus), listing=listing, mine=mine,
+                  state=state, document=document, states=SENTENCE_STATES,
+                  settings=svc.effective_settings(corpus), specs=svc.SETTING_SPECS,
+                  policies=svc.LABEL_POLICIES, error=error, notice=notice, form=form or {},
+                  link=lambda sentence: sentence_link(sentence, mine, login))
+
+
+@router.get("/", response_class=HTMLResponse)
+def corpora_index(request: Request, login: PageUser, db: SessionDep) -> HTMLResponse:
+    return render(request, "corpora.html", login, nav="corpora",
+                  rows=svc.corpus_overview(db), states=SENTENCE_STATES, error=None, form={})
+
+
+@router.post("/corpora", response_class=HTMLResponse)
+def corpora_create(request: Request, login: PageAdmin, db: SessionDep, name: str = Form(""),
+                   description: str = Form(""), label_set: str = Form(""),
+                   tag_set: str = Form(""), ptb_sets: bool = Form(False)) -> Response:
+    labels = svc.parse_inventory(label_set) or (list(svc.PTB_LABELS) if ptb_sets else None)
+    tags = svc.parse_inventory(tag_set) or (list(svc.PTB_TAGS) if ptb_sets else None)
+    try:
+        corpus = svc.create_corpus(db, name, description=description, label_set=labels,
+                                   tag_set=tags, user=login.user)
+        db.commit()
+    except ServiceError as err:
+        db.rollback()
+        return render(request, "corpora.html", login, status_code=err.status_code,
+                      nav="corpora", rows=svc.corpus_overview(db), states=SENTENCE_STATES,
+                      error=str(err.detail),
+                      form={"name": name, "description": description,
+                            "label_set": label_set, "tag_set": tag_set})
+    return RedirectResponse(f"/corpora/{corpus.id}?done=created", status_code=303)
+
+
+@router.get("/corpora/{corpus_id}", response_class=HTMLResponse)
+def corpus_view(request: Request, corpus_id: int, login: PageUser, db: SessionDep,
+                page: int = 1, state: str | None = None, document: int | None = None,
+                done: str | None = None, assigned: int | None = None) -> HTMLResponse:
+    corpus = svc.get_corpus(db, corpus_id)
+    notice = DONE_MESSAGES.get(done or "")
+    if done == "assigned" and assigned is not None:
+        notice = f"{assigned} assignment(s) made."
+    return _corpus_page(request, login, db, corpus, page=page, state=state or None,
+                        document=document, notice=notice)
+
+
+@router.post("/corpora/{corpus_id}/assign", response_class=HTMLResponse)
+def corpus_assign(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
+                  per_sentence: str = Form("")) -> Response:
+    corpus = svc.get_corpus(db, corpus_id)
+    try:
+        wanted = int(per_sentence) if per_sentence.strip() else None
+    except ValueError:
+        return _corpus_page(request, login, db, corpus, status_code=422,
+                            error=f"annotators per sentence: {per_sentence!r} is not a number")
+    try:
+        result = assign_sentences(db, corpus.id, per_sentence=wanted, by=login.user)
+        db.commit()
+    except ServiceError as err:
+        db.rollback()
+        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
+                            error=str(err.detail))
+    if result.short:
+        return _corpus_page(request, login, db, corpus, notice=result.summary())
+    return RedirectResponse(f"/corpora/{corpus.id}?done=assigned&assigned={result.created}",
+                            status_code=303)
+
+
+@router.post("/corpora/{corpus_id}/settings", response_class=HTMLResponse)
+async def corpus_settings(request: Request, corpus_id: int, login: PageAdmin,
+                          db: SessionDep) -> Response:
+    corpus = svc.get_corpus(db, corpus_id)
+    form = await request.form()
+    values: dict[str, Any] = {}
+    for key, spec in svc.SETTING_SPECS.items():
+        if spec.kind is bool:
+            values[key] = form.get(key) == "on"
+        elif key in form:
+            values[key] = form.get(key)
+    label_text = str(form.get("label_set", ""))
+    tag_text = str(form.get("tag_set", ""))
+    try:
+        svc.update_corpus(db, corpus, settings=values,
+                          description=str(form.get("description", "")),
+                          label_set=_changed(label_text, corpus.label_set),
+                          tag_set=_changed(tag_text, corpus.tag_set), user=login.user)
+        db.commit()
+    except ServiceError as err:
+        db.rollback()
+        db.refresh(corpus)
+        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
+                            error=str(err.detail))
+    return RedirectResponse(f"/corpora/{corpus.id}?done=settings", status_code=303)
+
+
+@router.post("/corpora/{corpus_id}/remove", response_class=HTMLResponse)
+def corpus_remove(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
+                  confirm_name: str = Form("")) -> Response:
+    corpus = svc.get_corpus(db, corpus_id)
+    try:
+        svc.delete_corpus(db, corpus.id, confirm_name, user=login.user)
+        db.commit()
+    except ServiceError as err:
+        db.rollback()
+        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
+                            error=str(err.detail), form={"confirm_name": confirm_name})
+    return RedirectResponse("/", status_code=303)
+
+
+def _changed(text: str, current: list[Any] | None) -> list[str] | None:
+    """The typed inventory when it differs from the stored one, else None (leave it)."""
+    items = svc.parse_inventory(text)
+    if items == list(current or []):
+        return None
+    return items
+
+
+def sentence_link(sentence: Sentence, mine: set[int], login: Login) -> str | None:
+    """Where a sentence row links to for this user, if anywhere."""
+    if sentence.id in mine and sentence.state in ("queued", "in_progress"):
+        return f"/bench/{sentence.id}"
+    if login.user.can_adjudicate and sentence.state in ("in_review", "gold"):
+        return f"/review/{sentence.id}"
+    return None

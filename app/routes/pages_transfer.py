@@ -1,0 +1,101 @@
+"""The Transfer page: import a file (admins) and download gold (adjudicators and admins).
+
+An import is read whole, checked, and stored in one transaction; a refused file shows the
+reason with its line and column and nothing of it is stored. An export is a download: one
+``.ptb`` file, or with a split a ``.zip`` holding the train, dev and test files.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, File, Form, Request, UploadFile
+from fastapi.responses import HTMLResponse, Response
+from sqlalchemy import select
+
+from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
+from app.models import Corpus, Document, User
+from app.services.errors import BadInput, ServiceError
+from app.services.exports import SplitSpec, export_gold, parse_ratios, slug
+from app.services.imports import KINDS, TOKENIZERS, ImportResult, import_bytes
+from app.web import render
+
+router = APIRouter(tags=["pages"], include_in_schema=False)
+
+
+def _page(request: Request, login: Login, db: SessionDep, *, status_code: int = 200,
+          result: ImportResult | None = None, error: str | None = None,
+          export_error: str | None = None, form: dict[str, Any] | None = None,
+          corpus_id: int | None = None) -> HTMLResponse:
+    corpora = list(db.scalars(select(Corpus).order_by(Corpus.name)))
+    documents = list(db.execute(select(Document.id, Document.name, Document.corpus_id)
+                                .order_by(Document.corpus_id, Document.position)))
+    people = list(db.scalars(select(User).where(User.active.is_(True))
+                             .order_by(User.username))) if login.user.is_admin else []
+    return render(request, "transfer.html", login, status_code=status_code, nav="transfer",
+                  corpora=corpora, documents=documents, people=people, kinds=KINDS,
+                  tokenizers=TOKENIZERS, result=result, error=error,
+                  export_error=export_error, form=form or {}, corpus_id=corpus_id)
+
+
+@router.get("/transfer", response_class=HTMLResponse)
+def transfer(request: Request, login: PageUser, db: SessionDep,
+             corpus: int | None = None) -> HTMLResponse:
+    return _page(request, login, db, corpus_id=corpus)
+
+
+@router.post("/transfer/import", response_class=HTMLResponse)
+async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
+                          upload: UploadFile = File(...), corpus_name: str = Form(""),
+                          new_corpus: str = Form(""), document_name: str = Form(""),
+                          kind: str = Form("text"), annotator: str = Form(""),
+                          tokenizer: str = Form("whitespace"),
+                          skip_duplicates: bool = Form(False)) -> HTMLResponse:
+    form = {"corpus_name": corpus_name, "new_corpus": new_corpus,
+            "document_name": document_name, "kind": kind, "annotator": annotator,
+            "tokenizer": tokenizer, "skip_duplicates": skip_duplicates}
+    data = await upload.read()
+    source = upload.filename or "upload"
+    target = new_corpus.strip() or corpus_name.strip()
+    try:
+        if not target:
+            raise BadInput("choose a corpus or type the name of a new one")
+        result = import_bytes(db, data, source=source, corpus_name=target,
+                              document_name=document_name.strip() or None, kind=kind,
+                              tokenizer=tokenizer, annotator=annotator or None,
+                              skip_duplicates=skip_duplicates, user=login.user)
+    except ServiceError as err:
+        db.rollback()
+        return _page(request, login, db, status_code=err.status_code, error=str(err.detail),
+                     form=form)
+    return _page(request, login, db, result=result, corpus_id=result.corpus_id)
+
+
+@router.get("/transfer/export", response_model=None)
+def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
+                    corpus: int | None = None, document: str = "", strip: bool = False,
+                    split: str = "", seed: int = 0, by: str = "document",
+                    zip: bool = False) -> Response:
+    try:
+        if corpus is None:
+            raise BadInput("choose a corpus to export")
+        spec = SplitSpec(parse_ratios(split), seed=seed, by=by) if split.strip() else None
+        document_id = int(document) if document.strip() else None
+        result = export_gold(db, corpus, document_id=document_id, function_tags=not strip,
+                             split=spec)
+    except ValueError:
+        return _page(request, login, db, status_code=422, corpus_id=corpus,
+                     export_error=f"document {document!r} is not a document id")
+    except ServiceError as err:
+        return _page(request, login, db, status_code=err.status_code, corpus_id=corpus,
+                     export_error=str(err.detail))
+    if spec is None and not zip:
+        ((name, text),) = result.files.items()
+        return Response(text.encode("utf-8"), media_type="text/plain; charset=utf-8",
+                        headers={"Content-Disposition": f'attachment; filename="{name}"',
+                                 "X-Treewright-Trees": str(result.counts[name])})
+    base = next(iter(result.files)).rsplit(".", 1)[0] if spec is None else None
+    corpus_row = db.get(Corpus, corpus)
+    name = (base or f"{slug(corpus_row.name if corpus_row else 'corpus')}-split") + ".zip"
+    return Response(result.zip_bytes(), media_type="application/zip",
+                    headers={"Content-Disposition": f'attachment; filename="{name}"'})
