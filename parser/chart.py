@@ -49,7 +49,10 @@ class Constraints:
 
     required: (start, end, label or None): a constituent with that label (None: any label)
         spans exactly those words; forbidden: no constituent spans exactly those words;
-    tags: one POS tag or None per word (or an empty list for no fixed tags).
+    tags: one POS tag or None per word (or an empty list for no fixed tags). With a trained
+        (smoothed) grammar a fixed tag the lexicon gives no probability for that word emits it
+        with probability 1e-12 instead, so gold tags never make a sentence unparsable; with a
+        grammar from explicit rules the rules are taken literally.
     """
 
     required: Sequence[tuple[int, int, str | None]] = ()
@@ -217,6 +220,7 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
             req_lab_list.extend(sorted(set(per_span[s])))
         req_off[s + 1] = len(req_lab_list)
     lex = g.lexical_scores(words)
+    smoothed = g.meta.get("signature_scheme") not in (None, "none")
     for i, tag in enumerate(tags):
         if tag is None:
             continue
@@ -227,7 +231,8 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
         # A fixed tag lets every derivation emit word i from that tag; the emission factor is
         # then common to all of them, so any positive value keeps the ranking and posteriors.
         keep = lex[i, allowed]
-        keep = np.where(np.isfinite(keep), keep, _FIXED_TAG_FLOOR)
+        if smoothed:
+            keep = np.where(np.isfinite(keep), keep, _FIXED_TAG_FLOOR)
         lex[i, :] = -np.inf
         lex[i, allowed] = keep
     return _Problem(n=n, sid=sid, dead=dead, code=code, req_off=req_off,

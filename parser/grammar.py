@@ -58,7 +58,11 @@ Progress = Callable[[int, int], None]
 
 @dataclass(frozen=True)
 class TightnessReport:
-    """Whether every symbol's partition function is 1 (to ``tolerance``)."""
+    """Whether every symbol's partition function is 1 (to ``tolerance``).
+
+    ``partition`` maps each symbol that has a top role (every symbol a parent can produce) to
+    its partition function Z, the total probability of all finite trees it derives.
+    """
 
     tight: bool
     partition: dict[str, float]
@@ -196,9 +200,9 @@ class Grammar:
             z_top = new_top
             if delta < 1e-15:
                 break
-        partition = {self.symbols[i]: float(z_top[i]) for i in range(n)}
         used = np.zeros(n, dtype=bool)
         used[self.un_parent] = True
+        partition = {self.symbols[i]: float(z_top[i]) for i in np.flatnonzero(used)}
         tight = bool(np.all(np.abs(z_top[used] - 1.0) <= tolerance))
         return TightnessReport(tight=tight, partition=partition, iterations=it)
 

@@ -1,0 +1,65 @@
+"""Binarization and its exact undo: unit cases and every shared GUM tree."""
+
+from __future__ import annotations
+
+import pytest
+from nltk import Tree
+
+from parser.binarize import base_label, binarize, clean_tree, unbinarize
+from parser.errors import GrammarError
+from tests.parser.gum_grammar import gum_trees
+
+
+def _max_children(t: Tree) -> int:
+    if isinstance(t[0], str):
+        return 1
+    return max([len(t)] + [_max_children(c) for c in t])
+
+
+def test_binarize_clean_strips_function_tags_and_empty_elements() -> None:
+    t = Tree.fromstring("(ROOT (S (NP-SBJ-1 (-NONE- *T*)) (NP=2 (PRP it)) (VP (VBZ is)) "
+                        "(-LRB- -LRB-)))")
+    assert clean_tree(t) == Tree.fromstring(
+        "(ROOT (S (NP (PRP it)) (VP (VBZ is)) (-LRB- -LRB-)))")
+
+
+def test_binarize_parent_annotation_and_markovization_shapes() -> None:
+    t = Tree.fromstring("(ROOT (S (NP (DT a) (JJ b) (JJ c) (NN d)) (VP (VB e))))")
+    b = binarize(t, horizontal=1, vertical=2)
+    assert b.label() == "ROOT"
+    assert b[0].label() == "S^ROOT"
+    np_node = b[0][0]
+    assert np_node.label() == "NP^S"
+    assert np_node[1].label() == "@NP^S|DT"
+    assert np_node[1][1].label() == "@NP^S|JJ"
+    b0 = binarize(t, horizontal=0, vertical=1)
+    assert b0[0][0][1].label() == "@NP|"
+    b2 = binarize(t, horizontal=None, vertical=3)
+    assert b2[0][0].label() == "NP^S^ROOT"
+    assert b2[0][0][1][1].label() == "@NP^S^ROOT|DT,JJ"
+    for tree in (b, b0, b2):
+        assert _max_children(tree) <= 2
+        assert unbinarize(tree) == t
+
+
+def test_binarize_reserved_characters_in_labels_are_refused() -> None:
+    with pytest.raises(GrammarError, match="reserved"):
+        binarize(Tree.fromstring("(ROOT (N^P (NN a)))"))
+
+
+def test_binarize_base_label() -> None:
+    assert base_label("NP^S^ROOT~x") == "NP"
+    assert base_label("-LRB-^NP") == "-LRB-"
+
+
+@pytest.mark.external
+@pytest.mark.parametrize("h,v,ta", [(1, 2, 0), (0, 1, 0), (2, 3, 1), (None, 2, 0)])
+def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int) -> None:
+    # Open data set: GUM (Zeldes 2017), every shared tree.
+    trees = gum_trees()
+    assert len(trees) > 3500
+    for t in trees:
+        cleaned = clean_tree(t)
+        b = binarize(cleaned, horizontal=h, vertical=v, tag_ancestors=ta)
+        assert _max_children(b) <= 2
+        assert unbinarize(b) == cleaned
