@@ -22,7 +22,9 @@ from pathlib import Path
 from typing import Any
 
 import httpx
+from sqlalchemy.orm import Session
 
+from app.models import User
 from app.settings import PROJECT_ROOT, Settings
 
 LOOPBACK = "127.0.0.1"
@@ -141,3 +143,22 @@ class Client:
 
     def close(self) -> None:
         self.http.close()
+
+
+def add_annotators(db: Session, prefix: str, count: int) -> list[User]:
+    """``count`` new annotators ``prefix0``, ``prefix1``... with the test password."""
+    from tests.app.conftest import PASSWORD_HASH
+
+    users = [User(username=f"{prefix}{i}", display_name=f"{prefix.title()} {i}",
+                  role="annotator", password_hash=PASSWORD_HASH) for i in range(count)]
+    db.add_all(users)
+    db.commit()
+    return users
+
+
+def marked_tree(tokens: list[str], marker: str) -> str:
+    """A flat tree of ``tokens`` whose first POS tag is ``marker``, so each save is traceable
+    (the corpus must accept any tag: make it with empty label and tag sets)."""
+    from tests.app.bench_helpers import flat_text
+
+    return flat_text(tokens, [marker] + ["NN"] * (len(tokens) - 1))

@@ -20,10 +20,10 @@ from typing import Any
 import pytest
 from sqlalchemy import select
 
-from app.models import Annotation, Revision, User
-from tests.app.bench_helpers import assign, flat_text, make_corpus
-from tests.app.conftest import PASSWORD, PASSWORD_HASH
-from tests.app.live_server import Client, LiveServer
+from app.models import Annotation, Revision
+from tests.app.bench_helpers import assign, make_corpus
+from tests.app.conftest import PASSWORD
+from tests.app.live_server import Client, LiveServer, add_annotators, marked_tree
 
 HOT_CLIENTS = 8
 SOLO_USERS = 6
@@ -48,10 +48,6 @@ class Attempt:
     body: dict[str, Any]
 
 
-def _tree(tokens: list[str], marker: str) -> str:
-    return flat_text(tokens, [marker] + ["NN"] * (len(tokens) - 1))
-
-
 def _worker(index: int, client: Client, sentence_id: int, tokens: list[str], shared: bool,
             seed: int, out: list[Attempt], lock: threading.Lock, stop_at: float) -> None:
     rnd = random.Random(seed)
@@ -64,7 +60,7 @@ def _worker(index: int, client: Client, sentence_id: int, tokens: list[str], sha
         stale = head > 0 and rnd.random() < STALE_SHARE
         base = rnd.randrange(0, head) if stale else head
         marker = f"C{index}R{i}"
-        resp = client.save(sentence_id, base, _tree(tokens, marker))
+        resp = client.save(sentence_id, base, marked_tree(tokens, marker))
         body = resp.json() if resp.headers.get("content-type", "").startswith(
             "application/json") else {"raw": resp.text}
         with lock:
@@ -78,10 +74,7 @@ def _worker(index: int, client: Client, sentence_id: int, tokens: list[str], sha
 
 @pytest.mark.slow
 def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> None:
-    solo = [User(username=f"deckhand{i}", display_name=f"Deckhand {i}", role="annotator",
-                 password_hash=PASSWORD_HASH) for i in range(SOLO_USERS)]
-    db.add_all(solo)
-    db.commit()
+    solo = add_annotators(db, "deckhand", SOLO_USERS)
     # Empty label and tag sets accept any label, so each save can carry its own marker tag.
     _, sentences = make_corpus(db, TEXTS, labels=[], tags=[])
     assign(db, sentences[:1], people.ann1)
@@ -122,7 +115,7 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
         if a.status == 201:
             number = a.body["revision"]["number"]
             assert number == a.base + 1, f"save based on {a.base} stored as {number}"
-            assert a.body["revision"]["tree"] == _tree(
+            assert a.body["revision"]["tree"] == marked_tree(
                 next(s.tokens for s in sentences if s.id == a.annotation_key[1]), a.marker)
             key = (a.annotation_key, number)
             assert key not in acked, f"two saves acknowledged as revision {key}: overwrite"
