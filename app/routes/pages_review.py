@@ -7,6 +7,8 @@ edit, validate, settle, reopen) through the JSON API in api_review.py, and the s
 
 from __future__ import annotations
 
+import json
+
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse
 from sqlalchemy import func, select
@@ -54,4 +56,7 @@ def review_page(request: Request, sentence_id: int, login: PageAdjudicator,
     return render(request, "review.html", login, nav="review", d=detail, ladder=ladder,
                   indented={t.letter: _indented(t.tree) for t in detail.trees},
                   gold_indented={g.gold_id: _indented(g.tree) for g in detail.history},
-                  in_review=detail.sentence.state == SENT_IN_REVIEW)
+                  in_review=detail.sentence.state == SENT_IN_REVIEW,
+                  combined_json=json.dumps([[c.start, c.end, c.kind,
+                                             [[x.label, x.owners] for x in c.labels]]
+                                            for c in detail.combined]))

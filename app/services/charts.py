@@ -209,6 +209,7 @@ class LadderSpan(Protocol):
 
 
 CHAR_W = 7.8  # width of one character of the ladder's monospace text at 13px (approximate)
+LABEL_CHAR_W = 6.7  # the same for the 11px bar labels
 WORD_PAD = 10.0
 WORD_GAP = 4.0
 ROW_H = 24.0
@@ -248,6 +249,14 @@ def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: i
     (``lad-all``), everyone has the span with different labels (``lad-split``) or only some
     annotators have it (``lad-some``; their letters follow the label)."""
     widths = [max(len(w), 1) * CHAR_W + WORD_PAD for w in words]
+    # widen the words under a bar whose label would not fit, shortest bars first
+    for span in sorted(spans, key=lambda sp: sp.end - sp.start):
+        count = span.end - span.start
+        have = sum(widths[span.start:span.end]) + WORD_GAP * (count - 1)
+        need = len(_chip_text(span, annotators)) * LABEL_CHAR_W + 12
+        if need > have:
+            for i in range(span.start, span.end):
+                widths[i] += (need - have) / count
     xs: list[float] = []
     x = 4.0
     for w in widths:

@@ -538,10 +538,18 @@ class TrainingRunner:
                 return
 
     def shutdown(self, wait: bool = True) -> None:
+        """Stop the worker. ``wait=False`` (service shutdown) also ends a training process at
+        once instead of letting the interpreter wait for it; its row stays ``training`` and
+        the next start marks it failed (see :func:`fail_interrupted`)."""
         with self._lock:
             executor, self._executor = self._executor, None
-        if executor is not None:
-            executor.shutdown(wait=wait, cancel_futures=not wait)
+        if executor is None:
+            return
+        executor.shutdown(wait=wait, cancel_futures=not wait)
+        if not wait and isinstance(executor, ProcessPoolExecutor):
+            processes = getattr(executor, "_processes", None) or {}
+            for proc in list(processes.values()):
+                proc.terminate()
 
 
 _RUNNERS: weakref.WeakKeyDictionary[Engine, TrainingRunner] = weakref.WeakKeyDictionary()
@@ -569,7 +577,11 @@ def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner
         if settings is not None:
             target.training_runner = runner
     fail_interrupted(factory)
-    runner.kick()
+    with factory() as db:
+        waiting = db.scalar(select(func.count(GrammarVersion.id))
+                            .where(GrammarVersion.status == GV_QUEUED))
+    if waiting:
+        runner.kick()
     return runner
 
 

@@ -26,27 +26,71 @@ let checkTimer = 0;
 let checkSeq = 0;
 let busy = false;
 
-// The Bench's tree drawing, when that module is there; the bracketed text stays otherwise.
+// The Bench's tree drawing (static/js/treeview.js); each constituent is marked with the
+// combined view's kind: shared by everyone (plain), same span with other labels elsewhere
+// (rv-m-split), only some annotators (rv-m-some); in the preview, a bracket no annotator
+// drew is rv-m-new.
 let drawTree = null;
+let readTree = null;
+let spansOf = null;
 try {
   ({ drawTree } = await import("./treeview.js"));
+  ({ readTree, spansOf } = await import("./treemodel.js"));
 } catch (err) {
-  drawTree = null;
+  drawTree = null; // the bracketed text below each tree stays visible
 }
 
-function draw(container, treeText) {
-  if (!drawTree || !container) return;
+// "start:end" -> {kind, labels: {label: [letters]}}
+const combined = new Map();
+for (const [start, end, kind, labels] of JSON.parse(root.dataset.combined || "[]")) {
+  combined.set(`${start}:${end}`, { kind, labels: Object.fromEntries(labels) });
+}
+const everyone = [...document.querySelectorAll(".rv-tree")].map((p) => p.dataset.letter);
+
+// The outer wrapper is not a bracket anyone disagrees on (the combined view leaves it out).
+const WRAPPERS = new Set(["", "ROOT", "TOP"]);
+
+function markFor(spans, index, preview) {
+  const span = spans[index];
+  if (index === 0 && WRAPPERS.has(span.label)) return null;
+  const entry = combined.get(`${span.start}:${span.end}`);
+  const owners = entry ? entry.labels[span.label] || [] : [];
+  if (preview) {
+    if (!owners.length) return { classes: ["rv-m-new"], title: `${span.label}: in no submitted tree` };
+    return { classes: [], title: `${span.label}: as in ${owners.join(", ")}` };
+  }
+  if (!entry) return null;
+  if (owners.length === everyone.length) return { classes: [], title: `${span.label}: everyone` };
+  const kind = entry.kind === "split" ? "split" : "some";
+  const others = Object.entries(entry.labels).filter(([label]) => label !== span.label)
+    .map(([label, who]) => `${label} (${who.join(", ")})`);
+  return {
+    classes: [`rv-m-${kind}`],
+    title: `${span.label}: only ${owners.join(", ")}` + (others.length ? `; others: ${others.join(", ")}` : ""),
+  };
+}
+
+function draw(container, treeText, preview = false) {
+  if (!drawTree || !container) return false;
   container.replaceChildren();
   try {
-    drawTree(container, treeText, { editable: false });
-    container.closest(".rv-tree")?.classList.add("rv-drawn");
+    const tree = readTree(treeText);
+    const spans = spansOf(tree);
+    drawTree(container, tree, {
+      marks: (ref) => (ref.kind === "phrase" ? markFor(spans, ref.index, preview) : null),
+    });
+    return true;
   } catch (err) {
     container.replaceChildren();
+    return false;
   }
 }
 
 for (const panel of document.querySelectorAll(".rv-tree")) {
-  draw(panel.querySelector(".rv-drawing"), panel.dataset.tree);
+  if (draw(panel.querySelector(".rv-drawing"), panel.dataset.tree)) {
+    panel.classList.add("rv-drawn");
+    panel.querySelector(".rv-text-toggle").open = false;
+  }
 }
 
 async function api(path, body) {
@@ -124,7 +168,7 @@ async function runCheck() {
     checkedText = value;
     say(checkLine, `fits the sentence: ${data.words.length} words`, "ok");
     confirmRow.hidden = !confirmBox.checked;
-    draw(preview, data.tree);
+    draw(preview, data.tree, true);
     settleButton.disabled = busy;
   } else {
     const d = data || {};
