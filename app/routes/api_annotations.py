@@ -14,7 +14,16 @@ from fastapi import APIRouter, Request
 from sqlalchemy.orm import Session
 
 from app.deps import ApiUser, SessionDep
-from app.models import ANN_DRAFT, ANN_SUBMITTED, SENT_GOLD, SENT_IN_REVIEW, Annotation, Corpus
+from app.models import (
+    ANN_DRAFT,
+    ANN_SUBMITTED,
+    SENT_GOLD,
+    SENT_IN_REVIEW,
+    Annotation,
+    Corpus,
+    Sentence,
+    User,
+)
 from app.schemas.annotation import (
     AlternativePublic,
     AnnotationPublic,
@@ -65,10 +74,14 @@ def open_bench(sentence_id: int, login: ApiUser, db: SessionDep,
                request: Request) -> BenchPublic:
     """Everything the Bench shows for one sentence: your newest revision (or the start tree),
     the grammar's suggestion with span posteriors, the label sets, your place in the queue."""
-    user = login.user
-    sentence = svc.assigned_sentence(db, user, sentence_id)
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    return bench_payload(db, login.user, sentence, request.app.state.settings.suggestion_k)
+
+
+def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchPublic:
+    """The Bench's data for ``user``'s own annotation of ``sentence`` (assigned to them);
+    the page embeds it so the first drawing needs no second request."""
     corpus = _corpus(db, sentence.corpus_id)
-    k = request.app.state.settings.suggestion_k
     annotation = svc.own_annotation(db, user, sentence)
     head = svc.head_revision(db, annotation)
     suggestion = suggestions.suggestion_for(db, sentence, corpus, k)

@@ -1,0 +1,125 @@
+"""Browser test fixtures: a live server on a free loopback port and Debian's Chromium driven by
+Playwright (sync API). Reusable by every page's browser tests.
+
+Fixtures
+    ``live_server``   a started server (a uvicorn subprocess, see tests/app/live_server.py) on a
+                      fresh database; ``.base_url``, ``.settings``, ``.sessionmaker`` (sessions
+                      on the same database, to seed rows and read results), ``.log``.
+    ``browser``       one headless Chromium per test session (never downloaded: the Debian
+                      binary at /usr/bin/chromium).
+    ``browser_page``  a fresh context and page per test (1400x900); ``page.console_errors``
+                      collects console errors and uncaught page errors.
+    ``output_dir``    ``test-output/<test name>/`` under the repository root (gitignored).
+    The app fixtures of tests/app/conftest.py (``settings``, ``db``, ``people``...) are
+    available too; ``people`` makes admin, adj, ann1, ann2 with password
+    :data:`tests.app.conftest.PASSWORD`.
+
+Helper
+    :func:`login_as` fills the login form as a user.
+
+Without /usr/bin/chromium the tests skip with a reason, unless TREEWRIGHT_REQUIRE_BROWSER=1,
+which makes that a failure.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pytest
+from sqlalchemy.orm import Session, sessionmaker
+
+from app.settings import PROJECT_ROOT, Settings
+from tests.app.conftest import (  # noqa: F401  (fixtures re-exported for browser tests)
+    PASSWORD,
+    _migrated_sqlite,
+    app,
+    db,
+    login,
+    people,
+    settings,
+)
+from tests.app.live_server import LiveServer
+
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu",
+                 "--disable-background-networking", "--disable-component-update",
+                 "--no-first-run"]
+
+
+def _require_chromium() -> None:
+    if CHROMIUM.exists():
+        return
+    reason = f"Chromium not found at {CHROMIUM} (Debian package 'chromium')"
+    if os.environ.get("TREEWRIGHT_REQUIRE_BROWSER") == "1":
+        pytest.fail(reason + " and TREEWRIGHT_REQUIRE_BROWSER=1 makes that an error")
+    pytest.skip(reason)
+
+
+@dataclass
+class Live:
+    base_url: str
+    settings: Settings
+    sessionmaker: sessionmaker[Session]
+    log: Path
+    server: LiveServer
+
+
+@pytest.fixture
+def live_server(app, people, tmp_path: Path) -> Iterator[Live]:  # noqa: F811
+    """A running server on the test's database (users from ``people`` already exist)."""
+    log = tmp_path / "server.log"
+    server = LiveServer(app.state.settings, log=log).start()
+    try:
+        yield Live(base_url=server.url, settings=app.state.settings,
+                   sessionmaker=app.state.sessionmaker, log=log, server=server)
+    finally:
+        server.stop()
+
+
+@pytest.fixture(scope="session")
+def browser() -> Iterator[Any]:
+    _require_chromium()
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as pw:
+        chromium = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS,
+                                      headless=True)
+        yield chromium
+        chromium.close()
+
+
+@pytest.fixture
+def browser_page(browser) -> Iterator[Any]:
+    context = browser.new_context(viewport={"width": 1400, "height": 900})
+    page = context.new_page()
+    page.set_default_timeout(15_000)
+    errors: list[str] = []
+    page.on("console", lambda msg: errors.append(f"{msg.text} at {msg.location.get('url', '')}")
+            if msg.type == "error" else None)
+    page.on("pageerror", lambda exc: errors.append(str(exc)))
+    page.console_errors = errors
+    yield page
+    context.close()
+
+
+@pytest.fixture
+def output_dir(request: pytest.FixtureRequest) -> Path:
+    name = re.sub(r"[^\w.-]+", "_", request.node.name)
+    folder = PROJECT_ROOT / "test-output" / name
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
+
+
+def login_as(page: Any, base_url: str, username: str, password: str = PASSWORD,
+             next_path: str = "/") -> None:
+    """Log in through the form; ends on ``next_path``."""
+    page.goto(f"{base_url}/login?next={next_path}")
+    page.fill("input[name=username]", username)
+    page.fill("input[name=password]", password)
+    page.click("button[type=submit]")
+    page.wait_for_load_state("load")
