@@ -38,10 +38,21 @@ def login_form(request: Request, login: OptionalLogin, next: str | None = None) 
     return render(request, "login.html", None, next=_safe_next(next), error=None)
 
 
+def _posted_from_elsewhere(request: Request) -> bool:
+    # The login form has no session (so no CSRF token) yet; a browser says where a form post
+    # came from in Sec-Fetch-Site. Refusing other sites stops a page elsewhere from logging
+    # the visitor in to an account of its choosing. Clients that send no such header (scripts,
+    # older browsers) are not affected.
+    return request.headers.get("sec-fetch-site", "same-origin") not in ("same-origin", "none")
+
+
 @router.post("/login", response_class=HTMLResponse)
 async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
                        username: str = Form(""), password: str = Form(""),
                        next: str = Form("/")) -> Response:
+    if _posted_from_elsewhere(request):
+        return render(request, "login.html", None, status_code=403, next="/",
+                      error="This login form was sent from another site; log in here.")
     address = request.client.host if request.client else "unknown"
     username = username.strip()
     delay = login_delay(recent_failures(db, username, address), settings)
