@@ -286,7 +286,7 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
                    ratios: str | None, seed: int, by: str, out: Path | None, as_zip: bool,
                    data_dir: Path | None) -> None:
     """Export gold trees as bracketed text, one tree per line."""
-    from app.services.exports import SplitSpec, export_gold, parse_ratios, slug
+    from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
 
     settings = make_settings(data_dir)
     with open_db(settings) as db, friendly_errors():
@@ -300,6 +300,9 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
         split = SplitSpec(parse_ratios(ratios), seed=seed, by=by) if ratios else None
         result = export_gold(db, corpus.id, document_id=document_id,
                              function_tags=not strip_function_tags, split=split)
+        record_export(db, corpus.id, result, user=None, document_id=document_id, split=split,
+                      function_tags=not strip_function_tags)
+        db.commit()
     for warning in result.warnings:
         click.echo(f"warning: {warning}", err=True)
     if split is None and not as_zip:

@@ -13,7 +13,7 @@ from app.deps import ApiAdjudicator, ApiAdmin, ApiUser, SessionDep
 from app.models import Corpus
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences
-from app.services.exports import SplitSpec, export_gold
+from app.services.exports import SplitSpec, export_gold, record_export
 from app.services.imports import import_bytes
 
 router = APIRouter(tags=["corpora"])
@@ -249,6 +249,9 @@ def export(corpus_id: int, login: ApiAdjudicator, db: SessionDep,
         split = SplitSpec((train or 0.0, dev or 0.0, test or 0.0), seed=seed, by=by)
     result = export_gold(db, corpus_id, document_id=document_id, function_tags=function_tags,
                          split=split)
+    record_export(db, corpus_id, result, user=login.user, document_id=document_id,
+                  split=split, function_tags=function_tags)
+    db.commit()
     return ExportPublic(files=result.files, counts=result.counts, warnings=result.warnings)
 
 

@@ -16,7 +16,7 @@ from sqlalchemy import select
 from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.models import Corpus, Document, User
 from app.services.errors import BadInput, ServiceError
-from app.services.exports import SplitSpec, export_gold, parse_ratios, slug
+from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
 from app.services.imports import KINDS, TOKENIZERS, ImportResult, import_bytes
 from app.web import render
 
@@ -83,6 +83,9 @@ def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
         document_id = int(document) if document.strip() else None
         result = export_gold(db, corpus, document_id=document_id, function_tags=not strip,
                              split=spec)
+        record_export(db, corpus, result, user=login.user, document_id=document_id,
+                      split=spec, function_tags=not strip)
+        db.commit()
     except ValueError:
         return _page(request, login, db, status_code=422, corpus_id=corpus,
                      export_error=f"document {document!r} is not a document id")

@@ -32,7 +32,7 @@ from dataclasses import dataclass, field
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from app.models import SENT_GOLD, Corpus, Document, Gold, Sentence
+from app.models import SENT_GOLD, Corpus, Document, Event, Gold, Sentence, User
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
 from parser.trees import read_tree, strip_function_tags, write_tree
@@ -208,3 +208,15 @@ def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
                                    f"{'documents' if split.by == 'document' else 'sentences'} "
                                    f"for the ratios)")
     return result
+
+
+def record_export(db: Session, corpus_id: int, result: ExportResult, *, user: User | None,
+                  document_id: int | None = None, split: SplitSpec | None = None,
+                  function_tags: bool = True) -> None:
+    """Note an export in the event log (gold text leaving the service); the caller commits."""
+    detail: dict[str, object] = {"files": dict(result.counts), "function_tags": function_tags,
+                                 "document_id": document_id}
+    if split is not None:
+        detail["split"] = {"ratios": list(split.ratios), "seed": split.seed, "by": split.by}
+    db.add(Event(user_id=user.id if user else None, kind="export", corpus_id=corpus_id,
+                 detail=detail))

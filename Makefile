@@ -1,0 +1,64 @@
+# Treewright's everyday commands. `make demo` and `make test` are the README's quick start.
+# Needs Python 3.11 (python3.11, or python3 when that is 3.11 or newer).
+
+PYTHON ?= $(shell command -v python3.11 || command -v python3)
+VENV   := .venv
+BIN    := $(VENV)/bin
+DATA   ?= data
+PYTEST_WORKERS ?= 2
+
+.PHONY: demo test test-app lint typecheck bench install install-test chromium clean-venv
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+# Stamp files: reinstall only when pyproject.toml changes.
+$(VENV)/.installed: $(BIN)/python pyproject.toml
+	$(BIN)/python -m pip install --quiet -e .
+	touch $@
+
+$(VENV)/.installed-test: $(BIN)/python pyproject.toml
+	$(BIN)/python -m pip install --quiet -e ".[test]"
+	touch $@ $(VENV)/.installed
+
+install: $(VENV)/.installed
+
+install-test: $(VENV)/.installed-test
+
+## demo: load the demo into ./data and serve it on http://127.0.0.1:8000 (prints the logins)
+demo: install
+	$(BIN)/treewright demo --data-dir $(DATA)
+
+## chromium: as root, install Debian's Chromium for the browser tests when it is missing
+chromium:
+	@if [ ! -x /usr/bin/chromium ]; then \
+	  if [ "$$(id -u)" = "0" ]; then \
+	    apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends chromium; \
+	  else \
+	    echo "note: /usr/bin/chromium is missing and this is not root: browser tests will skip"; \
+	  fi; \
+	fi
+
+## test: the whole suite (parser, app, browser) on two workers
+test: install-test chromium
+	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) -q
+
+## test-app: only the app tests (the PostgreSQL pass of .ci/run uses this)
+test-app: install-test
+	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) -q tests/app
+
+lint: install-test
+	$(BIN)/ruff check app parser tests bench
+
+typecheck: install-test
+	$(BIN)/mypy
+
+## bench: every script in bench/ (each prints its own side-by-side figures)
+bench: install
+	@set -e; for script in bench/*.py; do \
+	  echo "== $$script"; $(BIN)/python $$script; \
+	done
+
+clean-venv:
+	rm -rf $(VENV)
