@@ -480,6 +480,7 @@ class TrainingRunner:
         self._executor: Executor | None = None
         self._pending: Future[int] | None = None
         self.last_error: BaseException | None = None
+        self._closing = False
 
     def _ensure_executor(self) -> Executor:
         if self._executor is None:
@@ -516,7 +517,8 @@ class TrainingRunner:
         if exc is None:
             return
         self.last_error = exc
-        log.error("the training worker failed: %r", exc)
+        if not self._closing:
+            log.error("the training worker failed: %r", exc)
         with self._lock:
             self._executor = None  # e.g. BrokenProcessPool: the next kick starts a new one
         fail_interrupted(self.factory)
@@ -543,12 +545,14 @@ class TrainingRunner:
         the next start marks it failed (see :func:`fail_interrupted`)."""
         with self._lock:
             executor, self._executor = self._executor, None
+            self._closing = True
         if executor is None:
             return
+        # shutdown() forgets the worker processes, so take them first
+        processes = list((getattr(executor, "_processes", None) or {}).values())
         executor.shutdown(wait=wait, cancel_futures=not wait)
-        if not wait and isinstance(executor, ProcessPoolExecutor):
-            processes = getattr(executor, "_processes", None) or {}
-            for proc in list(processes.values()):
+        if not wait:
+            for proc in processes:
                 proc.terminate()
 
 
