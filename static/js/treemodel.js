@@ -60,7 +60,7 @@ function fail(text, offset, message) {
 const SPACE = /\s/;
 
 export function readTree(text) {
-  const stack = []; // {label, children, word, at}
+  const stack = []; // {label, children, word, at, wordAt}
   let tree = null;
   let i = 0;
   const n = text.length;
@@ -79,12 +79,14 @@ export function readTree(text) {
       if (label === "") {
         let k = i;
         while (k < n && SPACE.test(text[k])) k++;
-        if (k < n && text[k] === ")") fail(text, at, "empty brackets ( )");
+        if (k < n && text[k] === ")") fail(text, k, "empty brackets ( )");
         if (stack.length > 0) fail(text, at, "a bracket without a label inside a tree");
       }
       const top = stack[stack.length - 1];
-      if (top && top.word !== null) fail(text, at, "a subtree beside a bare word");
-      stack.push({label, children: [], word: null, at});
+      if (top && top.word !== null) {
+        fail(text, top.wordAt, `the word '${top.word}' stands beside a subtree`);
+      }
+      stack.push({label, children: [], word: null, at, wordAt: -1});
     } else if (ch === ")") {
       if (stack.length === 0) fail(text, i, "a ')' with no open bracket");
       const node = stack.pop();
@@ -110,6 +112,7 @@ export function readTree(text) {
       if (top.children.length > 0) fail(text, at, `the word '${word}' stands beside a subtree`);
       if (top.word !== null) fail(text, at, `a second word '${word}' in (${top.label} ...)`);
       top.word = word;
+      top.wordAt = at;
     }
   }
   if (stack.length > 0) {

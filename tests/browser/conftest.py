@@ -9,6 +9,8 @@ Fixtures
                       binary at /usr/bin/chromium).
     ``browser_page``  a fresh context and page per test (1400x900); ``page.console_errors``
                       collects console errors and uncaught page errors.
+    ``static_server`` base URL of a plain file server for static/ (no app, no database), one
+                      per test session: for checking ES modules in the browser quickly.
     ``output_dir``    ``test-output/<test name>/`` under the repository root (gitignored).
     The app fixtures of tests/app/conftest.py (``settings``, ``db``, ``people``...) are
     available too; ``people`` makes admin, adj, ann1, ann2 with password
@@ -33,7 +35,7 @@ from typing import Any
 import pytest
 from sqlalchemy.orm import Session, sessionmaker
 
-from app.settings import PROJECT_ROOT, Settings
+from app.settings import PROJECT_ROOT, STATIC_DIR, Settings
 from tests.app.conftest import (  # noqa: F401  (fixtures re-exported for browser tests)
     PASSWORD,
     _migrated_sqlite,
@@ -79,6 +81,28 @@ def live_server(app, people, tmp_path: Path) -> Iterator[Live]:  # noqa: F811
                    sessionmaker=app.state.sessionmaker, log=log, server=server)
     finally:
         server.stop()
+
+
+@pytest.fixture(scope="session")
+def static_server() -> Iterator[str]:
+    """Serve static/ on a free loopback port; ``/js/x.js`` is static/js/x.js."""
+    import functools
+    import threading
+    from http.server import SimpleHTTPRequestHandler, ThreadingHTTPServer
+
+    class Quiet(SimpleHTTPRequestHandler):
+        def log_message(self, *args: Any) -> None:
+            pass
+
+    handler = functools.partial(Quiet, directory=str(STATIC_DIR))
+    server = ThreadingHTTPServer(("127.0.0.1", 0), handler)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    try:
+        yield f"http://127.0.0.1:{server.server_address[1]}"
+    finally:
+        server.shutdown()
+        server.server_close()
 
 
 @pytest.fixture(scope="session")
