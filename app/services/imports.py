@@ -452,22 +452,22 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
                             tokens=item.tokens, text=item.text, state=state, created_at=now)
         next_position += 1
         pending.append((item, sentence, True))
-    for done, (item, sentence, new) in enumerate(pending, start=1):
-        if new:
-            db.add(sentence)
-            result.imported += 1
-        if kind != "text":
-            if sentence.id is None:
-                db.flush()
-            if kind == "gold":
-                db.add(Gold(sentence_id=sentence.id, tree=item.tree, provenance="import",
-                            note=f"imported from {source}, line {item.line}", created_at=now))
-            elif ann_user is not None:
-                _add_annotation(db, sentence, ann_user, item, now)
-        if done % BATCH == 0:
-            db.flush()
-            if progress:
-                progress(done, total)
+    # Rows are written in batches: sentences first (one flush gives them ids), then the rows
+    # that point at them. Progress counts sentences stored.
+    fresh = [sentence for _, sentence, new in pending if new]
+    result.imported = len(fresh)
+    for start in range(0, len(fresh), BATCH):
+        db.add_all(fresh[start:start + BATCH])
+        db.flush()
+        if progress:
+            progress(min(start + BATCH, len(fresh)), total)
+    if kind == "gold":
+        db.add_all(Gold(sentence_id=sentence.id, tree=item.tree, provenance="import",
+                        note=f"imported from {source}, line {item.line}", created_at=now)
+                   for item, sentence, _ in pending)
+    elif ann_user is not None:
+        _add_annotations(db, [(item, sentence) for item, sentence, _ in pending], ann_user,
+                         now)
     db.flush()
     if kind == "annotation":
         _route_complete(db, corpus, [sentence for _, sentence, _ in pending])
@@ -505,21 +505,29 @@ def _attachable(db: Session, doc: Document, ann_user: User, items: list[_Item]
     return out
 
 
-def _add_annotation(db: Session, sentence: Sentence, ann_user: User, item: _Item,
-                    now: Any) -> None:
-    exists = db.scalar(select(Assignment.id).where(Assignment.sentence_id == sentence.id,
-                                                   Assignment.user_id == ann_user.id))
-    if exists is None:
-        db.add(Assignment(sentence_id=sentence.id, user_id=ann_user.id, created_at=now))
-    annotation = Annotation(sentence_id=sentence.id, user_id=ann_user.id, state=ANN_SUBMITTED,
-                            head=1, created_at=now, updated_at=now, submitted_at=now,
-                            comment="")
-    db.add(annotation)
+def _add_annotations(db: Session, rows: list[tuple[_Item, Sentence]], ann_user: User,
+                     now: Any) -> None:
+    """A submitted annotation with one ``import`` revision per sentence, and the assignment."""
+    assigned: set[int] = set()
+    ids = [sentence.id for _, sentence in rows]
+    for start in range(0, len(ids), BATCH):
+        assigned |= set(db.scalars(select(Assignment.sentence_id).where(
+            Assignment.user_id == ann_user.id,
+            Assignment.sentence_id.in_(ids[start:start + BATCH]))))
+    annotations = []
+    for _, sentence in rows:
+        if sentence.id not in assigned:
+            db.add(Assignment(sentence_id=sentence.id, user_id=ann_user.id, created_at=now))
+        annotations.append(Annotation(sentence_id=sentence.id, user_id=ann_user.id,
+                                      state=ANN_SUBMITTED, head=1, created_at=now,
+                                      updated_at=now, submitted_at=now, comment=""))
+        if sentence.state == SENT_QUEUED:
+            sentence.state = SENT_IN_PROGRESS
+    db.add_all(annotations)
     db.flush()
-    db.add(Revision(annotation_id=annotation.id, number=1, tree=item.tree, source="import",
-                    user_id=ann_user.id, created_at=now, pins={}))
-    if sentence.state == SENT_QUEUED:
-        sentence.state = SENT_IN_PROGRESS
+    db.add_all(Revision(annotation_id=annotation.id, number=1, tree=item.tree, source="import",
+                        user_id=ann_user.id, created_at=now, pins={})
+               for (item, _), annotation in zip(rows, annotations, strict=True))
 
 
 def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> None:
@@ -532,10 +540,13 @@ def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> N
     ids = [s.id for s in sentences]
     if not ids:
         return
-    counts = dict(db.execute(select(Annotation.sentence_id, func.count())
-                             .where(Annotation.sentence_id.in_(ids),
-                                    Annotation.state == ANN_SUBMITTED)
-                             .group_by(Annotation.sentence_id)).all())
+    counts: dict[int, int] = {}
+    for start in range(0, len(ids), BATCH):
+        counts.update({sid: n for sid, n in db.execute(
+            select(Annotation.sentence_id, func.count())
+            .where(Annotation.sentence_id.in_(ids[start:start + BATCH]),
+                   Annotation.state == ANN_SUBMITTED)
+            .group_by(Annotation.sentence_id))})
     ready = [s for s in sentences if counts.get(s.id, 0) >= needed]
     if not ready:
         return
