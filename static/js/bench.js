@@ -308,6 +308,15 @@ function marks(ref) {
   return out;
 }
 
+// A reading's probability: tiny ones in scientific notation rather than all "under 0.1%".
+function formatProbability(p) {
+  if (p >= 0.001) return formatP(p);
+  if (p <= 0) return "0";
+  const exp = Math.floor(Math.log10(p));
+  const sup = String(exp).replace(/-/g, "⁻").replace(/\d/g, (d) => "⁰¹²³⁴⁵⁶⁷⁸⁹"[Number(d)]);
+  return `${(p / 10 ** exp).toFixed(1)}·10${sup}`;
+}
+
 function formatP(p) {
   if (p < 0.001) return "under 0.1%";
   return `${(p * 100).toFixed(p < 0.1 ? 1 : 0)}%`;
@@ -400,7 +409,8 @@ function renderReadings() {
     let tree = null;
     try { tree = T.readTree(alt.tree); } catch { tree = null; }
     const diff = tree ? T.bracketDifference(tree, S.tree) : null;
-    const prob = alt.probability === null ? "no probability (fallback)" : formatP(alt.probability);
+    const prob = alt.probability === null ? "no probability (fallback)"
+      : formatProbability(alt.probability);
     btn.textContent = `${i + 1}. ${prob}` + (diff === null ? "" : diff === 0 ? " · same as yours"
       : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
     btn.title = alt.tree;
@@ -1026,6 +1036,7 @@ function restoreDraft() {
   setTree(tree, draft.pins || T.emptyPins());
   S.pendingSource = draft.source || "edit";
   S.dirty = true;
+  render();
   if (draft.base === S.head) {
     say("Restored a change that had not reached the server; saving it now.");
     setStatus("dirty");
