@@ -54,6 +54,13 @@ def revisions(live_server, user_id: int, sentence_id: int) -> list[Revision]:
                                .order_by(Revision.number)))
 
 
+def retag_first_word(page, tag: str) -> None:
+    """By keyboard: root, down to S, down to the first POS tag, relabel it."""
+    for key in ("Home", "ArrowDown", "ArrowDown", "r"):
+        page.keyboard.press(key)
+    answer_prompt(page, tag)
+
+
 def test_bench_hostile_words_show_as_text(browser_page, live_server) -> None:
     page = browser_page
     world = seed(live_server, [" ".join(HOSTILE)], labels=[], tags=[])
@@ -111,11 +118,7 @@ def test_bench_stale_save_keeps_mine_or_takes_theirs(browser_page, live_server) 
     # again, stale; this time take theirs, and undo brings mine back
     theirs2 = flat_text(tokens, ["VB", "DT", "JJ", "NN", "."])
     assert other.save(sid, 2, theirs2).status_code == 201
-    page.keyboard.press("Home")
-    page.keyboard.press("ArrowDown")
-    page.keyboard.press("ArrowDown")
-    page.keyboard.press("r")
-    answer_prompt(page, "NNP")
+    retag_first_word(page, "NNP")
     mine2 = shown_tree(page)
     page.wait_for_selector("#conflict:not([hidden])")
     page.click("#conflict-take")
@@ -137,11 +140,7 @@ def test_bench_failed_save_survives_a_reload(browser_page, live_server) -> None:
     sid = world["ids"][0]
     open_bench(page, live_server, sid)
     page.route("**/api/bench/*/revisions", lambda route: route.abort())
-    page.keyboard.press("Home")
-    page.keyboard.press("ArrowDown")
-    page.keyboard.press("ArrowDown")
-    page.keyboard.press("r")
-    answer_prompt(page, "VB")
+    retag_first_word(page, "VB")
     mine = shown_tree(page)
     page.wait_for_selector("#save-state[data-state='offline']")
     assert revisions(live_server, world["user_id"], sid) == []
