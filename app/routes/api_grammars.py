@@ -14,7 +14,7 @@ from fastapi import APIRouter, FastAPI, Request
 from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiUser, SessionDep
-from app.models import Corpus, GrammarVersion
+from app.models import GV_QUEUED, Corpus, GrammarVersion
 from app.services import training
 from app.services.errors import NotFound
 
@@ -77,9 +77,12 @@ def list_versions(corpus_id: int, login: ApiUser, db: SessionDep) -> list[Gramma
 
 
 @router.get("/api/grammars/{version_id}", response_model=GrammarVersionPublic)
-def get_version(version_id: int, login: ApiUser, db: SessionDep) -> GrammarVersionPublic:
+def get_version(version_id: int, login: ApiUser, db: SessionDep,
+                request: Request) -> GrammarVersionPublic:
     """One version: poll this while it trains (status, progress, message)."""
     v = training.get_version(db, version_id)
+    if v.status == GV_QUEUED:
+        training.get_runner(request.app.state)  # starts a job nobody has picked up yet
     corpus = _corpus(db, v.corpus_id)
     return version_public(v, corpus.active_grammar_id)
 

@@ -141,7 +141,10 @@ def line_chart(series: Sequence[Series], *, title: str, x_title: str, y_title: s
             parts.append(f'<text class="chart-tick" x="{_fmt(sx(i))}" y="{_fmt(base + 16)}" '
                          f'text-anchor="middle">{escape(name)}</text>')
     elif xs:
+        whole = all(float(x).is_integer() for x in xs)  # counts: no tick at 74.5 trees
         for t in _nice_ticks(x_lo, x_hi, 7):
+            if whole and not float(t).is_integer():
+                continue
             parts.append(f'<text class="chart-tick" x="{_fmt(sx(t))}" y="{_fmt(base + 16)}" '
                          f'text-anchor="middle">{t:g}</text>')
     parts.append(f'<line class="chart-axis" x1="{f.left}" y1="{_fmt(base)}" '

@@ -561,7 +561,8 @@ _RUNNERS_LOCK = threading.Lock()
 
 
 def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner:
-    """The runner of an app (pass ``app.state``) or of a sessionmaker, created on first use.
+    """The runner of an app (pass ``app.state``) or of a sessionmaker, created on first use;
+    kicked when queued jobs wait (one COUNT query).
 
     With app state the setting ``training_in_process`` decides thread or process; with a bare
     sessionmaker ``in_process`` does (default: a process).
@@ -573,14 +574,16 @@ def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner
         in_process = bool(settings.training_in_process) if settings is not None else False
     with _RUNNERS_LOCK:
         runner = _RUNNERS.get(engine)
-        if runner is not None:
-            return runner
-        url = engine.url.render_as_string(hide_password=False)
-        runner = TrainingRunner(factory, url=url, in_process=in_process)
-        _RUNNERS[engine] = runner
-        if settings is not None:
-            target.training_runner = runner
-    fail_interrupted(factory)
+        created = runner is None
+        if runner is None:
+            url = engine.url.render_as_string(hide_password=False)
+            runner = TrainingRunner(factory, url=url, in_process=in_process)
+            _RUNNERS[engine] = runner
+            if settings is not None:
+                target.training_runner = runner
+    if created:
+        fail_interrupted(factory)
+    # jobs queued by another process (an import from the CLI, a test) start here too
     with factory() as db:
         waiting = db.scalar(select(func.count(GrammarVersion.id))
                             .where(GrammarVersion.status == GV_QUEUED))
