@@ -151,8 +151,11 @@ def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
               help="Replace a database that is not a demo (a SQLite copy is kept in "
                    "DATA_DIR/backups first).")
 @click.option("--no-serve", is_flag=True, help="Load the demo and stop.")
+@click.option("--no-train", is_flag=True,
+              help="Skip training the first grammar (suggestions come after the first "
+                   "training).")
 @data_dir_option
-def demo(host: str | None, port: int | None, force: bool, no_serve: bool,
+def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_train: bool,
          data_dir: Path | None) -> None:
     """Load fresh demo data (invented ferry cooperative), print the logins, then serve."""
     from app.demo.loader import is_demo_database, load_demo
@@ -169,7 +172,7 @@ def demo(host: str | None, port: int | None, force: bool, no_serve: bool,
     if kept:
         click.echo(f"kept a copy of the previous database: {kept}")
     with open_db(settings) as db, friendly_errors():
-        summary = load_demo(db)
+        summary = load_demo(db, train=not no_train)
     click.echo(f"demo loaded: {summary.gold} gold trees and {summary.queued} sentences to "
                f"annotate in {len(summary.documents)} documents "
                f"({summary.assignments} assignments)")

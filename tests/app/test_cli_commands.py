@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sqlite3
+
 import pytest
 from click.testing import CliRunner
 from sqlalchemy import func, select
@@ -9,6 +11,7 @@ from sqlalchemy import func, select
 from app.cli import main
 from app.models import Assignment, Sentence, User
 from app.services.imports import count_rows
+from tests.app.conftest import sqlite_only
 
 TREES = "".join(f"(ROOT (S (NP-SBJ-1 (NNP Boat{i})) (VP (VBD sank)) (. .)))\n"
                 for i in range(10))
@@ -154,3 +157,30 @@ def test_cli_demo_refuses_a_team_database(cli, tmp_path) -> None:
     cli("import", str(text), "--corpus", "Our treebank")
     result = cli("demo", "--no-serve", ok=False)
     assert result.exit_code == 1 and "refusing to replace it" in result.output
+
+
+def test_cli_demo_loads_and_replaces_a_demo(cli, settings) -> None:
+    first = cli("demo", "--no-serve", "--no-train").output
+    assert "demo loaded: 75 gold trees" in first
+    logins = [line.split() for line in first.splitlines() if line.startswith("  ")]
+    assert [row[:2] for row in logins] == [["purser", "admin"], ["netmender", "annotator"],
+                                           ["tidewatch", "adjudicator"]]
+    second = cli("demo", "--no-serve", "--no-train").output
+    again = [line.split() for line in second.splitlines() if line.startswith("  ")]
+    assert [row[2] for row in again] != [row[2] for row in logins]  # fresh passwords
+    assert "kept a copy" not in second  # a demo database is replaced without a copy
+    listing = cli("corpus", "list").output
+    assert listing.count("Saltmarrow Ferry Cooperative") == 1 and "gold 75" in listing
+
+
+@sqlite_only()
+def test_cli_demo_force_keeps_a_copy_of_the_team_database(cli, settings, tmp_path) -> None:
+    text = tmp_path / "t.txt"
+    text.write_text("Real team work .\n")
+    cli("import", str(text), "--corpus", "Our treebank")
+    out = cli("demo", "--no-serve", "--no-train", "--force").output
+    assert "kept a copy of the previous database" in out
+    (copy,) = (settings.data_dir / "backups").glob("before-demo-*.db")
+    conn = sqlite3.connect(copy)
+    assert conn.execute("SELECT name FROM corpora").fetchall() == [("Our treebank",)]
+    conn.close()
