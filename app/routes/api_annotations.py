@@ -7,10 +7,15 @@ pins, shape, state), 409 with the current revision for a stale save.
 
 from __future__ import annotations
 
+import logging
 import math
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
 from typing import Any
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, FastAPI, Request
+from fastapi.concurrency import run_in_threadpool
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from app.deps import ApiUser, SessionDep
@@ -22,6 +27,7 @@ from app.models import (
     Annotation,
     Corpus,
     Sentence,
+    Suggestion,
     User,
 )
 from app.schemas.annotation import (
@@ -45,8 +51,23 @@ from app.schemas.annotation import (
 from app.services import annotation as svc
 from app.services import suggestions
 from app.services.errors import NotFound
+from parser.errors import ParserError
 
-router = APIRouter(tags=["bench"])
+log = logging.getLogger(__name__)
+
+
+@asynccontextmanager
+async def _warm_parser(app: FastAPI) -> AsyncIterator[None]:
+    """On server start, load the parser's compiled loops and the active grammars."""
+    try:
+        loaded = await run_in_threadpool(suggestions.warm_up, app.state.sessionmaker)
+        log.info("warmed the parser; grammar versions loaded: %s", loaded)
+    except (SQLAlchemyError, ParserError) as exc:  # the first Bench request pays instead
+        log.warning("could not warm the parser: %s", exc)
+    yield
+
+
+router = APIRouter(tags=["bench"], lifespan=_warm_parser)
 
 ERRORS: dict[int | str, dict[str, Any]] = {
     404: {"model": BenchErrorPublic, "description": "not in your queue"},
@@ -84,7 +105,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     corpus = _corpus(db, sentence.corpus_id)
     annotation = svc.own_annotation(db, user, sentence)
     head = svc.head_revision(db, annotation)
-    suggestion = suggestions.suggestion_for(db, sentence, corpus, k)
+    suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
     if head is not None:
         tree, pins, source, note = head.tree, head.pins or {}, head.source, None
     else:
@@ -92,15 +113,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         tree, pins, source, note = start.tree, {}, start.source, start.note
     queue = svc.queue_for(db, user)
     prev_id, next_id, index = queue.neighbours(sentence.id)
-    sugg_public = None
-    if suggestion is not None:
-        version = suggestions.active_version(db, corpus)
-        sugg_public = SuggestionPublic(
-            grammar_version=version.number if version else 0,
-            alternatives=[AlternativePublic(tree=t, probability=_prob(lp))
-                          for t, lp in zip(suggestion.trees, suggestion.logprobs, strict=False)],
-            posteriors=[tuple(p) for p in suggestion.posteriors],
-            fallback=suggestion.fallback, seconds=suggestion.seconds)
+    sugg_public = _suggestion_public(db, corpus, suggestion)
     editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
         and sentence.state not in (SENT_IN_REVIEW, SENT_GOLD)
     return BenchPublic(
@@ -116,6 +129,32 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         queue=QueuePlace(index=index, total=queue.total, submitted=queue.submitted,
                          prev_id=prev_id, next_id=next_id,
                          next_open_id=queue.next_open(sentence.id)))
+
+
+def _suggestion_public(db: Session, corpus: Corpus,
+                       row: Suggestion | None) -> SuggestionPublic | None:
+    if row is None:
+        return None
+    version = suggestions.active_version(db, corpus)
+    return SuggestionPublic(
+        grammar_version=version.number if version else 0,
+        alternatives=[AlternativePublic(tree=t, probability=_prob(lp))
+                      for t, lp in zip(row.trees, row.logprobs, strict=False)],
+        posteriors=[tuple(p) for p in row.posteriors], fallback=row.fallback,
+        seconds=row.seconds, complete=suggestions.is_complete(row))
+
+
+@router.get("/api/bench/{sentence_id}/suggestion", response_model=SuggestionPublic | None,
+            responses=ERRORS)
+def full_suggestion(sentence_id: int, login: ApiUser, db: SessionDep,
+                    request: Request) -> SuggestionPublic | None:
+    """The grammar's suggestion with span posteriors and probabilities, computed now if the
+    Bench page was drawn from the fast one (null without an active grammar)."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    corpus = _corpus(db, sentence.corpus_id)
+    row = suggestions.suggestion_for(db, sentence, corpus,
+                                     request.app.state.settings.suggestion_k, complete=True)
+    return _suggestion_public(db, corpus, row)
 
 
 def _prob(logprob: float | None) -> float | None:

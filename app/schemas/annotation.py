@@ -6,11 +6,11 @@ constituents; ``tags`` lists ``[word index, tag]`` of pinned POS tags.
 
 from __future__ import annotations
 
-from datetime import datetime
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import BaseModel, Field
 
+from app.schemas.common import UtcDateTime
 from app.services.annotation import QueueItem
 
 RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
@@ -40,7 +40,7 @@ class AnnotationPublic(BaseModel):
     head: int = Field(description="number of the newest revision (0: nothing saved yet)")
     comment: str = ""
     flag: str | None = None
-    submitted_at: datetime | None = None
+    submitted_at: UtcDateTime | None = None
 
 
 class RevisionPublic(BaseModel):
@@ -48,7 +48,7 @@ class RevisionPublic(BaseModel):
     tree: str
     pins: Pins
     source: str
-    created_at: datetime
+    created_at: UtcDateTime
 
 
 class AlternativePublic(BaseModel):
@@ -65,6 +65,8 @@ class SuggestionPublic(BaseModel):
                     "function tags); spans not listed are below 0.001")
     fallback: bool
     seconds: float
+    complete: bool = Field(description="posteriors and probabilities are in; when false, "
+                                       "GET /api/bench/{id}/suggestion computes them")
 
 
 class QueuePlace(BaseModel):
@@ -133,7 +135,8 @@ class ReparsePublic(BaseModel):
 class BenchErrorPublic(BaseModel):
     """A refused change (422) or a stale one (409)."""
 
-    detail: str
+    detail: str | list[dict[str, Any]] = Field(description="what is wrong; a list of field "
+                                                "errors when the body does not fit the schema")
     kind: str | None = None
     line: int | None = None
     column: int | None = None

@@ -7,6 +7,8 @@ re-parse around the annotator's pins.
 * :func:`suggestion_for` returns the Suggestion row of (sentence, active grammar), parsing only
   when the row does not exist yet (k-best with span posteriors); :func:`refresh_unstarted`
   fills those rows for every sentence nobody has started, after a new grammar becomes active.
+* :func:`warm_up` runs when a server starts, so that the first annotator after a restart
+  does not wait for the compiled chart loops or the grammar to load.
 * :func:`reparse` asks for the best tree that keeps every pinned constituent and POS tag
   (constrained CKY), then puts the pinned labels back exactly as the annotator wrote them (the
   grammar knows labels without function tags: a pin ``NP-SBJ`` is parsed as ``NP`` and
@@ -17,7 +19,9 @@ What a Suggestion row holds (this module writes them; the JSON columns are plain
 parser's joint log-probability minus the sentence's inside log-probability (``None`` for a
 fallback tree, which has no probability); ``posteriors`` ``[label, start, end, p]`` for every
 labelled span with p >= the parser's threshold; ``fallback`` true when the grammar had no
-parse and the tree is the parser's well-formed stand-in.
+parse and the tree is the parser's well-formed stand-in. A row written by the fast path
+(``complete=False``) has the trees only: ``logprobs`` all ``None`` and ``posteriors`` empty
+until completed (:func:`is_complete`).
 
 Cost: one parse is O(n^3 R) (see :mod:`parser.chart`); about 0.1-0.5 s for 30 words with a
 grammar trained on GUM, which is why suggestions are cached in the table.
@@ -36,7 +40,7 @@ from typing import Any
 from nltk import Tree
 from sqlalchemy import exists, select
 from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session, undefer
+from sqlalchemy.orm import Session, sessionmaker, undefer
 
 from app.models import (
     GV_READY,
@@ -109,6 +113,26 @@ def grammar_for(db: Session, version_id: int) -> Grammar:
     return grammar
 
 
+def warm_up(factory: sessionmaker[Session]) -> list[int]:
+    """Make the first parse of this process fast: load the chart's compiled loops (through a
+    two-word grammar) and the active grammars of the corpora (at most the cache's size).
+    Returns the ids of the grammar versions loaded. Called once when the server starts."""
+    tiny = Grammar.from_text("1.0 S -> A B\n1.0 A -> 'a'\n1.0 B -> 'b'")
+    parse(tiny, ["a", "b"], k=2, posteriors=True)
+    loaded: list[int] = []
+    with factory() as db:
+        ids = db.scalars(select(Corpus.active_grammar_id)
+                         .where(Corpus.active_grammar_id.is_not(None))
+                         .order_by(Corpus.id)).all()
+        for version_id in ids[:GRAMMAR_CACHE_SIZE]:
+            try:
+                grammar_for(db, version_id)
+            except (NotFound, Conflict):  # no saved grammar: nothing to warm
+                continue
+            loaded.append(version_id)
+    return loaded
+
+
 def forget_grammars() -> None:
     """Empty the per-process cache (tests; a grammar row that was replaced)."""
     with _grammar_lock:
@@ -125,17 +149,20 @@ def active_version(db: Session, corpus: Corpus) -> GrammarVersion | None:
 
 
 # --------------------------------------------------------------------------- suggestions
-def parse_suggestion(grammar: Grammar, word_list: list[str], k: int) -> dict[str, Any]:
-    """Parse once and return the Suggestion row's column values (see the module docstring)."""
-    return suggestion_values(parse(grammar, word_list, k=k, posteriors=True))
+def parse_suggestion(grammar: Grammar, word_list: list[str], k: int,
+                     complete: bool = True) -> dict[str, Any]:
+    """Parse once and return the Suggestion row's column values (see the module docstring);
+    without ``complete`` only the k best trees (no posteriors, no probabilities)."""
+    return suggestion_values(parse(grammar, word_list, k=k, posteriors=complete),
+                             complete=complete)
 
 
-def suggestion_values(result: ParseResult) -> dict[str, Any]:
-    """A Suggestion row's column values from a parse with posteriors."""
+def suggestion_values(result: ParseResult, complete: bool = True) -> dict[str, Any]:
+    """A Suggestion row's column values from a parse (with posteriors when ``complete``)."""
     inside = result.inside_logprob
     logprobs: list[float | None] = []
     for lp in result.logprobs:
-        if result.fallback or inside is None or not math.isfinite(lp):
+        if not complete or result.fallback or inside is None or not math.isfinite(lp):
             logprobs.append(None)
         else:
             logprobs.append(min(0.0, lp - inside))
@@ -149,34 +176,53 @@ def suggestion_values(result: ParseResult) -> dict[str, Any]:
     }
 
 
+def is_complete(row: Suggestion) -> bool:
+    """Whether a row has its posteriors and probabilities. A computed posterior list is never
+    empty (the root span's posterior is 1), so an empty one means "not computed yet"; a
+    fallback tree has none to compute."""
+    return bool(row.posteriors) or row.fallback
+
+
 def _sentence_words(sentence: Sentence) -> list[str]:
     from app.services.annotation import stored_words
 
     return stored_words(sentence)
 
 
-def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus,
-                   k: int) -> Suggestion | None:
+def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
+                   complete: bool = True) -> Suggestion | None:
     """The cached suggestion under the active grammar, parsed now if missing; None when the
-    corpus has no active grammar. Commits when it adds a row."""
+    corpus has no active grammar. Commits when it adds or completes a row.
+
+    ``complete=False`` is the fast path for drawing a page: a missing row is filled with the
+    k best trees only (span posteriors roughly quadruple the parse time); a later call with
+    ``complete=True`` adds posteriors and probabilities to the same row."""
     version = active_version(db, corpus)
     if version is None:
         return None
-    row = db.scalar(select(Suggestion).where(Suggestion.sentence_id == sentence.id,
-                                             Suggestion.grammar_version_id == version.id))
-    if row is not None and len(row.trees) >= min(k, 1):
+    row = _cached(db, sentence.id, version.id)
+    if row is not None and (is_complete(row) or not complete):
         return row
     grammar = grammar_for(db, version.id)
-    values = parse_suggestion(grammar, _sentence_words(sentence), k)
+    values = parse_suggestion(grammar, _sentence_words(sentence), k, complete=complete)
+    if row is not None:  # complete the fast row in place; the parse is deterministic
+        for key, value in values.items():
+            setattr(row, key, value)
+        db.commit()
+        return row
     row = Suggestion(sentence_id=sentence.id, grammar_version_id=version.id, **values)
     db.add(row)
     try:
         db.commit()
     except IntegrityError:  # another request cached it first: use theirs
         db.rollback()
-        row = db.scalar(select(Suggestion).where(
-            Suggestion.sentence_id == sentence.id, Suggestion.grammar_version_id == version.id))
+        row = _cached(db, sentence.id, version.id)
     return row
+
+
+def _cached(db: Session, sentence_id: int, version_id: int) -> Suggestion | None:
+    return db.scalar(select(Suggestion).where(Suggestion.sentence_id == sentence_id,
+                                              Suggestion.grammar_version_id == version_id))
 
 
 def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersion,

@@ -282,7 +282,7 @@ function spanWords(start, end) {
 }
 
 function posteriorOf(s) {
-  if (!S.data.suggestion) return null;
+  if (!S.data.suggestion || !S.data.suggestion.complete) return null;
   return S.posteriors.get(`${T.stripLabel(s.label)} ${s.start} ${s.end}`) ?? 0;
 }
 
@@ -409,8 +409,8 @@ function renderReadings() {
     let tree = null;
     try { tree = T.readTree(alt.tree); } catch { tree = null; }
     const diff = tree ? T.bracketDifference(tree, S.tree) : null;
-    const prob = alt.probability === null ? "no probability (fallback)"
-      : formatProbability(alt.probability);
+    const prob = alt.probability !== null ? formatProbability(alt.probability)
+      : sugg.complete ? "no probability (fallback)" : "probability coming…";
     btn.textContent = `${i + 1}. ${prob}` + (diff === null ? "" : diff === 0 ? " · same as yours"
       : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
     btn.title = alt.tree;
@@ -1062,9 +1062,7 @@ async function start() {
   S.editable = data.editable;
   S.labels = new Set(data.labels);
   S.tags = new Set(data.tags);
-  if (data.suggestion) {
-    for (const [label, a, b, p] of data.suggestion.posteriors) S.posteriors.set(`${label} ${a} ${b}`, p);
-  }
+  takePosteriors(data.suggestion);
   setTree(T.readTree(data.tree), {spans: data.pins.spans, tags: data.pins.tags});
   // labels already in a saved tree were accepted before
   if (S.head) unknownIn(S.tree).forEach((l) => S.confirmed.add(l));
@@ -1087,6 +1085,35 @@ async function start() {
   root.dataset.ready = "1";
   // the suggestion is on screen: let a benchmark or test know when
   performance.mark("bench-drawn");
+  if (data.suggestion && !data.suggestion.complete) completeSuggestion();
+}
+
+function takePosteriors(sugg) {
+  S.posteriors = new Map();
+  if (!sugg) return;
+  for (const [label, a, b, p] of sugg.posteriors) S.posteriors.set(`${label} ${a} ${b}`, p);
+}
+
+// The page was drawn from the fast parse; fetch the span posteriors and probabilities (the
+// slower part) and add the doubt marks when they arrive.
+async function completeSuggestion() {
+  $("doubt-state").textContent = "The grammar's doubts are being computed…";
+  let r;
+  try {
+    r = await api("GET", `/api/bench/${sentenceId}/suggestion`);
+  } catch {
+    r = {status: 0, body: null};
+  }
+  if (r.status !== 200 || !r.body) {
+    $("doubt-state").textContent = "The grammar's doubts could not be computed.";
+    return;
+  }
+  S.data.suggestion = r.body;
+  takePosteriors(r.body);
+  $("doubt-state").textContent = "";
+  root.dataset.doubts = "1";
+  render();
+  renderReadings();
 }
 
 start();

@@ -39,19 +39,25 @@ def test_suggestions_new_annotation_starts_from_best_and_is_cached(db, people, l
     s = sentences[0]
     first = me.client.get(f"/api/bench/{s.id}").json()
     assert first["source"] == "suggestion"
-    sugg = first["suggestion"]
-    assert sugg["grammar_version"] == 1 and sugg["fallback"] is False
-    alts = sugg["alternatives"]
-    assert len(alts) == settings.suggestion_k
-    assert first["tree"] == alts[0]["tree"]
-    probs = [a["probability"] for a in alts]
+    fast = first["suggestion"]
+    # the page is drawn from the fast parse: k best trees, posteriors still to come
+    assert fast["grammar_version"] == 1 and fast["fallback"] is False
+    assert fast["complete"] is False and fast["posteriors"] == []
+    assert len(fast["alternatives"]) == settings.suggestion_k
+    assert first["tree"] == fast["alternatives"][0]["tree"]
+    assert all(a["probability"] is None for a in fast["alternatives"])
+    assert _count(db) == 1
+    full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
+    assert full["complete"] is True and full["posteriors"]
+    assert [a["tree"] for a in full["alternatives"]] == [a["tree"] for a in fast["alternatives"]]
+    probs = [a["probability"] for a in full["alternatives"]]
     assert all(0 < p <= 1 for p in probs)
     assert probs == sorted(probs, reverse=True)
     assert sum(probs) <= 1 + 1e-6  # distinct trees of one sentence
-    assert len({a["tree"] for a in alts}) == len(alts)
-    assert _count(db) == 1
+    assert len({a["tree"] for a in full["alternatives"]}) == len(probs)
+    assert _count(db) == 1  # completed in place
     again = me.client.get(f"/api/bench/{s.id}").json()
-    assert again["suggestion"] == sugg and _count(db) == 1
+    assert again["suggestion"] == full and _count(db) == 1
 
 
 def test_suggestions_posteriors_cover_the_root_and_the_best_tree(db, people, login) -> None:
@@ -59,7 +65,8 @@ def test_suggestions_posteriors_cover_the_root_and_the_best_tree(db, people, log
     me = login("ann1")
     s = sentences[1]
     body = me.client.get(f"/api/bench/{s.id}").json()
-    post = {(lab, a, b): p for lab, a, b, p in body["suggestion"]["posteriors"]}
+    full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
+    post = {(lab, a, b): p for lab, a, b, p in full["posteriors"]}
     n = len(s.tokens)
     assert math.isclose(post[("ROOT", 0, n)], 1.0, abs_tol=1e-3)
     assert all(0 < p <= 1 + 1e-6 for p in post.values())
@@ -67,6 +74,14 @@ def test_suggestions_posteriors_cover_the_root_and_the_best_tree(db, people, log
     best = read_tree(body["tree"])
     for lab, a, b in constituents(best):
         assert (lab, a, b) in post
+
+
+def test_suggestions_without_grammar_is_null(db, people, login) -> None:
+    _, sentences = make_corpus(db, name="No grammar")
+    assign(db, sentences, people.ann1)
+    me = login("ann1")
+    resp = me.client.get(f"/api/bench/{sentences[0].id}/suggestion")
+    assert resp.status_code == 200 and resp.json() is None
 
 
 def test_suggestions_returning_annotator_gets_their_revision_not_the_suggestion(
@@ -93,7 +108,7 @@ def test_suggestions_refresh_unstarted_skips_started_sentences(db, people, login
     assert done == len(sentences) - 1
     rows = db.scalars(select(Suggestion).where(Suggestion.grammar_version_id == newer.id)).all()
     assert {r.sentence_id for r in rows} == {s.id for s in sentences[1:]}
-    assert all(len(r.trees) == 3 for r in rows)
+    assert all(len(r.trees) == 3 and suggestions.is_complete(r) for r in rows)
     assert suggestions.refresh_unstarted(db, corpus, newer, k=3, processes=1) == 0
     # the Bench now uses the cached row of the new version without parsing again
     before = _count(db)

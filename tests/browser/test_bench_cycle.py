@@ -11,8 +11,10 @@ from sqlalchemy import select
 
 from app.models import Annotation, Revision, User
 from app.services.corpora import PTB_LABELS, PTB_TAGS
-from parser.trees import constituents, read_tree, words, write_tree
+from parser.trees import constituents, read_tree, strip_label, words, write_tree
 from tests.app.bench_helpers import assign, gum_grammar_bytes, install_grammar, make_corpus
+from tests.app.conftest import PASSWORD
+from tests.app.live_server import Client
 from tests.browser.conftest import login_as
 
 SENTENCE = "The port engine was stopped for an oil change ."
@@ -43,7 +45,8 @@ def ferry(live_server) -> dict[str, Any]:
 
 def _open(page, live_server, ferry) -> None:
     login_as(page, live_server.base_url, "ann1", next_path=f"/bench/{ferry['sentence_id']}")
-    page.wait_for_selector("#bench[data-ready='1']")
+    # generous: the first parse on a busy machine (the benchmark measures the speed)
+    page.wait_for_selector("#bench[data-ready='1']", timeout=60_000)
 
 
 def shown_tree(page) -> str:
@@ -96,6 +99,30 @@ def stored(live_server, user_id: int, sentence_id: int) -> tuple[Annotation, lis
         return ann, list(revs)
 
 
+def check_doubt_marks(page, live_server, ferry) -> None:
+    """Each drawn constituent carries the mark its span posterior calls for (legend: one dot
+    under 50%, two dots under 20%; the root is never marked)."""
+    page.wait_for_selector("#bench[data-doubts='1']", timeout=60_000)
+    other = Client(live_server.base_url, "ann1", PASSWORD)
+    full = other.http.get(f"/api/bench/{ferry['sentence_id']}/suggestion").json()
+    other.close()
+    post = {(lab, a, b): p for lab, a, b, p in full["posteriors"]}
+    drawn = page.eval_on_selector_all(
+        "#tree-pane g.tw-phrase",
+        "els => els.map(e => [Number(e.dataset.index), e.getAttribute('class'),"
+        " e.querySelectorAll('circle.tw-dot').length])")
+    spans = constituents(read_tree(shown_tree(page)))
+    seen = set()
+    for index, classes, dots in drawn:
+        label, a, b = spans[index]
+        p = post.get((strip_label(label), a, b), 0.0)
+        want = (0 if index == 0 or p >= 0.5 else 1 if p >= 0.2 else 2)
+        assert dots == want, (label, a, b, p, classes)
+        assert ("tw-weak" in classes) == (want == 2) and ("tw-unsure" in classes) == (want == 1)
+        seen.add(want)
+    assert 2 in seen  # the added NML over "oil change" is one the grammar doubts
+
+
 def _check_stored(page, live_server, ferry, expected: str) -> None:
     ann, revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])
     assert ann.state == "submitted"
@@ -123,6 +150,8 @@ def test_bench_mouse_cycle(browser_page, live_server, ferry, output_dir) -> None
     page.click("[data-cmd='add']")
     answer_prompt(page, "NML")
     wait_tree(page, AFTER_ADD)
+
+    check_doubt_marks(page, live_server, ferry)
 
     # relabel one
     click_phrase(page, AFTER_ADD, "NP", 0, 3)

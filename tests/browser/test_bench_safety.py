@@ -41,7 +41,7 @@ def seed(live_server, texts: list[str], *, grammar: bool = False, **corpus: Any)
 
 def open_bench(page, live_server, sentence_id: int) -> None:
     login_as(page, live_server.base_url, "ann1", next_path=f"/bench/{sentence_id}")
-    page.wait_for_selector("#bench[data-ready='1']")
+    page.wait_for_selector("#bench[data-ready='1']", timeout=60_000)
 
 
 def revisions(live_server, user_id: int, sentence_id: int) -> list[Revision]:
