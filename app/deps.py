@@ -14,6 +14,7 @@ from typing import Annotated
 from fastapi import Depends, HTTPException, Request
 from sqlalchemy.orm import Session
 
+from app.api_errors import AUTH_DEPENDENCY_MARK
 from app.models import ROLE_ADJUDICATOR, ROLE_ADMIN, ROLES, Corpus, Sentence, User, UserSession
 from app.security import CSRF_FIELD, CSRF_HEADER, SESSION_COOKIE, csrf_ok, find_session
 from app.settings import Settings
@@ -96,6 +97,7 @@ def api_login(minimum_role: str | None = None):  # type: ignore[no-untyped-def]
             raise HTTPException(status_code=403, detail=f"requires the {minimum_role} role")
         return login
 
+    setattr(dep, AUTH_DEPENDENCY_MARK, True)  # the OpenAPI document lists its 401 and 403
     return dep
 
 

@@ -19,6 +19,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 import app.routes
+from app.api_errors import SharedErrorDocs, number_out_of_range
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
 from app.services.errors import ServiceError
@@ -105,11 +106,14 @@ async def _too_large(send: Send, limit: int) -> None:
 
 
 def _include_routers(application: FastAPI) -> None:
+    docs = SharedErrorDocs()
     for info in sorted(pkgutil.iter_modules(app.routes.__path__), key=lambda m: m.name):
         module = importlib.import_module(f"app.routes.{info.name}")
         router = getattr(module, "router", None)
         if router is not None:
+            docs.collect(router)
             application.include_router(router)
+    docs.install(application)
 
 
 def create_app(settings: Settings | None = None, *, migrate: bool = True) -> FastAPI:
@@ -147,6 +151,8 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
                                         "user": None, "csrf_token": ""},
                 status_code=exc.status_code)
         return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code)
+
+    application.add_exception_handler(OverflowError, number_out_of_range)  # type: ignore[arg-type]
 
     @application.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:

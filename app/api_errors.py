@@ -1,0 +1,123 @@
+"""Error answers shared by every JSON API route: their OpenAPI documentation, and the answer
+for a number too large for the database.
+
+Each route module documents the errors its own service raises. The ones that come from the
+common layers are added to the OpenAPI document here, so no route forgets them:
+
+* 401 and 403 on routes behind ``ApiUser``/``ApiAdjudicator``/``ApiAdmin`` (no login, role
+  below, missing CSRF token);
+* 400 (a body that cannot be decoded) and 413 (larger than the configured limit) on routes
+  that take a body;
+* 404 on routes with a ``*_id`` parameter (the services answer NotFound for unknown ids);
+* 422 (a parameter or body that does not fit) on every route with parameters or a body.
+
+A status the route module documents itself keeps its own description and model.
+Cost: one walk over the routes' dependency trees at start-up, one pass over the document when
+it is first built.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+from fastapi import APIRouter, FastAPI, Request
+from fastapi.dependencies.models import Dependant
+from fastapi.responses import JSONResponse
+from fastapi.routing import APIRoute
+
+from app.schemas.common import ErrorPublic
+
+AUTH_DEPENDENCY_MARK = "treewright_auth"
+SHARED_ERROR_SCHEMA = "SharedErrorPublic"
+#: The largest integer both SQLite and PostgreSQL (bigint) store.
+MAX_DB_INT = 2**63 - 1
+
+_DOCS: dict[int, str] = {
+    400: "the body could not be decoded",
+    401: "login required",
+    403: "role too low, or the CSRF token is missing or wrong",
+    404: "no such object (or not yours to see)",
+    413: "the body is larger than the configured limit",
+    422: "a parameter or the body does not fit",
+}
+
+
+def _walk(dependant: Dependant) -> list[Dependant]:
+    out = [dependant]
+    for sub in dependant.dependencies:
+        out.extend(_walk(sub))
+    return out
+
+
+def shared_errors(route: APIRoute) -> set[int]:
+    """The status codes the shared layers can answer for ``route``."""
+    nodes = _walk(route.dependant)
+    codes: set[int] = set()
+    if any(getattr(n.call, AUTH_DEPENDENCY_MARK, False) for n in nodes):
+        codes |= {401, 403}
+    if route.body_field is not None:
+        codes |= {400, 413, 422}
+    params = [p for n in nodes for p in (*n.path_params, *n.query_params)]
+    if params:
+        codes.add(422)
+    if any(p.name.endswith("_id") for p in params):
+        codes.add(404)
+    return codes
+
+
+class SharedErrorDocs:
+    """Collects the shared codes of each router's API routes, then patches the document."""
+
+    def __init__(self) -> None:
+        self.codes: dict[tuple[str, str], set[int]] = {}
+
+    def collect(self, router: APIRouter) -> None:
+        for route in router.routes:
+            if isinstance(route, APIRoute) and route.path.startswith("/api/"):
+                for method in route.methods:
+                    self.codes[(method.lower(), route.path)] = shared_errors(route)
+
+    def install(self, application: FastAPI) -> None:
+        build: Callable[[], dict[str, Any]] = application.openapi
+
+        def openapi() -> dict[str, Any]:
+            schema = build()
+            components = schema.setdefault("components", {}).setdefault("schemas", {})
+            components.setdefault(SHARED_ERROR_SCHEMA, ErrorPublic.model_json_schema())
+            ref = {"$ref": f"#/components/schemas/{SHARED_ERROR_SCHEMA}"}
+            for (method, path), codes in self.codes.items():
+                operation = schema.get("paths", {}).get(path, {}).get(method)
+                if operation is None:
+                    continue
+                responses = operation.setdefault("responses", {})
+                for code in sorted(codes):
+                    responses.setdefault(str(code), {
+                        "description": _DOCS[code],
+                        "content": {"application/json": {"schema": ref}}})
+            return schema
+
+        application.openapi = openapi  # type: ignore[method-assign]
+
+
+def _too_big(where: str, values: Any) -> list[dict[str, Any]]:
+    out = []
+    for name, value in values.items():
+        try:
+            number = int(value)
+        except (TypeError, ValueError):
+            continue
+        if abs(number) > MAX_DB_INT:
+            out.append({"loc": [where, name], "msg": f"{number} is out of range: at most "
+                        f"{MAX_DB_INT} in size", "type": "out_of_range"})
+    return out
+
+
+async def number_out_of_range(request: Request, exc: OverflowError) -> JSONResponse:
+    """A number the database cannot hold (SQLite stops at 2**63 - 1): 422 in the shape of a
+    validation error, naming the URL parameter when it is one (else the body)."""
+    errors = _too_big("path", request.path_params) + _too_big("query", request.query_params)
+    if not errors:
+        errors = [{"loc": ["body"], "msg": f"a number is out of range: at most {MAX_DB_INT} "
+                   "in size", "type": "out_of_range"}]
+    return JSONResponse({"detail": errors}, status_code=422)

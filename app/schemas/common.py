@@ -1,0 +1,28 @@
+"""Shapes shared by every JSON API module: UTC timestamps and the generic error body.
+
+The database keeps naive UTC datetimes (``app.models.utcnow``). Sent as they are, they would
+carry no offset, which is not an RFC 3339 ``date-time`` and which a browser reads as *local*
+time. :data:`UtcDateTime` marks a naive value as UTC, so the JSON says ``...+00:00``.
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from typing import Annotated, Any
+
+from pydantic import AfterValidator, BaseModel
+
+
+def _as_utc(value: datetime) -> datetime:
+    return value.replace(tzinfo=UTC) if value.tzinfo is None else value.astimezone(UTC)
+
+
+#: A timestamp sent with its UTC offset; use it for every datetime in a response model.
+UtcDateTime = Annotated[datetime, AfterValidator(_as_utc)]
+
+
+class ErrorPublic(BaseModel):
+    """Any refused request: ``detail`` says what and where (a list of field errors for a body
+    or parameter that does not fit the schema); some answers add fields of their own."""
+
+    detail: Any
