@@ -3,7 +3,6 @@ assign. Reading needs a login; changes need an admin; exports need an adjudicato
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Any
 
 from fastapi import APIRouter, File, Form, Query, UploadFile
@@ -11,6 +10,7 @@ from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiAdmin, ApiUser, SessionDep
 from app.models import Corpus
+from app.schemas.common import UtcDateTime
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences
 from app.services.exports import SplitSpec, export_gold, record_export
@@ -35,7 +35,7 @@ class CorpusSummaryPublic(BaseModel):
     sentences: int
     states: dict[str, int]
     gold: int
-    created_at: datetime
+    created_at: UtcDateTime
 
 
 class DocumentPublic(BaseModel):

@@ -8,13 +8,13 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
-from datetime import datetime
 
 from fastapi import APIRouter, FastAPI, Request
 from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiUser, SessionDep
 from app.models import GV_QUEUED, Corpus, GrammarVersion
+from app.schemas.common import UtcDateTime
 from app.services import training
 from app.services.errors import NotFound
 
@@ -43,8 +43,8 @@ class GrammarVersionPublic(BaseModel):
     heldout_f1: float | None
     train_seconds: float | None
     gold_count_at_start: int
-    created_at: datetime
-    finished_at: datetime | None
+    created_at: UtcDateTime
+    finished_at: UtcDateTime | None
 
 
 class TrainCreate(BaseModel):

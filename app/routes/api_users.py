@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Literal
 
 from fastapi import APIRouter
@@ -11,6 +10,7 @@ from pydantic import BaseModel, Field
 from app.deps import ApiAdmin, SessionDep
 from app.models import User
 from app.routes.api_corpora import ERRORS
+from app.schemas.common import UtcDateTime
 from app.services import users as svc
 
 router = APIRouter(tags=["users"])
@@ -24,7 +24,7 @@ class UserPublic(BaseModel):
     display_name: str
     role: str
     active: bool
-    created_at: datetime
+    created_at: UtcDateTime
 
 
 class UserCreate(BaseModel):

@@ -23,6 +23,7 @@ writes; the Queue is one joined query over the user's assignments.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from datetime import UTC
 from typing import Any
 
 from nltk import Tree
@@ -207,7 +208,8 @@ def revision_view(revision: Revision | None) -> dict[str, Any] | None:
     if revision is None:
         return None
     return {"number": revision.number, "tree": revision.tree, "pins": revision.pins or {},
-            "source": revision.source, "created_at": revision.created_at.isoformat()}
+            "source": revision.source,
+            "created_at": revision.created_at.replace(tzinfo=UTC).isoformat()}
 
 
 def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict:

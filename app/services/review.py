@@ -31,7 +31,6 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field
-from datetime import datetime
 
 from nltk import Tree
 from sqlalchemy import func, select, update
@@ -51,6 +50,7 @@ from app.models import (
     User,
     utcnow,
 )
+from app.schemas.common import UtcDateTime
 from app.services.agreement import current_revision
 from app.services.errors import BadInput, Conflict, NotFound
 from parser.trees import constituents, is_preterminal, read_tree, words, write_tree
@@ -107,7 +107,7 @@ class WaitingRow:
     text: str
     annotators: list[str]
     lowest_f1: float | None
-    since: datetime | None
+    since: UtcDateTime | None
 
 
 @dataclass(frozen=True)
@@ -121,7 +121,7 @@ class SettledRow:
     provenance: str
     adjudicator: str | None
     note: str
-    at: datetime
+    at: UtcDateTime
     current: bool
 
 
@@ -189,7 +189,7 @@ class ReviewTree:
     annotator: str
     revision: int
     tree: str
-    submitted_at: datetime | None
+    submitted_at: UtcDateTime | None
 
 
 @dataclass(frozen=True)
@@ -215,8 +215,8 @@ class GoldEntry:
     source_annotation_id: int | None
     source_letter: str | None
     note: str
-    created_at: datetime
-    retired_at: datetime | None
+    created_at: UtcDateTime
+    retired_at: UtcDateTime | None
     retired_by: str | None
 
 
