@@ -70,6 +70,7 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("POST", "/logout"): Spec(USER, 303, form={}),
     # --- Bench and Queue (own annotations of assigned sentences only)
     ("GET", "/api/bench/{sentence_id}"): Spec(ASSIGNED, 200),
+    ("GET", "/api/bench/{sentence_id}/suggestion"): Spec(ASSIGNED, 200),  # null: no grammar
     ("POST", "/api/bench/{sentence_id}/revisions"): Spec(
         ASSIGNED, 201, json={"base": 0, "tree": "@bench_tree"}),
     ("POST", "/api/bench/{sentence_id}/submit"): Spec(ASSIGNED, 409, json={"base": 99}),
