@@ -340,6 +340,7 @@ function render() {
   if (S.sel) S.view.reveal(S.sel);
   renderSide();
   renderText();
+  renderReadings();
 }
 
 function renderSide() {
@@ -816,7 +817,6 @@ const cmd = {
       say("Handed in. Press n for the next sentence.");
       $("queue-submitted").textContent = String(S.data.queue.submitted + 1);
       render();
-      renderReadings();
     } else if (r.status === 409) {
       showConflict(r.body);
     } else {
@@ -1073,7 +1073,6 @@ async function start() {
   wire();
   render();
   fitHeight();
-  renderReadings();
   if (!S.editable) {
     setStatus("readonly", data.annotation.state === "submitted" ? "handed in" : data.sentence.state.replace("_", " "));
   } else {
@@ -1113,7 +1112,6 @@ async function completeSuggestion() {
   $("doubt-state").textContent = "";
   root.dataset.doubts = "1";
   render();
-  renderReadings();
 }
 
 start();

@@ -11,7 +11,7 @@ from sqlalchemy import select
 
 from app.models import Annotation, Revision, User
 from app.services.corpora import PTB_LABELS, PTB_TAGS
-from parser.trees import constituents, read_tree, strip_label, words, write_tree
+from parser.trees import constituents, pos_tags, read_tree, strip_label, words, write_tree
 from tests.app.bench_helpers import assign, gum_grammar_bytes, install_grammar, make_corpus
 from tests.app.conftest import PASSWORD
 from tests.app.live_server import Client
@@ -99,6 +99,20 @@ def stored(live_server, user_id: int, sentence_id: int) -> tuple[Annotation, lis
         return ann, list(revs)
 
 
+def check_reading_differences(page, current: str) -> None:
+    """Each reading tells how many brackets and tags differ from the tree on screen."""
+    data = page.evaluate("() => JSON.parse(document.getElementById('bench-data').textContent)")
+    texts = page.eval_on_selector_all("#readings button.reading",
+                                      "els => els.map(e => e.textContent)")
+    mine = read_tree(current)
+    for alt, text in zip(data["suggestion"]["alternatives"], texts, strict=True):
+        theirs = read_tree(alt["tree"])
+        d = len(set(constituents(theirs)) ^ set(constituents(mine))) + sum(
+            x != y for x, y in zip(pos_tags(theirs), pos_tags(mine), strict=True))
+        want = "same as yours" if d == 0 else f"{d} difference"
+        assert want in text, (text, d)
+
+
 def check_doubt_marks(page, live_server, ferry) -> None:
     """Each drawn constituent carries the mark its span posterior calls for (legend: one dot
     under 50%, two dots under 20%; the root is never marked)."""
@@ -136,7 +150,9 @@ def test_bench_mouse_cycle(browser_page, live_server, ferry, output_dir) -> None
     _open(page, live_server, ferry)
     assert page.get_attribute("#save-state", "data-state") == "fresh"
     assert page.locator("#readings button.reading").count() == 5
-    page.screenshot(path=str(output_dir / "bench.png"), full_page=True)
+    page.wait_for_selector("#bench[data-doubts='1']", timeout=60_000)
+    page.click(f"#tree-pane g.tw-phrase[data-index='{1}']")  # something chosen, for the picture
+    page.screenshot(path=str(output_dir / "bench-start.png"), full_page=True)
 
     # a known start: the bracketed-text panel, applied by mouse
     page.fill("#tree-text", START)
@@ -163,13 +179,14 @@ def test_bench_mouse_cycle(browser_page, live_server, ferry, output_dir) -> None
     click_phrase(page, AFTER_RELABEL, "VP", 4, 9)
     page.click("[data-cmd='dissolve']")
     wait_tree(page, AFTER_DISSOLVE)
+    check_reading_differences(page, AFTER_DISSOLVE)
 
     # pin one and re-parse: the pinned span survives
     click_phrase(page, AFTER_DISSOLVE, *PINNED)
     page.click("[data-cmd='pin']")
     page.wait_for_selector("#tree-pane g.tw-phrase.tw-pinned")
     wait_saved(page)
-    page.screenshot(path=str(output_dir / "bench-pinned.png"), full_page=True)
+    page.screenshot(path=str(output_dir / "bench.png"), full_page=True)  # pins and doubts
     page.click("[data-cmd='regrow']")
     page.wait_for_function(
         "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t",
