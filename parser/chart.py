@@ -2,7 +2,8 @@
 under constraints, with a well-formed fallback when no tree fits.
 
 What it computes (model: :mod:`parser.grammar`; compiled loops: :mod:`parser.kernels`)
-    * the Viterbi best derivation (exact; no pruning) by CKY in log space;
+    * the Viterbi best derivation by CKY in log space (exact: the only rules skipped are those
+      a bound proves cannot win);
     * the k best derivations by lazy k-best extraction (Huang and Chiang 2005, algorithm 3) on
       the Viterbi chart, un-binarized, keeping the first (best) derivation of each distinct tree;
     * the sentence's inside log-probability and, by inside-outside (Lari and Young 1990), the
@@ -290,15 +291,18 @@ def inside_logprob(g: Grammar, words: Sequence[str],
 class _Chart:
     def __init__(self, g: Grammar, tab: _Tables, p: _Problem) -> None:
         self.g, self.tab, self.p = g, tab, p
-        (self.vt, self.vb, self.bp_rule, self.bp_split, self.bp_edge, self.act,
-         self.nact) = kernels.viterbi(
-            p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab, p.lex,
-            tab.lo_off, tab.lo_right, tab.lo_parent, tab.lo_logp,
+        (self.vt, self.vb, self.bp_rule, self.bp_edge, self.VL,
+         self.VR) = kernels.viterbi(
+            p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
+            np.maximum(p.lex, kernels.NEG),
+            tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_logp,
             tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab)
+        for arr in (self.vt, self.vb):
+            arr[arr <= kernels.LOW] = -np.inf
         self.full = int(p.sid[0, p.n])
         self.best = float(self.vt[self.full, g.start])
         self.ok = self.best > -math.inf
-        self._inside: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        self._inside: tuple[np.ndarray, ...] | None = None
 
     # ------------------------------------------------------------- Viterbi tree
     def viterbi_tree(self, words: Sequence[str]) -> Tree:
@@ -315,31 +319,33 @@ class _Chart:
             return [words[i]]
         s = self.p.sid[i, k]
         r = int(self.bp_rule[s, b])
-        j = int(self.bp_split[s, b])
-        return [self._vit_top(i, j, int(self.tab.lo_left[r]), words),
-                self._vit_top(j, k, int(self.tab.lo_right[r]), words)]
+        left = int(self.tab.lo_left[r])
+        right = int(self.tab.lo_right[r])
+        # The split point is the first one reaching the rule's best score (as in the kernel).
+        j = i + 1 + int(np.argmax(self.VL[i, left, i + 1:k] + self.VR[k, right, i + 1:k]))
+        return [self._vit_top(i, j, left, words), self._vit_top(j, k, right, words)]
 
     # ------------------------------------------------------------- inside / outside
-    def _inside_chart(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _inside_chart(self) -> tuple[np.ndarray, ...]:
         if self._inside is None:
             p, tab = self.p, self.tab
             self._inside = kernels.inside(
-                p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab, p.lex,
-                self.act, self.nact, tab.lo_off, tab.lo_right, tab.lo_parent, tab.lo_w,
+                p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
+                np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG), tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
                 tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab)
         return self._inside
 
     def inside(self) -> float:
-        it, _, sigma = self._inside_chart()
+        it, _, sigma, _, _ = self._inside_chart()
         return float(np.log(it[self.full, self.g.start]) + sigma[self.full])
 
     def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
-        it, ib, sigma = self._inside_chart()
+        it, ib, sigma, il, ir = self._inside_chart()
         p, tab = self.p, self.tab
         post = kernels.outside(
             p.n, self.g.n_symbols, self.g.start, p.sid, p.dead, p.code, p.req_off, p.req_lab,
-            self.act, self.nact, it, ib, sigma, tab.po_off, tab.po_left, tab.po_right,
-            tab.po_w, tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
+            it, ib, sigma, il, ir, tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
+            tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
             tab.lab_ids, len(tab.labels))
         spans, labs = np.nonzero(post > threshold)
         ii, kk = np.nonzero(p.sid >= 0)

@@ -120,8 +120,7 @@ def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, jobs:
         g = Grammar.load(grammar_path)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc
-    stdin = click.get_text_stream("stdin")
-    lines = stdin.read().splitlines()
+    lines = sys.stdin.read().splitlines()
     sentences: list[list[str]] = []
     constraints: list[Constraints | None] = []
     where: list[int] = []

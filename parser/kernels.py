@@ -1,31 +1,42 @@
 """Compiled CKY inner loops (numba): Viterbi, scaled inside, scaled outside with span posteriors.
 
 What it computes, for a sentence of n words and a grammar of N symbols (model in
-:mod:`parser.grammar`): charts indexed by span id ``s = sid[i, k]`` (0-based, end-exclusive)
-and symbol, each span holding a *bottom* layer (binary rules or the lexicon) and a *top* layer
-(one unary edge, the identity included, over the bottom layer).
+:mod:`parser.grammar`): per span ``s = sid[i, k]`` (0-based, end-exclusive) a *bottom* layer
+(binary rules or the lexicon) and a *top* layer (one unary edge, the identity included, over
+the bottom layer).
 
-* :func:`viterbi`: max-product log scores with back-pointers, plus the list of symbols whose top
-  score is finite per span (``act``/``nact``), which the other passes reuse to skip dead symbols.
+Layout: besides the span-major arrays ``[s, symbol]``, each pass keeps the top layer twice,
+by start (``XL[a, i, j]`` = span (i, j)) and by end (``XR[a, k, j]`` = span (j, k)), so that for a
+span (i, k) and a binary rule A -> B C the scores of all split points are two contiguous vectors
+``XL[B, i, i+1:k]`` and ``XR[C, k, i+1:k]``: the loop over split points is a short, branch-free,
+vectorizable reduction.
+
+* :func:`viterbi`: max-product log scores and, per bottom cell, the best rule (its split point
+  is recovered from the chart). A rule is skipped when the best left score plus the best right
+  score plus its weight cannot beat the cell's current best: an exact bound, the result is the
+  same as the full loop.
 * :func:`inside`: sum-product scores kept as ``value * exp(sigma[s])`` with each span's vector
-  scaled to a maximum of 1, so no underflow whatever the sentence length.
+  scaled to a maximum of 1, so nothing underflows whatever the sentence length.
 * :func:`outside`: outside scores scaled so that ``outside_top * inside_top`` is directly the
-  posterior of a top node; accumulates posteriors of labelled spans via the unary edges.
+  posterior of a top node; accumulates the posteriors of labelled spans via the unary edges.
 
 Constraints enter as per-span data: ``dead[s]`` (span crosses a required span: no node at all)
 and ``code[s]``: -1 free, -2 forbidden (no node of the user's label set), otherwise required
 with the label ids ``req_lab[req_off[s]:req_off[s + 1]]`` (none listed: any node).
 
-Complexity: O(n^3 * R) time in the worst case for each pass (R binary rules), skipping left
-children whose score is zero; O(n^2 * N) memory. Limits: float64; spans are processed serially.
+Complexity: O(n^3 R) time per pass (R binary rules), O(n^2 N) memory. Limits: float64.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 NEG_INF = -np.inf
+#: "Impossible" in the Viterbi kernel (finite, so fast-math stays valid); LOW: any score at
+#: or below it is impossible (a sum of a few NEG values and real log-probabilities).
+NEG = -1e100
+LOW = -1e99
 
 
 @njit(cache=True, inline="always")
@@ -44,27 +55,26 @@ def _allowed(e: int, kind: int, s: int, code: np.ndarray, req_off: np.ndarray,
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True, fastmath=True)
 def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
-            lo_off, lo_right, lo_parent, lo_logp,
+            r_parent, r_left, r_right, r_logp,
             up, uc, ulogp, nonempty, haslab):
-    """Max-product chart. Returns vt, vb, bp_rule, bp_split, bp_edge, act, nact.
-
-    vt, vb: float64[S, N] top/bottom log scores; bp_rule/bp_split: int32[S, N] best binary rule
-    (index in the left-sorted rule arrays) and split of each bottom; bp_edge: int32[S, N] best
-    unary edge of each top; act: int32[S, N], nact: int32[S] finite tops per span.
-    """
+    """Max-product chart over finite scores: "impossible" is :data:`NEG` (so the loops may be
+    compiled with fast-math), ``lex`` must use NEG too. Returns vt, vb (float64[S, N] top/bottom
+    log scores), bp_rule (int32[S, N]: best binary rule of each bottom), bp_edge (int32[S, N]:
+    best unary edge of each top), and the by-start / by-end views VL, VR
+    (float64[n + 1, N, n + 1]). Spans of one length are filled in parallel."""
     n_span = n * (n + 1) // 2
-    vt = np.full((n_span, n_sym), NEG_INF)
-    vb = np.full((n_span, n_sym), NEG_INF)
+    vt = np.full((n_span, n_sym), NEG)
+    vb = np.full((n_span, n_sym), NEG)
     bp_rule = np.full((n_span, n_sym), -1, np.int32)
-    bp_split = np.full((n_span, n_sym), -1, np.int32)
     bp_edge = np.full((n_span, n_sym), -1, np.int32)
-    act = np.empty((n_span, n_sym), np.int32)
-    nact = np.zeros(n_span, np.int32)
+    VL = np.full((n + 1, n_sym, n + 1), NEG)
+    VR = np.full((n + 1, n_sym, n + 1), NEG)
     n_edge = up.shape[0]
+    n_rule = r_parent.shape[0]
     for length in range(1, n + 1):
-        for i in range(n - length + 1):
+        for i in prange(n - length + 1):
             k = i + length
             s = sid[i, k]
             if dead[s]:
@@ -74,34 +84,38 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
                 for a in range(n_sym):
                     bot[a] = lex[i, a]
             else:
+                maxl = np.empty(n_sym)
+                maxr = np.empty(n_sym)
+                for a in range(n_sym):
+                    m = NEG
+                    for j in range(i + 1, k):
+                        m = max(m, VL[i, a, j])
+                    maxl[a] = m
+                    m = NEG
+                    for j in range(i + 1, k):
+                        m = max(m, VR[k, a, j])
+                    maxr[a] = m
                 brule = bp_rule[s]
-                bsplit = bp_split[s]
-                for j in range(i + 1, k):
-                    sl = sid[i, j]
-                    sr = sid[j, k]
-                    if nact[sl] == 0 or nact[sr] == 0:
+                for r in range(n_rule):
+                    b = r_left[r]
+                    c = r_right[r]
+                    a = r_parent[r]
+                    w = r_logp[r]
+                    if maxl[b] + maxr[c] + w <= bot[a]:
                         continue
-                    left = vt[sl]
-                    right = vt[sr]
-                    for q in range(nact[sl]):
-                        b = act[sl, q]
-                        lb = left[b]
-                        for r in range(lo_off[b], lo_off[b + 1]):
-                            rv = right[lo_right[r]]
-                            if rv == NEG_INF:
-                                continue
-                            sc = lb + rv + lo_logp[r]
-                            p = lo_parent[r]
-                            if sc > bot[p]:
-                                bot[p] = sc
-                                brule[p] = r
-                                bsplit[p] = j
+                    m = NEG
+                    for j in range(i + 1, k):
+                        m = max(m, VL[i, b, j] + VR[k, c, j])
+                    sc = m + w
+                    if sc > bot[a]:
+                        bot[a] = sc
+                        brule[a] = r
             kind = 0 if length == 1 else 1
             top = vt[s]
             bedge = bp_edge[s]
             for e in range(n_edge):
                 bv = bot[uc[e]]
-                if bv == NEG_INF:
+                if bv <= LOW:
                     continue
                 if not _allowed(e, kind, s, code, req_off, req_lab, nonempty, haslab):
                     continue
@@ -110,71 +124,85 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
                 if sc > top[a]:
                     top[a] = sc
                     bedge[a] = e
-            m = 0
             for a in range(n_sym):
-                if top[a] > NEG_INF:
-                    act[s, m] = a
-                    m += 1
-            nact[s] = m
-    return vt, vb, bp_rule, bp_split, bp_edge, act, nact
+                VL[i, a, k] = top[a]
+                VR[k, a, i] = top[a]
+    return vt, vb, bp_rule, bp_edge, VL, VR
 
 
-@njit(cache=True)
-def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, act, nact,
-           lo_off, lo_right, lo_parent, lo_w, up, uc, uw, nonempty, haslab):
-    """Scaled inside chart. Returns it, ib (float64[S, N]) and sigma (float64[S]).
+@njit(cache=True, parallel=True, fastmath=True)
+def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
+           r_parent, r_left, r_right, r_w, up, uc, uw, nonempty, haslab):
+    """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
+    IL, IR (float64[N, n + 1, n + 1]) of ``it``.
 
     True inside score = it[s, a] * exp(sigma[s]) (likewise ib); max over a of it and ib is 1.
+    Spans with no finite Viterbi top score (``vt``) are skipped: they hold no tree.
     """
     n_span = n * (n + 1) // 2
     it = np.zeros((n_span, n_sym))
     ib = np.zeros((n_span, n_sym))
     sigma = np.zeros(n_span)
+    IL = np.zeros((n + 1, n_sym, n + 1))
+    IR = np.zeros((n + 1, n_sym, n + 1))
+    live = np.zeros(n_span, np.bool_)
     n_edge = up.shape[0]
+    n_rule = r_parent.shape[0]
     for length in range(1, n + 1):
-        for i in range(n - length + 1):
+        for i in prange(n - length + 1):
             k = i + length
             s = sid[i, k]
-            if dead[s] or nact[s] == 0:
+            if dead[s]:
                 continue
+            any_top = False
+            for a in range(n_sym):
+                if vt[s, a] > LOW:
+                    any_top = True
+                    break
+            if not any_top:
+                continue
+            live[s] = True
             bot = ib[s]
             if length == 1:
-                m = NEG_INF
+                m = NEG
                 for a in range(n_sym):
-                    if lex[i, a] > m:
-                        m = lex[i, a]
+                    m = max(m, lex[i, a])
                 for a in range(n_sym):
-                    if lex[i, a] > NEG_INF:
+                    if lex[i, a] > LOW:
                         bot[a] = np.exp(lex[i, a] - m)
                 sigma[s] = m
             else:
-                big = NEG_INF
+                f = np.zeros(n + 1)
+                maxl = np.empty(n_sym)
+                maxr = np.empty(n_sym)
+                big = NEG
                 for j in range(i + 1, k):
                     sl = sid[i, j]
                     sr = sid[j, k]
-                    if nact[sl] == 0 or nact[sr] == 0:
-                        continue
-                    v = sigma[sl] + sigma[sr]
-                    if v > big:
-                        big = v
+                    if live[sl] and live[sr]:
+                        big = max(big, sigma[sl] + sigma[sr])
                 for j in range(i + 1, k):
                     sl = sid[i, j]
                     sr = sid[j, k]
-                    if nact[sl] == 0 or nact[sr] == 0:
+                    f[j] = np.exp(sigma[sl] + sigma[sr] - big) if live[sl] and live[sr] else 0.0
+                for a in range(n_sym):
+                    m = 0.0
+                    for j in range(i + 1, k):
+                        m = max(m, IL[i, a, j])
+                    maxl[a] = m
+                    m = 0.0
+                    for j in range(i + 1, k):
+                        m = max(m, IR[k, a, j])
+                    maxr[a] = m
+                for r in range(n_rule):
+                    b = r_left[r]
+                    c = r_right[r]
+                    if maxl[b] == 0.0 or maxr[c] == 0.0:
                         continue
-                    f = np.exp(sigma[sl] + sigma[sr] - big)
-                    left = it[sl]
-                    right = it[sr]
-                    for q in range(nact[sl]):
-                        b = act[sl, q]
-                        lb = left[b] * f
-                        if lb == 0.0:
-                            continue
-                        for r in range(lo_off[b], lo_off[b + 1]):
-                            rv = right[lo_right[r]]
-                            if rv == 0.0:
-                                continue
-                            bot[lo_parent[r]] += lb * rv * lo_w[r]
+                    acc = 0.0
+                    for j in range(i + 1, k):
+                        acc += IL[i, b, j] * IR[k, c, j] * f[j]
+                    bot[r_parent[r]] += acc * r_w[r]
                 sigma[s] = big
             kind = 0 if length == 1 else 1
             top = it[s]
@@ -187,45 +215,59 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, act, nact,
                 top[up[e]] += bv * uw[e]
             c = 0.0
             for a in range(n_sym):
-                if top[a] > c:
-                    c = top[a]
-                if bot[a] > c:
-                    c = bot[a]
+                c = max(c, top[a])
+                c = max(c, bot[a])
             if c > 0.0:
                 inv = 1.0 / c
                 for a in range(n_sym):
                     top[a] *= inv
                     bot[a] *= inv
                 sigma[s] += np.log(c)
-    return it, ib, sigma
+            for a in range(n_sym):
+                IL[i, a, k] = top[a]
+                IR[k, a, i] = top[a]
+    return it, ib, sigma, IL, IR
 
 
-@njit(cache=True)
-def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, act, nact, it, ib, sigma,
-            po_off, po_left, po_right, po_w, up, uc, uw, nonempty, haslab,
+@njit(cache=True, parallel=True, fastmath=True)
+def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, IL, IR,
+            r_parent, r_left, r_right, r_w, up, uc, uw, nonempty, haslab,
             lab_off, lab_ids, n_labels):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
-    span (label ids as in ``lab_ids``: for edge e and kind k, the labels of its nodes are
+    span (for edge e and kind k, the labels of its nodes are
     ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``).
+
+    Outside scores of tops accumulate in OL[a, i, j] (span (i, j) as a left child, or the root)
+    and OR[a, k, j] (span (j, k) as a right child), scaled so that outside * inside / Z of a
+    node is the product of the stored values.
     """
     n_span = n * (n + 1) // 2
-    ot = np.zeros((n_span, n_sym))
-    ob = np.zeros((n_span, n_sym))
     post = np.zeros((n_span, n_labels))
+    OL = np.zeros((n + 1, n_sym, n + 1))
+    OR = np.zeros((n + 1, n_sym, n + 1))
     n_edge = up.shape[0]
+    n_rule = r_parent.shape[0]
     full = sid[0, n]
     if it[full, start] == 0.0:
         return post
-    ot[full, start] = 1.0 / it[full, start]
+    OL[0, start, n] = 1.0 / it[full, start]
     for length in range(n, 0, -1):
-        for i in range(n - length + 1):
+        for i in prange(n - length + 1):
             k = i + length
             s = sid[i, k]
-            if dead[s] or nact[s] == 0:
+            if dead[s]:
+                continue
+            otop = np.empty(n_sym)
+            obot = np.empty(n_sym)
+            any_out = False
+            for a in range(n_sym):
+                otop[a] = OL[i, a, k] + OR[k, a, i]
+                obot[a] = 0.0
+                if otop[a] != 0.0:
+                    any_out = True
+            if not any_out:
                 continue
             kind = 0 if length == 1 else 1
-            otop = ot[s]
-            obot = ob[s]
             ibot = ib[s]
             for e in range(n_edge):
                 oa = otop[up[e]]
@@ -242,29 +284,32 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, act, nact, it, i
                     post[s, lab_ids[q]] += pe
             if length == 1:
                 continue
+            f = np.zeros(n + 1)
+            maxl = np.empty(n_sym)
+            maxr = np.empty(n_sym)
             for j in range(i + 1, k):
                 sl = sid[i, j]
                 sr = sid[j, k]
-                if nact[sl] == 0 or nact[sr] == 0:
+                f[j] = np.exp(sigma[sl] + sigma[sr] - sigma[s])
+            for a in range(n_sym):
+                m = 0.0
+                for j in range(i + 1, k):
+                    m = max(m, IL[i, a, j])
+                maxl[a] = m
+                m = 0.0
+                for j in range(i + 1, k):
+                    m = max(m, IR[k, a, j])
+                maxr[a] = m
+            for r in range(n_rule):
+                oa = obot[r_parent[r]]
+                if oa == 0.0:
                     continue
-                f = np.exp(sigma[sl] + sigma[sr] - sigma[s])
-                il = it[sl]
-                ir = it[sr]
-                ol = ot[sl]
-                orr = ot[sr]
-                for a in range(n_sym):
-                    oa = obot[a]
-                    if oa == 0.0:
-                        continue
-                    oa *= f
-                    for r in range(po_off[a], po_off[a + 1]):
-                        lv = il[po_left[r]]
-                        if lv == 0.0:
-                            continue
-                        rv = ir[po_right[r]]
-                        if rv == 0.0:
-                            continue
-                        g = oa * po_w[r]
-                        ol[po_left[r]] += g * rv
-                        orr[po_right[r]] += g * lv
+                b = r_left[r]
+                c = r_right[r]
+                if maxl[b] == 0.0 or maxr[c] == 0.0:
+                    continue
+                g = oa * r_w[r]
+                for j in range(i + 1, k):
+                    OL[i, b, j] += g * IR[k, c, j] * f[j]
+                    OR[k, c, j] += g * IL[i, b, j] * f[j]
     return post

@@ -1,0 +1,72 @@
+"""The ``train`` and ``parse`` commands, driven through click's CliRunner."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from click.testing import CliRunner
+
+from parser.cli_parse import parse_command, train_command
+from parser.grammar import Grammar
+from parser.trees import read_tree
+
+TREES = """(ROOT (S (NP (DT the) (NN dog)) (VP (VBD barked)) (. .)))
+(ROOT (S (NP (DT a) (NN cat)) (VP (VBD saw) (NP (DT the) (NN dog))) (. .)))
+(ROOT (S (NP (PRP it)) (VP (VBD ran) (PP (IN to) (NP (DT the) (NN park)))) (. .)))
+"""
+
+
+def _train(tmp_path: Path) -> Path:
+    src = tmp_path / "trees.txt"
+    src.write_text(TREES)
+    out = tmp_path / "g.npz"
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(out),
+                                                "--horizontal", "1", "--vertical", "2"])
+    assert result.exit_code == 0, result.output
+    assert "rules:" in result.output and "vocabulary:" in result.output
+    assert "time:" in result.output and "nonterminals:" in result.output
+    return out
+
+
+def test_cli_train_then_parse_one_line_per_input_line(tmp_path: Path) -> None:
+    out = _train(tmp_path)
+    assert Grammar.load(out).root_label == "ROOT"
+    text = "the cat barked .\n\nit saw the park .\n"
+    result = CliRunner().invoke(parse_command, ["--grammar", str(out)], input=text)
+    assert result.exit_code == 0, result.output
+    lines = result.output.split("\n")
+    assert lines[-1] == "" and len(lines) == 4
+    assert read_tree(lines[0]).leaves() == "the cat barked .".split()
+    assert lines[1] == ""
+    assert read_tree(lines[2]).leaves() == "it saw the park .".split()
+
+
+def test_cli_parse_json_and_tagged(tmp_path: Path) -> None:
+    out = _train(tmp_path)
+    text = "the/DT dog/NN saw/VBD it/PRP ./.\nthe/DT cat/NN\n"
+    result = CliRunner().invoke(parse_command, ["--grammar", str(out), "--tagged", "--json",
+                                                "--k", "3"], input=text)
+    assert result.exit_code == 0, result.output
+    rows = [json.loads(line) for line in result.output.splitlines()]
+    assert len(rows) == 2
+    first = rows[0]
+    assert set(first) == {"trees", "logprobs", "inside_logprob", "posteriors", "fallback"}
+    assert 1 <= len(first["trees"]) <= 3 and len(first["logprobs"]) == len(first["trees"])
+    tree = read_tree(first["trees"][0])
+    assert tree.pos() == [("the", "DT"), ("dog", "NN"), ("saw", "VBD"), ("it", "PRP"),
+                          (".", ".")]
+    assert all(len(p) == 4 for p in first["posteriors"])
+
+
+def test_cli_errors_name_the_place(tmp_path: Path) -> None:
+    out = _train(tmp_path)
+    result = CliRunner().invoke(parse_command, ["--grammar", str(out), "--tagged"],
+                                input="the/DT dog\n")
+    assert result.exit_code != 0
+    assert "line 1, token 2" in result.output
+    bad = tmp_path / "bad.txt"
+    bad.write_text("(ROOT (S (NP dog)")
+    result = CliRunner().invoke(train_command, [str(bad), "--out", str(tmp_path / "x.npz")])
+    assert result.exit_code != 0
+    assert "line 1" in result.output

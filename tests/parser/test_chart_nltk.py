@@ -1,0 +1,36 @@
+"""Our Viterbi against NLTK's ViterbiParser (reference library) on GUM sentences."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+from nltk.parse import ViterbiParser
+
+from parser.chart import parse
+from parser.grammar import train_grammar
+from parser.nltk_bridge import to_nltk
+from tests.parser.gum_grammar import split_trees
+
+
+@pytest.mark.slow
+@pytest.mark.external
+def test_chart_viterbi_equals_nltk_on_gum_sentences() -> None:
+    # Reference library: NLTK's ViterbiParser, same grammar (converted by parser.nltk_bridge).
+    # Open data set: GUM (Zeldes 2017). NLTK is slow, so the grammar is a small one (no parent
+    # annotation, trained on the first 800 training trees) and the sentences are 5 to 12 words.
+    train, _ = split_trees()
+    small = list(train[:800])
+    g = train_grammar(small, horizontal=0, vertical=1)
+    sentences = [t.leaves() for t in small if 5 <= len(t.leaves()) <= 8][:29]
+    sentences += [t.leaves() for t in small if 11 <= len(t.leaves()) <= 12][:1]
+    assert len(sentences) >= 30
+    for words in sentences:
+        pcfg, tokens = to_nltk(g, [words])
+        ref = list(ViterbiParser(pcfg, max_time=None).parse(tokens[0]))
+        ours = parse(g, words)
+        assert ref, words
+        assert not ours.fallback
+        # NLTK reports base-2 log-probabilities.
+        assert math.isclose(ref[0].logprob() * math.log(2), ours.logprobs[0],
+                            rel_tol=1e-12, abs_tol=1e-9), words
