@@ -37,7 +37,6 @@ from app.schemas.annotation import (
     BenchPublic,
     NoteUpdate,
     Pins,
-    QueuePlace,
     QueuePublic,
     ReparsePublic,
     ReparseRequest,
@@ -111,8 +110,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     else:
         start = suggestions.start_tree(sentence, suggestion)
         tree, pins, source, note = start.tree, {}, start.source, start.note
-    queue = svc.queue_for(db, user)
-    prev_id, next_id, index = queue.neighbours(sentence.id)
+    place = svc.queue_place(db, user, sentence.id)
     sugg_public = _suggestion_public(db, corpus, suggestion)
     editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
         and sentence.state not in (SENT_IN_REVIEW, SENT_GOLD)
@@ -126,9 +124,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.setting("unknown_label_policy"),
-        queue=QueuePlace(index=index, total=queue.total, submitted=queue.submitted,
-                         prev_id=prev_id, next_id=next_id,
-                         next_open_id=queue.next_open(sentence.id)))
+        queue=place)
 
 
 def _suggestion_public(db: Session, corpus: Corpus,

@@ -11,7 +11,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, Field
 
 from app.schemas.common import UtcDateTime
-from app.services.annotation import QueueItem
+from app.services.annotation import QueueItem, QueuePlace
 
 RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
                          "flat"]
@@ -67,15 +67,6 @@ class SuggestionPublic(BaseModel):
     seconds: float
     complete: bool = Field(description="posteriors and probabilities are in; when false, "
                                        "GET /api/bench/{id}/suggestion computes them")
-
-
-class QueuePlace(BaseModel):
-    index: int = Field(description="1-based place of this sentence in the user's queue")
-    total: int
-    submitted: int
-    prev_id: int | None
-    next_id: int | None
-    next_open_id: int | None = Field(description="next sentence neither submitted nor flagged")
 
 
 class BenchPublic(BaseModel):

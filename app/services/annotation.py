@@ -36,7 +36,9 @@ from app.models import (
     ANN_FLAGGED,
     ANN_SUBMITTED,
     REV_SOURCES,
+    SENT_GOLD,
     SENT_IN_PROGRESS,
+    SENT_IN_REVIEW,
     SENT_QUEUED,
     Annotation,
     Assignment,
@@ -221,6 +223,13 @@ def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict
                     state=annotation.state if annotation else ANN_DRAFT)
 
 
+def _check_open(db: Session, user: User, sentence: Sentence) -> None:
+    """A sentence in review or gold takes no more annotation (the Bench shows it read only)."""
+    if sentence.state in (SENT_IN_REVIEW, SENT_GOLD):
+        raise _conflict(db, user, sentence, f"this sentence is {sentence.state.replace('_', ' ')}"
+                        "; annotations of it take no more changes")
+
+
 def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
     """Create the user's (empty) annotation; a concurrent creation wins and this is a 409."""
     annotation = Annotation(sentence_id=sentence.id, user_id=user.id, state=ANN_DRAFT, head=0)
@@ -258,6 +267,7 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
     if annotation.state == ANN_SUBMITTED:
         raise _conflict(db, user, sentence, "this annotation is submitted and takes no more "
                         "changes")
+    _check_open(db, user, sentence)
     if base != annotation.head:
         raise _conflict(db, user, sentence, f"save based on revision {base}, but the newest "
                         f"is revision {annotation.head}")
@@ -289,6 +299,7 @@ def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotat
         raise BadInput("nothing to submit: save a tree first", kind="state")
     if annotation.state == ANN_SUBMITTED:
         raise _conflict(db, user, sentence, "this annotation is already submitted")
+    _check_open(db, user, sentence)
     if base != annotation.head:
         raise _conflict(db, user, sentence, f"submit based on revision {base}, but the newest "
                         f"is revision {annotation.head}")
@@ -378,12 +389,6 @@ class Queue:
     def submitted(self) -> int:
         return sum(1 for it in self.items if it.annotation_state == ANN_SUBMITTED)
 
-    def neighbours(self, sentence_id: int) -> tuple[int | None, int | None, int]:
-        """(previous id, next id, 1-based index) of ``sentence_id`` in this queue."""
-        ids = [it.sentence_id for it in self.items]
-        i = ids.index(sentence_id)
-        return (ids[i - 1] if i > 0 else None, ids[i + 1] if i + 1 < len(ids) else None, i + 1)
-
     def next_open(self, after: int | None = None) -> int | None:
         """The first sentence after ``after`` (wrapping round) not yet submitted or flagged."""
         ids = [it.sentence_id for it in self.items]
@@ -393,6 +398,44 @@ class Queue:
                     and it.sentence_id != after:
                 return it.sentence_id
         return None
+
+
+@dataclass
+class QueuePlace:
+    """A sentence's place in its user's queue: 1-based ``index`` of ``total``, how many are
+    ``submitted``, the previous and next sentences, and the next one neither submitted nor
+    flagged (wrapping round)."""
+
+    index: int
+    total: int
+    submitted: int
+    prev_id: int | None
+    next_id: int | None
+    next_open_id: int | None
+
+
+def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
+    """Where ``sentence_id`` sits in the user's queue; reads ids and states only (the Bench
+    asks on every page load, the queue may hold thousands of sentences)."""
+    rows = db.execute(
+        select(Sentence.id, Annotation.state)
+        .join(Assignment, Assignment.sentence_id == Sentence.id)
+        .join(Document, Document.id == Sentence.document_id)
+        .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
+                   & (Annotation.user_id == user.id))
+        .where(Assignment.user_id == user.id)
+        .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)).all()
+    ids = [r[0] for r in rows]
+    i = ids.index(sentence_id)
+    nxt = None
+    for sid, state in rows[i + 1:] + rows[:i]:
+        if state not in (ANN_SUBMITTED, ANN_FLAGGED):
+            nxt = sid
+            break
+    return QueuePlace(index=i + 1, total=len(ids),
+                      submitted=sum(1 for r in rows if r[1] == ANN_SUBMITTED),
+                      prev_id=ids[i - 1] if i > 0 else None,
+                      next_id=ids[i + 1] if i + 1 < len(ids) else None, next_open_id=nxt)
 
 
 def queue_for(db: Session, user: User, corpus_id: int | None = None) -> Queue:
@@ -427,6 +470,7 @@ __all__ = [
     "head_revision",
     "own_annotation",
     "queue_for",
+    "queue_place",
     "revision_view",
     "save_revision",
     "set_note",

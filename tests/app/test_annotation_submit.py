@@ -140,3 +140,18 @@ def test_annotation_queue_progress_and_neighbours(db, people, login) -> None:
                      "next_id": sentences[2].id, "next_open_id": sentences[2].id}
     last = me.client.get(f"/api/bench/{sentences[3].id}").json()["queue"]
     assert last["next_id"] is None and last["next_open_id"] == sentences[2].id
+
+
+def test_annotation_sentence_in_review_or_gold_takes_no_more_saves(db, people, login) -> None:
+    sentences = _world(db, people)
+    s = sentences[2]
+    me = login("ann1")
+    assert _save(me, s.id, 0, flat_text(s.tokens)).status_code == 201
+    for state in ("in_review", "gold"):
+        db.get(Sentence, s.id).state = state
+        db.commit()
+        resp = _save(me, s.id, 1, flat_text(s.tokens, ["DT", "JJ", "NN", "VBZ", "RB", "VBN",
+                                                       "VBN", "."]))
+        assert resp.status_code == 409 and state.replace("_", " ") in resp.json()["detail"]
+        assert _submit(me, s.id, 1).status_code == 409
+        assert me.client.get(f"/api/bench/{s.id}").json()["editable"] is False
