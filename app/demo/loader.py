@@ -119,10 +119,14 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
     db.commit()
     grammar = None
     if train:
+        from sqlalchemy import Engine
+
         from app.db import make_sessionmaker
         from app.services.training import run_training
 
-        version = run_training(make_sessionmaker(db.get_bind()), corpus.id,
+        bind = db.get_bind()
+        engine = bind if isinstance(bind, Engine) else bind.engine
+        version = run_training(make_sessionmaker(engine), corpus.id,
                                reason="demo: first grammar", user_id=admin.id)
         grammar = (version.number, version.status, version.heldout_f1)
     return DemoSummary(corpus_id=corpus.id, documents=documents, gold=gold, queued=queued,
