@@ -54,7 +54,7 @@ def parse_many(grammar: Grammar | str | Path, sentences: Sequence[Sequence[str]]
     workers = processes or min(2, os.cpu_count() or 1)
     if workers <= 1 or total < 2 * chunk:
         g = grammar if isinstance(grammar, Grammar) else Grammar.load(grammar)
-        out = []
+        out: list[ParseResult] = []
         for x, (words, c) in enumerate(items):
             out.append(parse(g, words, k=k, posteriors=posteriors, constraints=c))
             if progress is not None:

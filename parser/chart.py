@@ -116,7 +116,7 @@ class _Tables:
                 self.haslab[e, kind, ids] = True
                 lab_ids.extend(ids)
                 lab_off.append(len(lab_ids))
-        self.nonempty = self.haslab.any(axis=2)
+        self.nonempty: np.ndarray = np.asarray(self.haslab.any(axis=2))
         self.lab_ids = np.array(lab_ids, dtype=np.int32)
         self.lab_off = np.array(lab_off, dtype=np.int64)
         self.tag_symbols: dict[str, np.ndarray] = {}
@@ -169,7 +169,7 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
     c = constraints or Constraints()
     required = [(int(a), int(b), lab) for a, b, lab in c.required]
     forbidden = [(int(a), int(b)) for a, b in c.forbidden]
-    tags = list(c.tags) if c.tags else [None] * n
+    tags: list[str | None] = list(c.tags) if c.tags else [None] * n
     if len(tags) != n:
         raise ConstraintError(f"{len(tags)} fixed tags given for {n} words")
     for a, b, lab in required:
@@ -203,7 +203,8 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
     label_id = {lab: i for i, lab in enumerate(tab.labels)}
     per_span: dict[int, list[int]] = {}
     for a, b, lab in required:
-        dead |= ((starts < a) & (a < ends) & (ends < b)) | ((a < starts) & (starts < b) & (b < ends))
+        dead |= (((starts < a) & (a < ends) & (ends < b))
+                 | ((a < starts) & (starts < b) & (b < ends)))
         s = int(sid[a, b])
         per_span.setdefault(s, [])
         if lab is not None:
@@ -331,7 +332,8 @@ class _Chart:
             p, tab = self.p, self.tab
             self._inside = kernels.inside(
                 p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
-                np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG), tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
+                np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG),
+                tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
                 tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab)
         return self._inside
 
@@ -522,9 +524,10 @@ def _allowed_py(p: _Problem, tab: _Tables, e: int, kind: int, s: int) -> bool:
     c = p.code[s]
     if c == -1:
         return True
+    nonempty = tab.nonempty
     if c == -2:
-        return not bool(tab.nonempty[e, kind])
-    if kind == 1 and not tab.nonempty[e, 1]:
+        return not bool(nonempty[e, kind])
+    if kind == 1 and not nonempty[e, 1]:
         return False
     return all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]])
 
@@ -546,13 +549,14 @@ def _tree_key(tree: Tree | str) -> str:
 def fallback_tree(g: Grammar, words: Sequence[str], p: _Problem) -> Tree:
     """A well-formed tree keeping the constraints: the required spans nested under the root,
     each word under its fixed tag or the tag the lexicon likes best for it."""
-    tags = []
+    tags: list[str] = []
     counts = g.meta.get("tag_counts", {})
     default_tag = max(counts, key=counts.get) if counts else (g.tags[0] if g.tags else "X")
     default_tag = base_label(default_tag)
-    for i, w in enumerate(words):
-        if p.tags[i] is not None:
-            tags.append(p.tags[i])
+    for i in range(len(words)):
+        fixed = p.tags[i]
+        if fixed is not None:
+            tags.append(fixed)
             continue
         row = p.lex[i]
         best = int(np.argmax(row))

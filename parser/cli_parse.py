@@ -142,8 +142,8 @@ def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, jobs:
     by_line: list[ParseResult | None] = [None] * len(lines)
     for x, r in zip(where, results, strict=True):
         by_line[x] = r
-    for r in by_line:
+    for row in by_line:
         if as_json:
-            click.echo(_as_json(r))
+            click.echo(_as_json(row))
         else:
-            click.echo(write_tree(r.trees[0]) if r is not None else "")
+            click.echo(write_tree(row.trees[0]) if row is not None else "")

