@@ -200,15 +200,21 @@ def score_bar(value: float | None, *, width: int = 120, height: int = 12) -> Mar
 
 
 class LadderLabel(Protocol):
-    label: str
-    owners: list[str]
+    @property
+    def label(self) -> str: ...
+    @property
+    def owners(self) -> list[str]: ...
 
 
 class LadderSpan(Protocol):
-    start: int
-    end: int
-    kind: str  # all | split | some
-    labels: Sequence[LadderLabel]
+    @property
+    def start(self) -> int: ...
+    @property
+    def end(self) -> int: ...
+    @property
+    def kind(self) -> str: ...  # all | split | some
+    @property
+    def labels(self) -> Sequence[LadderLabel]: ...
 
 
 CHAR_W = 7.8  # width of one character of the ladder's monospace text at 13px (approximate)

@@ -31,9 +31,10 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field
+from typing import Any, cast
 
 from nltk import Tree
-from sqlalchemy import func, select, update
+from sqlalchemy import CursorResult, func, select, update
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -405,7 +406,7 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     moved = db.execute(update(Sentence).where(Sentence.id == sentence.id,
                                               Sentence.state == SENT_IN_REVIEW)
                        .values(state=SENT_GOLD).execution_options(synchronize_session=False))
-    if moved.rowcount != 1:
+    if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence_id} was settled or changed meanwhile; reload it")
     db.refresh(sentence)
@@ -435,7 +436,7 @@ def reopen(db: Session, sentence_id: int, user: User, *, note: str | None = None
                                               Sentence.state == SENT_GOLD)
                        .values(state=SENT_IN_REVIEW)
                        .execution_options(synchronize_session=False))
-    if moved.rowcount != 1:
+    if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence_id} changed meanwhile; reload it")
     now = utcnow()

@@ -63,10 +63,10 @@ from collections.abc import Callable
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 from nltk import Tree
-from sqlalchemy import Engine, event, func, select, update
+from sqlalchemy import CursorResult, Engine, event, func, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -268,7 +268,7 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
                                .values(status=GV_TRAINING, progress=0.0, message="starting")
                                .execution_options(synchronize_session=False))
             db.commit()
-            if moved.rowcount == 1:
+            if cast(CursorResult[Any], moved).rowcount == 1:
                 return vid
         return None
 
@@ -436,12 +436,12 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
 def fail_interrupted(factory: sessionmaker[Session]) -> int:
     """Mark jobs left in ``training`` (their process died with the service) as failed."""
     with factory() as db:
-        n = db.execute(update(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
-                       .values(status=GV_FAILED, finished_at=utcnow(),
-                               message="interrupted: the service stopped while it trained")
-                       .execution_options(synchronize_session=False)).rowcount
+        result = db.execute(update(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
+                            .values(status=GV_FAILED, finished_at=utcnow(),
+                                    message="interrupted: the service stopped while it trained")
+                            .execution_options(synchronize_session=False))
         db.commit()
-        return int(n or 0)
+        return int(cast(CursorResult[Any], result).rowcount or 0)
 
 
 # --------------------------------------------------------------------------------------------
