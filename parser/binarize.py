@@ -90,7 +90,7 @@ def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
     ``vertical`` 1 means no parent annotation, 2 the parent, 3 parent and grandparent;
     ``tag_ancestors`` annotates POS tags with that many ancestors (0: none);
     ``annotators`` add feature suffixes (see :data:`Annotator`).
-    The root keeps its label unannotated.
+    The root keeps its label unannotated (no ancestors, no features).
     """
     if horizontal is not None and horizontal < 0:
         raise GrammarError(f"horizontal markovization must be >= 0, got {horizontal}")
@@ -106,7 +106,7 @@ def _annotated(node: Tree, ancestors: tuple[str, ...], vertical: int, tag_ancest
     depth = tag_ancestors + 1 if is_preterminal(node) else vertical
     up = ancestors[: depth - 1]
     out = label + "".join(ANCESTOR + a for a in up)
-    for annotate in annotators:
+    for annotate in annotators if ancestors else ():
         suffix = annotate(node, ancestors)
         if suffix:
             out += FEATURE + suffix

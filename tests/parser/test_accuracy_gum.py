@@ -12,8 +12,9 @@ from parser.scoring import score_corpus
 from tests.parser.gum_grammar import split_grammar, split_trees
 
 # Floors a little under the figures measured when these tests were written with the default
-# grammar (h=1, v=2): words only F1 72.1, gold tags 74.1 (436 sentences).
-WORDS_ONLY_FLOOR = 0.70
+# grammar (h=1, v=2, tags annotated with their parent): words only F1 74.25 (436 sentences);
+# gold tags 74.05 measured with plain tags.
+WORDS_ONLY_FLOOR = 0.72
 GOLD_TAGS_FLOOR = 0.72
 
 
