@@ -44,6 +44,8 @@ from sqlalchemy.orm import Session, sessionmaker, undefer
 
 from app.models import (
     GV_READY,
+    SENT_IN_PROGRESS,
+    SENT_QUEUED,
     Annotation,
     Corpus,
     GrammarVersion,
@@ -227,8 +229,9 @@ def _cached(db: Session, sentence_id: int, version_id: int) -> Suggestion | None
 
 def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersion,
                       k: int = 5, batch: int = 200, processes: int | None = None) -> int:
-    """Cache suggestions under ``grammar_version`` for every sentence of ``corpus`` that nobody
-    has started (no annotation with a saved revision) and that lacks one.
+    """Cache suggestions under ``grammar_version`` for every open (queued or in progress)
+    sentence of ``corpus`` that nobody has started (no annotation with a saved revision) and
+    that lacks one.
 
     Sentences are parsed ``batch`` at a time on every core (:func:`parser.batch.parse_many`;
     ``processes=1`` keeps it in this process) and each batch is committed, so an interrupted
@@ -236,8 +239,11 @@ def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersi
     started = exists().where(Annotation.sentence_id == Sentence.id, Annotation.head > 0)
     cached = exists().where(Suggestion.sentence_id == Sentence.id,
                             Suggestion.grammar_version_id == grammar_version.id)
+    # Gold and in-review sentences need no suggestion: nobody will open them on the Bench.
+    open_states = (SENT_QUEUED, SENT_IN_PROGRESS)
     todo = db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id, ~started,
-                                             ~cached).order_by(Sentence.id)).all()
+                                             ~cached, Sentence.state.in_(open_states))
+                      .order_by(Sentence.id)).all()
     if not todo:
         return 0
     grammar = grammar_for(db, grammar_version.id)

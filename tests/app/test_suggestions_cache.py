@@ -123,3 +123,17 @@ def test_suggestions_grammar_is_loaded_once_per_process(db, people) -> None:
     assert suggestions.grammar_for(db, version.id) is first
     suggestions.forget_grammars()
     assert suggestions.grammar_for(db, version.id) is not first
+
+
+def test_suggestions_refresh_unstarted_skips_gold_and_review(db, people) -> None:
+    from app.models import SENT_GOLD, SENT_IN_REVIEW
+
+    corpus, sentences, _ = _world(db, people)
+    sentences[0].state = SENT_GOLD
+    sentences[1].state = SENT_IN_REVIEW
+    db.commit()
+    newer = install_grammar(db, corpus, gum_grammar_bytes(), number=2)
+    done = suggestions.refresh_unstarted(db, corpus, newer, k=2, processes=1)
+    rows = db.scalars(select(Suggestion).where(Suggestion.grammar_version_id == newer.id)).all()
+    assert done == len(sentences) - 2
+    assert {r.sentence_id for r in rows} == {s.id for s in sentences[2:]}
