@@ -77,20 +77,41 @@ class BodySizeLimit:
                 await _too_large(send, self.limit)
                 return
         seen = 0
+        refused = False
+        started = False
 
         async def limited_receive() -> Message:
-            nonlocal seen
+            nonlocal seen, refused
+            if refused:
+                return {"type": "http.disconnect"}
             message = await receive()
             if message["type"] == "http.request":
                 seen += len(message.get("body", b""))
                 if seen > self.limit:
+                    refused = True
                     raise _BodyTooLarge
             return message
 
+        async def guarded_send(message: Message) -> None:
+            # The app may turn the cut-off body into an answer of its own (FastAPI says 400
+            # "error parsing the body"); once the limit is passed the answer is 413.
+            nonlocal started
+            if refused:
+                if not started:
+                    started = True
+                    await _too_large(send, self.limit)
+                return
+            if message["type"] == "http.response.start":
+                started = True
+            await send(message)
+
         try:
-            await self.app(scope, limited_receive, send)
-        except _BodyTooLarge:
-            await _too_large(send, self.limit)
+            await self.app(scope, limited_receive, guarded_send)
+        except Exception:
+            if not refused:
+                raise
+            if not started:
+                await _too_large(send, self.limit)
 
 
 class _BodyTooLarge(Exception):
