@@ -361,6 +361,9 @@ def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int =
     if state:
         where.append(Sentence.state == state)
     if document_id is not None:
+        if db.scalar(select(Document.id).where(Document.id == document_id,
+                                               Document.corpus_id == corpus.id)) is None:
+            raise NotFound(f"no document with id {document_id} in corpus {corpus.name!r}")
         where.append(Sentence.document_id == document_id)
     total = db.scalar(select(func.count()).select_from(Sentence).where(*where)) or 0
     rows = db.execute(select(Sentence, Document.name).join(Document)
