@@ -10,7 +10,7 @@ from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiAdmin, ApiUser, SessionDep
 from app.models import Corpus
-from app.schemas.common import UtcDateTime
+from app.schemas.common import RequestModel, UtcDateTime
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences
 from app.services.exports import SplitSpec, export_gold, record_export
@@ -54,7 +54,7 @@ class CorpusPublic(CorpusSummaryPublic):
     document_list: list[DocumentPublic]
 
 
-class CorpusCreate(BaseModel):
+class CorpusCreate(RequestModel):
     name: str = Field(min_length=1, max_length=128)
     description: str = ""
     label_set: list[str] | None = None
@@ -62,14 +62,14 @@ class CorpusCreate(BaseModel):
     settings: dict[str, Any] = Field(default_factory=dict)
 
 
-class CorpusUpdate(BaseModel):
+class CorpusUpdate(RequestModel):
     description: str | None = None
     label_set: list[str] | None = None
     tag_set: list[str] | None = None
     settings: dict[str, Any] = Field(default_factory=dict)
 
 
-class CorpusRemove(BaseModel):
+class CorpusRemove(RequestModel):
     confirm_name: str
 
 
@@ -124,7 +124,7 @@ class ExportPublic(BaseModel):
     warnings: list[str]
 
 
-class AssignCreate(BaseModel):
+class AssignCreate(RequestModel):
     per_sentence: int | None = Field(default=None, ge=1, le=10)
     usernames: list[str] | None = None
 

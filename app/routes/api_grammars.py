@@ -14,7 +14,7 @@ from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiUser, SessionDep
 from app.models import GV_QUEUED, Corpus, GrammarVersion
-from app.schemas.common import UtcDateTime
+from app.schemas.common import RequestModel, UtcDateTime
 from app.services import training
 from app.services.errors import NotFound
 
@@ -47,7 +47,7 @@ class GrammarVersionPublic(BaseModel):
     finished_at: UtcDateTime | None
 
 
-class TrainCreate(BaseModel):
+class TrainCreate(RequestModel):
     corpus_id: int
 
 

@@ -14,6 +14,7 @@ from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, SessionDep
 from app.models import Corpus, Sentence
+from app.schemas.common import RequestModel
 from app.services import review as svc
 from app.services.errors import NotFound
 from app.services.training import get_runner
@@ -60,7 +61,7 @@ class ReviewPublic(BaseModel):
     next_id: int | None
 
 
-class TreeCheck(BaseModel):
+class TreeCheck(RequestModel):
     tree: str = Field(max_length=200_000)
     confirm_labels: bool = False
 
@@ -70,7 +71,7 @@ class TreeCheckPublic(BaseModel):
     words: list[str]
 
 
-class SettleCreate(BaseModel):
+class SettleCreate(RequestModel):
     tree: str = Field(max_length=200_000, description="bracketed text of the gold tree")
     source_annotation_id: int | None = Field(
         default=None, description="the submitted annotation the adjudicator started from")
@@ -80,7 +81,7 @@ class SettleCreate(BaseModel):
     confirm_labels: bool = False
 
 
-class ReopenCreate(BaseModel):
+class ReopenCreate(RequestModel):
     note: str | None = Field(default=None, max_length=4_000)
 
 

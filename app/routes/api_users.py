@@ -10,7 +10,7 @@ from pydantic import BaseModel, Field
 from app.deps import ApiAdmin, SessionDep
 from app.models import User
 from app.routes.api_corpora import ERRORS
-from app.schemas.common import UtcDateTime
+from app.schemas.common import RequestModel, UtcDateTime
 from app.services import users as svc
 
 router = APIRouter(tags=["users"])
@@ -27,14 +27,14 @@ class UserPublic(BaseModel):
     created_at: UtcDateTime
 
 
-class UserCreate(BaseModel):
+class UserCreate(RequestModel):
     username: str = Field(min_length=1, max_length=64)
     password: str = Field(min_length=1, max_length=1024)
     role: Role = "annotator"
     display_name: str = Field("", max_length=128)
 
 
-class UserUpdate(BaseModel):
+class UserUpdate(RequestModel):
     role: Role | None = None
     active: bool | None = None
     password: str | None = Field(None, min_length=1, max_length=1024)

@@ -10,7 +10,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, Field
 
-from app.schemas.common import UtcDateTime
+from app.schemas.common import RequestModel, UtcDateTime
 from app.services.annotation import QueueItem, QueuePlace
 
 RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
@@ -18,7 +18,7 @@ RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text",
 MAX_PINS = 2_000
 
 
-class Pins(BaseModel):
+class Pins(RequestModel):
     spans: list[tuple[int, int, str]] = Field(default_factory=list, max_length=MAX_PINS)
     tags: list[tuple[int, str]] = Field(default_factory=list, max_length=MAX_PINS)
 
@@ -85,7 +85,7 @@ class BenchPublic(BaseModel):
     queue: QueuePlace
 
 
-class RevisionCreate(BaseModel):
+class RevisionCreate(RequestModel):
     base: int = Field(ge=0, description="the head revision this change was built on")
     tree: str = Field(max_length=200_000, description="bracketed text of the whole tree")
     pins: Pins = Field(default_factory=Pins)
@@ -99,18 +99,18 @@ class SavePublic(BaseModel):
     revision: RevisionPublic
 
 
-class SubmitRequest(BaseModel):
+class SubmitRequest(RequestModel):
     base: int = Field(ge=0, description="the head revision the annotator saw when submitting")
 
 
-class NoteUpdate(BaseModel):
+class NoteUpdate(RequestModel):
     comment: str | None = Field(default=None, max_length=4_000)
     flag: str | None = Field(default=None, max_length=64,
                              description="hold the sentence back with this reason")
     clear_flag: bool = False
 
 
-class ReparseRequest(BaseModel):
+class ReparseRequest(RequestModel):
     pins: Pins = Field(default_factory=Pins)
     k: int = Field(default=1, ge=1, le=20)
 

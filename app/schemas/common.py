@@ -1,4 +1,5 @@
-"""Shapes shared by every JSON API module: UTC timestamps and the generic error body.
+"""Shapes shared by every JSON API module: UTC timestamps, strict request bodies and the
+generic error body.
 
 The database keeps naive UTC datetimes (``app.models.utcnow``). Sent as they are, they would
 carry no offset, which is not an RFC 3339 ``date-time`` and which a browser reads as *local*
@@ -10,7 +11,7 @@ from __future__ import annotations
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from pydantic import AfterValidator, BaseModel
+from pydantic import AfterValidator, BaseModel, ConfigDict
 
 
 def _as_utc(value: datetime) -> datetime:
@@ -19,6 +20,13 @@ def _as_utc(value: datetime) -> datetime:
 
 #: A timestamp sent with its UTC offset; use it for every datetime in a response model.
 UtcDateTime = Annotated[datetime, AfterValidator(_as_utc)]
+
+
+class RequestModel(BaseModel):
+    """Base of every request body (XCreate, XUpdate...): a field the model does not know is a
+    422 naming it, so a misspelt field is not silently ignored."""
+
+    model_config = ConfigDict(extra="forbid")
 
 
 class ErrorPublic(BaseModel):
