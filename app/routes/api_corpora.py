@@ -7,6 +7,7 @@ from typing import Any
 
 from fastapi import APIRouter, File, Form, Query, UploadFile
 from pydantic import BaseModel, Field
+from starlette.concurrency import run_in_threadpool
 
 from app.deps import ApiAdjudicator, ApiAdmin, ApiUser, SessionDep
 from app.models import Corpus
@@ -223,10 +224,11 @@ async def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File
                       skip_duplicates: bool = Form(False)) -> ImportPublic:
     """Import one file (all or nothing); the corpus is made when it does not exist."""
     data = await upload.read()
-    result = import_bytes(db, data, source=upload.filename or "upload",
-                          corpus_name=corpus_name, document_name=document_name or None,
-                          kind=kind, tokenizer=tokenizer, annotator=annotator or None,
-                          skip_duplicates=skip_duplicates, user=login.user)
+    # Storing a big file takes seconds: off the event loop, so other requests go on meanwhile.
+    result = await run_in_threadpool(
+        import_bytes, db, data, source=upload.filename or "upload", corpus_name=corpus_name,
+        document_name=document_name or None, kind=kind, tokenizer=tokenizer,
+        annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     return ImportPublic(
         corpus_id=result.corpus_id, corpus_name=result.corpus_name,
         document_id=result.document_id, document_name=result.document_name, kind=result.kind,

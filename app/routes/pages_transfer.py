@@ -12,6 +12,7 @@ from typing import Any
 from fastapi import APIRouter, File, Form, Request, UploadFile
 from fastapi.responses import HTMLResponse, Response
 from sqlalchemy import select
+from starlette.concurrency import run_in_threadpool
 
 from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.models import Corpus, Document, User
@@ -60,10 +61,11 @@ async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
     try:
         if not target:
             raise BadInput("choose a corpus or type the name of a new one")
-        result = import_bytes(db, data, source=source, corpus_name=target,
-                              document_name=document_name.strip() or None, kind=kind,
-                              tokenizer=tokenizer, annotator=annotator or None,
-                              skip_duplicates=skip_duplicates, user=login.user)
+        # storing a big file takes seconds: off the event loop, so other requests go on
+        result = await run_in_threadpool(
+            import_bytes, db, data, source=source, corpus_name=target,
+            document_name=document_name.strip() or None, kind=kind, tokenizer=tokenizer,
+            annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     except ServiceError as err:
         db.rollback()
         return _page(request, login, db, status_code=err.status_code, error=str(err.detail),
