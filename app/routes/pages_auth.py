@@ -6,6 +6,7 @@ import asyncio
 
 from fastapi import APIRouter, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
+from starlette.concurrency import run_in_threadpool
 
 from app.deps import OptionalLogin, PageUser, SessionDep, SettingsDep
 from app.models import Event
@@ -58,7 +59,8 @@ async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
     delay = login_delay(recent_failures(db, username, address), settings)
     if delay:
         await asyncio.sleep(delay)
-    user = authenticate(db, username, password)
+    # argon2 takes tens of milliseconds on purpose: off the event loop, so others go on
+    user = await run_in_threadpool(authenticate, db, username, password)
     if user is None:
         record_failure(db, username, address)
         db.commit()
