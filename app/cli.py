@@ -100,8 +100,10 @@ def _serve(settings: Settings, host: str, port: int, workers: int) -> None:
         if settings.database_url:
             os.environ["TREEWRIGHT_DATABASE_URL"] = settings.database_url
         upgrade_to_head(settings)  # once, before the workers race to do it
+        # proxy headers as with one worker: X-Forwarded-For is believed from 127.0.0.1 only
+        # (a reverse proxy on this machine), so the per-address login delay sees real clients
         uvicorn.run("app.main:create_app", factory=True, host=host, port=port,
-                    workers=workers, log_level="info", proxy_headers=False)
+                    workers=workers, log_level="info", proxy_headers=True)
         return
     uvicorn.run(create_app(settings), host=host, port=port, log_level="info")
 
