@@ -59,6 +59,7 @@ TEXT_UPLOAD = b"the tide turned at noon .\nthe mate rang the bell .\n"
 EXPECTED: dict[tuple[str, str], Spec] = {
     # --- framework pages
     ("GET", "/openapi.json"): Spec(PUBLIC, 200),
+    ("GET", "/api-docs"): Spec(PUBLIC, 200),
     # --- health, session, login
     ("GET", "/api/health"): Spec(PUBLIC, 200),
     ("GET", "/api/session"): Spec(USER, 200),
