@@ -248,3 +248,23 @@ def test_bad_input_settle_from_an_annotation_of_another_sentence(world, people, 
     assert counts(db) == before
     assert db.scalar(select(func.count()).select_from(Event)
                      .where(Event.kind == "gold.settled")) == 0
+
+
+def test_bad_input_numbers_too_large_for_the_database(world) -> None:
+    """2**40 fits SQLite but not a PostgreSQL integer column; 2**70 fits neither: 422 naming
+    the parameter on both databases, never a 500."""
+    admin, me, db = world["admin"], world["me"], world["db"]
+    before = counts(db)
+    for number in (2**40, 2**70):
+        for url, name in ((f"/api/corpora/{number}", "corpus_id"),
+                          (f"/api/grammars?corpus_id={number}", "corpus_id"),
+                          (f"/api/bench/{number}", "sentence_id")):
+            who = me if "bench" in url else admin
+            resp = who.client.get(url)
+            assert resp.status_code in (404, 422), (url, resp.status_code, resp.text[:200])
+            if resp.status_code == 422:
+                assert resp.json()["detail"][0]["loc"][-1] == name
+    big = me.client.post(f"/api/bench/{world['s'].id}/revisions", headers=me.headers(),
+                         json={"base": 2**70, "tree": "(ROOT (NN x))"})
+    assert big.status_code in (409, 422)
+    assert counts(db) == before
