@@ -1,5 +1,5 @@
 """Error answers shared by every JSON API route: their OpenAPI documentation, and the answer
-for a number too large for the database.
+for a value too large for the database.
 
 Each route module documents the errors its own service raises. The ones that come from the
 common layers are added to the OpenAPI document here, so no route forgets them:
@@ -30,8 +30,9 @@ from app.schemas.common import ErrorPublic
 
 AUTH_DEPENDENCY_MARK = "treewright_auth"
 SHARED_ERROR_SCHEMA = "SharedErrorPublic"
-#: The largest integer both SQLite and PostgreSQL (bigint) store.
+#: The largest integer SQLite stores, and the largest in a PostgreSQL ``integer`` column.
 MAX_DB_INT = 2**63 - 1
+MAX_PG_INT = 2**31 - 1
 
 _DOCS: dict[int, str] = {
     400: "the body could not be decoded",
@@ -100,24 +101,30 @@ class SharedErrorDocs:
         application.openapi = openapi  # type: ignore[method-assign]
 
 
-def _too_big(where: str, values: Any) -> list[dict[str, Any]]:
+def _too_big(where: str, values: Any, limit: int) -> list[dict[str, Any]]:
     out = []
     for name, value in values.items():
         try:
             number = int(value)
         except (TypeError, ValueError):
             continue
-        if abs(number) > MAX_DB_INT:
+        if abs(number) > limit:
             out.append({"loc": [where, name], "msg": f"{number} is out of range: at most "
-                        f"{MAX_DB_INT} in size", "type": "out_of_range"})
+                        f"{limit} in size", "type": "out_of_range"})
     return out
 
 
-async def number_out_of_range(request: Request, exc: OverflowError) -> JSONResponse:
-    """A number the database cannot hold (SQLite stops at 2**63 - 1): 422 in the shape of a
-    validation error, naming the URL parameter when it is one (else the body)."""
-    errors = _too_big("path", request.path_params) + _too_big("query", request.query_params)
+async def value_out_of_range(request: Request, exc: Exception) -> JSONResponse:
+    """A value the database cannot hold: 422 in the shape of a validation error instead of a
+    500. SQLite stops at 2**63 - 1 (Python raises OverflowError); PostgreSQL's ``integer``
+    columns at 2**31 - 1 (a DataError, as is a text too long for its column). URL parameters
+    past the limit are named; otherwise the database's own words say what did not fit."""
+    limit = MAX_DB_INT if request.app.state.settings.is_sqlite else MAX_PG_INT
+    errors = (_too_big("path", request.path_params, limit)
+              + _too_big("query", request.query_params, limit))
     if not errors:
-        errors = [{"loc": ["body"], "msg": f"a number is out of range: at most {MAX_DB_INT} "
-                   "in size", "type": "out_of_range"}]
+        orig = getattr(exc, "orig", None) or exc
+        first = str(orig).strip().splitlines()[0] if str(orig).strip() else type(orig).__name__
+        errors = [{"loc": ["body"], "msg": f"a value does not fit the database: {first}",
+                   "type": "out_of_range"}]
     return JSONResponse({"detail": errors}, status_code=422)

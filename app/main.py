@@ -15,11 +15,12 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, RedirectResponse
 from fastapi.staticfiles import StaticFiles
+from sqlalchemy.exc import DataError
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 import app.routes
-from app.api_errors import SharedErrorDocs, number_out_of_range
+from app.api_errors import SharedErrorDocs, value_out_of_range
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
 from app.services.errors import ServiceError
@@ -170,7 +171,8 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
                 status_code=exc.status_code)
         return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code)
 
-    application.add_exception_handler(OverflowError, number_out_of_range)  # type: ignore[arg-type]
+    for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
+        application.add_exception_handler(too_big, value_out_of_range)
 
     @application.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:
