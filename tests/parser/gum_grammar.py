@@ -1,13 +1,20 @@
-"""Grammars trained on the shared GUM trees, trained once per test process and cached on disk.
+"""Grammars trained on the shared GUM trees, trained once per test run and cached on disk.
 
 Pytest fixtures defined here would be instantiated once per importing module, so the training
-lives in ``lru_cache``d functions; the tests call them from their own fixtures.
+lives in ``functools.cache``d functions; the tests call them from their own fixtures. Under
+pytest-xdist every worker is its own process: the trained grammar is saved in a folder named
+after the run's id (``PYTEST_XDIST_TESTRUNUID``), shared by the workers, and a file lock lets
+one worker train while the others wait and then load its file. Without xdist the folder is a
+fresh temporary one.
 """
 
 from __future__ import annotations
 
+import fcntl
 import functools
+import os
 import tempfile
+from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from nltk import Tree
@@ -16,7 +23,17 @@ from parser.grammar import Grammar, train_grammar
 from parser.trees import read_trees
 from tests.shared_data import gum_files
 
-_CACHE = Path(tempfile.mkdtemp(prefix="treewright-test-grammars-"))
+
+def _cache_dir() -> Path:
+    run = os.environ.get("PYTEST_XDIST_TESTRUNUID")
+    if not run:
+        return Path(tempfile.mkdtemp(prefix="treewright-test-grammars-"))
+    folder = Path(tempfile.gettempdir()) / f"treewright-test-grammars-{run}"
+    folder.mkdir(exist_ok=True)
+    return folder
+
+
+_CACHE = _cache_dir()
 
 
 def read_file(path: Path) -> list[Tree]:
@@ -38,12 +55,23 @@ def split_trees() -> tuple[tuple[Tree, ...], tuple[Tree, ...]]:
     return train, test
 
 
+def _trained(name: str, trees: Callable[[], Sequence[Tree]]) -> Path:
+    """The path of the default grammar trained on ``trees()``, trained by the first process
+    of the run that asks for it."""
+    path = _CACHE / f"{name}.npz"
+    with open(_CACHE / f"{name}.lock", "w") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if not path.exists():
+            partial = _CACHE / f"{name}.{os.getpid()}.partial.npz"
+            train_grammar(trees()).save(partial)
+            os.replace(partial, path)
+    return path
+
+
 @functools.cache
 def full_grammar_path() -> Path:
     """The default grammar trained on all shared trees, saved under a temporary folder."""
-    path = _CACHE / "gum-all.npz"
-    train_grammar(gum_trees()).save(path)
-    return path
+    return _trained("gum-all", gum_trees)
 
 
 @functools.cache
@@ -52,8 +80,11 @@ def full_grammar() -> Grammar:
 
 
 @functools.cache
-def split_grammar() -> Grammar:
+def split_grammar_path() -> Path:
     """The default grammar trained on the training part of the split."""
-    path = _CACHE / "gum-split.npz"
-    train_grammar(split_trees()[0]).save(path)
-    return Grammar.load(path)
+    return _trained("gum-split", lambda: split_trees()[0])
+
+
+@functools.cache
+def split_grammar() -> Grammar:
+    return Grammar.load(split_grammar_path())

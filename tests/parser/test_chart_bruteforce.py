@@ -171,13 +171,13 @@ def _satisfies_shape(t: Tree, c: Constraints) -> bool:
     return all(tag is None or t.pos()[i][1] == tag for i, tag in enumerate(c.tags))
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(grammars(), st.lists(st.sampled_from(TERMINALS), min_size=1, max_size=4))
 def test_chart_bruteforce_unconstrained(g: dict, words: list[str]) -> None:
     _check(g["rules"], words, None)
 
 
-@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(problems())
 def test_chart_bruteforce_constrained(problem: tuple[dict, list[str], Constraints]) -> None:
     g, words, c = problem
