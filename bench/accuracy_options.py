@@ -1,0 +1,76 @@
+"""Parsing accuracy of the grammar options, side by side in one run, on the GUM split.
+
+Usage: python bench/accuracy_options.py [--only NAME ...]
+
+Open data set: GUM (Zeldes 2017), ../shared/data/gum-trees. Trains on the 89 files whose names
+sort first, parses the sentences of at most 40 words of the last 10 from words only (Viterbi),
+and prints, for each option set, labelled bracket F1 (parser.scoring), the number of fallback
+trees, the grammar's size and the training and parsing CPU seconds (time.process_time, so that
+a loaded machine changes little). The options are the feature annotations of parser.annotate
+(Klein and Manning 2003) and the lexicon smoothing parameters of parser.lexicon (measured
+without features); the other settings are the library's defaults (h=1, v=2, tags annotated
+with their parent).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from parser.binarize import clean_tree  # noqa: E402
+from parser.chart import parse  # noqa: E402
+from parser.grammar import train_grammar  # noqa: E402
+from parser.scoring import score_corpus  # noqa: E402
+from parser.trees import read_trees  # noqa: E402
+
+GUM = ROOT.parent / "shared" / "data" / "gum-trees"
+
+OPTIONS: dict[str, dict] = {
+    "no-features": {"features": ()},
+    "split-vp": {"features": ("split-vp",)},
+    "split-vp+unary-internal": {"features": ("split-vp", "unary-internal")},
+    "split-vp+dominates-verb": {"features": ("split-vp", "dominates-verb")},
+    "all-three": {"features": ("split-vp", "unary-internal", "dominates-verb")},
+    "beta=0.5": {"features": (), "beta": 0.5},
+    "beta=2": {"features": (), "beta": 2.0},
+    "alpha=0.5": {"features": (), "alpha": 0.5},
+    "alpha=2": {"features": (), "alpha": 2.0},
+}
+
+
+def _read(path: Path) -> list:
+    return read_trees(path.read_text(encoding="utf-8"), source=str(path))
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--only", nargs="*", choices=sorted(OPTIONS))
+    args = ap.parse_args()
+    files = sorted(GUM.glob("*.ptb"))
+    if len(files) < 99:
+        sys.exit(f"expected the shared GUM trees at {GUM}")
+    train = [t for f in files[:89] for t in _read(f)]
+    gold = [c for f in files[89:] for t in _read(f)
+            if len((c := clean_tree(t)).leaves()) <= 40]
+    print(f"train {len(train)} trees, test {len(gold)} sentences (<= 40 words)", flush=True)
+    for name in args.only or list(OPTIONS):
+        t0 = time.process_time()
+        g = train_grammar(train, **OPTIONS[name])
+        t1 = time.process_time()
+        results = [parse(g, t.leaves()) for t in gold]
+        t2 = time.process_time()
+        score = score_corpus(zip(gold, [r.trees[0] for r in results], strict=True))
+        fallbacks = sum(r.fallback for r in results)
+        print(f"{name:26s} F1 {100 * score.f1:6.2f}  P {100 * score.precision:6.2f}  "
+              f"R {100 * score.recall:6.2f}  fallbacks {fallbacks}  symbols "
+              f"{len(g.symbols)}  train {t1 - t0:5.1f} s  parse {t2 - t1:6.1f} s CPU",
+              flush=True)
+
+
+if __name__ == "__main__":
+    main()
