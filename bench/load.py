@@ -11,7 +11,8 @@ Saltmarrow ferry cooperative (app/demo): its gold trees, its raw sentences, a gr
 on the gold, and ``--clients`` annotators, each assigned a share of the raw sentences (two
 annotators per sentence). A uvicorn server (``--workers`` processes) listens on 127.0.0.1
 only. Each client logs in as its own annotator and, until the time is up (and at most
-``MAX_REQUESTS`` requests), picks one of:
+``MAX_REQUESTS`` requests), picks one of the following, then pauses ``--think`` seconds on
+average (default 0: a stress test in which 20 clients keep the server saturated):
 
 * ``page``: GET /queue, /bench/{id}, /corpora/{id} or / (a whole server-rendered page);
 * ``save``: POST /api/bench/{id}/revisions of a tree of one of its sentences, based on its
@@ -145,7 +146,7 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
 # --------------------------------------------------------------------------- one client
 def run_client(client: Client, sentences: list[int], words: dict[int, list[str]],
                corpus_id: int, warmup_until: float, stop_at: float, seed_value: int,
-               out: Tally, lock: threading.Lock) -> None:
+               out: Tally, lock: threading.Lock, think: float = 0.0) -> None:
     rnd = random.Random(seed_value)
     mine = Tally()
     heads = dict.fromkeys(sentences, 0)  # a fresh database: nothing saved yet
@@ -180,6 +181,8 @@ def run_client(client: Client, sentences: list[int], words: dict[int, list[str]]
         else:
             mine.errors[kind] += 1
             mine.samples.append(problem)
+        if think:
+            time.sleep(rnd.uniform(0.5 * think, 1.5 * think))
     client.close()
     with lock:
         out.add(mine)
@@ -210,7 +213,8 @@ def run(database_url: str | None, args: argparse.Namespace) -> Tally:
             warmup_until = start + args.warmup
             stop_at = warmup_until + args.seconds
             threads = [threading.Thread(target=run_client, args=(
-                client, sids, words, corpus_id, warmup_until, stop_at, i, tally, lock))
+                client, sids, words, corpus_id, warmup_until, stop_at, i, tally, lock,
+                args.think))
                 for i, (client, sids) in enumerate(clients)]
             for t in threads:
                 t.start()
@@ -260,6 +264,9 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=30.0)
     ap.add_argument("--warmup", type=float, default=5.0)
     ap.add_argument("--workers", type=int, default=1)
+    ap.add_argument("--think", type=float, default=0.0,
+                    help="mean pause in seconds between a client's requests (0: none, each "
+                         "client sends its next request as soon as it has the answer)")
     ap.add_argument("--database-url", default=None,
                     help="a PostgreSQL server URL; a fresh database is made on it")
     ap.add_argument("--compare-with", default=None,
@@ -270,7 +277,7 @@ def main() -> None:
     columns: dict[str, Tally] = {}
     first = "postgresql" if args.database_url else "sqlite"
     print(f"{args.clients} clients, {args.seconds:.0f} s after {args.warmup:.0f} s warm-up, "
-          f"{args.workers} server worker(s), loopback only")
+          f"{args.workers} server worker(s), think time {args.think:g} s, loopback only")
     columns[f"{first} ({args.workers}w)"] = run(args.database_url, args)
     if args.compare_with:
         columns[f"postgresql ({args.workers}w)"] = run(args.compare_with, args)
