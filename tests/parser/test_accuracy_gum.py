@@ -11,11 +11,12 @@ from parser.chart import Constraints
 from parser.scoring import score_corpus
 from tests.parser.gum_grammar import split_grammar, split_trees
 
-# Floors a little under the figures measured when these tests were written with the default
-# grammar (h=1, v=2, tags annotated with their parent): words only F1 74.25 (436 sentences);
-# gold tags 74.05 measured with plain tags.
-WORDS_ONLY_FLOOR = 0.72
-GOLD_TAGS_FLOOR = 0.72
+# Floors a little under the figures measured with the default grammar (h=1, v=2, tags annotated
+# with their parent, features split-vp and unary-internal) on the GUM split (train: the 89 files
+# whose names sort first; test: the last 10, 436 sentences of at most 40 words): words only
+# F1 76.19 (bench/accuracy_options.py and this test); gold tags F1 77.80 (11 fallbacks).
+WORDS_ONLY_FLOOR = 0.75
+GOLD_TAGS_FLOOR = 0.76
 
 
 def _test_set() -> list:

@@ -43,7 +43,7 @@ def test_grammar_small_trained_is_normalized_and_counts_are_relative_frequencies
         "(ROOT (S (NP (PRP it)) (VP (VBD ran) (ADVP (RB far)))))",
         "(ROOT (S (NP (DT the) (NN cat)) (VP (VBD sat))))",
     )]
-    g = train_grammar(trees, horizontal=1, vertical=1, tag_ancestors=0)
+    g = train_grammar(trees, horizontal=1, vertical=1, tag_ancestors=0, features=())
     _assert_normalized(g)
     sym = {s: i for i, s in enumerate(g.symbols)}
     # NP is a branching NP in 2 of 3 cases, a unary chain NP -> PRP in 1.
