@@ -76,7 +76,7 @@ class SharedErrorDocs:
     def collect(self, router: APIRouter) -> None:
         for route in router.routes:
             if isinstance(route, APIRoute) and route.path.startswith("/api/"):
-                for method in route.methods:
+                for method in route.methods or ():
                     self.codes[(method.lower(), route.path)] = shared_errors(route)
 
     def install(self, application: FastAPI) -> None:

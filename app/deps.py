@@ -7,7 +7,7 @@ carry the session's CSRF token in the ``X-CSRF-Token`` header or a ``csrf_token`
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
 from typing import Annotated
 
@@ -86,7 +86,7 @@ def _rank(role: str) -> int:
     return len(ROLES) - ROLES.index(role) if role in ROLES else 0
 
 
-def api_login(minimum_role: str | None = None):  # type: ignore[no-untyped-def]
+def api_login(minimum_role: str | None = None) -> Callable[..., Awaitable[Login]]:
     """Dependency factory for the JSON API: 401 without login, 403 below ``minimum_role``."""
 
     async def dep(request: Request, login: OptionalLogin) -> Login:
@@ -101,7 +101,7 @@ def api_login(minimum_role: str | None = None):  # type: ignore[no-untyped-def]
     return dep
 
 
-def page_login(minimum_role: str | None = None):  # type: ignore[no-untyped-def]
+def page_login(minimum_role: str | None = None) -> Callable[..., Awaitable[Login]]:
     """Dependency factory for pages: redirect to login without one, 403 below the role."""
 
     async def dep(request: Request, login: OptionalLogin) -> Login:

@@ -24,10 +24,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import UTC
-from typing import Any
+from typing import Any, cast
 
 from nltk import Tree
-from sqlalchemy import select, update
+from sqlalchemy import CursorResult, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -276,7 +276,7 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
         update(Annotation).where(Annotation.id == annotation.id, Annotation.head == base)
         .values(head=base + 1, updated_at=now)
         .execution_options(synchronize_session=False))
-    if moved.rowcount != 1:
+    if cast(CursorResult[Any], moved).rowcount != 1:
         raise _conflict(db, user, sentence, "another save of this annotation came first")
     revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
                         pins=clean_pins, source=source, user_id=user.id, created_at=now)
@@ -310,7 +310,7 @@ def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotat
                Annotation.state != ANN_SUBMITTED)
         .values(state=ANN_SUBMITTED, submitted_at=now, updated_at=now)
         .execution_options(synchronize_session=False))
-    if moved.rowcount != 1:
+    if cast(CursorResult[Any], moved).rowcount != 1:
         raise _conflict(db, user, sentence, "the annotation changed while submitting")
     db.add(Event(user_id=user.id, kind="annotation.submitted", corpus_id=sentence.corpus_id,
                  sentence_id=sentence.id, detail={"revision": base}))
@@ -428,7 +428,7 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
     ids = [r[0] for r in rows]
     i = ids.index(sentence_id)
     nxt = None
-    for sid, state in rows[i + 1:] + rows[:i]:
+    for sid, state in [*rows[i + 1:], *rows[:i]]:
         if state not in (ANN_SUBMITTED, ANN_FLAGGED):
             nxt = sid
             break

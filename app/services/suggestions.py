@@ -89,7 +89,7 @@ def grammar_from_bytes(data: bytes) -> Grammar:
 
 def grammar_for(db: Session, version_id: int) -> Grammar:
     """The loaded grammar of a GrammarVersion, from the per-process cache when possible."""
-    key = (str(db.get_bind().url), version_id)
+    key = (str(db.get_bind().engine.url), version_id)
     with _grammar_lock:
         cached = _grammars.get(key)
         if cached is not None:
@@ -126,7 +126,7 @@ def warm_up(factory: sessionmaker[Session]) -> list[int]:
         ids = db.scalars(select(Corpus.active_grammar_id)
                          .where(Corpus.active_grammar_id.is_not(None))
                          .order_by(Corpus.id)).all()
-        for version_id in ids[:GRAMMAR_CACHE_SIZE]:
+        for version_id in [i for i in ids if i is not None][:GRAMMAR_CACHE_SIZE]:
             try:
                 grammar_for(db, version_id)
             except (NotFound, Conflict):  # no saved grammar: nothing to warm
