@@ -133,6 +133,18 @@ def _include_routers(application: FastAPI) -> None:
     docs.install(application)
 
 
+def _error_page(request: Request, status: int, detail: Any) -> Any:
+    """The error page for a browser asking for a page; None for the JSON API and clients."""
+    accepts_html = "text/html" in request.headers.get("accept", "")
+    if not accepts_html or request.url.path.startswith("/api/"):
+        return None
+    from app.web import templates
+
+    return templates.TemplateResponse(
+        request, "error.html", {"status": status, "detail": detail, "user": None,
+                                "csrf_token": ""}, status_code=status)
+
+
 def create_app(settings: Settings | None = None, *, migrate: bool = True) -> FastAPI:
     """Build the service for ``settings`` (default: from the environment)."""
     settings = settings or get_settings()
@@ -161,14 +173,9 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
 
     @application.exception_handler(ServiceError)
     async def _service_error(request: Request, exc: ServiceError) -> Any:
-        accepts_html = "text/html" in request.headers.get("accept", "")
-        if accepts_html and not request.url.path.startswith("/api/"):
-            from app.web import templates
-
-            return templates.TemplateResponse(
-                request, "error.html", {"status": exc.status_code, "detail": exc.detail,
-                                        "user": None, "csrf_token": ""},
-                status_code=exc.status_code)
+        page = _error_page(request, exc.status_code, exc.detail)
+        if page is not None:
+            return page
         return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code)
 
     for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
@@ -184,14 +191,9 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
 
     @application.exception_handler(StarletteHTTPException)
     async def _http_error(request: Request, exc: StarletteHTTPException) -> Any:
-        accepts_html = "text/html" in request.headers.get("accept", "")
-        if accepts_html and not request.url.path.startswith("/api/"):
-            from app.web import templates
-
-            return templates.TemplateResponse(
-                request, "error.html", {"status": exc.status_code, "detail": exc.detail,
-                                        "user": None, "csrf_token": ""},
-                status_code=exc.status_code)
+        page = _error_page(request, exc.status_code, exc.detail)
+        if page is not None:
+            return page
         return JSONResponse({"detail": exc.detail}, status_code=exc.status_code,
                             headers=getattr(exc, "headers", None))
 
