@@ -23,12 +23,13 @@ Complexity: linear in the size of the tree. Limits: recursion depth is the tree 
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+import re
+from collections.abc import Callable, Collection, Sequence
 
 from nltk import Tree
 
 from parser.errors import GrammarError
-from parser.trees import drop_empty_elements, strip_function_tags
+from parser.trees import drop_empty_elements, strip_function_tags, strip_label
 
 INTERMEDIATE = "@"
 ANCESTOR = "^"
@@ -36,9 +37,13 @@ FEATURE = "~"
 SIBLINGS = "|"
 _RESERVED = (ANCESTOR, FEATURE, SIBLINGS)
 
-#: A feature annotator: given a node of the cleaned tree and the chain of its ancestors'
-#: base labels (nearest first), return a suffix to append (without the ``~``) or "".
-Annotator = Callable[[Tree, Sequence[str]], str]
+#: A feature annotator: given a node of the cleaned tree, the chain of its ancestors' base
+#: labels (nearest first) and its parent node, return a suffix to append (without the ``~``)
+#: or "".
+Annotator = Callable[[Tree, Sequence[str], Tree], str]
+
+#: Attribute :func:`clean_tree` sets on a node that carried one of the kept function tags.
+FUNCTIONS_ATTR = "tw_functions"
 
 
 def is_preterminal(node: Tree) -> bool:
@@ -46,15 +51,34 @@ def is_preterminal(node: Tree) -> bool:
     return len(node) == 1 and isinstance(node[0], str)
 
 
-def clean_tree(tree: Tree) -> Tree:
+def clean_tree(tree: Tree, keep_functions: Collection[str] = ()) -> Tree:
     """Return a copy with function tags stripped and empty elements removed.
 
+    ``keep_functions``: function tags (e.g. ``TMP``; ``*`` for all) remembered on the node that
+    carried them, as a frozenset in the attribute :data:`FUNCTIONS_ATTR` (labels are stripped
+    all the same), for annotators that split on them. Indices (``NP-SBJ-1``) are not tags.
     Raises GrammarError when nothing is left (a tree made only of empty elements).
     """
-    cleaned = drop_empty_elements(strip_function_tags(tree))
+    if keep_functions:
+        dropped = drop_empty_elements(tree)
+        cleaned = None if dropped is None else _strip_keeping(dropped, frozenset(keep_functions))
+    else:
+        cleaned = drop_empty_elements(strip_function_tags(tree))
     if cleaned is None:
         raise GrammarError(f"tree has no words after removing empty elements: {tree}")
     return cleaned
+
+
+def _strip_keeping(node: Tree, keep: frozenset[str]) -> Tree:
+    label = node.label()
+    out = Tree(strip_label(label),
+               [_strip_keeping(c, keep) if isinstance(c, Tree) else c for c in node])
+    if label and label[0] != "-":
+        parts = {p for p in re.split(r"[-=]", label)[1:] if p.isalpha()}
+        marks = parts if "*" in keep else keep.intersection(parts)
+        if marks:
+            setattr(out, FUNCTIONS_ATTR, frozenset(marks))
+    return out
 
 
 def base_label(label: str) -> str:
@@ -83,39 +107,50 @@ def check_label(label: str) -> None:
 
 
 def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
-             tag_ancestors: int = 0, annotators: Sequence[Annotator] = ()) -> Tree:
+             tag_ancestors: int = 0, annotators: Sequence[Annotator] = (),
+             head_outward: bool = False, plain_intermediates: bool = False) -> Tree:
     """Markovize and binarize a cleaned tree (see the module docstring).
 
     ``horizontal`` None keeps all previous siblings (no horizontal markovization);
     ``vertical`` 1 means no parent annotation, 2 the parent, 3 parent and grandparent;
     ``tag_ancestors`` annotates POS tags with that many ancestors (0: none);
-    ``annotators`` add feature suffixes (see :data:`Annotator`).
+    ``annotators`` add feature suffixes (see :data:`Annotator`);
+    ``head_outward``: factor each node outward from its head child (:func:`head_index`):
+    the head first takes its right siblings, nearest first, then its left siblings, and each
+    intermediate node remembers the head's label and the ``horizontal`` siblings attached last
+    (``@NP^S|NN:JJ``); otherwise a right-factored chain from the first child;
+    ``plain_intermediates``: intermediate nodes name their parent's plain label (``@NP|DT``)
+    rather than its annotated one (``@NP^S~b|DT``), so that the phrases of one label share
+    their intermediate statistics whatever their context (only the first child and the
+    phrase's own unary and binary rules see the annotations).
     The root keeps its label unannotated (no ancestors, no features).
     """
     if horizontal is not None and horizontal < 0:
         raise GrammarError(f"horizontal markovization must be >= 0, got {horizontal}")
     if vertical < 1:
         raise GrammarError(f"vertical markovization must be >= 1, got {vertical}")
-    return _binarize(tree, (), horizontal, vertical, tag_ancestors, tuple(annotators))
+    return _binarize(tree, (), horizontal, vertical, tag_ancestors, tuple(annotators), None,
+                     (head_outward, plain_intermediates))
 
 
 def _annotated(node: Tree, ancestors: tuple[str, ...], vertical: int, tag_ancestors: int,
-               annotators: tuple[Annotator, ...]) -> str:
+               annotators: tuple[Annotator, ...], parent: Tree | None) -> str:
     label = node.label()
     check_label(label)
     depth = tag_ancestors + 1 if is_preterminal(node) else vertical
     up = ancestors[: depth - 1]
     out = label + "".join(ANCESTOR + a for a in up)
-    for annotate in annotators if ancestors else ():
-        suffix = annotate(node, ancestors)
+    for annotate in annotators if parent is not None else ():
+        suffix = annotate(node, ancestors, parent)
         if suffix:
             out += FEATURE + suffix
     return out
 
 
 def _binarize(node: Tree, ancestors: tuple[str, ...], horizontal: int | None, vertical: int,
-              tag_ancestors: int, annotators: tuple[Annotator, ...]) -> Tree:
-    label = _annotated(node, ancestors, vertical, tag_ancestors, annotators)
+              tag_ancestors: int, annotators: tuple[Annotator, ...],
+              parent: Tree | None, factoring: tuple[bool, bool]) -> Tree:
+    label = _annotated(node, ancestors, vertical, tag_ancestors, annotators, parent)
     if is_preterminal(node):
         return Tree(label, [node[0]])
     below = (node.label(),) + ancestors
@@ -123,19 +158,89 @@ def _binarize(node: Tree, ancestors: tuple[str, ...], horizontal: int | None, ve
     for child in node:
         if isinstance(child, str):
             raise GrammarError(f"word {child!r} outside a preterminal under {node.label()!r}")
-        kids.append(_binarize(child, below, horizontal, vertical, tag_ancestors, annotators))
+        kids.append(_binarize(child, below, horizontal, vertical, tag_ancestors, annotators,
+                              node, factoring))
     if len(kids) <= 2:
         return Tree(label, kids)
     names = [child.label() for child in node]
+    head_outward, plain = factoring
+    inner_name = node.label() if plain else label
+    if head_outward:
+        return _head_outward(label, inner_name, kids, names, head_index(node), horizontal)
     # Right-factored chain: X -> c0 @X|c0 ; @X|c0 -> c1 @X|c0,c1 ; ... ; @X|.. -> c_{m-2} c_{m-1}
     tail = kids[-1]
     for pos in range(len(kids) - 2, 0, -1):
         seen = names[:pos]
         if horizontal is not None:
             seen = seen[max(0, len(seen) - horizontal):] if horizontal else []
-        inter = INTERMEDIATE + label + SIBLINGS + ",".join(seen)
+        inter = INTERMEDIATE + inner_name + SIBLINGS + ",".join(seen)
         tail = Tree(inter, [kids[pos], tail])
     return Tree(label, [kids[0], tail])
+
+
+def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str], head: int,
+                  horizontal: int | None) -> Tree:
+    order = list(range(head + 1, len(kids))) + list(range(head - 1, -1, -1))
+    inner = kids[head]
+    added: list[str] = []
+    for step, pos in enumerate(order):
+        added.append(names[pos])
+        if step == len(order) - 1:
+            node_label = label
+        else:
+            seen = added if horizontal is None else (
+                added[max(0, len(added) - horizontal):] if horizontal else [])
+            node_label = (INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":"
+                          + ",".join(seen))
+        pair = [inner, kids[pos]] if pos > head else [kids[pos], inner]
+        inner = Tree(node_label, pair)
+    return inner
+
+
+# Head rules: for each phrase label, the search direction and the child labels to look for,
+# in priority order (after the head rules of Collins 1999, simplified; from memory). A phrase
+# with no rule, or no child found, takes its first child (right-to-left search: its last).
+_HEAD_RULES: dict[str, tuple[str, tuple[str, ...]]] = {
+    "ADJP": ("left", ("JJ", "JJR", "JJS", "ADJP", "VBN", "VBG", "QP", "NNS", "NN", "CD")),
+    "ADVP": ("right", ("RB", "RBR", "RBS", "ADVP", "JJ", "IN", "FW")),
+    "CONJP": ("right", ("CC", "RB", "IN")),
+    "FRAG": ("right", ()),
+    "INTJ": ("left", ("UH",)),
+    "NAC": ("left", ("NN", "NNS", "NNP", "NNPS", "NP", "NAC")),
+    "NP": ("right", ("NN", "NNP", "NNPS", "NNS", "NX", "POS", "JJR", "PRP", "CD", "NP", "QP",
+                     "JJ", "JJS", "RB", "ADJP", "DT", "FW")),
+    "NX": ("right", ("NN", "NNS", "NNP", "NNPS", "NX")),
+    "PP": ("left", ("IN", "TO", "VBG", "VBN", "RP", "FW", "PP")),
+    "PRN": ("left", ()),
+    "PRT": ("right", ("RP",)),
+    "QP": ("left", ("CD", "$", "NNS", "NN", "JJ", "RB", "DT", "QP")),
+    "RRC": ("right", ("VP", "NP", "ADVP", "ADJP", "PP")),
+    "S": ("left", ("VP", "S", "SBAR", "ADJP", "UCP", "NP", "TO", "IN")),
+    "SBAR": ("left", ("WHNP", "WHPP", "WHADVP", "WHADJP", "IN", "DT", "S", "SQ", "SINV",
+                      "SBAR", "FRAG")),
+    "SBARQ": ("left", ("SQ", "S", "SINV", "SBARQ", "FRAG")),
+    "SINV": ("left", ("VBZ", "VBD", "VBP", "VB", "MD", "VP", "S", "SINV", "ADJP", "NP")),
+    "SQ": ("left", ("VBZ", "VBD", "VBP", "VB", "MD", "VP", "SQ")),
+    "UCP": ("right", ()),
+    "VP": ("left", ("VBD", "VBN", "MD", "VBZ", "VB", "VBG", "VBP", "TO", "VP", "ADJP", "NN",
+                    "NNS", "NP")),
+    "WHADJP": ("left", ("WRB", "JJ", "ADJP")),
+    "WHADVP": ("right", ("WRB",)),
+    "WHNP": ("left", ("WDT", "WP", "WP$", "WHADJP", "WHPP", "WHNP", "NN", "NNS", "NNP")),
+    "WHPP": ("left", ("IN", "TO", "FW")),
+}
+
+
+def head_index(node: Tree) -> int:
+    """Index of the head child of a phrasal node of a cleaned tree (see _HEAD_RULES)."""
+    direction, wanted = _HEAD_RULES.get(node.label(), ("left", ()))
+    names = [c.label() if isinstance(c, Tree) else "" for c in node]
+    positions = range(len(names)) if direction == "left" else range(len(names) - 1, -1, -1)
+    for want in wanted:
+        for i in positions:
+            if names[i] == want:
+                return i
+    return 0 if direction == "left" else len(names) - 1
 
 
 def unbinarize(tree: Tree) -> Tree:

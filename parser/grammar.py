@@ -55,10 +55,16 @@ DEFAULT_VERTICAL = 2
 #: POS tags annotated with their parent's label (measured: words-only F1 73.6 vs 72.1 on the
 #: GUM split).
 DEFAULT_TAG_ANCESTORS = 1
-#: Feature annotations of parser.annotate used by default (measured by bench/accuracy_options.py,
-#: GUM split, words only, in one run: none 74.25, split-vp 75.28, split-vp + unary-internal
-#: 76.19 labelled F1).
-DEFAULT_FEATURES: tuple[str, ...] = ("split-vp", "unary-internal")
+#: Feature annotations of parser.annotate used by default. Measured by bench/accuracy_options.py
+#: (GUM split, words only, Viterbi labelled F1): none 74.25, split-vp 75.28, + unary-internal
+#: 76.19; each added alone to those two: in-grandparent 76.91, base-np 77.06, right-rec-np
+#: 76.64, tmp-np 76.46, possessive-np 76.36 (unary-dt 76.23, unary-rb 76.11, split-aux 76.10,
+#: split-cc 76.04, dominates-verb 76.27: left out); all seven 77.14 (consensus tree 79.60).
+DEFAULT_FEATURES: tuple[str, ...] = ("split-vp", "unary-internal", "in-grandparent", "base-np",
+                                     "right-rec-np", "possessive-np", "tmp-np")
+
+DEFAULT_HEAD_OUTWARD = False
+DEFAULT_PLAIN_INTERMEDIATES = False
 
 Progress = Callable[[int, int], None]
 
@@ -377,22 +383,26 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
                   vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
                   tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
                   features: Sequence[str] = DEFAULT_FEATURES, alpha: float = 1.0,
-                  beta: float = 1.0) -> Grammar:
+                  beta: float = 1.0, head_outward: bool = DEFAULT_HEAD_OUTWARD,
+                  plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES) -> Grammar:
     """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
 
     ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
     ``tag_ancestors``: parent annotation of POS tags; ``features``: names of extra
     annotations from :mod:`parser.annotate`; ``alpha``/``beta``: lexicon smoothing
-    (see :mod:`parser.lexicon`). ``progress(done, total)`` is called now and then.
+    (see :mod:`parser.lexicon`); ``head_outward``, ``plain_intermediates``: how phrases are
+    factored (see :func:`parser.binarize.binarize`). ``progress(done, total)`` is called now
+    and then.
     Raises GrammarError when there is no tree or the trees disagree on the root label.
     """
-    from parser.annotate import annotators_for
+    from parser.annotate import annotators_for, functions_kept
 
     t0 = time.perf_counter()
     tree_list = list(trees)
     if not tree_list:
         raise GrammarError("cannot train a grammar from zero trees")
     annotators = annotators_for(features)
+    keep = functions_kept(features)
     names: dict[str, int] = {}
     chains: dict[tuple[str, ...], int] = {}
     edge_count: Counter[tuple[int, int, int]] = Counter()
@@ -430,13 +440,14 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     for i, tree in enumerate(tree_list):
         if not isinstance(tree, Tree):
             raise GrammarError(f"training item {i} is not a tree: {tree!r}")
-        cleaned = bz.clean_tree(tree)
+        cleaned = bz.clean_tree(tree, keep)
         if root_label is None:
             root_label = cleaned.label()
         elif cleaned.label() != root_label:
             raise GrammarError(f"tree {i} has root label {cleaned.label()!r}, "
                                f"the first tree had {root_label!r}")
-        binary = bz.binarize(cleaned, horizontal, vertical, tag_ancestors, annotators)
+        binary = bz.binarize(cleaned, horizontal, vertical, tag_ancestors, annotators,
+                             head_outward, plain_intermediates)
         n_before = len(lex_obs)
         top(binary)
         if len(lex_obs) > n_before:
@@ -469,7 +480,8 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     meta = {
         "signature_scheme": SCHEME, "source": "trees", "horizontal": horizontal,
         "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
-        "alpha": alpha, "beta": beta, "trees": total,
+        "alpha": alpha, "beta": beta, "head_outward": head_outward,
+        "plain_intermediates": plain_intermediates, "trees": total,
         "tag_counts": {symbols[t]: lex_count[t] for t in lex_ids},
         "seconds": round(time.perf_counter() - t0, 3),
     }

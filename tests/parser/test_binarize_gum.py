@@ -53,13 +53,48 @@ def test_binarize_base_label() -> None:
 
 
 @pytest.mark.external
-@pytest.mark.parametrize("h,v,ta", [(1, 2, 0), (0, 1, 0), (2, 3, 1), (None, 2, 0)])
-def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int) -> None:
+@pytest.mark.parametrize("h,v,ta,heads", [(1, 2, 0, False), (0, 1, 0, False),
+                                           (2, 3, 1, False), (None, 2, 0, False),
+                                           (1, 2, 1, True), (None, 1, 0, True)])
+def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int,
+                                               heads: bool) -> None:
     # Open data set: GUM (Zeldes 2017), every shared tree.
     trees = gum_trees()
     assert len(trees) > 3500
     for t in trees:
         cleaned = clean_tree(t)
-        b = binarize(cleaned, horizontal=h, vertical=v, tag_ancestors=ta)
+        b = binarize(cleaned, horizontal=h, vertical=v, tag_ancestors=ta, head_outward=heads)
         assert _max_children(b) <= 2
         assert unbinarize(b) == cleaned
+
+
+def test_head_outward_factoring_of_one_phrase() -> None:
+    # Common practice, no source: an NP headed by its last noun takes its left siblings
+    # nearest first; each intermediate node names the head and the sibling attached last.
+    t = Tree.fromstring("(NP (DT the) (JJ big) (JJ red) (NN dog) (PP (IN of) (NP (NN x))))")
+    b = binarize(t, horizontal=1, vertical=1, head_outward=True)
+    assert b == Tree.fromstring(
+        "(NP (DT the) (@NP|NN:JJ (JJ big) (@NP|NN:JJ (JJ red) (@NP|NN:PP (NN dog)"
+        " (PP (IN of) (NP (NN x)))))))")
+    assert unbinarize(b) == t
+
+
+@pytest.mark.external
+@pytest.mark.parametrize("heads", [False, True])
+def test_plain_intermediates_undo_exact_on_every_gum_tree(heads: bool) -> None:
+    # Open data set: GUM (Zeldes 2017), every shared tree.
+    for t in gum_trees():
+        cleaned = clean_tree(t)
+        b = binarize(cleaned, horizontal=2, vertical=2, tag_ancestors=1, head_outward=heads,
+                     plain_intermediates=True)
+        assert _max_children(b) <= 2
+        assert unbinarize(b) == cleaned
+
+
+def test_plain_intermediates_name_the_plain_parent() -> None:
+    # Common practice, no source: the phrase keeps its parent annotation, the nodes inside
+    # it do not.
+    t = Tree.fromstring("(ROOT (S (NP (DT the) (JJ big) (NN dog)) (VP (VBD ran))))")
+    b = binarize(t, horizontal=1, vertical=2, plain_intermediates=True)
+    assert b[0][0] == Tree.fromstring("(NP^S (DT the) (@NP|DT (JJ big) (NN dog)))")
+    assert unbinarize(b) == t
