@@ -9,6 +9,8 @@ What it computes (model: :mod:`parser.grammar`; compiled loops: :mod:`parser.ker
     * the sentence's inside log-probability and, by inside-outside (Lari and Young 1990), the
       posterior probability of every labelled span (labels of the user's label set, i.e. with
       annotations removed), each conditioned on the constraints;
+    * with the posteriors, the consensus tree of :mod:`parser.consensus` (the brackets most
+      likely under all derivations, Goodman 1996), the most accurate single suggestion;
     * constraints, honoured exactly by all of the above: required spans (a constituent with the
       given label, or any constituent, spans exactly those words), forbidden spans (no
       constituent spans them), fixed POS tags.
@@ -35,6 +37,7 @@ from nltk import Tree
 
 from parser import kernels
 from parser.binarize import base_label, unbinarize
+from parser.consensus import DEFAULT_COST, consensus_tree
 from parser.errors import ConstraintError, ParserError
 from parser.grammar import Grammar
 from parser.trees import tree_from_spans
@@ -71,6 +74,9 @@ class ParseResult:
     posteriors: list[tuple[str, int, int, float]] = field(default_factory=list)
     fallback: bool = False
     seconds: float = 0.0
+    #: The consensus tree (:mod:`parser.consensus`), computed with the posteriors; None
+    #: without posteriors or for a fallback.
+    consensus: Tree | None = None
 
 
 class _Tables:
@@ -247,15 +253,22 @@ _FIXED_TAG_FLOOR = math.log(1e-12)
 
 def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False,
           constraints: Constraints | None = None,
-          posterior_threshold: float = POSTERIOR_THRESHOLD) -> ParseResult:
+          posterior_threshold: float = POSTERIOR_THRESHOLD,
+          consensus_cost: float = DEFAULT_COST) -> ParseResult:
     """Parse ``words``; see the module docstring. Raises ConstraintError for malformed
-    constraints and ParserError for an empty sentence; never for ordinary words."""
+    constraints and ParserError for an empty sentence; never for ordinary words.
+
+    With ``posteriors`` the result also holds the consensus tree (:mod:`parser.consensus`,
+    bracket cost ``consensus_cost``); ``posterior_threshold`` must stay below that cost."""
     t0 = time.perf_counter()
     words = [str(w) for w in words]
     if not words:
         raise ParserError("cannot parse an empty sentence")
     if k < 1:
         raise ParserError(f"k must be at least 1, got {k}")
+    if posteriors and not posterior_threshold < consensus_cost:
+        raise ParserError(f"posterior threshold {posterior_threshold} must be below the "
+                          f"consensus cost {consensus_cost}")
     tab = tables(g)
     prob = _prepare(g, tab, words, constraints)
     chart = _Chart(g, tab, prob) if prob.satisfiable else None
@@ -271,6 +284,9 @@ def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False
     result = ParseResult(trees=trees, logprobs=logprobs)
     if posteriors:
         result.inside_logprob, result.posteriors = chart.posteriors(posterior_threshold)
+        result.consensus = consensus_tree(
+            words, [tag for _, tag in trees[0].pos()], result.posteriors, g.root_label,
+            required=prob.required, cost=consensus_cost)
     result.seconds = time.perf_counter() - t0
     return result
 

@@ -159,6 +159,13 @@ def _check(table: list, words: list[str], c: Constraints | None) -> None:
     got_post = {(lab, a, b): p for lab, a, b, p in r.posteriors}
     for key in set(want_post) | set(got_post):
         assert abs(got_post.get(key, 0.0) - want_post.get(key, 0.0)) < 1e-9, key
+    # The consensus tree keeps the words, the constraints and only brackets worth their cost.
+    assert r.consensus is not None and r.consensus.leaves() == words
+    if c is not None:
+        assert _satisfies_shape(r.consensus, c)
+        cnodes, _ = _nodes(r.consensus)
+        for a, b in c.forbidden:
+            assert not any((x, y) == (a, b) and not pre for _, x, y, pre in cnodes)
 
 
 def _satisfies_shape(t: Tree, c: Constraints) -> bool:

@@ -42,6 +42,18 @@ def test_cli_train_then_parse_one_line_per_input_line(tmp_path: Path) -> None:
     assert read_tree(lines[2]).leaves() == "it saw the park .".split()
 
 
+def test_cli_parse_consensus_writes_the_consensus_tree(tmp_path: Path) -> None:
+    out = _train(tmp_path)
+    text = "the cat saw the dog .\n"
+    plain = CliRunner().invoke(parse_command, ["--grammar", str(out), "--consensus"],
+                               input=text)
+    as_json = CliRunner().invoke(parse_command, ["--grammar", str(out), "--json"], input=text)
+    assert plain.exit_code == 0 and as_json.exit_code == 0, plain.output + as_json.output
+    row = json.loads(as_json.output)
+    assert row["consensus"] is not None
+    assert plain.output.strip() == row["consensus"]
+
+
 def test_cli_parse_json_and_tagged(tmp_path: Path) -> None:
     out = _train(tmp_path)
     text = "the/DT dog/NN saw/VBD it/PRP ./.\nthe/DT cat/NN\n"
@@ -51,7 +63,10 @@ def test_cli_parse_json_and_tagged(tmp_path: Path) -> None:
     rows = [json.loads(line) for line in result.output.splitlines()]
     assert len(rows) == 2
     first = rows[0]
-    assert set(first) == {"trees", "logprobs", "inside_logprob", "posteriors", "fallback"}
+    assert set(first) == {"trees", "logprobs", "inside_logprob", "posteriors", "consensus",
+                          "fallback"}
+    # A grammar of three trees has no parse for this one: no consensus for a fallback.
+    assert first["fallback"] is True and first["consensus"] is None
     assert 1 <= len(first["trees"]) <= 3 and len(first["logprobs"]) == len(first["trees"])
     tree = read_tree(first["trees"][0])
     assert tree.pos() == [("the", "DT"), ("dog", "NN"), ("saw", "VBD"), ("it", "PRP"),
