@@ -261,7 +261,8 @@ class GrammarVersion(Base):
 
 
 class Suggestion(Base):
-    """The parser's output for one sentence under one grammar version (k trees, posteriors)."""
+    """The parser's output for one sentence under one grammar version (k trees, posteriors,
+    the consensus tree)."""
 
     __tablename__ = "suggestions"
     __table_args__ = (UniqueConstraint("sentence_id", "grammar_version_id"),)
@@ -273,6 +274,9 @@ class Suggestion(Base):
     trees: Mapped[list[Any]] = mapped_column(JSON)
     logprobs: Mapped[list[Any]] = mapped_column(JSON)
     posteriors: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    #: The consensus tree (parser.consensus), once the posteriors are in; None before that
+    #: and for a fallback.
+    consensus: Mapped[str | None] = mapped_column(Text, nullable=True, default=None)
     fallback: Mapped[bool] = mapped_column(Boolean, default=False)
     seconds: Mapped[float] = mapped_column(Float, default=0.0)
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)

@@ -136,7 +136,8 @@ def _suggestion_public(db: Session, corpus: Corpus,
         grammar_version=version.number if version else 0,
         alternatives=[AlternativePublic(tree=t, probability=_prob(lp))
                       for t, lp in zip(row.trees, row.logprobs, strict=False)],
-        posteriors=[tuple(p) for p in row.posteriors], fallback=row.fallback,
+        posteriors=[tuple(p) for p in row.posteriors], consensus=row.consensus,
+        fallback=row.fallback,
         seconds=row.seconds, complete=suggestions.is_complete(row))
 
 

@@ -63,6 +63,10 @@ class SuggestionPublic(BaseModel):
     posteriors: list[tuple[str, int, int, float]] = Field(
         description="[label, start, end, p]: posterior of each labelled span (labels without "
                     "function tags); spans not listed are below 0.001")
+    consensus: str | None = Field(default=None, description=(
+        "the consensus tree: the brackets most probable over all the grammar's readings "
+        "(expected labelled recall, each bracket kept when its posterior exceeds the cost); "
+        "null until complete, and for a fallback"))
     fallback: bool
     seconds: float
     complete: bool = Field(description="posteriors and probabilities are in; when false, "

@@ -18,10 +18,12 @@ What a Suggestion row holds (this module writes them; the JSON columns are plain
 ``trees`` one-line bracketed texts, best first; ``logprobs`` log P(tree | words), i.e. the
 parser's joint log-probability minus the sentence's inside log-probability (``None`` for a
 fallback tree, which has no probability); ``posteriors`` ``[label, start, end, p]`` for every
-labelled span with p >= the parser's threshold; ``fallback`` true when the grammar had no
-parse and the tree is the parser's well-formed stand-in. A row written by the fast path
+labelled span with p >= the parser's threshold; ``consensus`` the consensus tree (the brackets
+most probable under all the grammar's readings, :mod:`parser.consensus`; more accurate than the
+best single reading, so a new annotation starts from it when it is there); ``fallback`` true
+when the grammar had no parse and the tree is the parser's well-formed stand-in. A row written by the fast path
 (``complete=False``) has the trees only: ``logprobs`` all ``None`` and ``posteriors`` empty
-until completed (:func:`is_complete`).
+and no consensus until completed (:func:`is_complete`).
 
 Cost: one parse is O(n^3 R) (see :mod:`parser.chart`); about 0.1-0.5 s for 30 words with a
 grammar trained on GUM, which is why suggestions are cached in the table.
@@ -173,6 +175,7 @@ def suggestion_values(result: ParseResult, complete: bool = True) -> dict[str, A
         "logprobs": logprobs,
         "posteriors": [[lab, int(s), int(e), round(float(p), 4)]
                        for lab, s, e, p in result.posteriors],
+        "consensus": write_tree(result.consensus) if result.consensus is not None else None,
         "fallback": bool(result.fallback),
         "seconds": float(result.seconds),
     }
@@ -271,9 +274,14 @@ class StartTree:
 
 
 def start_tree(sentence: Sentence, suggestion: Suggestion | None) -> StartTree:
+    """The consensus tree when the suggestion has one, else its best reading, else flat."""
+    if suggestion is not None and suggestion.consensus:
+        return StartTree(suggestion.consensus, "suggestion",
+                         "Consensus of the active grammar: the brackets most probable over "
+                         "all its readings.")
     if suggestion is not None and suggestion.trees:
         note = ("The grammar found no full parse; this is its fallback tree."
-                if suggestion.fallback else "Best suggestion of the active grammar.")
+                if suggestion.fallback else "Best reading of the active grammar.")
         return StartTree(suggestion.trees[0], "suggestion", note)
     tree = flat_tree(_sentence_words(sentence))
     return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")

@@ -15,9 +15,9 @@ What it computes
        Keyed on the sentence id, not on the position in the list, so a sentence held out once
        stays held out while gold grows, and versions are scored on nested slices;
     3. train a grammar on the rest (parser.grammar.train_grammar, default markovization),
-       parse the words of each held-out tree with it (Viterbi, parser.chart.parse) and score
-       the parses against the held-out gold with PARSEVAL (parser.scoring.score_corpus,
-       default conventions): that is ``heldout_f1``;
+       parse the words of each held-out tree with it (parser.chart.parse; its consensus tree,
+       which new annotations start from) and score the parses against the held-out gold
+       with PARSEVAL (parser.scoring.score_corpus, default conventions): ``heldout_f1``;
     4. train the grammar that is stored and used on *all* gold, held-out slice included. The
        held-out F1 is then an estimate for a grammar trained on slightly less data (a
        ``1/heldout_every`` share less); we accept that small pessimism because every version is
@@ -380,9 +380,10 @@ def _score_heldout(grammar: Grammar, held: list[GoldTree],
     fallbacks = 0
     report = progress.phase(0.2, 0.85, "parsing the held-out gold")
     for i, g in enumerate(held):
-        result = parse(grammar, words(g.tree))
+        # Scored as annotators see it: the consensus tree a new annotation starts from.
+        result = parse(grammar, words(g.tree), posteriors=True)
         fallbacks += bool(result.fallback)
-        pairs.append((g.tree, rooted(result.trees[0])))
+        pairs.append((g.tree, rooted(result.consensus or result.trees[0])))
         report(i + 1, len(held))
     score = score_corpus(pairs)
     return score.f1, {"precision": score.precision, "recall": score.recall,

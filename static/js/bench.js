@@ -401,6 +401,22 @@ function renderReadings() {
     list.appendChild(li);
     return;
   }
+  if (sugg.consensus) {
+    const li = document.createElement("li");
+    const btn = document.createElement("button");
+    btn.type = "button";
+    btn.className = "reading consensus";
+    let tree = null;
+    try { tree = T.readTree(sugg.consensus); } catch { tree = null; }
+    const diff = tree ? T.bracketDifference(tree, S.tree) : null;
+    btn.textContent = "Consensus" + (diff === null ? "" : diff === 0 ? " · same as yours"
+      : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
+    btn.title = "The brackets most probable over all the grammar's readings.\n" + sugg.consensus;
+    btn.disabled = !S.editable;
+    btn.addEventListener("click", () => cmd.consensus());
+    li.appendChild(btn);
+    list.appendChild(li);
+  }
   sugg.alternatives.forEach((alt, i) => {
     const li = document.createElement("li");
     const btn = document.createElement("button");
@@ -761,6 +777,15 @@ const cmd = {
     const kept = T.pinsKept(S.pins, tree);
     commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
     say(`Started from reading ${i + 1}.` +
+      (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+  }),
+  consensus: guard(async () => {
+    const text = S.data.suggestion && S.data.suggestion.consensus;
+    if (!text) return;
+    const tree = T.readTree(text);
+    const kept = T.pinsKept(S.pins, tree);
+    commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
+    say("Started from the consensus." +
       (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
   }),
   undo: guard(async () => travel(S.undo, S.redo, "undo")),

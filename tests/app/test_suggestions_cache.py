@@ -137,3 +137,28 @@ def test_suggestions_refresh_unstarted_skips_gold_and_review(db, people) -> None
     rows = db.scalars(select(Suggestion).where(Suggestion.grammar_version_id == newer.id)).all()
     assert done == len(sentences) - 2
     assert {r.sentence_id for r in rows} == {s.id for s in sentences[2:]}
+
+
+def test_suggestions_consensus_is_the_start_tree_once_complete(db, people, login) -> None:
+    _, sentences, _ = _world(db, people)
+    me = login("ann1")
+    s = sentences[2]
+    fast = me.client.get(f"/api/bench/{s.id}").json()
+    assert fast["suggestion"]["consensus"] is None  # the fast row has no posteriors yet
+    full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
+    consensus = read_tree(full["consensus"])
+    assert consensus.leaves() == s.tokens
+    # Every bracket of the consensus has a posterior above the parser's bracket cost
+    # (parser.consensus.DEFAULT_COST); the root is the grammar's.
+    post = {(lab, a, b): p for lab, a, b, p in full["posteriors"]}
+    from parser.consensus import DEFAULT_COST
+
+    for lab, a, b in constituents(consensus):
+        if (lab, a, b) != ("ROOT", 0, len(s.tokens)):
+            assert post[(lab, a, b)] > DEFAULT_COST
+    # A sentence nobody has started now starts from the consensus tree.
+    other = sentences[3]
+    me.client.get(f"/api/bench/{other.id}/suggestion")
+    body = me.client.get(f"/api/bench/{other.id}").json()
+    assert body["tree"] == body["suggestion"]["consensus"]
+    assert body["start_note"].startswith("Consensus")

@@ -99,14 +99,25 @@ def stored(live_server, user_id: int, sentence_id: int) -> tuple[Annotation, lis
         return ann, list(revs)
 
 
+def _full_suggestion(page, sentence_id: int) -> dict:
+    """The complete suggestion, fetched by the page's own session."""
+    return page.evaluate("async id => (await fetch(`/api/bench/${id}/suggestion`)).json()",
+                         sentence_id)
+
+
 def check_reading_differences(page, current: str) -> None:
     """Each reading tells how many brackets and tags differ from the tree on screen."""
     data = page.evaluate("() => JSON.parse(document.getElementById('bench-data').textContent)")
+    data["suggestion"] = _full_suggestion(page, data["sentence"]["id"])
     texts = page.eval_on_selector_all("#readings button.reading",
                                       "els => els.map(e => e.textContent)")
     mine = read_tree(current)
-    for alt, text in zip(data["suggestion"]["alternatives"], texts, strict=True):
-        theirs = read_tree(alt["tree"])
+    trees = [alt["tree"] for alt in data["suggestion"]["alternatives"]]
+    if data["suggestion"]["consensus"]:
+        assert texts[0].startswith("Consensus")
+        trees.insert(0, data["suggestion"]["consensus"])
+    for tree, text in zip(trees, texts, strict=True):
+        theirs = read_tree(tree)
         d = len(set(constituents(theirs)) ^ set(constituents(mine))) + sum(
             x != y for x, y in zip(pos_tags(theirs), pos_tags(mine), strict=True))
         want = "same as yours" if d == 0 else f"{d} difference"
@@ -149,8 +160,12 @@ def test_bench_mouse_cycle(browser_page, live_server, ferry, output_dir) -> None
     page = browser_page
     _open(page, live_server, ferry)
     assert page.get_attribute("#save-state", "data-state") == "fresh"
-    assert page.locator("#readings button.reading").count() == 5
+    assert page.locator("#readings button.reading:not(.consensus)").count() == 5
     page.wait_for_selector("#bench[data-doubts='1']", timeout=60_000)
+    # with the posteriors in, the consensus heads the readings; a click starts from it
+    page.wait_for_selector("#readings button.consensus")
+    page.click("#readings button.consensus")
+    wait_tree(page, _full_suggestion(page, ferry["sentence_id"])["consensus"])
     page.click(f"#tree-pane g.tw-phrase[data-index='{1}']")  # something chosen, for the picture
     page.screenshot(path=str(output_dir / "bench-start.png"), full_page=True)
 
