@@ -21,9 +21,9 @@ fallback tree, which has no probability); ``posteriors`` ``[label, start, end, p
 labelled span with p >= the parser's threshold; ``consensus`` the consensus tree (the brackets
 most probable under all the grammar's readings, :mod:`parser.consensus`; more accurate than the
 best single reading, so a new annotation starts from it when it is there); ``fallback`` true
-when the grammar had no parse and the tree is the parser's well-formed stand-in. A row written by the fast path
-(``complete=False``) has the trees only: ``logprobs`` all ``None`` and ``posteriors`` empty
-and no consensus until completed (:func:`is_complete`).
+when the grammar had no parse and the tree is the parser's well-formed stand-in. A row
+written by the fast path (``complete=False``) has the trees only: ``logprobs`` all ``None``,
+``posteriors`` empty and no consensus until completed (:func:`is_complete`).
 
 Cost: one parse is O(n^3 R) (see :mod:`parser.chart`); about 0.1-0.5 s for 30 words with a
 grammar trained on GUM, which is why suggestions are cached in the table.
