@@ -5,8 +5,9 @@ Usage: python bench/parse_speed.py [--quick]
 
 Prints: training time on all shared GUM trees (Zeldes 2017), grammar load time, per-sentence
 NLTK/ours ratios on 11-20 word sentences (ours: median of repeats; NLTK: one run each, it is
-slow), our median times at 10, 20, 30 and 40 words for Viterbi, k = 10, posteriors and the full
-suggestion (best, k = 10, posteriors), peak memory; last line
+slow), our median times at 10, 20, 30 and 40 words (over five sentences of each length, five
+runs each; three and three with --quick) for Viterbi, k = 10, posteriors and the full
+suggestion (best, k = 10, posteriors and the consensus tree), peak memory; last line
 ``speedup_vs_nltk_len11_20=<median ratio>``. ``--quick`` runs the NLTK comparison on two
 sentences with a small grammar (400 trees, h=0, v=1; both parsers use it) and fewer repeats.
 """
@@ -35,13 +36,17 @@ from parser.trees import read_trees  # noqa: E402
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
 
 
-def _median_time(fn, repeats: int) -> float:
+def _times(fn, repeats: int) -> list[float]:
     times = []
     for _ in range(repeats):
         t0 = time.perf_counter()
         fn()
         times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+    return times
+
+
+def _median_time(fn, repeats: int) -> float:
+    return statistics.median(_times(fn, repeats))
 
 
 def main() -> None:
@@ -91,18 +96,20 @@ def main() -> None:
         print(f"len {len(words):2d}: nltk {nltk_s:8.2f} s  ours {1000 * ours_s:7.2f} ms  "
               f"ratio {nltk_s / ours_s:8.0f}  same best log-prob: {same}")
 
-    repeats = 3 if args.quick else 7
-    print("ours by length (median ms): viterbi | k=10 | posteriors | best+k=10+posteriors")
+    repeats = 3 if args.quick else 5
+    n_sent = 3 if args.quick else 5
+    print(f"ours by length (median ms over {n_sent} sentences x {repeats} runs): "
+          "viterbi | k=10 | posteriors | best+k=10+posteriors")
     for n in (10, 20, 30, 40):
-        words = by_len.get(n, [None])[0]
-        if words is None:
+        group = by_len.get(n, [])[:n_sent]
+        if not group:
             continue
-        v = _median_time(lambda w=words: parse(g, w), repeats)
-        k10 = _median_time(lambda w=words: parse(g, w, k=10), repeats)
-        post = _median_time(lambda w=words: parse(g, w, posteriors=True), repeats)
-        full = _median_time(lambda w=words: parse(g, w, k=10, posteriors=True), repeats)
-        print(f"len {n:2d}: {1000 * v:8.1f} | {1000 * k10:8.1f} | {1000 * post:8.1f} | "
-              f"{1000 * full:8.1f}")
+        cols = []
+        for kw in ({}, {"k": 10}, {"posteriors": True}, {"k": 10, "posteriors": True}):
+            runs = [t for w in group
+                    for t in _times(lambda w=w, kw=kw: parse(g, w, **kw), repeats)]
+            cols.append(statistics.median(runs))
+        print(f"len {n:2d}: " + " | ".join(f"{1000 * c:8.1f}" for c in cols))
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"peak memory: {peak:.0f} MB")
     print(f"speedup_vs_nltk_len11_20={statistics.median(ratios):.0f}")

@@ -91,6 +91,14 @@ class _Tables:
         self.lo_logp = np.ascontiguousarray(g.bin_logp[order])
         self.lo_w = np.exp(self.lo_logp)
         self.lo_off = _offsets(self.lo_left, n)
+        # Distinct (left, right) pairs of the rules in this order, and each pair's rule range.
+        first = np.ones(len(self.lo_left), dtype=bool)
+        first[1:] = ((self.lo_left[1:] != self.lo_left[:-1])
+                     | (self.lo_right[1:] != self.lo_right[:-1]))
+        starts = np.flatnonzero(first)
+        self.pair_left = np.ascontiguousarray(self.lo_left[starts])
+        self.pair_right = np.ascontiguousarray(self.lo_right[starts])
+        self.pair_off = np.append(starts, len(self.lo_left)).astype(np.int64)
         order = np.lexsort((g.bin_right, g.bin_left, g.bin_parent))
         self.po_parent = g.bin_parent[order]
         self.po_left = np.ascontiguousarray(g.bin_left[order])
@@ -312,7 +320,7 @@ class _Chart:
          self.VR) = kernels.viterbi(
             p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
             np.maximum(p.lex, kernels.NEG),
-            tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_logp,
+            tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_logp,
             tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab)
         for arr in (self.vt, self.vb):
             arr[arr <= kernels.LOW] = -np.inf
@@ -349,7 +357,7 @@ class _Chart:
             self._inside = kernels.inside(
                 p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
                 np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG),
-                tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
+                tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_w,
                 tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab)
         return self._inside
 
@@ -362,7 +370,8 @@ class _Chart:
         p, tab = self.p, self.tab
         post = kernels.outside(
             p.n, self.g.n_symbols, self.g.start, p.sid, p.dead, p.code, p.req_off, p.req_lab,
-            it, ib, sigma, il, ir, tab.lo_parent, tab.lo_left, tab.lo_right, tab.lo_w,
+            it, ib, sigma, il, ir, tab.pair_left, tab.pair_right, tab.pair_off,
+            tab.lo_parent, tab.lo_w,
             tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
             tab.lab_ids, len(tab.labels))
         spans, labs = np.nonzero(post > threshold)

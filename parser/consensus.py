@@ -16,7 +16,8 @@ What it computes
     annotation of the grammar (``NP^S`` and ``NP^VP`` both count as NP), which is why it scores
     better on labelled bracket F1. It has no probability of its own under the grammar.
 
-    Required spans are always bracketed (with their label, or with their most probable one),
+    Required spans are always bracketed (with their label, or with their most probable one:
+    under a required span the chart gives the span a labelled posterior),
     forbidden spans never are (their posteriors are zero under the constraints), and the POS
     tags are the caller's (the Viterbi tree's, which honour fixed tags).
 

@@ -24,7 +24,13 @@ Constraints enter as per-span data: ``dead[s]`` (span crosses a required span: n
 and ``code[s]``: -1 free, -2 forbidden (no node of the user's label set), otherwise required
 with the label ids ``req_lab[req_off[s]:req_off[s + 1]]`` (none listed: any node).
 
-Complexity: O(n^3 R) time per pass (R binary rules), O(n^2 N) memory. Limits: float64.
+Binary rules come grouped by their right-hand side (``p_left[q] p_right[q]`` for the rules
+``p_off[q]:p_off[q + 1]``, each with its parent and weight), so that the loop over split points
+runs once per distinct pair of children rather than once per rule (a GUM grammar has about
+2.3 rules per pair).
+
+Complexity: O(n^3 P + n^2 R) time per pass (P child pairs, R binary rules), O(n^2 N) memory.
+Limits: float64.
 """
 
 from __future__ import annotations
@@ -71,7 +77,7 @@ def _split_max(XL, XR, i, k, floor, maxl, maxr):
 
 @njit(cache=True, parallel=True, fastmath=True)
 def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
-            r_parent, r_left, r_right, r_logp,
+            p_left, p_right, p_off, r_parent, r_logp,
             up, uc, ulogp, nonempty, haslab):
     """Max-product chart over finite scores: "impossible" is :data:`NEG` (so the loops may be
     compiled with fast-math), ``lex`` must use NEG too. Returns vt, vb (float64[S, N] top/bottom
@@ -86,7 +92,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
     VL = np.full((n + 1, n_sym, n + 1), NEG)
     VR = np.full((n + 1, n_sym, n + 1), NEG)
     n_edge = up.shape[0]
-    n_rule = r_parent.shape[0]
+    n_pair = p_left.shape[0]
     for length in range(1, n + 1):
         for i in prange(n - length + 1):
             k = i + length
@@ -102,20 +108,28 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
                 maxr = np.empty(n_sym)
                 _split_max(VL, VR, i, k, NEG, maxl, maxr)
                 brule = bp_rule[s]
-                for r in range(n_rule):
-                    b = r_left[r]
-                    c = r_right[r]
-                    a = r_parent[r]
-                    w = r_logp[r]
-                    if maxl[b] + maxr[c] + w <= bot[a]:
+                for q in range(n_pair):
+                    b = p_left[q]
+                    c = p_right[q]
+                    bound = maxl[b] + maxr[c]
+                    if bound <= LOW:
+                        continue
+                    hope = False
+                    for r in range(p_off[q], p_off[q + 1]):
+                        if bound + r_logp[r] > bot[r_parent[r]]:
+                            hope = True
+                            break
+                    if not hope:
                         continue
                     m = NEG
                     for j in range(i + 1, k):
                         m = max(m, VL[i, b, j] + VR[k, c, j])
-                    sc = m + w
-                    if sc > bot[a]:
-                        bot[a] = sc
-                        brule[a] = r
+                    for r in range(p_off[q], p_off[q + 1]):
+                        a = r_parent[r]
+                        sc = m + r_logp[r]
+                        if sc > bot[a]:
+                            bot[a] = sc
+                            brule[a] = r
             kind = 0 if length == 1 else 1
             top = vt[s]
             bedge = bp_edge[s]
@@ -138,7 +152,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
 
 @njit(cache=True, parallel=True, fastmath=True)
 def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
-           r_parent, r_left, r_right, r_w, up, uc, uw, nonempty, haslab):
+           p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab):
     """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
     IL, IR (float64[N, n + 1, n + 1]) of ``it``.
 
@@ -153,7 +167,7 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
     IR = np.zeros((n + 1, n_sym, n + 1))
     live = np.zeros(n_span, np.bool_)
     n_edge = up.shape[0]
-    n_rule = r_parent.shape[0]
+    n_pair = p_left.shape[0]
     for length in range(1, n + 1):
         for i in prange(n - length + 1):
             k = i + length
@@ -192,15 +206,16 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
                     sr = sid[j, k]
                     f[j] = np.exp(sigma[sl] + sigma[sr] - big) if live[sl] and live[sr] else 0.0
                 _split_max(IL, IR, i, k, 0.0, maxl, maxr)
-                for r in range(n_rule):
-                    b = r_left[r]
-                    c = r_right[r]
+                for q in range(n_pair):
+                    b = p_left[q]
+                    c = p_right[q]
                     if maxl[b] == 0.0 or maxr[c] == 0.0:
                         continue
                     acc = 0.0
                     for j in range(i + 1, k):
                         acc += IL[i, b, j] * IR[k, c, j] * f[j]
-                    bot[r_parent[r]] += acc * r_w[r]
+                    for r in range(p_off[q], p_off[q + 1]):
+                        bot[r_parent[r]] += acc * r_w[r]
                 sigma[s] = big
             kind = 0 if length == 1 else 1
             top = it[s]
@@ -229,7 +244,7 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
 
 @njit(cache=True, parallel=True, fastmath=True)
 def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, IL, IR,
-            r_parent, r_left, r_right, r_w, up, uc, uw, nonempty, haslab,
+            p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab,
             lab_off, lab_ids, n_labels):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
     span (for edge e and kind k, the labels of its nodes are
@@ -244,7 +259,7 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
     OL = np.zeros((n + 1, n_sym, n + 1))
     OR = np.zeros((n + 1, n_sym, n + 1))
     n_edge = up.shape[0]
-    n_rule = r_parent.shape[0]
+    n_pair = p_left.shape[0]
     full = sid[0, n]
     if it[full, start] == 0.0:
         return post
@@ -290,15 +305,16 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
                 sr = sid[j, k]
                 f[j] = np.exp(sigma[sl] + sigma[sr] - sigma[s])
             _split_max(IL, IR, i, k, 0.0, maxl, maxr)
-            for r in range(n_rule):
-                oa = obot[r_parent[r]]
-                if oa == 0.0:
-                    continue
-                b = r_left[r]
-                c = r_right[r]
+            for q in range(n_pair):
+                b = p_left[q]
+                c = p_right[q]
                 if maxl[b] == 0.0 or maxr[c] == 0.0:
                     continue
-                g = oa * r_w[r]
+                g = 0.0
+                for r in range(p_off[q], p_off[q + 1]):
+                    g += obot[r_parent[r]] * r_w[r]
+                if g == 0.0:
+                    continue
                 for j in range(i + 1, k):
                     OL[i, b, j] += g * IR[k, c, j] * f[j]
                     OR[k, c, j] += g * IL[i, b, j] * f[j]
