@@ -11,12 +11,13 @@ from parser.chart import Constraints
 from parser.scoring import score_corpus
 from tests.parser.gum_grammar import split_grammar, split_trees
 
-# Floors a little under the figures measured with the default grammar (h=1, v=2, tags annotated
-# with their parent, features split-vp and unary-internal) on the GUM split (train: the 89 files
-# whose names sort first; test: the last 10, 436 sentences of at most 40 words): words only
-# F1 76.19 (bench/accuracy_options.py and this test); gold tags F1 77.80 (11 fallbacks).
-WORDS_ONLY_FLOOR = 0.75
-GOLD_TAGS_FLOOR = 0.76
+# Floors a little under the figures measured with the default grammar (parser.grammar: h=2 with
+# plain intermediate nodes, v=2, tags annotated with their parent, seven Klein-Manning features)
+# on the GUM split (train: the 89 files whose names sort first; test: the last 10, 436
+# sentences of at most 40 words), as (Viterbi tree, consensus tree) labelled F1:
+# words only (77.27, 79.85); gold tags (78.78, 79.69), 12 fallbacks.
+WORDS_ONLY_FLOORS = (0.765, 0.79)
+GOLD_TAGS_FLOORS = (0.77, 0.785)
 
 
 def _test_set() -> list:
@@ -27,22 +28,26 @@ def _test_set() -> list:
 
 @pytest.mark.slow
 @pytest.mark.external
-@pytest.mark.parametrize("gold_tags,floor", [(False, WORDS_ONLY_FLOOR),
-                                             (True, GOLD_TAGS_FLOOR)])
-def test_accuracy_gum_split_f1(gold_tags: bool, floor: float) -> None:
+@pytest.mark.parametrize("gold_tags,floors", [(False, WORDS_ONLY_FLOORS),
+                                              (True, GOLD_TAGS_FLOORS)])
+def test_accuracy_gum_split_f1(gold_tags: bool, floors: tuple[float, float]) -> None:
     # Open data set: GUM (Zeldes 2017): train on the 89 files whose names sort first, test on
     # the last 10, sentences of at most 40 words.
     gold = _test_set()
     assert len(gold) > 300
     constraints = [Constraints(tags=[tag for _, tag in t.pos()]) if gold_tags else None
                    for t in gold]
-    results = parse_many(split_grammar(), [t.leaves() for t in gold],
+    results = parse_many(split_grammar(), [t.leaves() for t in gold], posteriors=True,
                          constraints=constraints, processes=2)
-    score = score_corpus(zip(gold, [r.trees[0] for r in results], strict=True))
+    viterbi = score_corpus(zip(gold, [r.trees[0] for r in results], strict=True))
+    consensus = score_corpus(zip(gold, [r.consensus or r.trees[0] for r in results],
+                                 strict=True))
     fallbacks = sum(r.fallback for r in results)
-    print(f"gold_tags={gold_tags} F1={100 * score.f1:.2f} P={100 * score.precision:.2f} "
-          f"R={100 * score.recall:.2f} sentences={len(gold)} fallbacks={fallbacks}")
+    print(f"gold_tags={gold_tags} Viterbi F1={100 * viterbi.f1:.2f} consensus "
+          f"F1={100 * consensus.f1:.2f} P={100 * consensus.precision:.2f} "
+          f"R={100 * consensus.recall:.2f} sentences={len(gold)} fallbacks={fallbacks}")
     # From words only the smoothed lexicon must let every sentence parse; with gold tags a few
     # tag sequences the rules never saw may leave no tree (those get the fallback tree).
     assert fallbacks <= (len(gold) // 30 if gold_tags else 0)
-    assert score.f1 >= floor
+    assert viterbi.f1 >= floors[0]
+    assert consensus.f1 >= floors[1]
