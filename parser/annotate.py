@@ -63,13 +63,17 @@ def _only_child_tag(tag: str) -> Annotator:
     return annotate
 
 
-def _in_grandparent(node: Tree, ancestors: Sequence[str], parent: Tree) -> str:
-    """SPLIT-IN (Klein and Manning 2003, simplified: our own rule): a preposition or
-    subordinator (IN) marked with its grandparent's label, so that with the parent annotation
-    of tags, a PP's head under NP and under VP differ."""
-    if node.label() == "IN" and is_preterminal(node) and len(ancestors) > 1:
-        return ancestors[1]
-    return ""
+def _tag_grandparent(tags: frozenset[str]) -> Annotator:
+    """SPLIT-IN (Klein and Manning 2003, simplified: our own rule) and its kin: a POS tag of
+    ``tags`` marked with its grandparent's label, so that with the parent annotation of tags a
+    preposition heading a PP under NP and one under VP differ."""
+
+    def annotate(node: Tree, ancestors: Sequence[str], parent: Tree) -> str:
+        if node.label() in tags and is_preterminal(node) and len(ancestors) > 1:
+            return ancestors[1]
+        return ""
+
+    return annotate
 
 
 _BE = frozenset({"be", "is", "are", "was", "were", "am", "been", "being", "'s", "'re", "'m"})
@@ -160,7 +164,7 @@ ANNOTATORS: dict[str, Annotator] = {
     "dominates-verb": _dominates_verb,
     "unary-dt": _only_child_tag("DT"),
     "unary-rb": _only_child_tag("RB"),
-    "in-grandparent": _in_grandparent,
+    "in-grandparent": _tag_grandparent(frozenset({"IN"})),
     "split-aux": _split_aux,
     "split-cc": _split_cc,
     "split-percent": _split_percent,
