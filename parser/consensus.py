@@ -65,10 +65,10 @@ def consensus_tree(words: Sequence[str], tags: Sequence[str],
         if (i, k) not in best_label or p > best_label[(i, k)][0]:
             best_label[(i, k)] = (p, label)
     forced: dict[tuple[int, int], str | None] = {}
-    for i, k, label in required:
-        if (i, k) == (0, n) and label in (None, root):
+    for i, k, req_label in required:
+        if (i, k) == (0, n) and req_label in (None, root):
             continue
-        forced[(i, k)] = label
+        forced[(i, k)] = req_label
         gain[i, k] += n + 1.0  # more than all unforced gains together: always chosen
     # CKY over binary skeletons: score[i, k] = gain[i, k] + best split.
     score = np.zeros((n + 1, n + 1))
