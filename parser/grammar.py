@@ -63,8 +63,8 @@ DEFAULT_TAG_ANCESTORS = 1
 DEFAULT_FEATURES: tuple[str, ...] = ("split-vp", "unary-internal", "in-grandparent", "base-np",
                                      "right-rec-np", "possessive-np", "tmp-np")
 
-#: Factoring (bench/accuracy_options.py, GUM split, words only, consensus-tree labelled F1, in
-#: one run of the seven features above): h=1 with annotated intermediates 79.60 (2,023
+#: Factoring (bench/accuracy_options.py, GUM split, words only, consensus-tree labelled F1,
+#: each with the seven features above): h=1 with annotated intermediates 79.60 (2,023
 #: symbols); h=1 plain 79.34 (1,185); h=2 plain 79.85 (2,026); h=3 plain 79.73 (2,685); h=2
 #: annotated 79.83 (3,340); head-outward h=1 79.73 (2,809), h=2 plain 79.87 (2,892). So h=2
 #: with plain intermediates: as accurate as any, no larger than the former h=1 default.
