@@ -266,7 +266,7 @@ def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersi
 # --------------------------------------------------------------------------- start tree
 @dataclass
 class StartTree:
-    """What a new annotation starts from: the best suggestion, or a flat tree."""
+    """What a new annotation starts from: the consensus or best reading, or a flat tree."""
 
     tree: str
     source: str  # "suggestion" | "flat"
