@@ -402,40 +402,36 @@ function renderReadings() {
     return;
   }
   if (sugg.consensus) {
-    const li = document.createElement("li");
-    const btn = document.createElement("button");
-    btn.type = "button";
-    btn.className = "reading consensus";
-    let tree = null;
-    try { tree = T.readTree(sugg.consensus); } catch { tree = null; }
-    const diff = tree ? T.bracketDifference(tree, S.tree) : null;
-    btn.textContent = "Consensus" + (diff === null ? "" : diff === 0 ? " · same as yours"
-      : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
-    btn.title = "The brackets most probable over all the grammar's readings.\n" + sugg.consensus;
-    btn.disabled = !S.editable;
-    btn.addEventListener("click", () => cmd.consensus());
-    li.appendChild(btn);
-    list.appendChild(li);
+    addReading(list, sugg.consensus, "Consensus", "reading consensus",
+      "The brackets most probable over all the grammar's readings.\n" + sugg.consensus,
+      () => cmd.consensus());
   }
   sugg.alternatives.forEach((alt, i) => {
-    const li = document.createElement("li");
-    const btn = document.createElement("button");
-    btn.type = "button";
-    btn.className = "reading";
-    btn.dataset.reading = String(i);
-    let tree = null;
-    try { tree = T.readTree(alt.tree); } catch { tree = null; }
-    const diff = tree ? T.bracketDifference(tree, S.tree) : null;
     const prob = alt.probability !== null ? formatProbability(alt.probability)
       : sugg.complete ? "no probability (fallback)" : "probability coming…";
-    btn.textContent = `${i + 1}. ${prob}` + (diff === null ? "" : diff === 0 ? " · same as yours"
-      : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
-    btn.title = alt.tree;
-    btn.disabled = !S.editable;
-    btn.addEventListener("click", () => cmd.reading(i));
-    li.appendChild(btn);
-    list.appendChild(li);
+    const btn = addReading(list, alt.tree, `${i + 1}. ${prob}`, "reading", alt.tree,
+      () => cmd.reading(i));
+    btn.dataset.reading = String(i);
   });
+}
+
+// One button of the readings list: its name, then how far its tree is from the one on screen.
+function addReading(list, text, name, className, title, onClick) {
+  const li = document.createElement("li");
+  const btn = document.createElement("button");
+  btn.type = "button";
+  btn.className = className;
+  let tree = null;
+  try { tree = T.readTree(text); } catch { tree = null; }
+  const diff = tree ? T.bracketDifference(tree, S.tree) : null;
+  btn.textContent = name + (diff === null ? "" : diff === 0 ? " · same as yours"
+    : ` · ${diff} ${diff === 1 ? "difference" : "differences"} from yours`);
+  btn.title = title;
+  btn.disabled = !S.editable;
+  btn.addEventListener("click", onClick);
+  li.appendChild(btn);
+  list.appendChild(li);
+  return btn;
 }
 
 // ---------------------------------------------------------------------------- selection
@@ -700,6 +696,15 @@ function requireUnpinnedPhrase() {
   return s;
 }
 
+// Replace the tree by one the grammar offered, keeping the pins it still has.
+function startFrom(text, what) {
+  const tree = T.readTree(text);
+  const kept = T.pinsKept(S.pins, tree);
+  commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
+  say(`Started from ${what}.` +
+    (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+}
+
 const cmd = {
   add: guard(async () => {
     let start;
@@ -772,21 +777,11 @@ const cmd = {
   }),
   reading: guard(async (i) => {
     const alt = S.data.suggestion && S.data.suggestion.alternatives[i];
-    if (!alt) return;
-    const tree = T.readTree(alt.tree);
-    const kept = T.pinsKept(S.pins, tree);
-    commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
-    say(`Started from reading ${i + 1}.` +
-      (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+    if (alt) startFrom(alt.tree, `reading ${i + 1}`);
   }),
   consensus: guard(async () => {
     const text = S.data.suggestion && S.data.suggestion.consensus;
-    if (!text) return;
-    const tree = T.readTree(text);
-    const kept = T.pinsKept(S.pins, tree);
-    commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
-    say("Started from the consensus." +
-      (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+    if (text) startFrom(text, "the consensus");
   }),
   undo: guard(async () => travel(S.undo, S.redo, "undo")),
   redo: guard(async () => travel(S.redo, S.undo, "redo")),
