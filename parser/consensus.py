@@ -51,17 +51,14 @@ def consensus_tree(words: Sequence[str], tags: Sequence[str],
     n = len(words)
     gain = np.zeros((n + 1, n + 1))
     labels: dict[tuple[int, int], list[tuple[float, str]]] = {}
+    # Most probable label of every span, for required spans given without a label.
+    best_label: dict[tuple[int, int], tuple[float, str]] = {}
     for label, i, k, p in posteriors:
         if (i, k) == (0, n) and label == root:
             continue
         if p > cost:
             gain[i, k] += p - cost
             labels.setdefault((i, k), []).append((p, label))
-    # Most probable label of every span, for required spans given without a label.
-    best_label: dict[tuple[int, int], tuple[float, str]] = {}
-    for label, i, k, p in posteriors:
-        if (i, k) == (0, n) and label == root:
-            continue
         if (i, k) not in best_label or p > best_label[(i, k)][0]:
             best_label[(i, k)] = (p, label)
     forced: dict[tuple[int, int], str | None] = {}
@@ -76,10 +73,9 @@ def consensus_tree(words: Sequence[str], tags: Sequence[str],
     for length in range(2, n + 1):
         for i in range(n - length + 1):
             k = i + length
-            js = np.arange(i + 1, k)
             vals = score[i, i + 1:k] + score[i + 1:k, k]
             x = int(np.argmax(vals))
-            split[i, k] = js[x]
+            split[i, k] = i + 1 + x
             score[i, k] = gain[i, k] + vals[x]
     spans: list[tuple[str, int, int]] = []
     stack = [(0, n)]
@@ -93,8 +89,6 @@ def consensus_tree(words: Sequence[str], tags: Sequence[str],
                 names = [best_label[(i, k)][1]] if (i, k) in best_label else []
             elif want is not None and want not in names:
                 names.insert(0, want)
-        if (i, k) == (0, n):
-            names = [lab for lab in names if lab != root]
         spans.extend((lab, i, k) for lab in names)
         if k - i > 1:
             j = int(split[i, k])
