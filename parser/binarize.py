@@ -29,7 +29,7 @@ from collections.abc import Callable, Collection, Sequence
 from nltk import Tree
 
 from parser.errors import GrammarError
-from parser.trees import drop_empty_elements, strip_function_tags, strip_label
+from parser.trees import drop_empty_elements, strip_label
 
 INTERMEDIATE = "@"
 ANCESTOR = "^"
@@ -59,21 +59,19 @@ def clean_tree(tree: Tree, keep_functions: Collection[str] = ()) -> Tree:
     all the same), for annotators that split on them. Indices (``NP-SBJ-1``) are not tags.
     Raises GrammarError when nothing is left (a tree made only of empty elements).
     """
-    if keep_functions:
-        dropped = drop_empty_elements(tree)
-        cleaned = None if dropped is None else _strip_keeping(dropped, frozenset(keep_functions))
-    else:
-        cleaned = drop_empty_elements(strip_function_tags(tree))
-    if cleaned is None:
+    # Empty elements first: their tag (-NONE-) is the same before and after stripping.
+    dropped = drop_empty_elements(tree)
+    if dropped is None:
         raise GrammarError(f"tree has no words after removing empty elements: {tree}")
-    return cleaned
+    return _strip_keeping(dropped, frozenset(keep_functions))
 
 
 def _strip_keeping(node: Tree, keep: frozenset[str]) -> Tree:
+    """:func:`parser.trees.strip_function_tags`, remembering the tags of ``keep``."""
     label = node.label()
     out = Tree(strip_label(label),
                [_strip_keeping(c, keep) if isinstance(c, Tree) else c for c in node])
-    if label and label[0] != "-":
+    if keep and label and label[0] != "-":
         parts = {p for p in re.split(r"[-=]", label)[1:] if p.isalpha()}
         marks = parts if "*" in keep else keep.intersection(parts)
         if marks:
@@ -170,12 +168,16 @@ def _binarize(node: Tree, ancestors: tuple[str, ...], horizontal: int | None, ve
     # Right-factored chain: X -> c0 @X|c0 ; @X|c0 -> c1 @X|c0,c1 ; ... ; @X|.. -> c_{m-2} c_{m-1}
     tail = kids[-1]
     for pos in range(len(kids) - 2, 0, -1):
-        seen = names[:pos]
-        if horizontal is not None:
-            seen = seen[max(0, len(seen) - horizontal):] if horizontal else []
-        inter = INTERMEDIATE + inner_name + SIBLINGS + ",".join(seen)
+        inter = INTERMEDIATE + inner_name + SIBLINGS + ",".join(_window(names[:pos], horizontal))
         tail = Tree(inter, [kids[pos], tail])
     return Tree(label, [kids[0], tail])
+
+
+def _window(seen: list[str], horizontal: int | None) -> list[str]:
+    """The siblings an intermediate node remembers: the last ``horizontal`` (None: all)."""
+    if horizontal is None:
+        return seen
+    return seen[max(0, len(seen) - horizontal):] if horizontal else []
 
 
 def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str], head: int,
@@ -188,10 +190,8 @@ def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str
         if step == len(order) - 1:
             node_label = label
         else:
-            seen = added if horizontal is None else (
-                added[max(0, len(added) - horizontal):] if horizontal else [])
             node_label = (INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":"
-                          + ",".join(seen))
+                          + ",".join(_window(added, horizontal)))
         pair = [inner, kids[pos]] if pos > head else [kids[pos], inner]
         inner = Tree(node_label, pair)
     return inner
