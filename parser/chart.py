@@ -90,7 +90,6 @@ class _Tables:
         self.lo_parent = np.ascontiguousarray(g.bin_parent[order])
         self.lo_logp = np.ascontiguousarray(g.bin_logp[order])
         self.lo_w = np.exp(self.lo_logp)
-        self.lo_off = _offsets(self.lo_left, n)
         # Distinct (left, right) pairs of the rules in this order, and each pair's rule range.
         first = np.ones(len(self.lo_left), dtype=bool)
         first[1:] = ((self.lo_left[1:] != self.lo_left[:-1])

@@ -12,9 +12,9 @@ span (i, k) and a binary rule A -> B C the scores of all split points are two co
 vectorizable reduction.
 
 * :func:`viterbi`: max-product log scores and, per bottom cell, the best rule (its split point
-  is recovered from the chart). A rule is skipped when the best left score plus the best right
-  score plus its weight cannot beat the cell's current best: an exact bound, the result is the
-  same as the full loop.
+  is recovered from the chart). A pair of children is skipped when, for each of its rules, the
+  best left score plus the best right score plus the rule's weight cannot beat its parent's
+  current best: an exact bound, the result is the same as the full loop.
 * :func:`inside`: sum-product scores kept as ``value * exp(sigma[s])`` with each span's vector
   scaled to a maximum of 1, so nothing underflows whatever the sentence length.
 * :func:`outside`: outside scores scaled so that ``outside_top * inside_top`` is directly the
