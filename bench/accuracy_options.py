@@ -8,9 +8,9 @@ for each option set, labelled bracket F1 (parser.scoring) of the Viterbi tree an
 consensus tree (parser.consensus, the tree the service starts annotators from), precision and
 recall of the consensus, the number of fallback trees, the grammar's size and the training and
 parsing CPU seconds (time.process_time, so that a loaded machine changes little). The options
-are the feature annotations of parser.annotate (Klein and Manning 2003), markovization and the
-factoring, and the lexicon smoothing parameters of parser.lexicon; whatever an option does not
-name is the library's default.
+are the feature annotations of parser.annotate (Klein and Manning 2003), markovization (with
+the variable-order threshold min_context) and the factoring, and the lexicon smoothing
+parameters of parser.lexicon; whatever an option does not name is the library's default.
 """
 
 from __future__ import annotations
@@ -52,6 +52,10 @@ OPTIONS: dict[str, dict] = {
     "default,v=3": {"vertical": 3},
     "default,head-outward": {"head_outward": True},
     "default,alpha=0.5": {"alpha": 0.5},
+    "default,min-context=0": {"min_context": 0},
+    "default,min-context=3": {"min_context": 3},
+    "default,min-context=10": {"min_context": 10},
+    "default,v=3,min-context=0": {"vertical": 3, "min_context": 0},
     "default,beta=0.5": {"beta": 0.5},
 }
 

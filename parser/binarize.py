@@ -24,7 +24,9 @@ Complexity: linear in the size of the tree. Limits: recursion depth is the tree 
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Collection, Sequence
+from collections import Counter
+from collections.abc import Callable, Collection, Iterable, Sequence
+from typing import NamedTuple
 
 from nltk import Tree
 
@@ -106,7 +108,8 @@ def check_label(label: str) -> None:
 
 def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
              tag_ancestors: int = 0, annotators: Sequence[Annotator] = (),
-             head_outward: bool = False, plain_intermediates: bool = False) -> Tree:
+             head_outward: bool = False, plain_intermediates: bool = False,
+             rare: Callable[[str], bool] | None = None) -> Tree:
     """Markovize and binarize a cleaned tree (see the module docstring).
 
     ``horizontal`` None keeps all previous siblings (no horizontal markovization);
@@ -120,35 +123,57 @@ def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
     ``plain_intermediates``: intermediate nodes name their parent's plain label (``@NP|DT``)
     rather than its annotated one (``@NP^S~b|DT``), so that the phrases of one label share
     their intermediate statistics whatever their context (only the first child and the
-    phrase's own unary and binary rules see the annotations).
+    phrase's own unary and binary rules see the annotations);
+    ``rare``: variable-order markovization (the variable-history models of Klein and Manning
+    2003; from memory): a label for which ``rare(label)`` is true is replaced by the label one
+    order lower (an intermediate node remembering one sibling fewer, a phrase or tag without its
+    ancestors; features stay).
+    :func:`rare_labels` finds the rare labels of a training set.
     The root keeps its label unannotated (no ancestors, no features).
     """
     if horizontal is not None and horizontal < 0:
         raise GrammarError(f"horizontal markovization must be >= 0, got {horizontal}")
     if vertical < 1:
         raise GrammarError(f"vertical markovization must be >= 1, got {vertical}")
-    return _binarize(tree, (), horizontal, vertical, tag_ancestors, tuple(annotators), None,
-                     (head_outward, plain_intermediates))
+    settings = _Settings(horizontal, vertical, tag_ancestors, tuple(annotators), head_outward,
+                         plain_intermediates, rare)
+    return _binarize(tree, (), None, settings)
 
 
-def _annotated(node: Tree, ancestors: tuple[str, ...], vertical: int, tag_ancestors: int,
-               annotators: tuple[Annotator, ...], parent: Tree | None) -> str:
+class _Settings(NamedTuple):
+    horizontal: int | None
+    vertical: int
+    tag_ancestors: int
+    annotators: tuple[Annotator, ...]
+    head_outward: bool
+    plain: bool
+    rare: Callable[[str], bool] | None
+
+
+def rare_labels(trees: Iterable[Tree], min_count: int) -> Callable[[str], bool]:
+    """For :func:`binarize`'s ``rare``: true for the labels that occur fewer than
+    ``min_count`` times in ``trees`` (binarized at the full orders)."""
+    counts: Counter[str] = Counter(node.label() for tree in trees for node in tree.subtrees())
+    return lambda label: counts[label] < min_count
+
+
+def _annotated(node: Tree, ancestors: tuple[str, ...], parent: Tree | None,
+               st: _Settings) -> str:
     label = node.label()
     check_label(label)
-    depth = tag_ancestors + 1 if is_preterminal(node) else vertical
-    up = ancestors[: depth - 1]
-    out = label + "".join(ANCESTOR + a for a in up)
-    for annotate in annotators if parent is not None else ():
-        suffix = annotate(node, ancestors, parent)
-        if suffix:
-            out += FEATURE + suffix
-    return out
+    depth = st.tag_ancestors + 1 if is_preterminal(node) else st.vertical
+    annotators = st.annotators if parent is not None else ()
+    features = "".join(FEATURE + suffix for annotate in annotators
+                       if (suffix := annotate(node, ancestors, parent)))
+    full = label + "".join(ANCESTOR + a for a in ancestors[: depth - 1]) + features
+    if st.rare is not None and depth > 1 and st.rare(full):
+        return label + features
+    return full
 
 
-def _binarize(node: Tree, ancestors: tuple[str, ...], horizontal: int | None, vertical: int,
-              tag_ancestors: int, annotators: tuple[Annotator, ...],
-              parent: Tree | None, factoring: tuple[bool, bool]) -> Tree:
-    label = _annotated(node, ancestors, vertical, tag_ancestors, annotators, parent)
+def _binarize(node: Tree, ancestors: tuple[str, ...], parent: Tree | None,
+              st: _Settings) -> Tree:
+    label = _annotated(node, ancestors, parent, st)
     if is_preterminal(node):
         return Tree(label, [node[0]])
     below = (node.label(),) + ancestors
@@ -156,21 +181,29 @@ def _binarize(node: Tree, ancestors: tuple[str, ...], horizontal: int | None, ve
     for child in node:
         if isinstance(child, str):
             raise GrammarError(f"word {child!r} outside a preterminal under {node.label()!r}")
-        kids.append(_binarize(child, below, horizontal, vertical, tag_ancestors, annotators,
-                              node, factoring))
+        kids.append(_binarize(child, below, node, st))
     if len(kids) <= 2:
         return Tree(label, kids)
     names = [child.label() for child in node]
-    head_outward, plain = factoring
-    inner_name = node.label() if plain else label
-    if head_outward:
-        return _head_outward(label, inner_name, kids, names, head_index(node), horizontal)
+    inner_name = node.label() if st.plain else label
+    if st.head_outward:
+        return _head_outward(label, inner_name, kids, names, head_index(node), st)
     # Right-factored chain: X -> c0 @X|c0 ; @X|c0 -> c1 @X|c0,c1 ; ... ; @X|.. -> c_{m-2} c_{m-1}
     tail = kids[-1]
     for pos in range(len(kids) - 2, 0, -1):
-        inter = INTERMEDIATE + inner_name + SIBLINGS + ",".join(_window(names[:pos], horizontal))
+        inter = _intermediate(INTERMEDIATE + inner_name + SIBLINGS, names[:pos], st)
         tail = Tree(inter, [kids[pos], tail])
     return Tree(label, [kids[0], tail])
+
+
+def _intermediate(prefix: str, seen: list[str], st: _Settings) -> str:
+    """An intermediate node's label: ``prefix`` and the siblings it remembers (the last
+    ``horizontal`` of ``seen``, or one fewer when that label is rare)."""
+    window = _window(seen, st.horizontal)
+    full = prefix + ",".join(window)
+    if st.rare is not None and window and st.rare(full):
+        return prefix + ",".join(window[1:])
+    return full
 
 
 def _window(seen: list[str], horizontal: int | None) -> list[str]:
@@ -181,7 +214,7 @@ def _window(seen: list[str], horizontal: int | None) -> list[str]:
 
 
 def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str], head: int,
-                  horizontal: int | None) -> Tree:
+                  st: _Settings) -> Tree:
     order = list(range(head + 1, len(kids))) + list(range(head - 1, -1, -1))
     inner = kids[head]
     added: list[str] = []
@@ -190,8 +223,8 @@ def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str
         if step == len(order) - 1:
             node_label = label
         else:
-            node_label = (INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":"
-                          + ",".join(_window(added, horizontal)))
+            node_label = _intermediate(
+                INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":", added, st)
         pair = [inner, kids[pos]] if pos > head else [kids[pos], inner]
         inner = Tree(node_label, pair)
     return inner

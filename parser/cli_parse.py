@@ -26,7 +26,13 @@ from tqdm import tqdm
 from parser.batch import parse_many
 from parser.chart import Constraints, ParseResult
 from parser.errors import ParserError
-from parser.grammar import DEFAULT_HORIZONTAL, DEFAULT_VERTICAL, Grammar, train_grammar
+from parser.grammar import (
+    DEFAULT_HORIZONTAL,
+    DEFAULT_MIN_CONTEXT,
+    DEFAULT_VERTICAL,
+    Grammar,
+    train_grammar,
+)
 from parser.trees import read_trees, write_tree
 
 
@@ -39,8 +45,11 @@ from parser.trees import read_trees, write_tree
               show_default=True, help="Previous siblings an intermediate node remembers.")
 @click.option("--vertical", type=click.IntRange(min=1), default=DEFAULT_VERTICAL,
               show_default=True, help="1: plain labels; 2: parent annotation; 3: grandparent.")
+@click.option("--min-context", type=click.IntRange(min=0), default=DEFAULT_MIN_CONTEXT,
+              show_default=True,
+              help="Labels seen fewer times fall back one markovization order (0: never).")
 def train_command(treefiles: tuple[Path, ...], out: Path, horizontal: int,
-                  vertical: int) -> None:
+                  vertical: int, min_context: int) -> None:
     """Train a grammar from bracketed tree files."""
     t0 = time.perf_counter()
     trees = []
@@ -58,7 +67,7 @@ def train_command(treefiles: tuple[Path, ...], out: Path, horizontal: int,
             def progress(done: int, total: int) -> None:
                 bar.update(done - bar.n)
             g = train_grammar(trees, horizontal=horizontal, vertical=vertical,
-                              progress=progress)
+                              min_context=min_context, progress=progress)
         g.save(out)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc

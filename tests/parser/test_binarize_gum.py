@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from nltk import Tree
 
-from parser.binarize import base_label, binarize, clean_tree, unbinarize
+from parser.binarize import base_label, binarize, clean_tree, rare_labels, unbinarize
 from parser.errors import GrammarError
 from tests.parser.gum_grammar import gum_trees
 
@@ -42,6 +42,34 @@ def test_binarize_parent_annotation_and_markovization_shapes() -> None:
         assert unbinarize(tree) == t
 
 
+def test_binarize_rare_labels_fall_back_one_order() -> None:
+    # Variable-order markovization (the variable-history models of Klein and Manning 2003;
+    # from memory): a rare label is replaced by the label one order lower; the features stay,
+    # and the undo is still exact.
+    t = Tree.fromstring("(ROOT (S (NP (DT a) (JJ b) (JJ c) (NN d)) (VP (VB e))))")
+    rare = {"NP^S", "@NP|DT,JJ", "VB^VP"}
+    b = binarize(t, horizontal=2, vertical=2, tag_ancestors=1, plain_intermediates=True,
+                 rare=rare.__contains__)
+    assert b[0].label() == "S^ROOT"
+    np_node = b[0][0]
+    assert np_node.label() == "NP"
+    assert np_node[1].label() == "@NP|DT"
+    assert np_node[1][1].label() == "@NP|JJ"
+    assert np_node[0].label() == "DT^NP"
+    assert b[0][1][0].label() == "VB"
+    assert unbinarize(b) == t
+    full = binarize(t, horizontal=2, vertical=2, tag_ancestors=1, plain_intermediates=True)
+    assert full[0][0][1][1].label() == "@NP|DT,JJ"
+
+
+def test_binarize_rare_labels_counts_every_node() -> None:
+    trees = [Tree.fromstring("(S (NP (NN a)) (VP (VB b)))"),
+             Tree.fromstring("(S (NP (NN c)) (NP (NN d)))")]
+    rare = rare_labels(trees, 3)
+    assert rare("VP") and rare("S") and rare("unseen")
+    assert not rare("NP") and not rare("NN")
+
+
 def test_binarize_reserved_characters_in_labels_are_refused() -> None:
     with pytest.raises(GrammarError, match="reserved"):
         binarize(Tree.fromstring("(ROOT (N^P (NN a)))"))
@@ -66,6 +94,24 @@ def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int,
         b = binarize(cleaned, horizontal=h, vertical=v, tag_ancestors=ta, head_outward=heads)
         assert _max_children(b) <= 2
         assert unbinarize(b) == cleaned
+
+
+@pytest.mark.external
+@pytest.mark.parametrize("heads", [False, True])
+def test_binarize_undo_exact_with_rare_labels_backed_off(heads: bool) -> None:
+    # Open data set: GUM (Zeldes 2017), every shared tree, with the labels seen fewer than
+    # five times backed off one order.
+    cleaned = [clean_tree(t) for t in gum_trees()]
+    settings = {"horizontal": 2, "vertical": 3, "tag_ancestors": 1, "head_outward": heads,
+                "plain_intermediates": True}
+    rare = rare_labels((binarize(c, **settings) for c in cleaned), 5)
+    changed = 0
+    for c in cleaned:
+        b = binarize(c, rare=rare, **settings)
+        changed += b != binarize(c, **settings)
+        assert _max_children(b) <= 2
+        assert unbinarize(b) == c
+    assert changed > 100
 
 
 def test_head_outward_factoring_of_one_phrase() -> None:
