@@ -27,6 +27,7 @@ from app.models import (
 from app.services import training
 from app.services.suggestions import grammar_from_bytes
 from parser.chart import parse
+from parser.grammar import DEFAULT_HORIZONTAL, DEFAULT_MIN_CONTEXT, DEFAULT_VERTICAL
 from parser.trees import read_tree, words
 from tests.app.review_helpers import import_demo_gold, wait_for_version
 
@@ -42,6 +43,10 @@ def test_run_training_scores_a_heldout_slice_and_activates(app, db):
     assert v.options["slice_size"] == v.training_size - v.heldout_size
     assert 0.0 < v.heldout_f1 <= 1.0
     assert v.options["heldout"]["sentences"] == v.heldout_size
+    # the library's default markovization, recorded with the version
+    assert v.options["markovization"] == {"horizontal": DEFAULT_HORIZONTAL,
+                                          "vertical": DEFAULT_VERTICAL,
+                                          "min_context": DEFAULT_MIN_CONTEXT}
     assert v.train_seconds is not None and v.finished_at is not None and v.progress == 1.0
     db.expire_all()
     assert db.get(Corpus, corpus.id).active_grammar_id == v.id

@@ -42,6 +42,24 @@ def test_cli_train_then_parse_one_line_per_input_line(tmp_path: Path) -> None:
     assert read_tree(lines[2]).leaves() == "it saw the park .".split()
 
 
+def test_cli_train_min_context_backs_off_rare_labels(tmp_path: Path) -> None:
+    # Common practice, no source: in these three trees the object NP (a base NP under VP,
+    # NP^VP~b) occurs once, so a threshold of 3 backs it off to NP~b and 0 keeps it.
+    src = tmp_path / "trees.txt"
+    src.write_text(TREES)
+    symbols = {}
+    for threshold in ("0", "3"):
+        out = tmp_path / f"g{threshold}.npz"
+        result = CliRunner().invoke(train_command, [str(src), "--out", str(out),
+                                                    "--min-context", threshold])
+        assert result.exit_code == 0, result.output
+        g = Grammar.load(out)
+        assert g.meta["min_context"] == int(threshold)
+        symbols[threshold] = set(g.symbols)
+    assert "NP^VP~b" in symbols["0"] and "NP^VP~b" not in symbols["3"]
+    assert "NP~b" in symbols["3"] and "NP~b" not in symbols["0"]
+
+
 def test_cli_parse_consensus_writes_the_consensus_tree(tmp_path: Path) -> None:
     out = _train(tmp_path)
     text = "the cat saw the dog .\n"
