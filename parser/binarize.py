@@ -9,7 +9,8 @@ What it computes
       ancestors (parent annotation, Johnson 1998); horizontal markovization replaces a node with
       three or more children by a right-branching chain of intermediate nodes that remember only
       the ``horizontal`` previous siblings (Klein and Manning 2003). Unary chains are kept as
-      they are; the grammar collapses them later.
+      they are; the grammar collapses them later. With ``rare`` (see :func:`rare_labels`),
+      labels too rare in the training set fall back one order (variable-order markovization).
     * :func:`unbinarize` splices intermediate nodes back into their parents and removes every
       annotation, giving back the cleaned tree exactly.
 
