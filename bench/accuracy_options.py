@@ -52,11 +52,11 @@ OPTIONS: dict[str, dict] = {
     "default,v=3": {"vertical": 3},
     "default,head-outward": {"head_outward": True},
     "default,alpha=0.5": {"alpha": 0.5},
+    "default,beta=0.5": {"beta": 0.5},
     "default,min-context=0": {"min_context": 0},
     "default,min-context=3": {"min_context": 3},
     "default,min-context=10": {"min_context": 10},
     "default,v=3,min-context=0": {"vertical": 3, "min_context": 0},
-    "default,beta=0.5": {"beta": 0.5},
 }
 
 

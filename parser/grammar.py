@@ -56,10 +56,11 @@ DEFAULT_VERTICAL = 2
 #: GUM split).
 DEFAULT_TAG_ANCESTORS = 1
 #: Feature annotations of parser.annotate used by default. Measured by bench/accuracy_options.py
-#: (GUM split, words only, Viterbi labelled F1): none 74.25, split-vp 75.28, + unary-internal
-#: 76.19; each added alone to those two: in-grandparent 76.91, base-np 77.06, right-rec-np
-#: 76.64, tmp-np 76.46, possessive-np 76.36 (unary-dt 76.23, unary-rb 76.11, split-aux 76.10,
-#: split-cc 76.04, dominates-verb 76.27: left out); all seven 77.14 (consensus tree 79.60).
+#: (GUM split, words only, Viterbi labelled F1, before DEFAULT_MIN_CONTEXT): none 74.25,
+#: split-vp 75.28, + unary-internal 76.19; each added alone to those two: in-grandparent
+#: 76.91, base-np 77.06, right-rec-np 76.64, tmp-np 76.46, possessive-np 76.36 (unary-dt 76.23,
+#: unary-rb 76.11, split-aux 76.10, split-cc 76.04, dominates-verb 76.27: left out); all seven
+#: 77.14 (consensus tree 79.60).
 DEFAULT_FEATURES: tuple[str, ...] = ("split-vp", "unary-internal", "in-grandparent", "base-np",
                                      "right-rec-np", "possessive-np", "tmp-np")
 
