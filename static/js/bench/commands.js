@@ -1,0 +1,253 @@
+// bench/commands.js: every edit the annotator can make, guarded (read only, conflict) and
+// ending in commit(); also notes, leaving the page and zoom.
+
+import * as T from "../treemodel.js";
+import {api, errorText} from "./api.js";
+import {askLabel, confirmBox} from "./dialogs.js";
+import {render, spanWords} from "./draw.js";
+import {commit, flush, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
+import {renderSide} from "./side.js";
+import {$, S, root, sentenceId} from "./state.js";
+import {say, setStatus} from "./status.js";
+
+export function guard(fn) {
+  return async (...args) => {
+    if (!S.editable || S.conflict) {
+      say(S.conflict ? "Settle the conflict first." : "This annotation is read only.", "warn");
+      return;
+    }
+    try {
+      say("");
+      await fn(...args);
+    } catch (err) {
+      if (err instanceof T.EditError || err instanceof T.BracketError) say(err.message, "warn");
+      else throw err;
+    }
+  };
+}
+
+// Undo and redo: take the newest state of `from`, keeping the current one on `to`.
+export function travel(from, to, what) {
+  if (!from.length) throw new T.EditError(`nothing to ${what}`);
+  to.push(snapshot());
+  const state = from.pop();
+  setTree(state.tree, state.pins);
+  S.sel = state.sel;
+  S.range = null;
+  markDirty("edit");
+  render();
+}
+
+export function requireUnpinnedPhrase() {
+  if (!S.sel || S.sel.kind !== "phrase") throw new T.EditError("choose a constituent first");
+  if (S.sel.index === 0) throw new T.EditError("the root stays as it is");
+  const s = S.spans[S.sel.index];
+  if (T.isSpanPinned(S.pins, s)) throw new T.EditError(`${s.label} is pinned: unpin it first (p)`);
+  return s;
+}
+
+// Replace the tree by one the grammar offered, keeping the pins it still has.
+export function startFrom(text, what) {
+  const tree = T.readTree(text);
+  const kept = T.pinsKept(S.pins, tree);
+  commit(tree, kept.pins, "alternative", {kind: "phrase", index: 0});
+  say(`Started from ${what}.` +
+    (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+}
+
+export const cmd = {
+  add: guard(async () => {
+    let start;
+    let end;
+    if (S.range) [start, end] = S.range;
+    else if (S.sel && S.sel.kind === "phrase") ({start, end} = S.spans[S.sel.index]);
+    else if (S.sel) [start, end] = [S.sel.index, S.sel.index + 1];
+    else throw new T.EditError("choose words first: drag across them or use Shift+arrows");
+    const label = await askLabel(`New constituent over “${spanWords(start, end)}”`, "",
+      S.labels, "label");
+    if (!label) return;
+    const out = T.addConstituent(S.tree, start, end, label);
+    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index});
+  }),
+  relabel: guard(async () => {
+    if (!S.sel) throw new T.EditError("choose a constituent or a POS tag first");
+    if (S.sel.kind === "tag") {
+      const i = S.sel.index;
+      if (T.isTagPinned(S.pins, i)) throw new T.EditError("this tag is pinned: unpin it first (p)");
+      const tag = await askLabel(`POS tag of “${S.tokens[i]}”`, T.tagsOf(S.tree)[i], S.tags, "tag");
+      if (!tag) return;
+      commit(T.setTag(S.tree, i, tag), S.pins, "edit", {kind: "tag", index: i});
+      return;
+    }
+    const s = S.spans[S.sel.index];
+    if (T.isSpanPinned(S.pins, s)) throw new T.EditError(`${s.label} is pinned: unpin it first (p)`);
+    const label = await askLabel(`Relabel ${s.label} over “${spanWords(s.start, s.end)}”`,
+      s.label, S.labels, "label");
+    if (!label || label === s.label) return;
+    commit(T.relabel(S.tree, S.sel.index, label), S.pins, "edit", S.sel);
+  }),
+  dissolve: guard(async () => {
+    requireUnpinnedPhrase();
+    const parent = S.spans[S.sel.index].parent;
+    commit(T.removeConstituent(S.tree, S.sel.index), S.pins, "edit",
+      {kind: "phrase", index: parent});
+  }),
+  edge: guard(async (edge, delta) => {
+    requireUnpinnedPhrase();
+    const out = T.moveEdge(S.tree, S.sel.index, edge, delta);
+    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index});
+  }),
+  pin: guard(async () => {
+    if (!S.sel) throw new T.EditError("choose a constituent or a POS tag to pin");
+    const pins = S.sel.kind === "tag"
+      ? T.toggleTagPin(S.pins, S.sel.index, T.tagsOf(S.tree)[S.sel.index])
+      : T.toggleSpanPin(S.pins, S.spans[S.sel.index]);
+    commit(S.tree, pins, "edit", S.sel);
+  }),
+  regrow: guard(async () => {
+    if (!S.data.suggestion) throw new T.EditError("no grammar yet: nothing to re-parse with");
+    const btn = root.querySelector('[data-cmd="regrow"]');
+    btn.classList.add("busy");
+    say("Re-parsing around the pins…");
+    try {
+      const r = await api("POST", `/api/bench/${sentenceId}/reparse`, {pins: S.pins, k: 1});
+      if (r.status !== 200) { say(`Re-parse refused: ${errorText(r.body)}`, "warn"); return; }
+      const tree = T.readTree(r.body.trees[0]);
+      const kept = T.pinsKept(S.pins, tree);
+      if (kept.dropped) {
+        say(`The re-parse lost ${kept.dropped} pins; nothing changed.`, "warn");
+        return;
+      }
+      commit(tree, S.pins, "reparse", {kind: "phrase", index: 0});
+      say(r.body.fallback ? "Re-parsed: the grammar had no full parse, this is its fallback."
+        : `Re-parsed in ${Math.round(r.body.seconds * 1000)} ms; every pin kept.`);
+    } finally {
+      btn.classList.remove("busy");
+    }
+  }),
+  reading: guard(async (i) => {
+    const alt = S.data.suggestion && S.data.suggestion.alternatives[i];
+    if (alt) startFrom(alt.tree, `reading ${i + 1}`);
+  }),
+  consensus: guard(async () => {
+    const text = S.data.suggestion && S.data.suggestion.consensus;
+    if (text) startFrom(text, "the consensus");
+  }),
+  undo: guard(async () => travel(S.undo, S.redo, "undo")),
+  redo: guard(async () => travel(S.redo, S.undo, "redo")),
+  applyText: guard(async () => {
+    const area = $("tree-text");
+    const err = $("text-error");
+    let tree;
+    try {
+      tree = T.readTree(area.value);
+    } catch (e) {
+      if (!(e instanceof T.BracketError)) throw e;
+      showTextError(`Line ${e.line}, column ${e.column}: ${e.reason}`, e.line, e.column);
+      return;
+    }
+    if (T.isPreterminal(tree)) {
+      showTextError("The tree needs a constituent above the POS tags.", 1, 1);
+      return;
+    }
+    const mm = T.wordMismatch(tree, S.tokens);
+    if (mm) {
+      showTextError(`Words differ from the sentence: ${T.describeMismatch(mm, S.tokens.length)}.`);
+      return;
+    }
+    const unknown = unknownIn(tree).filter((l) => !S.confirmed.has(l));
+    if (unknown.length) {
+      if (S.data.unknown_label_policy === "refuse") {
+        showTextError(`Not in this corpus's label or tag set: ${unknown.join(", ")}.`);
+        return;
+      }
+      const ok = await confirmBox(`Not in this corpus's label or tag set: ${unknown.join(", ")}. ` +
+        "Use them anyway?", "Use them", "Cancel");
+      if (!ok) return;
+      unknown.forEach((l) => S.confirmed.add(l));
+    }
+    err.hidden = true;
+    S.textEditing = false;
+    const kept = T.pinsKept(S.pins, tree);
+    commit(tree, kept.pins, "text", {kind: "phrase", index: 0});
+    $("tree-pane").focus({preventScroll: true});
+    say("Text applied." + (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
+  }),
+  handIn: guard(async () => {
+    const ok = await confirmBox("Hand in this tree? It cannot be changed afterwards.",
+      "Hand in", "Keep working");
+    if (!ok) return;
+    if (!S.head && !S.dirty) markDirty(S.data.source === "flat" ? "flat" : "suggestion");
+    if (!(await flush())) { say("The tree is not saved yet, so it was not handed in.", "warn"); return; }
+    const r = await api("POST", `/api/bench/${sentenceId}/submit`, {base: S.head});
+    if (r.status === 200) {
+      S.data.annotation = r.body;
+      S.editable = false;
+      setStatus("readonly", "handed in");
+      say("Handed in. Press n for the next sentence.");
+      $("queue-submitted").textContent = String(S.data.queue.submitted + 1);
+      render();
+    } else if (r.status === 409) {
+      showConflict(r.body);
+    } else {
+      say(`Not handed in: ${errorText(r.body)}`, "warn");
+    }
+  }),
+  hold: guard(async () => {
+    const reason = $("hold-reason").value;
+    if (!reason) { say("Choose a reason to hold the sentence back.", "warn"); return; }
+    const r = await api("PATCH", `/api/bench/${sentenceId}/note`,
+      {flag: reason, comment: $("note-text").value});
+    if (r.status === 200) { S.data.annotation = r.body; say(`Held back: ${reason}.`); }
+    else say(`Not held back: ${errorText(r.body)}`, "warn");
+    renderSide();
+  }),
+  release: guard(async () => {
+    const r = await api("PATCH", `/api/bench/${sentenceId}/note`, {clear_flag: true});
+    if (r.status === 200) { S.data.annotation = r.body; say("Released: back to draft."); }
+    renderSide();
+  }),
+};
+
+export async function saveNote() {
+  const r = await api("PATCH", `/api/bench/${sentenceId}/note`, {comment: $("note-text").value});
+  if (r.status === 200) { S.data.annotation = r.body; say("Note saved."); }
+  else say(`Note not saved: ${errorText(r.body)}`, "warn");
+}
+
+export function showTextError(message, line, column) {
+  const err = $("text-error");
+  err.textContent = message;
+  err.hidden = false;
+  const area = $("tree-text");
+  if (line) {
+    const lines = area.value.split("\n");
+    let offset = 0;
+    for (let k = 0; k < line - 1 && k < lines.length; k++) offset += lines[k].length + 1;
+    offset += (column || 1) - 1;
+    area.focus();
+    area.setSelectionRange(offset, Math.min(area.value.length, offset + 1));
+  }
+}
+
+export async function go(id) {
+  if (!id) { say("No sentence there.", "warn"); return; }
+  if (S.editable && !(await flush())) {
+    say("Not leaving: the last change is not saved yet.", "warn");
+    return;
+  }
+  window.location.href = `/bench/${id}`;
+}
+
+export function setZoom(z) {
+  S.zoom = Math.min(3, Math.max(0.3, z));
+  $("zoom-level").textContent = `${Math.round(S.zoom * 100)}%`;
+  render();
+}
+
+// A deep tree starts zoomed out so that its words are on screen (never below 55%).
+export function fitHeight() {
+  const pane = $("tree-pane");
+  const room = parseFloat(getComputedStyle(pane).maxHeight) - 12;
+  if (S.view && S.view.height > room && room > 0) setZoom(Math.max(0.55, room / S.view.height));
+}

@@ -1,0 +1,75 @@
+// bench/draw.js: the tree drawn with its marks (doubt dots, pins, the chosen node), and how
+// probabilities are written.
+
+import * as T from "../treemodel.js";
+import {drawTree} from "../treeview.js";
+import {cmd} from "./commands.js";
+import {select} from "./navigate.js";
+import {renderReadings, renderSide, renderText} from "./side.js";
+import {$, S, UNSURE, WEAK} from "./state.js";
+
+export function spanWords(start, end) {
+  return S.tokens.slice(start, end).join(" ");
+}
+
+export function posteriorOf(s) {
+  if (!S.data.suggestion || !S.data.suggestion.complete) return null;
+  return S.posteriors.get(`${T.stripLabel(s.label)} ${s.start} ${s.end}`) ?? 0;
+}
+
+export function marks(ref) {
+  if (ref.kind === "tag") {
+    const pinned = T.isTagPinned(S.pins, ref.index);
+    return {pinned, title: `${T.tagsOf(S.tree)[ref.index]} (POS tag of word ${ref.index + 1})` +
+      (pinned ? " · pinned" : "")};
+  }
+  const s = S.spans[ref.index];
+  const pinned = T.isSpanPinned(S.pins, s);
+  const p = ref.index === 0 ? null : posteriorOf(s);
+  const out = {pinned, classes: [], dots: 0};
+  let title = `${s.label} · words ${s.start + 1}-${s.end}`;
+  if (p !== null) {
+    title += ` · grammar: ${formatP(p)}`;
+    if (p < WEAK) { out.classes.push("tw-weak"); out.dots = 2; } else if (p < UNSURE) {
+      out.classes.push("tw-unsure"); out.dots = 1;
+    }
+  }
+  if (pinned) title += " · pinned";
+  out.title = title;
+  return out;
+}
+
+// A reading's probability: tiny ones in scientific notation rather than all "under 0.1%".
+export function formatProbability(p) {
+  if (p >= 0.001) return formatP(p);
+  if (p <= 0) return "0";
+  const exp = Math.floor(Math.log10(p));
+  const sup = String(exp).replace(/-/g, "⁻").replace(/\d/g, (d) => "⁰¹²³⁴⁵⁶⁷⁸⁹"[Number(d)]);
+  return `${(p / 10 ** exp).toFixed(1)}·10${sup}`;
+}
+
+export function formatP(p) {
+  if (p < 0.001) return "under 0.1%";
+  return `${(p * 100).toFixed(p < 0.1 ? 1 : 0)}%`;
+}
+
+export function render() {
+  S.view = drawTree($("tree-pane"), S.tree, {
+    marks, selected: S.sel, range: S.range, zoom: S.zoom,
+    onSelect: (ref) => { select(ref); },
+    onActivate: (ref) => { select(ref); cmd.relabel(); },
+    onRange: (a, b, done) => {
+      if (!done) return;
+      S.range = [a, b];
+      S.rangeAnchor = a;
+      S.rangeHead = b - 1;
+      S.sel = null;
+      $("tree-pane").focus({preventScroll: true});
+      render();
+    },
+  });
+  if (S.sel) S.view.reveal(S.sel);
+  renderSide();
+  renderText();
+  renderReadings();
+}

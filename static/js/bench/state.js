@@ -1,0 +1,44 @@
+// bench/state.js: shared state of the Bench page: its elements, the sentence, the tree on
+// screen, undo/redo, the save machinery's flags, the open dialog.
+
+import * as T from "../treemodel.js";
+
+export const root = document.getElementById("bench");
+export const $ = (id) => document.getElementById(id);
+export const csrf = document.querySelector('meta[name="csrf-token"]').content;
+export const sentenceId = Number(root.dataset.sentenceId);
+export const draftKey = `treewright-draft-${root.dataset.userId}-${sentenceId}`;
+
+export const SAVE_DELAY_MS = 600;
+export const RETRY_MS = 3000;
+export const UNSURE = 0.5;   // below: one dot, dashed amber frame
+export const WEAK = 0.2;     // below: two dots, rust frame
+
+export const S = {
+  data: null,
+  tokens: [],
+  tree: null,
+  spans: [],
+  pins: T.emptyPins(),
+  head: 0,
+  editable: false,
+  sel: null,          // {kind: "phrase"|"tag", index}
+  range: null,        // [start, end)
+  rangeAnchor: null,
+  rangeHead: null,
+  undo: [],
+  redo: [],
+  zoom: 1,
+  dirty: false,
+  pendingSource: "edit",
+  inflight: null,
+  again: false,
+  conflict: null,
+  posteriors: new Map(),
+  labels: new Set(),
+  tags: new Set(),
+  confirmed: new Set(),
+  textEditing: false,
+  view: null,
+  modal: null,
+};
