@@ -17,16 +17,20 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from datetime import datetime
 from pathlib import Path
-from typing import Any, TypeVar
+from typing import TYPE_CHECKING, Any, TypeVar
 
 import click
-from sqlalchemy import select
-from sqlalchemy.orm import Session
 
-from app.db import alembic_config, make_engine, make_sessionmaker, upgrade_to_head
-from app.models import ROLES, Corpus, Document
-from app.services.errors import ServiceError
 from app.settings import Settings
+
+if TYPE_CHECKING:  # the database layer and the parser load only in the commands that use them
+    from sqlalchemy.orm import Session
+
+    from app.models import Corpus
+
+#: The roles, as app.models names them (spelled out here so that ``--help`` loads no
+#: database code; tests/app/test_cli_startup.py checks that the two agree).
+ROLES = ("admin", "adjudicator", "annotator")
 
 F = TypeVar("F", bound=Callable[..., Any])
 #: Imports with more sentences than this show a progress bar.
@@ -50,6 +54,8 @@ def make_settings(data_dir: Path | None, **overrides: Any) -> Settings:
 @contextmanager
 def open_db(settings: Settings) -> Iterator[Session]:
     """A session on the migrated database; the engine is closed afterwards."""
+    from app.db import make_engine, make_sessionmaker, upgrade_to_head
+
     upgrade_to_head(settings)
     engine = make_engine(settings)
     db = make_sessionmaker(engine)()
@@ -63,6 +69,8 @@ def open_db(settings: Settings) -> Iterator[Session]:
 @contextmanager
 def friendly_errors() -> Iterator[None]:
     """Service errors become a one-line message and exit status 1."""
+    from app.services.errors import ServiceError
+
     try:
         yield
     except ServiceError as err:
@@ -70,6 +78,10 @@ def friendly_errors() -> Iterator[None]:
 
 
 def corpus_named(db: Session, name: str) -> Corpus:
+    from sqlalchemy import select
+
+    from app.models import Corpus
+
     corpus = db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
     if corpus is None:
         known = ", ".join(repr(n) for n in db.scalars(select(Corpus.name).order_by(Corpus.name)))
@@ -78,7 +90,29 @@ def corpus_named(db: Session, name: str) -> Corpus:
     return corpus
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class _Commands(click.Group):
+    """The command group; the parser's commands (``train``, ``parse``, ``score``) are imported
+    only when one of them runs or the command list is shown, since loading the parser (numba,
+    NLTK) takes longer than most commands themselves."""
+
+    LAZY = {"train": ("parser.cli_parse", "train_command"),
+            "parse": ("parser.cli_parse", "parse_command"),
+            "score": ("parser.cli_score", "score")}
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted([*super().list_commands(ctx), *self.LAZY])
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        if cmd_name in self.LAZY:
+            import importlib
+
+            module, name = self.LAZY[cmd_name]
+            command: click.Command = getattr(importlib.import_module(module), name)
+            return command
+        return super().get_command(ctx, cmd_name)
+
+
+@click.group(cls=_Commands, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="treewright")
 def main() -> None:
     """Treewright: build a constituency treebank with a parser in the loop."""
@@ -99,6 +133,8 @@ def _serve(settings: Settings, host: str, port: int, workers: int) -> None:
         os.environ["TREEWRIGHT_DATA_DIR"] = str(settings.data_dir.resolve())
         if settings.database_url:
             os.environ["TREEWRIGHT_DATABASE_URL"] = settings.database_url
+        from app.db import upgrade_to_head
+
         upgrade_to_head(settings)  # once, before the workers race to do it
         # proxy headers as with one worker: X-Forwarded-For is believed from 127.0.0.1 only
         # (a reverse proxy on this machine), so the per-address login delay sees real clients
@@ -140,6 +176,8 @@ def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
             Path(str(path) + suffix).unlink(missing_ok=True)
         return kept
     from alembic import command
+
+    from app.db import alembic_config
 
     command.downgrade(alembic_config(settings), "base")
     return None
@@ -291,6 +329,9 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
                    ratios: str | None, seed: int, by: str, out: Path | None, as_zip: bool,
                    data_dir: Path | None) -> None:
     """Export gold trees as bracketed text, one tree per line."""
+    from sqlalchemy import select
+
+    from app.models import Document
     from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
 
     settings = make_settings(data_dir)
@@ -541,19 +582,3 @@ def restore(source: Path, yes: bool, data_dir: Path | None) -> None:
     if safety:
         click.echo(f"the previous database was kept as {safety.path}")
     click.echo(f"restored {source} into {live}")
-
-
-# ---------------------------------------------------------------------------------------------
-# the parser's commands
-
-
-def _register_parser_commands() -> None:
-    from parser.cli_parse import parse_command, train_command
-    from parser.cli_score import score as score_command
-
-    main.add_command(train_command, "train")
-    main.add_command(parse_command, "parse")
-    main.add_command(score_command, "score")
-
-
-_register_parser_commands()
