@@ -103,7 +103,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     the page embeds it so the first drawing needs no second request."""
     corpus = _corpus(db, sentence.corpus_id)
     annotation = svc.own_annotation(db, user, sentence)
-    head = svc.head_revision(db, annotation)
+    head = svc.current_revision(db, annotation)
     suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
     if head is not None:
         tree, pins, source, note = head.tree, head.pins or {}, head.source, None

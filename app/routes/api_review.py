@@ -15,9 +15,11 @@ from pydantic import BaseModel, Field
 from app.deps import ApiAdjudicator, SessionDep
 from app.models import Corpus, Sentence
 from app.schemas.common import RequestModel
+from app.services import gold
 from app.services import review as svc
 from app.services.errors import NotFound
 from app.services.training import get_runner
+from app.services.validation import validate_tree_text
 
 router = APIRouter(tags=["review"])
 
@@ -117,7 +119,6 @@ def get_review(sentence_id: int, login: ApiAdjudicator, db: SessionDep) -> Revie
 def check_tree(sentence_id: int, body: TreeCheck, login: ApiAdjudicator,
                db: SessionDep) -> TreeCheckPublic:
     """Validate a tree for this sentence without storing anything (422 says what is wrong)."""
-    from app.services.annotation import validate_tree_text
     from parser.trees import words, write_tree
 
     sentence = db.get(Sentence, sentence_id)
@@ -147,5 +148,5 @@ def settle(sentence_id: int, body: SettleCreate, login: ApiAdjudicator, db: Sess
 def reopen(sentence_id: int, body: ReopenCreate, login: ApiAdjudicator,
            db: SessionDep) -> ReviewPublic:
     """Retire the current gold (it stays in the history) and put the sentence back in review."""
-    svc.reopen(db, sentence_id, login.user, note=body.note)
+    gold.reopen(db, sentence_id, login.user, note=body.note)
     return detail_public(svc.review_detail(db, sentence_id))

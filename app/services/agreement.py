@@ -51,11 +51,13 @@ from app.models import (
     Annotation,
     Assignment,
     Corpus,
+    Document,
     Event,
     Revision,
     Sentence,
     User,
 )
+from app.services.gold import current_revision, gold_added, make_gold
 from parser.scoring import Counts, label_confusions, score_pair
 from parser.trees import read_tree, write_tree
 
@@ -68,12 +70,6 @@ class SubmittedTree:
     annotation: Annotation
     revision: Revision
     text: str  # canonical one-line form
-
-
-def current_revision(db: Session, annotation: Annotation) -> Revision | None:
-    """The annotation's newest revision (number == head), or None before the first save."""
-    return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
-                                            Revision.number == annotation.head))
 
 
 def submitted_trees(db: Session, sentence: Sentence) -> list[SubmittedTree]:
@@ -141,9 +137,6 @@ def on_submitted(db: Session, sentence: Sentence) -> None:
     Called by the Bench's submit in the same transaction, after the annotation is marked
     submitted (and flushed or not: this function flushes). Does not commit.
     """
-    from app.services.review import make_gold  # review imports this module's helpers
-    from app.services.training import queue_if_due
-
     db.flush()
     corpus = db.get(Corpus, sentence.corpus_id)
     if corpus is None:  # the corpus was deleted under us; nothing to route
@@ -172,7 +165,7 @@ def on_submitted(db: Session, sentence: Sentence) -> None:
                          "outcome": outcome}))
     db.flush()
     if outcome == "gold":
-        queue_if_due(db, corpus)
+        gold_added(db, corpus)
 
 
 # --------------------------------------------------------------------------------------------
@@ -328,8 +321,6 @@ CSV_COLUMNS = ("record_id", "logged_at", "sentence_id", "document", "position",
 
 def agreement_csv(db: Session, corpus_id: int) -> str:
     """The corpus's agreement log as CSV (one row per record, oldest first)."""
-    from app.models import Document
-
     rows = db.execute(
         select(AgreementRecord, Sentence.position, Document.name)
         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)

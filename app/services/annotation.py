@@ -26,7 +26,6 @@ from dataclasses import dataclass, field
 from datetime import UTC
 from typing import Any, cast
 
-from nltk import Tree
 from sqlalchemy import CursorResult, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
@@ -50,21 +49,18 @@ from app.models import (
     User,
     utcnow,
 )
+from app.services import agreement
 from app.services.errors import BadInput, Conflict, NotFound
-from parser.errors import BracketSyntaxError
-from parser.trees import (
-    UNKNOWN_TAG,
-    constituents,
-    escape_word,
-    is_preterminal,
-    pos_tags,
-    read_tree,
-    words,
-    write_tree,
+from app.services.gold import current_revision
+from app.services.validation import (
+    MAX_TREE_CHARS,
+    stored_words,
+    unknown_labels,
+    validate_pins,
+    validate_tree_text,
 )
+from parser.trees import write_tree
 
-#: Longest bracketed text accepted for one sentence's tree.
-MAX_TREE_CHARS = 200_000
 #: Longest comment and flag reason.
 MAX_COMMENT_CHARS = 4_000
 MAX_FLAG_CHARS = 64
@@ -87,115 +83,6 @@ def own_annotation(db: Session, user: User, sentence: Sentence) -> Annotation | 
                                               Annotation.user_id == user.id))
 
 
-def head_revision(db: Session, annotation: Annotation | None) -> Revision | None:
-    if annotation is None or annotation.head == 0:
-        return None
-    return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
-                                            Revision.number == annotation.head))
-
-
-# --------------------------------------------------------------------------- validation
-def stored_words(sentence: Sentence) -> list[str]:
-    """The sentence's tokens in the form a stored tree carries them (``(`` as ``-LRB-``)."""
-    return [escape_word(str(t)) for t in sentence.tokens]
-
-
-def unknown_labels(tree: Tree, corpus: Corpus) -> list[str]:
-    """Labels and tags of ``tree`` outside the corpus's sets, sorted; the root label and the
-    placeholder tag of a flat tree are always allowed. An empty set allows everything."""
-    label_set = set(corpus.label_set or [])
-    tag_set = set(corpus.tag_set or [])
-    found: set[str] = set()
-    if label_set:
-        for label, _, _ in constituents(tree)[1:]:
-            if label not in label_set:
-                found.add(label)
-    if tag_set:
-        for tag in pos_tags(tree):
-            if tag != UNKNOWN_TAG and tag not in tag_set:
-                found.add(tag)
-    return sorted(found)
-
-
-def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
-                       confirm_labels: bool = False) -> Tree:
-    """Read ``text`` as the tree of ``sentence`` or raise BadInput saying what and where.
-
-    The error's extra fields (merged into the JSON answer) carry ``kind``: ``"brackets"`` with
-    ``line``/``column``; ``"shape"``; ``"words"`` with ``position`` (0-based), ``expected`` and
-    ``found``; ``"labels"`` with ``labels`` and ``can_confirm`` (policy ``confirm`` and the
-    request did not say ``confirm_labels``: resend with it to accept them).
-    """
-    if len(text) > MAX_TREE_CHARS:
-        raise BadInput(f"tree text is {len(text)} characters long; the limit is "
-                       f"{MAX_TREE_CHARS}", kind="shape")
-    if not text.strip():
-        raise BadInput("tree text is empty", kind="shape")
-    try:
-        tree = read_tree(text)
-    except BracketSyntaxError as exc:
-        raise BadInput(f"line {exc.line}, column {exc.column}: {exc.message}",
-                       kind="brackets", line=exc.line, column=exc.column) from exc
-    if is_preterminal(tree):
-        raise BadInput("the tree needs a constituent above the POS tags, e.g. (ROOT (NN word))",
-                       kind="shape")
-    expected = stored_words(sentence)
-    found = words(tree)
-    for i in range(max(len(expected), len(found))):
-        want = expected[i] if i < len(expected) else None
-        got = escape_word(found[i]) if i < len(found) else None
-        if want != got:
-            if got is None:
-                msg = f"the tree ends after word {i} but the sentence goes on with {want!r}"
-            elif want is None:
-                msg = f"word {i + 1} {got!r} is extra: the sentence has {len(expected)} words"
-            else:
-                msg = f"word {i + 1} is {got!r} but the sentence has {want!r} there"
-            raise BadInput(msg, kind="words", position=i, expected=want, found=got)
-    unknown = unknown_labels(tree, corpus)
-    if unknown:
-        policy = corpus.setting("unknown_label_policy")
-        names = ", ".join(unknown)
-        if policy == "refuse":
-            raise BadInput(f"not in this corpus's label or tag set: {names}", kind="labels",
-                           labels=unknown, can_confirm=False)
-        if not confirm_labels:
-            raise BadInput(f"not in this corpus's label or tag set: {names}; confirm to use "
-                           "them anyway", kind="labels", labels=unknown, can_confirm=True)
-    return tree
-
-
-def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
-    """Check that every pinned span is a constituent of ``tree`` with that label and every pinned
-    tag is the tree's tag at that word; return the pins in canonical (sorted) form."""
-    spans_in = pins.get("spans") or []
-    tags_in = pins.get("tags") or []
-    have = {(s, e, lab) for lab, s, e in constituents(tree)}
-    tags = pos_tags(tree)
-    spans_out: list[list[Any]] = []
-    for item in spans_in:
-        s, e, label = int(item[0]), int(item[1]), str(item[2])
-        if (s, e, label) not in have:
-            raise BadInput(f"pinned constituent {label} over words {s + 1}..{e} is not in the "
-                           "tree", kind="pins")
-        spans_out.append([s, e, label])
-    tags_out: list[list[Any]] = []
-    for item in tags_in:
-        i, tag = int(item[0]), str(item[1])
-        if not 0 <= i < len(tags) or tags[i] != tag:
-            raise BadInput(f"pinned tag {tag} at word {i + 1} is not in the tree", kind="pins")
-        tags_out.append([i, tag])
-    spans_out.sort(key=lambda x: (x[0], -x[1], x[2]))
-    tags_out.sort()
-    return {"spans": _unique(spans_out), "tags": _unique(tags_out)}
-
-
-def _unique(items: list[list[Any]]) -> list[list[Any]]:
-    out: list[list[Any]] = []
-    for x in items:
-        if not out or out[-1] != x:
-            out.append(x)
-    return out
 
 
 # --------------------------------------------------------------------------- saving
@@ -217,7 +104,7 @@ def revision_view(revision: Revision | None) -> dict[str, Any] | None:
 def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict:
     db.rollback()
     annotation = own_annotation(db, user, sentence)
-    current = head_revision(db, annotation)
+    current = current_revision(db, annotation)
     return Conflict(why, current=revision_view(current),
                     head=annotation.head if annotation else 0,
                     state=annotation.state if annotation else ANN_DRAFT)
@@ -324,8 +211,6 @@ def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotat
 
 def _agreement_hook(db: Session, sentence: Sentence) -> None:
     # The agreement service owns what happens once every assigned annotation is in.
-    from app.services import agreement
-
     agreement.on_submitted(db, sentence)
 
 
@@ -467,7 +352,7 @@ __all__ = [
     "QueueItem",
     "SaveResult",
     "assigned_sentence",
-    "head_revision",
+    "current_revision",
     "own_annotation",
     "queue_for",
     "queue_place",

@@ -55,6 +55,7 @@ from app.models import (
     User,
     utcnow,
 )
+from app.services import agreement  # owns what follows a complete set of annotations
 from app.services.corpora import (
     absorb_tree_inventory,
     clean_name,
@@ -63,6 +64,7 @@ from app.services.corpora import (
     tree_inventory,
 )
 from app.services.errors import BadInput, NotFound
+from app.services.gold import gold_added
 from parser.errors import BracketSyntaxError
 from parser.trees import (
     TreeError,
@@ -472,9 +474,7 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
     if kind == "annotation":
         _route_complete(db, corpus, [sentence for _, sentence, _ in pending])
     elif kind == "gold" and result.imported:
-        from app.services.training import queue_if_due  # the gold loop counts seed gold too
-
-        queue_if_due(db, corpus)
+        gold_added(db, corpus)  # the gold loop counts seed gold too
     if progress:
         progress(total, total)
     db.add(Event(user_id=user.id if user else None, kind="import", corpus_id=corpus.id,
@@ -550,8 +550,6 @@ def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> N
     ready = [s for s in sentences if counts.get(s.id, 0) >= needed]
     if not ready:
         return
-    from app.services import agreement  # the agreement service owns gold / review routing
-
     for sentence in ready:
         agreement.on_submitted(db, sentence)
 

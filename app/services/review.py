@@ -1,4 +1,4 @@
-"""Review: settle disagreements as gold, with provenance, and reopen settled sentences.
+"""Review: the sentences waiting for an adjudicator, one sentence's trees side by side, settle.
 
 What it computes
     * :func:`review_list`: the sentences of a corpus waiting in review (oldest first, with the
@@ -18,8 +18,7 @@ What it computes
       provenance ``adjudication``: who, from which annotation or earlier gold it started, when,
       and an optional note. The sentence must be in review; a compare-and-set on its state makes
       a second, racing settle fail with 409 instead of writing two gold trees.
-    * :func:`reopen`: retire the current gold (``retired_at``/``retired_by_id``, never deleted)
-      and send the sentence back to review.
+    * Making, retiring and reopening gold rows is :mod:`app.services.gold`'s.
 
 Nothing is ever deleted: every gold tree stays as a row, the newest unretired one is current.
 
@@ -49,50 +48,16 @@ from app.models import (
     Gold,
     Sentence,
     User,
-    utcnow,
 )
 from app.schemas.common import UtcDateTime
-from app.services.agreement import current_revision
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.gold import check_note, current_revision, gold_added, make_gold
+from app.services.validation import validate_tree_text
 from parser.trees import constituents, is_preterminal, read_tree, words, write_tree
 
 WRAPPER_LABELS = frozenset({"", "ROOT", "TOP"})
-MAX_NOTE_CHARS = 4_000
 #: Letters that stand for the annotators of one sentence on the Review page (A, B, C...).
 LETTERS = "ABCDEFGHIJKLMNOPQRSTUVWXYZ"
-
-
-# --------------------------------------------------------------------------------------------
-# gold rows
-
-
-def active_gold(db: Session, sentence_id: int) -> Gold | None:
-    """The sentence's current gold tree (newest unretired row), or None."""
-    return db.scalar(select(Gold).where(Gold.sentence_id == sentence_id,
-                                        Gold.retired_at.is_(None))
-                     .order_by(Gold.created_at.desc(), Gold.id.desc()).limit(1))
-
-
-def make_gold(db: Session, sentence: Sentence, tree_text: str, *, provenance: str,
-              adjudicator_id: int | None = None, source_annotation_id: int | None = None,
-              note: str = "") -> Gold:
-    """Store ``tree_text`` as the sentence's gold and mark the sentence gold.
-
-    Any gold the sentence still has is retired first (kept, with ``retired_by_id``), so there
-    is at most one current gold tree. Does not commit.
-    """
-    now = utcnow()
-    for old in db.scalars(select(Gold).where(Gold.sentence_id == sentence.id,
-                                             Gold.retired_at.is_(None))).all():
-        old.retired_at = now
-        old.retired_by_id = adjudicator_id
-    gold = Gold(sentence_id=sentence.id, tree=tree_text, provenance=provenance,
-                adjudicator_id=adjudicator_id, source_annotation_id=source_annotation_id,
-                note=note, created_at=now)
-    db.add(gold)
-    sentence.state = SENT_GOLD
-    db.flush()
-    return gold
 
 
 # --------------------------------------------------------------------------------------------
@@ -353,14 +318,6 @@ def _neighbours(db: Session, sentence: Sentence) -> tuple[int | None, int | None
 # settling and reopening
 
 
-def _check_note(note: str | None) -> str:
-    note = (note or "").strip()
-    if len(note) > MAX_NOTE_CHARS:
-        raise BadInput(f"the note is {len(note)} characters long; the limit is "
-                       f"{MAX_NOTE_CHARS}", kind="note")
-    return note
-
-
 def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
            source_annotation_id: int | None = None, source_gold_id: int | None = None,
            note: str | None = None, confirm_labels: bool = False) -> Gold:
@@ -368,18 +325,15 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
 
     ``source_annotation_id`` / ``source_gold_id`` say which submitted tree or earlier gold the
     adjudicator started from (at most one; each must belong to this sentence). Raises BadInput
-    for a tree that does not fit the sentence (see annotation.validate_tree_text), Conflict
+    for a tree that does not fit the sentence (see validation.validate_tree_text), Conflict
     when the sentence is not in review (any more).
     """
-    from app.services.annotation import validate_tree_text
-    from app.services.training import queue_if_due
-
     sentence = db.get(Sentence, sentence_id)
     if sentence is None:
         raise NotFound(f"no sentence with id {sentence_id}")
     corpus = db.get(Corpus, sentence.corpus_id)
     assert corpus is not None
-    note = _check_note(note)
+    note = check_note(note)
     if sentence.state != SENT_IN_REVIEW:
         raise Conflict(f"sentence {sentence_id} is {sentence.state}, not in review; "
                        "reopen it first", state=sentence.state)
@@ -418,36 +372,6 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
                  sentence_id=sentence.id,
                  detail={"gold_id": gold.id, "from_annotation": source_annotation_id,
                          "from_gold": source_gold_id, "edited": edited}))
-    queue_if_due(db, corpus)
+    gold_added(db, corpus)
     db.commit()
     return gold
-
-
-def reopen(db: Session, sentence_id: int, user: User, *, note: str | None = None) -> Sentence:
-    """Retire the sentence's gold (kept in its history) and send it back to review. Commits."""
-    sentence = db.get(Sentence, sentence_id)
-    if sentence is None:
-        raise NotFound(f"no sentence with id {sentence_id}")
-    note = _check_note(note)
-    if sentence.state != SENT_GOLD:
-        raise Conflict(f"sentence {sentence_id} is {sentence.state}, not gold; only a settled "
-                       "sentence can be reopened", state=sentence.state)
-    moved = db.execute(update(Sentence).where(Sentence.id == sentence.id,
-                                              Sentence.state == SENT_GOLD)
-                       .values(state=SENT_IN_REVIEW)
-                       .execution_options(synchronize_session=False))
-    if cast(CursorResult[Any], moved).rowcount != 1:
-        db.rollback()
-        raise Conflict(f"sentence {sentence_id} changed meanwhile; reload it")
-    now = utcnow()
-    retired = []
-    for g in db.scalars(select(Gold).where(Gold.sentence_id == sentence.id,
-                                           Gold.retired_at.is_(None))).all():
-        g.retired_at = now
-        g.retired_by_id = user.id
-        retired.append(g.id)
-    db.add(Event(user_id=user.id, kind="gold.reopened", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"retired": retired, "note": note}))
-    db.commit()
-    db.refresh(sentence)
-    return sentence

@@ -55,6 +55,7 @@ from app.models import (
     Suggestion,
 )
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.validation import stored_words
 from parser.batch import parse_many
 from parser.chart import Constraints, ParseResult, parse
 from parser.errors import ConstraintError, GrammarError
@@ -189,8 +190,6 @@ def is_complete(row: Suggestion) -> bool:
 
 
 def _sentence_words(sentence: Sentence) -> list[str]:
-    from app.services.annotation import stored_words
-
     return stored_words(sentence)
 
 

@@ -67,9 +67,11 @@ from typing import Any, cast
 
 from nltk import Tree
 from sqlalchemy import CursorResult, Engine, event, func, select, update
+from sqlalchemy.engine import make_url
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
+from app.db import make_engine, make_sessionmaker
 from app.models import (
     GV_FAILED,
     GV_QUEUED,
@@ -83,7 +85,9 @@ from app.models import (
     Sentence,
     utcnow,
 )
-from app.services.errors import NotFound
+from app.services.errors import Conflict, NotFound
+from app.services.suggestions import refresh_unstarted
+from app.settings import Settings
 from parser.grammar import Grammar, train_grammar
 from parser.scoring import score_corpus
 from parser.trees import drop_empty_elements, read_tree, words
@@ -394,8 +398,6 @@ def _score_heldout(grammar: Grammar, held: list[GoldTree],
 
 def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
     """Re-suggest the sentences nobody has started; a short summary for the row's message."""
-    from app.services.suggestions import refresh_unstarted
-
     # one process: the web service keeps the other core
     done = refresh_unstarted(db, corpus, version, processes=1)
     db.commit()
@@ -417,8 +419,6 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
 
     Uses the queued job of the corpus if there is one; raises Conflict if one is running.
     """
-    from app.services.errors import Conflict
-
     with factory() as db:
         version = request_training(db, corpus_id, reason=reason, user_id=user_id)
         version_id = version.id
@@ -457,11 +457,6 @@ def _drain_in_worker(url: str) -> int:
     """Entry point in the worker process: its own engine, then drain the queue."""
     factory = _WORKER_FACTORIES.get(url)
     if factory is None:
-        from sqlalchemy.engine import make_url
-
-        from app.db import make_engine, make_sessionmaker
-        from app.settings import Settings
-
         parsed = make_url(url)
         # make_engine creates the data folder of a SQLite URL; point it at the file's own one
         folder = Path(parsed.database).parent if parsed.get_backend_name() == "sqlite" \
