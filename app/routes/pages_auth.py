@@ -9,17 +9,8 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from starlette.concurrency import run_in_threadpool
 
 from app.deps import OptionalLogin, PageUser, SessionDep, SettingsDep
-from app.models import Event
-from app.security import (
-    SESSION_COOKIE,
-    authenticate,
-    clear_failures,
-    create_session,
-    end_session,
-    login_delay,
-    recent_failures,
-    record_failure,
-)
+from app.security import SESSION_COOKIE
+from app.services import logins
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -56,20 +47,14 @@ async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
                       error="This login form was sent from another site; log in here.")
     address = request.client.host if request.client else "unknown"
     username = username.strip()
-    delay = login_delay(recent_failures(db, username, address), settings)
+    # the database and argon2 (slow on purpose) run off the event loop, so others go on
+    delay = await run_in_threadpool(logins.login_delay_for, db, username, address, settings)
     if delay:
         await asyncio.sleep(delay)
-    # argon2 takes tens of milliseconds on purpose: off the event loop, so others go on
-    user = await run_in_threadpool(authenticate, db, username, password)
-    if user is None:
-        record_failure(db, username, address)
-        db.commit()
+    token = await run_in_threadpool(logins.log_in, db, username, password, address, settings)
+    if token is None:
         return render(request, "login.html", None, status_code=401, next=_safe_next(next),
                       error="That user name and password do not match an active account.")
-    clear_failures(db, username, address)
-    token, _ = create_session(db, user, settings)
-    db.add(Event(user_id=user.id, kind="login", detail={"address": address}))
-    db.commit()
     response = RedirectResponse(_safe_next(next), status_code=303)
     response.set_cookie(SESSION_COOKIE, token, httponly=True, samesite="strict",
                         secure=settings.cookie_secure, max_age=settings.session_hours * 3600,
@@ -79,9 +64,7 @@ async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
 
 @router.post("/logout")
 def logout(request: Request, login: PageUser, db: SessionDep) -> Response:
-    end_session(db, request.cookies.get(SESSION_COOKIE))
-    db.add(Event(user_id=login.user.id, kind="logout"))
-    db.commit()
+    logins.log_out(db, login.user, request.cookies.get(SESSION_COOKIE))
     response = RedirectResponse("/login", status_code=303)
     response.delete_cookie(SESSION_COOKIE, path="/")
     return response
