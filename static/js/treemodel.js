@@ -406,3 +406,110 @@ export function bracketDifference(a, b) {
   for (let i = 0; i < ta.length; i++) if (ta[i] !== tb[i]) d++;
   return d;
 }
+
+// ---------------------------------------------------------------------------- reattaching
+
+// Move a node with its whole subtree under another phrase, keeping the words in order.
+// `ref` is {kind: "phrase"|"tag", index}; `target` a phrase index. Possible only when the
+// words stay in order: the target is an ancestor whose path down to the node runs along one
+// edge of the node (the path's nodes give the node up), or the target's words end just before
+// the node's (or start just after), so the target and the path from it up to the common
+// ancestor stretch over the node. Nothing else changes: the node keeps its span and its
+// subtree, and no other phrase gains or loses a child. Throws an EditError saying why a move
+// is refused; `pinned(span)` tells whether a phrase whose words would change is pinned.
+export function reattach(tree, ref, target, pinned = () => false) {
+  const spans = spansOf(tree);
+  const n = wordsOf(tree).length;
+  if (target < 0 || target >= spans.length) throw new EditError("no such constituent");
+  let a;
+  let b;
+  let parent;
+  let self = -1;
+  if (ref.kind === "tag") {
+    [a, b] = [ref.index, ref.index + 1];
+    if (a < 0 || a >= n) throw new EditError("no such word");
+    parent = spans.reduce((best, s, k) => (s.start <= a && b <= s.end ? k : best), 0);
+  } else {
+    self = ref.index;
+    if (self <= 0 || self >= spans.length) throw new EditError("the root stays where it is");
+    ({start: a, end: b, parent} = spans[self]);
+  }
+  const what = ref.kind === "tag" ? `the word ${a + 1}` : spanText(spans[self]);
+  const goal = spans[target];
+  if (target === parent) throw new EditError(`${what} is already under ${spanText(goal)}`);
+  if (target === self) throw new EditError(`${what} cannot go under itself`);
+  if (self >= 0 && isInside(spans, target, self)) {
+    throw new EditError(`${spanText(goal)} is inside ${what}: it cannot hold it`);
+  }
+  const ancestors = (k) => {
+    const out = [];
+    for (; k >= 0; k = spans[k].parent) out.push(k);
+    return out;
+  };
+  const up = ancestors(parent);               // the node's old parent and its ancestors
+  const changed = new Map();                   // phrase index -> new [start, end]
+  if (up.includes(target)) {
+    // moving up: every phrase between the target and the node gives the node's words up
+    for (const k of up.slice(0, up.indexOf(target))) {
+      const s = spans[k];
+      if (s.start === a && s.end === b) {
+        throw new EditError(`${what} is all of ${spanText(s)}: move ${s.label} instead`);
+      }
+      if (s.start !== a && s.end !== b) {
+        throw new EditError(`${what} is in the middle of ${spanText(s)}: taking it out ` +
+          "would change the order of the words");
+      }
+      changed.set(k, s.start === a ? [b, s.end] : [s.start, a]);
+    }
+  } else {
+    if (goal.end !== a && goal.start !== b) {
+      throw new EditError(`${spanText(goal)} does not reach up to ${what}: a move keeps the ` +
+        "words in order, so only a phrase ending just before it or starting just after it, " +
+        "or one above it, can take it");
+    }
+    const over = ancestors(target);
+    const common = over.find((k) => up.includes(k));
+    for (const k of up.slice(0, up.indexOf(common))) {
+      const s = spans[k];
+      if (s.start === a && s.end === b) {
+        throw new EditError(`${what} is all of ${spanText(s)}: move ${s.label} instead`);
+      }
+      changed.set(k, s.start === a ? [b, s.end] : [s.start, a]);
+    }
+    for (const k of over.slice(0, over.indexOf(common))) {
+      const s = spans[k];
+      changed.set(k, [Math.min(s.start, a), Math.max(s.end, b)]);
+    }
+  }
+  for (const k of changed.keys()) {
+    if (pinned(spans[k])) throw new EditError(`${spanText(spans[k])} is pinned: unpin it first`);
+  }
+  const next = plain(spans);
+  for (const [k, [s, e]] of changed) { next[k].start = s; next[k].end = e; }
+  const result = treeFromSpans(wordsOf(tree), tagsOf(tree), next);
+  if (ref.kind === "tag") return {tree: result, ref: {kind: "tag", index: a}};
+  const [ts, te] = changed.get(target) || [goal.start, goal.end];
+  const after = spansOf(result);
+  const idx = after.findIndex((s, k) => k > 0 && s.start === a && s.end === b &&
+    s.label === spans[self].label && after[s.parent].start === ts &&
+    after[s.parent].end === te && after[s.parent].label === goal.label);
+  return {tree: result, ref: {kind: "phrase", index: idx}};
+}
+
+// Is phrase k inside phrase `anc` (a proper descendant)?
+function isInside(spans, k, anc) {
+  for (let p = spans[k].parent; p >= 0; p = spans[p].parent) if (p === anc) return true;
+  return false;
+}
+
+// Every phrase `ref` could be moved under (for offering only the moves that keep the order).
+export function reattachTargets(tree, ref, pinned = () => false) {
+  const out = [];
+  const spans = spansOf(tree);
+  for (let k = 0; k < spans.length; k++) {
+    try { reattach(tree, ref, k, pinned); out.push(k); } catch (e) {
+      if (!(e instanceof EditError)) throw e;
+    }
+  }
+  return out;
+}

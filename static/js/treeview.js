@@ -13,6 +13,8 @@
 //     onActivate: (ref, event) => {},   // double-click on one
 //     onRange: (start, end, done) => {},// drag across words; done=false while dragging (the
 //                                       // view repaints the range itself: do not redraw then)
+//     dropTargets: (ref) => [phrase index, ...], // where a dragged node may go
+//     onDrop: (ref, phraseIndex) => {}, // a node dragged onto a phrase (offered or not)
 //   });
 //   view.svg; view.width; view.height; view.box(ref) -> {x, y, w, h}; view.reveal(ref)
 //
@@ -110,7 +112,8 @@ export function layoutTree(tree, wordText = defaultWordText) {
 
 export function drawTree(container, tree, options = {}) {
   const opts = {marks: () => null, selected: null, range: null, zoom: 1,
-    wordText: defaultWordText, onSelect: null, onActivate: null, onRange: null, ...options};
+    wordText: defaultWordText, onSelect: null, onActivate: null, onRange: null,
+    dropTargets: null, onDrop: null, ...options};
   const L = layoutTree(tree, opts.wordText);
   const spans = spansOf(tree);
   const svg = el("svg", {
@@ -180,7 +183,10 @@ export function drawTree(container, tree, options = {}) {
     const title = el("title", {}, g);
     title.textContent = mark.title || label;
     boxes.set(`${kind}:${index}`, {x, y, w: item.w, h: BOX_H});
-    g.addEventListener("click", (ev) => opts.onSelect && opts.onSelect(ref, ev));
+    g.addEventListener("click", (ev) => {
+      if (svg.dataset.dragged) { delete svg.dataset.dragged; return; }
+      if (opts.onSelect) opts.onSelect(ref, ev);
+    });
     g.addEventListener("dblclick", (ev) => opts.onActivate && opts.onActivate(ref, ev));
   };
   for (const p of L.phrases) drawBox("phrase", p.index, p, p.label);
@@ -250,6 +256,8 @@ export function drawTree(container, tree, options = {}) {
     svg.addEventListener("pointercancel", () => { anchor = null; });
   }
 
+  if (opts.onDrop) dragNodes(svg, gNodes, opts);
+
   container.replaceChildren(svg);
   const box = (ref) => boxes.get(`${ref.kind}:${ref.index}`) || null;
   return {
@@ -269,4 +277,56 @@ export function drawTree(container, tree, options = {}) {
       if (needY) container.scrollTop = Math.max(0, topY);
     },
   };
+}
+
+// Dragging a label onto a phrase: the phrases it may go to are marked (tw-drop-ok) while it
+// moves, the one under the pointer too (tw-drop-here); a drag shorter than 6 px is a click.
+function dragNodes(svg, gNodes, opts) {
+  let from = null;
+  let start = null;
+  let marked = [];
+  const nodeAt = (ev) => {
+    const hit = document.elementFromPoint(ev.clientX, ev.clientY);
+    const g = hit && hit.closest && hit.closest("g.tw-phrase");
+    return g && svg.contains(g) ? Number(g.getAttribute("data-index")) : null;
+  };
+  const clear = () => {
+    for (const g of marked) g.classList.remove("tw-drop-ok", "tw-drop-here");
+    marked = [];
+    svg.classList.remove("tw-dragging");
+  };
+  gNodes.addEventListener("pointerdown", (ev) => {
+    const g = ev.target.closest("g.tw-node");
+    if (!g || ev.button !== 0) return;
+    from = {kind: g.getAttribute("data-kind"), index: Number(g.getAttribute("data-index"))};
+    start = [ev.clientX, ev.clientY];
+  });
+  svg.addEventListener("pointermove", (ev) => {
+    if (!from) return;
+    if (!svg.classList.contains("tw-dragging")) {
+      if (Math.hypot(ev.clientX - start[0], ev.clientY - start[1]) < 6) return;
+      svg.classList.add("tw-dragging");
+      svg.setPointerCapture(ev.pointerId);
+      for (const k of opts.dropTargets ? opts.dropTargets(from) : []) {
+        const g = gNodes.querySelector(`g.tw-phrase[data-index="${k}"]`);
+        if (g) { g.classList.add("tw-drop-ok"); marked.push(g); }
+      }
+    }
+    const here = nodeAt(ev);
+    for (const g of marked) {
+      g.classList.toggle("tw-drop-here", Number(g.getAttribute("data-index")) === here);
+    }
+  });
+  svg.addEventListener("pointerup", (ev) => {
+    const dragging = from && svg.classList.contains("tw-dragging");
+    const ref = from;
+    from = null;
+    if (!dragging) return;
+    const target = nodeAt(ev);
+    clear();
+    svg.dataset.dragged = "1";
+    setTimeout(() => { delete svg.dataset.dragged; }, 0);
+    if (target !== null && !(ref.kind === "phrase" && ref.index === target)) opts.onDrop(ref, target);
+  });
+  svg.addEventListener("pointercancel", () => { from = null; clear(); });
 }

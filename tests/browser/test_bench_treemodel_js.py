@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 
 import pytest
+from nltk import Tree
 
 from parser.errors import BracketSyntaxError
 from parser.trees import (
@@ -140,3 +141,128 @@ def test_bench_js_escapes_bracket_words_like_the_server(js) -> None:
         {label: "NN", word: "f(x)"}, {label: "-LRB-", word: "("}]}]})""")
     assert built == write_tree(tree)
     assert json.loads(json.dumps(built)) == "(ROOT (S (NN f-LRB-x-RRB-) (-LRB- -LRB-)))"
+
+
+def _brute_force_moves(tree, moved: int) -> dict[int, str]:
+    """Every phrase the phrase number ``moved`` (pre-order) can go under with the words kept in
+    order, found by trying every child position of every phrase (common practice, no source):
+    target index -> the resulting tree's text. A move that leaves a phrase empty is not one."""
+
+    def build(node, out):
+        me = [node.label(), []]
+        out.append(me)
+        for child in node:
+            if isinstance(child, Tree) and len(child) == 1 and isinstance(child[0], str):
+                me[1].append(("tag", child.label(), child[0]))
+            else:
+                me[1].append(build(child, out))
+        return me
+
+    def leaves(node):
+        if isinstance(node, tuple):
+            yield node
+        else:
+            for c in node[1]:
+                yield from leaves(c)
+
+    def text(node):
+        if isinstance(node, tuple):
+            return f"({node[1]} {node[2]})"
+        return f"({node[0]} {' '.join(text(c) for c in node[1])})"
+
+    def empty(node):
+        return not isinstance(node, tuple) and (not node[1] or any(empty(c) for c in node[1]))
+
+    found: dict[int, str] = {}
+    base = write_tree(tree)
+    phrases_before: list = []
+    build(tree, phrases_before)
+    n_phrases = len(phrases_before)
+    for target in range(n_phrases):
+        fresh = read_tree(base)
+        phrases: list = []
+        root = build(fresh, phrases)
+        order = [id(x) for x in leaves(root)]
+        node = phrases[moved]
+        parent = next(p for p in phrases if any(c is node for c in p[1]))
+        goal = phrases[target]
+        inside = [id(x) for x in phrases_in(node)]
+        if goal is parent or id(goal) in inside:
+            continue
+        parent[1] = [c for c in parent[1] if c is not node]
+        if empty(root):
+            continue
+        for at in range(len(goal[1]) + 1):
+            goal[1].insert(at, node)
+            if [id(x) for x in leaves(root)] == order:
+                found[target] = text(root)
+                break
+            goal[1].pop(at)
+    return found
+
+
+def phrases_in(node):
+    if isinstance(node, tuple):
+        return
+    yield node
+    for c in node[1]:
+        yield from phrases_in(c)
+
+
+def test_bench_js_reattach_offers_exactly_the_order_keeping_moves(js, rng) -> None:
+    """On GUM trees, the moves the Bench offers for a phrase are exactly those an exhaustive
+    search finds, and each gives the same tree."""
+    trees = [t for t in read_trees(gum_files()[3].read_text("utf-8"))
+             if 4 < len(constituents(t)) < 40][:40]
+    cases = []
+    for tree in trees:
+        k = rng.randrange(1, len(constituents(tree)))
+        cases.append({"text": write_tree(tree), "k": k,
+                      "want": {str(t): v for t, v in _brute_force_moves(tree, k).items()}})
+    got = js.evaluate("""cases => cases.map(c => {
+        const t = T.readTree(c.text);
+        const ref = {kind: "phrase", index: c.k};
+        const out = {};
+        for (const target of T.reattachTargets(t, ref)) {
+            const r = T.reattach(t, ref, target);
+            const moved = T.spansOf(r.tree)[r.ref.index];
+            const before = T.spansOf(t)[c.k];
+            if (moved.start !== before.start || moved.end !== before.end) return "lost the node";
+            out[String(target)] = T.writeTree(r.tree);
+        }
+        return out;
+    })""", cases)
+    offered = 0
+    for case, moves in zip(cases, got, strict=True):
+        assert moves == case["want"], case["text"]
+        offered += len(moves)
+    assert offered >= 20  # the sample really exercises moves
+
+
+def test_bench_js_reattach_refusals_say_why(js) -> None:
+    text = ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN with) "
+            "(NP (DT a) (NN scope)))) (. .)))")
+    out = js.evaluate("""text => {
+        const t = T.readTree(text);
+        const pp = T.spansOf(t).findIndex(s => s.label === "PP");
+        const np = T.spansOf(t).findIndex(s => s.label === "NP" && s.start === 2);
+        const subj = T.spansOf(t).findIndex(s => s.label === "NP" && s.start === 0);
+        const tryIt = (ref, target, pinned) => {
+            try { return T.writeTree(T.reattach(t, ref, target, pinned).tree); }
+            catch (e) { return e.name + ": " + e.message; }
+        };
+        return {
+            middle: tryIt({kind: "phrase", index: pp}, 0),
+            far: tryIt({kind: "phrase", index: pp}, subj),
+            pinned: tryIt({kind: "phrase", index: pp}, np, s => s.label === "NP" && s.start === 2),
+            ok: tryIt({kind: "phrase", index: pp}, np),
+            word: tryIt({kind: "tag", index: 7}, 0),
+        };
+    }""", text)
+    assert out["middle"].startswith("EditError") and "order of the words" in out["middle"]
+    assert out["far"].startswith("EditError") and "does not reach" in out["far"]
+    assert out["pinned"].startswith("EditError") and "pinned" in out["pinned"]
+    assert out["ok"] == ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man) (PP (IN with) "
+                         "(NP (DT a) (NN scope))))) (. .)))")
+    assert out["word"] == ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN "
+                           "with) (NP (DT a) (NN scope))))) (. .))")

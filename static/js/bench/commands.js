@@ -4,7 +4,7 @@
 import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
-import {render, spanWords} from "./draw.js";
+import {moveTargets, render, spanWords} from "./draw.js";
 import {commit, flush, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
@@ -56,6 +56,37 @@ export function startFrom(text, what) {
 }
 
 export const cmd = {
+  // move a node with its subtree under another phrase (dragged there, or put down with m)
+  reattach: guard(async (ref, target) => {
+    const goal = S.spans[target];
+    const out = T.reattach(S.tree, ref, target, (s) => T.isSpanPinned(S.pins, s));
+    S.carry = null;
+    commit(out.tree, S.pins, "edit", out.ref);
+    say(`Moved under ${goal.label} (words ${goal.start + 1}-${goal.end} before the move).`);
+  }),
+  // m: take the chosen node; walk to the new parent; m or Enter puts it down there
+  carry: guard(async () => {
+    if (S.carry) {
+      const {ref} = S.carry;
+      if (!S.sel || S.sel.kind !== "phrase") {
+        throw new T.EditError("walk to a constituent to put it under (arrows), or Esc");
+      }
+      await cmd.reattach(ref, S.sel.index);   // a refusal says why and keeps it taken
+      return;
+    }
+    if (!S.sel) throw new T.EditError("choose the constituent or word to move first");
+    if (S.sel.kind === "phrase" && S.sel.index === 0) {
+      throw new T.EditError("the root stays where it is");
+    }
+    const targets = moveTargets(S.sel);
+    if (!targets.length) {
+      throw new T.EditError("it can go nowhere else without changing the order of the words");
+    }
+    S.carry = {ref: S.sel, targets: new Set(targets)};
+    render();
+    say(`Taken: walk to the new parent (arrows; ${targets.length} marked), m or Enter ` +
+      "puts it down, Esc leaves it.");
+  }),
   add: guard(async () => {
     let start;
     let end;

@@ -18,6 +18,13 @@ export function posteriorOf(s) {
 }
 
 export function marks(ref) {
+  const carried = S.carry && S.carry.ref.kind === ref.kind && S.carry.ref.index === ref.index;
+  const out = marksOf(ref);
+  if (carried) out.classes = [...(out.classes || []), "tw-carried"];
+  return out;
+}
+
+function marksOf(ref) {
   if (ref.kind === "tag") {
     const pinned = T.isTagPinned(S.pins, ref.index);
     return {pinned, title: `${T.tagsOf(S.tree)[ref.index]} (POS tag of word ${ref.index + 1})` +
@@ -27,6 +34,7 @@ export function marks(ref) {
   const pinned = T.isSpanPinned(S.pins, s);
   const p = ref.index === 0 ? null : posteriorOf(s);
   const out = {pinned, classes: [], dots: 0};
+  if (S.carry && S.carry.targets.has(ref.index)) out.classes.push("tw-drop-ok");
   let title = `${s.label} · words ${s.start + 1}-${s.end}`;
   if (p !== null) {
     title += ` · grammar: ${formatP(p)}`;
@@ -53,6 +61,11 @@ export function formatP(p) {
   return `${(p * 100).toFixed(p < 0.1 ? 1 : 0)}%`;
 }
 
+// The phrases a node can be moved under without changing the order of the words.
+export function moveTargets(ref) {
+  return T.reattachTargets(S.tree, ref, (s) => T.isSpanPinned(S.pins, s));
+}
+
 export function render() {
   S.view = drawTree($("tree-pane"), S.tree, {
     marks, selected: S.sel, range: S.range, zoom: S.zoom,
@@ -67,6 +80,8 @@ export function render() {
       $("tree-pane").focus({preventScroll: true});
       render();
     },
+    dropTargets: (ref) => (S.editable && !S.conflict ? moveTargets(ref) : []),
+    onDrop: (ref, target) => { cmd.reattach(ref, target); },
   });
   if (S.sel) S.view.reveal(S.sel);
   renderSide();

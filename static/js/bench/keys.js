@@ -67,6 +67,7 @@ export function onKey(ev) {
   else if (k === "]") cmd.edge("end", 1);
   else if (k === "}") cmd.edge("end", -1);
   else if (k === "p") cmd.pin();
+  else if (k === "m" || (k === "Enter" && S.carry)) cmd.carry();
   else if (k === "g") cmd.regrow();
   else if (k === "o") {
     const first = root.querySelector("#readings button");
@@ -85,7 +86,8 @@ export function onKey(ev) {
   else if (k === "0") setZoom(1);
   else if (k === "?") toggleHelp(true);
   else if (k === "Escape") {
-    if (S.range) { S.range = null; S.rangeAnchor = S.rangeHead = null; render(); }
+    if (S.carry) { S.carry = null; say("Left where it was."); render(); }
+    else if (S.range) { S.range = null; S.rangeAnchor = S.rangeHead = null; render(); }
     else if (S.sel) { S.sel = null; render(); }
   } else handled = false;
   if (handled) ev.preventDefault();

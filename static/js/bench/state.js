@@ -41,4 +41,5 @@ export const S = {
   textEditing: false,
   view: null,
   modal: null,
+  carry: null,        // a node taken to be moved: {ref, targets: Set of phrase indices}
 };
