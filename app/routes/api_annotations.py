@@ -124,7 +124,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.setting("unknown_label_policy"),
-        queue=place)
+        queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus))
 
 
 def _suggestion_public(db: Session, corpus: Corpus,

@@ -87,6 +87,8 @@ class BenchPublic(BaseModel):
     tags: list[str]
     unknown_label_policy: Literal["confirm", "refuse"]
     queue: QueuePlace
+    unseen_words: list[int] = Field(default_factory=list, description=(
+        "positions (0-based) of the words the active grammar never saw in training"))
 
 
 class RevisionCreate(RequestModel):

@@ -224,6 +224,21 @@ def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
     return row
 
 
+def unseen_words(db: Session, sentence: Sentence, corpus: Corpus) -> list[int]:
+    """Positions of the sentence's words that the active grammar never saw in training (it
+    tags them by their spelling signature only); empty without an active grammar."""
+    version = active_version(db, corpus)
+    if version is None:
+        return []
+    try:
+        grammar = grammar_for(db, version.id)
+    except (NotFound, Conflict):  # no loadable grammar: nothing to compare with
+        return []
+    known = len(grammar.vocab)
+    return [i for i, w in enumerate(_sentence_words(sentence))
+            if not 0 <= grammar.word_column(w, first=i == 0) < known]
+
+
 def _cached(db: Session, sentence_id: int, version_id: int) -> Suggestion | None:
     return db.scalar(select(Suggestion).where(Suggestion.sentence_id == sentence_id,
                                               Suggestion.grammar_version_id == version_id))

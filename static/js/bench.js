@@ -9,7 +9,7 @@ import * as T from "./treemodel.js";
 import {api, errorText} from "./bench/api.js";
 import {cmd, fitHeight, saveNote, setZoom} from "./bench/commands.js";
 import {toggleHelp} from "./bench/dialogs.js";
-import {render} from "./bench/draw.js";
+import {familiesShown, readFamiliesChoice, render, showFamilies} from "./bench/draw.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
 import {resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
 import {renderText} from "./bench/side.js";
@@ -25,6 +25,7 @@ function wire() {
     "zoom-in": () => setZoom(S.zoom * 1.2), "zoom-out": () => setZoom(S.zoom / 1.2),
     help: () => toggleHelp(true), handin: cmd.handIn, "apply-text": cmd.applyText,
     "reset-text": () => { S.textEditing = false; renderText(); },
+    families: () => showFamilies(!familiesShown()),
   };
   for (const btn of root.querySelectorAll("[data-cmd]")) {
     btn.addEventListener("click", () => actions[btn.dataset.cmd]());
@@ -58,6 +59,8 @@ async function start() {
   S.editable = data.editable;
   S.labels = new Set(data.labels);
   S.tags = new Set(data.tags);
+  S.unseen = new Set(data.unseen_words || []);
+  showFamilies(readFamiliesChoice());
   takePosteriors(data.suggestion);
   setTree(T.readTree(data.tree), {spans: data.pins.spans, tags: data.pins.tags});
   // labels already in a saved tree were accepted before

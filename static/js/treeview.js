@@ -13,6 +13,7 @@
 //     onActivate: (ref, event) => {},   // double-click on one
 //     onRange: (start, end, done) => {},// drag across words; done=false while dragging (the
 //                                       // view repaints the range itself: do not redraw then)
+//     wordMarks: (i) => null | {classes: [...], title: "..."}, // marks on word i
 //     dropTargets: (ref) => [phrase index, ...], // where a dragged node may go
 //     onDrop: (ref, phraseIndex) => {}, // a node dragged onto a phrase (offered or not)
 //   });
@@ -113,7 +114,7 @@ export function layoutTree(tree, wordText = defaultWordText) {
 export function drawTree(container, tree, options = {}) {
   const opts = {marks: () => null, selected: null, range: null, zoom: 1,
     wordText: defaultWordText, onSelect: null, onActivate: null, onRange: null,
-    dropTargets: null, onDrop: null, ...options};
+    wordMarks: () => null, dropTargets: null, onDrop: null, ...options};
   const L = layoutTree(tree, opts.wordText);
   const spans = spansOf(tree);
   const svg = el("svg", {
@@ -193,7 +194,10 @@ export function drawTree(container, tree, options = {}) {
   for (const t of L.tags) drawBox("tag", t.index, t, t.label);
 
   for (const t of L.tags) {
-    const g = el("g", {class: "tw-word", "data-index": t.index}, gWords);
+    const wm = opts.wordMarks(t.index) || {};
+    const g = el("g", {class: ["tw-word", ...(wm.classes || [])].join(" "),
+      "data-index": t.index}, gWords);
+    if (wm.title) el("title", {}, g).textContent = wm.title;
     el("rect", {class: "tw-word-hit", x: t.left, y: L.wordY - 18, width: t.right - t.left,
       height: 30}, g);
     const text = el("text", {class: "tw-word-text", x: t.x, y: L.wordY,

@@ -6,7 +6,7 @@ import {drawTree} from "../treeview.js";
 import {cmd} from "./commands.js";
 import {select} from "./navigate.js";
 import {renderReadings, renderSide, renderText} from "./side.js";
-import {$, S, UNSURE, WEAK} from "./state.js";
+import {$, S, UNSURE, WEAK, root} from "./state.js";
 
 export function spanWords(start, end) {
   return S.tokens.slice(start, end).join(" ");
@@ -33,7 +33,7 @@ function marksOf(ref) {
   const s = S.spans[ref.index];
   const pinned = T.isSpanPinned(S.pins, s);
   const p = ref.index === 0 ? null : posteriorOf(s);
-  const out = {pinned, classes: [], dots: 0};
+  const out = {pinned, classes: [`tw-fam-${familyOf(s.label)}`], dots: 0};
   if (S.carry && S.carry.targets.has(ref.index)) out.classes.push("tw-drop-ok");
   let title = `${s.label} · words ${s.start + 1}-${s.end}`;
   if (p !== null) {
@@ -61,6 +61,44 @@ export function formatP(p) {
   return `${(p * 100).toFixed(p < 0.1 ? 1 : 0)}%`;
 }
 
+// Phrase families for reading a tree at a glance (the colour and corner shape are in
+// bench.css; the legend explains them; f or the legend's switch turns them off).
+const FAMILIES = {
+  noun: ["NP", "NML", "NX", "WHNP", "QP"],
+  verb: ["VP"],
+  clause: ["S", "SBAR", "SBARQ", "SINV", "SQ", "RRC"],
+  modifier: ["ADJP", "ADVP", "PP", "WHADJP", "WHADVP", "WHPP", "PRT"],
+};
+const FAMILY_OF = new Map(Object.entries(FAMILIES).flatMap(([f, ls]) => ls.map((l) => [l, f])));
+
+export function familyOf(label) {
+  return FAMILY_OF.get(T.stripLabel(label)) || "other";
+}
+
+// The family colours are on unless switched off; the choice is kept in this browser.
+const FAMILIES_KEY = "treewright-families";
+
+export function readFamiliesChoice() {
+  try { return localStorage.getItem(FAMILIES_KEY) !== "off"; } catch { return true; }
+}
+
+export function familiesShown() {
+  return !$("tree-pane").classList.contains("families-off");
+}
+
+export function showFamilies(on) {
+  $("tree-pane").classList.toggle("families-off", !on);
+  const btn = root.querySelector('[data-cmd="families"]');
+  if (btn) btn.setAttribute("aria-pressed", on ? "true" : "false");
+  try { localStorage.setItem(FAMILIES_KEY, on ? "on" : "off"); } catch { /* not kept */ }
+}
+
+function wordMarks(i) {
+  if (!S.unseen.has(i)) return null;
+  return {classes: ["tw-unseen"], title: `“${S.tokens[i]}” was not in the grammar's training ` +
+    "trees: its tag is a guess from its spelling"};
+}
+
 // The phrases a node can be moved under without changing the order of the words.
 export function moveTargets(ref) {
   return T.reattachTargets(S.tree, ref, (s) => T.isSpanPinned(S.pins, s));
@@ -68,7 +106,7 @@ export function moveTargets(ref) {
 
 export function render() {
   S.view = drawTree($("tree-pane"), S.tree, {
-    marks, selected: S.sel, range: S.range, zoom: S.zoom,
+    marks, wordMarks, selected: S.sel, range: S.range, zoom: S.zoom,
     onSelect: (ref) => { select(ref); },
     onActivate: (ref) => { select(ref); cmd.relabel(); },
     onRange: (a, b, done) => {

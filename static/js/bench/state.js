@@ -41,5 +41,6 @@ export const S = {
   textEditing: false,
   view: null,
   modal: null,
+  unseen: new Set(),  // positions of words the grammar never saw
   carry: null,        // a node taken to be moved: {ref, targets: Set of phrase indices}
 };
