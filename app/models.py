@@ -1,12 +1,14 @@
 """The ORM: users, corpora, sentences, annotations with append-only revisions, gold, grammars.
 
-States are plain strings checked by the services (see the constants below) so that PostgreSQL
-and SQLite store them alike. Trees are stored as one-line bracketed text (parser.trees).
+Roles and states are ``StrEnum``s (below), stored as their plain string values so that
+PostgreSQL and SQLite store them alike; the services check them. Trees are stored as one-line
+bracketed text (parser.trees).
 """
 
 from __future__ import annotations
 
 from datetime import UTC, datetime
+from enum import StrEnum
 from typing import Any
 
 from sqlalchemy import (
@@ -24,43 +26,65 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, deferred, mapped_column, relationship
 
-# Roles, from most to least powerful.
-ROLE_ADMIN = "admin"
-ROLE_ADJUDICATOR = "adjudicator"
-ROLE_ANNOTATOR = "annotator"
-ROLES = (ROLE_ADMIN, ROLE_ADJUDICATOR, ROLE_ANNOTATOR)
+from app.corpus_settings import CorpusSettings
+from app.corpus_settings import read as read_settings
 
-# Sentence states.
-SENT_QUEUED = "queued"
-SENT_IN_PROGRESS = "in_progress"
-SENT_IN_REVIEW = "in_review"
-SENT_GOLD = "gold"
-SENTENCE_STATES = (SENT_QUEUED, SENT_IN_PROGRESS, SENT_IN_REVIEW, SENT_GOLD)
 
-# Annotation states.
-ANN_DRAFT = "draft"
-ANN_SUBMITTED = "submitted"
-ANN_FLAGGED = "flagged"
-ANNOTATION_STATES = (ANN_DRAFT, ANN_SUBMITTED, ANN_FLAGGED)
+class Role(StrEnum):
+    """Roles, from most to least powerful."""
+
+    ADMIN = "admin"
+    ADJUDICATOR = "adjudicator"
+    ANNOTATOR = "annotator"
+
+
+class SentenceState(StrEnum):
+    QUEUED = "queued"  # waiting for its annotators
+    IN_PROGRESS = "in_progress"  # someone has saved a tree
+    IN_REVIEW = "in_review"  # every annotation handed in; waits for an adjudicator
+    GOLD = "gold"
+
+
+class AnnotationState(StrEnum):
+    DRAFT = "draft"
+    SUBMITTED = "submitted"  # "hand in" on the pages
+    FLAGGED = "flagged"  # "hold back" on the pages
+
+
+class GrammarStatus(StrEnum):
+    QUEUED = "queued"
+    TRAINING = "training"
+    READY = "ready"
+    REJECTED = "rejected"
+    FAILED = "failed"
+
+
+# The short names the code uses; each is the enum member above.
+ROLE_ADMIN = Role.ADMIN
+ROLE_ADJUDICATOR = Role.ADJUDICATOR
+ROLE_ANNOTATOR = Role.ANNOTATOR
+ROLES = tuple(Role)
+
+SENT_QUEUED = SentenceState.QUEUED
+SENT_IN_PROGRESS = SentenceState.IN_PROGRESS
+SENT_IN_REVIEW = SentenceState.IN_REVIEW
+SENT_GOLD = SentenceState.GOLD
+SENTENCE_STATES = tuple(SentenceState)
+
+ANN_DRAFT = AnnotationState.DRAFT
+ANN_SUBMITTED = AnnotationState.SUBMITTED
+ANN_FLAGGED = AnnotationState.FLAGGED
+ANNOTATION_STATES = tuple(AnnotationState)
 
 # Where a revision's tree came from.
 REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat")
 
-# Grammar version states.
-GV_QUEUED = "queued"
-GV_TRAINING = "training"
-GV_READY = "ready"
-GV_REJECTED = "rejected"
-GV_FAILED = "failed"
+GV_QUEUED = GrammarStatus.QUEUED
+GV_TRAINING = GrammarStatus.TRAINING
+GV_READY = GrammarStatus.READY
+GV_REJECTED = GrammarStatus.REJECTED
+GV_FAILED = GrammarStatus.FAILED
 
-DEFAULT_CORPUS_SETTINGS: dict[str, Any] = {
-    "annotators_per_sentence": 2,
-    "auto_gold_when_identical": True,
-    "retrain_every": 25,
-    "max_f1_drop": 0.01,
-    "heldout_every": 10,
-    "unknown_label_policy": "confirm",  # or "refuse"
-}
 
 
 def utcnow() -> datetime:
@@ -130,8 +154,14 @@ class Corpus(Base):
         back_populates="corpus", order_by="Document.position", cascade="all, delete-orphan",
         passive_deletes=True)
 
+    @property
+    def options(self) -> CorpusSettings:
+        """The corpus's settings, typed and with defaults (app.corpus_settings)."""
+        return read_settings(self.settings)
+
     def setting(self, key: str) -> Any:
-        return (self.settings or {}).get(key, DEFAULT_CORPUS_SETTINGS.get(key))
+        """One setting by name (prefer ``options.<name>``, which is typed)."""
+        return getattr(self.options, key)
 
 
 class Document(Base):

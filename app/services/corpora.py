@@ -21,14 +21,21 @@ from __future__ import annotations
 import re
 from collections.abc import Iterable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, cast
 
 from nltk import Tree
 from sqlalchemy import delete, func, select
 from sqlalchemy.orm import Session
 
+from app.corpus_settings import (
+    EDITABLE,
+    CorpusSettings,
+    LabelPolicy,
+    SettingError,
+    bounds,
+    checked_update,
+)
 from app.models import (
-    DEFAULT_CORPUS_SETTINGS,
     SENTENCE_STATES,
     Assignment,
     Corpus,
@@ -39,6 +46,7 @@ from app.models import (
     User,
 )
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.transactions import unit_of_work
 
 # Phrase labels of Treebank II bracketing (Bies, Ferguson, Katz and MacIntyre 1995, "Bracketing
 # Guidelines for Treebank II Style", clause and phrase level labels; from memory) plus NML
@@ -52,7 +60,7 @@ PTB_TAGS: tuple[str, ...] = tuple(
     "CC CD DT EX FW IN JJ JJR JJS LS MD NN NNS NNP NNPS PDT POS PRP PRP$ RB RBR RBS RP SYM TO "
     "UH VB VBD VBG VBN VBP VBZ WDT WP WP$ WRB # $ . , : `` '' -LRB- -RRB- HYPH NFP".split())
 
-LABEL_POLICIES = ("confirm", "refuse")
+LABEL_POLICIES = tuple(p.value for p in LabelPolicy)
 MAX_NAME = 128
 _LABEL_RE = re.compile(r"^[^\s()]+$")
 #: Settings key that records whether the label and tag sets grow with imports.
@@ -61,7 +69,8 @@ DERIVED_KEY = "derive_inventory"
 
 @dataclass(frozen=True)
 class SettingSpec:
-    """One editable corpus setting: its type, bounds and a line of help for the pages."""
+    """One editable corpus setting as the corpus page shows it: type, bounds and help (all
+    read from :class:`app.corpus_settings.CorpusSettings`, where they are defined)."""
 
     key: str
     kind: type
@@ -70,20 +79,14 @@ class SettingSpec:
     help: str
 
 
-SETTING_SPECS: dict[str, SettingSpec] = {s.key: s for s in (
-    SettingSpec("annotators_per_sentence", int, 1, 10,
-                "How many people annotate each sentence blind."),
-    SettingSpec("auto_gold_when_identical", bool, None, None,
-                "Identical submitted trees become gold without review."),
-    SettingSpec("retrain_every", int, 0, 100000,
-                "Train the next grammar after this many new gold trees (0: only on demand)."),
-    SettingSpec("max_f1_drop", float, 0.0, 1.0,
-                "A new grammar becomes active unless its held-out F1 is lower by more than this."),
-    SettingSpec("heldout_every", int, 2, 1000,
-                "Every n-th gold tree is held out to score a new grammar."),
-    SettingSpec("unknown_label_policy", str, None, None,
-                "A label outside the label set: 'confirm' asks, 'refuse' rejects."),
-)}
+def _spec(key: str) -> SettingSpec:
+    field_info = CorpusSettings.model_fields[key]
+    low, high = bounds(key)
+    kind = field_info.annotation if field_info.annotation in (int, float, bool) else str
+    return SettingSpec(key, cast(type, kind), low, high, field_info.description or "")
+
+
+SETTING_SPECS: dict[str, SettingSpec] = {key: _spec(key) for key in EDITABLE}
 
 
 def clean_name(name: str, what: str = "corpus", limit: int = MAX_NAME) -> str:
@@ -114,10 +117,12 @@ def parse_inventory(text: str) -> list[str]:
     return [item for item in re.split(r"[\s,]+", text or "") if item]
 
 
+@unit_of_work
 def create_corpus(db: Session, name: str, *, description: str = "",
                   label_set: Iterable[str] | None = None, tag_set: Iterable[str] | None = None,
                   settings: dict[str, Any] | None = None, user: User | None = None) -> Corpus:
-    """A new, empty corpus. Without ``label_set``/``tag_set`` both are derived from imports."""
+    """A new, empty corpus. Without ``label_set``/``tag_set`` both are derived from imports.
+    Commits (``create_corpus.step`` does not)."""
     name = clean_name(name)
     if db.scalar(select(Corpus.id).where(Corpus.name == name)) is not None:
         raise Conflict(f"a corpus named {name!r} exists already")
@@ -138,8 +143,9 @@ def corpus_by_name(db: Session, name: str) -> Corpus | None:
     return db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
 
 
-def get_corpus(db: Session, corpus_id: int) -> Corpus:
-    corpus = db.get(Corpus, corpus_id)
+def get_corpus(db: Session, corpus_id: int, *, fresh: bool = False) -> Corpus:
+    """The corpus with this id (re-read from the database with ``fresh``); NotFound."""
+    corpus = find_corpus(db, corpus_id, fresh=fresh)
     if corpus is None:
         raise NotFound(f"no corpus with id {corpus_id}")
     return corpus
@@ -164,63 +170,35 @@ def tree_inventory(trees: Iterable[Tree]) -> tuple[set[str], set[str]]:
 
 def absorb_tree_inventory(corpus: Corpus, labels: set[str], tags: set[str]) -> None:
     """Add labels and tags to a derived inventory (explicit ones are left alone)."""
-    if not corpus.setting(DERIVED_KEY):
+    if not corpus.options.derive_inventory:
         return
     corpus.label_set = sorted(set(corpus.label_set or []) | labels)
     corpus.tag_set = sorted(set(corpus.tag_set or []) | tags)
 
 
-def _coerce(spec: SettingSpec, raw: Any) -> Any:
-    if spec.kind is bool:
-        if isinstance(raw, bool):
-            return raw
-        text = str(raw).strip().lower()
-        if text in ("1", "true", "yes", "on"):
-            return True
-        if text in ("0", "false", "no", "off", ""):
-            return False
-        raise BadInput(f"setting {spec.key}: {raw!r} is not yes or no")
-    if spec.kind is str:
-        value = str(raw).strip()
-        if spec.key == "unknown_label_policy" and value not in LABEL_POLICIES:
-            raise BadInput(f"setting {spec.key}: {value!r} is not one of "
-                           f"{', '.join(LABEL_POLICIES)}")
-        return value
+def validate_settings(values: dict[str, Any],
+                      current: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The stored settings after ``values`` are applied to ``current``, checked and typed;
+    BadInput naming the setting for an unknown key or a bad value."""
     try:
-        number = spec.kind(raw) if not isinstance(raw, bool) else None
-    except (TypeError, ValueError):
-        number = None
-    if number is None or (spec.kind is int and isinstance(raw, float) and raw != int(raw)):
-        what = "an integer" if spec.kind is int else "a number"
-        raise BadInput(f"setting {spec.key}: {raw!r} is not {what}")
-    if spec.low is not None and number < spec.low or spec.high is not None and number > spec.high:
-        raise BadInput(f"setting {spec.key}: {number} is outside {spec.low}..{spec.high}")
-    return number
-
-
-def validate_settings(values: dict[str, Any]) -> dict[str, Any]:
-    """Checked, typed copies of known settings; an unknown key is an error."""
-    out: dict[str, Any] = {}
-    for key, raw in values.items():
-        spec = SETTING_SPECS.get(key)
-        if spec is None:
-            raise BadInput(f"unknown corpus setting {key!r}; known: {', '.join(SETTING_SPECS)}")
-        out[key] = _coerce(spec, raw)
-    return out
+        return checked_update(current, values)
+    except SettingError as exc:
+        raise BadInput(str(exc), setting=exc.key) from None
 
 
 def effective_settings(corpus: Corpus) -> dict[str, Any]:
     """Every editable setting with its value for this corpus (defaults filled in)."""
-    return {key: corpus.setting(key) for key in SETTING_SPECS}
+    values = corpus.options.model_dump(mode="json")
+    return {key: values[key] for key in EDITABLE}
 
 
+@unit_of_work
 def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | None = None,
                   description: str | None = None, label_set: Iterable[str] | None = None,
                   tag_set: Iterable[str] | None = None, user: User | None = None) -> Corpus:
-    """Change settings, description or inventories. Explicit inventories stop derivation."""
-    merged = dict(corpus.settings or {})
-    if settings:
-        merged.update(validate_settings(settings))
+    """Change settings, description or inventories. Explicit inventories stop derivation.
+    Commits."""
+    merged = validate_settings(settings or {}, corpus.settings)
     for attribute, given in (("label_set", label_set), ("tag_set", tag_set)):
         if given is None:
             continue
@@ -240,8 +218,10 @@ def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | Non
     return corpus
 
 
+@unit_of_work
 def delete_corpus(db: Session, corpus_id: int, typed_name: str, user: User | None = None) -> str:
-    """Remove a corpus and everything in it, only when ``typed_name`` is exactly its name."""
+    """Remove a corpus and everything in it, only when ``typed_name`` is exactly its name.
+    Commits."""
     corpus = get_corpus(db, corpus_id)
     if (typed_name or "").strip() != corpus.name:
         raise BadInput(f"to remove the corpus type its name exactly: {corpus.name!r}")
@@ -382,4 +362,22 @@ def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int =
 
 
 def settings_defaults() -> dict[str, Any]:
-    return {key: DEFAULT_CORPUS_SETTINGS.get(key) for key in SETTING_SPECS}
+    values = CorpusSettings.model_validate({}).model_dump(mode="json")
+    return {key: values[key] for key in EDITABLE}
+
+
+def find_corpus(db: Session, corpus_id: int, *, fresh: bool = False) -> Corpus | None:
+    """The corpus with this id, or None; ``fresh`` re-reads a row this session holds."""
+    return db.get(Corpus, corpus_id, populate_existing=fresh)
+
+
+def corpus_list(db: Session) -> list[Corpus]:
+    """Every corpus, by name."""
+    return list(db.scalars(select(Corpus).order_by(Corpus.name)))
+
+
+def document_choices(db: Session) -> list[tuple[int, str, int]]:
+    """(id, name, corpus id) of every document, by corpus and position."""
+    return [(i, n, c) for i, n, c in db.execute(
+        select(Document.id, Document.name, Document.corpus_id)
+        .order_by(Document.corpus_id, Document.position))]

@@ -1,0 +1,117 @@
+"""A corpus's settings, defined once: their types, defaults, bounds and help.
+
+Stored as JSON in ``corpora.settings``; every read goes through :class:`CorpusSettings`
+(``corpus.options``), so a value is always of its declared type and within its bounds. Writes go
+through :func:`checked_update`, which refuses an unknown key or a bad value with a message that
+names the setting. The corpus page renders its form from :data:`EDITABLE` (the same help text).
+"""
+
+from __future__ import annotations
+
+from enum import StrEnum
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+
+class LabelPolicy(StrEnum):
+    """What the Bench does with a label outside the corpus's label or tag set."""
+
+    CONFIRM = "confirm"  # ask the annotator to confirm it
+    REFUSE = "refuse"  # reject the tree
+
+
+class CorpusSettings(BaseModel):
+    """Every per-corpus setting with its default; unknown stored keys are ignored on read."""
+
+    model_config = ConfigDict(extra="ignore", frozen=True)
+
+    annotators_per_sentence: int = Field(
+        2, ge=1, le=10, description="How many people annotate each sentence blind.")
+    auto_gold_when_identical: bool = Field(
+        True, description="Identical submitted trees become gold without review.")
+    retrain_every: int = Field(
+        25, ge=0, le=100_000,
+        description="Train the next grammar after this many new gold trees (0: only on demand).")
+    max_f1_drop: float = Field(
+        0.01, ge=0.0, le=1.0,
+        description="A new grammar becomes active unless its held-out F1 is lower by more "
+                    "than this.")
+    heldout_every: int = Field(
+        10, ge=2, le=1000, description="Every n-th gold tree is held out to score a new grammar.")
+    unknown_label_policy: LabelPolicy = Field(
+        LabelPolicy.CONFIRM,
+        description="A label outside the label set: 'confirm' asks, 'refuse' rejects.")
+    # not on the form: set when a corpus is created without label and tag sets
+    derive_inventory: bool = Field(
+        False, description="The label and tag sets grow with every bracketed import.")
+
+
+#: The settings an admin edits on the corpus page, in the form's order.
+EDITABLE: tuple[str, ...] = tuple(k for k in CorpusSettings.model_fields
+                                  if k != "derive_inventory")
+
+
+class SettingError(ValueError):
+    """A refused setting: ``key`` and a message that names it."""
+
+    def __init__(self, key: str, message: str) -> None:
+        super().__init__(message)
+        self.key = key
+
+
+def read(stored: dict[str, Any] | None) -> CorpusSettings:
+    """The typed settings of a stored JSON object (defaults for missing keys; a stored value
+    that no longer passes its bounds falls back to the default rather than break a page)."""
+    values = dict(stored or {})
+    try:
+        return CorpusSettings.model_validate(values)
+    except ValidationError as exc:
+        for err in exc.errors():
+            if err["loc"]:
+                values.pop(str(err["loc"][0]), None)
+        return CorpusSettings.model_validate(values)
+
+
+def bounds(key: str) -> tuple[float | None, float | None]:
+    """The lowest and highest value a numeric setting takes (None: unbounded)."""
+    low = high = None
+    for meta in CorpusSettings.model_fields[key].metadata:
+        low = getattr(meta, "ge", low)
+        high = getattr(meta, "le", high)
+    return low, high
+
+
+def _message(key: str, raw: Any, error_type: str) -> str:
+    field = CorpusSettings.model_fields[key]
+    if field.annotation is bool or error_type.startswith("bool"):
+        return f"setting {key}: {raw!r} is not yes or no"
+    if error_type == "enum":
+        return (f"setting {key}: {raw!r} is not one of "
+                f"{', '.join(p.value for p in LabelPolicy)}")
+    if error_type in ("greater_than_equal", "less_than_equal"):
+        return f"setting {key}: {raw} is outside {'..'.join(map(str, bounds(key)))}"
+    what = "an integer" if field.annotation is int else "a number"
+    return f"setting {key}: {raw!r} is not {what}"
+
+
+def checked_update(current: dict[str, Any] | None, changes: dict[str, Any]) -> dict[str, Any]:
+    """The stored JSON after applying ``changes`` (form strings or JSON values); SettingError
+    naming the first unknown key or bad value. Only keys that were stored or changed are kept,
+    so a later change of a default still reaches corpora that never set the value."""
+    for key in changes:
+        if key not in EDITABLE:
+            raise SettingError(key, f"unknown corpus setting {key!r}; known: "
+                                    f"{', '.join(EDITABLE)}")
+    cleaned = {k: (v.strip() if isinstance(v, str) else v) for k, v in changes.items()}
+    for key, value in cleaned.items():
+        if CorpusSettings.model_fields[key].annotation is bool and value == "":
+            cleaned[key] = False  # an empty form value is "no"
+    try:
+        typed = CorpusSettings.model_validate({**(current or {}), **cleaned})
+    except ValidationError as exc:
+        err = exc.errors()[0]
+        key = str(err["loc"][0])
+        raise SettingError(key, _message(key, changes.get(key), err["type"])) from None
+    keep = set(current or {}) | set(cleaned)
+    return {k: v for k, v in typed.model_dump(mode="json").items() if k in keep}
