@@ -306,7 +306,6 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
             with friendly_errors():
                 corpus = corpus_named(db, corpus_name)
                 assigned = assign_sentences(db, corpus.id)
-                db.commit()
             click.echo(assigned.summary())
 
 
@@ -348,7 +347,6 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
                              function_tags=not strip_function_tags, split=split)
         record_export(db, corpus.id, result, user=None, document_id=document_id, split=split,
                       function_tags=not strip_function_tags)
-        db.commit()
     for warning in result.warnings:
         click.echo(f"warning: {warning}", err=True)
     if split is None and not as_zip:
@@ -410,7 +408,6 @@ def corpus_remove(name: str, typed: str, data_dir: Path | None) -> None:
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         target = corpus_named(db, name)
         removed = delete_corpus(db, target.id, typed)
-        db.commit()
     click.echo(f"removed corpus {removed!r}")
 
 
@@ -431,7 +428,6 @@ def assign(corpus_name: str, per_sentence: int | None, usernames: tuple[str, ...
         target = corpus_named(db, corpus_name)
         result = assign_sentences(db, target.id, per_sentence=per_sentence,
                                   usernames=list(usernames) or None)
-        db.commit()
     click.echo(result.summary())
     for username, n in sorted(result.per_user.items()):
         click.echo(f"  {username}: {n}")
@@ -472,7 +468,6 @@ def user_add(username: str, role: str, display_name: str, password: str | None,
     secret, made_up = _password(password, generate)
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         create_user(db, username, secret, role, display_name=display_name)
-        db.commit()
     click.echo(f"created {username} ({role})" + (f", password: {secret}" if made_up else ""))
 
 
@@ -498,7 +493,6 @@ def user_set_role(username: str, role: str, data_dir: Path | None) -> None:
 
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         set_role(db, user_by_name(db, username), role)
-        db.commit()
     click.echo(f"{username} is now {role}")
 
 
@@ -507,7 +501,6 @@ def _set_active(username: str, active: bool, data_dir: Path | None) -> None:
 
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         set_active(db, user_by_name(db, username), active)
-        db.commit()
     click.echo(f"{username} is {'enabled' if active else 'disabled'}")
 
 
@@ -540,7 +533,6 @@ def user_set_password(username: str, password: str | None, generate: bool,
     secret, made_up = _password(password, generate)
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         set_password(db, user_by_name(db, username), secret)
-        db.commit()
     click.echo(f"password of {username} changed" + (f": {secret}" if made_up else ""))
 
 

@@ -12,7 +12,7 @@ from typing import Any
 
 from alembic import command
 from alembic.config import Config
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.orm import Session, sessionmaker
 
 from app.settings import MIGRATIONS_DIR, PROJECT_ROOT, Settings
@@ -67,3 +67,14 @@ def session_scope(factory: sessionmaker[Session]) -> Iterator[Session]:
         raise
     finally:
         session.close()
+
+
+def schema_revision(db: Session) -> str | None:
+    """The Alembic revision the database is at."""
+    revision = db.execute(text("SELECT version_num FROM alembic_version")).scalar()
+    return None if revision is None else str(revision)
+
+
+def dialect_name(db: Session) -> str:
+    """``sqlite`` or ``postgresql``."""
+    return db.get_bind().dialect.name

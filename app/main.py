@@ -7,7 +7,10 @@ included, so adding a page or API module needs no edit here.
 from __future__ import annotations
 
 import importlib
+import logging
 import pkgutil
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
 from typing import Any
 from urllib.parse import quote
 
@@ -15,7 +18,8 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, RedirectResponse
 from fastapi.staticfiles import StaticFiles
-from sqlalchemy.exc import DataError
+from sqlalchemy.exc import DataError, SQLAlchemyError
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
@@ -23,8 +27,12 @@ import app.routes
 from app.api_errors import SharedErrorDocs, value_out_of_range
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
+from app.services import suggestions, training
 from app.services.errors import ServiceError
 from app.settings import STATIC_DIR, Settings, get_settings
+from parser.errors import ParserError
+
+log = logging.getLogger(__name__)
 
 CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
        "connect-src 'self'; font-src 'self'; object-src 'none'; base-uri 'none'; "
@@ -145,6 +153,22 @@ def _error_page(request: Request, status: int, detail: Any) -> Any:
                                 "csrf_token": ""}, status_code=status)
 
 
+@asynccontextmanager
+async def _startup_hooks(application: FastAPI) -> AsyncIterator[None]:
+    """What runs when the service starts and stops, in this order: load the parser's compiled
+    loops and the active grammars (so the first Bench request does not pay for them), start
+    the training runner (it picks up jobs queued while the service was down); at the end stop
+    the runner."""
+    try:
+        loaded = await run_in_threadpool(suggestions.warm_up, application.state.sessionmaker)
+        log.info("warmed the parser; grammar versions loaded: %s", loaded)
+    except (SQLAlchemyError, ParserError) as exc:  # the first Bench request pays instead
+        log.warning("could not warm the parser: %s", exc)
+    runner = training.get_runner(application.state)
+    yield
+    runner.shutdown(wait=False)
+
+
 def create_app(settings: Settings | None = None, *, migrate: bool = True) -> FastAPI:
     """Build the service for ``settings`` (default: from the environment)."""
     settings = settings or get_settings()
@@ -156,6 +180,7 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         title="Treewright",
         docs_url=None,
         redoc_url=None,
+        lifespan=_startup_hooks,
         version="0.1.0",
         description="Build a constituency treebank with a parser in the loop. The JSON API "
                     "below is what the pages use; it needs a login cookie and, for changes, "

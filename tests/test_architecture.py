@@ -2,6 +2,11 @@
 
 * The modules of ``app.services`` import each other without a cycle, counting imports inside
   functions too (an import moved into a function hides a cycle; it does not remove it).
+* The CLI never commits: it calls the services' units of work.
+* Route modules hold no queries and no transactions: they never import SQLAlchemy's query
+  functions, never call a method of a database session (``db.get``, ``db.commit``...) and
+  import from ``app.models`` only the vocabulary (enums and constants) and model classes, which
+  they use as types. Reading and writing is the services' job (DEVELOPERS.md, "Architecture").
 """
 
 from __future__ import annotations
@@ -117,3 +122,52 @@ def test_architecture_gold_loop_runs_one_way() -> None:
         for earlier in chain[:i]:
             assert not reaches(f"app.services.{later}", f"app.services.{earlier}"), \
                 f"{later} reaches back to {earlier}"
+
+
+#: SQLAlchemy names a route module may import: none of them builds or runs a query.
+ROUTE_SQLALCHEMY_ALLOWED = {("sqlalchemy.orm", "Session"), ("sqlalchemy.exc", "SQLAlchemyError")}
+
+
+def _route_offences(path: Path, root: Path = ROOT) -> list[str]:
+    out = []
+    rel = path.relative_to(root)
+    tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.module and node.module.startswith(
+                "sqlalchemy"):
+            for alias in node.names:
+                if (node.module, alias.name) not in ROUTE_SQLALCHEMY_ALLOWED:
+                    out.append(f"{rel}:{node.lineno} imports {node.module}.{alias.name}")
+        elif isinstance(node, ast.Import):
+            out += [f"{rel}:{node.lineno} imports {a.name}" for a in node.names
+                    if a.name.startswith("sqlalchemy")]
+        elif isinstance(node, ast.ImportFrom) and node.module == "app.models":
+            for alias in node.names:
+                if not (alias.name[:1].isupper()):  # classes and CONSTANTS only
+                    out.append(f"{rel}:{node.lineno} imports app.models.{alias.name}")
+        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+              and isinstance(node.func.value, ast.Name) and node.func.value.id == "db"):
+            out.append(f"{rel}:{node.lineno} calls db.{node.func.attr}()")
+    return out
+
+
+def test_architecture_routes_hold_no_queries_or_transactions() -> None:
+    paths = sorted(ROUTES.glob("*.py"))
+    assert len(paths) > 10
+    offences = [o for p in paths for o in _route_offences(p)]
+    assert not offences, "\n".join(offences)
+
+
+def test_architecture_route_checker_catches_a_query(tmp_path: Path) -> None:
+    bad = tmp_path / "bad_route.py"
+    bad.write_text("from sqlalchemy import select\nfrom app.models import utcnow\n"
+                   "def page(db):\n    db.commit()\n")
+    assert len(_route_offences(bad, tmp_path)) == 3
+
+
+def test_architecture_cli_commands_never_commit() -> None:
+    # the CLI calls units of work (see app/services/transactions.py); they commit
+    tree = ast.parse((ROOT / "app" / "cli.py").read_text(encoding="utf-8"))
+    commits = [node.lineno for node in ast.walk(tree)
+               if isinstance(node, ast.Attribute) and node.attr in ("commit", "rollback")]
+    assert commits == [], f"app/cli.py commits or rolls back at lines {commits}"

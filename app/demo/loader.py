@@ -90,11 +90,11 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
     people: dict[str, User] = {}
     for spec in DEMO_USERS:
         password = secrets.token_urlsafe(12)
-        people[spec.role] = create_user(db, spec.username, password, spec.role,
-                                        display_name=spec.display_name)
+        people[spec.role] = create_user.step(db, spec.username, password, spec.role,
+                                             display_name=spec.display_name)
         logins.append((spec.username, spec.role, password))
     admin = people[ROLE_ADMIN]
-    corpus = create_corpus(db, CORPUS_NAME, description=CORPUS_DESCRIPTION, user=admin)
+    corpus = create_corpus.step(db, CORPUS_NAME, description=CORPUS_DESCRIPTION, user=admin)
     db.commit()
     documents = []
     gold = queued = 0
@@ -112,8 +112,8 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
                                    corpus_name=CORPUS_NAME, document_name=name, kind="text",
                                    user=admin).imported
     annotators = [u.username for role, u in people.items() if role != ROLE_ADMIN]
-    assigned = assign_sentences(db, corpus.id, per_sentence=len(annotators),
-                                usernames=annotators, by=admin)
+    assigned = assign_sentences.step(db, corpus.id, per_sentence=len(annotators),
+                                     usernames=annotators, by=admin)
     db.add(Event(user_id=admin.id, kind=DEMO_EVENT, corpus_id=corpus.id,
                  detail={"gold": gold, "queued": queued}))
     db.commit()

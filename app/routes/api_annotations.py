@@ -9,13 +9,9 @@ from __future__ import annotations
 
 import logging
 import math
-from collections.abc import AsyncIterator
-from contextlib import asynccontextmanager
 from typing import Any
 
-from fastapi import APIRouter, FastAPI, Request
-from fastapi.concurrency import run_in_threadpool
-from sqlalchemy.exc import SQLAlchemyError
+from fastapi import APIRouter, Request
 from sqlalchemy.orm import Session
 
 from app.deps import ApiUser, SessionDep
@@ -49,24 +45,12 @@ from app.schemas.annotation import (
 )
 from app.services import annotation as svc
 from app.services import suggestions
-from app.services.errors import NotFound
-from parser.errors import ParserError
+from app.services.corpora import get_corpus
 
 log = logging.getLogger(__name__)
 
 
-@asynccontextmanager
-async def _warm_parser(app: FastAPI) -> AsyncIterator[None]:
-    """On server start, load the parser's compiled loops and the active grammars."""
-    try:
-        loaded = await run_in_threadpool(suggestions.warm_up, app.state.sessionmaker)
-        log.info("warmed the parser; grammar versions loaded: %s", loaded)
-    except (SQLAlchemyError, ParserError) as exc:  # the first Bench request pays instead
-        log.warning("could not warm the parser: %s", exc)
-    yield
-
-
-router = APIRouter(tags=["bench"], lifespan=_warm_parser)
+router = APIRouter(tags=["bench"])
 
 ERRORS: dict[int | str, dict[str, Any]] = {
     404: {"model": BenchErrorPublic, "description": "not in your queue"},
@@ -83,10 +67,7 @@ def _annotation_public(a: Annotation | None) -> AnnotationPublic:
 
 
 def _corpus(db: Session, corpus_id: int) -> Corpus:
-    corpus = db.get(Corpus, corpus_id)
-    if corpus is None:
-        raise NotFound(f"no corpus with id {corpus_id}")
-    return corpus
+    return get_corpus(db, corpus_id)
 
 
 @router.get("/api/bench/{sentence_id}", response_model=BenchPublic, responses=ERRORS)
@@ -123,7 +104,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         annotation=_annotation_public(annotation), tree=tree, pins=Pins(**pins),
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
-        unknown_label_policy=corpus.setting("unknown_label_policy"),
+        unknown_label_policy=corpus.options.unknown_label_policy.value,
         queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus))
 
 

@@ -166,7 +166,6 @@ def create_corpus(body: CorpusCreate, login: ApiAdmin, db: SessionDep) -> Corpus
     corpus = svc.create_corpus(db, body.name, description=body.description,
                                label_set=body.label_set, tag_set=body.tag_set,
                                settings=body.settings, user=login.user)
-    db.commit()
     return _detail(db, corpus)
 
 
@@ -181,7 +180,6 @@ def update_corpus(corpus_id: int, body: CorpusUpdate, login: ApiAdmin,
     corpus = svc.get_corpus(db, corpus_id)
     svc.update_corpus(db, corpus, settings=body.settings, description=body.description,
                       label_set=body.label_set, tag_set=body.tag_set, user=login.user)
-    db.commit()
     return _detail(db, corpus)
 
 
@@ -191,7 +189,6 @@ def remove_corpus(corpus_id: int, body: CorpusRemove, login: ApiAdmin,
                   db: SessionDep) -> RemovedPublic:
     """Remove the corpus and everything in it; ``confirm_name`` must be its exact name."""
     name = svc.delete_corpus(db, corpus_id, body.confirm_name, user=login.user)
-    db.commit()
     return RemovedPublic(removed=name)
 
 
@@ -253,7 +250,6 @@ def export(corpus_id: int, login: ApiAdjudicator, db: SessionDep,
                          split=split)
     record_export(db, corpus_id, result, user=login.user, document_id=document_id,
                   split=split, function_tags=function_tags)
-    db.commit()
     return ExportPublic(files=result.files, counts=result.counts, warnings=result.warnings)
 
 
@@ -263,7 +259,6 @@ def assign(corpus_id: int, body: AssignCreate, login: ApiAdmin, db: SessionDep) 
     """Give every open sentence its annotators (idempotent)."""
     result = assign_sentences(db, corpus_id, per_sentence=body.per_sentence,
                               usernames=body.usernames, by=login.user)
-    db.commit()
     return AssignPublic(created=result.created, sentences=result.sentences,
                         already_complete=result.already_complete, short=result.short,
                         per_user=result.per_user)

@@ -1,32 +1,21 @@
 """The Grammars JSON API: list a corpus's grammar versions, poll a job, train on demand.
 
-The router's lifespan starts the app's training runner when the service starts, so jobs
-queued while it was down (or by a request before it started) are picked up.
+The training runner is started with the service (``app.main.create_app``'s startup hooks),
+so jobs queued while it was down (or by a request before it started) are picked up.
 """
 
 from __future__ import annotations
 
-from collections.abc import AsyncIterator
-from contextlib import asynccontextmanager
-
-from fastapi import APIRouter, FastAPI, Request
+from fastapi import APIRouter, Request
 from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, ApiUser, SessionDep
 from app.models import GV_QUEUED, Corpus, GrammarVersion
 from app.schemas.common import RequestModel, UtcDateTime
 from app.services import training
-from app.services.errors import NotFound
+from app.services.corpora import get_corpus
 
-
-@asynccontextmanager
-async def _runner_lifespan(app: FastAPI) -> AsyncIterator[None]:
-    runner = training.get_runner(app.state)
-    yield
-    runner.shutdown(wait=False)
-
-
-router = APIRouter(tags=["grammars"], lifespan=_runner_lifespan)
+router = APIRouter(tags=["grammars"])
 
 
 class GrammarVersionPublic(BaseModel):
@@ -62,10 +51,7 @@ def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPu
 
 
 def _corpus(db: SessionDep, corpus_id: int) -> Corpus:
-    corpus = db.get(Corpus, corpus_id)
-    if corpus is None:
-        raise NotFound(f"no corpus with id {corpus_id}")
-    return corpus
+    return get_corpus(db, corpus_id)
 
 
 @router.get("/api/grammars", response_model=list[GrammarVersionPublic])
@@ -94,5 +80,5 @@ def train_now(body: TrainCreate, login: ApiAdjudicator, db: SessionDep,
     corpus = _corpus(db, body.corpus_id)
     v = training.schedule_training(request.app.state, corpus.id,
                                    f"on demand by {login.user.username}", login.user.id)
-    db.expire_all()
-    return version_public(v, _corpus(db, corpus.id).active_grammar_id)
+    # the job was queued in a session of its own: read the corpus again
+    return version_public(v, get_corpus(db, corpus.id, fresh=True).active_grammar_id)

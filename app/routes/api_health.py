@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 from pydantic import BaseModel
-from sqlalchemy import text
 
+from app.db import dialect_name, schema_revision
 from app.deps import SessionDep
 
 router = APIRouter(tags=["health"])
@@ -19,6 +19,4 @@ class HealthPublic(BaseModel):
 
 @router.get("/api/health", response_model=HealthPublic)
 def health(db: SessionDep) -> HealthPublic:
-    revision = db.execute(text("SELECT version_num FROM alembic_version")).scalar()
-    return HealthPublic(status="ok", database=db.get_bind().dialect.name,
-                        schema_revision=revision)
+    return HealthPublic(status="ok", database=dialect_name(db), schema_revision=schema_revision(db))

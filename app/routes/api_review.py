@@ -13,13 +13,11 @@ from fastapi import APIRouter, Request
 from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, SessionDep
-from app.models import Corpus, Sentence
 from app.schemas.common import RequestModel
 from app.services import gold
 from app.services import review as svc
-from app.services.errors import NotFound
+from app.services.corpora import get_corpus
 from app.services.training import get_runner
-from app.services.validation import validate_tree_text
 
 router = APIRouter(tags=["review"])
 
@@ -102,8 +100,8 @@ def detail_public(detail: svc.ReviewDetail) -> ReviewPublic:
 def list_review(login: ApiAdjudicator, db: SessionDep,
                 corpus_id: int | None = None) -> ReviewListPublic:
     """Sentences waiting in review (longest waiting first) and the latest gold decisions."""
-    if corpus_id is not None and db.get(Corpus, corpus_id) is None:
-        raise NotFound(f"no corpus with id {corpus_id}")
+    if corpus_id is not None:
+        get_corpus(db, corpus_id)
     found = svc.review_list(db, corpus_id)
     return ReviewListPublic(waiting=found.waiting, settled=found.settled)
 
@@ -121,12 +119,7 @@ def check_tree(sentence_id: int, body: TreeCheck, login: ApiAdjudicator,
     """Validate a tree for this sentence without storing anything (422 says what is wrong)."""
     from parser.trees import words, write_tree
 
-    sentence = db.get(Sentence, sentence_id)
-    if sentence is None:
-        raise NotFound(f"no sentence with id {sentence_id}")
-    corpus = db.get(Corpus, sentence.corpus_id)
-    assert corpus is not None
-    tree = validate_tree_text(sentence, body.tree, corpus, confirm_labels=body.confirm_labels)
+    tree = svc.check_tree(db, sentence_id, body.tree, confirm_labels=body.confirm_labels)
     return TreeCheckPublic(tree=write_tree(tree), words=words(tree))
 
 

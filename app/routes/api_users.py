@@ -54,19 +54,12 @@ def list_users(login: ApiAdmin, db: SessionDep) -> list[UserPublic]:
 def create_user(body: UserCreate, login: ApiAdmin, db: SessionDep) -> UserPublic:
     user = svc.create_user(db, body.username, body.password, body.role,
                            display_name=body.display_name, by=login.user)
-    db.commit()
     return _public(user)
 
 
 @router.patch("/api/users/{user_id}", response_model=UserPublic, responses=ERRORS)
 def update_user(user_id: int, body: UserUpdate, login: ApiAdmin, db: SessionDep) -> UserPublic:
     """Change role, active state and/or password; disabling or a new password ends sessions."""
-    user = svc.get_user(db, user_id)
-    if body.role is not None:
-        svc.set_role(db, user, body.role, by=login.user)
-    if body.active is not None:
-        svc.set_active(db, user, body.active, by=login.user)
-    if body.password is not None:
-        svc.set_password(db, user, body.password, by=login.user)
-    db.commit()
+    user = svc.update_user(db, svc.get_user(db, user_id), role=body.role, active=body.active,
+                           password=body.password, by=login.user)
     return _public(user)

@@ -5,11 +5,10 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
-from sqlalchemy import select
 
 from app.deps import PageUser, SessionDep, corpus_or_404
-from app.models import GV_READY, GV_REJECTED, Corpus, GrammarVersion
-from app.services import agreement
+from app.models import GrammarVersion
+from app.services import agreement, corpora, training
 from app.services.charts import Point, Series, line_chart, score_bar
 from app.services.exports import slug
 from app.web import render
@@ -18,15 +17,12 @@ router = APIRouter(tags=["pages"], include_in_schema=False)
 
 
 def corpus_list(db: SessionDep) -> list[tuple[int, str, int]]:
-    return [(c.id, c.name, 0) for c in db.scalars(select(Corpus).order_by(Corpus.name))]
+    return [(c.id, c.name, 0) for c in corpora.corpus_list(db)]
 
 
 def learning_curve(db: SessionDep, corpus_id: int) -> tuple[list[GrammarVersion], object]:
     """The scored versions (oldest first) and their chart: held-out F1 by training size."""
-    scored = [v for v in db.scalars(select(GrammarVersion).where(
-        GrammarVersion.corpus_id == corpus_id,
-        GrammarVersion.status.in_((GV_READY, GV_REJECTED)))
-        .order_by(GrammarVersion.number)) if v.heldout_f1 is not None]
+    scored = training.scored_versions(db, corpus_id)
     series = [Series("held-out F1", [Point(v.training_size, v.heldout_f1 or 0.0,
                                            f"version {v.number}: {v.heldout_f1:.3f} "
                                            f"({v.training_size} gold trees, {v.status})")

@@ -12,12 +12,11 @@ from typing import Any
 
 from fastapi import APIRouter, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
-from sqlalchemy import select
 
 from app.deps import Login, PageAdmin, PageUser, SessionDep
-from app.models import SENTENCE_STATES, Assignment, Corpus, Sentence
+from app.models import SENTENCE_STATES, Corpus, Sentence
 from app.services import corpora as svc
-from app.services.assignment import assign_sentences
+from app.services.assignment import assign_sentences, assigned_to
 from app.services.errors import ServiceError
 from app.web import render
 
@@ -39,8 +38,7 @@ def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus,
     listing = svc.sentence_page(db, corpus, page=page, per_page=PER_PAGE, state=state,
                                 document_id=document)
     ids = [row.sentence.id for row in listing.rows]
-    mine = set(db.scalars(select(Assignment.sentence_id).where(
-        Assignment.user_id == login.user.id, Assignment.sentence_id.in_(ids)))) if ids else set()
+    mine = assigned_to(db, login.user, ids)
     return render(request, "corpus.html", login, status_code=status_code, nav="corpora",
                   corpus=corpus, counts=svc.corpus_counts(db, corpus),
                   documents=svc.document_rows(db, corpus), listing=listing, mine=mine,
@@ -65,9 +63,7 @@ def corpora_create(request: Request, login: PageAdmin, db: SessionDep, name: str
     try:
         corpus = svc.create_corpus(db, name, description=description, label_set=labels,
                                    tag_set=tags, user=login.user)
-        db.commit()
     except ServiceError as err:
-        db.rollback()
         return render(request, "corpora.html", login, status_code=err.status_code,
                       nav="corpora", rows=svc.corpus_overview(db), states=SENTENCE_STATES,
                       error=str(err.detail),
@@ -99,9 +95,7 @@ def corpus_assign(request: Request, corpus_id: int, login: PageAdmin, db: Sessio
                             error=f"annotators per sentence: {per_sentence!r} is not a number")
     try:
         result = assign_sentences(db, corpus.id, per_sentence=wanted, by=login.user)
-        db.commit()
     except ServiceError as err:
-        db.rollback()
         return _corpus_page(request, login, db, corpus, status_code=err.status_code,
                             error=str(err.detail))
     if result.short:
@@ -128,10 +122,7 @@ async def corpus_settings(request: Request, corpus_id: int, login: PageAdmin,
                           description=str(form.get("description", "")),
                           label_set=_changed(label_text, corpus.label_set),
                           tag_set=_changed(tag_text, corpus.tag_set), user=login.user)
-        db.commit()
     except ServiceError as err:
-        db.rollback()
-        db.refresh(corpus)
         return _corpus_page(request, login, db, corpus, status_code=err.status_code,
                             error=str(err.detail))
     return RedirectResponse(f"/corpora/{corpus.id}?done=settings", status_code=303)
@@ -143,9 +134,7 @@ def corpus_remove(request: Request, corpus_id: int, login: PageAdmin, db: Sessio
     corpus = svc.get_corpus(db, corpus_id)
     try:
         svc.delete_corpus(db, corpus.id, confirm_name, user=login.user)
-        db.commit()
     except ServiceError as err:
-        db.rollback()
         return _corpus_page(request, login, db, corpus, status_code=err.status_code,
                             error=str(err.detail), form={"confirm_name": confirm_name})
     return RedirectResponse("/", status_code=303)

@@ -27,13 +27,13 @@ def grammars_page(request: Request, login: PageUser, db: SessionDep,
     training.get_runner(request.app.state)  # picks up jobs queued while nobody ran them
     versions = training.versions(db, c.id)
     _, curve = learning_curve(db, c.id)
-    every = int(c.setting("retrain_every") or 0)
+    every = c.options.retrain_every
     new_gold = training.new_gold_since_last(db, c)
     return render(request, "grammars.html", login, nav="grammars", corpora=corpora,
                   corpus_id=c.id, c=c, versions=versions, curve=curve,
                   gold=training.current_gold_count(db, c.id), new_gold=new_gold,
-                  retrain_every=every, heldout_every=c.setting("heldout_every"),
-                  max_f1_drop=c.setting("max_f1_drop"), open_job=training.open_job(db, c.id),
+                  retrain_every=every, heldout_every=c.options.heldout_every,
+                  max_f1_drop=c.options.max_f1_drop, open_job=training.open_job(db, c.id),
                   queued=queued)
 
 

@@ -6,8 +6,8 @@ from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
 
 from app.deps import PageUser, SessionDep
-from app.models import Corpus
 from app.services import annotation as svc
+from app.services.corpora import find_corpus
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -25,7 +25,7 @@ def queue_page(request: Request, login: PageUser, db: SessionDep, corpus: int | 
     page = min(max(1, page), pages)
     items = queue.items[(page - 1) * PER_PAGE: page * PER_PAGE]
     corpora = {it.corpus_id: it.corpus_name for it in everything.items}
-    chosen = db.get(Corpus, corpus) if corpus is not None else None
+    chosen = find_corpus(db, corpus) if corpus is not None else None
     return render(request, "queue.html", login, nav="queue", queue=queue, items=items,
                   page=page, pages=pages, first_index=(page - 1) * PER_PAGE,
                   corpora=sorted(corpora.items(), key=lambda kv: kv[1]),

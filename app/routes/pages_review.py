@@ -11,36 +11,26 @@ import json
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse
-from sqlalchemy import func, select
 
 from app.deps import PageAdjudicator, SessionDep
-from app.models import SENT_IN_REVIEW, Corpus, Sentence
+from app.models import SENT_IN_REVIEW
 from app.services import review as svc
 from app.services.charts import span_ladder
-from app.services.errors import NotFound
+from app.services.corpora import get_corpus
 from app.web import render
 from parser.trees import read_tree, write_tree
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
 
 
-def corpus_choices(db: SessionDep) -> list[tuple[int, str, int]]:
-    """(id, name, sentences in review) of every corpus, by name."""
-    waiting = dict(db.execute(select(Sentence.corpus_id, func.count(Sentence.id))
-                              .where(Sentence.state == SENT_IN_REVIEW)
-                              .group_by(Sentence.corpus_id)).all())
-    return [(c.id, c.name, waiting.get(c.id, 0))
-            for c in db.scalars(select(Corpus).order_by(Corpus.name))]
-
-
 @router.get("/review", response_class=HTMLResponse)
 def review_index(request: Request, login: PageAdjudicator, db: SessionDep,
                  corpus: int | None = None) -> HTMLResponse:
-    if corpus is not None and db.get(Corpus, corpus) is None:
-        raise NotFound(f"no corpus with id {corpus}")
+    if corpus is not None:
+        get_corpus(db, corpus)
     listing = svc.review_list(db, corpus)
     return render(request, "review_list.html", login, nav="review", listing=listing,
-                  corpora=corpus_choices(db), corpus_id=corpus)
+                  corpora=svc.corpus_choices(db), corpus_id=corpus)
 
 
 def _indented(text: str) -> str:

@@ -11,14 +11,14 @@ from typing import Any
 
 from fastapi import APIRouter, File, Form, Request, UploadFile
 from fastapi.responses import HTMLResponse, Response
-from sqlalchemy import select
 from starlette.concurrency import run_in_threadpool
 
 from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
-from app.models import Corpus, Document, User
+from app.services.corpora import corpus_list, document_choices, find_corpus
 from app.services.errors import BadInput, ServiceError
 from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
 from app.services.imports import KINDS, TOKENIZERS, ImportResult, import_bytes
+from app.services.users import active_users
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -28,11 +28,9 @@ def _page(request: Request, login: Login, db: SessionDep, *, status_code: int = 
           result: ImportResult | None = None, error: str | None = None,
           export_error: str | None = None, form: dict[str, Any] | None = None,
           corpus_id: int | None = None) -> HTMLResponse:
-    corpora = list(db.scalars(select(Corpus).order_by(Corpus.name)))
-    documents = list(db.execute(select(Document.id, Document.name, Document.corpus_id)
-                                .order_by(Document.corpus_id, Document.position)))
-    people = list(db.scalars(select(User).where(User.active.is_(True))
-                             .order_by(User.username))) if login.user.is_admin else []
+    corpora = corpus_list(db)
+    documents = document_choices(db)
+    people = active_users(db) if login.user.is_admin else []
     return render(request, "transfer.html", login, status_code=status_code, nav="transfer",
                   corpora=corpora, documents=documents, people=people, kinds=KINDS,
                   tokenizers=TOKENIZERS, result=result, error=error,
@@ -67,7 +65,6 @@ async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
             document_name=document_name.strip() or None, kind=kind, tokenizer=tokenizer,
             annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     except ServiceError as err:
-        db.rollback()
         return _page(request, login, db, status_code=err.status_code, error=str(err.detail),
                      form=form)
     return _page(request, login, db, result=result, corpus_id=result.corpus_id)
@@ -87,7 +84,6 @@ def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
                              split=spec)
         record_export(db, corpus, result, user=login.user, document_id=document_id,
                       split=spec, function_tags=not strip)
-        db.commit()
     except ValueError:
         return _page(request, login, db, status_code=422, corpus_id=corpus,
                      export_error=f"document {document!r} is not a document id")
@@ -100,7 +96,7 @@ def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
                         headers={"Content-Disposition": f'attachment; filename="{name}"',
                                  "X-Treewright-Trees": str(result.counts[name])})
     base = next(iter(result.files)).rsplit(".", 1)[0] if spec is None else None
-    corpus_row = db.get(Corpus, corpus)
+    corpus_row = find_corpus(db, corpus)
     name = (base or f"{slug(corpus_row.name if corpus_row else 'corpus')}-split") + ".zip"
     return Response(result.zip_bytes(), media_type="application/zip",
                     headers={"Content-Disposition": f'attachment; filename="{name}"'})

@@ -44,9 +44,7 @@ def users_create(request: Request, login: PageAdmin, db: SessionDep, username: s
                  password: str = Form("")) -> Response:
     try:
         svc.create_user(db, username, password, role, display_name=display_name, by=login.user)
-        db.commit()
     except ServiceError as err:
-        db.rollback()
         return _page(request, login, db, status_code=err.status_code, error=str(err.detail),
                      form={"username": username, "display_name": display_name, "role": role})
     return RedirectResponse("/users?done=created", status_code=303)
@@ -56,9 +54,7 @@ def _change(request: Request, login: Login, db: SessionDep, user_id: int, done: 
             action: Callable[[User], object]) -> Response:
     try:
         action(svc.get_user(db, user_id))
-        db.commit()
     except ServiceError as err:
-        db.rollback()
         return _page(request, login, db, status_code=err.status_code, error=str(err.detail))
     return RedirectResponse(f"/users?done={done}", status_code=303)
 

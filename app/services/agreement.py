@@ -94,7 +94,7 @@ def is_complete(db: Session, sentence: Sentence, corpus: Corpus,
     done = {s.annotation.user_id for s in submitted}
     if assigned:
         return assigned <= done
-    return len(done) >= int(corpus.setting("annotators_per_sentence") or 1)
+    return len(done) >= corpus.options.annotators_per_sentence
 
 
 def _record_exists(db: Session, a: SubmittedTree, b: SubmittedTree) -> bool:
@@ -153,7 +153,7 @@ def on_submitted(db: Session, sentence: Sentence) -> None:
     identical = len(submitted) > 1 and len({s.text for s in submitted}) == 1
     if sentence.state == SENT_GOLD:
         outcome = "already gold"
-    elif identical and corpus.setting("auto_gold_when_identical"):
+    elif identical and corpus.options.auto_gold_when_identical:
         make_gold(db, sentence, submitted[0].text, provenance="agreement",
                   source_annotation_id=submitted[0].annotation.id)
         outcome = "gold"

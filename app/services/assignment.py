@@ -32,6 +32,7 @@ from app.models import (
 )
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
+from app.services.transactions import unit_of_work
 
 OPEN_STATES = (SENT_QUEUED, SENT_IN_PROGRESS)
 
@@ -71,14 +72,16 @@ def team(db: Session, usernames: Iterable[str] | None = None) -> list[User]:
     return users
 
 
+@unit_of_work
 def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = None,
                      usernames: Iterable[str] | None = None,
                      sentence_ids: Iterable[int] | None = None,
                      by: User | None = None) -> AssignResult:
-    """Bring every open sentence (or the given ones) of the corpus up to N assignees."""
+    """Bring every open sentence (or the given ones) of the corpus up to N assignees.
+    Commits (``assign_sentences.step`` does not)."""
     corpus = get_corpus(db, corpus_id)
     needed = int(per_sentence if per_sentence is not None
-                 else corpus.setting("annotators_per_sentence"))
+                 else corpus.options.annotators_per_sentence)
     if needed < 1:
         raise BadInput(f"annotators per sentence must be at least 1, not {needed}")
     people = team(db, usernames)
@@ -131,3 +134,12 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
                          "per_user": result.per_user}))
     db.flush()
     return result
+
+
+def assigned_to(db: Session, user: User, sentence_ids: Iterable[int]) -> set[int]:
+    """Which of ``sentence_ids`` are assigned to ``user``."""
+    ids = list(sentence_ids)
+    if not ids:
+        return set()
+    return set(db.scalars(select(Assignment.sentence_id).where(
+        Assignment.user_id == user.id, Assignment.sentence_id.in_(ids))))

@@ -35,6 +35,7 @@ from sqlalchemy.orm import Session
 from app.models import SENT_GOLD, Corpus, Document, Event, Gold, Sentence, User
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
+from app.services.transactions import unit_of_work
 from parser.trees import read_tree, strip_function_tags, write_tree
 
 PART_NAMES = ("train", "dev", "test")
@@ -210,10 +211,11 @@ def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
     return result
 
 
+@unit_of_work
 def record_export(db: Session, corpus_id: int, result: ExportResult, *, user: User | None,
                   document_id: int | None = None, split: SplitSpec | None = None,
                   function_tags: bool = True) -> None:
-    """Note an export in the event log (gold text leaving the service); the caller commits."""
+    """Note an export in the event log (gold text leaving the service); Commits."""
     detail: dict[str, object] = {"files": dict(result.counts), "function_tags": function_tags,
                                  "document_id": document_id}
     if split is not None:

@@ -417,7 +417,7 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
     if corpus is None:
         if not create:
             raise NotFound(f"no corpus named {corpus_name!r}")
-        corpus = create_corpus(db, corpus_name, user=user)
+        corpus = create_corpus.step(db, corpus_name, user=user)
         corpus_created = True
     doc, doc_created = _document(db, corpus, document_name)
     result = ImportResult(corpus_id=corpus.id, corpus_name=corpus.name, document_id=doc.id,
@@ -536,7 +536,7 @@ def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> N
     A sentence with fewer (one annotator's file alone) stays in progress: it waits for the
     other annotators, whom the assignment service adds.
     """
-    needed = int(corpus.setting("annotators_per_sentence") or 1)
+    needed = corpus.options.annotators_per_sentence
     ids = [s.id for s in sentences]
     if not ids:
         return

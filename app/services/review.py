@@ -375,3 +375,23 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     gold_added(db, corpus)
     db.commit()
     return gold
+
+
+def corpus_choices(db: Session) -> list[tuple[int, str, int]]:
+    """(id, name, sentences in review) of every corpus, by name."""
+    waiting = dict(db.execute(select(Sentence.corpus_id, func.count(Sentence.id))
+                              .where(Sentence.state == SENT_IN_REVIEW)
+                              .group_by(Sentence.corpus_id)).all())
+    return [(c.id, c.name, waiting.get(c.id, 0))
+            for c in db.scalars(select(Corpus).order_by(Corpus.name))]
+
+
+def check_tree(db: Session, sentence_id: int, tree_text: str, *,
+               confirm_labels: bool = False) -> Tree:
+    """The adjudicator's tree read and validated for the sentence, storing nothing."""
+    sentence = db.get(Sentence, sentence_id)
+    if sentence is None:
+        raise NotFound(f"no sentence with id {sentence_id}")
+    corpus = db.get(Corpus, sentence.corpus_id)
+    assert corpus is not None  # a foreign key guarantees it
+    return validate_tree_text(sentence, tree_text, corpus, confirm_labels=confirm_labels)

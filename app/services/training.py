@@ -150,7 +150,7 @@ def _queue(db: Session, corpus: Corpus, reason: str, user_id: int | None) -> Gra
 def queue_if_due(db: Session, corpus: Corpus) -> GrammarVersion | None:
     """Queue the next version when ``retrain_every`` new gold trees have arrived. Does not
     commit; the job starts once the caller's transaction commits."""
-    every = int(corpus.setting("retrain_every") or 0)
+    every = corpus.options.retrain_every
     if every <= 0 or open_job(db, corpus.id) is not None:
         return None
     if new_gold_since_last(db, corpus) < every:
@@ -300,8 +300,8 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         corpus = db.get(Corpus, version.corpus_id)
         assert corpus is not None
         corpus_id = corpus.id
-        every = int(corpus.setting("heldout_every") or 0)
-        max_drop = float(corpus.setting("max_f1_drop") or 0.0)
+        every = corpus.options.heldout_every
+        max_drop = corpus.options.max_f1_drop
         gold = load_gold(db, corpus_id)
         version.gold_count_at_start = current_gold_count(db, corpus_id)
         db.commit()
@@ -633,3 +633,11 @@ def get_version(db: Session, version_id: int) -> GrammarVersion:
     if version is None:
         raise NotFound(f"no grammar version with id {version_id}")
     return version
+
+
+def scored_versions(db: Session, corpus_id: int) -> list[GrammarVersion]:
+    """The corpus's versions with a held-out F1 (ready or rejected), oldest first."""
+    return [v for v in db.scalars(select(GrammarVersion).where(
+        GrammarVersion.corpus_id == corpus_id,
+        GrammarVersion.status.in_((GV_READY, GV_REJECTED)))
+        .order_by(GrammarVersion.number)) if v.heldout_f1 is not None]

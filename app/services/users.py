@@ -15,6 +15,7 @@ from sqlalchemy.orm import Session
 from app.models import ROLE_ADMIN, ROLES, Event, User
 from app.security import end_all_sessions, hash_password
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.transactions import unit_of_work
 
 USERNAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
 MIN_PASSWORD = 10
@@ -60,8 +61,10 @@ def list_users(db: Session) -> list[User]:
     return list(db.scalars(select(User).order_by(User.username)))
 
 
+@unit_of_work
 def create_user(db: Session, username: str, password: str, role: str, *,
                 display_name: str = "", by: User | None = None) -> User:
+    """A new active account. Commits (``create_user.step`` does not)."""
     username = check_username(username)
     check_password(password)
     check_role(role)
@@ -81,7 +84,9 @@ def _other_active_admins(db: Session, user: User) -> int:
         User.role == ROLE_ADMIN, User.active.is_(True), User.id != user.id)) or 0
 
 
+@unit_of_work
 def set_role(db: Session, user: User, role: str, *, by: User | None = None) -> User:
+    """Change the account's role; the last active admin keeps theirs. Commits."""
     check_role(role)
     if user.role == ROLE_ADMIN and role != ROLE_ADMIN and user.active \
             and _other_active_admins(db, user) == 0:
@@ -95,8 +100,9 @@ def set_role(db: Session, user: User, role: str, *, by: User | None = None) -> U
     return user
 
 
+@unit_of_work
 def set_active(db: Session, user: User, active: bool, *, by: User | None = None) -> User:
-    """Disable (ending all their sessions) or enable a user."""
+    """Disable (ending all their sessions) or enable a user. Commits."""
     if not active and user.role == ROLE_ADMIN and user.active \
             and _other_active_admins(db, user) == 0:
         raise Conflict(f"{user.username} is the last active admin and cannot be disabled")
@@ -110,8 +116,9 @@ def set_active(db: Session, user: User, active: bool, *, by: User | None = None)
     return user
 
 
+@unit_of_work
 def set_password(db: Session, user: User, password: str, *, by: User | None = None) -> User:
-    """A new password; every session of the user ends (they log in again)."""
+    """A new password; every session of the user ends (they log in again). Commits."""
     check_password(password)
     user.password_hash = hash_password(password)
     end_all_sessions(db, user.id)
@@ -119,3 +126,21 @@ def set_password(db: Session, user: User, password: str, *, by: User | None = No
                  detail={"username": user.username}))
     db.flush()
     return user
+
+
+@unit_of_work
+def update_user(db: Session, user: User, *, role: str | None = None, active: bool | None = None,
+                password: str | None = None, by: User | None = None) -> User:
+    """Change role, active state and/or password together: all of them or none. Commits."""
+    if role is not None:
+        set_role.step(db, user, role, by=by)
+    if active is not None:
+        set_active.step(db, user, active, by=by)
+    if password is not None:
+        set_password.step(db, user, password, by=by)
+    return user
+
+
+def active_users(db: Session) -> list[User]:
+    """Every active account, by user name."""
+    return list(db.scalars(select(User).where(User.active.is_(True)).order_by(User.username)))

@@ -17,6 +17,7 @@ from typing import Any
 
 from nltk import Tree
 
+from app.corpus_settings import LabelPolicy
 from app.models import Corpus, Sentence
 from app.services.errors import BadInput
 from parser.errors import BracketSyntaxError
@@ -93,9 +94,9 @@ def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
             raise BadInput(msg, kind="words", position=i, expected=want, found=got)
     unknown = unknown_labels(tree, corpus)
     if unknown:
-        policy = corpus.setting("unknown_label_policy")
+        policy = corpus.options.unknown_label_policy
         names = ", ".join(unknown)
-        if policy == "refuse":
+        if policy == LabelPolicy.REFUSE:
             raise BadInput(f"not in this corpus's label or tag set: {names}", kind="labels",
                            labels=unknown, can_confirm=False)
         if not confirm_labels:
