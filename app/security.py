@@ -13,7 +13,7 @@ from sqlalchemy import delete, func, or_, select
 from sqlalchemy.orm import Session
 
 from app.models import LoginFailure, User, UserSession, utcnow
-from app.settings import Settings
+from app.settings import Settings, get_settings
 
 SESSION_COOKIE = "tw_session"
 CSRF_HEADER = "X-CSRF-Token"
@@ -21,16 +21,25 @@ CSRF_FIELD = "csrf_token"
 FAILURE_WINDOW = timedelta(minutes=15)
 MAX_LOGIN_DELAY = 10.0
 
-_hasher = PasswordHasher()
+# argon2-cffi's defaults (the library's RFC 9106 low-memory profile),
+# and parameters cheap enough for a test suite that logs in thousands of times.
+_HASHERS = {"standard": PasswordHasher(),
+            "test": PasswordHasher(time_cost=1, memory_cost=8, parallelism=1)}
+
+
+def _hasher() -> PasswordHasher:
+    """The hasher the setting ``password_hash_cost`` names. A hash records its parameters, so
+    verifying always costs what hashing that password cost."""
+    return _HASHERS[get_settings().password_hash_cost]
 
 
 def hash_password(password: str) -> str:
-    return _hasher.hash(password)
+    return _hasher().hash(password)
 
 
 def verify_password(password_hash: str, password: str) -> bool:
     try:
-        return _hasher.verify(password_hash, password)
+        return _hasher().verify(password_hash, password)
     except (VerificationError, InvalidHashError):
         return False
 
@@ -104,11 +113,19 @@ def authenticate(db: Session, username: str, password: str) -> User | None:
     user = db.scalar(select(User).where(User.username == username))
     if user is None:
         # Spend the same time as a real check, so timing does not reveal which names exist.
-        verify_password(_DUMMY_HASH, password)
+        verify_password(_dummy_hash(), password)
         return None
     if not user.active or not verify_password(user.password_hash, password):
         return None
     return user
 
 
-_DUMMY_HASH = _hasher.hash(secrets.token_urlsafe(16))
+_DUMMY_HASHES: dict[str, str] = {}
+
+
+def _dummy_hash() -> str:
+    """A hash of a random password with the current parameters (made on first use)."""
+    cost = get_settings().password_hash_cost
+    if cost not in _DUMMY_HASHES:
+        _DUMMY_HASHES[cost] = _HASHERS[cost].hash(secrets.token_urlsafe(16))
+    return _DUMMY_HASHES[cost]

@@ -11,6 +11,7 @@ import os
 import secrets
 from functools import lru_cache
 from pathlib import Path
+from typing import Literal
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
@@ -47,6 +48,9 @@ class Settings(BaseSettings):
                                        "the threshold.")
     training_in_process: bool = Field(default=False, description="Train grammars in a thread "
                                       "instead of a separate process (tests use this).")
+    password_hash_cost: Literal["standard", "test"] = Field(
+        default="standard", description="argon2 parameters for new password hashes: "
+        "'standard' (argon2-cffi's defaults) or 'test' (cheap, for test suites only).")
 
     @property
     def resolved_database_url(self) -> str:

@@ -7,9 +7,34 @@ import random
 
 import pytest
 
+# Cheap argon2 parameters for every password hashed in the tests, in this process and in the
+# servers it starts (a setting of the service; production keeps argon2-cffi's defaults).
+os.environ.setdefault("TREEWRIGHT_PASSWORD_HASH_COST", "test")
+
 
 @pytest.fixture
 def rng(request: pytest.FixtureRequest) -> random.Random:
     seed = int(os.environ.get("TREEWRIGHT_TEST_SEED", "20261201"))
     print(f"[{request.node.name}] random seed {seed} (set TREEWRIGHT_TEST_SEED to change)")
     return random.Random(seed)
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    # numba keeps compiled kernels in one folder that every worker of this run (and the next
+    # run) shares, instead of each worker compiling its own from an empty cache.
+    cache = getattr(config, "cache", None)
+    if cache is not None:
+        os.environ.setdefault("NUMBA_CACHE_DIR", str(cache.mkdir("numba")))
+    workers = getattr(config.option, "numprocesses", None)
+    if workers and not hasattr(config, "workerinput"):
+        _warm_numba_cache()
+
+
+def _warm_numba_cache() -> None:
+    """Compile (or load) the chart kernels once, in the process that starts the workers, before
+    they start: they then load them from the shared cache."""
+    from parser.chart import parse
+    from parser.grammar import Grammar
+
+    tiny = Grammar.from_text("1.0 S -> A B\n1.0 A -> 'a'\n1.0 B -> 'b'")
+    parse(tiny, ["a", "b"], k=2, posteriors=True)

@@ -195,3 +195,23 @@ def test_accounts_login_posted_from_another_site_is_refused(app, people) -> None
     ok = client.post("/login", data={"username": "ann1", "password": PASSWORD},
                      headers={"Sec-Fetch-Site": "same-origin"}, follow_redirects=False)
     assert ok.status_code == 303
+
+
+def test_accounts_password_hash_cost_is_standard_unless_set(monkeypatch) -> None:
+    # The suite hashes with cheap parameters (tests/conftest.py); a service that is not told
+    # otherwise uses argon2-cffi's defaults. Parameters are read back from the hash itself.
+    from argon2 import extract_parameters
+    from argon2.profiles import RFC_9106_LOW_MEMORY
+
+    from app.security import _HASHERS
+    from app.settings import Settings
+
+    monkeypatch.delenv("TREEWRIGHT_PASSWORD_HASH_COST", raising=False)
+    assert Settings().password_hash_cost == "standard"
+    standard = extract_parameters(_HASHERS["standard"].hash("s3cret-word"))
+    # argon2-cffi's default profile is RFC 9106's low-memory option (the library's docs)
+    assert (standard.memory_cost, standard.time_cost, standard.parallelism) == (
+        RFC_9106_LOW_MEMORY.memory_cost, RFC_9106_LOW_MEMORY.time_cost,
+        RFC_9106_LOW_MEMORY.parallelism)
+    cheap = extract_parameters(_HASHERS["test"].hash("s3cret-word"))
+    assert cheap.memory_cost < standard.memory_cost and cheap.time_cost <= standard.time_cost
