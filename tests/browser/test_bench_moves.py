@@ -42,6 +42,7 @@ def _open_at(page, live_server, deck, tree: str) -> None:
     page.click("[data-cmd='apply-text']")
     wait_tree(page, tree)
     wait_saved(page)
+    page.evaluate("() => window.scrollTo(0, 0)")  # the text panel is below the tree
 
 
 def _saved_tree(live_server, deck) -> str:
