@@ -21,6 +21,19 @@ class LabelPolicy(StrEnum):
     REFUSE = "refuse"  # reject the tree
 
 
+class SettleOwnPolicy(StrEnum):
+    """Whether an adjudicator may settle a sentence they annotated themselves."""
+
+    IF_ALONE = "if_alone"  # only when no other active adjudicator or admin exists
+    ALWAYS = "always"
+    NEVER = "never"
+
+
+#: The choices of each setting that takes one of a few words.
+CHOICES: dict[str, type[StrEnum]] = {"unknown_label_policy": LabelPolicy,
+                                     "settle_own_annotation": SettleOwnPolicy}
+
+
 class CorpusSettings(BaseModel):
     """Every per-corpus setting with its default; unknown stored keys are ignored on read."""
 
@@ -42,6 +55,11 @@ class CorpusSettings(BaseModel):
     unknown_label_policy: LabelPolicy = Field(
         LabelPolicy.CONFIRM,
         description="A label outside the label set: 'confirm' asks, 'refuse' rejects.")
+    settle_own_annotation: SettleOwnPolicy = Field(
+        SettleOwnPolicy.IF_ALONE,
+        description="An adjudicator settling a sentence they annotated: 'if_alone' only when "
+                    "no other adjudicator or admin exists, 'always', or 'never'. Always "
+                    "recorded in the gold history.")
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import.")
@@ -88,7 +106,7 @@ def _message(key: str, raw: Any, error_type: str) -> str:
         return f"setting {key}: {raw!r} is not yes or no"
     if error_type == "enum":
         return (f"setting {key}: {raw!r} is not one of "
-                f"{', '.join(p.value for p in LabelPolicy)}")
+                f"{', '.join(p.value for p in CHOICES[key])}")
     if error_type in ("greater_than_equal", "less_than_equal"):
         return f"setting {key}: {raw} is outside {'..'.join(map(str, bounds(key)))}"
     what = "an integer" if field.annotation is int else "a number"

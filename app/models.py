@@ -41,8 +41,14 @@ class Role(StrEnum):
 class SentenceState(StrEnum):
     QUEUED = "queued"  # waiting for its annotators
     IN_PROGRESS = "in_progress"  # someone has saved a tree
+    #: An annotator held the sentence back (a reason such as "tokenization wrong"); it waits
+    #: for an adjudicator or admin to release it, have its tokens fixed, or drop it.
+    HELD_BACK = "held_back"
     IN_REVIEW = "in_review"  # every annotation handed in; waits for an adjudicator
     GOLD = "gold"
+    #: Dropped from the corpus: kept with its history, but out of every queue, export,
+    #: agreement figure and training set.
+    DROPPED = "dropped"
 
 
 class AnnotationState(StrEnum):
@@ -69,6 +75,8 @@ SENT_QUEUED = SentenceState.QUEUED
 SENT_IN_PROGRESS = SentenceState.IN_PROGRESS
 SENT_IN_REVIEW = SentenceState.IN_REVIEW
 SENT_GOLD = SentenceState.GOLD
+SENT_HELD_BACK = SentenceState.HELD_BACK
+SENT_DROPPED = SentenceState.DROPPED
 SENTENCE_STATES = tuple(SentenceState)
 
 ANN_DRAFT = AnnotationState.DRAFT
@@ -261,6 +269,12 @@ class Gold(Base):
     source_annotation_id: Mapped[int | None] = mapped_column(
         ForeignKey("annotations.id", ondelete="SET NULL"), nullable=True)
     note: Mapped[str] = mapped_column(Text, default="")
+    #: The annotators' notes for the adjudicator when the gold was made, as
+    #: ``[{"annotation_id", "annotator", "note", "flag"}]`` (kept with the gold: notes can
+    #: change later, the history shows what the decision was made with).
+    annotator_notes: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    #: The adjudicator had submitted an annotation of this sentence themselves.
+    own_annotation: Mapped[bool] = mapped_column(Boolean, default=False)
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     retired_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
     retired_by_id: Mapped[int | None] = mapped_column(

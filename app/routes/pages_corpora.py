@@ -44,7 +44,8 @@ def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus,
                   documents=svc.document_rows(db, corpus), listing=listing, mine=mine,
                   state=state, document=document, states=SENTENCE_STATES,
                   settings=svc.effective_settings(corpus), specs=svc.SETTING_SPECS,
-                  policies=svc.LABEL_POLICIES, error=error, notice=notice, form=form or {},
+                  policies=svc.LABEL_POLICIES,
+                  own_policies=svc.SETTLE_OWN_POLICIES, error=error, notice=notice, form=form or {},
                   link=lambda sentence: sentence_link(sentence, mine, login))
 
 

@@ -32,6 +32,7 @@ from app.corpus_settings import (
     CorpusSettings,
     LabelPolicy,
     SettingError,
+    SettleOwnPolicy,
     bounds,
     checked_update,
 )
@@ -61,6 +62,8 @@ PTB_TAGS: tuple[str, ...] = tuple(
     "UH VB VBD VBG VBN VBP VBZ WDT WP WP$ WRB # $ . , : `` '' -LRB- -RRB- HYPH NFP".split())
 
 LABEL_POLICIES = tuple(p.value for p in LabelPolicy)
+#: Who may settle a sentence they annotated (see app.services.review.check_own_settle).
+SETTLE_OWN_POLICIES = tuple(p.value for p in SettleOwnPolicy)
 MAX_NAME = 128
 _LABEL_RE = re.compile(r"^[^\s()]+$")
 #: Settings key that records whether the label and tag sets grow with imports.

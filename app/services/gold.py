@@ -5,6 +5,7 @@ What it does
       the tree agreement scores, review shows and a 409 answer carries.
     * :func:`make_gold`: store a tree as the sentence's gold and mark the sentence gold; any
       gold it still has is retired first, so at most one gold row per sentence is current.
+      The row keeps the annotators' notes for the adjudicator as they were at that moment.
     * :func:`active_gold`: the sentence's current gold row.
     * :func:`reopen`: retire the current gold (``retired_at``/``retired_by_id``, never deleted)
       and send the sentence back to review.
@@ -72,10 +73,24 @@ def _retire(db: Session, sentence_id: int, by_id: int | None) -> list[int]:
     return retired
 
 
+def annotator_notes(db: Session, sentence_id: int) -> list[dict[str, Any]]:
+    """The notes for the adjudicator on the sentence's annotations (empty notes left out), in
+    annotation order: ``{"annotation_id", "annotator", "note", "flag"}``."""
+    rows = db.execute(select(Annotation, User.username, User.display_name)
+                      .join(User, User.id == Annotation.user_id)
+                      .where(Annotation.sentence_id == sentence_id)
+                      .order_by(Annotation.id)).all()
+    return [{"annotation_id": a.id, "annotator": dname or uname, "note": a.comment.strip(),
+             "flag": a.flag}
+            for a, uname, dname in rows if (a.comment or "").strip()]
+
+
 def make_gold(db: Session, sentence: Sentence, tree_text: str, *, provenance: str,
               adjudicator_id: int | None = None, source_annotation_id: int | None = None,
-              note: str = "") -> Gold:
-    """Store ``tree_text`` as the sentence's gold and mark the sentence gold.
+              note: str = "", own_annotation: bool = False) -> Gold:
+    """Store ``tree_text`` as the sentence's gold and mark the sentence gold, keeping with it
+    the annotators' notes of this moment (:func:`annotator_notes`) and whether the
+    adjudicator had annotated the sentence (``own_annotation``).
 
     Any gold the sentence still has is retired first (kept, with ``retired_by_id``), so there
     is at most one current gold tree. A step of a larger workflow: flushes, does not commit.
@@ -83,7 +98,8 @@ def make_gold(db: Session, sentence: Sentence, tree_text: str, *, provenance: st
     _retire(db, sentence.id, adjudicator_id)
     gold = Gold(sentence_id=sentence.id, tree=tree_text, provenance=provenance,
                 adjudicator_id=adjudicator_id, source_annotation_id=source_annotation_id,
-                note=note, created_at=utcnow())
+                note=note, annotator_notes=annotator_notes(db, sentence.id),
+                own_annotation=own_annotation, created_at=utcnow())
     db.add(gold)
     sentence.state = SENT_GOLD
     db.flush()

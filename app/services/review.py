@@ -17,7 +17,12 @@ What it computes
     * :func:`settle`: the adjudicator's tree (validated like a Bench save) becomes gold with
       provenance ``adjudication``: who, from which annotation or earlier gold it started, when,
       and an optional note. The sentence must be in review; a compare-and-set on its state makes
-      a second, racing settle fail with 409 instead of writing two gold trees.
+      a second, racing settle fail with 409 instead of writing two gold trees. An adjudicator
+      who submitted an annotation of the sentence settles it only as the corpus setting
+      ``settle_own_annotation`` allows (``if_alone`` by default: only when no other active
+      adjudicator or admin exists); when allowed, the gold row records it.
+    * Every gold row keeps the annotators' notes for the adjudicator as they were when it was
+      made (:func:`annotator_notes`); the Review page shows each note beside its tree.
     * Making, retiring and reopening gold rows is :mod:`app.services.gold`'s.
 
 Nothing is ever deleted: every gold tree stays as a row, the newest unretired one is current.
@@ -36,8 +41,11 @@ from nltk import Tree
 from sqlalchemy import CursorResult, func, select, update
 from sqlalchemy.orm import Session
 
+from app.corpus_settings import SettleOwnPolicy
 from app.models import (
     ANN_SUBMITTED,
+    ROLE_ADJUDICATOR,
+    ROLE_ADMIN,
     SENT_GOLD,
     SENT_IN_REVIEW,
     AgreementRecord,
@@ -50,7 +58,7 @@ from app.models import (
     User,
 )
 from app.schemas.common import UtcDateTime
-from app.services.errors import BadInput, Conflict, NotFound
+from app.services.errors import BadInput, Conflict, Forbidden, NotFound
 from app.services.gold import check_note, current_revision, gold_added, make_gold
 from app.services.validation import validate_tree_text
 from parser.trees import constituents, is_preterminal, read_tree, words, write_tree
@@ -156,6 +164,7 @@ class ReviewTree:
     revision: int
     tree: str
     submitted_at: UtcDateTime | None
+    note: str = ""  # the annotator's note for the adjudicator
 
 
 @dataclass(frozen=True)
@@ -184,6 +193,8 @@ class GoldEntry:
     created_at: UtcDateTime
     retired_at: UtcDateTime | None
     retired_by: str | None
+    annotator_notes: list[dict[str, Any]] = field(default_factory=list)
+    own_annotation: bool = False
 
 
 @dataclass(frozen=True)
@@ -281,7 +292,8 @@ def review_detail(db: Session, sentence_id: int) -> ReviewDetail:
             continue
         letter = LETTERS[len(trees) % len(LETTERS)]
         trees.append(ReviewTree(letter, ann.id, ann.user_id, names.get(ann.user_id, "?"),
-                                rev.number, write_tree(read_tree(rev.tree)), ann.submitted_at))
+                                rev.number, write_tree(read_tree(rev.tree)), ann.submitted_at,
+                                (ann.comment or "").strip()))
     letter_of = {t.annotation_id: t.letter for t in trees}
     pairs = []
     if trees:
@@ -297,7 +309,8 @@ def review_detail(db: Session, sentence_id: int) -> ReviewDetail:
                                      r.count_b))
     history = [GoldEntry(g.id, g.tree, g.provenance, names.get(g.adjudicator_id or -1),
                          g.source_annotation_id, letter_of.get(g.source_annotation_id or -1),
-                         g.note, g.created_at, g.retired_at, names.get(g.retired_by_id or -1))
+                         g.note, g.created_at, g.retired_at, names.get(g.retired_by_id or -1),
+                         list(g.annotator_notes or []), bool(g.own_annotation))
                for g in golds]
     token_words = words(read_tree(trees[0].tree)) if trees else [str(t) for t in sentence.tokens]
     return ReviewDetail(sentence=sentence, corpus=corpus, document=document.name,
@@ -316,6 +329,41 @@ def _neighbours(db: Session, sentence: Sentence) -> tuple[int | None, int | None
 
 # --------------------------------------------------------------------------------------------
 # settling and reopening
+
+
+def own_submitted_annotation(db: Session, sentence_id: int, user: User) -> int | None:
+    """The id of ``user``'s submitted annotation of the sentence, if any."""
+    return db.scalar(select(Annotation.id).where(Annotation.sentence_id == sentence_id,
+                                                 Annotation.user_id == user.id,
+                                                 Annotation.state == ANN_SUBMITTED))
+
+
+def other_adjudicators(db: Session, user: User) -> int:
+    """How many other active accounts may adjudicate."""
+    return db.scalar(select(func.count()).select_from(User).where(
+        User.id != user.id, User.active.is_(True),
+        User.role.in_((ROLE_ADMIN, ROLE_ADJUDICATOR)))) or 0
+
+
+def check_own_settle(db: Session, corpus: Corpus, sentence_id: int, user: User) -> bool:
+    """Raise Forbidden when the corpus's ``settle_own_annotation`` setting does not let
+    ``user`` settle this sentence; return whether ``user`` annotated it."""
+    if own_submitted_annotation(db, sentence_id, user) is None:
+        return False
+    policy = corpus.options.settle_own_annotation
+    if policy == SettleOwnPolicy.ALWAYS:
+        return True
+    if policy == SettleOwnPolicy.NEVER:
+        raise Forbidden("you annotated this sentence, and this corpus lets nobody settle a "
+                        "sentence they annotated: another adjudicator settles it",
+                        kind="own_annotation")
+    others = other_adjudicators(db, user)
+    if others:
+        raise Forbidden(f"you annotated this sentence; {others} other "
+                        f"{'person' if others == 1 else 'people'} can adjudicate, so one of "
+                        "them settles it (an admin can change this in the corpus settings)",
+                        kind="own_annotation")
+    return True
 
 
 def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
@@ -337,6 +385,7 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     if sentence.state != SENT_IN_REVIEW:
         raise Conflict(f"sentence {sentence_id} is {sentence.state}, not in review; "
                        "reopen it first", state=sentence.state)
+    own = check_own_settle(db, corpus, sentence.id, adjudicator)
     if source_annotation_id is not None and source_gold_id is not None:
         raise BadInput("give the annotation or the earlier gold the tree started from, "
                        "not both", kind="source")
@@ -366,12 +415,13 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     db.refresh(sentence)
     gold = make_gold(db, sentence, text, provenance="adjudication",
                      adjudicator_id=adjudicator.id, source_annotation_id=source_annotation_id,
-                     note=note)
+                     note=note, own_annotation=own)
     edited = None if source_text is None else write_tree(read_tree(source_text)) != text
     db.add(Event(user_id=adjudicator.id, kind="gold.settled", corpus_id=corpus.id,
                  sentence_id=sentence.id,
                  detail={"gold_id": gold.id, "from_annotation": source_annotation_id,
-                         "from_gold": source_gold_id, "edited": edited}))
+                         "from_gold": source_gold_id, "edited": edited,
+                         "own_annotation": own}))
     gold_added(db, corpus)
     db.commit()
     return gold

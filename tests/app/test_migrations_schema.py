@@ -30,12 +30,12 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0001")
+    command.downgrade(cfg, "0002")
     engine = create_engine(settings.resolved_database_url)
     try:
-        cols = {c["name"] for c in inspect(engine).get_columns("suggestions")}
+        cols = {c["name"] for c in inspect(engine).get_columns("gold")}
     finally:
         engine.dispose()
-    assert "consensus" not in cols and "posteriors" in cols
+    assert "annotator_notes" not in cols and "own_annotation" not in cols and "note" in cols
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []
