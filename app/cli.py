@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Any, TypeVar
 import click
 
 from app.settings import Settings
+from app.wording import plural
 
 if TYPE_CHECKING:  # the database layer and the parser load only in the commands that use them
     from sqlalchemy.orm import Session
@@ -301,7 +302,7 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
             for dup in result.duplicates[:20]:
                 click.echo(f"  duplicate: {dup.describe()}")
             if len(result.duplicates) > 20:
-                click.echo(f"  ... and {len(result.duplicates) - 20} more duplicate(s)")
+                click.echo(f"  ... and {plural(len(result.duplicates) - 20, 'more duplicate')}")
         if do_assign:
             with friendly_errors():
                 corpus = corpus_named(db, corpus_name)

@@ -14,7 +14,7 @@ from pydantic import BaseModel, Field
 
 from app.deps import ApiAdjudicator, SessionDep
 from app.schemas.common import RequestModel
-from app.services import gold
+from app.services import gold, held
 from app.services import review as svc
 from app.services.corpora import get_corpus
 from app.services.training import get_runner
@@ -85,6 +85,19 @@ class ReopenCreate(RequestModel):
     note: str | None = Field(default=None, max_length=4_000)
 
 
+class HeldActionCreate(RequestModel):
+    note: str | None = Field(default=None, max_length=4_000)
+
+
+class SentenceStatePublic(BaseModel):
+    sentence_id: int
+    state: str
+
+
+class HeldListPublic(BaseModel):
+    held: list[held.HeldRow]
+
+
 def detail_public(detail: svc.ReviewDetail) -> ReviewPublic:
     s = detail.sentence
     return ReviewPublic(
@@ -143,3 +156,39 @@ def reopen(sentence_id: int, body: ReopenCreate, login: ApiAdjudicator,
     """Retire the current gold (it stays in the history) and put the sentence back in review."""
     gold.reopen(db, sentence_id, login.user, note=body.note)
     return detail_public(svc.review_detail(db, sentence_id))
+
+
+@router.get("/api/held", response_model=HeldListPublic)
+def list_held(login: ApiAdjudicator, db: SessionDep,
+              corpus_id: int | None = None) -> HeldListPublic:
+    """Held-back sentences (longest held first) with each hold's reason, note and annotator."""
+    if corpus_id is not None:
+        get_corpus(db, corpus_id)
+    return HeldListPublic(held=held.held_back_list(db, corpus_id))
+
+
+@router.post("/api/review/{sentence_id}/release", response_model=SentenceStatePublic,
+             responses=ERRORS)
+def release(sentence_id: int, body: HeldActionCreate, login: ApiAdjudicator,
+            db: SessionDep) -> SentenceStatePublic:
+    """Lift every hold on a held-back sentence: back to annotation (409 if not held back)."""
+    s = held.release(db, sentence_id, login.user, note=body.note)
+    return SentenceStatePublic(sentence_id=s.id, state=s.state)
+
+
+@router.post("/api/review/{sentence_id}/drop", response_model=SentenceStatePublic,
+             responses=ERRORS)
+def drop(sentence_id: int, body: HeldActionCreate, login: ApiAdjudicator,
+         db: SessionDep) -> SentenceStatePublic:
+    """Drop a held-back or open sentence from the corpus (kept, out of queue and export)."""
+    s = held.drop(db, sentence_id, login.user, note=body.note)
+    return SentenceStatePublic(sentence_id=s.id, state=s.state)
+
+
+@router.post("/api/review/{sentence_id}/restore", response_model=SentenceStatePublic,
+             responses=ERRORS)
+def restore(sentence_id: int, body: HeldActionCreate, login: ApiAdjudicator,
+            db: SessionDep) -> SentenceStatePublic:
+    """Bring a dropped sentence back (held back again if a hold is still on it)."""
+    s = held.restore(db, sentence_id, login.user, note=body.note)
+    return SentenceStatePublic(sentence_id=s.id, state=s.state)

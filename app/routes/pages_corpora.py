@@ -19,6 +19,7 @@ from app.services import corpora as svc
 from app.services.assignment import assign_sentences, assigned_to
 from app.services.errors import ServiceError
 from app.web import render
+from app.wording import plural
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
 
@@ -80,7 +81,7 @@ def corpus_view(request: Request, corpus_id: int, login: PageUser, db: SessionDe
     corpus = svc.get_corpus(db, corpus_id)
     notice = DONE_MESSAGES.get(done or "")
     if done == "assigned" and assigned is not None:
-        notice = f"{assigned} assignment(s) made."
+        notice = f"{plural(assigned, 'assignment')} made."
     return _corpus_page(request, login, db, corpus, page=page, state=state or None,
                         document=document, notice=notice)
 
@@ -155,4 +156,6 @@ def sentence_link(sentence: Sentence, mine: set[int], login: Login) -> str | Non
         return f"/bench/{sentence.id}"
     if login.user.can_adjudicate and sentence.state in ("in_review", "gold"):
         return f"/review/{sentence.id}"
+    if login.user.can_adjudicate and sentence.state in ("held_back", "dropped"):
+        return f"/review?corpus={sentence.corpus_id}#held"
     return None

@@ -3,17 +3,20 @@
 The sentence page is complete as HTML (trees as indented bracketed text, the combined view as
 server-drawn SVG); static/js/review.js draws the trees, runs the result panel (take a tree,
 edit, validate, settle, reopen) through the JSON API in api_review.py, and the shortcuts.
+The list also holds the held-back sentences with their ways out (release, drop, bring back;
+app.services.held), as plain form posts that redirect back to the list.
 """
 
 from __future__ import annotations
 
 import json
 
-from fastapi import APIRouter, Request
-from fastapi.responses import HTMLResponse
+from fastapi import APIRouter, Form, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
 
 from app.deps import PageAdjudicator, SessionDep
-from app.models import SENT_IN_REVIEW
+from app.models import SENT_IN_REVIEW, Sentence
+from app.services import held
 from app.services import review as svc
 from app.services.charts import span_ladder
 from app.services.corpora import get_corpus
@@ -25,12 +28,46 @@ router = APIRouter(tags=["pages"], include_in_schema=False)
 
 @router.get("/review", response_class=HTMLResponse)
 def review_index(request: Request, login: PageAdjudicator, db: SessionDep,
-                 corpus: int | None = None) -> HTMLResponse:
+                 corpus: int | None = None, done: str | None = None) -> HTMLResponse:
     if corpus is not None:
         get_corpus(db, corpus)
     listing = svc.review_list(db, corpus)
     return render(request, "review_list.html", login, nav="review", listing=listing,
+                  held=held.held_back_list(db, corpus), dropped=held.dropped_list(db, corpus),
+                  token_fix_link=held.token_fix_link, done=HELD_DONE.get(done or ""),
                   corpora=svc.corpus_choices(db), corpus_id=corpus)
+
+
+HELD_DONE = {
+    "released": "The sentence is back in annotation; its annotators find it in their queues.",
+    "dropped": "The sentence was dropped from the corpus. It is kept, with its history, under "
+               "Dropped below, and can be brought back.",
+    "restored": "The sentence is back in the corpus.",
+}
+
+
+def _held_step(sentence: Sentence, done: str) -> RedirectResponse:
+    """Post/redirect/get back to the Review list's held-back section."""
+    return RedirectResponse(f"/review?corpus={sentence.corpus_id}&done={done}#held",
+                            status_code=303)
+
+
+@router.post("/review/held/{sentence_id}/release", response_class=HTMLResponse)
+def held_release(sentence_id: int, login: PageAdjudicator, db: SessionDep,
+                 note: str = Form("")) -> Response:
+    return _held_step(held.release(db, sentence_id, login.user, note=note), "released")
+
+
+@router.post("/review/held/{sentence_id}/drop", response_class=HTMLResponse)
+def held_drop(sentence_id: int, login: PageAdjudicator, db: SessionDep,
+              note: str = Form("")) -> Response:
+    return _held_step(held.drop(db, sentence_id, login.user, note=note), "dropped")
+
+
+@router.post("/review/held/{sentence_id}/restore", response_class=HTMLResponse)
+def held_restore(sentence_id: int, login: PageAdjudicator, db: SessionDep,
+                 note: str = Form("")) -> Response:
+    return _held_step(held.restore(db, sentence_id, login.user, note=note), "restored")
 
 
 def _indented(text: str) -> str:

@@ -45,6 +45,7 @@ from sqlalchemy.orm import Session
 
 from app.models import (
     ANN_SUBMITTED,
+    SENT_DROPPED,
     SENT_GOLD,
     SENT_IN_REVIEW,
     AgreementRecord,
@@ -255,7 +256,11 @@ def timeline(days: dict[datetime, list[Counts]]) -> tuple[str, list[PeriodFigure
 
 def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
     """Sum every agreement record of the corpus into the Agreement page's figures."""
-    records = db.scalars(select(AgreementRecord).where(AgreementRecord.corpus_id == corpus_id)
+    # a dropped sentence is out of the figures (its records stay in the log)
+    records = db.scalars(select(AgreementRecord)
+                         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+                         .where(AgreementRecord.corpus_id == corpus_id,
+                                Sentence.state != SENT_DROPPED)
                          .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
     names = _user_names(db, {r.user_a_id for r in records} | {r.user_b_id for r in records})
     total = unl = Counts()
@@ -325,7 +330,7 @@ def agreement_csv(db: Session, corpus_id: int) -> str:
         select(AgreementRecord, Sentence.position, Document.name)
         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
         .join(Document, Document.id == Sentence.document_id)
-        .where(AgreementRecord.corpus_id == corpus_id)
+        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
         .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
     names = _user_names(db, {r.user_a_id for r, _, _ in rows} | {r.user_b_id for r, _, _ in rows})
     out = io.StringIO()

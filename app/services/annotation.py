@@ -35,7 +35,9 @@ from app.models import (
     ANN_FLAGGED,
     ANN_SUBMITTED,
     REV_SOURCES,
+    SENT_DROPPED,
     SENT_GOLD,
+    SENT_HELD_BACK,
     SENT_IN_PROGRESS,
     SENT_IN_REVIEW,
     SENT_QUEUED,
@@ -111,8 +113,9 @@ def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict
 
 
 def _check_open(db: Session, user: User, sentence: Sentence) -> None:
-    """A sentence in review or gold takes no more annotation (the Bench shows it read only)."""
-    if sentence.state in (SENT_IN_REVIEW, SENT_GOLD):
+    """A sentence in review, gold or dropped takes no more annotation (the Bench shows it read
+    only)."""
+    if sentence.state in (SENT_IN_REVIEW, SENT_GOLD, SENT_DROPPED):
         raise _conflict(db, user, sentence, f"this sentence is {sentence.state.replace('_', ' ')}"
                         "; annotations of it take no more changes")
 
@@ -217,8 +220,12 @@ def _agreement_hook(db: Session, sentence: Sentence) -> None:
 def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None,
              flag: str | None, clear_flag: bool = False) -> Annotation:
     """Store the annotator's comment and/or flag reason. A flag sets the state ``flagged``
-    (the annotator holds the sentence back instead of submitting); ``clear_flag`` returns it to
-    ``draft``. Works before the first save too (the annotation is created without revisions)."""
+    (the annotator holds the sentence back instead of submitting) and the sentence's state
+    ``held_back`` (see app.services.held for the ways out); ``clear_flag`` returns the
+    annotation to ``draft`` and, when no other hold is on it, the sentence to annotation.
+    Works before the first save too (the annotation is created without revisions)."""
+    from app.services.held import open_state, still_held
+
     if comment is not None and len(comment) > MAX_COMMENT_CHARS:
         raise BadInput(f"comment is {len(comment)} characters; the limit is "
                        f"{MAX_COMMENT_CHARS}", kind="shape")
@@ -231,16 +238,23 @@ def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None
     if annotation.state == ANN_SUBMITTED and (flag is not None or clear_flag):
         raise _conflict(db, user, sentence, "this annotation is submitted; it can no longer "
                         "be flagged")
+    if flag is not None and sentence.state == SENT_DROPPED:
+        raise _conflict(db, user, sentence, "this sentence was dropped from the corpus")
     if comment is not None:
         annotation.comment = comment
     if flag is not None:
         annotation.flag = flag
         annotation.state = ANN_FLAGGED
+        if sentence.state in (SENT_QUEUED, SENT_IN_PROGRESS):
+            sentence.state = SENT_HELD_BACK
         db.add(Event(user_id=user.id, kind="annotation.flagged", corpus_id=sentence.corpus_id,
                      sentence_id=sentence.id, detail={"flag": flag}))
     elif clear_flag and annotation.state == ANN_FLAGGED:
         annotation.flag = None
         annotation.state = ANN_DRAFT
+        db.flush()
+        if sentence.state == SENT_HELD_BACK and not still_held(db, sentence.id):
+            sentence.state = open_state(db, sentence.id)
     annotation.updated_at = utcnow()
     db.commit()
     db.refresh(annotation)
@@ -308,7 +322,8 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
         .join(Document, Document.id == Sentence.document_id)
         .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
                    & (Annotation.user_id == user.id))
-        .where(Assignment.user_id == user.id)
+        .where(Assignment.user_id == user.id,
+               (Sentence.state != SENT_DROPPED) | (Sentence.id == sentence_id))
         .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)).all()
     ids = [r[0] for r in rows]
     i = ids.index(sentence_id)
@@ -324,7 +339,8 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
 
 
 def queue_for(db: Session, user: User, corpus_id: int | None = None) -> Queue:
-    """The user's assigned sentences in reading order (corpus, document, position)."""
+    """The user's assigned sentences in reading order (corpus, document, position); dropped
+    sentences are left out."""
     stmt = (
         select(Sentence.id, Sentence.corpus_id, Corpus.name, Document.name, Sentence.position,
                Sentence.text, Sentence.state, Annotation.state, Annotation.head,
@@ -334,7 +350,7 @@ def queue_for(db: Session, user: User, corpus_id: int | None = None) -> Queue:
         .join(Corpus, Corpus.id == Sentence.corpus_id)
         .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
                    & (Annotation.user_id == user.id))
-        .where(Assignment.user_id == user.id)
+        .where(Assignment.user_id == user.id, Sentence.state != SENT_DROPPED)
         .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)
     )
     if corpus_id is not None:

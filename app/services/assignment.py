@@ -33,6 +33,7 @@ from app.models import (
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
 from app.services.transactions import unit_of_work
+from app.wording import plural
 
 OPEN_STATES = (SENT_QUEUED, SENT_IN_PROGRESS)
 
@@ -47,10 +48,11 @@ class AssignResult:
     needed: int = 0
 
     def summary(self) -> str:
-        text = (f"{self.created} assignment(s) made over {self.sentences} sentence(s); "
-                f"{self.already_complete} already had {self.needed}")
+        text = (f"{plural(self.created, 'assignment')} made over "
+                f"{plural(self.sentences, 'sentence')}; {self.already_complete} already had "
+                f"{self.needed}")
         if self.short:
-            text += (f"; {len(self.short)} sentence(s) could not reach {self.needed} "
+            text += (f"; {plural(len(self.short), 'sentence')} could not reach {self.needed} "
                      f"annotators (the team is too small)")
         return text
 

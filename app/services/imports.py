@@ -65,6 +65,7 @@ from app.services.corpora import (
 )
 from app.services.errors import BadInput, NotFound
 from app.services.gold import gold_added
+from app.wording import plural
 from parser.errors import BracketSyntaxError
 from parser.trees import (
     TreeError,
@@ -137,16 +138,16 @@ class ImportResult:
     document_created: bool = False
 
     def summary(self) -> str:
-        parts = [f"{self.imported} sentence(s) imported into {self.corpus_name!r} / "
+        parts = [f"{plural(self.imported, 'sentence')} imported into {self.corpus_name!r} / "
                  f"{self.document_name!r} as {self.kind}"]
         if self.attached:
             parts.append(f"{self.attached} attached to existing sentences")
         if self.duplicates:
-            parts.append(f"{len(self.duplicates)} duplicate(s)"
+            parts.append(plural(len(self.duplicates), "duplicate")
                          + (f", {self.skipped_duplicates} skipped" if self.skipped_duplicates
                             else ""))
         if self.empty_elements_dropped:
-            parts.append(f"{self.empty_elements_dropped} empty element(s) removed")
+            parts.append(f"{plural(self.empty_elements_dropped, 'empty element')} removed")
         return "; ".join(parts)
 
 

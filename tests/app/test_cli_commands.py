@@ -50,7 +50,7 @@ def test_cli_import_text_and_gold_then_export(cli, db, tmp_path) -> None:
     gold = tmp_path / "seed.ptb"
     gold.write_text(TREES)
     out = cli("import", str(text), "--corpus", "Quay").output
-    assert "2 sentence(s) imported into 'Quay' / 'notes' as text" in out
+    assert "2 sentences imported into 'Quay' / 'notes' as text" in out
     cli("import", str(gold), "--corpus", "Quay", "--as", "gold")
     exported = cli("export", "--corpus", "Quay", "--strip-function-tags").output
     assert exported.splitlines()[0] == "(ROOT (S (NP (NNP Boat0)) (VP (VBD sank)) (. .)))"
@@ -82,7 +82,7 @@ def test_cli_import_shows_progress_for_large_files(cli, tmp_path) -> None:
     big.write_text("".join(f"Sentence {i} of many ." + "\n" for i in range(700)))
     result = CliRunner().invoke(main, ["import", str(big), "--corpus", "Big"])
     assert result.exit_code == 0, result.output
-    assert "700 sentence(s) imported" in result.stdout
+    assert "700 sentences imported" in result.stdout
     assert "700/700" in result.stderr  # tqdm's bar went to standard error
     small = tmp_path / "small.txt"
     small.write_text("Only one .\n")
@@ -141,7 +141,7 @@ def test_cli_assign_and_corpus_remove(cli, db, people, tmp_path) -> None:
     cli("import", str(text), "--corpus", "Quay", "--assign")
     assert db.scalar(select(func.count()).select_from(Assignment)) == 12
     out = cli("assign", "--corpus", "Quay").output
-    assert out.startswith("0 assignment(s) made")
+    assert out.startswith("0 assignments made")
     listing = cli("corpus", "list").output
     assert "Quay" in listing and "queued 6" in listing
     wrong = cli("corpus", "remove", "Quay", "--confirm", "quay", ok=False)

@@ -23,7 +23,7 @@ def test_pages_transfer_import_and_export(login, db) -> None:
     admin = login("admin")
     resp = _upload(admin.client, admin.csrf, TREES.encode())
     assert resp.status_code == 200
-    assert "20 sentence(s) imported into &#39;Harbour&#39;" in resp.text
+    assert "20 sentences imported into &#39;Harbour&#39;" in resp.text
     cid = db.scalar(select(Corpus.id))
     plain = admin.client.get(f"/transfer/export?corpus={cid}&strip=true")
     assert plain.status_code == 200

@@ -74,7 +74,7 @@ def test_pages_corpora_assign_from_page(login, db, people) -> None:
     admin = login("admin")
     resp = admin.client.post(f"/corpora/{cid}/assign", data={"csrf_token": admin.csrf},
                              follow_redirects=True)
-    assert resp.status_code == 200 and "8 assignment(s) made." in resp.text
+    assert resp.status_code == 200 and "8 assignments made." in resp.text
     assert db.scalar(select(func.count()).select_from(Assignment)) == 8
     mine = login("ann1").client.get(f"/corpora/{cid}").text
     assert "/bench/" in mine  # an assigned annotator gets links to the Bench
