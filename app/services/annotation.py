@@ -54,6 +54,7 @@ from app.models import (
 from app.services import agreement
 from app.services.errors import BadInput, Conflict, NotFound
 from app.services.gold import current_revision
+from app.services.held import open_state, still_held
 from app.services.validation import (
     MAX_TREE_CHARS,
     stored_words,
@@ -224,7 +225,6 @@ def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None
     ``held_back`` (see app.services.held for the ways out); ``clear_flag`` returns the
     annotation to ``draft`` and, when no other hold is on it, the sentence to annotation.
     Works before the first save too (the annotation is created without revisions)."""
-    from app.services.held import open_state, still_held
 
     if comment is not None and len(comment) > MAX_COMMENT_CHARS:
         raise BadInput(f"comment is {len(comment)} characters; the limit is "

@@ -22,7 +22,8 @@ What it computes
       ``settle_own_annotation`` allows (``if_alone`` by default: only when no other active
       adjudicator or admin exists); when allowed, the gold row records it.
     * Every gold row keeps the annotators' notes for the adjudicator as they were when it was
-      made (:func:`app.services.gold.annotator_notes`); the Review page shows each note beside its tree.
+      made (:func:`app.services.gold.annotator_notes`); the Review page shows each note beside
+      its tree.
     * Making, retiring and reopening gold rows is :mod:`app.services.gold`'s.
 
 Nothing is ever deleted: every gold tree stays as a row, the newest unretired one is current.
