@@ -5,7 +5,8 @@ What it computes (model: :mod:`parser.grammar`; compiled loops: :mod:`parser.ker
     * the Viterbi best derivation by CKY in log space (exact: the only rules skipped are those
       a bound proves cannot win);
     * the k best derivations by lazy k-best extraction (Huang and Chiang 2005, algorithm 3) on
-      the Viterbi chart, un-binarized, keeping the first (best) derivation of each distinct tree;
+      the Viterbi chart (:mod:`parser.kbest`), un-binarized, keeping the first (best)
+      derivation of each distinct tree;
     * the sentence's inside log-probability and, by inside-outside (Lari and Young 1990), the
       posterior probability of every labelled span (labels of the user's label set, i.e. with
       annotations removed), each conditioned on the constraints;
@@ -26,7 +27,6 @@ Limits: one sentence per call (see :mod:`parser.batch` for many).
 
 from __future__ import annotations
 
-import heapq
 import math
 import time
 from collections.abc import Sequence
@@ -40,11 +40,14 @@ from parser.binarize import base_label, unbinarize
 from parser.consensus import DEFAULT_COST, consensus_tree
 from parser.errors import ConstraintError, ParserError
 from parser.grammar import Grammar
+from parser.kbest import TOP, LazyKBest, open_chain, tree_key
 from parser.trees import tree_from_spans
 
 POSTERIOR_THRESHOLD = 1e-3
-_TOP = 0
-_BOT = 1
+#: The longest sentence the library is tested at (the Viterbi tree, k-best, posteriors and the
+#: consensus tree; none of them recurses, so nothing here depends on Python's recursion limit).
+#: Imports refuse longer sentences. Time grows as n^3: see DEVELOPERS.md, "Sentence length".
+MAX_WORDS = 250
 
 
 @dataclass(frozen=True)
@@ -330,24 +333,27 @@ class _Chart:
 
     # ------------------------------------------------------------- Viterbi tree
     def viterbi_tree(self, words: Sequence[str]) -> Tree:
-        return unbinarize(self._vit_top(0, self.p.n, self.g.start, words))
-
-    def _vit_top(self, i: int, k: int, a: int, words: Sequence[str]) -> Tree:
-        s = self.p.sid[i, k]
-        e = int(self.bp_edge[s, a])
-        chain = self.g.chains[self.tab.uchain[e]]
-        return _wrap_chain(chain, self._vit_bot(i, k, int(self.tab.uc[e]), words))
-
-    def _vit_bot(self, i: int, k: int, b: int, words: Sequence[str]) -> list[Tree | str]:
-        if k - i == 1:
-            return [words[i]]
-        s = self.p.sid[i, k]
-        r = int(self.bp_rule[s, b])
-        left = int(self.tab.lo_left[r])
-        right = int(self.tab.lo_right[r])
-        # The split point is the first one reaching the rule's best score (as in the kernel).
-        j = i + 1 + int(np.argmax(self.VL[i, left, i + 1:k] + self.VR[k, right, i + 1:k]))
-        return [self._vit_top(i, j, left, words), self._vit_top(j, k, right, words)]
+        """The best derivation's tree, built without recursion (any sentence length)."""
+        holder: list[Tree] = []
+        todo: list[tuple[int, int, int, list]] = [(0, self.p.n, self.g.start, holder)]
+        while todo:
+            i, k, a, out = todo.pop()
+            s = self.p.sid[i, k]
+            e = int(self.bp_edge[s, a])
+            top_node, low = open_chain(self.g.chains[self.tab.uchain[e]], [])
+            out.append(top_node)
+            if k - i == 1:
+                low.append(words[i])
+                continue
+            b = int(self.tab.uc[e])
+            r = int(self.bp_rule[s, b])
+            left = int(self.tab.lo_left[r])
+            right = int(self.tab.lo_right[r])
+            # The split point is the first one reaching the rule's best score (as in the kernel).
+            j = i + 1 + int(np.argmax(self.VL[i, left, i + 1:k] + self.VR[k, right, i + 1:k]))
+            todo.append((j, k, right, low))  # the stack takes the left child up first
+            todo.append((i, j, left, low))
+        return unbinarize(holder[0])
 
     # ------------------------------------------------------------- inside / outside
     def _inside_chart(self) -> tuple[np.ndarray, ...]:
@@ -387,8 +393,8 @@ class _Chart:
     # ------------------------------------------------------------- k-best
     def kbest(self, words: Sequence[str], k: int) -> tuple[list[Tree], list[float]]:
         cap = 3 * k + 20
-        kb = _LazyKBest(self, cap)
-        root = (_TOP, self.full, self.g.start)
+        kb = LazyKBest(self, cap)
+        root = (TOP, self.full, self.g.start)
         trees: list[Tree] = []
         scores: list[float] = []
         seen: set[str] = set()
@@ -397,7 +403,7 @@ class _Chart:
             if d is None:
                 break
             tree = unbinarize(kb.build(root, rank, words))
-            key = _tree_key(tree)
+            key = tree_key(tree)
             if key in seen:
                 continue
             seen.add(key)
@@ -406,167 +412,6 @@ class _Chart:
             if len(trees) == k:
                 break
         return trees, scores
-
-
-# A derivation: (score, edge, tails, ranks); edge is ("u", e), ("b", r) or ("l",).
-_Deriv = tuple[float, tuple, tuple, tuple]
-
-
-class _LazyKBest:
-    """Huang and Chiang 2005, algorithm 3, on the hypergraph the Viterbi chart describes.
-
-    Nodes are (TOP, span, symbol) and (BOT, span, symbol). A node's candidate set starts with
-    the best derivation along each incoming hyperedge, limited to the ``cap`` best of them:
-    a node never yields more than ``cap`` derivations, and a hyperedge whose best derivation
-    ranks below ``cap`` cannot hold one of the first ``cap``.
-    """
-
-    def __init__(self, chart: _Chart, cap: int) -> None:
-        self.c = chart
-        self.cap = cap
-        self.derivs: dict[tuple, list[_Deriv]] = {}
-        self.cand: dict[tuple, list] = {}
-        self.seen: dict[tuple, set] = {}
-        self.tick = 0
-        p = chart.p
-        self.start_of = np.empty(p.n * (p.n + 1) // 2, dtype=np.int64)
-        self.end_of = np.empty_like(self.start_of)
-        ii, kk = np.nonzero(p.sid >= 0)
-        self.start_of[p.sid[ii, kk]] = ii
-        self.end_of[p.sid[ii, kk]] = kk
-
-    def _init(self, node: tuple) -> None:
-        kind, s, a = node
-        c, tab = self.c, self.c.tab
-        i, k = int(self.start_of[s]), int(self.end_of[s])
-        heap: list = []
-        seen: set = set()
-        if kind == _TOP:
-            lo, hi = int(tab.u_off[a]), int(tab.u_off[a + 1])
-            es = np.arange(lo, hi)
-            scores = tab.ulogp[es] + c.vb[s, tab.uc[es]]
-            kind_id = 0 if k - i == 1 else 1
-            for e, sc in zip(es, scores, strict=True):
-                if sc == -np.inf or not _allowed_py(c.p, tab, int(e), kind_id, s):
-                    continue
-                heap.append((-float(sc), self._t(), ("u", int(e)),
-                             ((_BOT, s, int(tab.uc[e])),), (0,)))
-        elif k - i == 1:
-            sc = float(c.p.lex[i, a])
-            if sc > -np.inf:
-                heap.append((-sc, self._t(), ("l",), (), ()))
-        else:
-            lo, hi = int(tab.po_off[a]), int(tab.po_off[a + 1])
-            if hi > lo:
-                js = np.arange(i + 1, k)
-                sl = c.p.sid[i, js]
-                sr = c.p.sid[js, k]
-                left = tab.po_left[lo:hi]
-                right = tab.po_right[lo:hi]
-                scores = (c.vt[sl][:, left] + c.vt[sr][:, right]) + tab.po_logp[lo:hi][None, :]
-                flat = scores.ravel()
-                finite = np.flatnonzero(flat > -np.inf)
-                if len(finite) > self.cap:
-                    part = np.argpartition(-flat[finite], self.cap - 1)[: self.cap]
-                    finite = finite[part]
-                n_rules = hi - lo
-                for f in finite:
-                    jx, rx = divmod(int(f), n_rules)
-                    r = lo + rx
-                    heap.append((-float(flat[f]), self._t(), ("b", r, int(js[jx])),
-                                 ((_TOP, int(sl[jx]), int(tab.po_left[r])),
-                                  (_TOP, int(sr[jx]), int(tab.po_right[r]))), (0, 0)))
-        heapq.heapify(heap)
-        for item in heap:
-            seen.add((item[2], item[4]))
-        self.cand[node] = heap
-        self.seen[node] = seen
-        self.derivs[node] = []
-
-    def _t(self) -> int:
-        self.tick += 1
-        return self.tick
-
-    def _weight(self, edge: tuple, node: tuple) -> float:
-        tab = self.c.tab
-        if edge[0] == "u":
-            return float(tab.ulogp[edge[1]])
-        if edge[0] == "b":
-            return float(tab.po_logp[edge[1]])
-        i = int(self.start_of[node[1]])
-        return float(self.c.p.lex[i, node[2]])
-
-    def get(self, node: tuple, rank: int) -> _Deriv | None:
-        """The rank-th best derivation of ``node`` (0-based), or None if it has fewer."""
-        if node not in self.derivs:
-            self._init(node)
-        found = self.derivs[node]
-        heap = self.cand[node]
-        while len(found) <= rank:
-            if found:
-                self._lazy_next(node, found[-1])
-            if not heap:
-                break
-            neg, _, edge, tails, ranks = heapq.heappop(heap)
-            found.append((-neg, edge, tails, ranks))
-        return found[rank] if rank < len(found) else None
-
-    def _lazy_next(self, node: tuple, d: _Deriv) -> None:
-        _, edge, tails, ranks = d
-        seen = self.seen[node]
-        for x in range(len(tails)):
-            new = ranks[:x] + (ranks[x] + 1,) + ranks[x + 1:]
-            if (edge, new) in seen:
-                continue
-            if self.get(tails[x], new[x]) is None:
-                continue
-            seen.add((edge, new))
-            parts = [self.get(t, r) for t, r in zip(tails, new, strict=True)]
-            score = self._weight(edge, node) + sum(d[0] for d in parts if d is not None)
-            heapq.heappush(self.cand[node], (-score, self._t(), edge, tails, new))
-
-    def build(self, node: tuple, rank: int, words: Sequence[str]) -> Tree:
-        """The binarized tree of a top node's rank-th derivation."""
-        d = self.get(node, rank)
-        if d is None:
-            raise ParserError(f"k-best: node {node} has no derivation of rank {rank}")
-        _, edge, tails, ranks = d
-        chain = self.c.g.chains[self.c.tab.uchain[edge[1]]]
-        return _wrap_chain(chain, self._build_bottom(tails[0], ranks[0], words))
-
-    def _build_bottom(self, node: tuple, rank: int, words: Sequence[str]) -> list[Tree | str]:
-        d = self.get(node, rank)
-        if d is None:
-            raise ParserError(f"k-best: node {node} has no derivation of rank {rank}")
-        _, edge, tails, ranks = d
-        if edge[0] == "l":
-            return [words[int(self.start_of[node[1]])]]
-        return [self.build(tails[0], ranks[0], words), self.build(tails[1], ranks[1], words)]
-
-
-def _allowed_py(p: _Problem, tab: _Tables, e: int, kind: int, s: int) -> bool:
-    c = p.code[s]
-    if c == -1:
-        return True
-    nonempty = tab.nonempty
-    if c == -2:
-        return not bool(nonempty[e, kind])
-    if kind == 1 and not nonempty[e, 1]:
-        return False
-    return all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]])
-
-
-def _wrap_chain(chain: Sequence[str], children: list) -> Tree:
-    node = Tree(chain[-1], children)
-    for label in reversed(chain[:-1]):
-        node = Tree(label, [node])
-    return node
-
-
-def _tree_key(tree: Tree | str) -> str:
-    if isinstance(tree, str):
-        return tree
-    return "(" + tree.label() + " " + " ".join(_tree_key(c) for c in tree) + ")"
 
 
 # ------------------------------------------------------------------------- fallback

@@ -66,6 +66,7 @@ from app.services.corpora import (
 from app.services.errors import BadInput, NotFound
 from app.services.gold import gold_added
 from app.wording import plural
+from parser.chart import MAX_WORDS
 from parser.errors import BracketSyntaxError
 from parser.trees import (
     TreeError,
@@ -80,7 +81,7 @@ KINDS = ("text", "gold", "annotation")
 TOKENIZERS = ("whitespace", "treebank")
 #: Longest sentence accepted: CKY time grows with the cube of the length, and a line this long
 #: is almost always a paragraph that was not split into sentences.
-MAX_TOKENS = 250
+MAX_TOKENS = MAX_WORDS  # the longest sentence the parser is tested at
 MAX_DOCUMENT_NAME = 255
 BATCH = 500
 
