@@ -1,23 +1,28 @@
 """The Transfer page: import a file (admins) and download gold (adjudicators and admins).
 
 An import is read whole, checked, and stored in one transaction; a refused file shows the
-reason with its line and column and nothing of it is stored. An export is a download: one
-``.ptb`` file, or with a split a ``.zip`` holding the train, dev and test files.
+reason with its line and column and nothing of it is stored; a stored one redirects to the
+page with its report (read back from the import's event, so a reload imports nothing). An
+export is a download: one ``.ptb`` file, or with a split a ``.zip`` holding the train, dev and
+test files. A split that would leave a part empty is not downloaded at once: the page says
+which part, how to get a split with no empty part (a link for each way), and offers the split
+as it is.
 """
 
 from __future__ import annotations
 
 from typing import Any
+from urllib.parse import urlencode
 
 from fastapi import APIRouter, File, Form, Request, UploadFile
-from fastapi.responses import HTMLResponse, Response
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from starlette.concurrency import run_in_threadpool
 
 from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.services.corpora import corpus_list, document_choices, find_corpus
 from app.services.errors import BadInput, ServiceError
 from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
-from app.services.imports import KINDS, TOKENIZERS, ImportResult, import_bytes
+from app.services.imports import KINDS, TOKENIZERS, ImportReport, import_bytes, import_report
 from app.services.users import active_users
 from app.web import render
 
@@ -25,22 +30,26 @@ router = APIRouter(tags=["pages"], include_in_schema=False)
 
 
 def _page(request: Request, login: Login, db: SessionDep, *, status_code: int = 200,
-          result: ImportResult | None = None, error: str | None = None,
+          result: ImportReport | None = None, error: str | None = None,
           export_error: str | None = None, form: dict[str, Any] | None = None,
-          corpus_id: int | None = None) -> HTMLResponse:
+          corpus_id: int | None = None,
+          split_warning: dict[str, Any] | None = None) -> HTMLResponse:
     corpora = corpus_list(db)
     documents = document_choices(db)
     people = active_users(db) if login.user.is_admin else []
     return render(request, "transfer.html", login, status_code=status_code, nav="transfer",
                   corpora=corpora, documents=documents, people=people, kinds=KINDS,
                   tokenizers=TOKENIZERS, result=result, error=error,
-                  export_error=export_error, form=form or {}, corpus_id=corpus_id)
+                  export_error=export_error, form=form or {}, corpus_id=corpus_id,
+                  split_warning=split_warning)
 
 
 @router.get("/transfer", response_class=HTMLResponse)
 def transfer(request: Request, login: PageUser, db: SessionDep,
-             corpus: int | None = None) -> HTMLResponse:
-    return _page(request, login, db, corpus_id=corpus)
+             corpus: int | None = None, imported: int | None = None) -> HTMLResponse:
+    report = import_report(db, imported) if imported is not None and login.user.is_admin \
+        else None
+    return _page(request, login, db, corpus_id=corpus, result=report)
 
 
 @router.post("/transfer/import", response_class=HTMLResponse)
@@ -49,7 +58,7 @@ async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
                           new_corpus: str = Form(""), document_name: str = Form(""),
                           kind: str = Form("text"), annotator: str = Form(""),
                           tokenizer: str = Form("whitespace"),
-                          skip_duplicates: bool = Form(False)) -> HTMLResponse:
+                          skip_duplicates: bool = Form(False)) -> Response:
     form = {"corpus_name": corpus_name, "new_corpus": new_corpus,
             "document_name": document_name, "kind": kind, "annotator": annotator,
             "tokenizer": tokenizer, "skip_duplicates": skip_duplicates}
@@ -67,14 +76,16 @@ async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
     except ServiceError as err:
         return _page(request, login, db, status_code=err.status_code, error=str(err.detail),
                      form=form)
-    return _page(request, login, db, result=result, corpus_id=result.corpus_id)
+    # post/redirect/get: a reload of the result page shows the report, it does not re-import
+    return RedirectResponse(f"/transfer?corpus={result.corpus_id}&imported={result.event_id}"
+                            "#import", status_code=303)
 
 
 @router.get("/transfer/export", response_model=None)
 def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
                     corpus: int | None = None, document: str = "", strip: bool = False,
                     split: str = "", seed: int = 0, by: str = "document",
-                    zip: bool = False) -> Response:
+                    zip: bool = False, anyway: bool = False) -> Response:
     try:
         if corpus is None:
             raise BadInput("choose a corpus to export")
@@ -82,6 +93,14 @@ def transfer_export(request: Request, login: PageAdjudicator, db: SessionDep,
         document_id = int(document) if document.strip() else None
         result = export_gold(db, corpus, document_id=document_id, function_tags=not strip,
                              split=spec)
+        if spec is not None and result.empty_parts and not anyway:
+            query = {"corpus": corpus, "document": document, "strip": strip,
+                     "split": split, "seed": seed, "by": by, "zip": zip}
+            return _page(request, login, db, corpus_id=corpus, split_warning={
+                "message": result.empty_message, "counts": result.counts,
+                "advice": [(a.describe(cli=False), "/transfer/export?" + urlencode(
+                    {**query, "seed": a.spec.seed, "by": a.spec.by})) for a in result.advice],
+                "anyway": "/transfer/export?" + urlencode({**query, "anyway": True})})
         record_export(db, corpus, result, user=login.user, document_id=document_id,
                       split=spec, function_tags=not strip)
     except ValueError:

@@ -18,6 +18,13 @@ Splits are deterministic: the same gold, ratios and seed give the same files byt
 
 Inside each part the trees keep corpus order. A part whose ratio is 0 gets no file.
 
+A split that leaves a part empty (a part with a ratio above 0 but no tree: too few documents
+kept whole, or too few sentences) is reported in ``ExportResult.empty_parts`` with a warning,
+and :func:`split_advice` says how to get a non-empty split from the same gold: the same ratios
+without keeping documents whole, or the nearest seed that works with documents kept whole.
+The CLI prints the warning and the advice; the Transfer page shows them instead of
+downloading, with a link for each way out and one to download the split as it is.
+
 Cost: O(gold trees) rows loaded and written once; stripping function tags copies each tree.
 """
 
@@ -36,6 +43,7 @@ from app.models import SENT_GOLD, Corpus, Document, Event, Gold, Sentence, User
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
 from app.services.transactions import unit_of_work
+from app.wording import plural
 from parser.trees import read_tree, strip_function_tags, write_tree
 
 PART_NAMES = ("train", "dev", "test")
@@ -85,6 +93,24 @@ class GoldItem:
     tree: str
 
 
+@dataclass(frozen=True)
+class SplitAdvice:
+    """Another split of the same gold with no empty part, and its part sizes."""
+
+    spec: SplitSpec
+    sizes: tuple[int, int, int]
+
+    def describe(self, cli: bool = True) -> str:
+        """The way out in words; ``cli`` names the command line's options, else the page's."""
+        if self.spec.by == "sentence":
+            what = "keep nothing together" + (" (--by sentence)" if cli else
+                                              " (shuffle sentences)")
+        else:
+            what = (f"seed {self.spec.seed}" + (f" (--seed {self.spec.seed})" if cli else "")
+                    + ", documents kept whole")
+        return f"{what}: train {self.sizes[0]}, dev {self.sizes[1]}, test {self.sizes[2]}"
+
+
 @dataclass
 class ExportResult:
     """File name -> text, plus how many trees went into each file."""
@@ -92,6 +118,12 @@ class ExportResult:
     files: dict[str, str] = field(default_factory=dict)
     counts: dict[str, int] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    #: Parts (train, dev, test) with a ratio above 0 that came out empty.
+    empty_parts: list[str] = field(default_factory=list)
+    #: With empty parts: which, and why, in words.
+    empty_message: str = ""
+    #: With empty parts: other splits of the same gold that leave no part empty.
+    advice: list[SplitAdvice] = field(default_factory=list)
 
     def zip_bytes(self) -> bytes:
         """The files as one zip archive (fixed timestamps, so equal exports give equal bytes)."""
@@ -175,6 +207,41 @@ def split_items(items: list[GoldItem], spec: SplitSpec) -> list[list[GoldItem]]:
     return [sorted(p, key=lambda item: position[item.sentence_id]) for p in parts]
 
 
+def _sizes(items: list[GoldItem], spec: SplitSpec) -> tuple[int, int, int]:
+    a, b, c = (len(p) for p in split_items(items, spec))
+    return a, b, c
+
+
+def _none_empty(sizes: tuple[int, int, int], spec: SplitSpec) -> bool:
+    return all(n > 0 for n, share in zip(sizes, spec.shares, strict=True) if share > 0)
+
+
+#: How many seeds after the chosen one :func:`split_advice` tries with documents kept whole.
+ADVICE_SEEDS = 200
+
+
+def split_advice(items: list[GoldItem], spec: SplitSpec) -> list[SplitAdvice]:
+    """Splits of ``items`` that leave no part empty, nearest to ``spec`` first: the same
+    ratios and seed by sentence, then the first of the next ADVICE_SEEDS seeds that works with
+    documents kept whole. Empty when there are fewer trees than parts."""
+    out: list[SplitAdvice] = []
+    if spec.by == "document":
+        documents = len({item.document_id for item in items})
+        needed = sum(1 for share in spec.shares if share > 0)
+        if documents >= needed:
+            for seed in range(spec.seed + 1, spec.seed + 1 + ADVICE_SEEDS):
+                other = SplitSpec(spec.ratios, seed=seed, by="document")
+                sizes = _sizes(items, other)
+                if _none_empty(sizes, other):
+                    out.append(SplitAdvice(other, sizes))
+                    break
+    by_sentence = SplitSpec(spec.ratios, seed=spec.seed, by="sentence")
+    sizes = _sizes(items, by_sentence)
+    if _none_empty(sizes, by_sentence) and by_sentence != spec:
+        out.insert(0, SplitAdvice(by_sentence, sizes))
+    return out
+
+
 def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
                 function_tags: bool = True, split: SplitSpec | None = None) -> ExportResult:
     """Gold of a corpus (or document) as bracketed text files.
@@ -205,9 +272,23 @@ def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
         result.files[file_name] = _render(part, function_tags)
         result.counts[file_name] = len(part)
         if not part and items:
-            result.warnings.append(f"the {name} part is empty (too few "
-                                   f"{'documents' if split.by == 'document' else 'sentences'} "
-                                   f"for the ratios)")
+            result.empty_parts.append(name)
+    if result.empty_parts:
+        documents = len({item.document_id for item in items})
+        kept = (f"{plural(len(items), 'gold tree')} in {plural(documents, 'document')} kept "
+                "whole" if split.by == "document" else plural(len(items), "gold tree"))
+        result.empty_message = (
+            f"the {' and '.join(result.empty_parts)} "
+            f"{'part is' if len(result.empty_parts) == 1 else 'parts are'} empty: {kept} "
+            f"cannot fill {'/'.join(f'{r:g}' for r in split.ratios)}")
+        result.warnings.append(result.empty_message)
+        result.advice = split_advice(items, split)
+        if result.advice:
+            result.warnings.append("for a split with no empty part: "
+                                   + "; or ".join(a.describe() for a in result.advice))
+        else:
+            result.warnings.append("no split of so few gold trees fills every part: settle "
+                                   "more gold, or set a ratio to 0")
     return result
 
 

@@ -137,6 +137,8 @@ class ImportResult:
     duplicates: list[Duplicate] = field(default_factory=list)
     corpus_created: bool = False
     document_created: bool = False
+    #: The ``import`` event that records this import (its report: :func:`import_report`).
+    event_id: int | None = None
 
     def summary(self) -> str:
         parts = [f"{plural(self.imported, 'sentence')} imported into {self.corpus_name!r} / "
@@ -479,12 +481,46 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
         gold_added(db, corpus)  # the gold loop counts seed gold too
     if progress:
         progress(total, total)
-    db.add(Event(user_id=user.id if user else None, kind="import", corpus_id=corpus.id,
-                 detail={"source": source, "document": doc.name, "kind": kind,
-                         "imported": result.imported, "attached": result.attached,
-                         "duplicates": len(dups), "annotator": annotator}))
+    event = Event(user_id=user.id if user else None, kind="import", corpus_id=corpus.id,
+                  detail={"source": source, "document": doc.name, "kind": kind,
+                          "imported": result.imported, "attached": result.attached,
+                          "duplicates": len(dups), "annotator": annotator,
+                          "summary": result.summary(),
+                          "skipped_duplicates": result.skipped_duplicates,
+                          "duplicate_lines": [d.describe()
+                                              for d in result.duplicates[:REPORT_DUPLICATES]]})
+    db.add(event)
     db.flush()
+    result.event_id = event.id
     return result
+
+
+#: How many duplicate lines an import's report keeps (the count is always whole).
+REPORT_DUPLICATES = 200
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    """What the Transfer page shows after an import, read back from its event (so the page
+    can be reloaded without importing the file again)."""
+
+    corpus_id: int | None
+    kind: str
+    summary: str
+    duplicates: int
+    duplicate_lines: list[str]
+    skipped_duplicates: int
+
+
+def import_report(db: Session, event_id: int) -> ImportReport:
+    """The report of the import recorded as event ``event_id``; NotFound for anything else."""
+    event = db.get(Event, event_id)
+    if event is None or event.kind != "import" or "summary" not in (event.detail or {}):
+        raise NotFound(f"no import report {event_id}")
+    d = event.detail
+    return ImportReport(event.corpus_id, str(d.get("kind", "")), str(d["summary"]),
+                        int(d.get("duplicates", 0)), list(d.get("duplicate_lines", [])),
+                        int(d.get("skipped_duplicates", 0)))
 
 
 def _attachable(db: Session, doc: Document, ann_user: User, items: list[_Item]

@@ -46,6 +46,6 @@ def test_concurrency_import_leaves_the_server_answering(settings, app, people, r
         worker.join(timeout=180)
         admin.close()
         other.close()
-    assert done.get("import_status") in (200, 201), done
+    assert done.get("import_status") in (200, 201, 303), done  # the page redirects
     assert "first_other" in done and done["first_other"] < done["import"], \
         "no other request was answered while the import was being stored"

@@ -78,3 +78,23 @@ def test_pages_transfer_oversize_upload_is_413(app, login, settings) -> None:
     big = b"word " * (settings.max_upload_bytes // 5 + 10)
     resp = _upload(admin.client, admin.csrf, big, "big.txt", kind="text")
     assert resp.status_code == 413
+
+
+def test_pages_transfer_import_redirects_so_a_reload_imports_nothing(login, db) -> None:
+    admin = login("admin")
+    form = {"csrf_token": admin.csrf, "corpus_name": "", "new_corpus": "Harbour",
+            "kind": "gold"}
+    resp = admin.client.post("/transfer/import", data=form,
+                             files={"upload": ("boats.ptb", TREES.encode())},
+                             follow_redirects=False)
+    assert resp.status_code == 303
+    target = resp.headers["location"]
+    assert target.startswith("/transfer?") and "imported=" in target
+    after = count_rows(db)
+    for _ in range(2):  # the result page, then a reload of it
+        page = admin.client.get(target)
+        assert page.status_code == 200
+        assert "20 sentences imported into &#39;Harbour&#39;" in page.text
+    assert count_rows(db) == after
+    # the report is an admin's: others get the page without it
+    assert "sentences imported" not in login("adj").client.get(target).text

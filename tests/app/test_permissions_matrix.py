@@ -101,7 +101,7 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("POST", "/corpora/{corpus_id}/remove"): Spec(ADMIN, 422,
                                                   form={"confirm_name": "not its name"}),
     ("GET", "/transfer"): Spec(USER, 200),
-    ("POST", "/transfer/import"): Spec(ADMIN, 200, upload=True,
+    ("POST", "/transfer/import"): Spec(ADMIN, 303, upload=True,
                                        form={"new_corpus": "Matrix page import"}),
     ("GET", "/transfer/export"): Spec(ADJ, 200, query="corpus=@corpus"),
     # --- grammars
