@@ -85,7 +85,8 @@ ANN_FLAGGED = AnnotationState.FLAGGED
 ANNOTATION_STATES = tuple(AnnotationState)
 
 # Where a revision's tree came from.
-REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat")
+REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat",
+               "restore")
 
 GV_QUEUED = GrammarStatus.QUEUED
 GV_TRAINING = GrammarStatus.TRAINING

@@ -187,6 +187,17 @@ def reparse(sentence_id: int, body: ReparseRequest, login: ApiUser,
                          grammar_version=out.grammar_version)
 
 
+@router.get("/api/bench/{sentence_id}/revisions", response_model=list[RevisionPublic],
+            responses=ERRORS)
+def my_revisions(sentence_id: int, login: ApiUser, db: SessionDep) -> list[RevisionPublic]:
+    """Every saved revision of your annotation of this sentence, newest first (restoring one
+    saves it again as a new revision with source ``restore``)."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    return [RevisionPublic(number=r.number, tree=r.tree, pins=Pins(**(r.pins or {})),
+                           source=r.source, created_at=r.created_at)
+            for r in svc.own_revisions(db, login.user, sentence)]
+
+
 @router.get("/api/queue", response_model=QueuePublic)
 def my_queue(login: ApiUser, db: SessionDep, corpus_id: int | None = None) -> QueuePublic:
     """Your assigned sentences in reading order, with your progress."""

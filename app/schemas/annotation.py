@@ -14,7 +14,7 @@ from app.schemas.common import RequestModel, UtcDateTime
 from app.services.annotation import QueueItem, QueuePlace
 
 RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
-                         "flat"]
+                         "flat", "restore"]
 MAX_PINS = 2_000
 
 

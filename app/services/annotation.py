@@ -86,6 +86,15 @@ def own_annotation(db: Session, user: User, sentence: Sentence) -> Annotation | 
                                               Annotation.user_id == user.id))
 
 
+def own_revisions(db: Session, user: User, sentence: Sentence) -> list[Revision]:
+    """Every saved revision of ``user``'s annotation of ``sentence``, newest first."""
+    annotation = own_annotation(db, user, sentence)
+    if annotation is None:
+        return []
+    return list(db.scalars(select(Revision).where(Revision.annotation_id == annotation.id)
+                           .order_by(Revision.number.desc())))
+
+
 
 
 # --------------------------------------------------------------------------- saving

@@ -10,9 +10,10 @@ import {api, errorText} from "./bench/api.js";
 import {cmd, fitHeight, saveNote, setZoom} from "./bench/commands.js";
 import {toggleHelp} from "./bench/dialogs.js";
 import {familiesShown, readFamiliesChoice, render, showFamilies} from "./bench/draw.js";
+import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
-import {resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
-import {renderText} from "./bench/side.js";
+import {loadUndo, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
+import {renderSide, renderText} from "./bench/side.js";
 import {$, S, root, sentenceId} from "./bench/state.js";
 import {setStatus} from "./bench/status.js";
 
@@ -26,6 +27,7 @@ function wire() {
     help: () => toggleHelp(true), handin: cmd.handIn, "apply-text": cmd.applyText,
     "reset-text": () => { S.textEditing = false; renderText(); },
     families: () => showFamilies(!familiesShown()),
+    history: openHistory,
   };
   for (const btn of root.querySelectorAll("[data-cmd]")) {
     btn.addEventListener("click", () => actions[btn.dataset.cmd]());
@@ -38,6 +40,7 @@ function wire() {
   $("hold-go").addEventListener("click", () => cmd.hold());
   $("hold-release").addEventListener("click", () => cmd.release());
   $("readings").addEventListener("keydown", onReadingsKey);
+  wireHistory();
   document.addEventListener("keydown", onKey);
   window.addEventListener("beforeunload", (ev) => {
     if (S.dirty) { storeDraft(); ev.preventDefault(); ev.returnValue = ""; }
@@ -77,6 +80,8 @@ async function start() {
   } else {
     setStatus(S.head ? "saved" : "fresh");
     restoreDraft();
+    loadUndo();
+    renderSide();
   }
   $("note-text").value = data.annotation.comment || "";
   $("tree-pane").focus({preventScroll: true});

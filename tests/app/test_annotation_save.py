@@ -131,3 +131,21 @@ def test_annotation_saved_tree_is_canonical_one_line(db, people, login) -> None:
     assert "\n" not in stored
     assert stored == ("(ROOT (SBARQ (WHNP (WP Who)) (SQ (VP (VBD signed) (PRT (RP off)) "
                       "(NP (DT the) (NN ramp) (NN inspection)))) (. ?)))")
+
+
+def test_annotation_history_lists_only_ones_own_revisions_newest_first(db, people,
+                                                                        login) -> None:
+    _, sentences = _setup(db, people)
+    s = sentences[1]
+    ann1, ann2 = login("ann1"), login("ann2")
+    flat = flat_text(s.tokens)
+    assert ann1.client.get(f"/api/bench/{s.id}/revisions").json() == []
+    assert _save(ann1, s.id, 0, flat, source="flat").status_code == 201
+    assert _save(ann2, s.id, 0, flat, source="flat").status_code == 201
+    assert _save(ann1, s.id, 1, flat, source="restore").status_code == 201
+    mine = ann1.client.get(f"/api/bench/{s.id}/revisions").json()
+    assert [(r["number"], r["source"]) for r in mine] == [(2, "restore"), (1, "flat")]
+    theirs = ann2.client.get(f"/api/bench/{s.id}/revisions").json()
+    assert [(r["number"], r["source"]) for r in theirs] == [(1, "flat")]
+    other = login("admin").client.get(f"/api/bench/{s.id}/revisions")
+    assert other.status_code == 404  # not in the admin's queue

@@ -2,6 +2,7 @@
 
 import {cmd, go, saveNote, setZoom} from "./commands.js";
 import {toggleHelp} from "./dialogs.js";
+import {openHistory} from "./history.js";
 import {familiesShown, posteriorOf, render, showFamilies} from "./draw.js";
 import {extendRange, move, select, step} from "./navigate.js";
 import {renderText} from "./side.js";
@@ -67,6 +68,7 @@ export function onKey(ev) {
   else if (k === "]") cmd.edge("end", 1);
   else if (k === "}") cmd.edge("end", -1);
   else if (k === "p") cmd.pin();
+  else if (k === "v") openHistory();
   else if (k === "f") showFamilies(!familiesShown());
   else if (k === "m" || (k === "Enter" && S.carry)) cmd.carry();
   else if (k === "g") cmd.regrow();

@@ -8,7 +8,7 @@ import {api, errorText} from "./api.js";
 import {confirmBox} from "./dialogs.js";
 import {render} from "./draw.js";
 import {renderSide} from "./side.js";
-import {$, RETRY_MS, S, SAVE_DELAY_MS, draftKey, sentenceId} from "./state.js";
+import {$, RETRY_MS, S, SAVE_DELAY_MS, draftKey, sentenceId, undoKey} from "./state.js";
 import {say, setStatus} from "./status.js";
 
 export function storeDraft() {
@@ -33,7 +33,34 @@ export function setTree(tree, pins) {
 }
 
 export function snapshot() {
-  return {tree: S.tree, pins: S.pins, sel: S.sel};
+  return {tree: S.tree, pins: S.pins, sel: S.sel, text: T.writeTree(S.tree)};
+}
+
+// The undo and redo stacks survive a reload: kept in this browser with the tree they lead
+// from, and taken back only when the page opens on that same tree.
+const UNDO_KEPT = 100;
+
+export function storeUndo() {
+  const keep = (stack) => stack.slice(-UNDO_KEPT).map((e) => ({
+    text: e.text || T.writeTree(e.tree), pins: e.pins, sel: e.sel}));
+  try {
+    localStorage.setItem(undoKey, JSON.stringify({tree: T.writeTree(S.tree), undo: keep(S.undo),
+      redo: keep(S.redo)}));
+  } catch { /* storage full or disabled: undo still works until the page closes */ }
+}
+
+export function loadUndo() {
+  let saved;
+  try { saved = JSON.parse(localStorage.getItem(undoKey) || "null"); } catch { return; }
+  if (!saved || saved.tree !== T.writeTree(S.tree)) return;
+  const back = (stack) => stack.map((e) => ({tree: T.readTree(e.text), pins: e.pins,
+    sel: e.sel, text: e.text})).filter((e) => !T.wordMismatch(e.tree, S.tokens));
+  try {
+    S.undo = back(saved.undo);
+    S.redo = back(saved.redo);
+  } catch (err) {
+    if (!(err instanceof T.BracketError)) throw err;
+  }
 }
 
 // Every edit ends here: remember the old state, take the new one, save soon.
@@ -53,6 +80,7 @@ export function markDirty(source) {
   S.dirty = true;
   S.pendingSource = source;
   storeDraft();
+  storeUndo();
   if (!S.conflict) {
     setStatus("dirty");
     scheduleSave();
@@ -175,6 +203,7 @@ export function resolveConflict(keepMine) {
     S.head = c.current.number;
     S.dirty = false;
     clearDraft();
+    storeUndo();
     setStatus(S.editable ? "saved" : "readonly");
     say("Took the other revision; undo (u) brings your change back.");
   }

@@ -8,6 +8,7 @@ export const $ = (id) => document.getElementById(id);
 export const csrf = document.querySelector('meta[name="csrf-token"]').content;
 export const sentenceId = Number(root.dataset.sentenceId);
 export const draftKey = `treewright-draft-${root.dataset.userId}-${sentenceId}`;
+export const undoKey = `treewright-undo-${root.dataset.userId}-${sentenceId}`;
 
 export const SAVE_DELAY_MS = 600;
 export const RETRY_MS = 3000;
