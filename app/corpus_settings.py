@@ -60,6 +60,9 @@ class CorpusSettings(BaseModel):
         description="An adjudicator settling a sentence they annotated: 'if_alone' only when "
                     "no other adjudicator or admin exists, 'always', or 'never'. Always "
                     "recorded in the gold history.")
+    gold_visible_to_annotators: bool = Field(
+        True, description="Annotators may search the gold trees (they always see their own "
+                          "work, never another annotator's).")
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import.")

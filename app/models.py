@@ -369,3 +369,86 @@ class Event(Base):
     sentence_id: Mapped[int | None] = mapped_column(
         ForeignKey("sentences.id", ondelete="CASCADE"), nullable=True)
     detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+
+
+class FindingRunStatus(StrEnum):
+    """A run of the inconsistency finder (app.services.findings)."""
+
+    QUEUED = "queued"
+    RUNNING = "running"
+    DONE = "done"
+    FAILED = "failed"
+
+
+class Verdict(StrEnum):
+    """What an adjudicator decided about a finding."""
+
+    FINE = "fine_as_is"  # kept as it is; not listed as open again
+    REOPENED = "reopened"  # its gold sentences were sent back to review
+
+
+RUN_QUEUED = FindingRunStatus.QUEUED
+RUN_RUNNING = FindingRunStatus.RUNNING
+RUN_DONE = FindingRunStatus.DONE
+RUN_FAILED = FindingRunStatus.FAILED
+VERDICT_FINE = Verdict.FINE
+VERDICT_REOPENED = Verdict.REOPENED
+VERDICTS = tuple(Verdict)
+
+
+class FindingRun(Base):
+    """One run of the inconsistency finder over a corpus (queued, then run in the background).
+    Its findings replace the previous run's on the findings page."""
+
+    __tablename__ = "finding_runs"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    status: Mapped[str] = mapped_column(String(16), default=RUN_QUEUED)
+    reason: Mapped[str] = mapped_column(Text, default="")
+    requested_by_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+    with_annotations: Mapped[bool] = mapped_column(Boolean, default=False)
+    trees: Mapped[int] = mapped_column(Integer, default=0)
+    seconds: Mapped[float | None] = mapped_column(Float, nullable=True)
+    message: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+
+
+class FindingRow(Base):
+    """One finding of a run: its kind, stable key (and that key's hash for verdicts), rank,
+    score and occurrences (sentence, span, analysis, who settled it)."""
+
+    __tablename__ = "findings"
+    __table_args__ = (Index("ix_findings_run_rank", "run_id", "rank"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    run_id: Mapped[int] = mapped_column(ForeignKey("finding_runs.id", ondelete="CASCADE"))
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    kind: Mapped[str] = mapped_column(String(16))
+    key: Mapped[str] = mapped_column(Text)
+    key_hash: Mapped[str] = mapped_column(String(64), index=True)
+    rank: Mapped[int] = mapped_column(Integer)
+    score: Mapped[float] = mapped_column(Float)
+    summary: Mapped[str] = mapped_column(Text)
+    occurrences: Mapped[list[Any]] = mapped_column(JSON, default=list)
+    detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+
+
+class FindingVerdict(Base):
+    """An adjudicator's decision on a finding, remembered by the finding's key across runs
+    (the newest verdict of a key counts; older ones stay as history)."""
+
+    __tablename__ = "finding_verdicts"
+    __table_args__ = (Index("ix_finding_verdicts_corpus_key", "corpus_id", "key_hash"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"))
+    kind: Mapped[str] = mapped_column(String(16))
+    key: Mapped[str] = mapped_column(Text)
+    key_hash: Mapped[str] = mapped_column(String(64))
+    verdict: Mapped[str] = mapped_column(String(16))
+    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
+                                                nullable=True)
+    note: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)

@@ -369,6 +369,7 @@ def _required(frag: Fragment, labels: list[tuple[str, ...]], words: list[str]) -
 @dataclass(frozen=True)
 class Hit:
     key: Hashable
+    entry: int  # position of the entry in the index (order of ``add``)
     spans: tuple[tuple[int, int], ...]
 
 
@@ -423,7 +424,7 @@ class SearchIndex:
             first = text.count(" ", starts[entry], m.start())
             spans.setdefault(entry, []).append((first, first + n))
         for entry in sorted(spans):
-            yield Hit(self.keys[entry], tuple(spans[entry]))
+            yield Hit(self.keys[entry], entry, tuple(spans[entry]))
 
     def candidates(self, frag: Fragment) -> list[int]:
         labels: list[tuple[str, ...]] = []
@@ -457,4 +458,4 @@ class SearchIndex:
                 continue
             spans = match_tree(pattern, tree)
             if spans:
-                yield Hit(self.keys[i], tuple(spans))
+                yield Hit(self.keys[i], i, tuple(spans))

@@ -47,6 +47,7 @@ from app.models import (
     User,
 )
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.paging import PageWindow
 from app.services.transactions import unit_of_work
 
 # Phrase labels of Treebank II bracketing (Bies, Ferguson, Katz and MacIntyre 1995, "Bracketing
@@ -321,16 +322,9 @@ class SentenceRow:
     assignees: list[str]
 
 
-@dataclass
-class SentencePage:
+@dataclass(kw_only=True)
+class SentencePage(PageWindow):
     rows: list[SentenceRow]
-    page: int
-    per_page: int
-    total: int
-
-    @property
-    def pages(self) -> int:
-        return max(1, -(-self.total // self.per_page))
 
 
 def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int = 50,

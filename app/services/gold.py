@@ -124,6 +124,16 @@ def check_note(note: str | None) -> str:
 
 def reopen(db: Session, sentence_id: int, user: User, *, note: str | None = None) -> Sentence:
     """Retire the sentence's gold (kept in its history) and send it back to review. Commits."""
+    sentence = reopen_step(db, sentence_id, user, note=note)
+    db.commit()
+    db.refresh(sentence)
+    return sentence
+
+
+def reopen_step(db: Session, sentence_id: int, user: User, *, note: str | None = None,
+                detail: dict[str, Any] | None = None) -> Sentence:
+    """:func:`reopen` as a step of a larger workflow: flushes, does not commit (on a race it
+    raises Conflict and the caller rolls back). ``detail`` adds to the event's detail."""
     sentence = db.get(Sentence, sentence_id)
     if sentence is None:
         raise NotFound(f"no sentence with id {sentence_id}")
@@ -138,9 +148,10 @@ def reopen(db: Session, sentence_id: int, user: User, *, note: str | None = None
     if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence_id} changed meanwhile; reload it")
+    db.expire(sentence, ["state"])
     retired = _retire(db, sentence.id, user.id)
     db.add(Event(user_id=user.id, kind="gold.reopened", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"retired": retired, "note": note}))
-    db.commit()
-    db.refresh(sentence)
+                 sentence_id=sentence.id,
+                 detail={"retired": retired, "note": note, **(detail or {})}))
+    db.flush()
     return sentence

@@ -27,6 +27,8 @@ What it computes
        grammar is still stored; nothing is thrown away);
     6. refresh the suggestions of sentences nobody has started
        (app.services.suggestions.refresh_unstarted).
+    A finished version (ready or rejected) also queues a run of the inconsistency finder
+    (app.services.findings), which the same worker drains after the grammar jobs.
 
     Progress (0..1) and a message are written to the row as the job goes; ``train_seconds`` is
     the wall time of steps 1-5 and ``options["timing"]`` splits it.
@@ -86,6 +88,9 @@ from app.models import (
     utcnow,
 )
 from app.services.errors import Conflict, NotFound
+from app.services.findings import claim_run as claim_findings
+from app.services.findings import queue_run as queue_findings
+from app.services.findings import run_finder
 from app.services.suggestions import refresh_unstarted
 from app.settings import Settings
 from parser.grammar import Grammar, train_grammar
@@ -360,6 +365,8 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
             version.status = GV_READY
             version.message = f"active; {f1_text}; refreshing suggestions"
             corpus.active_grammar_id = version.id
+        # the finder looks over the gold again with each new grammar (drained after the jobs)
+        queue_findings(db, corpus_id, reason=f"after grammar version {version.number}")
         db.add(Event(kind="grammar.trained", corpus_id=corpus_id,
                      detail={"version": version.number, "status": version.status,
                              "heldout_f1": heldout_f1, "training_size": len(gold)}))
@@ -405,12 +412,16 @@ def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
 
 
 def drain(factory: sessionmaker[Session]) -> int:
-    """Run queued jobs until none is left; returns how many ran."""
+    """Run queued jobs, then queued findings runs, until none is left; how many ran."""
     ran = 0
-    while (vid := claim(factory)) is not None:
-        run_version(factory, vid)
+    while True:
+        while (vid := claim(factory)) is not None:
+            run_version(factory, vid)
+            ran += 1
+        if (rid := claim_findings(factory)) is None:
+            return ran
+        run_finder(factory, rid)
         ran += 1
-    return ran
 
 
 def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,

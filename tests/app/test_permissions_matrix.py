@@ -139,6 +139,22 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("GET", "/review/{sentence_id}"): Spec(ADJ, 200, ids={"sentence_id": "review"}),
     ("GET", "/agreement"): Spec(USER, 200, query="corpus=@corpus"),
     ("GET", "/agreement/log.csv"): Spec(USER, 200, query="corpus=@corpus"),
+    # --- findings (adjudicators) and search (everyone, as they may see)
+    ("GET", "/api/corpora/{corpus_id}/findings"): Spec(ADJ, 200),
+    ("POST", "/api/corpora/{corpus_id}/findings/runs"): Spec(ADJ, 202, json={}),
+    ("POST", "/api/corpora/{corpus_id}/findings/{finding_id}/fine"): Spec(
+        ADJ, 404, json={}, ids={"finding_id": "missing"}),
+    ("POST", "/api/corpora/{corpus_id}/findings/{finding_id}/reopen"): Spec(
+        ADJ, 404, json={}, ids={"finding_id": "missing"}),
+    ("GET", "/findings"): Spec(ADJ, 200, query="corpus=@corpus"),
+    ("POST", "/findings/run"): Spec(ADJ, 303, form={"corpus_id": "@corpus"}),
+    ("POST", "/findings/{finding_id}/verdict"): Spec(
+        ADJ, 404, form={"corpus_id": "@corpus", "action": "fine"},
+        ids={"finding_id": "missing"}),
+    ("GET", "/api/corpora/{corpus_id}/search"): Spec(USER, 200, query="pattern=the"),
+    ("GET", "/api/corpora/{corpus_id}/search/export"): Spec(USER, 200, query="pattern=the"),
+    ("GET", "/search"): Spec(USER, 200, query="corpus=@corpus&pattern=the"),
+    ("GET", "/search/export"): Spec(USER, 200, query="corpus=@corpus&pattern=the"),
     # --- users (the target is a spare account, so no caller loses their session)
     ("GET", "/api/users"): Spec(ADMIN, 200),
     ("POST", "/api/users"): Spec(ADMIN, 201, json={"username": "matrix.new",
@@ -176,7 +192,7 @@ def world(db, people) -> dict[str, Any]:
     db.add_all([version, spare])
     db.commit()
     return {"corpus": corpus.id, "bench": bench.id, "review": review.id,
-            "version": version.id, "spare": spare.id,
+            "version": version.id, "spare": spare.id, "missing": MISSING,
             "bench_tree": flat_text(bench.tokens, ["DT", "NN", "VBD", "DT", "NN", "."]),
             "review_tokens": review.tokens}
 
