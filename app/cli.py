@@ -373,6 +373,92 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
 
 
 # ---------------------------------------------------------------------------------------------
+# search and findings
+
+
+def _marked(words: list[str], start: int, end: int) -> str:
+    return " ".join(words[:start] + ["[" + " ".join(words[start:end]) + "]"] + words[end:])
+
+
+@main.command("search")
+@click.argument("pattern")
+@click.option("--corpus", "corpus_name", required=True, help="Corpus to search.")
+@click.option("--in", "scope", type=click.Choice(["gold", "annotations", "sentences"]),
+              default="gold", show_default=True,
+              help="The gold trees, every annotation's newest tree, or the sentences' words.")
+@click.option("--state", default=None, help="Only sentences in this state (e.g. gold, queued).")
+@click.option("--limit", type=click.IntRange(1, 200), default=20, show_default=True,
+              help="Show this many matches (the count is always complete).")
+@click.option("--bracketed", is_flag=True,
+              help="Print every matching tree as one-line bracketed text instead.")
+@data_dir_option
+def search_command(pattern: str, corpus_name: str, scope: str, state: str | None, limit: int,
+                   bracketed: bool, data_dir: Path | None) -> None:
+    """Find sentences by a word string (* for any word) or a bracketed fragment with holes,
+    e.g. '(VP ... (PP on (NP ...)))'; the README describes the patterns."""
+    from app.services import search as svc
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        corpus = corpus_named(db, corpus_name)
+        if bracketed:
+            click.echo(svc.export_text(db, corpus, None, pattern, scope=scope, state=state),
+                       nl=False)
+            return
+        found = svc.search(db, corpus, None, pattern, scope=scope, state=state,
+                           per_page=limit)
+    for hit in found.hits:
+        who = f" ({hit.annotator})" if hit.annotator else ""
+        start, end = hit.spans[0]
+        click.echo(f"{hit.sentence_id:>6}  {hit.document}:{hit.position + 1} [{hit.state}]{who}"
+                   f"  {_marked(hit.words, start, end)}")
+    shown = f"; {len(found.hits)} shown" if found.total > len(found.hits) else ""
+    click.echo(f"{plural(found.total, 'match', 'matches')}{shown}", err=True)
+
+
+@main.command("findings")
+@click.option("--corpus", "corpus_name", required=True, help="Corpus whose findings to show.")
+@click.option("--run", "run_first", is_flag=True,
+              help="Run the finder now (in this process) before showing its findings.")
+@click.option("--with-annotations", is_flag=True,
+              help="With --run: also read submitted annotations of sentences not yet gold.")
+@click.option("--state", type=click.Choice(["open", "fine_as_is", "reopened"]),
+              default="open", show_default=True, help="Which findings to show.")
+@click.option("--kind", type=click.Choice(["bracket", "tag", "rule"]), default=None,
+              help="Only findings of this kind.")
+@click.option("--limit", type=click.IntRange(1, 200), default=20, show_default=True,
+              help="Show the most suspicious N.")
+@data_dir_option
+def findings_command(corpus_name: str, run_first: bool, with_annotations: bool, state: str,
+                     kind: str | None, limit: int, data_dir: Path | None) -> None:
+    """Print the inconsistencies the finder found in a corpus, most suspicious first, each with
+    its occurrences (sentence id, marked words, analysis, who settled it)."""
+    from app.services import findings as svc
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        corpus = corpus_named(db, corpus_name)
+        if run_first:
+            run = svc.run_now(db, corpus.id, reason="from the command line",
+                              with_annotations=with_annotations)
+            click.echo(f"run {run.id}: {run.status}, {run.message} "
+                       f"({run.seconds or 0:.1f} s)", err=True)
+        page = svc.finding_page(db, corpus.id, state=state, kind=kind, per_page=limit)
+        words = svc.sentence_words(db, [o["sentence"] for e in page.entries
+                                        for o in e.row.occurrences])
+    if page.run is None:
+        raise click.ClickException(f"the finder has not run on {corpus_name!r} yet; add --run")
+    for entry in page.entries:
+        f = entry.row
+        click.echo(f"#{f.rank}  [{f.kind}]  {f.summary}  (score {f.score:.2f})")
+        for o in f.occurrences:
+            analysis = o["analysis"] or "(no constituent)"
+            click.echo(f"    {o['sentence']:>6}  {analysis:<14} {o['by']:<12} "
+                       f"{_marked(words.get(o['sentence'], []), o['start'], o['end'])}")
+    click.echo(f"{plural(page.total, state.replace('_', ' ') + ' finding')}"
+               f"{f'; {len(page.entries)} shown' if page.total > len(page.entries) else ''}",
+               err=True)
+
+
+# ---------------------------------------------------------------------------------------------
 # corpora and assignment
 
 

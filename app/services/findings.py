@@ -110,6 +110,30 @@ def claim_run(factory: sessionmaker[Session]) -> int | None:
                 return int(run_id)
 
 
+def run_now(db: Session, corpus_id: int, *, reason: str, with_annotations: bool = False,
+            options: FinderOptions | None = None) -> FindingRun:
+    """Run the finder on the corpus in this process, now (the command line), and return the
+    finished (or failed) run. Commits."""
+    run = FindingRun(corpus_id=corpus_id, status=RUN_RUNNING, reason=reason,
+                     with_annotations=with_annotations, message="finding", created_at=utcnow())
+    db.add(run)
+    db.commit()
+    run_finder(sessionmaker(bind=db.get_bind()), run.id, options)
+    db.refresh(run)
+    return run
+
+
+def fail_interrupted_runs(factory: sessionmaker[Session]) -> int:
+    """Mark runs left ``running`` by a process that died as failed. Commits."""
+    with factory() as db:
+        result = db.execute(update(FindingRun).where(FindingRun.status == RUN_RUNNING)
+                            .values(status=RUN_FAILED, finished_at=utcnow(),
+                                    message="interrupted: the service stopped while it ran")
+                            .execution_options(synchronize_session=False))
+        db.commit()
+        return int(getattr(result, "rowcount", 0) or 0)
+
+
 def drain_runs(factory: sessionmaker[Session]) -> int:
     """Run queued runs until none is left; how many ran."""
     ran = 0

@@ -161,17 +161,22 @@ def read_pattern(text: str) -> Pattern:
         raise BadInput(f"pattern, {err}", kind="pattern", column=err.column) from err
 
 
-def check_access(corpus: Corpus, user: User, scope: str) -> None:
+def _sees_all(user: User | None) -> bool:
+    """Adjudicators, admins and the command line (no user) see everything."""
+    return user is None or user.can_adjudicate
+
+
+def check_access(corpus: Corpus, user: User | None, scope: str) -> None:
     if scope not in SCOPES:
         raise BadInput(f"unknown scope {scope!r}; one of {', '.join(SCOPES)}", kind="scope")
-    if scope == SCOPE_GOLD and not user.can_adjudicate \
-            and not corpus.setting("gold_visible_to_annotators"):
+    if scope == SCOPE_GOLD and not _sees_all(user) \
+            and not corpus.options.gold_visible_to_annotators:
         raise Forbidden(f"corpus {corpus.name!r} does not let annotators search its gold")
 
 
-def default_scope(corpus: Corpus, user: User) -> str:
+def default_scope(corpus: Corpus, user: User | None) -> str:
     """The gold when the user may search it, else the user's own annotations."""
-    if user.can_adjudicate or corpus.setting("gold_visible_to_annotators"):
+    if _sees_all(user) or corpus.options.gold_visible_to_annotators:
         return SCOPE_GOLD
     return SCOPE_ANNOTATIONS
 
@@ -205,7 +210,7 @@ class _Match:
     spans: tuple[tuple[int, int], ...]
 
 
-def _matches(db: Session, corpus: Corpus, user: User, pattern_text: str, scope: str,
+def _matches(db: Session, corpus: Corpus, user: User | None, pattern_text: str, scope: str,
              state: str | None) -> tuple[_Cached, list[_Match]]:
     check_access(corpus, user, scope)
     if state and state not in SENTENCE_STATES:
@@ -220,7 +225,8 @@ def _matches(db: Session, corpus: Corpus, user: User, pattern_text: str, scope: 
     if state:
         allowed = set(db.scalars(select(Sentence.id).where(Sentence.corpus_id == corpus.id,
                                                            Sentence.state == state)))
-    only_user = user.id if scope == SCOPE_ANNOTATIONS and not user.can_adjudicate else None
+    only_user = user.id if scope == SCOPE_ANNOTATIONS and user is not None \
+        and not user.can_adjudicate else None
     out = []
     for hit in cached.index.search(pattern):
         key = hit.key
@@ -233,18 +239,19 @@ def _matches(db: Session, corpus: Corpus, user: User, pattern_text: str, scope: 
     return cached, out
 
 
-def _link(scope: str, key: EntryKey, user: User) -> str | None:
-    if user.can_adjudicate:
+def _link(scope: str, key: EntryKey, user: User | None) -> str | None:
+    if _sees_all(user):
         return f"/review/{key.sentence_id}"
-    if scope == SCOPE_ANNOTATIONS and key.user_id == user.id:
+    if scope == SCOPE_ANNOTATIONS and user is not None and key.user_id == user.id:
         return f"/bench/{key.sentence_id}"
     return None
 
 
-def search(db: Session, corpus: Corpus, user: User, pattern_text: str, *,
+def search(db: Session, corpus: Corpus, user: User | None, pattern_text: str, *,
            scope: str = SCOPE_GOLD, state: str | None = None, page: int = 1,
            per_page: int = 20) -> SearchPage:
-    """One page of the sentences whose ``scope`` matches the pattern, as ``user`` may see."""
+    """One page of the sentences whose ``scope`` matches the pattern, as ``user`` may see
+    (``None``: the command line, which sees everything)."""
     per_page = min(max(per_page, 1), 200)
     page = max(page, 1)
     cached, found = _matches(db, corpus, user, pattern_text, scope, state)
@@ -270,7 +277,7 @@ def search(db: Session, corpus: Corpus, user: User, pattern_text: str, *,
                       per_page=per_page, total=len(found))
 
 
-def export_text(db: Session, corpus: Corpus, user: User, pattern_text: str, *,
+def export_text(db: Session, corpus: Corpus, user: User | None, pattern_text: str, *,
                 scope: str = SCOPE_GOLD, state: str | None = None) -> str:
     """Every matching tree as one-line bracketed text (sentences scope: the words, each a
     flat line), one per line."""

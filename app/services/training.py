@@ -89,8 +89,8 @@ from app.models import (
 )
 from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
+from app.services.findings import fail_interrupted_runs, run_finder
 from app.services.findings import queue_run as queue_findings
-from app.services.findings import run_finder
 from app.services.suggestions import refresh_unstarted
 from app.settings import Settings
 from parser.grammar import Grammar, train_grammar
@@ -447,14 +447,16 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
 
 
 def fail_interrupted(factory: sessionmaker[Session]) -> int:
-    """Mark jobs left in ``training`` (their process died with the service) as failed."""
+    """Mark jobs left in ``training`` (their process died with the service) as failed, and
+    findings runs left ``running`` too."""
     with factory() as db:
         result = db.execute(update(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
                             .values(status=GV_FAILED, finished_at=utcnow(),
                                     message="interrupted: the service stopped while it trained")
                             .execution_options(synchronize_session=False))
         db.commit()
-        return int(cast(CursorResult[Any], result).rowcount or 0)
+    fail_interrupted_runs(factory)
+    return int(cast(CursorResult[Any], result).rowcount or 0)
 
 
 # --------------------------------------------------------------------------------------------
