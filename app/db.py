@@ -45,10 +45,18 @@ def alembic_config(settings: Settings) -> Config:
 
 
 def upgrade_to_head(settings: Settings) -> None:
-    """Bring the database to the newest migration (called on every start)."""
+    """Bring the database to the newest migration (called on every start), then make sure
+    the triggers that keep the sentence counts exist (:mod:`app.counts`)."""
+    from app.counts import ensure_triggers
+
     if settings.is_sqlite:
         settings.ensure_data_dir()
     command.upgrade(alembic_config(settings), "head")
+    engine = make_engine(settings)
+    try:
+        ensure_triggers(engine)
+    finally:
+        engine.dispose()
 
 
 def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:

@@ -13,6 +13,7 @@ from typing import Any
 
 from sqlalchemy import (
     JSON,
+    BigInteger,
     Boolean,
     DateTime,
     Float,
@@ -23,6 +24,7 @@ from sqlalchemy import (
     String,
     Text,
     UniqueConstraint,
+    select,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, deferred, mapped_column, relationship
 
@@ -191,8 +193,13 @@ class Document(Base):
 
 class Sentence(Base):
     __tablename__ = "sentences"
+    # Reading order is (document_id, position): a document's id grows with its position (both
+    # are given at creation, never changed). The two indexes serve the corpus page's keyset
+    # pages, with and without a state filter.
     __table_args__ = (UniqueConstraint("document_id", "position"),
-                      Index("ix_sentences_corpus_state", "corpus_id", "state"))
+                      Index("ix_sentences_corpus_order", "corpus_id", "document_id", "position"),
+                      Index("ix_sentences_corpus_state_order", "corpus_id", "state",
+                            "document_id", "position"))
     id: Mapped[int] = mapped_column(primary_key=True)
     corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"))
     document_id: Mapped[int] = mapped_column(ForeignKey("documents.id", ondelete="CASCADE"),
@@ -206,14 +213,57 @@ class Sentence(Base):
     document: Mapped[Document] = relationship(back_populates="sentences")
 
 
+def reading_rank(document_id: int, position: int) -> int:
+    """A sentence's place in reading order as one sortable integer."""
+    return (int(document_id) << 32) + int(position)
+
+
+def _sentence_place(context: Any) -> tuple[int, int]:
+    """(corpus_id, reading rank) of the sentence an Assignment being inserted names."""
+    sentence_id = context.get_current_parameters()["sentence_id"]
+    row = context.connection.execute(
+        select(Sentence.corpus_id, Sentence.document_id, Sentence.position)
+        .where(Sentence.id == sentence_id)).first()
+    if row is None:  # the foreign key refuses the row anyway
+        return 0, 0
+    return int(row[0]), reading_rank(row[1], row[2])
+
+
 class Assignment(Base):
+    """A sentence in a user's queue. ``corpus_id`` and ``rank`` copy what the queue is ordered
+    by (corpus, then ``rank``, then sentence id), so that a page of a queue, a sentence's
+    neighbours and its place are index walks over this table alone. ``rank`` defaults to the
+    sentence's reading order (:func:`reading_rank`); a service may store another order (most
+    useful first, say) as long as it keeps it an integer. Both are filled from the sentence
+    when an insert does not give them."""
+
     __tablename__ = "assignments"
-    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),)
+    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),
+                      Index("ix_assignments_queue", "user_id", "corpus_id", "rank",
+                            "sentence_id"))
     id: Mapped[int] = mapped_column(primary_key=True)
     sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
                                              index=True)
     user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    corpus_id: Mapped[int] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"),
+        default=lambda ctx: _sentence_place(ctx)[0])
+    rank: Mapped[int] = mapped_column(BigInteger, default=lambda ctx: _sentence_place(ctx)[1])
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+
+
+class SentenceCount(Base):
+    """How many sentences of a document are in each state, kept by database triggers on
+    ``sentences`` (:mod:`app.counts`), so that the corpus pages read a few rows instead of
+    counting every sentence."""
+
+    __tablename__ = "sentence_counts"
+    document_id: Mapped[int] = mapped_column(ForeignKey("documents.id", ondelete="CASCADE"),
+                                             primary_key=True)
+    state: Mapped[str] = mapped_column(String(16), primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    n: Mapped[int] = mapped_column(Integer, default=0)
 
 
 class Annotation(Base):
@@ -225,7 +275,9 @@ class Annotation(Base):
     """
 
     __tablename__ = "annotations"
-    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),)
+    # (user_id, state): a queue's submitted count reads the user's submitted annotations only
+    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),
+                      Index("ix_annotations_user_state", "user_id", "state"))
     id: Mapped[int] = mapped_column(primary_key=True)
     sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
                                              index=True)

@@ -11,7 +11,7 @@ import logging
 import math
 from typing import Any
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Query, Request
 from sqlalchemy.orm import Session
 
 from app.deps import ApiUser, SessionDep
@@ -198,9 +198,13 @@ def my_revisions(sentence_id: int, login: ApiUser, db: SessionDep) -> list[Revis
             for r in svc.own_revisions(db, login.user, sentence)]
 
 
-@router.get("/api/queue", response_model=QueuePublic)
-def my_queue(login: ApiUser, db: SessionDep, corpus_id: int | None = None) -> QueuePublic:
-    """Your assigned sentences in reading order, with your progress."""
-    queue = svc.queue_for(db, login.user, corpus_id)
-    return QueuePublic(total=queue.total, submitted=queue.submitted,
-                       items=queue.items)
+@router.get("/api/queue", response_model=QueuePublic, responses={422: ERRORS[422]})
+def my_queue(login: ApiUser, db: SessionDep, corpus_id: int | None = None,
+             after: str | None = Query(None, max_length=60),
+             limit: int = Query(200, ge=1, le=1000)) -> QueuePublic:
+    """Your assigned sentences in queue order, ``limit`` at a time, with your progress: pass
+    ``next_cursor`` back as ``after`` for the next page."""
+    page = svc.queue_page(db, login.user, corpus_id, after=after, limit=limit)
+    return QueuePublic(total=page.total, submitted=page.submitted,
+                       first_index=page.first_index, next_cursor=page.next_cursor,
+                       items=page.items)

@@ -90,10 +90,12 @@ class SentencePublic(BaseModel):
 
 
 class SentencePagePublic(BaseModel):
-    page: int
+    page: int | None = Field(description="the offset page's number (null for a cursor page)")
     per_page: int
     total: int
     pages: int
+    next_cursor: str | None = Field(
+        None, description="pass as ``after`` for the next page; null on the last page")
     sentences: list[SentencePublic]
 
 
@@ -195,15 +197,19 @@ def remove_corpus(corpus_id: int, body: CorpusRemove, login: ApiAdmin,
 @router.get("/api/corpora/{corpus_id}/sentences", response_model=SentencePagePublic,
             responses=ERRORS)
 def corpus_sentences(corpus_id: int, login: ApiUser, db: SessionDep,
-                     page: int = Query(1, ge=1, le=1_000_000),
+                     page: int | None = Query(None, ge=1, le=1_000_000),
+                     after: str | None = Query(None, max_length=40),
                      per_page: int = Query(50, ge=1, le=500), state: str | None = None,
                      document_id: int | None = None) -> SentencePagePublic:
+    """Sentences in reading order, one page at a time: follow ``next_cursor`` with ``after``
+    (each page costs the same wherever it is), or ask for an offset ``page`` number (costs
+    grow with the offset)."""
     corpus = svc.get_corpus(db, corpus_id)
-    listing = svc.sentence_page(db, corpus, page=page, per_page=per_page, state=state,
-                                document_id=document_id)
+    listing = svc.sentence_page(db, corpus, page=page, after=after, per_page=per_page,
+                                state=state, document_id=document_id)
     return SentencePagePublic(
         page=listing.page, per_page=listing.per_page, total=listing.total,
-        pages=listing.pages,
+        pages=listing.pages, next_cursor=listing.next_cursor,
         sentences=[SentencePublic(id=r.sentence.id, document_id=r.sentence.document_id,
                                   document=r.document_name, position=r.sentence.position,
                                   text=r.sentence.text, tokens=list(r.sentence.tokens),

@@ -16,7 +16,7 @@ router = APIRouter(tags=["pages"], include_in_schema=False)
 @router.get("/bench", response_class=HTMLResponse)
 def bench_next(login: PageUser, db: SessionDep) -> Response:
     """The first sentence of the user's queue not yet handed in or held back."""
-    target = svc.queue_for(db, login.user).next_open()
+    target = svc.next_open(db, login.user)
     return RedirectResponse(f"/bench/{target}" if target else "/queue", status_code=303)
 
 

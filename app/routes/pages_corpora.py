@@ -17,7 +17,7 @@ from app.deps import Login, PageAdmin, PageUser, SessionDep
 from app.models import SENTENCE_STATES, Corpus, Sentence
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences, assigned_to
-from app.services.errors import ServiceError
+from app.services.errors import BadInput, ServiceError
 from app.web import render
 from app.wording import plural
 
@@ -31,13 +31,21 @@ DONE_MESSAGES = {
 
 
 def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus, *,
-                 page: int = 1, state: str | None = None, document: int | None = None,
+                 after: str | None = None, before: str | None = None, last: bool = False,
+                 state: str | None = None, document: int | None = None,
                  error: str | None = None, notice: str | None = None,
                  form: dict[str, Any] | None = None, status_code: int = 200) -> HTMLResponse:
     if state not in SENTENCE_STATES:
         state = None
-    listing = svc.sentence_page(db, corpus, page=page, per_page=PER_PAGE, state=state,
-                                document_id=document)
+    try:
+        listing = svc.sentence_page(db, corpus, per_page=PER_PAGE, state=state,
+                                    document_id=document, after=after, before=before,
+                                    last=last)
+    except BadInput as err:  # a mangled cursor: say so above the first page
+        error = error or str(err.detail)
+        status_code = 422
+        listing = svc.sentence_page(db, corpus, per_page=PER_PAGE, state=state,
+                                    document_id=document)
     ids = [row.sentence.id for row in listing.rows]
     mine = assigned_to(db, login.user, ids)
     return render(request, "corpus.html", login, status_code=status_code, nav="corpora",
@@ -76,13 +84,15 @@ def corpora_create(request: Request, login: PageAdmin, db: SessionDep, name: str
 
 @router.get("/corpora/{corpus_id}", response_class=HTMLResponse)
 def corpus_view(request: Request, corpus_id: int, login: PageUser, db: SessionDep,
-                page: int = 1, state: str | None = None, document: int | None = None,
+                after: str | None = None, before: str | None = None, last: bool = False,
+                state: str | None = None, document: int | None = None,
                 done: str | None = None, assigned: int | None = None) -> HTMLResponse:
     corpus = svc.get_corpus(db, corpus_id)
     notice = DONE_MESSAGES.get(done or "")
     if done == "assigned" and assigned is not None:
         notice = f"{plural(assigned, 'assignment')} made."
-    return _corpus_page(request, login, db, corpus, page=page, state=state or None,
+    return _corpus_page(request, login, db, corpus, after=after or None,
+                        before=before or None, last=last, state=state or None,
                         document=document, notice=notice)
 
 

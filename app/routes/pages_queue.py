@@ -4,10 +4,13 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
+from sqlalchemy import select
 
 from app.deps import PageUser, SessionDep
+from app.models import Assignment, Corpus
 from app.services import annotation as svc
 from app.services.corpora import find_corpus
+from app.services.errors import BadInput
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -17,17 +20,18 @@ PER_PAGE = 100
 
 @router.get("/queue", response_class=HTMLResponse)
 def queue_page(request: Request, login: PageUser, db: SessionDep, corpus: int | None = None,
-               page: int = 1) -> Response:
-    everything = svc.queue_for(db, login.user)
-    queue = svc.Queue(items=[it for it in everything.items
-                             if corpus is None or it.corpus_id == corpus])
-    pages = max(1, -(-queue.total // PER_PAGE))
-    page = min(max(1, page), pages)
-    items = queue.items[(page - 1) * PER_PAGE: page * PER_PAGE]
-    corpora = {it.corpus_id: it.corpus_name for it in everything.items}
+               after: str | None = None, before: str | None = None) -> Response:
+    """One page of the queue (``after`` / ``before`` a cursor), in the queue's order."""
+    try:
+        queue = svc.queue_page(db, login.user, corpus, after=after or None,
+                               before=before or None, limit=PER_PAGE)
+    except BadInput:  # a mangled cursor: the first page
+        queue = svc.queue_page(db, login.user, corpus, limit=PER_PAGE)
+    corpora = db.execute(select(Corpus.id, Corpus.name).where(Corpus.id.in_(
+        select(Assignment.corpus_id).where(Assignment.user_id == login.user.id).distinct()))
+        .order_by(Corpus.name)).all()
     chosen = find_corpus(db, corpus) if corpus is not None else None
-    return render(request, "queue.html", login, nav="queue", queue=queue, items=items,
-                  page=page, pages=pages, first_index=(page - 1) * PER_PAGE,
-                  corpora=sorted(corpora.items(), key=lambda kv: kv[1]),
+    return render(request, "queue.html", login, nav="queue", queue=queue, items=queue.items,
+                  first_index=queue.first_index - 1, corpora=[tuple(c) for c in corpora],
                   corpus_id=corpus, corpus_name=chosen.name if chosen else None,
-                  next_open=queue.next_open())
+                  next_open=svc.next_open(db, login.user, corpus))

@@ -148,6 +148,11 @@ class BenchErrorPublic(BaseModel):
 
 
 class QueuePublic(BaseModel):
+    """One page of your queue. ``next_cursor`` (null on the last page) goes back as
+    ``after`` for the next one; ``first_index`` is the 1-based place of the first item."""
+
     total: int
     submitted: int
+    first_index: int = 1
+    next_cursor: str | None = None
     items: list[QueueItem]

@@ -19,13 +19,15 @@ What it computes
     with one annotator per sentence) has no partner, so it goes to review too: nobody has
     checked it yet. A sentence that is already gold keeps its gold; its records are still logged.
 
-    The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records:
+    The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records,
+    kept between views (per process) so that a view adds only the records logged since:
     corpus labelled F1 micro-averaged over all pairs (summed matched and constituent counts),
     the same per annotator pair, per label (from each record's ``detail["per_label"]``), the
     most frequent label confusions (``detail["confusions"]``) and F1 per week.
 
 Complexity: on_submitted scores k(k-1)/2 pairs for k annotations, each O(n + g*t) (see
-parser.scoring); corpus_figures reads every record of the corpus once, O(records * labels).
+parser.scoring); corpus_figures reads the records logged since its last call (all of them the
+first time in a process), O(new records * labels), plus O(pairs + labels + days) to show them.
 Limits: records are never updated; a re-submission after a reopen logs new records beside
 the old ones (both stay in the log; the page counts each record once).
 """
@@ -34,13 +36,14 @@ from __future__ import annotations
 
 import csv
 import io
+import threading
 from collections import Counter, defaultdict
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from itertools import combinations
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -243,71 +246,128 @@ def week_start(at: datetime) -> datetime:
 
 def timeline(days: dict[datetime, list[Counts]]) -> tuple[str, list[PeriodFigures]]:
     """Records per day, or per week when more than MAX_DAYS_SHOWN days have records."""
-    period = "day"
-    buckets = days
-    if len(days) > MAX_DAYS_SHOWN:
-        period = "week"
-        buckets = defaultdict(list)
-        for day, counts in days.items():
-            buckets[week_start(day)].extend(counts)
-    return period, [PeriodFigures(at, len(cs), sum(cs, Counts()))
-                    for at, cs in sorted(buckets.items())]
+    return timeline_of_sums({day: (len(cs), sum(cs, Counts())) for day, cs in days.items()})
 
 
-def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
-    """Sum every agreement record of the corpus into the Agreement page's figures."""
-    # a dropped sentence is out of the figures (its records stay in the log)
-    records = db.scalars(select(AgreementRecord)
-                         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-                         .where(AgreementRecord.corpus_id == corpus_id,
-                                Sentence.state != SENT_DROPPED)
-                         .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
-    names = _user_names(db, {r.user_a_id for r in records} | {r.user_b_id for r in records})
-    total = unl = Counts()
-    pos_c = pos_t = identical = 0
-    pairs: dict[tuple[int, int], PairFigures] = {}
-    pair_sentences: dict[tuple[int, int], set[int]] = defaultdict(set)
-    labels: dict[str, Counts] = {}
-    confusions: Counter[tuple[str, str]] = Counter()
-    days: dict[datetime, list[Counts]] = defaultdict(list)
-    for r in records:
+def timeline_of_sums(days: dict[datetime, tuple[int, Counts]]
+                     ) -> tuple[str, list[PeriodFigures]]:
+    """:func:`timeline` from each day's (records, summed counts)."""
+    if len(days) <= MAX_DAYS_SHOWN:
+        return "day", [PeriodFigures(at, n, c) for at, (n, c) in sorted(days.items())]
+    weeks: dict[datetime, tuple[int, Counts]] = {}
+    for day, (n, c) in days.items():
+        had_n, had_c = weeks.get(week_start(day), (0, Counts()))
+        weeks[week_start(day)] = (had_n + n, had_c + c)
+    return "week", [PeriodFigures(at, n, c) for at, (n, c) in sorted(weeks.items())]
+
+
+@dataclass
+class _Tally:
+    """Running sums of a corpus's agreement records (what :func:`corpus_figures` shows);
+    ``add`` takes one record, ``figures`` reads the sums without touching the records."""
+
+    last_id: int = 0
+    records: int = 0
+    total: Counts = field(default_factory=Counts)
+    unlabelled: Counts = field(default_factory=Counts)
+    pos_correct: int = 0
+    pos_total: int = 0
+    identical: int = 0
+    sentences: set[int] = field(default_factory=set)
+    pairs: dict[tuple[int, int], PairFigures] = field(default_factory=dict)
+    pair_sentences: dict[tuple[int, int], set[int]] = field(
+        default_factory=lambda: defaultdict(set))
+    labels: dict[str, Counts] = field(default_factory=dict)
+    confusions: Counter[tuple[str, str]] = field(default_factory=Counter)
+    days: dict[datetime, tuple[int, Counts]] = field(default_factory=dict)
+
+    def add(self, r: AgreementRecord) -> None:
         c = Counts(r.matched, r.count_a, r.count_b)
         u = _triple(r.detail.get("unlabelled"))
         pos = r.detail.get("pos") or [0, 0]
-        total += c
-        unl += u
-        pos_c += int(pos[0])
-        pos_t += int(pos[1])
-        identical += bool(r.identical)
+        self.last_id = max(self.last_id, r.id)
+        self.records += 1
+        self.sentences.add(r.sentence_id)
+        self.total += c
+        self.unlabelled += u
+        self.pos_correct += int(pos[0])
+        self.pos_total += int(pos[1])
+        self.identical += bool(r.identical)
         key = (min(r.user_a_id, r.user_b_id), max(r.user_a_id, r.user_b_id))
-        pf = pairs.get(key)
+        pf = self.pairs.get(key)
         if pf is None:
-            pf = pairs[key] = PairFigures(names.get(key[0], "?"), names.get(key[1], "?"))
+            pf = self.pairs[key] = PairFigures("?", "?")
         pf.counts += c
         pf.unlabelled += u
         pf.pos_correct += int(pos[0])
         pf.pos_total += int(pos[1])
         pf.identical += bool(r.identical)
-        pair_sentences[key].add(r.sentence_id)
+        self.pair_sentences[key].add(r.sentence_id)
         for label, v in (r.detail.get("per_label") or {}).items():
-            labels[label] = labels.get(label, Counts()) + _triple(v)
+            self.labels[label] = self.labels.get(label, Counts()) + _triple(v)
         for ga, tb, n in r.detail.get("confusions") or []:
             # a confusion is unordered between two annotators: NP/QP is QP/NP
-            confusions[tuple(sorted((str(ga), str(tb))))] += int(n)  # type: ignore[index]
-        days[day_start(r.created_at)].append(c)
-    for key, pf in pairs.items():
-        pf.sentences = len(pair_sentences[key])
-    label_rows = sorted((LabelFigures(k, v) for k, v in labels.items()),
-                        key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test),
-                                        lf.label))
-    period, period_rows = timeline(days)
-    return CorpusAgreement(
-        records=len(records), sentences=len({r.sentence_id for r in records}), counts=total,
-        unlabelled=unl, pos_correct=pos_c, pos_total=pos_t, identical=identical,
-        pairs=sorted(pairs.values(), key=lambda p: (p.user_a, p.user_b)),
-        labels=label_rows,
-        confusions=[(a, b, n) for (a, b), n in confusions.most_common(top_confusions)],
-        periods=period_rows, period=period)
+            self.confusions[tuple(sorted((str(ga), str(tb))))] += int(n)  # type: ignore[index]
+        n, summed = self.days.get(day_start(r.created_at), (0, Counts()))
+        self.days[day_start(r.created_at)] = (n + 1, summed + c)
+
+    def figures(self, names: dict[int, str], top_confusions: int) -> CorpusAgreement:
+        pairs = []
+        for key, pf in self.pairs.items():
+            pairs.append(PairFigures(
+                names.get(key[0], "?"), names.get(key[1], "?"),
+                sentences=len(self.pair_sentences[key]), counts=pf.counts,
+                unlabelled=pf.unlabelled, pos_correct=pf.pos_correct, pos_total=pf.pos_total,
+                identical=pf.identical))
+        label_rows = sorted((LabelFigures(k, v) for k, v in self.labels.items()),
+                            key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test),
+                                            lf.label))
+        period, period_rows = timeline_of_sums(self.days)
+        return CorpusAgreement(
+            records=self.records, sentences=len(self.sentences), counts=self.total,
+            unlabelled=self.unlabelled, pos_correct=self.pos_correct,
+            pos_total=self.pos_total, identical=self.identical,
+            pairs=sorted(pairs, key=lambda p: (p.user_a, p.user_b)), labels=label_rows,
+            confusions=[(a, b, n) for (a, b), n in self.confusions.most_common(top_confusions)],
+            periods=period_rows, period=period)
+
+
+# Per process, per (database, corpus): the sums so far. Records are only ever added (never
+# changed); a view reads the records logged since and adds them. When the count of records
+# then differs from what the sums hold (a record committed late with a lower id, records
+# removed with their sentences, a sentence dropped or brought back), the sums start again.
+_tallies: dict[tuple[str, int], _Tally] = {}
+_tally_lock = threading.Lock()
+
+
+def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
+    """The Agreement page's figures: sums over every agreement record of the corpus, kept
+    between views so that a view reads only the records logged since the last one."""
+    key = (str(db.get_bind().engine.url), corpus_id)
+    # a dropped sentence is out of the figures (its records stay in the log)
+    counted = select(AgreementRecord).join(Sentence, Sentence.id == AgreementRecord.sentence_id) \
+        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
+    count, last = db.execute(select(func.count(), func.coalesce(func.max(AgreementRecord.id), 0))
+                             .select_from(AgreementRecord)
+                             .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+                             .where(AgreementRecord.corpus_id == corpus_id,
+                                    Sentence.state != SENT_DROPPED)).one()
+    with _tally_lock:  # held while adding: the sums are shared by every request
+        tally = _tallies.get(key)
+        if tally is None or tally.last_id > last or tally.records > count:
+            tally = _Tally()
+        if (tally.records, tally.last_id) != (count, last):
+            new = db.scalars(counted.where(AgreementRecord.id > tally.last_id)
+                             .order_by(AgreementRecord.id)).all()
+            if tally.records + len(new) != count:  # a record came in late, or a sentence
+                tally = _Tally()                   # came back: sum them all again
+                new = db.scalars(counted.order_by(AgreementRecord.id)).all()
+            for r in new:
+                tally.add(r)
+        _tallies[key] = tally
+        figures_of = tally
+        names = _user_names(db, {u for pair in figures_of.pairs for u in pair})
+        return figures_of.figures(names, top_confusions)
 
 
 def _user_names(db: Session, ids: Iterable[int]) -> dict[int, str]:

@@ -17,7 +17,8 @@ Rules this module enforces (routes only translate its errors into HTTP answers):
   in the same transaction; a submitted annotation takes no further saves.
 
 Cost: a save is one read of the annotation, one validation (linear in the text length) and two
-writes; the Queue is one joined query over the user's assignments.
+writes; a page of the Queue, and a sentence's place in it, are walks of one index over the
+user's assignments (see "the queue" below), whatever the queue's length.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from dataclasses import dataclass, field
 from datetime import UTC
 from typing import Any, cast
 
-from sqlalchemy import CursorResult, select, update
+from sqlalchemy import CursorResult, func, or_, select, tuple_, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -271,6 +272,9 @@ def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None
 
 
 # --------------------------------------------------------------------------- the queue
+# A queue is the user's Assignment rows in the order (corpus_id, rank, sentence_id), which the
+# index ix_assignments_queue holds; every call below walks that index for one page or one
+# neighbour, so its cost does not grow with the length of the queue (counts are index counts).
 @dataclass
 class QueueItem:
     sentence_id: int
@@ -286,26 +290,142 @@ class QueueItem:
 
 
 @dataclass
-class Queue:
+class QueuePage:
+    """One page of a queue: its items, the queue's ``total`` and ``submitted`` counts, the
+    1-based number of the first item, and cursors to the pages before and after (None at the
+    ends)."""
+
     items: list[QueueItem] = field(default_factory=list)
+    total: int = 0
+    submitted: int = 0
+    first_index: int = 1
+    prev_cursor: str | None = None
+    next_cursor: str | None = None
 
-    @property
-    def total(self) -> int:
-        return len(self.items)
 
-    @property
-    def submitted(self) -> int:
-        return sum(1 for it in self.items if it.annotation_state == ANN_SUBMITTED)
+_QUEUE_KEY = (Assignment.corpus_id, Assignment.rank, Assignment.sentence_id)
+_DONE = (ANN_SUBMITTED, ANN_FLAGGED)
 
-    def next_open(self, after: int | None = None) -> int | None:
-        """The first sentence after ``after`` (wrapping round) not yet submitted or flagged."""
-        ids = [it.sentence_id for it in self.items]
-        start = ids.index(after) + 1 if after in ids else 0
-        for it in self.items[start:] + self.items[:start]:
-            if it.annotation_state not in (ANN_SUBMITTED, ANN_FLAGGED) \
-                    and it.sentence_id != after:
-                return it.sentence_id
-        return None
+
+def _key_of(row: Any) -> tuple[int, int, int]:
+    return int(row.corpus_id), int(row.rank), int(row.sentence_id)
+
+
+def queue_cursor(key: tuple[int, int, int]) -> str:
+    return "-".join(str(k) for k in key)
+
+
+def parse_queue_cursor(cursor: str) -> tuple[int, int, int]:
+    """The key of a queue cursor (``CORPUS-RANK-SENTENCE``), or BadInput."""
+    parts = cursor.split("-")
+    if len(parts) != 3 or not all(p.isdigit() and len(p) < 19 for p in parts):
+        raise BadInput(f"queue cursor {cursor[:40]!r} is not of the form CORPUS-RANK-SENTENCE "
+                       "(three whole numbers)", kind="shape")
+    return int(parts[0]), int(parts[1]), int(parts[2])
+
+
+def _mine(user: User, corpus_id: int | None) -> list[Any]:
+    where: list[Any] = [Assignment.user_id == user.id]
+    if corpus_id is not None:
+        where.append(Assignment.corpus_id == corpus_id)
+    return where
+
+
+def _dropped(db: Session, user: User, corpus_id: int | None, *extra: Any) -> int:
+    """How many of the user's assignments (meeting ``extra``) are of dropped sentences:
+    driven from the dropped sentences of each corpus (an index range per corpus)."""
+    corpora = [corpus_id] if corpus_id is not None else select(Corpus.id)
+    return db.scalar(
+        select(func.count()).select_from(Sentence)
+        .join(Assignment, (Assignment.sentence_id == Sentence.id)
+              & (Assignment.user_id == user.id))
+        .where(Sentence.corpus_id.in_(corpora), Sentence.state == SENT_DROPPED, *extra)) or 0
+
+
+def queue_counts(db: Session, user: User, corpus_id: int | None = None) -> tuple[int, int]:
+    """(assigned, submitted) of the user's queue, or of its part in one corpus; dropped
+    sentences are not in a queue."""
+    where = _mine(user, corpus_id)
+    total = db.scalar(select(func.count()).select_from(Assignment).where(*where)) or 0
+    total -= _dropped(db, user, corpus_id)
+    # from the user's submitted annotations (index on user and state), each checked against
+    # the queue: O(work handed in), not O(queue)
+    submitted = db.scalar(
+        select(func.count()).select_from(Annotation)
+        .join(Assignment, (Assignment.sentence_id == Annotation.sentence_id)
+              & (Assignment.user_id == Annotation.user_id))
+        .where(Annotation.user_id == user.id, Annotation.state == ANN_SUBMITTED,
+               *where)) or 0
+    return int(total), int(submitted)
+
+
+def queue_page(db: Session, user: User, corpus_id: int | None = None, *,
+               after: str | None = None, before: str | None = None,
+               limit: int = 100) -> QueuePage:
+    """One page of the user's queue in order: the first, or the one ``after`` / ``before`` a
+    cursor."""
+    limit = min(max(limit, 1), 1000)
+    where = _mine(user, corpus_id)
+    key = tuple_(*_QUEUE_KEY)
+    stmt = (
+        select(Assignment.corpus_id, Assignment.rank, Assignment.sentence_id, Corpus.name,
+               Document.name, Sentence.position, Sentence.text, Sentence.state,
+               Annotation.state, Annotation.head, Annotation.flag)
+        .join(Sentence, Sentence.id == Assignment.sentence_id)
+        .join(Document, Document.id == Sentence.document_id)
+        .join(Corpus, Corpus.id == Assignment.corpus_id)
+        .outerjoin(Annotation, (Annotation.sentence_id == Assignment.sentence_id)
+                   & (Annotation.user_id == user.id))
+        .where(*where, Sentence.state != SENT_DROPPED))
+    if before is not None:
+        rows = list(db.execute(stmt.where(key < tuple_(*parse_queue_cursor(before)))
+                               .order_by(*(c.desc() for c in _QUEUE_KEY))
+                               .limit(limit + 1)).all())
+        has_prev, has_next = len(rows) > limit, True
+        rows = rows[:limit][::-1]
+    else:
+        if after is not None:
+            stmt = stmt.where(key > tuple_(*parse_queue_cursor(after)))
+        rows = list(db.execute(stmt.order_by(*_QUEUE_KEY).limit(limit + 1)).all())
+        has_prev, has_next = after is not None, len(rows) > limit
+        rows = rows[:limit]
+    total, submitted = queue_counts(db, user, corpus_id)
+    first_index = 1
+    if rows and has_prev:
+        earlier = key < tuple_(*_key_of(rows[0]))
+        first_index += (db.scalar(select(func.count()).select_from(Assignment)
+                                  .where(*where, earlier)) or 0) \
+            - _dropped(db, user, corpus_id, earlier)
+    items = [QueueItem(sentence_id=r[2], corpus_id=r[0], corpus_name=r[3], document_name=r[4],
+                       position=r[5], text=r[6], sentence_state=r[7], annotation_state=r[8],
+                       head=r[9] or 0, flag=r[10]) for r in rows]
+    return QueuePage(items=items, total=total, submitted=submitted, first_index=first_index,
+                     prev_cursor=queue_cursor(_key_of(rows[0])) if rows and has_prev else None,
+                     next_cursor=queue_cursor(_key_of(rows[-1])) if rows and has_next else None)
+
+
+def _first_open(db: Session, user: User, corpus_id: int | None, *, after: Any = None,
+                upto: Any = None) -> int | None:
+    """The first sentence in queue order (after key ``after``, before key ``upto``) whose own
+    annotation is neither submitted nor flagged."""
+    key = tuple_(*_QUEUE_KEY)
+    stmt = (select(Assignment.sentence_id)
+            .join(Sentence, Sentence.id == Assignment.sentence_id)
+            .outerjoin(Annotation, (Annotation.sentence_id == Assignment.sentence_id)
+                       & (Annotation.user_id == Assignment.user_id))
+            .where(*_mine(user, corpus_id), Sentence.state != SENT_DROPPED,
+                   or_(Annotation.state.is_(None), Annotation.state.not_in(_DONE)))
+            .order_by(*_QUEUE_KEY).limit(1))
+    if after is not None:
+        stmt = stmt.where(key > tuple_(*after))
+    if upto is not None:
+        stmt = stmt.where(key < tuple_(*upto))
+    return db.scalar(stmt)
+
+
+def next_open(db: Session, user: User, corpus_id: int | None = None) -> int | None:
+    """The first sentence of the queue not yet submitted or flagged."""
+    return _first_open(db, user, corpus_id)
 
 
 @dataclass
@@ -323,63 +443,47 @@ class QueuePlace:
 
 
 def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
-    """Where ``sentence_id`` sits in the user's queue; reads ids and states only (the Bench
-    asks on every page load, the queue may hold thousands of sentences)."""
-    rows = db.execute(
-        select(Sentence.id, Annotation.state)
-        .join(Assignment, Assignment.sentence_id == Sentence.id)
-        .join(Document, Document.id == Sentence.document_id)
-        .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
-                   & (Annotation.user_id == user.id))
-        .where(Assignment.user_id == user.id,
-               (Sentence.state != SENT_DROPPED) | (Sentence.id == sentence_id))
-        .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)).all()
-    ids = [r[0] for r in rows]
-    i = ids.index(sentence_id)
-    nxt = None
-    for sid, state in [*rows[i + 1:], *rows[:i]]:
-        if state not in (ANN_SUBMITTED, ANN_FLAGGED):
-            nxt = sid
-            break
-    return QueuePlace(index=i + 1, total=len(ids),
-                      submitted=sum(1 for r in rows if r[1] == ANN_SUBMITTED),
-                      prev_id=ids[i - 1] if i > 0 else None,
-                      next_id=ids[i + 1] if i + 1 < len(ids) else None, next_open_id=nxt)
-
-
-def queue_for(db: Session, user: User, corpus_id: int | None = None) -> Queue:
-    """The user's assigned sentences in reading order (corpus, document, position); dropped
-    sentences are left out."""
-    stmt = (
-        select(Sentence.id, Sentence.corpus_id, Corpus.name, Document.name, Sentence.position,
-               Sentence.text, Sentence.state, Annotation.state, Annotation.head,
-               Annotation.flag)
-        .join(Assignment, Assignment.sentence_id == Sentence.id)
-        .join(Document, Document.id == Sentence.document_id)
-        .join(Corpus, Corpus.id == Sentence.corpus_id)
-        .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
-                   & (Annotation.user_id == user.id))
-        .where(Assignment.user_id == user.id, Sentence.state != SENT_DROPPED)
-        .order_by(Sentence.corpus_id, Document.position, Document.id, Sentence.position)
-    )
-    if corpus_id is not None:
-        stmt = stmt.where(Sentence.corpus_id == corpus_id)
-    items = [QueueItem(sentence_id=r[0], corpus_id=r[1], corpus_name=r[2], document_name=r[3],
-                       position=r[4], text=r[5], sentence_state=r[6], annotation_state=r[7],
-                       head=r[8] or 0, flag=r[9])
-             for r in db.execute(stmt)]
-    return Queue(items=items)
+    """Where ``sentence_id`` sits in the user's queue (it must be assigned to them): a few
+    index lookups, whatever the queue's length (the Bench asks on every page load)."""
+    row = db.execute(select(*_QUEUE_KEY).where(Assignment.user_id == user.id,
+                                               Assignment.sentence_id == sentence_id)).first()
+    if row is None:
+        raise NotFound(f"sentence {sentence_id} is not in your queue")
+    here = _key_of(row)
+    key = tuple_(*_QUEUE_KEY)
+    earlier, later = key < tuple_(*here), key > tuple_(*here)
+    mine = _mine(user, None)
+    before = (db.scalar(select(func.count()).select_from(Assignment).where(*mine, earlier))
+              or 0) - _dropped(db, user, None, earlier)
+    in_queue = (select(Assignment.sentence_id)
+                .join(Sentence, Sentence.id == Assignment.sentence_id)
+                .where(*mine, Sentence.state != SENT_DROPPED))
+    prev_id = db.scalar(in_queue.where(earlier)
+                        .order_by(*(c.desc() for c in _QUEUE_KEY)).limit(1))
+    next_id = db.scalar(in_queue.where(later).order_by(*_QUEUE_KEY).limit(1))
+    open_id = _first_open(db, user, None, after=here)
+    if open_id is None:  # wrap round to the start, stopping before this sentence
+        open_id = _first_open(db, user, None, upto=here)
+    total, submitted = queue_counts(db, user)
+    if db.scalar(select(Sentence.state).where(Sentence.id == sentence_id)) == SENT_DROPPED:
+        total += 1  # a dropped sentence opened by its link: counted while it is shown
+    return QueuePlace(index=before + 1, total=total, submitted=submitted, prev_id=prev_id,
+                      next_id=next_id, next_open_id=open_id)
 
 
 __all__ = [
     "MAX_TREE_CHARS",
-    "Queue",
     "QueueItem",
+    "QueuePage",
     "SaveResult",
     "assigned_sentence",
     "current_revision",
     "own_annotation",
-    "queue_for",
+    "next_open",
+    "parse_queue_cursor",
+    "queue_counts",
+    "queue_cursor",
+    "queue_page",
     "queue_place",
     "revision_view",
     "save_revision",

@@ -29,6 +29,7 @@ from app.models import (
     Event,
     Sentence,
     User,
+    reading_rank,
 )
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
@@ -88,13 +89,15 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
         raise BadInput(f"annotators per sentence must be at least 1, not {needed}")
     people = team(db, usernames)
     result = AssignResult(needed=needed)
-    query = (select(Sentence.id).join(Document, Document.id == Sentence.document_id)
+    query = (select(Sentence.id, Sentence.document_id, Sentence.position)
+             .join(Document, Document.id == Sentence.document_id)
              .where(Sentence.corpus_id == corpus.id, Sentence.state.in_(OPEN_STATES))
              .order_by(Document.position, Document.id, Sentence.position))
     if sentence_ids is not None:
         wanted = set(sentence_ids)
         query = query.where(Sentence.id.in_(wanted))
-    sentences = list(db.scalars(query))
+    places = {sid: reading_rank(doc, pos) for sid, doc, pos in db.execute(query)}
+    sentences = list(places)
     if sentence_ids is not None:
         unknown = wanted - set(sentences)
         if unknown:
@@ -121,7 +124,8 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
                             key=lambda uid: (load[uid], fresh[uid], uid))
         chosen = candidates[:missing]
         for uid in chosen:
-            db.add(Assignment(sentence_id=sid, user_id=uid))
+            db.add(Assignment(sentence_id=sid, user_id=uid, corpus_id=corpus.id,
+                              rank=places[sid]))
             have.add(uid)
             load[uid] += 1
             fresh[uid] += 1

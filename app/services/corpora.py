@@ -12,8 +12,10 @@ Removing a corpus needs its exact name typed as confirmation; the database's ON 
 CASCADE removes documents, sentences, annotations, revisions, gold, grammars and suggestions in
 the same transaction.
 
-Cost: the overview runs one grouped COUNT per query (O(sentences) in the database, no rows
-loaded); a sentence page loads only its rows (LIMIT/OFFSET).
+Cost: counts are read from ``sentence_counts`` (kept by triggers, :mod:`app.counts`): O(documents)
+rows, not O(sentences). A sentence page is a keyset page in reading order (document id, then
+position: see :class:`app.models.Sentence`): an index range of ``per_page`` rows wherever it
+is in the corpus. ``page=N`` (offset) is still accepted by the JSON API and costs O(N).
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from dataclasses import dataclass, field
 from typing import Any, cast
 
 from nltk import Tree
-from sqlalchemy import delete, func, select
+from sqlalchemy import delete, func, select, tuple_
 from sqlalchemy.orm import Session
 
 from app.corpus_settings import (
@@ -44,10 +46,10 @@ from app.models import (
     Event,
     Gold,
     Sentence,
+    SentenceCount,
     User,
 )
 from app.services.errors import BadInput, Conflict, NotFound
-from app.services.paging import PageWindow
 from app.services.transactions import unit_of_work
 
 # Phrase labels of Treebank II bracketing (Bies, Ferguson, Katz and MacIntyre 1995, "Bracketing
@@ -255,16 +257,22 @@ class CorpusCounts:
 
 
 def _state_counts(db: Session, *where: Any) -> dict[tuple[int, str], int]:
-    rows = db.execute(select(Sentence.corpus_id, Sentence.state, func.count())
-                      .where(*where).group_by(Sentence.corpus_id, Sentence.state))
-    return {(cid, state): n for cid, state, n in rows}
+    rows = db.execute(select(SentenceCount.corpus_id, SentenceCount.state,
+                             func.sum(SentenceCount.n))
+                      .where(*where).group_by(SentenceCount.corpus_id, SentenceCount.state))
+    return {(cid, state): int(n or 0) for cid, state, n in rows}
 
 
-def _gold_counts(db: Session, *where: Any) -> dict[int, int]:
-    rows = db.execute(select(Sentence.corpus_id, func.count(func.distinct(Gold.sentence_id)))
-                      .join(Sentence, Sentence.id == Gold.sentence_id)
-                      .where(Gold.retired_at.is_(None), *where).group_by(Sentence.corpus_id))
-    return {cid: n for cid, n in rows}
+def _gold_counts(db: Session, corpus_id: int | None = None) -> dict[int, int]:
+    """Sentences with a current gold tree per corpus. Driven from the gold table (the
+    corpus looked up per gold row): O(gold rows), never a scan of every sentence."""
+    corpus_of = (select(Sentence.corpus_id).where(Sentence.id == Gold.sentence_id)
+                 .scalar_subquery())
+    stmt = (select(corpus_of, func.count(func.distinct(Gold.sentence_id)))
+            .where(Gold.retired_at.is_(None)).group_by(corpus_of))
+    if corpus_id is not None:
+        stmt = stmt.where(corpus_of == corpus_id)
+    return {cid: n for cid, n in db.execute(stmt)}
 
 
 def corpus_overview(db: Session) -> list[CorpusCounts]:
@@ -285,9 +293,9 @@ def corpus_overview(db: Session) -> list[CorpusCounts]:
 
 
 def corpus_counts(db: Session, corpus: Corpus) -> CorpusCounts:
-    states = _state_counts(db, Sentence.corpus_id == corpus.id)
+    states = _state_counts(db, SentenceCount.corpus_id == corpus.id)
     counts = CorpusCounts(corpus=corpus,
-                          gold=_gold_counts(db, Sentence.corpus_id == corpus.id).get(corpus.id, 0),
+                          gold=_gold_counts(db, corpus.id).get(corpus.id, 0),
                           documents=db.scalar(select(func.count()).select_from(Document)
                                               .where(Document.corpus_id == corpus.id)) or 0)
     for state in SENTENCE_STATES:
@@ -303,9 +311,8 @@ class DocumentRow:
 
 
 def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
-    rows = db.execute(select(Sentence.document_id, Sentence.state, func.count())
-                      .where(Sentence.corpus_id == corpus.id)
-                      .group_by(Sentence.document_id, Sentence.state))
+    rows = db.execute(select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n)
+                      .where(SentenceCount.corpus_id == corpus.id))
     per_doc: dict[int, dict[str, int]] = {}
     for doc_id, state, n in rows:
         per_doc.setdefault(doc_id, dict.fromkeys(SENTENCE_STATES, 0))[state] = n
@@ -322,18 +329,60 @@ class SentenceRow:
     assignees: list[str]
 
 
-@dataclass(kw_only=True)
-class SentencePage(PageWindow):
+@dataclass
+class SentencePage:
+    """One page of sentences. Keyset pages carry cursors: ``prev_cursor`` (pass as
+    ``before``) when earlier rows exist, ``next_cursor`` (pass as ``after``) when later ones
+    do; an offset page (``page=N``) has its number instead."""
+
     rows: list[SentenceRow]
+    per_page: int
+    total: int
+    prev_cursor: str | None = None
+    next_cursor: str | None = None
+    page: int | None = None
+
+    @property
+    def pages(self) -> int:
+        return max(1, -(-self.total // self.per_page))
 
 
-def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int = 50,
-                  state: str | None = None, document_id: int | None = None) -> SentencePage:
-    """One page of the corpus's sentences in document order, with who is assigned to each."""
+def sentence_cursor(sentence: Sentence) -> str:
+    """A sentence's place in reading order as a cursor: ``DOCUMENT-POSITION``."""
+    return f"{sentence.document_id}-{sentence.position}"
+
+
+def parse_cursor(cursor: str, what: str = "cursor") -> tuple[int, int]:
+    """The (document id, position) of a cursor, or BadInput saying what is wrong."""
+    parts = cursor.split("-")
+    if len(parts) != 2 or not all(p.isdigit() and len(p) < 19 for p in parts):
+        raise BadInput(f"{what} {cursor[:40]!r} is not of the form DOCUMENT-POSITION "
+                       "(two whole numbers)")
+    return int(parts[0]), int(parts[1])
+
+
+def sentence_count(db: Session, corpus: Corpus, *, state: str | None = None,
+                   document_id: int | None = None) -> int:
+    """How many sentences of the corpus (in ``state``, in the document), from the counts."""
+    where = [SentenceCount.corpus_id == corpus.id]
+    if state:
+        where.append(SentenceCount.state == state)
+    if document_id is not None:
+        where.append(SentenceCount.document_id == document_id)
+    return int(db.scalar(select(func.coalesce(func.sum(SentenceCount.n), 0)).where(*where))
+               or 0)
+
+
+def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
+                  state: str | None = None, document_id: int | None = None,
+                  after: str | None = None, before: str | None = None, last: bool = False,
+                  page: int | None = None) -> SentencePage:
+    """One page of the corpus's sentences in reading order, with who is assigned to each:
+    the first page; the page ``after`` or ``before`` a cursor; the ``last`` page; or (JSON API)
+    offset page number ``page``."""
     if state and state not in SENTENCE_STATES:
         raise BadInput(f"unknown sentence state {state!r}; one of {', '.join(SENTENCE_STATES)}")
     per_page = min(max(per_page, 1), 500)
-    page = max(page, 1)
     where = [Sentence.corpus_id == corpus.id]
     if state:
         where.append(Sentence.state == state)
@@ -342,10 +391,32 @@ def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int =
                                                Document.corpus_id == corpus.id)) is None:
             raise NotFound(f"no document with id {document_id} in corpus {corpus.name!r}")
         where.append(Sentence.document_id == document_id)
-    total = db.scalar(select(func.count()).select_from(Sentence).where(*where)) or 0
-    rows = db.execute(select(Sentence, Document.name).join(Document)
-                      .where(*where).order_by(Document.position, Document.id, Sentence.position)
-                      .limit(per_page).offset((page - 1) * per_page)).all()
+    total = sentence_count(db, corpus, state=state, document_id=document_id)
+    key = tuple_(Sentence.document_id, Sentence.position)
+    stmt = select(Sentence, Document.name).join(Document).where(*where)
+    forward = (Sentence.document_id, Sentence.position)
+    backward = (Sentence.document_id.desc(), Sentence.position.desc())
+    has_prev = has_next = False
+    if page is not None:
+        page = max(page, 1)
+        rows = list(db.execute(stmt.order_by(*forward).limit(per_page)
+                               .offset((page - 1) * per_page)).all())
+        has_prev, has_next = page > 1, (page - 1) * per_page + len(rows) < total
+    elif before is not None:
+        rows = list(db.execute(stmt.where(key < tuple_(*parse_cursor(before, "before")))
+                               .order_by(*backward).limit(per_page + 1)).all())
+        has_prev, has_next = len(rows) > per_page, True
+        rows = rows[:per_page][::-1]
+    elif last:
+        rows = list(db.execute(stmt.order_by(*backward).limit(per_page + 1)).all())
+        has_prev = len(rows) > per_page
+        rows = rows[:per_page][::-1]
+    else:
+        if after is not None:
+            stmt = stmt.where(key > tuple_(*parse_cursor(after, "after")))
+        rows = list(db.execute(stmt.order_by(*forward).limit(per_page + 1)).all())
+        has_prev, has_next = after is not None, len(rows) > per_page
+        rows = rows[:per_page]
     ids = [s.id for s, _ in rows]
     who: dict[int, list[str]] = {}
     if ids:
@@ -354,8 +425,11 @@ def sentence_page(db: Session, corpus: Corpus, *, page: int = 1, per_page: int =
                                         .where(Assignment.sentence_id.in_(ids))
                                         .order_by(User.username)):
             who.setdefault(sid, []).append(username)
-    return SentencePage(rows=[SentenceRow(s, name, who.get(s.id, [])) for s, name in rows],
-                        page=page, per_page=per_page, total=total)
+    return SentencePage(
+        rows=[SentenceRow(s, name, who.get(s.id, [])) for s, name in rows], per_page=per_page,
+        total=total, page=page,
+        prev_cursor=sentence_cursor(rows[0][0]) if rows and has_prev else None,
+        next_cursor=sentence_cursor(rows[-1][0]) if rows and has_next else None)
 
 
 def settings_defaults() -> dict[str, Any]:

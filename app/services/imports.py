@@ -53,6 +53,7 @@ from app.models import (
     Revision,
     Sentence,
     User,
+    reading_rank,
     utcnow,
 )
 from app.services import agreement  # owns what follows a complete set of annotations
@@ -555,7 +556,9 @@ def _add_annotations(db: Session, rows: list[tuple[_Item, Sentence]], ann_user: 
     annotations = []
     for _, sentence in rows:
         if sentence.id not in assigned:
-            db.add(Assignment(sentence_id=sentence.id, user_id=ann_user.id, created_at=now))
+            db.add(Assignment(sentence_id=sentence.id, user_id=ann_user.id, created_at=now,
+                              corpus_id=sentence.corpus_id,
+                              rank=reading_rank(sentence.document_id, sentence.position)))
         annotations.append(Annotation(sentence_id=sentence.id, user_id=ann_user.id,
                                       state=ANN_SUBMITTED, head=1, created_at=now,
                                       updated_at=now, submitted_at=now, comment=""))

@@ -99,10 +99,16 @@ def test_annotation_queue_page_pages_and_filters_by_corpus(db, people, login) ->
     assign(db, long_sentences + other, people.ann1)
     me = login("ann1")
     first = me.client.get("/queue").text
-    assert "page 1 of 2" in first and 'href="/queue?page=2"' in first
+    assert f"1–{PER_PAGE} of {PER_PAGE + 6}" in first and 'rel="prev"' not in first
     assert first.count('class="queue-row') == PER_PAGE
-    second = me.client.get("/queue?page=2").text
-    assert second.count('class="queue-row') == 6
+    later = re.search(r'href="(/queue\?after=[^"]+)" rel="next"', first)
+    assert later is not None
+    second = me.client.get(later.group(1)).text
+    assert second.count('class="queue-row') == 6 and 'rel="next"' not in second
+    assert f"{PER_PAGE + 1}–{PER_PAGE + 6} of {PER_PAGE + 6}" in second
+    earlier = re.search(r'href="(/queue\?before=[^"]+)" rel="prev"', second)
+    assert earlier is not None
+    assert me.client.get(earlier.group(1)).text.count('class="queue-row') == PER_PAGE
     only_other = me.client.get(f"/queue?corpus={other[0].corpus_id}").text
     assert only_other.count('class="queue-row') == 1 and "Second corpus sentence" in only_other
     assert "Other log" in only_other

@@ -30,13 +30,14 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0003")
+    command.downgrade(cfg, "0004")
     engine = create_engine(settings.resolved_database_url)
     try:
+        cols = {c["name"] for c in inspect(engine).get_columns("assignments")}
         tables = set(inspect(engine).get_table_names())
     finally:
         engine.dispose()
-    assert not tables & {"finding_runs", "findings", "finding_verdicts"}
-    assert "gold" in tables
+    assert "rank" not in cols and "user_id" in cols
+    assert "sentence_counts" not in tables and "sentences" in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []

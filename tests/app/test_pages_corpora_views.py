@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 from sqlalchemy import func, select
 
 from app.models import Assignment, Corpus, Sentence
@@ -49,13 +51,26 @@ def test_pages_corpora_admin_creates_corpus(login, db) -> None:
                            ).status_code == 403
 
 
+def _link(html: str, rel: str) -> str:
+    found = re.search(rf'href="([^"]+)" rel="{rel}"', html)
+    assert found is not None, f"no {rel} link"
+    return found.group(1).replace("&amp;", "&")
+
+
 def test_pages_corpora_corpus_page_paginates(login, db) -> None:
     cid = _seed(db, raw=120)
     me = login("ann1")
     first = me.client.get(f"/corpora/{cid}")
-    assert first.status_code == 200 and "page 1 of 3" in first.text
-    third = me.client.get(f"/corpora/{cid}?page=3")
-    assert "Crate 119 waits" in third.text and "Crate 0 waits" not in third.text
+    assert first.status_code == 200 and "50 a page, 3 pages" in first.text
+    assert 'rel="prev"' not in first.text
+    last = me.client.get(_link(first.text, "last"))
+    assert "Crate 119 waits" in last.text and "Crate 0 waits" not in last.text
+    assert 'rel="next"' not in last.text
+    middle = me.client.get(_link(last.text, "prev"))
+    assert "Crate 60 waits" in middle.text and "Crate 119 waits" not in middle.text
+    assert me.client.get(_link(middle.text, "next")).text.count("waits") == \
+        last.text.count("waits")
+    assert me.client.get(f"/corpora/{cid}?after=nonsense").status_code == 422
     gold_only = me.client.get(f"/corpora/{cid}?state=gold")
     assert "Gulls circled" in gold_only.text and "Crate 1 waits" not in gold_only.text
     assert me.client.get("/corpora/999").status_code == 404
