@@ -13,6 +13,7 @@ from typing import Annotated
 
 from fastapi import Depends, HTTPException, Request
 from sqlalchemy.orm import Session
+from starlette.datastructures import FormData
 
 from app.api_errors import AUTH_DEPENDENCY_MARK
 from app.models import ROLE_ADJUDICATOR, ROLE_ADMIN, ROLES, Corpus, Sentence, User, UserSession
@@ -42,8 +43,15 @@ def get_db(request: Request) -> Iterator[Session]:
         db.close()
 
 
+async def posted_form(request: Request) -> FormData:
+    """The request's form, read on the event loop, so the handler itself can be a plain def
+    (run in a worker thread) even when its fields are only known at run time."""
+    return await request.form()
+
+
 SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
 SessionDep = Annotated[Session, Depends(get_db)]
+PostedForm = Annotated[FormData, Depends(posted_form)]
 
 
 @dataclass

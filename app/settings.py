@@ -42,10 +42,14 @@ class Settings(BaseSettings):
     cookie_secure: bool = Field(default=False, description="Mark cookies Secure (set true "
                                 "behind TLS).")
     suggestion_k: int = Field(default=5, description="Number of alternative trees offered.")
-    login_delay_after: int = Field(default=3, description="Failed logins (per account and "
-                                   "address) before each further attempt is delayed.")
-    login_delay_seconds: float = Field(default=2.0, description="Delay per failed login past "
-                                       "the threshold.")
+    login_delay_after: int = Field(default=3, description="Failed logins against one account "
+                                   "(since its last successful login) before each further "
+                                   "attempt at it is delayed.")
+    login_address_delay_after: int = Field(default=20, description="Failed logins from one "
+                                           "address (against any accounts) before each "
+                                           "further attempt from it is delayed.")
+    login_delay_seconds: float = Field(default=2.0, allow_inf_nan=False, description="Delay "
+                                       "per failed login past the threshold.")
     training_in_process: bool = Field(default=False, description="Train grammars in a thread "
                                       "instead of a separate process (tests use this).")
     password_hash_cost: Literal["standard", "test"] = Field(

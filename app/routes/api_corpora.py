@@ -7,7 +7,6 @@ from typing import Any
 
 from fastapi import APIRouter, File, Form, Query, UploadFile
 from pydantic import BaseModel, Field
-from starlette.concurrency import run_in_threadpool
 
 from app.deps import ApiAdjudicator, ApiAdmin, ApiUser, SessionDep
 from app.models import Corpus
@@ -219,17 +218,18 @@ def corpus_sentences(corpus_id: int, login: ApiUser, db: SessionDep,
 
 @router.post("/api/corpora/import", response_model=ImportPublic, status_code=201,
              responses=ERRORS)
-async def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File(...),
-                      corpus_name: str = Form(..., min_length=1, max_length=128),
-                      document_name: str | None = Form(None),
-                      kind: str = Form("text"), tokenizer: str = Form("whitespace"),
-                      annotator: str | None = Form(None),
-                      skip_duplicates: bool = Form(False)) -> ImportPublic:
+def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File(...),
+                corpus_name: str = Form(..., min_length=1, max_length=128),
+                document_name: str | None = Form(None),
+                kind: str = Form("text"), tokenizer: str = Form("whitespace"),
+                annotator: str | None = Form(None),
+                skip_duplicates: bool = Form(False)) -> ImportPublic:
     """Import one file (all or nothing); the corpus is made when it does not exist."""
-    data = await upload.read()
-    # Storing a big file takes seconds: off the event loop, so other requests go on meanwhile.
-    result = await run_in_threadpool(
-        import_bytes, db, data, source=upload.filename or "upload", corpus_name=corpus_name,
+    # A plain def: FastAPI runs it in a worker thread, so reading and storing a big file
+    # (seconds) never holds up the event loop.
+    data = upload.file.read()
+    result = import_bytes(
+        db, data, source=upload.filename or "upload", corpus_name=corpus_name,
         document_name=document_name or None, kind=kind, tokenizer=tokenizer,
         annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     return ImportPublic(

@@ -9,7 +9,7 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from starlette.concurrency import run_in_threadpool
 
 from app.deps import OptionalLogin, PageUser, SessionDep, SettingsDep
-from app.security import SESSION_COOKIE
+from app.security import SESSION_COOKIE, check_password_off_loop
 from app.services import logins
 from app.web import render
 
@@ -39,19 +39,24 @@ def _posted_from_elsewhere(request: Request) -> bool:
 
 
 @router.post("/login", response_class=HTMLResponse)
-async def login_submit(request: Request, db: SessionDep, settings: SettingsDep,
-                       username: str = Form(""), password: str = Form(""),
-                       next: str = Form("/")) -> Response:
+async def login_submit(request: Request, settings: SettingsDep, username: str = Form(""),
+                       password: str = Form(""), next: str = Form("/")) -> Response:
+    # No database session lives across an await: the two database steps open and close their
+    # own in a worker thread, so neither the failure delay nor the password check keeps a
+    # pooled connection, and the event loop itself never waits for one.
     if _posted_from_elsewhere(request):
         return render(request, "login.html", None, status_code=403, next="/",
                       error="This login form was sent from another site; log in here.")
+    factory = request.app.state.sessionmaker
     address = request.client.host if request.client else "unknown"
     username = username.strip()
-    # the database and argon2 (slow on purpose) run off the event loop, so others go on
-    delay = await run_in_threadpool(logins.login_delay_for, db, username, address, settings)
-    if delay:
-        await asyncio.sleep(delay)
-    token = await run_in_threadpool(logins.log_in, db, username, password, address, settings)
+    attempt = await run_in_threadpool(logins.look_up, factory, username, address, settings)
+    if attempt.delay:
+        await asyncio.sleep(attempt.delay)
+    # argon2 is slow on purpose: its own few threads, a bounded number at once
+    account = await check_password_off_loop(attempt.found, password)
+    token = await run_in_threadpool(logins.finish, factory, account, username, address,
+                                    settings)
     if token is None:
         return render(request, "login.html", None, status_code=401, next=_safe_next(next),
                       error="That user name and password do not match an active account.")

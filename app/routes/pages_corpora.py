@@ -13,7 +13,7 @@ from typing import Any
 from fastapi import APIRouter, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 
-from app.deps import Login, PageAdmin, PageUser, SessionDep
+from app.deps import Login, PageAdmin, PageUser, PostedForm, SessionDep
 from app.models import SENTENCE_STATES, Corpus, Sentence
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences, assigned_to
@@ -117,10 +117,9 @@ def corpus_assign(request: Request, corpus_id: int, login: PageAdmin, db: Sessio
 
 
 @router.post("/corpora/{corpus_id}/settings", response_class=HTMLResponse)
-async def corpus_settings(request: Request, corpus_id: int, login: PageAdmin,
-                          db: SessionDep) -> Response:
+def corpus_settings(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
+                    form: PostedForm) -> Response:
     corpus = svc.get_corpus(db, corpus_id)
-    form = await request.form()
     values: dict[str, Any] = {}
     for key, spec in svc.SETTING_SPECS.items():
         if spec.kind is bool:

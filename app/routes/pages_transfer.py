@@ -16,7 +16,6 @@ from urllib.parse import urlencode
 
 from fastapi import APIRouter, File, Form, Request, UploadFile
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
-from starlette.concurrency import run_in_threadpool
 
 from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.services.corpora import corpus_list, document_choices, find_corpus
@@ -53,24 +52,25 @@ def transfer(request: Request, login: PageUser, db: SessionDep,
 
 
 @router.post("/transfer/import", response_class=HTMLResponse)
-async def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
-                          upload: UploadFile = File(...), corpus_name: str = Form(""),
-                          new_corpus: str = Form(""), document_name: str = Form(""),
-                          kind: str = Form("text"), annotator: str = Form(""),
-                          tokenizer: str = Form("whitespace"),
-                          skip_duplicates: bool = Form(False)) -> Response:
+def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
+                    upload: UploadFile = File(...), corpus_name: str = Form(""),
+                    new_corpus: str = Form(""), document_name: str = Form(""),
+                    kind: str = Form("text"), annotator: str = Form(""),
+                    tokenizer: str = Form("whitespace"),
+                    skip_duplicates: bool = Form(False)) -> Response:
+    # a plain def: FastAPI runs it in a worker thread, so reading and storing a big file
+    # (seconds) never holds up the event loop
     form = {"corpus_name": corpus_name, "new_corpus": new_corpus,
             "document_name": document_name, "kind": kind, "annotator": annotator,
             "tokenizer": tokenizer, "skip_duplicates": skip_duplicates}
-    data = await upload.read()
+    data = upload.file.read()
     source = upload.filename or "upload"
     target = new_corpus.strip() or corpus_name.strip()
     try:
         if not target:
             raise BadInput("choose a corpus or type the name of a new one")
-        # storing a big file takes seconds: off the event loop, so other requests go on
-        result = await run_in_threadpool(
-            import_bytes, db, data, source=source, corpus_name=target,
+        result = import_bytes(
+            db, data, source=source, corpus_name=target,
             document_name=document_name.strip() or None, kind=kind, tokenizer=tokenizer,
             annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     except ServiceError as err:

@@ -1,53 +1,68 @@
 """Logging in and out: the failed-login delay, the password check, the session and its events.
 
 What it does
-    :func:`login_delay_for` says how long to wait before answering a login attempt (growing with
-    the recent failures of the account or the address, see :func:`app.security.login_delay`).
-    :func:`log_in` checks the password (argon2, slow on purpose), then either records the failure
-    or clears the failures, starts a session and logs a ``login`` event; :func:`log_out` ends
-    the session and logs ``logout``. Both commit.
+    A login attempt is three steps, so that nothing holds a database connection while it waits
+    or hashes: :func:`look_up` (one short session: the account's id and hash, and the delay
+    owed, see :func:`app.security.login_delay`), then ``app.security.check_password`` (argon2,
+    slow on purpose; no database), then :func:`finish` (one short session: record the failure,
+    or start a session and log a ``login`` event). :func:`log_out` ends the session and logs
+    ``logout``. ``finish`` and ``log_out`` commit.
 
-These functions block (database and argon2): an async route calls them in a worker thread.
-Cost: two counting queries for the delay; one user look-up, one argon2 verify and a few small
-writes for a login.
+``look_up`` and ``finish`` open their own session from the factory they are given and close
+it before returning; an async route runs them in a worker thread and may sleep or hash in
+between without keeping a pooled connection. Cost: one look-up and three counting queries
+for ``look_up``; a few small writes for ``finish``.
 """
 
 from __future__ import annotations
 
-from sqlalchemy.orm import Session
+from dataclasses import dataclass
 
+from sqlalchemy.orm import Session, sessionmaker
+
+from app.db import session_scope
 from app.models import Event, User
 from app.security import (
-    authenticate,
-    clear_failures,
     create_session,
     end_session,
+    failure_counts,
     login_delay,
-    recent_failures,
     record_failure,
+    user_password,
 )
 from app.settings import Settings
 
 
-def login_delay_for(db: Session, username: str, address: str, settings: Settings) -> float:
-    """Seconds to wait before answering this attempt (0 below the failure threshold)."""
-    return login_delay(recent_failures(db, username, address), settings)
+@dataclass(frozen=True)
+class Attempt:
+    """What a login attempt needs before its password check: the active account's id and
+    hash (None for an unknown or disabled name) and the seconds to wait first."""
+
+    found: tuple[int, str] | None
+    delay: float
 
 
-def log_in(db: Session, username: str, password: str, address: str,
+def look_up(factory: sessionmaker[Session], username: str, address: str,
+            settings: Settings) -> Attempt:
+    """The account and the delay owed, read in one short session (closed on return)."""
+    with session_scope(factory) as db:
+        return Attempt(found=user_password(db, username),
+                       delay=login_delay(failure_counts(db, username, address), settings))
+
+
+def finish(factory: sessionmaker[Session], account: int | None, username: str, address: str,
            settings: Settings) -> str | None:
-    """The new session's cookie token, or None (failure recorded) when the user name and
-    password do not match an active account. Commits."""
-    user = authenticate(db, username, password)
-    if user is None:
-        record_failure(db, username, address)
-        db.commit()
-        return None
-    clear_failures(db, username, address)
-    token, _ = create_session(db, user, settings)
-    db.add(Event(user_id=user.id, kind="login", detail={"address": address}))
-    db.commit()
-    return token
+    """The new session's cookie token for ``account`` (the id a password check returned);
+    None, with the failure recorded, when there is none or it was disabled meanwhile.
+    Commits, in one short session of its own."""
+    with session_scope(factory) as db:
+        user = db.get(User, account) if account is not None else None
+        if user is None or not user.active:
+            record_failure(db, username, address)
+            return None
+        token, _ = create_session(db, user, settings)
+        db.add(Event(user_id=user.id, kind="login", detail={"address": address}))
+        return token
 
 
 def log_out(db: Session, user: User, token: str | None) -> None:

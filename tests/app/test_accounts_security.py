@@ -11,7 +11,7 @@ from fastapi.testclient import TestClient
 from sqlalchemy import select
 
 from app.models import LoginFailure, User, UserSession, utcnow
-from app.security import SESSION_COOKIE, login_delay, recent_failures
+from app.security import SESSION_COOKIE, FailureCounts, failure_counts, login_delay
 from tests.app.conftest import PASSWORD
 
 NEW_PASSWORD = "a long pass phrase"
@@ -105,28 +105,50 @@ def test_accounts_delay_counts_per_account_across_addresses(app, people, setting
     for i in range(settings.login_delay_after):
         assert _login(_client(app, f"10.2.0.{i}"), "ann1", "wrong password") == 401
     fresh = "10.2.9.9"
-    assert recent_failures(db, "ann1", fresh) == settings.login_delay_after
-    assert login_delay(recent_failures(db, "ann1", fresh), settings) > 0
+    assert failure_counts(db, "ann1", fresh) == FailureCounts(settings.login_delay_after, 0)
+    assert login_delay(failure_counts(db, "ann1", fresh), settings) > 0
     started = time.monotonic()
     assert _login(_client(app, fresh), "ann1") == 303  # right password: answered, but late
     assert time.monotonic() - started >= 0.3
     # another account from another address owes nothing
-    assert login_delay(recent_failures(db, "ann2", "10.3.0.1"), settings) == 0
+    assert login_delay(failure_counts(db, "ann2", "10.3.0.1"), settings) == 0
 
 
 def test_accounts_delay_counts_per_address_across_accounts(app, people, settings, db) -> None:
     settings.login_delay_seconds = 0.3
+    settings.login_address_delay_after = 3
     address = "10.4.0.7"
-    names = ["ann1", "adj", "nobody-here"][:settings.login_delay_after]
+    names = ["ann1", "adj", "nobody-here"]
     for name in names:  # one failure each, for different (and unknown) accounts
         assert _login(_client(app, address), name, "wrong password") == 401
-    assert recent_failures(db, "ann2", address) == len(names)
+    assert failure_counts(db, "ann2", address) == FailureCounts(0, 3)
     started = time.monotonic()
     assert _login(_client(app, address), "ann2") == 303
     assert time.monotonic() - started >= 0.3
-    # success cleared this address's count; an untouched address never had one
-    assert recent_failures(db, "admin", address) == 0
-    assert login_delay(recent_failures(db, "admin", "10.4.0.8"), settings) == 0
+    # an untouched address never had a count
+    assert login_delay(failure_counts(db, "admin", "10.4.0.8"), settings) == 0
+
+
+def test_accounts_own_login_does_not_clear_the_address_count(app, people, settings,
+                                                             db) -> None:
+    # guessing at ann1 from one address, logging in as yourself between guesses
+    settings.login_delay_seconds = 0.01
+    address = "10.4.1.1"
+    for _ in range(settings.login_delay_after):
+        assert _login(_client(app, address), "ann1", "guess") == 401
+        assert _login(_client(app, address), "ann2") == 303
+    counts = failure_counts(db, "ann1", address)
+    assert counts == FailureCounts(settings.login_delay_after, settings.login_delay_after)
+    assert login_delay(counts, settings) > 0
+
+
+def test_accounts_address_threshold_spares_colleagues(app, people, settings, db) -> None:
+    # a few typing mistakes by colleagues behind one address slow nobody else there
+    address = "10.4.2.2"
+    for name in ["ann1", "adj", "admin"]:
+        assert _login(_client(app, address), name, "typo") == 401
+    assert settings.login_address_delay_after > 3
+    assert login_delay(failure_counts(db, "ann2", address), settings) == 0
 
 
 def test_accounts_old_failures_leave_the_window(app, people, settings, db) -> None:
@@ -134,8 +156,7 @@ def test_accounts_old_failures_leave_the_window(app, people, settings, db) -> No
     db.add_all([LoginFailure(username="ann1", address="10.5.0.1", at=long_ago)
                 for _ in range(10)])
     db.commit()
-    assert recent_failures(db, "ann1", "10.5.0.1") == 0
-    assert login_delay(0, settings) == 0
+    assert failure_counts(db, "ann1", "10.5.0.1") == FailureCounts(0, 0)
 
 
 def test_accounts_wrong_password_and_unknown_user_answer_alike(app, people) -> None:

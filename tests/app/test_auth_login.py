@@ -54,19 +54,20 @@ def test_auth_disabled_user_loses_access(login, db, people) -> None:
 
 
 def test_auth_repeated_failures_are_delayed(app, people, settings, db) -> None:
-    from app.security import login_delay, recent_failures
+    from app.security import failure_counts, login_delay
 
     client = TestClient(app)
     for _ in range(settings.login_delay_after + 1):
         client.post("/login", data={"username": "ann1", "password": "bad"})
-    failures = recent_failures(db, "ann1", "testclient")
-    assert failures == settings.login_delay_after + 1
-    assert login_delay(failures, settings) > 0
-    # a correct login still works (after the delay) and clears the count
+    counts = failure_counts(db, "ann1", "testclient")
+    assert counts.account == counts.address == settings.login_delay_after + 1
+    assert login_delay(counts, settings) > 0
+    # a correct login still works (after the delay) and restarts the account's count only
     ok = client.post("/login", data={"username": "ann1", "password": PASSWORD},
                      follow_redirects=False)
     assert ok.status_code == 303
-    assert recent_failures(db, "ann1", "testclient") == 0
+    after = failure_counts(db, "ann1", "testclient")
+    assert after.account == 0 and after.address == settings.login_delay_after + 1
 
 
 def test_auth_secret_key_file_is_private(tmp_path) -> None:
