@@ -7,8 +7,6 @@ the escapes belong to bracketed text only).
 
 from __future__ import annotations
 
-from parser.trees import unescape_word
-
 
 def plural(count: int, word: str, many: str | None = None) -> str:
     """``count`` and ``word`` in the number that count needs ("1 pair", "2 pairs")."""
@@ -17,4 +15,7 @@ def plural(count: int, word: str, many: str | None = None) -> str:
 
 def as_written(text: str) -> str:
     """``text`` with the bracket escapes of its words undone, for reading."""
+    # imported here: the command line uses plural() and should not load the parser (NLTK)
+    from parser.trees import unescape_word
+
     return unescape_word(text or "")
