@@ -194,12 +194,15 @@ def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
 @click.option("--no-serve", is_flag=True, help="Load the demo and stop.")
 @click.option("--no-train", is_flag=True,
               help="Skip training the first grammar (suggestions come after the first "
-                   "training).")
+                   "training). Otherwise it trains in the background while the pages are "
+                   "served (with --no-serve: in the foreground), its progress printed.")
 @data_dir_option
 def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_train: bool,
          data_dir: Path | None) -> None:
     """Load fresh demo data (invented ferry cooperative), print the logins, then serve."""
     from app.demo.loader import is_demo_database, load_demo
+    from app.demo.progress import ESTIMATE, train_with_progress, watch_in_background
+    from app.services.training import request_training
 
     settings = make_settings(data_dir, host=host, port=port)
     with open_db(settings) as db:
@@ -213,19 +216,37 @@ def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_tra
     if kept:
         click.echo(f"kept a copy of the previous database: {kept}")
     with open_db(settings) as db, friendly_errors():
-        summary = load_demo(db, train=not no_train)
+        summary = load_demo(db, train=False)
+        version_id = None if no_train else request_training(
+            db, summary.corpus_id, reason="demo: first grammar").id
     click.echo(f"demo loaded: {summary.gold} gold trees and {summary.queued} sentences to "
                f"annotate in {len(summary.documents)} documents "
                f"({summary.assignments} assignments)")
-    if summary.grammar:
-        number, status, f1 = summary.grammar
-        score = f", held-out F1 {f1:.3f}" if f1 is not None else ""
-        click.echo(f"grammar version {number}: {status}{score}")
     click.echo("Demo logins (passwords are new on every `treewright demo`):")
     for username, role, password in summary.logins:
-        click.echo(f"  {username:<10} {role:<12} {password}")
-    if not no_serve:
-        _serve(settings, settings.host, settings.port, 1)
+        click.echo(f"  {username:<10} {role:<12} {password:<18} {DEMO_DUTIES.get(role, '')}")
+    if version_id is None:
+        if not no_serve:
+            _serve(settings, settings.host, settings.port, 1)
+        return
+    click.echo(f"Training the first grammar on the {summary.gold} gold trees: {ESTIMATE}.")
+    if no_serve:
+        train_with_progress(settings, version_id, click.echo)
+        return
+    click.echo("The pages are served meanwhile; until the grammar is ready the Bench starts "
+               "from a flat tree and says that suggestions arrive when it is.")
+    watch_in_background(settings, version_id, click.echo)
+    _serve(settings, settings.host, settings.port, 1)
+
+
+#: What each demo login is for, printed beside it.
+DEMO_DUTIES = {
+    "admin": "the adjudicator of this demo: settles disagreements on Review (the other two "
+             "annotate every sentence); also corpora, imports and users",
+    "annotator": "annotates on the Bench",
+    "adjudicator": "annotates; adjudicates only sentences it did not annotate while another "
+                   "adjudicator exists (corpus setting)",
+}
 
 
 # ---------------------------------------------------------------------------------------------

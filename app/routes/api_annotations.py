@@ -44,7 +44,7 @@ from app.schemas.annotation import (
     SuggestionPublic,
 )
 from app.services import annotation as svc
-from app.services import suggestions
+from app.services import suggestions, training
 from app.services.corpora import get_corpus
 
 log = logging.getLogger(__name__)
@@ -91,6 +91,9 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     else:
         start = suggestions.start_tree(sentence, suggestion)
         tree, pins, source, note = start.tree, {}, start.source, start.note
+        if suggestion is None and training.open_job(db, corpus.id) is not None:
+            note = ("The grammar is being trained: suggestions arrive when the grammar is "
+                    "ready (open this sentence again then). Meanwhile this is a flat tree.")
     place = svc.queue_place(db, user, sentence.id)
     sugg_public = _suggestion_public(db, corpus, suggestion)
     editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
