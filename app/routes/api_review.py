@@ -122,7 +122,7 @@ def list_review(login: ApiAdjudicator, db: SessionDep,
 @router.get("/api/review/{sentence_id}", response_model=ReviewPublic, responses=ERRORS)
 def get_review(sentence_id: int, login: ApiAdjudicator, db: SessionDep) -> ReviewPublic:
     """The submitted trees with their annotators, the combined view, figures, gold history."""
-    return detail_public(svc.review_detail(db, sentence_id))
+    return detail_public(svc.review_detail(db, sentence_id, login.user))
 
 
 @router.post("/api/review/{sentence_id}/check", response_model=TreeCheckPublic,
@@ -146,7 +146,7 @@ def settle(sentence_id: int, body: SettleCreate, login: ApiAdjudicator, db: Sess
                source_annotation_id=body.source_annotation_id,
                source_gold_id=body.source_gold_id, note=body.note,
                confirm_labels=body.confirm_labels)
-    return detail_public(svc.review_detail(db, sentence_id))
+    return detail_public(svc.review_detail(db, sentence_id, login.user))
 
 
 @router.post("/api/review/{sentence_id}/reopen", response_model=ReviewPublic,
@@ -155,7 +155,7 @@ def reopen(sentence_id: int, body: ReopenCreate, login: ApiAdjudicator,
            db: SessionDep) -> ReviewPublic:
     """Retire the current gold (it stays in the history) and put the sentence back in review."""
     gold.reopen(db, sentence_id, login.user, note=body.note)
-    return detail_public(svc.review_detail(db, sentence_id))
+    return detail_public(svc.review_detail(db, sentence_id, login.user))
 
 
 @router.get("/api/held", response_model=HeldListPublic)

@@ -77,7 +77,7 @@ def _indented(text: str) -> str:
 @router.get("/review/{sentence_id}", response_class=HTMLResponse)
 def review_page(request: Request, sentence_id: int, login: PageAdjudicator,
                 db: SessionDep) -> HTMLResponse:
-    detail = svc.review_detail(db, sentence_id)
+    detail = svc.review_detail(db, sentence_id, login.user)
     ladder = span_ladder(detail.words, detail.combined, len(detail.trees),
                          title="Combined brackets of " + ", ".join(t.letter for t in detail.trees))
     return render(request, "review.html", login, nav="review", d=detail, ladder=ladder,

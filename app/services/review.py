@@ -59,6 +59,7 @@ from app.models import (
     User,
 )
 from app.schemas.common import UtcDateTime
+from app.services.blind import ensure_not_blind
 from app.services.errors import BadInput, Conflict, Forbidden, NotFound
 from app.services.gold import check_note, current_revision, gold_added, make_gold
 from app.services.validation import validate_tree_text
@@ -271,10 +272,14 @@ def combine(trees: list[ReviewTree]) -> list[CombinedSpan]:
     return out
 
 
-def review_detail(db: Session, sentence_id: int) -> ReviewDetail:
+def review_detail(db: Session, sentence_id: int, viewer: User | None) -> ReviewDetail:
+    """Everything the Review shows of a sentence, for ``viewer`` (None: the command line).
+    Forbidden while the viewer still annotates the sentence (app.services.blind)."""
     sentence = db.get(Sentence, sentence_id)
     if sentence is None:
         raise NotFound(f"no sentence with id {sentence_id}")
+    if viewer is not None:
+        ensure_not_blind(db, sentence.id, viewer)
     corpus = db.get(Corpus, sentence.corpus_id)
     document = db.get(Document, sentence.document_id)
     assert corpus is not None and document is not None  # foreign keys guarantee both
@@ -383,6 +388,7 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     corpus = db.get(Corpus, sentence.corpus_id)
     assert corpus is not None
     note = check_note(note)
+    ensure_not_blind(db, sentence.id, adjudicator)
     if sentence.state != SENT_IN_REVIEW:
         raise Conflict(f"sentence {sentence_id} is {sentence.state}, not in review; "
                        "reopen it first", state=sentence.state)

@@ -42,6 +42,7 @@ from app.models import (
     Sentence,
     User,
 )
+from app.services.blind import unfinished_sentences
 from app.services.errors import BadInput, Forbidden
 from app.services.paging import PageWindow
 from parser.treequery import Fragment, Pattern, QuerySyntaxError, SearchIndex, parse_pattern
@@ -227,11 +228,16 @@ def _matches(db: Session, corpus: Corpus, user: User | None, pattern_text: str, 
                                                            Sentence.state == state)))
     only_user = user.id if scope == SCOPE_ANNOTATIONS and user is not None \
         and not user.can_adjudicate else None
+    # blind annotation: not even an adjudicator sees others' trees of what they still annotate
+    blind = unfinished_sentences(db, user) if scope == SCOPE_ANNOTATIONS and user is not None \
+        and only_user is None else set()
     out = []
     for hit in cached.index.search(pattern):
         key = hit.key
         assert isinstance(key, EntryKey)
         if only_user is not None and key.user_id != only_user:
+            continue
+        if key.sentence_id in blind and key.user_id != user.id:  # type: ignore[union-attr]
             continue
         if allowed is not None and key.sentence_id not in allowed:
             continue

@@ -23,7 +23,7 @@ from typing import Any
 import pytest
 from fastapi.testclient import TestClient
 
-from app.models import GrammarVersion, User
+from app.models import GrammarVersion, Sentence, User
 from tests.app.bench_helpers import assign, flat_text, make_corpus
 from tests.app.conftest import PASSWORD_HASH
 from tests.app.review_helpers import LABELS, SENTENCE, TAGS, TREE_A, TREE_B, submit_tree
@@ -305,3 +305,34 @@ def test_permissions_annotator_never_sees_another_tree_before_review(login, worl
         resp = two.client.get(url, follow_redirects=False)
         assert resp.status_code == 403, url
         assert "VBD left" not in resp.text
+
+
+def test_permissions_dual_role_adjudicator_is_blind_while_annotating(login, world, db,
+                                                                     people) -> None:
+    # the adjudicator is also an annotator of the review sentence and has a draft of it
+    assign(db, [db.get(Sentence, world["review"])], people.adjudicator)
+    one, adj = login("ann1"), login("adj")
+    submit_tree(one, world["review"], TREE_A)
+    draft = adj.client.post(f"/api/bench/{world['review']}/revisions", headers=adj.headers(),
+                            json={"base": 0, "tree": TREE_B})
+    assert draft.status_code == 201, draft.text
+    sid, corpus = world["review"], world["corpus"]
+    for url in (f"/api/review/{sid}", f"/review/{sid}"):
+        resp = adj.client.get(url, follow_redirects=False)
+        assert resp.status_code == 403, url
+        assert "VBD left" not in resp.text and "submit your own tree" in resp.text
+    settle = adj.client.post(f"/api/review/{sid}/settle", headers=adj.headers(),
+                             json={"tree": TREE_A})
+    assert settle.status_code == 403 and "VBD left" not in settle.text
+    for url in (f"/api/corpora/{corpus}/search?pattern=quay&scope=annotations",
+                f"/api/corpora/{corpus}/search/export?pattern=quay&scope=annotations"):
+        found = adj.client.get(url)
+        assert found.status_code == 200, found.text
+        assert "(PP (IN at)" not in found.text  # ann1's tree of the sentence (A has a PP)
+        assert "(ADVP (IN at)" in found.text  # the adjudicator's own draft (B) is theirs
+    # once the adjudicator's own tree is submitted, the others' trees are theirs to see
+    head = draft.json()["annotation"]["head"]
+    assert adj.client.post(f"/api/bench/{sid}/submit", json={"base": head},
+                           headers=adj.headers()).status_code == 200
+    resp = adj.client.get(f"/api/review/{sid}")
+    assert resp.status_code == 200 and "VBD left" in resp.text
