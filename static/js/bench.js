@@ -7,9 +7,10 @@
 
 import * as T from "./treemodel.js";
 import {api, errorText} from "./bench/api.js";
-import {cmd, fitHeight, saveNote, setZoom} from "./bench/commands.js";
+import {cmd, fitHeight, fitWidth, saveNote, setZoom} from "./bench/commands.js";
 import {toggleHelp} from "./bench/dialogs.js";
-import {familiesShown, readFamiliesChoice, render, showFamilies} from "./bench/draw.js";
+import {familiesShown, markViewport, overviewJump, readFamiliesChoice, render, showFamilies,
+  toggleFold} from "./bench/draw.js";
 import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
 import {loadUndo, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
@@ -27,7 +28,7 @@ function wire() {
     help: () => toggleHelp(true), handin: cmd.handIn, "apply-text": cmd.applyText,
     "reset-text": () => { S.textEditing = false; renderText(); },
     families: () => showFamilies(!familiesShown()),
-    history: openHistory,
+    history: openHistory, "fit-width": fitWidth, fold: toggleFold,
   };
   for (const btn of root.querySelectorAll("[data-cmd]")) {
     btn.addEventListener("click", () => actions[btn.dataset.cmd]());
@@ -41,6 +42,8 @@ function wire() {
   $("hold-release").addEventListener("click", () => cmd.release());
   $("readings").addEventListener("keydown", onReadingsKey);
   wireHistory();
+  $("tree-pane").addEventListener("scroll", markViewport, {passive: true});
+  $("overview").addEventListener("click", overviewJump);
   document.addEventListener("keydown", onKey);
   window.addEventListener("beforeunload", (ev) => {
     if (S.dirty) { storeDraft(); ev.preventDefault(); ev.returnValue = ""; }

@@ -14,6 +14,8 @@
 //     onRange: (start, end, done) => {},// drag across words; done=false while dragging (the
 //                                       // view repaints the range itself: do not redraw then)
 //     wordMarks: (i) => null | {classes: [...], title: "..."}, // marks on word i
+//     collapsed: Set of phrase indices drawn folded: the label on the tag row over a
+//                summary of its words (first … last, and how many), its subtree hidden
 //     dropTargets: (ref) => [phrase index, ...], // where a dragged node may go
 //     onDrop: (ref, phraseIndex) => {}, // a node dragged onto a phrase (offered or not)
 //   });
@@ -63,31 +65,57 @@ export function defaultWordText(word) {
   return word.replace(/-LRB-/g, "(").replace(/-RRB-/g, ")");
 }
 
-// Positions of every node; pure arithmetic apart from text measuring.
-export function layoutTree(tree, wordText = defaultWordText) {
+// The words of a folded phrase in one short line.
+function summary(tags, first, last, wordText) {
+  const n = last - first + 1;
+  if (n <= 2) return tags.slice(first, last + 1).map((t) => wordText(t.word)).join(" ");
+  return `${wordText(tags[first].word)} … ${wordText(tags[last].word)} (${n} words)`;
+}
+
+// Positions of every node; pure arithmetic apart from text measuring. Nodes inside a folded
+// phrase are `hidden`; their words share the folded phrase's column.
+export function layoutTree(tree, wordText = defaultWordText, collapsed = null) {
   const tags = [];
   const phrases = [];
+  const blocks = new Map();   // first word of a folded phrase -> {phrase, first, last}
   let height = 1;
-  (function walk(node) {
+  (function walk(node, hidden) {
     if (isPreterminal(node)) {
-      tags.push({label: node.label, word: node.word, index: tags.length});
-      return {h: 1, first: tags.length - 1, last: tags.length - 1, kind: "tag",
-        index: tags.length - 1};
+      tags.push({label: node.label, word: node.word, index: tags.length, hidden});
+      return {h: 1, kind: "tag", index: tags.length - 1};
     }
-    const me = {label: node.label, index: phrases.length, kids: []};
+    const me = {label: node.label, index: phrases.length, kids: [], hidden};
     phrases.push(me);
+    me.collapsed = !hidden && !!collapsed && collapsed.has(me.index);
+    const first = tags.length;
     let h = 1;
     for (const c of node.children) {
-      const r = walk(c);
+      const r = walk(c, hidden || me.collapsed);
       me.kids.push(r);
       h = Math.max(h, r.h + 1);
     }
-    me.h = h;
-    height = Math.max(height, h);
-    return {h, kind: "phrase", index: me.index};
-  })(tree);
+    me.h = me.collapsed ? 1 : h;
+    if (me.collapsed) blocks.set(first, {phrase: me, first, last: tags.length - 1});
+    if (!hidden) height = Math.max(height, me.h);
+    return {h: me.h, kind: "phrase", index: me.index};
+  })(tree, false);
   let x = MARGIN;
-  for (const t of tags) {
+  for (let i = 0; i < tags.length; i++) {
+    const block = blocks.get(i);
+    if (block) {
+      const p = block.phrase;
+      p.summary = summary(tags, block.first, block.last, wordText);
+      p.w = textWidth(`${p.label} ▸`, LABEL_FONT) + 2 * BOX_PAD;
+      const col = Math.max(textWidth(p.summary, WORD_FONT), p.w) + COL_GAP;
+      for (let k = block.first; k <= block.last; k++) {
+        Object.assign(tags[k], {left: x, right: x + col, x: x + col / 2, w: 0});
+      }
+      p.x = x + col / 2;
+      x += col;
+      i = block.last;
+      continue;
+    }
+    const t = tags[i];
     const ww = textWidth(wordText(t.word), WORD_FONT);
     const tw = textWidth(t.label, LABEL_FONT) + 2 * BOX_PAD;
     const col = Math.max(ww, tw) + COL_GAP;
@@ -104,8 +132,9 @@ export function layoutTree(tree, wordText = defaultWordText) {
   const xOf = (r) => (r.kind === "tag" ? tags[r.index].x : phrases[r.index].x);
   for (let k = phrases.length - 1; k >= 0; k--) {
     const p = phrases[k];
-    p.x = (xOf(p.kids[0]) + xOf(p.kids[p.kids.length - 1])) / 2;
     p.y = rowY(p.h);
+    if (p.collapsed) continue;
+    p.x = (xOf(p.kids[0]) + xOf(p.kids[p.kids.length - 1])) / 2;
     p.w = textWidth(p.label || "\u00a0", LABEL_FONT) + 2 * BOX_PAD;
   }
   return {tags, phrases, width: x + MARGIN, height: wordY + 24, wordY};
@@ -114,8 +143,8 @@ export function layoutTree(tree, wordText = defaultWordText) {
 export function drawTree(container, tree, options = {}) {
   const opts = {marks: () => null, selected: null, range: null, zoom: 1,
     wordText: defaultWordText, onSelect: null, onActivate: null, onRange: null,
-    wordMarks: () => null, dropTargets: null, onDrop: null, ...options};
-  const L = layoutTree(tree, opts.wordText);
+    wordMarks: () => null, dropTargets: null, onDrop: null, collapsed: null, ...options};
+  const L = layoutTree(tree, opts.wordText, opts.collapsed);
   const spans = spansOf(tree);
   const svg = el("svg", {
     class: "tw-tree", viewBox: `0 0 ${L.width} ${L.height}`,
@@ -145,6 +174,12 @@ export function drawTree(container, tree, options = {}) {
   // connectors: a stem below the parent, a bar across its children, a drop to each child
   const top = (r) => (r.kind === "tag" ? L.tags[r.index] : L.phrases[r.index]);
   for (const p of L.phrases) {
+    if (p.hidden) continue;
+    if (p.collapsed) {
+      el("path", {d: `M${p.x} ${p.y + BOX_H / 2}V${L.wordY - 14}`,
+        class: "tw-edge tw-edge-word"}, gEdges);
+      continue;
+    }
     const barY = p.y + BOX_H / 2 + 8;
     const first = top(p.kids[0]);
     const last = top(p.kids[p.kids.length - 1]);
@@ -157,6 +192,7 @@ export function drawTree(container, tree, options = {}) {
     el("path", {d, class: "tw-edge"}, gEdges);
   }
   for (const t of L.tags) {
+    if (t.hidden) continue;
     el("path", {d: `M${t.x} ${t.y + BOX_H / 2}V${L.wordY - 14}`, class: "tw-edge tw-edge-word"},
       gEdges);
   }
@@ -169,6 +205,7 @@ export function drawTree(container, tree, options = {}) {
       ...(mark.classes || [])];
     if (mark.pinned) classes.push("tw-pinned");
     if (isSel(kind, index)) classes.push("tw-selected");
+    if (item.collapsed) classes.push("tw-collapsed");
     const g = el("g", {class: classes.join(" "), "data-kind": kind, "data-index": index}, gNodes);
     const x = item.x - item.w / 2;
     const y = item.y - BOX_H / 2;
@@ -190,10 +227,19 @@ export function drawTree(container, tree, options = {}) {
     });
     g.addEventListener("dblclick", (ev) => opts.onActivate && opts.onActivate(ref, ev));
   };
-  for (const p of L.phrases) drawBox("phrase", p.index, p, p.label);
-  for (const t of L.tags) drawBox("tag", t.index, t, t.label);
+  for (const p of L.phrases) {
+    if (!p.hidden) drawBox("phrase", p.index, p, p.collapsed ? `${p.label} ▸` : p.label);
+  }
+  for (const t of L.tags) if (!t.hidden) drawBox("tag", t.index, t, t.label);
 
+  for (const p of L.phrases) {
+    if (!p.collapsed) continue;
+    const text = el("text", {class: "tw-word-text tw-summary", x: p.x, y: L.wordY,
+      "text-anchor": "middle"}, gWords);
+    text.textContent = p.summary;
+  }
   for (const t of L.tags) {
+    if (t.hidden) continue;
     const wm = opts.wordMarks(t.index) || {};
     const g = el("g", {class: ["tw-word", ...(wm.classes || [])].join(" "),
       "data-index": t.index}, gWords);
@@ -211,7 +257,7 @@ export function drawTree(container, tree, options = {}) {
       rangeBand.setAttribute("x", colLeft(range[0]));
       rangeBand.setAttribute("width", colRight(range[1] - 1) - colLeft(range[0]));
     }
-    for (const g of gWords.children) {
+    for (const g of gWords.querySelectorAll("g.tw-word")) {
       const i = Number(g.getAttribute("data-index"));
       g.classList.toggle("tw-in-range", !!range && i >= range[0] && i < range[1]);
     }
@@ -268,8 +314,13 @@ export function drawTree(container, tree, options = {}) {
     svg, width: L.width, height: L.height, box,
     // scroll the container so that a node is visible
     reveal(ref) {
-      const b = box(ref);
+      let b = box(ref);
       if (!b) return;
+      // a POS tag is shown with its word: keep both on screen
+      if (ref.kind === "tag") {
+        const t = L.tags[ref.index];
+        b = {x: t.left, w: t.right - t.left, y: b.y, h: L.wordY + 8 - b.y};
+      }
       const z = opts.zoom;
       const left = b.x * z - container.clientWidth / 2 + (b.w * z) / 2;
       const topY = b.y * z - container.clientHeight / 2;

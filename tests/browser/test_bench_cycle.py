@@ -75,6 +75,7 @@ def click_phrase(page, tree_text: str, label: str, start: int, end: int) -> None
 
 
 def drag_words(page, first: int, last: int) -> None:
+    page.locator(f"#tree-pane g.tw-word[data-index='{first}'] text").scroll_into_view_if_needed()
     a = page.locator(f"#tree-pane g.tw-word[data-index='{first}'] text").bounding_box()
     b = page.locator(f"#tree-pane g.tw-word[data-index='{last}'] text").bounding_box()
     page.mouse.move(a["x"] + a["width"] / 2, a["y"] + a["height"] / 2)

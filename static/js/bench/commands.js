@@ -271,9 +271,15 @@ export async function go(id) {
 }
 
 export function setZoom(z) {
-  S.zoom = Math.min(3, Math.max(0.3, z));
+  S.zoom = Math.min(3, Math.max(0.1, z));
   $("zoom-level").textContent = `${Math.round(S.zoom * 100)}%`;
   render();
+}
+
+// w: the whole width of the tree in the pane (never below the smallest zoom).
+export function fitWidth() {
+  const pane = $("tree-pane");
+  if (S.view) setZoom((pane.clientWidth - 8) / S.view.width);
 }
 
 // A deep tree starts zoomed out so that its words are on screen (never below 55%).

@@ -5,6 +5,7 @@ import * as T from "../treemodel.js";
 import {drawTree} from "../treeview.js";
 import {cmd} from "./commands.js";
 import {select} from "./navigate.js";
+import {say} from "./status.js";
 import {renderReadings, renderSide, renderText} from "./side.js";
 import {$, S, UNSURE, WEAK, root} from "./state.js";
 
@@ -104,9 +105,96 @@ export function moveTargets(ref) {
   return T.reattachTargets(S.tree, ref, (s) => T.isSpanPinned(S.pins, s));
 }
 
+const spanKey = (s) => `${s.label} ${s.start} ${s.end}`;
+
+// Folded phrases by index; a chosen node inside a folded phrase unfolds it, so that what is
+// chosen is always drawn.
+function foldedIndices() {
+  if (!S.folded.size) return null;
+  const out = new Set();
+  S.spans.forEach((s, k) => { if (k > 0 && S.folded.has(spanKey(s))) out.add(k); });
+  if (S.sel) {
+    const [a, b] = S.sel.kind === "phrase" ? [S.spans[S.sel.index].start,
+      S.spans[S.sel.index].end] : [S.sel.index, S.sel.index + 1];
+    for (const k of [...out]) {
+      const s = S.spans[k];
+      const inside = s.start <= a && b <= s.end && !(S.sel.kind === "phrase" && S.sel.index === k);
+      if (inside && (S.sel.kind === "tag" || isAbove(k, S.sel.index))) {
+        out.delete(k);
+        S.folded.delete(spanKey(s));
+      }
+    }
+  }
+  return out;
+}
+
+function isAbove(k, index) {
+  for (let p = S.spans[index].parent; p >= 0; p = S.spans[p].parent) if (p === k) return true;
+  return false;
+}
+
+// z: fold or unfold the chosen phrase (a view change, not an edit: nothing is saved).
+export function toggleFold() {
+  if (!S.sel || S.sel.kind !== "phrase" || S.sel.index === 0) {
+    say("Choose a constituent below the root to fold.", "warn");
+    return;
+  }
+  const k = spanKey(S.spans[S.sel.index]);
+  if (S.folded.has(k)) S.folded.delete(k); else S.folded.add(k);
+  render();
+}
+
+// The overview: the whole tree small above the pane, the part on screen framed; a click
+// there scrolls the pane to that place. Shown only when the tree is wider than the pane.
+function renderOverview() {
+  const box = $("overview");
+  const pane = $("tree-pane");
+  const wide = S.view.width * S.zoom > pane.clientWidth + 2;
+  box.hidden = !wide;
+  if (!wide) { box.replaceChildren(); return; }
+  const svg = S.view.svg.cloneNode(true);
+  svg.removeAttribute("width");
+  svg.removeAttribute("height");
+  svg.removeAttribute("role");
+  svg.setAttribute("aria-hidden", "true");
+  svg.setAttribute("preserveAspectRatio", "xMinYMid meet");
+  svg.classList.add("tw-overview");
+  delete svg.dataset.tree;
+  const frame = document.createElementNS("http://www.w3.org/2000/svg", "rect");
+  frame.setAttribute("class", "tw-viewport");
+  svg.appendChild(frame);
+  box.replaceChildren(svg);
+  markViewport();
+}
+
+export function markViewport() {
+  const frame = $("overview").querySelector("rect.tw-viewport");
+  if (!frame) return;
+  const pane = $("tree-pane");
+  const z = S.zoom;
+  frame.setAttribute("x", pane.scrollLeft / z);
+  frame.setAttribute("y", pane.scrollTop / z);
+  frame.setAttribute("width", Math.min(S.view.width, pane.clientWidth / z));
+  frame.setAttribute("height", Math.min(S.view.height, pane.clientHeight / z));
+}
+
+export function overviewJump(ev) {
+  const svg = $("overview").querySelector("svg");
+  if (!svg) return;
+  const pt = svg.createSVGPoint();
+  pt.x = ev.clientX;
+  pt.y = ev.clientY;
+  const p = pt.matrixTransform(svg.getScreenCTM().inverse());
+  const pane = $("tree-pane");
+  pane.scrollLeft = Math.max(0, p.x * S.zoom - pane.clientWidth / 2);
+  pane.scrollTop = Math.max(0, p.y * S.zoom - pane.clientHeight / 2);
+  markViewport();
+}
+
 export function render() {
   S.view = drawTree($("tree-pane"), S.tree, {
     marks, wordMarks, selected: S.sel, range: S.range, zoom: S.zoom,
+    collapsed: foldedIndices(),
     onSelect: (ref) => { select(ref); },
     onActivate: (ref) => { select(ref); cmd.relabel(); },
     onRange: (a, b, done) => {
@@ -122,6 +210,7 @@ export function render() {
     onDrop: (ref, target) => { cmd.reattach(ref, target); },
   });
   if (S.sel) S.view.reveal(S.sel);
+  renderOverview();
   renderSide();
   renderText();
   renderReadings();

@@ -1,9 +1,9 @@
 // bench/keys.js: the keyboard: one handler for the tree and one for the readings list.
 
-import {cmd, go, saveNote, setZoom} from "./commands.js";
+import {cmd, fitWidth, go, saveNote, setZoom} from "./commands.js";
 import {toggleHelp} from "./dialogs.js";
 import {openHistory} from "./history.js";
-import {familiesShown, posteriorOf, render, showFamilies} from "./draw.js";
+import {familiesShown, posteriorOf, render, showFamilies, toggleFold} from "./draw.js";
 import {extendRange, move, select, step} from "./navigate.js";
 import {renderText} from "./side.js";
 import {$, S, UNSURE, root} from "./state.js";
@@ -69,6 +69,8 @@ export function onKey(ev) {
   else if (k === "}") cmd.edge("end", -1);
   else if (k === "p") cmd.pin();
   else if (k === "v") openHistory();
+  else if (k === "w") fitWidth();
+  else if (k === "z") toggleFold();
   else if (k === "f") showFamilies(!familiesShown());
   else if (k === "m" || (k === "Enter" && S.carry)) cmd.carry();
   else if (k === "g") cmd.regrow();

@@ -43,5 +43,6 @@ export const S = {
   view: null,
   modal: null,
   unseen: new Set(),  // positions of words the grammar never saw
-  carry: null,        // a node taken to be moved: {ref, targets: Set of phrase indices}
+  carry: null,
+  folded: new Set(),  // "label start end" of the phrases drawn folded        // a node taken to be moved: {ref, targets: Set of phrase indices}
 };
