@@ -41,8 +41,13 @@ Writing (:func:`write_tree`, :func:`write_trees`)
     below the root.
 
 Limits
-    The reader is iterative and takes any depth; the writer and the tree operations recurse,
-    so trees deeper than about 900 levels hit Python's recursion limit.
+    The reader is iterative, and it refuses brackets nested more than :data:`MAX_DEPTH` (300)
+    levels deep with a :class:`BracketSyntaxError` at the bracket that goes too deep (line and
+    column). That is the door every tree of the service comes in by (saves, review, imports),
+    and it is what keeps the routines that recurse over a tree (the writer, the transforms,
+    scoring, binarization, NLTK's own ``Tree`` methods) far from Python's recursion limit of
+    about 1,000 frames. Hand-annotated trees are a few dozen levels deep (common practice, no
+    source), so the limit refuses only broken or hostile input.
 """
 
 from __future__ import annotations
@@ -56,7 +61,10 @@ from nltk import Tree
 
 from parser.errors import BracketSyntaxError, ParserError
 
+MAX_DEPTH = 300  # levels of brackets a tree may nest (see Limits above)
+
 __all__ = [
+    "MAX_DEPTH",
     "UNKNOWN_TAG",
     "TreeError",
     "constituents",
@@ -159,6 +167,9 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
         return BracketSyntaxError(message, line, column, expected=expected, source=source)
 
     for i, (tag, word, label, close, bare) in enumerate(tokens):
+        if len(stack) >= MAX_DEPTH and not close and not bare:
+            raise fail(i, f"brackets nested more than {MAX_DEPTH} levels deep; the deepest "
+                          "tree accepted has that many levels", "')'")
         if single and trees and not stack and not close:
             raise fail(i, "text after the tree: only one tree was wanted", "end of input")
         if tag:

@@ -44,6 +44,7 @@ from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
 from app.services.transactions import unit_of_work
 from app.wording import plural
+from parser.errors import ParserError
 from parser.trees import read_tree, strip_function_tags, write_tree
 
 PART_NAMES = ("train", "dev", "test")
@@ -161,11 +162,21 @@ def gold_items(db: Session, corpus: Corpus, document_id: int | None = None) -> l
     return list(latest.values())
 
 
+def _stripped(item: GoldItem) -> str:
+    try:
+        return write_tree(strip_function_tags(read_tree(item.tree)))
+    except ParserError as err:  # stored before the reader's depth limit (parser.trees)
+        raise BadInput(f"the gold tree of sentence {item.sentence_id} cannot be exported "
+                       f"without function tags: {err}; reopen it and settle a shallower "
+                       "tree, or export with function tags", kind="tree",
+                       sentence_id=item.sentence_id) from err
+
+
 def _render(items: list[GoldItem], function_tags: bool) -> str:
     if function_tags:
         lines = [item.tree for item in items]
     else:
-        lines = [write_tree(strip_function_tags(read_tree(item.tree))) for item in items]
+        lines = [_stripped(item) for item in items]
     return "".join(line + "\n" for line in lines)
 
 

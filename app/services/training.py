@@ -93,6 +93,7 @@ from app.services.findings import fail_interrupted_runs, run_finder
 from app.services.findings import queue_run as queue_findings
 from app.services.suggestions import refresh_unstarted
 from app.settings import Settings
+from parser.errors import ParserError
 from parser.grammar import Grammar, train_grammar
 from parser.scoring import score_corpus
 from parser.trees import drop_empty_elements, read_tree, words
@@ -223,7 +224,13 @@ def load_gold(db: Session, corpus_id: int) -> list[GoldTree]:
         latest[sid] = text  # the newest current row wins (there should be one)
     out = []
     for sid, text in latest.items():
-        tree = drop_empty_elements(read_tree(text))
+        try:
+            tree = drop_empty_elements(read_tree(text))
+        except ParserError as err:
+            # stored before the reader's depth limit (parser.trees.MAX_DEPTH): left out of
+            # training so one such tree cannot fail every retraining of the corpus
+            log.warning("gold of sentence %s left out of training: %s", sid, err)
+            continue
         if tree is not None and words(tree):
             out.append(GoldTree(sid, rooted(tree)))
     return out

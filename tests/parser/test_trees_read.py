@@ -50,10 +50,13 @@ def test_read_trees_label_may_follow_blank_after_bracket():
     assert read_tree("( S ( NP x ) )") == Tree("S", [Tree("NP", ["x"])])
 
 
-def test_read_trees_takes_deep_trees_without_recursion():
-    depth = 5000
+def test_read_trees_reads_up_to_its_depth_limit_without_recursion():
+    # the reader is iterative; it stops at the documented limit (test_trees_depth.py)
+    from parser.trees import MAX_DEPTH
+
+    depth = MAX_DEPTH - 1
     tree = read_tree("(X " * depth + "(T w)" + ")" * depth)
-    assert tree.label() == "X"
+    assert tree.label() == "X" and tree.height() == MAX_DEPTH + 1
 
 
 def test_iter_trees_reads_a_file_handle_lazily():
