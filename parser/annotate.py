@@ -26,7 +26,7 @@ def _vp_head(node: Tree, ancestors: Sequence[str], parent: Tree) -> str:
         return ""
     for child in node:
         if isinstance(child, Tree) and len(child) == 1 and isinstance(child[0], str):
-            tag = child.label()
+            tag = str(child.label())
             if tag in ("VBD", "VBZ", "VBP"):
                 return "fin"
             if tag in _VERB_TAGS:

@@ -160,7 +160,7 @@ def rare_labels(trees: Iterable[Tree], min_count: int) -> Callable[[str], bool]:
 
 def _annotated(node: Tree, ancestors: tuple[str, ...], parent: Tree | None,
                st: _Settings) -> str:
-    label = node.label()
+    label = str(node.label())
     check_label(label)
     depth = st.tag_ancestors + 1 if is_preterminal(node) else st.vertical
     annotators = st.annotators if parent is not None else ()

@@ -31,6 +31,7 @@ import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from nltk import Tree
@@ -335,7 +336,7 @@ class _Chart:
     def viterbi_tree(self, words: Sequence[str]) -> Tree:
         """The best derivation's tree, built without recursion (any sentence length)."""
         holder: list[Tree] = []
-        todo: list[tuple[int, int, int, list]] = [(0, self.p.n, self.g.start, holder)]
+        todo: list[tuple[int, int, int, list[Any]]] = [(0, self.p.n, self.g.start, holder)]
         while todo:
             i, k, a, out = todo.pop()
             s = self.p.sid[i, k]

@@ -10,6 +10,7 @@ import json
 from pathlib import Path
 
 import click
+from nltk import Tree
 
 from parser.errors import BracketSyntaxError
 from parser.scoring import (
@@ -22,7 +23,7 @@ from parser.scoring import (
 from parser.trees import read_trees
 
 
-def _read(path: Path) -> list:
+def _read(path: Path) -> list[Tree]:
     try:
         return read_trees(path.read_text(encoding="utf-8"), source=str(path))
     except BracketSyntaxError as err:

@@ -40,6 +40,7 @@ from collections import Counter
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from nltk import Tree
@@ -114,7 +115,7 @@ class Grammar:
                  bin_logp: np.ndarray, un_parent: np.ndarray, un_child: np.ndarray,
                  un_chain: np.ndarray, un_logp: np.ndarray, chains: Sequence[Sequence[str]],
                  lex_symbols: np.ndarray, lex_logp: np.ndarray, vocab: Sequence[str],
-                 signatures: Sequence[str], meta: dict | None = None) -> None:
+                 signatures: Sequence[str], meta: dict[str, Any] | None = None) -> None:
         self.symbols: tuple[str, ...] = tuple(symbols)
         self.start = int(start)
         self.bin_parent = _frozen(bin_parent, np.int32)
@@ -130,7 +131,7 @@ class Grammar:
         self.lex_logp = _frozen(lex_logp, np.float64)
         self.vocab: tuple[str, ...] = tuple(vocab)
         self.signatures: tuple[str, ...] = tuple(signatures)
-        self.meta: dict = dict(meta or {})
+        self.meta: dict[str, Any] = dict(meta or {})
         self._validate()
         self._derive()
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from nltk import Nonterminal
@@ -37,7 +38,7 @@ def to_nltk(g: Grammar, sentences: Sequence[Sequence[str]]) -> tuple[PCFG, list[
 
     prods: list[ProbabilisticProduction] = []
 
-    def add(lhs: Nonterminal, rhs: tuple, logp: float) -> None:
+    def add(lhs: Nonterminal, rhs: tuple[Any, ...], logp: float) -> None:
         prods.append(ProbabilisticProduction(lhs, rhs, logprob=logp / _LOG2))
 
     for e, (a, b, lp) in enumerate(zip(g.un_parent, g.un_child, g.un_logp, strict=True)):

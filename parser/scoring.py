@@ -161,7 +161,7 @@ class Counts:
                 "matched": self.matched, "gold": self.gold, "test": self.test}
 
 
-def _compare(gold: Counter, test: Counter) -> Counts:
+def _compare(gold: Counter[Any], test: Counter[Any]) -> Counts:
     matched = sum((gold & test).values())
     return Counts(matched, sum(gold.values()), sum(test.values()))
 
@@ -328,7 +328,7 @@ def _kept_before(gold_tags: list[str], options: ScoringOptions) -> list[int]:
     return kept
 
 
-def _triples(nodes: list[_Node], kept: list[int], options: ScoringOptions) -> Counter:
+def _triples(nodes: list[_Node], kept: list[int], options: ScoringOptions) -> Counter[Any]:
     """The counted constituents as a multiset of ``(label, start, end)``."""
     first = 0  # the outermost nodes labelled ROOT, TOP or "" are skipped
     while first < len(nodes):
@@ -338,7 +338,7 @@ def _triples(nodes: list[_Node], kept: list[int], options: ScoringOptions) -> Co
         first += 1
         if children != 1:
             break
-    out: Counter = Counter()
+    out: Counter[Any] = Counter()
     for label, start, end, preterminal, _ in nodes[first:]:
         if preterminal and not options.count_preterminals:
             continue
@@ -350,8 +350,8 @@ def _triples(nodes: list[_Node], kept: list[int], options: ScoringOptions) -> Co
     return out
 
 
-def _spans(triples: Counter, multiset: bool) -> Counter:
-    spans: Counter = Counter()
+def _spans(triples: Counter[Any], multiset: bool) -> Counter[Any]:
+    spans: Counter[Any] = Counter()
     for (_, start, end), count in triples.items():
         spans[(start, end)] += count if multiset else 1
     if not multiset:
@@ -359,7 +359,7 @@ def _spans(triples: Counter, multiset: bool) -> Counter:
     return spans
 
 
-def _per_label(gold: Counter, test: Counter) -> dict[str, Counts]:
+def _per_label(gold: Counter[Any], test: Counter[Any]) -> dict[str, Counts]:
     counts: dict[str, list[int]] = {}
     for index, triples in enumerate((gold & test, gold, test)):
         for (label, _, _), n in triples.items():
@@ -367,7 +367,7 @@ def _per_label(gold: Counter, test: Counter) -> dict[str, Counts]:
     return {label: Counts(*c) for label, c in counts.items()}
 
 
-def _crossing(gold: Counter, test: Counter) -> int:
+def _crossing(gold: Counter[Any], test: Counter[Any]) -> int:
     """Test brackets (with multiplicity) that cross some gold bracket. Gold brackets nest, so a
     test span that is also a gold span crosses none and is not checked."""
     gold_list = list(gold)
@@ -381,8 +381,8 @@ def _crossing(gold: Counter, test: Counter) -> int:
 
 
 class _Prepared(NamedTuple):
-    gold: Counter
-    test: Counter
+    gold: Counter[Any]
+    test: Counter[Any]
     gold_tags: list[str]
     test_tags: list[str]
     kept: list[int]
@@ -462,7 +462,7 @@ def label_confusions(gold: Tree, test: Tree,
     """
     options = options or DEFAULT_OPTIONS
     gold_triples, test_triples = _prepare(gold, test, options)[:2]
-    by_span: dict[tuple[int, int], tuple[Counter, Counter]] = {}
+    by_span: dict[tuple[int, int], tuple[Counter[Any], Counter[Any]]] = {}
     for side, triples in ((0, gold_triples), (1, test_triples)):
         for (label, start, end), count in triples.items():
             by_span.setdefault((start, end), (Counter(), Counter()))[side][label] += count

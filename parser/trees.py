@@ -56,6 +56,7 @@ import gc
 import re
 from collections.abc import Iterable, Iterator, Sequence
 from itertools import islice
+from typing import Any
 
 from nltk import Tree
 
@@ -156,7 +157,7 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
     trees: list[Tree] = []
     # one entry per open bracket: [label, children, token index of the "(",
     #                              token index of the bare word among the children or -1]
-    stack: list[list] = []
+    stack: list[list[Any]] = []
     # Tree.__init__ only stores the label and the children, with type checks that cannot fail
     # here; doing it directly makes reading about twice as fast.
     new = Tree.__new__
@@ -390,7 +391,7 @@ def is_preterminal(node: object) -> bool:
 
 def words(tree: Tree) -> list[str]:
     """The leaves, left to right."""
-    return tree.leaves()
+    return [str(leaf) for leaf in tree.leaves()]
 
 
 def pos_tags(tree: Tree) -> list[str]:
@@ -507,11 +508,11 @@ def tree_from_spans(word_list: Sequence[str], tags: Sequence[str] | None,
         raise TreeError("with root=None one span must cover all the words")
 
     # open nodes as (label, start, end, children); spans arrive sorted by start, longest first
-    stack: list[tuple[str, int, int, list]] = []
+    stack: list[tuple[str, int, int, list[Any]]] = []
     done: list[Tree] = []
     position = 0  # next word not yet placed
 
-    def fill(children: list, limit: int) -> None:
+    def fill(children: list[Any], limit: int) -> None:
         nonlocal position
         while position < limit:
             children.append(Tree(tag_list[position], [word_list[position]]))

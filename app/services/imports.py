@@ -194,7 +194,8 @@ def _tokenizer(name: str) -> Callable[[str], list[str]]:
     if name == "treebank":
         from nltk.tokenize import TreebankWordTokenizer
 
-        return TreebankWordTokenizer().tokenize
+        tokenize: Callable[[str], list[str]] = TreebankWordTokenizer().tokenize
+        return tokenize
     raise BadInput(f"unknown tokenizer {name!r}; one of {', '.join(TOKENIZERS)}")
 
 
