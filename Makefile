@@ -6,6 +6,8 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 DATA   ?= data
 PYTEST_WORKERS ?= 2
+# Seconds one test may take before it fails as hung (pytest-timeout); generous on purpose.
+PYTEST_TIMEOUT ?= 900
 
 .PHONY: demo test test-app lint typecheck bench install install-test chromium clean-venv
 
@@ -34,6 +36,7 @@ demo: install
 chromium:
 	@if [ ! -x /usr/bin/chromium ]; then \
 	  if [ "$$(id -u)" = "0" ]; then \
+	    echo "make test: installing Debian's chromium package for the browser tests (apt-get)"; \
 	    apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends chromium; \
 	  else \
 	    echo "note: /usr/bin/chromium is missing and this is not root: browser tests will skip"; \
@@ -42,11 +45,11 @@ chromium:
 
 ## test: the whole suite (parser, app, browser) on two workers
 test: install-test chromium
-	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) -q
+	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) --timeout=$(PYTEST_TIMEOUT) -q
 
 ## test-app: only the app tests (the PostgreSQL pass of .ci/run uses this)
 test-app: install-test
-	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) -q tests/app
+	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) --timeout=$(PYTEST_TIMEOUT) -q tests/app
 
 lint: install-test
 	$(BIN)/ruff check app parser tests bench

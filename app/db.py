@@ -15,7 +15,7 @@ from alembic.config import Config
 from sqlalchemy import Engine, create_engine, event, text
 from sqlalchemy.orm import Session, sessionmaker
 
-from app.settings import MIGRATIONS_DIR, PROJECT_ROOT, Settings
+from app.settings import ALEMBIC_INI, MIGRATIONS_DIR, Settings
 
 
 def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
@@ -34,11 +34,16 @@ def make_engine(settings: Settings) -> Engine:
         engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 15})
         event.listen(engine, "connect", _sqlite_pragmas)
         return engine
-    return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=20)
+    try:
+        return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=20)
+    except ModuleNotFoundError as exc:  # e.g. psycopg, the optional extra "postgres"
+        raise RuntimeError(f"the database URL needs the driver {exc.name!r}, which is not "
+                           "installed; for PostgreSQL install Treewright with its 'postgres' "
+                           "extra (pip install 'treewright[postgres]')") from exc
 
 
 def alembic_config(settings: Settings) -> Config:
-    cfg = Config(str(PROJECT_ROOT / "alembic.ini"))
+    cfg = Config(str(ALEMBIC_INI))
     cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
     cfg.set_main_option("sqlalchemy.url", settings.resolved_database_url.replace("%", "%%"))
     return cfg

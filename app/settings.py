@@ -7,6 +7,7 @@ fails when a setting is undocumented.
 
 from __future__ import annotations
 
+import importlib.resources
 import os
 import secrets
 from functools import lru_cache
@@ -16,10 +17,26 @@ from typing import Literal
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+#: The checkout's root folder (meaningful in a checkout only; an installed wheel has none).
 PROJECT_ROOT = Path(__file__).resolve().parent.parent
-TEMPLATES_DIR = PROJECT_ROOT / "templates"
-STATIC_DIR = PROJECT_ROOT / "static"
-MIGRATIONS_DIR = PROJECT_ROOT / "migrations"
+#: Where a built wheel carries the top-level folders, inside the ``app`` package (setup.py).
+BUNDLED = "_bundled"
+
+
+def resource_path(name: str) -> Path:
+    """A top-level folder or file of the project (``templates``, ``static``, ``migrations``,
+    ``alembic.ini``): from the installed package's data when it was installed from a wheel,
+    else from the checkout (a source tree or an editable install)."""
+    bundled = importlib.resources.files("app").joinpath(BUNDLED, name)
+    if bundled.is_dir() or bundled.is_file():
+        return Path(str(bundled))
+    return PROJECT_ROOT / name
+
+
+TEMPLATES_DIR = resource_path("templates")
+STATIC_DIR = resource_path("static")
+MIGRATIONS_DIR = resource_path("migrations")
+ALEMBIC_INI = resource_path("alembic.ini")
 
 
 class Settings(BaseSettings):

@@ -1,5 +1,5 @@
 """Command-line front ends of the parser: ``train`` a grammar from bracketed trees, ``parse``
-sentences from standard input. The coordinator registers both in the ``treewright`` group.
+sentences from standard input. Both are commands of the ``treewright`` group (app/cli.py).
 
 ``train TREEFILE... --out GRAMMAR [--horizontal H] [--vertical V]`` prints the grammar's size
 and the training time. ``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one

@@ -1,7 +1,4 @@
-"""The parser library's exceptions: every error raised on purpose descends from ParserError.
-
-Contributors: read DEVELOPERS.md at the repository root first; its rules are binding.
-"""
+"""The parser library's exceptions: every error raised on purpose descends from ParserError."""
 
 from __future__ import annotations
 
