@@ -4,10 +4,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
-from sqlalchemy import select
 
 from app.deps import PageUser, SessionDep
-from app.models import Assignment, Corpus
 from app.services import annotation as svc
 from app.services.corpora import find_corpus
 from app.services.errors import BadInput
@@ -27,11 +25,9 @@ def queue_page(request: Request, login: PageUser, db: SessionDep, corpus: int | 
                                before=before or None, limit=PER_PAGE)
     except BadInput:  # a mangled cursor: the first page
         queue = svc.queue_page(db, login.user, corpus, limit=PER_PAGE)
-    corpora = db.execute(select(Corpus.id, Corpus.name).where(Corpus.id.in_(
-        select(Assignment.corpus_id).where(Assignment.user_id == login.user.id).distinct()))
-        .order_by(Corpus.name)).all()
+    corpora = svc.queue_corpora(db, login.user)
     chosen = find_corpus(db, corpus) if corpus is not None else None
     return render(request, "queue.html", login, nav="queue", queue=queue, items=queue.items,
-                  first_index=queue.first_index - 1, corpora=[tuple(c) for c in corpora],
+                  first_index=queue.first_index - 1, corpora=corpora,
                   corpus_id=corpus, corpus_name=chosen.name if chosen else None,
                   next_open=svc.next_open(db, login.user, corpus))

@@ -471,6 +471,14 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
                       next_id=next_id, next_open_id=open_id)
 
 
+def queue_corpora(db: Session, user: User) -> list[tuple[int, str]]:
+    """(id, name) of every corpus with a sentence assigned to ``user``, by name."""
+    rows = db.execute(select(Corpus.id, Corpus.name).where(Corpus.id.in_(
+        select(Assignment.corpus_id).where(Assignment.user_id == user.id).distinct()))
+        .order_by(Corpus.name)).all()
+    return [(int(i), str(n)) for i, n in rows]
+
+
 __all__ = [
     "MAX_TREE_CHARS",
     "QueueItem",
@@ -481,6 +489,7 @@ __all__ = [
     "own_annotation",
     "next_open",
     "parse_queue_cursor",
+    "queue_corpora",
     "queue_counts",
     "queue_cursor",
     "queue_page",
