@@ -128,3 +128,24 @@ async def value_out_of_range(request: Request, exc: Exception) -> JSONResponse:
         errors = [{"loc": ["body"], "msg": f"a value does not fit the database: {first}",
                    "type": "out_of_range"}]
     return JSONResponse({"detail": errors}, status_code=422)
+
+
+BUSY_RETRY_SECONDS = 1
+
+
+def is_lock_timeout(exc: BaseException) -> bool:
+    """True for SQLite's "database is locked" / "busy": the write lock was not free within
+    the busy timeout (a long import or many saves at once). Nothing was written."""
+    orig = getattr(exc, "orig", None) or exc
+    text = str(orig).lower()
+    return "database is locked" in text or "database table is locked" in text \
+        or "database is busy" in text
+
+
+def busy_answer(request: Request) -> JSONResponse:
+    """503 with Retry-After: the request changed nothing and may be sent again as it is."""
+    return JSONResponse(
+        {"detail": "the database is busy (another writer, such as a large import, holds it); "
+                   f"nothing was stored: send the request again in {BUSY_RETRY_SECONDS} s",
+         "kind": "busy", "retry_after": BUSY_RETRY_SECONDS},
+        status_code=503, headers={"Retry-After": str(BUSY_RETRY_SECONDS)})

@@ -18,13 +18,13 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, RedirectResponse
 from fastapi.staticfiles import StaticFiles
-from sqlalchemy.exc import DataError, SQLAlchemyError
+from sqlalchemy.exc import DataError, OperationalError, SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 import app.routes
-from app.api_errors import SharedErrorDocs, value_out_of_range
+from app.api_errors import SharedErrorDocs, busy_answer, is_lock_timeout, value_out_of_range
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
 from app.services import suggestions, training
@@ -205,6 +205,16 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
 
     for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
         application.add_exception_handler(too_big, value_out_of_range)
+
+    @application.exception_handler(OperationalError)
+    async def _busy(request: Request, exc: OperationalError) -> Any:
+        if not is_lock_timeout(exc):
+            log.error("database error on %s %s", request.method, request.url.path,
+                      exc_info=exc)
+            return JSONResponse({"detail": "internal database error"}, status_code=500)
+        page = _error_page(request, 503, "The database is busy; nothing was stored. Try "
+                                         "again in a moment.")
+        return page if page is not None else busy_answer(request)
 
     @application.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:

@@ -49,6 +49,9 @@ class Settings(BaseSettings):
     database_url: str | None = Field(default=None, description="SQLAlchemy URL; default is "
                                      "SQLite at DATA_DIR/treewright.db. For PostgreSQL: "
                                      "postgresql+psycopg://user@host/dbname")
+    sqlite_busy_seconds: float = Field(default=15.0, gt=0, le=600, allow_inf_nan=False,
+                                       description="How long a request waits for SQLite's "
+                                       "write lock before it answers 503 (try again).")
     host: str = Field(default="127.0.0.1", description="Address `serve` binds to.")
     port: int = Field(default=8000, description="Port `serve` listens on.")
     secret_key: str | None = Field(default=None, description="Key for signing; by default "

@@ -24,7 +24,7 @@ from pathlib import Path
 
 from sqlalchemy.engine import make_url
 
-from app.db import upgrade_to_head
+from app.db import private_file, upgrade_to_head
 from app.services.errors import BadInput, ServiceError
 from app.settings import Settings
 
@@ -81,7 +81,7 @@ def _check(path: Path) -> int:
 
 def _copy(source: Path, target: Path) -> None:
     src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
-    dst = sqlite3.connect(target)
+    dst = sqlite3.connect(private_file(target))
     try:
         src.execute("PRAGMA busy_timeout=15000")
         with dst:
@@ -134,7 +134,7 @@ def restore_sqlite(settings: Settings, source: Path) -> tuple[BackupInfo | None,
                                / f"before-restore-{stamp}.db")
     live.parent.mkdir(parents=True, exist_ok=True)
     src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
-    dst = sqlite3.connect(live, timeout=15)
+    dst = sqlite3.connect(private_file(live), timeout=15)
     try:
         with dst:
             src.backup(dst)

@@ -137,6 +137,11 @@ export async function saveNow() {
         scheduleSave(0);
       }
       renderSide();
+    } else if (r.status === 503) {
+      // the database was busy (a large import, say) and nothing was stored: send it again
+      const wait = r.body && r.body.retry_after ? r.body.retry_after * 1000 : RETRY_MS;
+      setStatus("busy");
+      scheduleSave(wait);
     } else if (r.status === 409) {
       showConflict(r.body);
     } else if (r.status === 422 && r.body && r.body.kind === "labels" && r.body.can_confirm) {

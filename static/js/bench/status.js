@@ -11,6 +11,7 @@ const STATUS_TEXT = {
   conflict: "Not saved: saved elsewhere meanwhile",
   error: "Not saved",
   offline: "Not saved: no connection, retrying",
+  busy: "Not saved yet: the server is busy, retrying",
   readonly: "Read only",
 };
 
