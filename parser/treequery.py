@@ -45,6 +45,7 @@ from __future__ import annotations
 
 import bisect
 import re
+from array import array
 from collections import defaultdict
 from collections.abc import Hashable, Iterator, Sequence
 from dataclasses import dataclass, field
@@ -105,8 +106,10 @@ class WordString:
     words: tuple[WordTest, ...]
 
     def regex(self) -> re.Pattern[str]:
+        """The words over space-joined lower-case words; the caller checks that a match
+        starts a word (a leading look-behind would stop the engine's literal-prefix scan)."""
         body = " ".join(w.regex() for w in self.words)
-        return re.compile(rf"(?:(?<=[ \n])|^)(?:{body})(?=[ \n]|$)", re.MULTILINE)
+        return re.compile(rf"{body}(?![^ \n])")
 
 
 @dataclass(frozen=True)
@@ -373,21 +376,45 @@ class Hit:
     spans: tuple[tuple[int, int], ...]
 
 
+def _starts_of(rx: re.Pattern[str], text: str) -> Iterator[int]:
+    """Where the word string matches in space-joined lines, overlapping matches included."""
+    pos = 0
+    while (m := rx.search(text, pos)) is not None:
+        at = m.start()
+        if at and text[at - 1] not in " \n":  # inside a word: look again further on
+            pos = at + 1
+            continue
+        yield at
+        # the next match may overlap this one: go on from the next word
+        space = text.find(" ", at, m.end())
+        pos = space + 1 if space >= 0 else m.end()
+
+
+def _places(rx: re.Pattern[str], line: str, n: int) -> list[tuple[int, int]]:
+    out = []
+    for at in _starts_of(rx, line):
+        first = line.count(" ", 0, at)
+        out.append((first, first + n))
+    return out
+
+
 class SearchIndex:
     """Entries (a key, the words, optionally a tree) searchable by any pattern.
 
-    Build once, search many times: ``add`` everything, then ``search``. Adding after a search
-    is allowed (the corpus text is rebuilt on the next word-string search).
+    Build once, search many times: ``add`` everything, then ``search``. Each entry's words are
+    kept lower-cased and space-joined; postings map each word (and, for trees, each label) to
+    the entries that hold it. Adding after a search is allowed.
     """
 
     def __init__(self) -> None:
         self.keys: list[Hashable] = []
         self.tokens: list[list[str]] = []
         self.trees: list[Tree | None] = []
-        self._labels: dict[str, set[int]] = defaultdict(set)
-        self._words: dict[str, set[int]] = defaultdict(set)
-        self._text: str | None = None
+        self._lines: list[str] = []
+        self._joined: str | None = None
         self._starts: list[int] = []
+        self._labels: dict[str, set[int]] = defaultdict(set)
+        self._words: dict[str, array[int]] = {}
 
     def __len__(self) -> int:
         return len(self.keys)
@@ -397,36 +424,82 @@ class SearchIndex:
         self.keys.append(key)
         self.tokens.append(list(tokens))
         self.trees.append(tree)
-        self._text = None
+        low = [t.lower() for t in tokens]
+        self._lines.append(" ".join(low))
+        for word in low:
+            post = self._words.get(word)
+            if post is None:
+                self._words[word] = array("i", [n])
+            elif post[-1] != n:
+                post.append(n)
         if tree is not None:
-            for word in tokens:
-                self._words[word.lower()].add(n)
             for sub in tree.subtrees():
                 self._labels[strip_label(sub.label())].add(n)
 
-    def _corpus_text(self) -> tuple[str, list[int]]:
-        if self._text is None:
-            starts, parts, at = [], [], 0
-            for toks in self.tokens:
-                line = " ".join(t.lower() for t in toks)
+    def _entries_with(self, test: WordTest) -> set[int] | None:
+        """Entries holding a word the test accepts; None when every word does."""
+        if test.text == "*":
+            return None
+        if test.literal:
+            return set(self._words.get(test.text, ()))
+        rx = re.compile(test.regex())
+        found: set[int] = set()
+        for word, post in self._words.items():
+            if rx.fullmatch(word):
+                found.update(post)
+        return found
+
+    def _narrow(self, sets: list[set[int]]) -> list[int] | None:
+        """The entries in every set, in order; None when there is no constraint."""
+        if not sets:
+            return None
+        sets.sort(key=len)
+        found = set(sets[0])
+        for s in sets[1:]:
+            found &= s
+            if not found:
+                break
+        return sorted(found)
+
+    def _text(self) -> tuple[str, list[int]]:
+        """All entries' lines joined by newlines, and where each line starts."""
+        if self._joined is None or len(self._starts) != len(self._lines):
+            starts, at = [], 0
+            for line in self._lines:
                 starts.append(at)
-                parts.append(line)
                 at += len(line) + 1
-            self._text, self._starts = "\n".join(parts), starts
-        return self._text, self._starts
+            self._joined, self._starts = "\n".join(self._lines), starts
+        return self._joined, self._starts
 
     def _word_hits(self, pattern: WordString) -> Iterator[Hit]:
-        text, starts = self._corpus_text()
-        spans: dict[int, list[tuple[int, int]]] = {}
+        wanted = [s for w in pattern.words if (s := self._entries_with(w)) is not None]
+        entries = self._narrow(wanted)
         n = len(pattern.words)
-        for m in pattern.regex().finditer(text):
-            entry = bisect.bisect_right(starts, m.start()) - 1
-            first = text.count(" ", starts[entry], m.start())
+        rx = pattern.regex()
+        if entries is None:  # only wildcards: one scan of the whole text
+            yield from self._scan(rx, n)
+            return
+        lines, search = self._lines, rx.search
+        for entry in entries:
+            line = lines[entry]
+            if search(line) is None:  # most candidates fail here, in C
+                continue
+            spans = _places(rx, line, n)
+            if spans:
+                yield Hit(self.keys[entry], entry, tuple(spans))
+
+    def _scan(self, rx: re.Pattern[str], n: int) -> Iterator[Hit]:
+        text, starts = self._text()
+        spans: dict[int, list[tuple[int, int]]] = {}
+        for at in _starts_of(rx, text):
+            entry = bisect.bisect_right(starts, at) - 1
+            first = text.count(" ", starts[entry], at)
             spans.setdefault(entry, []).append((first, first + n))
         for entry in sorted(spans):
             yield Hit(self.keys[entry], entry, tuple(spans[entry]))
 
     def candidates(self, frag: Fragment) -> list[int]:
+        """Entries with a tree holding every label and literal word the fragment requires."""
         labels: list[tuple[str, ...]] = []
         words: list[str] = []
         _required(frag, labels, words)
@@ -436,16 +509,11 @@ class SearchIndex:
             for label in alts:
                 union |= self._labels.get(label, set())
             sets.append(union)
-        sets.extend(self._words.get(w, set()) for w in words)
-        if not sets:
+        sets.extend(set(self._words.get(w, ())) for w in words)
+        found = self._narrow(sets)
+        if found is None:
             return [i for i, t in enumerate(self.trees) if t is not None]
-        sets.sort(key=len)
-        found = set(sets[0])
-        for s in sets[1:]:
-            found &= s
-            if not found:
-                break
-        return sorted(found)
+        return [i for i in found if self.trees[i] is not None]
 
     def search(self, pattern: Pattern) -> Iterator[Hit]:
         """Every entry that matches, in the order entries were added, with the match spans."""

@@ -101,7 +101,7 @@ def _random_tree(rng: random.Random) -> str:
 
 
 @pytest.mark.parametrize("pattern", [
-    "the pump", "the * pump", "pu*", "(NP (DT the) ...)", "(PP ... (NP ~the ...))",
+    "the pump", "the * pump", "pu*", "* *", "*e", "(NP (DT the) ...)", "(PP ... (NP ~the ...))",
     "(S ... (VP ...))", "(NN pump)", "(VP|PP ... ~(NN) ...)", "(X)", "(NP the pump)",
 ])
 def test_index_agrees_with_scanning_every_tree(pattern: str, rng: random.Random) -> None:

@@ -122,3 +122,25 @@ def test_findings_sorted_by_score_and_keys_stable() -> None:
     again = find_inconsistencies(treebank)
     assert [f.key for f in first] == [f.key for f in again]
     assert [f.score for f in first] == sorted((f.score for f in first), reverse=True)
+
+
+def test_bracket_odd_one_under_a_rare_rule_is_corroborated_and_ranks_first() -> None:
+    # "the red valve" lost its NP in one tree, which leaves a VP rule seen only there;
+    # "the blue hose" is no constituent in one tree either, but inside an NP of a shape the
+    # treebank uses often: no rare rule backs that one up
+    frequent = ["(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
+                "(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
+                "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
+                "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
+                "(ROOT (S (VP (VB fit) (NP (DT a) (JJ green) (NN pipe) (NN seal)))))",
+                "(ROOT (S (VP (VB fit) (NP (DT a) (JJ grey) (NN tank) (NN lid)))))"]
+    odd_rare = "(ROOT (S (VP (VB check) (DT the) (JJ red) (NN valve))))"
+    odd_plain = "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose) (NN clamp)))))"
+    found = kinds(find_inconsistencies(sources(*frequent, odd_rare, odd_plain),
+                                       FinderOptions(frequent_min=2)), "bracket")
+    by_words = {f.detail["words"]: f for f in found}
+    red, blue = by_words["the red valve"], by_words["the blue hose"]
+    assert red.detail["rare_rule_here"] is True
+    assert blue.detail["rare_rule_here"] is False
+    assert red.detail["analyses"] == blue.detail["analyses"] == {"NP": 2, "": 1}
+    assert found.index(red) < found.index(blue)
