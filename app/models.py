@@ -88,7 +88,7 @@ ANNOTATION_STATES = tuple(AnnotationState)
 
 # Where a revision's tree came from.
 REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat",
-               "restore")
+               "restore", "tokens")
 
 GV_QUEUED = GrammarStatus.QUEUED
 GV_TRAINING = GrammarStatus.TRAINING
@@ -209,8 +209,29 @@ class Sentence(Base):
     text: Mapped[str] = mapped_column(Text)
     state: Mapped[str] = mapped_column(String(16), default=SENT_QUEUED)
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    # which version of the tokens is current (1 as imported; a token fix adds one)
+    token_version: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
 
     document: Mapped[Document] = relationship(back_populates="sentences")
+
+
+class TokenVersion(Base):
+    """An earlier version of a sentence's tokens, kept when a token fix replaced it, with the
+    change that led from it to the next version: ``{"position": p, "count": c, "tokens":
+    [...]}`` (the c tokens from p were replaced by these). Append-only."""
+
+    __tablename__ = "token_versions"
+    __table_args__ = (UniqueConstraint("sentence_id", "number"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
+                                             index=True)
+    number: Mapped[int] = mapped_column(Integer)
+    tokens: Mapped[list[Any]] = mapped_column(JSON)
+    text: Mapped[str] = mapped_column(Text)
+    change: Mapped[dict[str, Any]] = mapped_column(JSON)
+    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
+                                                nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
 
 def reading_rank(document_id: int, position: int) -> int:
@@ -306,6 +327,8 @@ class Revision(Base):
     user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
                                                 nullable=True)
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    # the version of the sentence's tokens this tree was made on
+    token_version: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
 
 
 class Gold(Base):

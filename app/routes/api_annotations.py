@@ -42,9 +42,11 @@ from app.schemas.annotation import (
     SentencePublic,
     SubmitRequest,
     SuggestionPublic,
+    TokenFixPublic,
+    TokenFixRequest,
 )
 from app.services import annotation as svc
-from app.services import suggestions, training
+from app.services import suggestions, tokens, training
 from app.services.corpora import get_corpus
 
 log = logging.getLogger(__name__)
@@ -86,7 +88,15 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     annotation = svc.own_annotation(db, user, sentence)
     head = svc.current_revision(db, annotation)
     suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
-    if head is not None:
+    carried_from = None
+    if head is not None and head.token_version != sentence.token_version:
+        carried_from = head.token_version
+        tree = tokens.carry_through(db, sentence, head.tree, head.token_version)
+        pins, source = {}, "tokens"
+        note = ("Your tree was made on earlier tokens; the words were fixed since. It is "
+                "carried over (a split word's tag on each piece, joined words with the left "
+                "tag) and saved as a new revision; your earlier revisions are kept.")
+    elif head is not None:
         tree, pins, source, note = head.tree, head.pins or {}, head.source, None
     else:
         start = suggestions.start_tree(sentence, suggestion)
@@ -108,7 +118,8 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.options.unknown_label_policy.value,
-        queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus))
+        queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus),
+        carried_from=carried_from, token_version=sentence.token_version)
 
 
 def _suggestion_public(db: Session, corpus: Corpus,
@@ -188,6 +199,27 @@ def reparse(sentence_id: int, body: ReparseRequest, login: ApiUser,
     out = suggestions.reparse(db, sentence, corpus, body.pins.model_dump(), k=body.k)
     return ReparsePublic(trees=out.trees, fallback=out.fallback, seconds=out.seconds,
                          grammar_version=out.grammar_version)
+
+
+@router.post("/api/bench/{sentence_id}/tokens", response_model=TokenFixPublic,
+             status_code=201, responses=ERRORS)
+def fix_tokens(sentence_id: int, body: TokenFixRequest, login: ApiUser,
+               db: SessionDep) -> TokenFixPublic:
+    """Split a token, join two neighbours or respell one: the sentence's tokens become a new
+    version (the old ones are kept) and your tree is carried over as a new revision."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    out = tokens.fix_tokens(db, login.user, sentence, base=body.base, change=tokens.TokenChange(
+        body.position, body.count, tuple(body.tokens)))
+    r = out.revision
+    inv = out.inverse
+    return TokenFixPublic(
+        annotation=_annotation_public(out.annotation),
+        revision=RevisionPublic(number=r.number, tree=r.tree, pins=Pins(**(r.pins or {})),
+                                source=r.source, created_at=r.created_at),
+        tokens=[str(t) for t in sentence.tokens], token_version=sentence.token_version,
+        undo=TokenFixRequest(base=r.number, position=inv.position,
+                             count=2 if inv.count == 2 else 1,
+                             tokens=list(inv.tokens)))
 
 
 @router.get("/api/bench/{sentence_id}/revisions", response_model=list[RevisionPublic],

@@ -14,7 +14,7 @@ from app.schemas.common import RequestModel, UtcDateTime
 from app.services.annotation import QueueItem, QueuePlace
 
 RevisionSource = Literal["suggestion", "edit", "reparse", "alternative", "text", "import",
-                         "flat", "restore"]
+                         "flat", "restore", "tokens"]
 MAX_PINS = 2_000
 
 
@@ -89,6 +89,29 @@ class BenchPublic(BaseModel):
     queue: QueuePlace
     unseen_words: list[int] = Field(default_factory=list, description=(
         "positions (0-based) of the words the active grammar never saw in training"))
+    token_version: int = Field(default=1, description="the version of the sentence's tokens "
+                               "(1 as imported; each token fix adds one)")
+    carried_from: int | None = Field(default=None, description=(
+        "set when your newest revision was made on this earlier token version: the tree shown "
+        "is it carried over to the current tokens, and the page saves it"))
+
+
+class TokenFixRequest(RequestModel):
+    base: int = Field(ge=1, description="your head revision (the tree the fix carries over)")
+    position: int = Field(ge=0, description="the first token replaced (0-based)")
+    count: Literal[1, 2] = Field(description="1: split or respell that token; 2: join it "
+                                             "with the next one")
+    tokens: list[str] = Field(min_length=1, max_length=2,
+                              description="the tokens that take their place (two: a split)")
+
+
+class TokenFixPublic(BaseModel):
+    annotation: AnnotationPublic
+    revision: RevisionPublic
+    tokens: list[str]
+    token_version: int
+    undo: TokenFixRequest = Field(description="the fix that takes this one back (base to be "
+                                              "filled with the head then)")
 
 
 class RevisionCreate(RequestModel):

@@ -77,14 +77,15 @@ class SubmittedTree:
 
 
 def submitted_trees(db: Session, sentence: Sentence) -> list[SubmittedTree]:
-    """Every submitted annotation of the sentence with its current tree, oldest first."""
+    """Every submitted annotation of the sentence with its current tree, oldest first; only
+    trees on the sentence's current tokens (a tree on earlier tokens is not compared)."""
     anns = db.scalars(select(Annotation).where(Annotation.sentence_id == sentence.id,
                                                Annotation.state == ANN_SUBMITTED)
                       .order_by(Annotation.id)).all()
     out: list[SubmittedTree] = []
     for ann in anns:
         rev = current_revision(db, ann)
-        if rev is None:
+        if rev is None or rev.token_version != sentence.token_version:
             continue
         out.append(SubmittedTree(ann, rev, write_tree(read_tree(rev.tree))))
     return out

@@ -180,7 +180,8 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
     if cast(CursorResult[Any], moved).rowcount != 1:
         raise _conflict(db, user, sentence, "another save of this annotation came first")
     revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
-                        pins=clean_pins, source=source, user_id=user.id, created_at=now)
+                        pins=clean_pins, source=source, user_id=user.id, created_at=now,
+                        token_version=sentence.token_version)
     db.add(revision)
     if sentence.state == SENT_QUEUED:
         sentence.state = SENT_IN_PROGRESS

@@ -13,7 +13,8 @@ import {familiesShown, markViewport, overviewJump, readFamiliesChoice, render, s
   toggleFold} from "./bench/draw.js";
 import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
-import {loadUndo, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
+import {openTokens, wireTokens} from "./bench/tokens.js";
+import {loadUndo, markDirty, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
 import {renderSide, renderText} from "./bench/side.js";
 import {$, S, root, sentenceId} from "./bench/state.js";
 import {setStatus} from "./bench/status.js";
@@ -23,7 +24,7 @@ function wire() {
     add: cmd.add, relabel: cmd.relabel, dissolve: cmd.dissolve,
     "edge-start-out": () => cmd.edge("start", -1), "edge-start-in": () => cmd.edge("start", 1),
     "edge-end-in": () => cmd.edge("end", -1), "edge-end-out": () => cmd.edge("end", 1),
-    pin: cmd.pin, carry: cmd.carry, regrow: cmd.regrow, undo: cmd.undo, redo: cmd.redo,
+    pin: cmd.pin, carry: cmd.carry, tokens: cmd.tokens, regrow: cmd.regrow, undo: cmd.undo, redo: cmd.redo,
     "zoom-in": () => setZoom(S.zoom * 1.2), "zoom-out": () => setZoom(S.zoom / 1.2),
     help: () => toggleHelp(true), handin: cmd.handIn, "apply-text": cmd.applyText,
     "reset-text": () => { S.textEditing = false; renderText(); },
@@ -42,6 +43,7 @@ function wire() {
   $("hold-release").addEventListener("click", () => cmd.release());
   $("readings").addEventListener("keydown", onReadingsKey);
   wireHistory();
+  wireTokens();
   $("tree-pane").addEventListener("scroll", markViewport, {passive: true});
   $("overview").addEventListener("click", overviewJump);
   document.addEventListener("keydown", onKey);
@@ -84,7 +86,10 @@ async function start() {
     setStatus(S.head ? "saved" : "fresh");
     restoreDraft();
     loadUndo();
+    if (data.carried_from) markDirty("tokens");  // the tree carried over to the new tokens
     renderSide();
+    // the entry point from elsewhere (a sentence held back for its tokens): /bench/ID?tokens
+    if (new URLSearchParams(window.location.search).has("tokens")) openTokens(0);
   }
   $("note-text").value = data.annotation.comment || "";
   $("tree-pane").focus({preventScroll: true});

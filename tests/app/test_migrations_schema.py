@@ -30,14 +30,16 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0004")
+    command.downgrade(cfg, "0005")
     engine = create_engine(settings.resolved_database_url)
     try:
-        cols = {c["name"] for c in inspect(engine).get_columns("assignments")}
+        sentence_cols = {c["name"] for c in inspect(engine).get_columns("sentences")}
+        revision_cols = {c["name"] for c in inspect(engine).get_columns("revisions")}
         tables = set(inspect(engine).get_table_names())
     finally:
         engine.dispose()
-    assert "rank" not in cols and "user_id" in cols
-    assert "sentence_counts" not in tables and "sentences" in tables
+    assert "token_version" not in sentence_cols and "tokens" in sentence_cols
+    assert "token_version" not in revision_cols and "tree" in revision_cols
+    assert "token_versions" not in tables and "sentence_counts" in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []

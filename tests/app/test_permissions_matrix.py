@@ -70,6 +70,8 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("GET", "/api/bench/{sentence_id}"): Spec(ASSIGNED, 200),
     ("GET", "/api/bench/{sentence_id}/suggestion"): Spec(ASSIGNED, 200),  # null: no grammar
     ("GET", "/api/bench/{sentence_id}/revisions"): Spec(ASSIGNED, 200),
+    ("POST", "/api/bench/{sentence_id}/tokens"): Spec(
+        ASSIGNED, 422, json={"base": 1, "position": 0, "count": 1, "tokens": ["a b"]}),
     ("POST", "/api/bench/{sentence_id}/revisions"): Spec(
         ASSIGNED, 201, json={"base": 0, "tree": "@bench_tree"}),
     ("POST", "/api/bench/{sentence_id}/submit"): Spec(ASSIGNED, 409, json={"base": 99}),

@@ -9,6 +9,7 @@ import {commit, flush, markDirty, setTree, showConflict, snapshot, unknownIn} fr
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
 import {say, setStatus} from "./status.js";
+import {applyTokenFix, openTokens} from "./tokens.js";
 
 export function guard(fn) {
   return async (...args) => {
@@ -29,6 +30,11 @@ export function guard(fn) {
 // Undo and redo: take the newest state of `from`, keeping the current one on `to`.
 export function travel(from, to, what) {
   if (!from.length) throw new T.EditError(`nothing to ${what}`);
+  if (from[from.length - 1].fix) {
+    const {fix} = from.pop();
+    applyTokenFix(fix, true);
+    return;
+  }
   to.push(snapshot());
   const state = from.pop();
   setTree(state.tree, state.pins);
@@ -56,6 +62,7 @@ export function startFrom(text, what) {
 }
 
 export const cmd = {
+  tokens: guard(async () => openTokens()),
   // move a node with its subtree under another phrase (dragged there, or put down with m)
   reattach: guard(async (ref, target) => {
     const goal = S.spans[target];

@@ -69,6 +69,7 @@ export function onKey(ev) {
   else if (k === "}") cmd.edge("end", -1);
   else if (k === "p") cmd.pin();
   else if (k === "v") openHistory();
+  else if (k === "t") cmd.tokens();
   else if (k === "w") fitWidth();
   else if (k === "z") toggleFold();
   else if (k === "f") showFamilies(!familiesShown());

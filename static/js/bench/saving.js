@@ -41,7 +41,7 @@ export function snapshot() {
 const UNDO_KEPT = 100;
 
 export function storeUndo() {
-  const keep = (stack) => stack.slice(-UNDO_KEPT).map((e) => ({
+  const keep = (stack) => stack.slice(-UNDO_KEPT).map((e) => (e.fix ? {fix: e.fix} : {
     text: e.text || T.writeTree(e.tree), pins: e.pins, sel: e.sel}));
   try {
     localStorage.setItem(undoKey, JSON.stringify({tree: T.writeTree(S.tree), undo: keep(S.undo),
@@ -53,8 +53,10 @@ export function loadUndo() {
   let saved;
   try { saved = JSON.parse(localStorage.getItem(undoKey) || "null"); } catch { return; }
   if (!saved || saved.tree !== T.writeTree(S.tree)) return;
-  const back = (stack) => stack.map((e) => ({tree: T.readTree(e.text), pins: e.pins,
-    sel: e.sel, text: e.text})).filter((e) => !T.wordMismatch(e.tree, S.tokens));
+  // a token fix is undone by the fix that takes it back (bench/tokens.js)
+  const back = (stack) => stack.map((e) => (e.fix ? e : {tree: T.readTree(e.text),
+    pins: e.pins, sel: e.sel, text: e.text}))
+    .filter((e) => e.fix || !T.wordMismatch(e.tree, S.tokens));
   try {
     S.undo = back(saved.undo);
     S.redo = back(saved.redo);
