@@ -147,3 +147,30 @@ def test_findings_request_run_drains_in_the_background(app, db, people) -> None:
     db.expire_all()
     assert db.get(FindingRun, run.id).status == RUN_DONE  # type: ignore[union-attr]
     assert len(_pump(db, corpus.id)) == 1
+
+
+def test_findings_api_lists_and_takes_verdicts(app, db, people, login) -> None:
+    corpus, sentences = import_gold(db)
+    adj = login("adj")
+    empty = adj.client.get(f"/api/corpora/{corpus.id}/findings")
+    assert empty.status_code == 200 and empty.json()["run"] is None
+    queued = adj.client.post(f"/api/corpora/{corpus.id}/findings/runs", json={},
+                             headers=adj.headers())
+    assert queued.status_code == 202 and queued.json()["status"] in ("queued", "done")
+    from app.services.training import get_runner
+
+    get_runner(app.state).wait_idle(60)
+    listing = adj.client.get(f"/api/corpora/{corpus.id}/findings", params={"kind": "bracket"})
+    body = listing.json()
+    assert body["run"]["status"] == "done" and body["counts"]["open"] == body["total"] >= 1
+    pump = next(f for f in body["findings"] if f["detail"]["words"] == OLD_PUMP)
+    assert pump["occurrences"][0] == {"sentence": sentences[2].id, "start": 0, "end": 3,
+                                      "analysis": "ADJP", "source": "gold", "by": "import"}
+    back = adj.client.post(f"/api/corpora/{corpus.id}/findings/{pump['id']}/reopen",
+                           json={"note": "look again"}, headers=adj.headers())
+    assert back.status_code == 200
+    assert back.json()["reopened"] == [s.id for s in sentences[:3]]
+    bad = adj.client.get(f"/api/corpora/{corpus.id}/findings", params={"state": "closed"})
+    assert bad.status_code == 422 and "open" in bad.json()["detail"]
+    ann = login("ann1")
+    assert ann.client.get(f"/api/corpora/{corpus.id}/findings").status_code == 403
