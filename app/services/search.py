@@ -137,11 +137,13 @@ def _index(db: Session, corpus_id: int, scope: str) -> _Cached:
     fingerprint = _fingerprint(db, corpus_id, scope)
     with _LOCK:
         cached = _CACHE.get(cache_key)
-        if cached is not None and cached.fingerprint == fingerprint:
-            return cached
-        cached = _build(db, corpus_id, scope, cached, fingerprint)
-        _CACHE[cache_key] = cached
+    if cached is not None and cached.fingerprint == fingerprint:
         return cached
+    # built outside the lock: a search of another corpus never waits for this one
+    fresh = _build(db, corpus_id, scope, cached, fingerprint)
+    with _LOCK:
+        _CACHE[cache_key] = fresh
+    return fresh
 
 
 def forget(corpus_id: int | None = None) -> None:
