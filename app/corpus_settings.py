@@ -37,7 +37,7 @@ CHOICES: dict[str, type[StrEnum]] = {"unknown_label_policy": LabelPolicy,
 class CorpusSettings(BaseModel):
     """Every per-corpus setting with its default; unknown stored keys are ignored on read."""
 
-    model_config = ConfigDict(extra="ignore", frozen=True)
+    model_config = ConfigDict(extra="ignore", frozen=True, allow_inf_nan=False)
 
     annotators_per_sentence: int = Field(
         2, ge=1, le=10, description="How many people annotate each sentence blind.")

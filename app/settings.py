@@ -42,7 +42,8 @@ ALEMBIC_INI = resource_path("alembic.ini")
 class Settings(BaseSettings):
     """Service configuration; defaults give a single-user SQLite install under ``./data``."""
 
-    model_config = SettingsConfigDict(env_prefix="TREEWRIGHT_", extra="ignore")
+    model_config = SettingsConfigDict(env_prefix="TREEWRIGHT_", extra="ignore",
+                                      allow_inf_nan=False)
 
     data_dir: Path = Field(default=Path("data"), description="Folder for the SQLite database, "
                            "the secret key and backups.")

@@ -245,8 +245,9 @@ def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File(...),
 @router.get("/api/corpora/{corpus_id}/export", response_model=ExportPublic, responses=ERRORS)
 def export(corpus_id: int, login: ApiAdjudicator, db: SessionDep,
            document_id: int | None = None, function_tags: bool = True,
-           train: float | None = Query(None, ge=0), dev: float | None = Query(None, ge=0),
-           test: float | None = Query(None, ge=0), seed: int = 0,
+           train: float | None = Query(None, ge=0, allow_inf_nan=False),
+           dev: float | None = Query(None, ge=0, allow_inf_nan=False),
+           test: float | None = Query(None, ge=0, allow_inf_nan=False), seed: int = 0,
            by: str = Query("document", pattern="^(document|sentence)$")) -> ExportPublic:
     """Gold as bracketed text; give train/dev/test ratios for a deterministic split."""
     split = None

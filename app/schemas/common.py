@@ -24,9 +24,11 @@ UtcDateTime = Annotated[datetime, AfterValidator(_as_utc)]
 
 class RequestModel(BaseModel):
     """Base of every request body (XCreate, XUpdate...): a field the model does not know is a
-    422 naming it, so a misspelt field is not silently ignored."""
+    422 naming it, so a misspelt field is not silently ignored. Numbers must be finite (NaN
+    and infinity are refused everywhere: a NaN bound compares false with everything and
+    would quietly turn a check off)."""
 
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
 
 
 class ErrorPublic(BaseModel):

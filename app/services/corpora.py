@@ -21,6 +21,7 @@ is in the corpus. ``page=N`` (offset) is still accepted by the JSON API and cost
 from __future__ import annotations
 
 import re
+import unicodedata
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Any, cast
@@ -95,26 +96,54 @@ def _spec(key: str) -> SettingSpec:
 SETTING_SPECS: dict[str, SettingSpec] = {key: _spec(key) for key in EDITABLE}
 
 
+def _control_character(text: str) -> tuple[int, str] | None:
+    """The first control character of ``text`` (position from 1, its code), if any."""
+    for position, char in enumerate(text, start=1):
+        if unicodedata.category(char) in ("Cc", "Cs"):
+            return position, f"U+{ord(char):04X}"
+    return None
+
+
 def clean_name(name: str, what: str = "corpus", limit: int = MAX_NAME) -> str:
-    """``name`` with runs of whitespace made single; empty or too long is an error."""
+    """``name`` with runs of whitespace made single; empty, too long or holding a control
+    character (NUL, escape...: they cannot be typed, shown or searched) is an error."""
     cleaned = " ".join((name or "").split())
     if not cleaned:
         raise BadInput(f"a {what} needs a name")
     if len(cleaned) > limit:
         raise BadInput(f"a {what} name has at most {limit} characters, not {len(cleaned)}")
+    bad = _control_character(cleaned)
+    if bad is not None:
+        raise BadInput(f"a {what} name cannot hold the control character {bad[1]} "
+                       f"(character {bad[0]})")
     return cleaned
 
 
+#: The most labels (or tags) a corpus's set may list; treebank label sets, function tags
+#: included, run to a few hundred (common practice, no source).
+MAX_INVENTORY = 5_000
+
+
 def _check_inventory(items: Iterable[str], what: str) -> list[str]:
+    """The entries in order, without repeats; linear in their number (a set for the
+    repeats), at most MAX_INVENTORY of them."""
     out: list[str] = []
+    seen: set[str] = set()
     for position, item in enumerate(items, start=1):
         item = item.strip()
         if not item:
             continue
         if not _LABEL_RE.match(item):
             raise BadInput(f"{what} entry {position} {item!r} has a space or a bracket")
-        if item not in out:
+        bad = _control_character(item)
+        if bad is not None:
+            raise BadInput(f"{what} entry {position} holds the control character {bad[1]}")
+        if item not in seen:
+            seen.add(item)
             out.append(item)
+            if len(out) > MAX_INVENTORY:
+                raise BadInput(f"a {what} lists at most {MAX_INVENTORY:,} entries; entry "
+                               f"{position} is one more")
     return out
 
 

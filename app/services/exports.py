@@ -31,6 +31,7 @@ Cost: O(gold trees) rows loaded and written once; stripping function tags copies
 from __future__ import annotations
 
 import io
+import math
 import random
 import re
 import zipfile
@@ -62,6 +63,8 @@ class SplitSpec:
     def __post_init__(self) -> None:
         if len(self.ratios) != 3:
             raise BadInput(f"give three ratios (train, dev, test), not {len(self.ratios)}")
+        if not all(math.isfinite(r) for r in self.ratios):
+            raise BadInput(f"ratios must be finite numbers, not {self.ratios}")
         if any(r < 0 for r in self.ratios) or sum(self.ratios) <= 0:
             raise BadInput(f"ratios must be non-negative and not all zero: {self.ratios}")
         if self.by not in SPLIT_MODES:

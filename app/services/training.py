@@ -486,6 +486,26 @@ def _drain_in_worker(url: str) -> int:
     return drain(factory)
 
 
+PARENT_POLL_SECONDS = 1.0
+
+
+def watch_parent(parent_pid: int, poll: float = PARENT_POLL_SECONDS) -> None:
+    """In the training worker: exit as soon as the web process that started it is gone.
+
+    A worker outliving a killed server (``kill -9`` runs no shutdown) would hold memory and
+    the database for nothing, and keep multiprocessing's resource tracker alive with it (the
+    tracker exits when the last process holding its pipe does). The worker is reparented when
+    its parent dies, so a daemon thread compares ``os.getppid()`` with the parent's pid every
+    ``poll`` seconds and ends the process at once (no clean-up: a job it was running is
+    marked failed by the next server's start, ``fail_interrupted``)."""
+    def watch() -> None:
+        while os.getppid() == parent_pid:
+            time.sleep(poll)
+        os._exit(0)
+
+    threading.Thread(target=watch, name="parent-watch", daemon=True).start()
+
+
 class TrainingRunner:
     """One worker (process or thread) that drains the job queue whenever it is kicked."""
 
@@ -506,7 +526,8 @@ class TrainingRunner:
                                                     thread_name_prefix="treewright-train")
             else:
                 self._executor = ProcessPoolExecutor(
-                    max_workers=1, mp_context=multiprocessing.get_context("spawn"))
+                    max_workers=1, mp_context=multiprocessing.get_context("spawn"),
+                    initializer=watch_parent, initargs=(os.getpid(),))
         return self._executor
 
     def kick(self) -> None:

@@ -14,6 +14,7 @@ from sqlalchemy.orm import Session
 
 from app.models import ROLE_ADMIN, ROLES, Event, User
 from app.security import end_all_sessions, hash_password
+from app.services.corpora import clean_name
 from app.services.errors import BadInput, Conflict, NotFound
 from app.services.transactions import unit_of_work
 
@@ -70,7 +71,10 @@ def create_user(db: Session, username: str, password: str, role: str, *,
     check_role(role)
     if db.scalar(select(User.id).where(func.lower(User.username) == username.lower())):
         raise Conflict(f"the user name {username!r} is taken")
-    user = User(username=username, display_name=(display_name or "").strip()[:128],
+    display_name = (display_name or "").strip()[:128]
+    if display_name:
+        display_name = clean_name(display_name, "display", 128)
+    user = User(username=username, display_name=display_name,
                 password_hash=hash_password(password), role=role, active=True)
     db.add(user)
     db.flush()
