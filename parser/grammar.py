@@ -398,13 +398,81 @@ def _from_rules(rules: list[tuple[str, tuple[str, ...], float, bool]], start: st
 
 
 # --------------------------------------------------------------------------- training
+@dataclass(frozen=True)
+class Weighting:
+    """How in-domain trees count against reference trees in :func:`train_grammar`.
+
+    ``rules``: each in-domain tree counts this many times in the rule counts (count merging,
+    Bacchiani and Roark 2003, from memory); ``lexicon``: the same for the word-tag counts of
+    the lexicon and its unknown-word classes, separately, since a domain's words and its
+    constructions need not need the same weight. ``prior``: when set, the rules are instead
+    estimated by MAP adaptation with the reference grammar as a Dirichlet prior of this
+    strength per left-hand side: P(r | A) = (c_in(r) + prior * P_ref(r | A)) /
+    (c_in(A) + prior), so a frequent in-domain symbol follows its in-domain counts whatever
+    the reference's size (the MAP estimate of the same authors; ``rules`` is then unused).
+    Plain counts (1, 1, None) are the default.
+    """
+
+    rules: float = 1.0
+    lexicon: float = 1.0
+    prior: float | None = None
+
+    def __post_init__(self) -> None:
+        if not (self.rules > 0 and self.lexicon > 0):
+            raise GrammarError(f"weights must be positive, got rules={self.rules} "
+                               f"lexicon={self.lexicon}")
+        if self.prior is not None and not self.prior > 0:
+            raise GrammarError(f"the prior strength must be positive, got {self.prior}")
+
+    def to_dict(self) -> dict[str, float | None]:
+        return {"rules": self.rules, "lexicon": self.lexicon, "prior": self.prior}
+
+    def combine(self, edges: tuple[Counter, Counter], binaries: tuple[Counter, Counter],
+                lexical: tuple[Counter, Counter]) -> tuple[dict, dict, dict]:
+        """Effective (float) counts of the unary edges, binary rules and lexical uses from
+        the counts per domain (index 0 reference, 1 in-domain). Edges are normalized per
+        parent (top role); binary rules and lexical uses together per bottom symbol."""
+        if self.prior is None:
+            return (_merged(edges, self.rules), _merged(binaries, self.rules),
+                    _merged(lexical, self.rules))
+        # MAP: reference counts rescaled so that each left-hand side's total is ``prior``.
+        top_ref: Counter[int] = Counter()
+        for (a, _, _), k in edges[0].items():
+            top_ref[a] += k
+        bottom_ref: Counter[int] = Counter()
+        for (b, _, _), k in binaries[0].items():
+            bottom_ref[b] += k
+        for t, k in lexical[0].items():
+            bottom_ref[t] += k
+        prior = self.prior
+        e = _rescaled(edges, lambda key: prior / top_ref[key[0]])
+        b = _rescaled(binaries, lambda key: prior / bottom_ref[key[0]])
+        x = _rescaled(lexical, lambda key: prior / bottom_ref[key])
+        return e, b, x
+
+
+def _merged(counts: tuple[Counter, Counter], weight: float) -> dict:
+    out: dict = {k: float(v) for k, v in counts[0].items()}
+    for k, v in counts[1].items():
+        out[k] = out.get(k, 0.0) + weight * v
+    return out
+
+
+def _rescaled(counts: tuple[Counter, Counter], factor: Callable[[Any], float]) -> dict:
+    out: dict = {k: v * factor(k) for k, v in counts[0].items()}
+    for k, v in counts[1].items():
+        out[k] = out.get(k, 0.0) + float(v)
+    return out
+
+
 def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
                   vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
                   tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
                   features: Sequence[str] = DEFAULT_FEATURES, alpha: float = 1.0,
                   beta: float = 1.0, head_outward: bool = DEFAULT_HEAD_OUTWARD,
                   plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES,
-                  min_context: int = DEFAULT_MIN_CONTEXT) -> Grammar:
+                  min_context: int = DEFAULT_MIN_CONTEXT, reference: Iterable[Tree] = (),
+                  weighting: Weighting | None = None) -> Grammar:
     """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
 
     ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
@@ -412,26 +480,30 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     annotations from :mod:`parser.annotate`; ``alpha``/``beta``: lexicon smoothing
     (see :mod:`parser.lexicon`); ``head_outward``, ``plain_intermediates``: how phrases are
     factored (see :func:`parser.binarize.binarize`); ``min_context``: variable-order
-    markovization, see :data:`DEFAULT_MIN_CONTEXT`. ``progress(done, total)`` is called now
+    markovization, see :data:`DEFAULT_MIN_CONTEXT`. ``reference``: further trees from
+    another domain, counted against ``trees`` (the in-domain trees) as ``weighting`` says
+    (see :class:`Weighting`; default: plain counts). ``progress(done, total)`` is called now
     and then.
     Raises GrammarError when there is no tree or the trees disagree on the root label.
     """
     from parser.annotate import annotators_for, functions_kept
 
     t0 = time.perf_counter()
-    tree_list = list(trees)
-    if not tree_list:
+    in_list = list(trees)
+    ref_list = list(reference)
+    if not in_list and not ref_list:
         raise GrammarError("cannot train a grammar from zero trees")
+    weighting = weighting or Weighting()
     annotators = annotators_for(features)
     keep = functions_kept(features)
     names: dict[str, int] = {}
     chains: dict[tuple[str, ...], int] = {}
-    edge_count: Counter[tuple[int, int, int]] = Counter()
-    top_count: Counter[int] = Counter()
-    bin_count: Counter[tuple[int, int, int]] = Counter()
-    bottom_count: Counter[int] = Counter()
-    lex_obs: list[tuple[int, str, bool]] = []
+    # Counts per domain (0: reference, 1: in-domain), combined by the weighting at the end.
+    edge_count: tuple[Counter[tuple[int, int, int]], ...] = (Counter(), Counter())
+    bin_count: tuple[Counter[tuple[int, int, int]], ...] = (Counter(), Counter())
+    lex_obs: list[tuple[int, str, bool, int]] = []
     root_label: str | None = None
+    domain = 1
 
     def sym(label: str) -> int:
         return names.setdefault(label, len(names))
@@ -446,20 +518,19 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
         ci = chains.setdefault(key, len(chains))
         a = sym(chain[0])
         b = sym(chain[-1])
-        edge_count[(a, b, ci)] += 1
-        top_count[a] += 1
-        bottom_count[b] += 1
+        edge_count[domain][(a, b, ci)] += 1
         if len(cur) == 1:
-            lex_obs.append((b, cur[0], False))
+            lex_obs.append((b, cur[0], False, domain))
         elif len(cur) == 2:
-            bin_count[(b, top(cur[0]), top(cur[1]))] += 1
+            bin_count[domain][(b, top(cur[0]), top(cur[1]))] += 1
         else:
             raise GrammarError(f"node {cur.label()!r} has {len(cur)} children after binarizing")
         return a
 
+    tree_list = [(1, t) for t in in_list] + [(0, t) for t in ref_list]
     total = len(tree_list)
     cleaned_list = []
-    for i, tree in enumerate(tree_list):
+    for i, (_, tree) in enumerate(tree_list):
         if not isinstance(tree, Tree):
             raise GrammarError(f"training item {i} is not a tree: {tree!r}")
         cleaned = bz.clean_tree(tree, keep)
@@ -475,34 +546,45 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     if min_context > 1:
         rare = bz.rare_labels((bz.binarize(c, *settings) for c in cleaned_list), min_context)
     for i, cleaned in enumerate(cleaned_list):
+        domain = tree_list[i][0]
         binary = bz.binarize(cleaned, *settings, rare=rare)
         n_before = len(lex_obs)
         top(binary)
         if len(lex_obs) > n_before:
-            first_tag, first_word, _ = lex_obs[n_before]
-            lex_obs[n_before] = (first_tag, first_word, True)
+            first_tag, first_word, _, d = lex_obs[n_before]
+            lex_obs[n_before] = (first_tag, first_word, True, d)
         if progress is not None and (i % 200 == 0 or i == total - 1):
             progress(i + 1, total)
     assert root_label is not None
     start = names[root_label]
     symbols = sorted(names, key=names.__getitem__)
     n = len(symbols)
-    bottom = np.array([bottom_count[i] for i in range(n)], dtype=float)
-    tops = np.array([top_count[i] for i in range(n)], dtype=float)
+    lex_ids = sorted({t for t, _, _, _ in lex_obs})
+    lex_count = (Counter(t for t, _, _, d in lex_obs if d == 0),
+                 Counter(t for t, _, _, d in lex_obs if d == 1))
+    edge_w, bin_w, lex_share_w = weighting.combine(edge_count, bin_count, lex_count)
 
-    bins = np.array([(a, b, c, k) for (a, b, c), k in bin_count.items()], dtype=float)
+    bins = np.array([(a, b, c, k) for (a, b, c), k in bin_w.items()], dtype=float)
     bins = bins.reshape(-1, 4)
+    edges = np.array([(a, b, ci, k) for (a, b, ci), k in edge_w.items()], dtype=float)
+    edges = edges.reshape(-1, 4)
+    bottom = np.zeros(n)
+    np.add.at(bottom, bins[:, 0].astype(int), bins[:, 3])
+    lex_mass = np.zeros(n)
+    for t, k in lex_share_w.items():
+        lex_mass[t] = k
+    bottom += lex_mass
+    tops = np.zeros(n)
+    np.add.at(tops, edges[:, 0].astype(int), edges[:, 3])
     bin_logp = np.log(bins[:, 3]) - np.log(bottom[bins[:, 0].astype(int)])
-    edges = np.array([(a, b, ci, k) for (a, b, ci), k in edge_count.items()], dtype=float)
     un_logp = np.log(edges[:, 3]) - np.log(tops[edges[:, 0].astype(int)])
 
-    lex_ids = sorted({t for t, _, _ in lex_obs})
     lex_row = {t: i for i, t in enumerate(lex_ids)}
     lex_logp, vocab, sigs = estimate_lexicon(
-        ((lex_row[t], w, f) for t, w, f in lex_obs), len(lex_ids), alpha=alpha, beta=beta)
+        ((lex_row[t], w, f, weighting.lexicon if d else 1.0) for t, w, f, d in lex_obs),
+        len(lex_ids), alpha=alpha, beta=beta)
     # Lexical share of each lexical symbol's bottom role (1 for pure POS tags).
-    lex_count = Counter(t for t, _, _ in lex_obs)
-    share = np.array([lex_count[t] / bottom[t] for t in lex_ids])
+    share = np.array([lex_mass[t] / bottom[t] for t in lex_ids])
     lex_logp = lex_logp + np.log(share)[:, None]
     chain_list = sorted(chains, key=chains.__getitem__)
     meta = {
@@ -510,7 +592,9 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
         "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
         "alpha": alpha, "beta": beta, "head_outward": head_outward,
         "plain_intermediates": plain_intermediates, "min_context": min_context, "trees": total,
-        "tag_counts": {symbols[t]: lex_count[t] for t in lex_ids},
+        "in_domain_trees": len(in_list), "reference_trees": len(ref_list),
+        "weighting": weighting.to_dict(),
+        "tag_counts": {symbols[t]: lex_count[0][t] + lex_count[1][t] for t in lex_ids},
         "seconds": round(time.perf_counter() - t0, 3),
     }
     return Grammar(symbols=symbols, start=start,

@@ -89,10 +89,13 @@ def _features(word: str, first: bool) -> list[str]:
 
 
 def estimate_lexicon(
-    pairs: Iterable[tuple[int, str, bool]], n_tags: int, alpha: float = 1.0, beta: float = 1.0,
-    rare: int = 1, backoff_weight: float = 0.01,
+    pairs: Iterable[tuple[int, str, bool] | tuple[int, str, bool, float]], n_tags: int,
+    alpha: float = 1.0, beta: float = 1.0, rare: int = 1, backoff_weight: float = 0.01,
 ) -> tuple[np.ndarray, list[str], list[str]]:
-    """Estimate log P(x | t) from (tag id, word, sentence-initial) observations.
+    """Estimate log P(x | t) from (tag id, word, sentence-initial[, weight]) observations.
+
+    A weight (default 1) scales an observation's count everywhere; whether a word is rare is
+    decided on how often it was seen, not on its weight.
 
     Returns ``(logp, vocab, signatures)`` where ``logp`` has shape
     ``(n_tags, len(vocab) + len(signatures))``, columns ordered vocab first. Each row with any
@@ -101,10 +104,14 @@ def estimate_lexicon(
     """
     tag_word: Counter[tuple[int, str]] = Counter()
     word_count: Counter[str] = Counter()
+    seen_count: Counter[str] = Counter()
     first_seen: dict[str, bool] = {}
-    for tag, word, first in pairs:
-        tag_word[(tag, word)] += 1
-        word_count[word] += 1
+    for obs in pairs:
+        tag, word, first = obs[0], obs[1], obs[2]
+        weight = obs[3] if len(obs) > 3 else 1.0  # type: ignore[misc]
+        tag_word[(tag, word)] += weight
+        word_count[word] += weight
+        seen_count[word] += 1
         first_seen.setdefault(word, first)
     vocab = sorted(word_count)
     col = {w: i for i, w in enumerate(vocab)}
@@ -115,7 +122,7 @@ def estimate_lexicon(
     rare_sig: Counter[int] = Counter()
     rare_tag = np.zeros(n_tags)
     for (tag, word), c in tag_word.items():
-        if word_count[word] > rare:
+        if seen_count[word] > rare:
             continue
         rare_tag[tag] += c
         for level, sig in enumerate(signature_backoff(word, first_seen[word])):
