@@ -1,8 +1,11 @@
 """Command-line front ends of the parser: ``train`` a grammar from bracketed trees, ``parse``
 sentences from standard input. Both are commands of the ``treewright`` group (app/cli.py).
 
-``train TREEFILE... --out GRAMMAR [--horizontal H] [--vertical V]`` prints the grammar's size
-and the training time. ``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one
+``train TREEFILE... --out GRAMMAR [--reference FILE...] [--weight W|auto] [--horizontal H]
+[--vertical V]`` prints the grammar's size, the weight of the in-domain trees against the
+reference trees (with ``auto``, each grid point's held-out F1) and the training time.
+
+``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one
 sentence per line (tokens split on whitespace; with ``--tagged`` each token is ``word/TAG``,
 split at the last slash) and writes exactly one line per input line: the best tree in bracketed
 form (with ``--consensus`` the consensus tree of :mod:`parser.consensus` instead, the more
@@ -19,10 +22,12 @@ import math
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import click
 from tqdm import tqdm
 
+from parser.adapt import choose_weighting, describe, heldout_split, parse_weighting
 from parser.batch import parse_many
 from parser.chart import Constraints, ParseResult
 from parser.errors import ParserError
@@ -31,29 +36,15 @@ from parser.grammar import (
     DEFAULT_MIN_CONTEXT,
     DEFAULT_VERTICAL,
     Grammar,
+    Weighting,
     train_grammar,
 )
 from parser.trees import read_trees, write_tree
 
 
-@click.command("train")
-@click.argument("treefiles", nargs=-1, required=True,
-                type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
-              help="Where to write the grammar (.npz).")
-@click.option("--horizontal", type=click.IntRange(min=0), default=DEFAULT_HORIZONTAL,
-              show_default=True, help="Previous siblings an intermediate node remembers.")
-@click.option("--vertical", type=click.IntRange(min=1), default=DEFAULT_VERTICAL,
-              show_default=True, help="1: plain labels; 2: parent annotation; 3: grandparent.")
-@click.option("--min-context", type=click.IntRange(min=0), default=DEFAULT_MIN_CONTEXT,
-              show_default=True,
-              help="Labels seen fewer times fall back one markovization order (0: never).")
-def train_command(treefiles: tuple[Path, ...], out: Path, horizontal: int,
-                  vertical: int, min_context: int) -> None:
-    """Train a grammar from bracketed tree files."""
-    t0 = time.perf_counter()
+def _read_files(paths: tuple[Path, ...]) -> list:
     trees = []
-    for path in treefiles:
+    for path in paths:
         try:
             text = path.read_text(encoding="utf-8")
             trees.extend(read_trees(text, source=str(path)))
@@ -61,18 +52,68 @@ def train_command(treefiles: tuple[Path, ...], out: Path, horizontal: int,
             raise click.ClickException(f"{path}: not UTF-8 text ({exc})") from exc
         except ParserError as exc:
             raise click.ClickException(str(exc)) from exc
+    return trees
+
+
+@click.command("train")
+@click.argument("treefiles", nargs=-1, required=True,
+                type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="Where to write the grammar (.npz).")
+@click.option("--reference", "references", multiple=True,
+              type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="A bracketed file of reference trees from another domain (repeatable); "
+                   "the TREEFILEs are the in-domain trees.")
+@click.option("--weight", "weight", default="auto", show_default=True,
+              help="How much an in-domain tree counts against the reference trees: 'auto' "
+                   "(every 10th in-domain tree held out to choose from a small grid by "
+                   "labelled F1; a measured default below 20 held-out trees), a number, or "
+                   "'rules=N,lexicon=N'.")
+@click.option("--horizontal", type=click.IntRange(min=0), default=DEFAULT_HORIZONTAL,
+              show_default=True, help="Previous siblings an intermediate node remembers.")
+@click.option("--vertical", type=click.IntRange(min=1), default=DEFAULT_VERTICAL,
+              show_default=True, help="1: plain labels; 2: parent annotation; 3: grandparent.")
+@click.option("--min-context", type=click.IntRange(min=0), default=DEFAULT_MIN_CONTEXT,
+              show_default=True,
+              help="Labels seen fewer times fall back one markovization order (0: never).")
+def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path, ...],
+                  weight: str, horizontal: int, vertical: int, min_context: int) -> None:
+    """Train a grammar from bracketed tree files (the in-domain trees), optionally with
+    reference trees from another domain."""
+    t0 = time.perf_counter()
+    trees = _read_files(treefiles)
+    reference = _read_files(references)
+    options: dict[str, Any] = {"horizontal": horizontal, "vertical": vertical,
+                               "min_context": min_context}
+    choice = None
     try:
-        with tqdm(total=len(trees), desc="training", unit="tree", file=sys.stderr,
-                  disable=len(trees) < 500) as bar:
+        if not reference:
+            weighting = Weighting()
+        elif weight.strip().lower() == "auto":
+            train, held = heldout_split(trees)
+            click.echo(f"choosing the weight: {len(train)} in-domain trees to train, "
+                       f"{len(held)} held out", err=True)
+            choice = choose_weighting(train, held, reference, **options)
+            weighting = choice.weighting
+        else:
+            weighting = parse_weighting(weight)
+        with tqdm(total=len(trees) + len(reference), desc="training", unit="tree",
+                  file=sys.stderr, disable=len(trees) + len(reference) < 500) as bar:
             def progress(done: int, total: int) -> None:
                 bar.update(done - bar.n)
-            g = train_grammar(trees, horizontal=horizontal, vertical=vertical,
-                              min_context=min_context, progress=progress)
+            g = train_grammar(trees, reference=reference, weighting=weighting,
+                              progress=progress, **options)
         g.save(out)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc
     seconds = time.perf_counter() - t0
-    click.echo(f"trees: {len(trees)}")
+    click.echo(f"trees: {len(trees)}" + (f" in-domain, {len(reference)} reference"
+                                         if reference else ""))
+    if reference:
+        click.echo(f"weight: {describe(weighting)}"
+                   + (f" ({choice.reason})" if choice is not None else ""))
+        for w, f1 in choice.scores if choice is not None else ():
+            click.echo(f"  {describe(w):>24}  held-out F1 {f1:.4f}")
     click.echo(f"rules: {len(g.bin_logp)} binary, {len(g.un_logp)} unary edges")
     click.echo(f"nonterminals: {g.n_symbols} symbols ({len(g.labels)} labels, "
                f"{len(g.tags)} POS tags)")

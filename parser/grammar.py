@@ -465,26 +465,17 @@ def _rescaled(counts: tuple[Counter, Counter], factor: Callable[[Any], float]) -
     return out
 
 
-def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
-                  vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
-                  tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
-                  features: Sequence[str] = DEFAULT_FEATURES, alpha: float = 1.0,
-                  beta: float = 1.0, head_outward: bool = DEFAULT_HEAD_OUTWARD,
-                  plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES,
-                  min_context: int = DEFAULT_MIN_CONTEXT, reference: Iterable[Tree] = (),
-                  weighting: Weighting | None = None) -> Grammar:
-    """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
-
-    ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
-    ``tag_ancestors``: parent annotation of POS tags; ``features``: names of extra
-    annotations from :mod:`parser.annotate`; ``alpha``/``beta``: lexicon smoothing
-    (see :mod:`parser.lexicon`); ``head_outward``, ``plain_intermediates``: how phrases are
-    factored (see :func:`parser.binarize.binarize`); ``min_context``: variable-order
-    markovization, see :data:`DEFAULT_MIN_CONTEXT`. ``reference``: further trees from
-    another domain, counted against ``trees`` (the in-domain trees) as ``weighting`` says
-    (see :class:`Weighting`; default: plain counts). ``progress(done, total)`` is called now
-    and then.
-    Raises GrammarError when there is no tree or the trees disagree on the root label.
+def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
+                   vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
+                   tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
+                   features: Sequence[str] = DEFAULT_FEATURES, alpha: float = 1.0,
+                   beta: float = 1.0, head_outward: bool = DEFAULT_HEAD_OUTWARD,
+                   plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES,
+                   min_context: int = DEFAULT_MIN_CONTEXT, reference: Iterable[Tree] = (),
+                   weightings: Sequence[Weighting] = (Weighting(),)) -> list[Grammar]:
+    """One grammar per weighting, all from one count of the trees (the counting dominates
+    the cost, so a grid of weightings costs little more than one grammar); the parameters
+    are those of :func:`train_grammar`.
     """
     from parser.annotate import annotators_for, functions_kept
 
@@ -493,14 +484,13 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     ref_list = list(reference)
     if not in_list and not ref_list:
         raise GrammarError("cannot train a grammar from zero trees")
-    weighting = weighting or Weighting()
     annotators = annotators_for(features)
     keep = functions_kept(features)
     names: dict[str, int] = {}
     chains: dict[tuple[str, ...], int] = {}
     # Counts per domain (0: reference, 1: in-domain), combined by the weighting at the end.
-    edge_count: tuple[Counter[tuple[int, int, int]], ...] = (Counter(), Counter())
-    bin_count: tuple[Counter[tuple[int, int, int]], ...] = (Counter(), Counter())
+    edge_count: tuple[Counter, Counter] = (Counter(), Counter())
+    bin_count: tuple[Counter, Counter] = (Counter(), Counter())
     lex_obs: list[tuple[int, str, bool, int]] = []
     root_label: str | None = None
     domain = 1
@@ -562,44 +552,72 @@ def train_grammar(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZO
     lex_ids = sorted({t for t, _, _, _ in lex_obs})
     lex_count = (Counter(t for t, _, _, d in lex_obs if d == 0),
                  Counter(t for t, _, _, d in lex_obs if d == 1))
-    edge_w, bin_w, lex_share_w = weighting.combine(edge_count, bin_count, lex_count)
-
-    bins = np.array([(a, b, c, k) for (a, b, c), k in bin_w.items()], dtype=float)
-    bins = bins.reshape(-1, 4)
-    edges = np.array([(a, b, ci, k) for (a, b, ci), k in edge_w.items()], dtype=float)
-    edges = edges.reshape(-1, 4)
-    bottom = np.zeros(n)
-    np.add.at(bottom, bins[:, 0].astype(int), bins[:, 3])
-    lex_mass = np.zeros(n)
-    for t, k in lex_share_w.items():
-        lex_mass[t] = k
-    bottom += lex_mass
-    tops = np.zeros(n)
-    np.add.at(tops, edges[:, 0].astype(int), edges[:, 3])
-    bin_logp = np.log(bins[:, 3]) - np.log(bottom[bins[:, 0].astype(int)])
-    un_logp = np.log(edges[:, 3]) - np.log(tops[edges[:, 0].astype(int)])
-
-    lex_row = {t: i for i, t in enumerate(lex_ids)}
-    lex_logp, vocab, sigs = estimate_lexicon(
-        ((lex_row[t], w, f, weighting.lexicon if d else 1.0) for t, w, f, d in lex_obs),
-        len(lex_ids), alpha=alpha, beta=beta)
-    # Lexical share of each lexical symbol's bottom role (1 for pure POS tags).
-    share = np.array([lex_mass[t] / bottom[t] for t in lex_ids])
-    lex_logp = lex_logp + np.log(share)[:, None]
+    seconds_counting = time.perf_counter() - t0
     chain_list = sorted(chains, key=chains.__getitem__)
-    meta = {
-        "signature_scheme": SCHEME, "source": "trees", "horizontal": horizontal,
-        "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
-        "alpha": alpha, "beta": beta, "head_outward": head_outward,
-        "plain_intermediates": plain_intermediates, "min_context": min_context, "trees": total,
-        "in_domain_trees": len(in_list), "reference_trees": len(ref_list),
-        "weighting": weighting.to_dict(),
-        "tag_counts": {symbols[t]: lex_count[0][t] + lex_count[1][t] for t in lex_ids},
-        "seconds": round(time.perf_counter() - t0, 3),
-    }
-    return Grammar(symbols=symbols, start=start,
-                   bin_parent=bins[:, 0], bin_left=bins[:, 1], bin_right=bins[:, 2],
-                   bin_logp=bin_logp, un_parent=edges[:, 0], un_child=edges[:, 1],
-                   un_chain=edges[:, 2], un_logp=un_logp, chains=chain_list,
-                   lex_symbols=np.array(lex_ids), lex_logp=lex_logp, vocab=vocab,
-                   signatures=sigs, meta=meta)
+
+    def estimate(weighting: Weighting) -> Grammar:
+        t1 = time.perf_counter()
+        edge_w, bin_w, lex_share_w = weighting.combine(edge_count, bin_count, lex_count)
+
+        bins = np.array([(a, b, c, k) for (a, b, c), k in bin_w.items()], dtype=float)
+        bins = bins.reshape(-1, 4)
+        edges = np.array([(a, b, ci, k) for (a, b, ci), k in edge_w.items()], dtype=float)
+        edges = edges.reshape(-1, 4)
+        bottom = np.zeros(n)
+        np.add.at(bottom, bins[:, 0].astype(int), bins[:, 3])
+        lex_mass = np.zeros(n)
+        for t, k in lex_share_w.items():
+            lex_mass[t] = k
+        bottom += lex_mass
+        tops = np.zeros(n)
+        np.add.at(tops, edges[:, 0].astype(int), edges[:, 3])
+        bin_logp = np.log(bins[:, 3]) - np.log(bottom[bins[:, 0].astype(int)])
+        un_logp = np.log(edges[:, 3]) - np.log(tops[edges[:, 0].astype(int)])
+
+        lex_row = {t: i for i, t in enumerate(lex_ids)}
+        lex_logp, vocab, sigs = estimate_lexicon(
+            ((lex_row[t], w, f, weighting.lexicon if d else 1.0) for t, w, f, d in lex_obs),
+            len(lex_ids), alpha=alpha, beta=beta)
+        # Lexical share of each lexical symbol's bottom role (1 for pure POS tags).
+        share = np.array([lex_mass[t] / bottom[t] for t in lex_ids])
+        lex_logp = lex_logp + np.log(share)[:, None]
+        meta = {
+            "signature_scheme": SCHEME, "source": "trees", "horizontal": horizontal,
+            "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
+            "alpha": alpha, "beta": beta, "head_outward": head_outward,
+            "plain_intermediates": plain_intermediates, "min_context": min_context,
+            "trees": total, "in_domain_trees": len(in_list), "reference_trees": len(ref_list),
+            "weighting": weighting.to_dict(),
+            "tag_counts": {symbols[t]: lex_count[0][t] + lex_count[1][t] for t in lex_ids},
+            "seconds": round(seconds_counting + time.perf_counter() - t1, 3),
+        }
+        return Grammar(symbols=symbols, start=start,
+                       bin_parent=bins[:, 0], bin_left=bins[:, 1], bin_right=bins[:, 2],
+                       bin_logp=bin_logp, un_parent=edges[:, 0], un_child=edges[:, 1],
+                       un_chain=edges[:, 2], un_logp=un_logp, chains=chain_list,
+                       lex_symbols=np.array(lex_ids), lex_logp=lex_logp, vocab=vocab,
+                       signatures=sigs, meta=meta)
+
+    return [estimate(w) for w in weightings]
+
+
+def train_grammar(trees: Iterable[Tree], *, reference: Iterable[Tree] = (),
+                  weighting: Weighting | None = None, progress: Progress | None = None,
+                  **options: Any) -> Grammar:
+    """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
+
+    ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
+    ``tag_ancestors``: parent annotation of POS tags; ``features``: names of extra
+    annotations from :mod:`parser.annotate`; ``alpha``/``beta``: lexicon smoothing
+    (see :mod:`parser.lexicon`); ``head_outward``, ``plain_intermediates``: how phrases are
+    factored (see :func:`parser.binarize.binarize`); ``min_context``: variable-order
+    markovization, see :data:`DEFAULT_MIN_CONTEXT`. ``reference``: further trees from
+    another domain, counted against ``trees`` (the in-domain trees) as ``weighting`` says
+    (see :class:`Weighting`; default: plain counts). ``progress(done, total)`` is called now
+    and then.
+    Keyword ``options`` (the markovization, annotation and smoothing parameters above) are
+    those of :func:`train_weighted`, with the defaults of this module.
+    Raises GrammarError when there is no tree or the trees disagree on the root label.
+    """
+    return train_weighted(trees, reference=reference, weightings=(weighting or Weighting(),),
+                          progress=progress, **options)[0]

@@ -102,15 +102,15 @@ def estimate_lexicon(
     observation sums to one (in probability); rows of tags never seen are all ``-inf``.
     Coarser back-off signatures get ``backoff_weight`` times the mass of the finest one.
     """
-    tag_word: Counter[tuple[int, str]] = Counter()
-    word_count: Counter[str] = Counter()
+    tag_word: dict[tuple[int, str], float] = {}
+    word_count: dict[str, float] = {}
     seen_count: Counter[str] = Counter()
     first_seen: dict[str, bool] = {}
     for obs in pairs:
         tag, word, first = obs[0], obs[1], obs[2]
-        weight = obs[3] if len(obs) > 3 else 1.0  # type: ignore[misc]
-        tag_word[(tag, word)] += weight
-        word_count[word] += weight
+        weight = float(obs[3]) if len(obs) > 3 else 1.0
+        tag_word[(tag, word)] = tag_word.get((tag, word), 0.0) + weight
+        word_count[word] = word_count.get(word, 0.0) + weight
         seen_count[word] += 1
         first_seen.setdefault(word, first)
     vocab = sorted(word_count)
@@ -119,7 +119,7 @@ def estimate_lexicon(
     sig_index: dict[str, int] = {}
     sig_weight: dict[str, float] = {}
     rare_tag_sig: Counter[tuple[int, int]] = Counter()
-    rare_sig: Counter[int] = Counter()
+    rare_sig: Counter[int] = Counter()  # float counts when observations carry weights
     rare_tag = np.zeros(n_tags)
     for (tag, word), c in tag_word.items():
         if seen_count[word] > rare:
@@ -128,8 +128,8 @@ def estimate_lexicon(
         for level, sig in enumerate(signature_backoff(word, first_seen[word])):
             s = sig_index.setdefault(sig, len(sig_index))
             sig_weight[sig] = 1.0 if level == 0 else backoff_weight
-            rare_tag_sig[(tag, s)] += c
-            rare_sig[s] += c
+            rare_tag_sig[(tag, s)] += c  # type: ignore[assignment]
+            rare_sig[s] += c  # type: ignore[assignment]
     if "UNK" not in sig_index:
         sig_index["UNK"] = len(sig_index)
         sig_weight["UNK"] = backoff_weight

@@ -1,0 +1,154 @@
+"""Cold start: a grammar for a new domain from a few in-domain trees and many reference trees.
+
+What it computes
+    :func:`parse_weighting` reads a weighting (:class:`parser.grammar.Weighting`) from text:
+    ``5`` (in-domain trees count five times, rules and lexicon alike), ``rules=2,lexicon=8``
+    or ``prior=50,lexicon=8``.
+
+    :func:`choose_weighting` picks the weighting of a small grid (:data:`GRID`) whose grammar,
+    trained on the in-domain training trees plus the reference, parses the in-domain held-out
+    trees best (labelled bracket F1 of the consensus tree, words only, the tree annotators
+    start from). The grid costs one count of the trees (:func:`parser.grammar.train_weighted`)
+    and one parse of the held-out trees per point. With fewer than :data:`MIN_HELDOUT`
+    held-out trees the choice would be noise, so :data:`DEFAULT` is used instead.
+
+    :func:`heldout_split` holds out every n-th tree, the same rule the service applies to its
+    gold (by position here, by sentence id there).
+
+Complexity: one training count plus len(grid) x held-out parses (O(n^3) each).
+Limits: the grid is small on purpose; a finer one overfits a few dozen held-out trees.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from nltk import Tree
+
+from parser.errors import GrammarError
+from parser.grammar import Grammar, Weighting, train_weighted
+from parser.scoring import score_corpus
+
+#: Held-out in-domain trees needed before the weighting is chosen by held-out F1.
+MIN_HELDOUT = 20
+#: The weighting used while there are too few held-out trees (measured by
+#: bench/cold_start.py; see DEVELOPERS.md).
+DEFAULT = Weighting(rules=4.0, lexicon=8.0)
+#: The grid :func:`choose_weighting` searches (plain counts included, so a domain that gains
+#: nothing from weighting is not forced to take one).
+GRID: tuple[Weighting, ...] = (
+    Weighting(),
+    Weighting(rules=2.0, lexicon=4.0),
+    Weighting(rules=4.0, lexicon=8.0),
+    Weighting(rules=8.0, lexicon=16.0),
+    Weighting(rules=16.0, lexicon=32.0),
+)
+
+
+def describe(w: Weighting) -> str:
+    """The text :func:`parse_weighting` reads back as ``w``."""
+    if w.prior is not None:
+        return f"prior={w.prior:g},lexicon={w.lexicon:g}"
+    if w.rules == w.lexicon:
+        return f"{w.rules:g}"
+    return f"rules={w.rules:g},lexicon={w.lexicon:g}"
+
+
+def parse_weighting(text: str) -> Weighting:
+    """A weighting from ``N``, or ``key=value`` pairs of rules, lexicon and prior separated by
+    commas; GrammarError naming the bad part otherwise."""
+    raw = (text or "").strip()
+    if not raw:
+        raise GrammarError("empty weighting: give a number such as 5 or rules=2,lexicon=8")
+    try:
+        w = float(raw)
+    except ValueError:
+        pass
+    else:
+        return Weighting(rules=w, lexicon=w)
+    values: dict[str, float] = {}
+    for part in raw.split(","):
+        key, sep, value = part.partition("=")
+        key = key.strip()
+        if not sep or key not in ("rules", "lexicon", "prior"):
+            raise GrammarError(f"weighting part {part.strip()!r}: expected rules=N, lexicon=N "
+                               "or prior=N")
+        if key in values:
+            raise GrammarError(f"weighting part {part.strip()!r}: {key} is given twice")
+        try:
+            values[key] = float(value)
+        except ValueError:
+            raise GrammarError(f"weighting part {part.strip()!r}: {value.strip()!r} is not a "
+                               "number") from None
+    return Weighting(**values)
+
+
+def heldout_split(trees: Sequence[Tree], every: int = 10) -> tuple[list[Tree], list[Tree]]:
+    """(training trees, held-out trees): every ``every``-th tree (the 10th, 20th...) is held
+    out."""
+    train = [t for i, t in enumerate(trees, 1) if i % every]
+    held = [t for i, t in enumerate(trees, 1) if not i % every]
+    return train, held
+
+
+def heldout_f1(grammar: Grammar, held: Sequence[Tree],
+               progress: Callable[[int, int], None] | None = None) -> float:
+    """Labelled bracket F1 (parser.scoring defaults) of the grammar's consensus trees of the
+    held-out trees' words against those trees."""
+    from parser.chart import parse
+
+    pairs = []
+    for i, gold in enumerate(held):
+        result = parse(grammar, gold.leaves(), posteriors=True)
+        test = result.consensus or result.trees[0]
+        if test.label() != gold.label():
+            test = Tree(gold.label(), [test])
+        pairs.append((gold, test))
+        if progress is not None:
+            progress(i + 1, len(held))
+    return score_corpus(pairs).f1
+
+
+@dataclass
+class Choice:
+    """The weighting chosen, each grid point's held-out F1 (None: the grid was not run), and
+    why."""
+
+    weighting: Weighting
+    scores: list[tuple[Weighting, float]] = field(default_factory=list)
+    heldout: int = 0
+    reason: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"weighting": describe(self.weighting), "reason": self.reason,
+                "heldout": self.heldout,
+                "grid": [{"weighting": describe(w), "f1": round(f, 5)} for w, f in self.scores]}
+
+
+def choose_weighting(train: Sequence[Tree], held: Sequence[Tree], reference: Sequence[Tree],
+                     grid: Sequence[Weighting] = GRID, default: Weighting = DEFAULT,
+                     progress: Callable[[int, int], None] | None = None,
+                     score: Callable[[Grammar], float] | None = None,
+                     **train_options: Any) -> Choice:
+    """The grid point with the best held-out F1 (the first of equals), or ``default`` when
+    there are fewer than MIN_HELDOUT held-out trees, no reference or no in-domain training
+    tree (then there is nothing to weigh). ``score(grammar)`` replaces :func:`heldout_f1` on
+    ``held`` (a caller that wants more than the F1 of each point)."""
+    if not reference:
+        return Choice(Weighting(), reason="no reference trees: plain counts")
+    if not train:
+        return Choice(default, reason="no in-domain training trees")
+    if len(held) < MIN_HELDOUT:
+        return Choice(default, heldout=len(held),
+                      reason=f"{len(held)} held-out trees (fewer than {MIN_HELDOUT}): default")
+    grammars = train_weighted(train, reference=reference, weightings=grid, **train_options)
+    scores: list[tuple[Weighting, float]] = []
+    for i, (w, g) in enumerate(zip(grid, grammars, strict=True)):
+        scores.append((w, score(g) if score is not None else heldout_f1(g, held)))
+        if progress is not None:
+            progress(i + 1, len(grid))
+    best = max(range(len(scores)), key=lambda i: (scores[i][1], -i))
+    return Choice(scores[best][0], scores, len(held),
+                  reason=f"best held-out F1 of {len(grid)} weightings on {len(held)} trees")
