@@ -11,7 +11,10 @@ from __future__ import annotations
 from enum import StrEnum
 from typing import Any
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+
+from parser.adapt import describe, parse_weighting
+from parser.errors import GrammarError
 
 
 class LabelPolicy(StrEnum):
@@ -29,9 +32,19 @@ class SettleOwnPolicy(StrEnum):
     NEVER = "never"
 
 
+class QueueOrder(StrEnum):
+    """The order in which the queue offers a corpus's open sentences."""
+
+    DOCUMENT = "document"  # documents in order, sentences in order within each
+    INFORMATIVE = "informative"  # the active grammar's least certain sentences first
+
+
 #: The choices of each setting that takes one of a few words.
 CHOICES: dict[str, type[StrEnum]] = {"unknown_label_policy": LabelPolicy,
-                                     "settle_own_annotation": SettleOwnPolicy}
+                                     "settle_own_annotation": SettleOwnPolicy,
+                                     "queue_order": QueueOrder}
+#: The value of ``reference_weight`` that lets held-out F1 choose the weighting.
+AUTO_WEIGHT = "auto"
 
 
 class CorpusSettings(BaseModel):
@@ -63,9 +76,39 @@ class CorpusSettings(BaseModel):
     gold_visible_to_annotators: bool = Field(
         True, description="Annotators may search the gold trees (they always see their own "
                           "work, never another annotator's).")
+    retrain_every_early: int = Field(
+        10, ge=0, le=100_000,
+        description="While the corpus has fewer gold trees than early_gold_limit, train after "
+                    "this many new gold trees instead (0: always use retrain_every).")
+    early_gold_limit: int = Field(
+        200, ge=0, le=1_000_000,
+        description="Gold trees up to which retrain_every_early applies.")
+    reference_weight: str = Field(
+        AUTO_WEIGHT,
+        description="How much an in-domain gold tree counts against the reference trees: "
+                    "'auto' (the best of a small grid by held-out F1 once 20 gold trees are "
+                    "held out, a measured default before), a number (e.g. 5) or "
+                    "'rules=N,lexicon=N'.")
+    queue_order: QueueOrder = Field(
+        QueueOrder.DOCUMENT,
+        description="'document': sentences in document order; 'informative': the sentences "
+                    "the active grammar is least sure of first (both annotators of a "
+                    "sentence get it at the same place).")
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import.")
+
+
+    @field_validator("reference_weight")
+    @classmethod
+    def _weighting(cls, value: str) -> str:
+        value = value.strip().lower()
+        if value == AUTO_WEIGHT:
+            return value
+        try:
+            return describe(parse_weighting(value))
+        except GrammarError as exc:
+            raise ValueError(f"not 'auto' or a weighting: {exc}") from None
 
 
 #: The settings an admin edits on the corpus page, in the form's order.
@@ -112,6 +155,9 @@ def _message(key: str, raw: Any, error_type: str) -> str:
                 f"{', '.join(p.value for p in CHOICES[key])}")
     if error_type in ("greater_than_equal", "less_than_equal"):
         return f"setting {key}: {raw} is outside {'..'.join(map(str, bounds(key)))}"
+    if key == "reference_weight":
+        return (f"setting {key}: {raw!r} is not 'auto', a number or a weighting such as "
+                "'rules=2,lexicon=8'")
     what = "an integer" if field.annotation is int else "a number"
     return f"setting {key}: {raw!r} is not {what}"
 

@@ -211,6 +211,11 @@ class Sentence(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     # which version of the tokens is current (1 as imported; a token fix adds one)
     token_version: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
+    #: How unsure the grammar ``entropy_grammar_id`` is about the sentence: its tree entropy
+    #: per word in nats (parser.chart.tree_entropy); orders the queue "most informative
+    #: first". None until computed.
+    entropy_per_word: Mapped[float | None] = mapped_column(Float, nullable=True)
+    entropy_grammar_id: Mapped[int | None] = mapped_column(Integer, nullable=True)
 
     document: Mapped[Document] = relationship(back_populates="sentences")
 
@@ -378,6 +383,30 @@ class GrammarVersion(Base):
     data: Mapped[bytes | None] = deferred(mapped_column(LargeBinary, nullable=True))
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     finished_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+
+
+class ReferenceSet(Base):
+    """Trees from outside the corpus (an open treebank under its licence, a team's older
+    trees) that the corpus's grammars train on beside its gold. They are never sentences of
+    the corpus: not in its queue, its agreement figures or its exports."""
+
+    __tablename__ = "reference_sets"
+    __table_args__ = (UniqueConstraint("corpus_id", "name"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
+                                           index=True)
+    name: Mapped[str] = mapped_column(String(128))
+    source: Mapped[str] = mapped_column(Text, default="")
+    licence: Mapped[str] = mapped_column(Text, default="")
+    #: One bracketed tree per line (parser.trees.write_tree), empty elements removed.
+    trees: Mapped[str] = mapped_column(Text, deferred=True)
+    tree_count: Mapped[int] = mapped_column(Integer, default=0)
+    word_count: Mapped[int] = mapped_column(Integer, default=0)
+    #: Whether training uses the set (a set is switched off, never silently dropped).
+    in_use: Mapped[bool] = mapped_column(Boolean, default=True)
+    created_by: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
+                                                   nullable=True)
+    created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
 
 class Suggestion(Base):

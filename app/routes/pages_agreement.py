@@ -25,8 +25,18 @@ def learning_curve(db: SessionDep, corpus_id: int) -> tuple[list[GrammarVersion]
     scored = training.scored_versions(db, corpus_id)
     series = [Series("held-out F1", [Point(v.training_size, v.heldout_f1 or 0.0,
                                            f"version {v.number}: {v.heldout_f1:.3f} "
-                                           f"({v.training_size} gold trees, {v.status})")
+                                           f"({v.training_size} gold trees, {v.status}; "
+                                           f"{training.weight_text(v)})")
                                      for v in scored], css="s2")]
+    # The reference-only start: what the reference trees alone score on the same held-out
+    # gold, so the gain from the corpus's own trees can be read off against it.
+    alone = [(v, f) for v in scored
+             if (f := training.reference_only_f1(v)) is not None]
+    if alone:
+        series.append(Series("reference trees alone", [
+            Point(v.training_size, f, f"version {v.number}: the reference trees alone score "
+                                      f"{f:.3f} on its held-out gold") for v, f in alone],
+            css="s1"))
     chart = line_chart(series, title="Parser F1 on held-out gold by grammar version",
                        x_title="gold trees in training", y_title="held-out F1")
     return scored, chart

@@ -2,11 +2,11 @@
 
 N is the corpus setting ``annotators_per_sentence`` (default 2). The team is every active
 annotator and adjudicator (admins only when named explicitly). Sentences that are ``queued``
-or ``in_progress`` are considered, in document order; gold sentences and sentences under
-review are left alone. For each sentence short of N, the missing places go to the people with
-the fewest open assignments in the corpus (ties: fewer assignments overall in this run, then
-user id), never to someone already assigned to it. Running it again changes nothing for
-sentences that already have N: it is idempotent.
+or ``in_progress`` are considered, in the corpus's queue order (app.services.queue_order);
+gold sentences and sentences under review are left alone. For each sentence short of N, the
+missing places go to the people with the fewest open assignments in the corpus (ties: fewer
+assignments overall in this run, then user id), never to someone already assigned to it.
+Running it again changes nothing for sentences that already have N: it is idempotent.
 
 Cost: O(S * P log P) for S sentences and P people; one query for the existing assignments.
 """
@@ -33,6 +33,7 @@ from app.models import (
 )
 from app.services.corpora import get_corpus
 from app.services.errors import BadInput, NotFound
+from app.services.queue_order import apply_order, informative, sentence_order
 from app.services.transactions import unit_of_work
 from app.wording import plural
 
@@ -92,7 +93,7 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
     query = (select(Sentence.id, Sentence.document_id, Sentence.position)
              .join(Document, Document.id == Sentence.document_id)
              .where(Sentence.corpus_id == corpus.id, Sentence.state.in_(OPEN_STATES))
-             .order_by(Document.position, Document.id, Sentence.position))
+             .order_by(*sentence_order(db, corpus)))
     if sentence_ids is not None:
         wanted = set(sentence_ids)
         query = query.where(Sentence.id.in_(wanted))
@@ -134,6 +135,9 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
             result.created += len(chosen)
         if len(have) < needed:
             result.short.append(sid)
+    if result.created and informative(corpus):
+        db.flush()
+        apply_order(db, corpus.id)  # new rows start in reading order
     result.per_user = {names[uid]: n for uid, n in fresh.items() if n}
     db.add(Event(user_id=by.id if by else None, kind="assign", corpus_id=corpus.id,
                  detail={"created": result.created, "per_sentence": needed,

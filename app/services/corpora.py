@@ -51,6 +51,7 @@ from app.models import (
     User,
 )
 from app.services.errors import BadInput, Conflict, NotFound
+from app.services.queue_order import apply_order
 from app.services.transactions import unit_of_work
 
 # Phrase labels of Treebank II bracketing (Bies, Ferguson, Katz and MacIntyre 1995, "Bracketing
@@ -245,7 +246,11 @@ def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | Non
         merged[DERIVED_KEY] = False
     if description is not None:
         corpus.description = description.strip()
+    reorder = merged.get("queue_order") != (corpus.settings or {}).get("queue_order")
     corpus.settings = merged
+    if reorder:
+        db.flush()
+        apply_order(db, corpus.id)
     db.add(Event(user_id=user.id if user else None, kind="corpus_settings", corpus_id=corpus.id,
                  detail={"settings": settings or {},
                          "label_set": label_set is not None, "tag_set": tag_set is not None}))

@@ -55,6 +55,7 @@ Limits: one process trains at a time; a job cannot be cancelled once it runs.
 from __future__ import annotations
 
 import logging
+import math
 import multiprocessing
 import os
 import tempfile
@@ -73,6 +74,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
+from app.corpus_settings import AUTO_WEIGHT, CorpusSettings, QueueOrder
 from app.db import make_engine, make_sessionmaker
 from app.models import (
     GV_FAILED,
@@ -80,10 +82,13 @@ from app.models import (
     GV_READY,
     GV_REJECTED,
     GV_TRAINING,
+    SENT_IN_PROGRESS,
+    SENT_QUEUED,
     Corpus,
     Event,
     Gold,
     GrammarVersion,
+    ReferenceSet,
     Sentence,
     utcnow,
 )
@@ -91,10 +96,12 @@ from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
 from app.services.findings import fail_interrupted_runs, run_finder
 from app.services.findings import queue_run as queue_findings
+from app.services.queue_order import apply_order
 from app.services.suggestions import refresh_unstarted
 from app.settings import Settings
+from parser.adapt import choose_weighting, describe, parse_weighting
 from parser.errors import ParserError
-from parser.grammar import Grammar, train_grammar
+from parser.grammar import Grammar, Weighting, train_grammar
 from parser.scoring import score_corpus
 from parser.trees import drop_empty_elements, read_tree, words
 
@@ -105,6 +112,8 @@ KICK_FLAG = "treewright_training_kick"
 #: Seconds between two progress writes to the database (a job writes far less often than this
 #: in its slow phases; the cap keeps the fast ones from hammering the row).
 PROGRESS_EVERY = 0.5
+#: Sentences whose entropy the queue order uses: the ones still to be annotated.
+RANKED_STATES = (SENT_QUEUED, SENT_IN_PROGRESS)
 
 # --------------------------------------------------------------------------------------------
 # queueing
@@ -153,10 +162,21 @@ def _queue(db: Session, corpus: Corpus, reason: str, user_id: int | None) -> Gra
     return version
 
 
+def retrain_interval(options: CorpusSettings, gold: int) -> int:
+    """New gold trees between two automatic versions: ``retrain_every``, or the smaller
+    ``retrain_every_early`` while the corpus has fewer than ``early_gold_limit`` gold trees
+    (early suggestions improve within a day); 0: automatic training is off."""
+    every = options.retrain_every
+    early = options.retrain_every_early
+    if every > 0 and early > 0 and gold < options.early_gold_limit:
+        return min(every, early)
+    return every
+
+
 def queue_if_due(db: Session, corpus: Corpus) -> GrammarVersion | None:
-    """Queue the next version when ``retrain_every`` new gold trees have arrived. Does not
-    commit; the job starts once the caller's transaction commits."""
-    every = corpus.options.retrain_every
+    """Queue the next version when :func:`retrain_interval` new gold trees have arrived. Does
+    not commit; the job starts once the caller's transaction commits."""
+    every = retrain_interval(corpus.options, current_gold_count(db, corpus.id))
     if every <= 0 or open_job(db, corpus.id) is not None:
         return None
     if new_gold_since_last(db, corpus) < every:
@@ -314,23 +334,52 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         corpus_id = corpus.id
         every = corpus.options.heldout_every
         max_drop = corpus.options.max_f1_drop
+        weight_setting = corpus.options.reference_weight
         gold = load_gold(db, corpus_id)
+        refs = load_reference(db, corpus_id)
         version.gold_count_at_start = current_gold_count(db, corpus_id)
         db.commit()
-    progress(0.02, f"read {len(gold)} gold trees", force=True)
-    if not gold:
-        raise ValueError("the corpus has no gold trees to train on")
+    reference = [t for _, trees in refs for t in trees]
+    progress(0.02, f"read {len(gold)} gold trees and {len(reference)} reference trees",
+             force=True)
+    if not gold and not reference:
+        raise ValueError("the corpus has no gold trees and no reference trees to train on")
     train, held = split_heldout(gold, every)
     t_load = time.perf_counter()
 
     heldout_f1: float | None = None
     heldout_detail: dict[str, Any] = {}
-    if held:
-        g_slice = train_grammar([g.tree for g in train],
+    adaptation: dict[str, Any] = {}
+    details: list[tuple[float, dict[str, Any]]] = []
+
+    def score(g: Grammar) -> float:
+        details.append(_score_heldout(g, held, progress))
+        return details[-1][0]
+
+    if reference and weight_setting == AUTO_WEIGHT:
+        choice = choose_weighting([g.tree for g in train], [g.tree for g in held], reference,
+                                  score=score)
+        weighting = choice.weighting
+        adaptation = {"setting": weight_setting, **choice.to_dict()}
+        if choice.scores:
+            best = [w for w, _ in choice.scores].index(weighting)
+            heldout_f1, heldout_detail = details[best]
+    else:
+        weighting = parse_weighting(weight_setting) if reference and \
+            weight_setting != AUTO_WEIGHT else Weighting()
+        adaptation = {"setting": weight_setting, "weighting": describe(weighting),
+                      "reason": "set on the corpus" if reference else "no reference trees"}
+    if held and heldout_f1 is None:
+        g_slice = train_grammar([g.tree for g in train], reference=reference,
+                                weighting=weighting,
                                 progress=progress.phase(0.02, 0.2, "training on the slice"))
         heldout_f1, heldout_detail = _score_heldout(g_slice, held, progress)
+    if reference and held:
+        # the reference-only start on today's held-out gold (the learning curve's baseline)
+        adaptation["reference_only_f1"] = round(score(train_grammar([], reference=reference)),
+                                                5)
     t_eval = time.perf_counter()
-    grammar = train_grammar([g.tree for g in gold],
+    grammar = train_grammar([g.tree for g in gold], reference=reference, weighting=weighting,
                             progress=progress.phase(0.85, 0.95, "training on all gold"))
     data = grammar_bytes(grammar)
     t_final = time.perf_counter()
@@ -355,6 +404,9 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
                                              "vertical": grammar.meta.get("vertical"),
                                              "min_context": grammar.meta.get("min_context")},
                            "slice_size": len(train), "heldout": heldout_detail,
+                           "reference": [{"id": rid, "trees": len(trees)}
+                                         for rid, trees in refs],
+                           "reference_trees": len(reference), "adaptation": adaptation,
                            "worker_pid": os.getpid(),
                            "timing": {"load": round(t_load - t0, 3),
                                       "slice_and_heldout": round(t_eval - t_load, 3),
@@ -386,6 +438,14 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
             log.exception("refreshing suggestions under grammar version %s failed", version_id)
             db.rollback()
             refreshed = f"refreshing the suggestions failed: {exc}"[:1000]
+        if corpus.options.queue_order == QueueOrder.INFORMATIVE:
+            try:
+                ranked = rank_open_sentences(db, corpus.id, version.id, grammar)
+                refreshed += f"; {ranked} open sentences ranked by the grammar's uncertainty"
+            except Exception as exc:  # noqa: BLE001 - the queue falls back to document order
+                log.exception("ranking the queue under grammar version %s failed", version_id)
+                db.rollback()
+                refreshed += f"; ranking the queue failed: {exc}"[:500]
         db.execute(update(GrammarVersion).where(GrammarVersion.id == version_id)
                    .values(message=f"active; {f1_text}; {refreshed}", progress=1.0))
         db.commit()
@@ -416,6 +476,38 @@ def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
     done = refresh_unstarted(db, corpus, version, processes=1)
     db.commit()
     return f"new suggestions for {done} unstarted sentences"
+
+
+def load_reference(db: Session, corpus_id: int) -> list[tuple[int, list[Tree]]]:
+    """(set id, trees) of every reference set the corpus trains on, ROOT-rooted."""
+    rows = db.execute(select(ReferenceSet.id, ReferenceSet.trees)
+                      .where(ReferenceSet.corpus_id == corpus_id, ReferenceSet.in_use.is_(True))
+                      .order_by(ReferenceSet.id)).all()
+    return [(rid, [rooted(read_tree(line)) for line in text.splitlines() if line.strip()])
+            for rid, text in rows]
+
+
+def rank_open_sentences(db: Session, corpus_id: int, version_id: int, grammar: Grammar) -> int:
+    """Store the tree entropy per word (parser.chart.tree_entropy) of every open sentence of
+    the corpus under ``grammar``, which orders the queue "most informative first". Commits in
+    batches (a background job); returns how many sentences were ranked."""
+    from parser.chart import tree_entropy
+
+    rows = db.execute(select(Sentence.id, Sentence.tokens).where(
+        Sentence.corpus_id == corpus_id, Sentence.state.in_(RANKED_STATES))
+        .order_by(Sentence.id)).all()
+    done = 0
+    for start in range(0, len(rows), 50):
+        for sid, tokens in rows[start:start + 50]:
+            entropy = tree_entropy(grammar, tokens) if tokens else math.nan
+            per_word = None if math.isnan(entropy) else round(entropy / len(tokens), 6)
+            db.execute(update(Sentence).where(Sentence.id == sid)
+                       .values(entropy_per_word=per_word, entropy_grammar_id=version_id))
+            done += 1
+        db.commit()
+    apply_order(db, corpus_id)
+    db.commit()
+    return done
 
 
 def drain(factory: sessionmaker[Session]) -> int:
@@ -674,6 +766,24 @@ def get_version(db: Session, version_id: int) -> GrammarVersion:
     if version is None:
         raise NotFound(f"no grammar version with id {version_id}")
     return version
+
+
+def weight_text(version: GrammarVersion) -> str:
+    """How the version weighed its gold against reference trees, in words for the pages."""
+    options = version.options or {}
+    adaptation = options.get("adaptation") or {}
+    if not options.get("reference_trees"):
+        return "gold only"
+    text = f"in-domain weight {adaptation.get('weighting', '?')}"
+    if adaptation.get("setting") == AUTO_WEIGHT:
+        text += " (auto: " + str(adaptation.get("reason", "")) + ")"
+    return text
+
+
+def reference_only_f1(version: GrammarVersion) -> float | None:
+    """The held-out F1 of the reference trees alone, scored with the version (or None)."""
+    value = ((version.options or {}).get("adaptation") or {}).get("reference_only_f1")
+    return float(value) if value is not None else None
 
 
 def scored_versions(db: Session, corpus_id: int) -> list[GrammarVersion]:

@@ -30,16 +30,14 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0005")
+    command.downgrade(cfg, "0006")
     engine = create_engine(settings.resolved_database_url)
     try:
-        sentence_cols = {c["name"] for c in inspect(engine).get_columns("sentences")}
-        revision_cols = {c["name"] for c in inspect(engine).get_columns("revisions")}
+        cols = {c["name"] for c in inspect(engine).get_columns("sentences")}
         tables = set(inspect(engine).get_table_names())
     finally:
         engine.dispose()
-    assert "token_version" not in sentence_cols and "tokens" in sentence_cols
-    assert "token_version" not in revision_cols and "tree" in revision_cols
-    assert "token_versions" not in tables and "sentence_counts" in tables
+    assert "entropy_per_word" not in cols and "tokens" in cols
+    assert "reference_sets" not in tables and "gold" in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []

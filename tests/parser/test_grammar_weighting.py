@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pytest
 from nltk import Tree
@@ -18,7 +20,8 @@ from parser.errors import GrammarError
 from parser.grammar import Grammar, Weighting, train_grammar, train_weighted
 from parser.lexicon import estimate_lexicon
 
-PLAIN = {"horizontal": 1, "vertical": 1, "tag_ancestors": 0, "features": (), "min_context": 0}
+PLAIN: dict[str, Any] = {"horizontal": 1, "vertical": 1, "tag_ancestors": 0, "features": (),
+                         "min_context": 0}
 IN_DOMAIN = [Tree.fromstring("(ROOT (S (NP (PRP it)) (VP (VBD ran))))")]
 REFERENCE = [Tree.fromstring("(ROOT (S (NP (DT the) (NN dog)) (VP (VBD ran))))")]
 
@@ -30,7 +33,8 @@ def _np_edges(g: Grammar) -> dict[tuple[str, ...], float]:
 
 
 def _rules(g: Grammar) -> dict[tuple[str, ...], float]:
-    out = {(g.symbols[a], g.symbols[b], g.symbols[c]): float(lp) for a, b, c, lp in
+    out: dict[tuple[str, ...], float] = {
+        (g.symbols[a], g.symbols[b], g.symbols[c]): float(lp) for a, b, c, lp in
            zip(g.bin_parent, g.bin_left, g.bin_right, g.bin_logp, strict=True)}
     out.update({g.chains[c]: float(lp) for c, lp in zip(g.un_chain, g.un_logp, strict=True)})
     return out
