@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 import click
+from nltk import Tree
 from tqdm import tqdm
 
 from parser.adapt import choose_weighting, describe, heldout_split, parse_weighting
@@ -42,8 +43,8 @@ from parser.grammar import (
 from parser.trees import read_trees, write_tree
 
 
-def _read_files(paths: tuple[Path, ...]) -> list:
-    trees = []
+def _read_files(paths: tuple[Path, ...]) -> list[Tree]:
+    trees: list[Tree] = []
     for path in paths:
         try:
             text = path.read_text(encoding="utf-8")

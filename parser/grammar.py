@@ -398,6 +398,11 @@ def _from_rules(rules: list[tuple[str, tuple[str, ...], float, bool]], start: st
 
 
 # --------------------------------------------------------------------------- training
+#: Counts per domain (index 0: reference, 1: in-domain) and the weighted counts made of them.
+DomainCounts = tuple[Counter[Any], Counter[Any]]
+Effective = dict[Any, float]
+
+
 @dataclass(frozen=True)
 class Weighting:
     """How in-domain trees count against reference trees in :func:`train_grammar`.
@@ -427,8 +432,8 @@ class Weighting:
     def to_dict(self) -> dict[str, float | None]:
         return {"rules": self.rules, "lexicon": self.lexicon, "prior": self.prior}
 
-    def combine(self, edges: tuple[Counter, Counter], binaries: tuple[Counter, Counter],
-                lexical: tuple[Counter, Counter]) -> tuple[dict, dict, dict]:
+    def combine(self, edges: DomainCounts, binaries: DomainCounts,
+                lexical: DomainCounts) -> tuple[Effective, Effective, Effective]:
         """Effective (float) counts of the unary edges, binary rules and lexical uses from
         the counts per domain (index 0 reference, 1 in-domain). Edges are normalized per
         parent (top role); binary rules and lexical uses together per bottom symbol."""
@@ -451,15 +456,15 @@ class Weighting:
         return e, b, x
 
 
-def _merged(counts: tuple[Counter, Counter], weight: float) -> dict:
-    out: dict = {k: float(v) for k, v in counts[0].items()}
+def _merged(counts: DomainCounts, weight: float) -> Effective:
+    out: dict[Any, float] = {k: float(v) for k, v in counts[0].items()}
     for k, v in counts[1].items():
         out[k] = out.get(k, 0.0) + weight * v
     return out
 
 
-def _rescaled(counts: tuple[Counter, Counter], factor: Callable[[Any], float]) -> dict:
-    out: dict = {k: v * factor(k) for k, v in counts[0].items()}
+def _rescaled(counts: DomainCounts, factor: Callable[[Any], float]) -> Effective:
+    out: dict[Any, float] = {k: v * factor(k) for k, v in counts[0].items()}
     for k, v in counts[1].items():
         out[k] = out.get(k, 0.0) + float(v)
     return out
@@ -489,8 +494,8 @@ def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZ
     names: dict[str, int] = {}
     chains: dict[tuple[str, ...], int] = {}
     # Counts per domain (0: reference, 1: in-domain), combined by the weighting at the end.
-    edge_count: tuple[Counter, Counter] = (Counter(), Counter())
-    bin_count: tuple[Counter, Counter] = (Counter(), Counter())
+    edge_count: DomainCounts = (Counter(), Counter())
+    bin_count: DomainCounts = (Counter(), Counter())
     lex_obs: list[tuple[int, str, bool, int]] = []
     root_label: str | None = None
     domain = 1
