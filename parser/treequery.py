@@ -44,10 +44,11 @@ Matching and cost:
 from __future__ import annotations
 
 import bisect
+import functools
 import re
 from array import array
 from collections import defaultdict
-from collections.abc import Hashable, Iterator, Sequence
+from collections.abc import Callable, Hashable, Iterator, Sequence
 from dataclasses import dataclass, field
 
 from nltk import Tree
@@ -118,17 +119,29 @@ class Fragment:
     children: tuple[Child, ...] | None  # None: children left open
 
     def label_matches(self, label: str) -> bool:
-        if self.labels is None:
+        return self.labels is None or _label_test(self.labels)(label)
+
+
+@functools.lru_cache(maxsize=4096)
+def _base(label: str) -> str:
+    return strip_label(label)
+
+
+@functools.lru_cache(maxsize=256)
+def _label_test(wants: tuple[str, ...]) -> Callable[[str], bool]:
+    """A test for labels: a name without function tags matches the label stripped of its
+    function tags; a name with them matches itself and longer forms (``NP-SBJ-1``)."""
+    plain = frozenset(w for w in wants if w[0] != "-" and strip_label(w) == w)
+    exact = frozenset(wants)
+    tagged = tuple(w for w in wants if w not in plain)
+
+    @functools.lru_cache(maxsize=4096)
+    def test(label: str) -> bool:
+        if label in exact or _base(label) in plain:
             return True
-        for want in self.labels:
-            if label == want:
-                return True
-            if want[0] != "-" and strip_label(want) == want:
-                if strip_label(label) == want:
-                    return True
-            elif label.startswith(want + "-") or label.startswith(want + "="):
-                return True
-        return False
+        return any(label.startswith(w + "-") or label.startswith(w + "=") for w in tagged)
+
+    return test
 
 
 @dataclass(frozen=True)
@@ -324,10 +337,20 @@ def _child_matches(item: Child, node: Tree | str) -> bool:
 
 
 def _somewhere(item: Child, node: Tree | str) -> bool:
-    flat = Child(item.kind, item.node, item.word, False)
-    if _child_matches(flat, node):
-        return True
-    return isinstance(node, Tree) and any(_somewhere(item, c) for c in node)
+    """Does ``node`` or anything below it match the ``~`` item (without its ``~``)?"""
+    todo = [node]
+    while todo:
+        here = todo.pop()
+        if item.kind == "word":
+            w = _word_of(here)
+            assert item.word is not None
+            if w is not None and item.word.matches(w):
+                return True
+        elif item.node is not None and _node_matches(item.node, here):
+            return True
+        if isinstance(here, Tree) and not is_preterminal(here):
+            todo.extend(here)
+    return False
 
 
 def match_tree(pattern: Pattern, tree: Tree) -> list[tuple[int, int]]:
