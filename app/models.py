@@ -383,6 +383,10 @@ class GrammarVersion(Base):
     data: Mapped[bytes | None] = deferred(mapped_column(LargeBinary, nullable=True))
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     finished_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+    # who runs the job while it trains: host name, process id, and when it last said so
+    owner_host: Mapped[str | None] = mapped_column(String(255), nullable=True)
+    owner_pid: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    heartbeat_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
 
 
 class ReferenceSet(Base):

@@ -47,6 +47,12 @@ Where jobs run
     registered for the session's engine. A runner that starts (first use, or service start)
     marks rows left in ``training`` by a dead process as failed, then drains the queue.
 
+    Each job has an owner: the host and process id that claimed it, and a heartbeat the
+    process writes every HEARTBEAT_SECONDS while it trains. A job is failed as interrupted
+    only when its owner is gone: no heartbeat for STALE_AFTER seconds, or (same host) its
+    process has ended. So a worker that restarts under ``serve --workers N`` leaves the other
+    workers' running jobs alone.
+
 Complexity: training is linear in the gold tree nodes; held-out scoring costs one CKY parse
 per held-out tree (O(n^3) each), which dominates on large corpora.
 Limits: one process trains at a time; a job cannot be cancelled once it runs.
@@ -58,6 +64,7 @@ import logging
 import math
 import multiprocessing
 import os
+import socket
 import tempfile
 import threading
 import time
@@ -65,6 +72,7 @@ import weakref
 from collections.abc import Callable
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from dataclasses import dataclass
+from datetime import datetime
 from pathlib import Path
 from typing import Any, cast
 
@@ -108,6 +116,12 @@ from parser.trees import drop_empty_elements, read_tree, words
 log = logging.getLogger(__name__)
 
 ROOT_LABEL = "ROOT"
+#: This machine's name, recorded as the owner of the jobs its processes claim.
+HOST = socket.gethostname()[:255]
+#: Seconds between two heartbeats of a running job.
+HEARTBEAT_SECONDS = 10.0
+#: A job whose heartbeat is older than this (seconds) has lost its owner.
+STALE_AFTER = 6 * HEARTBEAT_SECONDS
 KICK_FLAG = "treewright_training_kick"
 #: Seconds between two progress writes to the database (a job writes far less often than this
 #: in its slow phases; the cap keeps the fast ones from hammering the row).
@@ -301,7 +315,9 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
         for vid in db.scalars(query.order_by(GrammarVersion.created_at, GrammarVersion.id)):
             moved = db.execute(update(GrammarVersion)
                                .where(GrammarVersion.id == vid, GrammarVersion.status == GV_QUEUED)
-                               .values(status=GV_TRAINING, progress=0.0, message="starting")
+                               .values(status=GV_TRAINING, progress=0.0, message="starting",
+                                       owner_host=HOST, owner_pid=os.getpid(),
+                                       heartbeat_at=utcnow())
                                .execution_options(synchronize_session=False))
             db.commit()
             if cast(CursorResult[Any], moved).rowcount == 1:
@@ -309,11 +325,46 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
         return None
 
 
+class Heartbeat:
+    """While a job runs, a thread of its process writes ``heartbeat_at`` every
+    HEARTBEAT_SECONDS, so that other processes can tell a live job from an abandoned one."""
+
+    def __init__(self, factory: sessionmaker[Session], version_id: int,
+                 every: float = HEARTBEAT_SECONDS) -> None:
+        self.factory = factory
+        self.version_id = version_id
+        self.every = every
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._beat, daemon=True,
+                                        name=f"treewright-heartbeat-{version_id}")
+
+    def _beat(self) -> None:
+        while not self._stop.wait(self.every):
+            try:
+                with self.factory() as db:
+                    db.execute(update(GrammarVersion)
+                               .where(GrammarVersion.id == self.version_id,
+                                      GrammarVersion.status == GV_TRAINING)
+                               .values(heartbeat_at=utcnow()))
+                    db.commit()
+            except Exception:  # noqa: BLE001 - a missed beat is retried at the next one
+                log.warning("heartbeat of grammar version %s failed", self.version_id)
+
+    def __enter__(self) -> Heartbeat:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._stop.set()
+        self._thread.join(timeout=self.every + 5)
+
+
 def run_version(factory: sessionmaker[Session], version_id: int) -> None:
     """Run one claimed job (status ``training``) to its end; failures land in the row."""
     progress = _Progress(factory, version_id)
     try:
-        _run(factory, version_id, progress)
+        with Heartbeat(factory, version_id):
+            _run(factory, version_id, progress)
     except Exception as exc:  # noqa: BLE001 - every failure must reach the row, not vanish
         log.exception("training grammar version %s failed", version_id)
         with factory() as db:
@@ -545,17 +596,52 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
         return row
 
 
+def process_alive(pid: int) -> bool:
+    """Whether a process with this id runs on this host (signal 0 checks without sending)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # it exists, under another user
+        return True
+    return True
+
+
+def owner_gone(version: GrammarVersion, now: datetime) -> bool:
+    """Whether the process that claimed a ``training`` job no longer runs it: its heartbeat is
+    older than STALE_AFTER seconds, or it ran on this host and its process has ended. A job
+    claimed before owners were recorded has none and counts as abandoned."""
+    beat = version.heartbeat_at
+    if version.owner_pid is None or beat is None:
+        return True
+    if (now - beat).total_seconds() > STALE_AFTER:
+        return True
+    return version.owner_host == HOST and not process_alive(version.owner_pid)
+
+
 def fail_interrupted(factory: sessionmaker[Session]) -> int:
-    """Mark jobs left in ``training`` (their process died with the service) as failed, and
-    findings runs left ``running`` too."""
+    """Mark the jobs in ``training`` whose owner is gone (see :func:`owner_gone`) as failed;
+    a job another live process trains is left alone. Findings runs left ``running`` are
+    failed too. How many jobs were failed. Commits."""
+    failed = 0
     with factory() as db:
-        result = db.execute(update(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
-                            .values(status=GV_FAILED, finished_at=utcnow(),
-                                    message="interrupted: the service stopped while it trained")
-                            .execution_options(synchronize_session=False))
+        now = utcnow()
+        for version in db.scalars(select(GrammarVersion)
+                                  .where(GrammarVersion.status == GV_TRAINING)).all():
+            if not owner_gone(version, now):
+                continue
+            # compare-and-set: the owner may have finished or beaten meanwhile
+            moved = db.execute(update(GrammarVersion).where(
+                GrammarVersion.id == version.id, GrammarVersion.status == GV_TRAINING,
+                GrammarVersion.heartbeat_at.is_(None) if version.heartbeat_at is None
+                else GrammarVersion.heartbeat_at == version.heartbeat_at)
+                .values(status=GV_FAILED, finished_at=now,
+                        message="interrupted: the process that trained it stopped")
+                .execution_options(synchronize_session=False))
+            failed += int(cast(CursorResult[Any], moved).rowcount or 0)
         db.commit()
     fail_interrupted_runs(factory)
-    return int(cast(CursorResult[Any], result).rowcount or 0)
+    return failed
 
 
 # --------------------------------------------------------------------------------------------
