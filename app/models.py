@@ -25,6 +25,7 @@ from sqlalchemy import (
     Text,
     UniqueConstraint,
     select,
+    text,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, deferred, mapped_column, relationship
 
@@ -89,6 +90,9 @@ ANNOTATION_STATES = tuple(AnnotationState)
 # Where a revision's tree came from.
 REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat",
                "restore", "tokens")
+# the edit actions the Bench counts with each revision (Revision.actions)
+ACTION_KINDS = ("add", "remove", "relabel", "retag", "move", "edge", "pin", "reparse",
+                "reading", "text", "undo", "redo", "restore", "tokens")
 
 GV_QUEUED = GrammarStatus.QUEUED
 GV_TRAINING = GrammarStatus.TRAINING
@@ -315,6 +319,8 @@ class Annotation(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     updated_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     submitted_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+    # the tree the annotator's work started from (the suggestion shown before the first save)
+    start_tree: Mapped[str | None] = mapped_column(Text, nullable=True)
 
 
 class Revision(Base):
@@ -334,6 +340,11 @@ class Revision(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     # the version of the sentence's tokens this tree was made on
     token_version: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
+    # measured by the page since the previous save: active editing seconds (idle gaps over a
+    # minute left out) and the edit actions by kind
+    active_seconds: Mapped[float] = mapped_column(Float, default=0.0, server_default="0")
+    actions: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict,
+                                                    server_default=text("'{}'"))
 
 
 class Gold(Base):

@@ -162,7 +162,9 @@ def save_revision(sentence_id: int, body: RevisionCreate, login: ApiUser,
     sentence = svc.assigned_sentence(db, login.user, sentence_id)
     result = svc.save_revision(db, login.user, sentence, base=body.base, tree_text=body.tree,
                                pins=body.pins.model_dump(), source=body.source,
-                               confirm_labels=body.confirm_labels)
+                               confirm_labels=body.confirm_labels,
+                               active_seconds=body.active_seconds, actions=body.actions,
+                               start_tree=body.start)
     rev = result.revision
     return SavePublic(annotation=_annotation_public(result.annotation),
                       revision=RevisionPublic(number=rev.number, tree=rev.tree,

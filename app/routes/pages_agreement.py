@@ -8,7 +8,7 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 
 from app.deps import PageUser, SessionDep, corpus_or_404
 from app.models import GrammarVersion
-from app.services import agreement, corpora, training
+from app.services import agreement, corpora, effort, training
 from app.services.charts import Point, Series, line_chart, score_bar
 from app.services.exports import slug
 from app.web import render
@@ -64,12 +64,21 @@ def agreement_page(request: Request, login: PageUser, db: SessionDep,
     scored, curve = learning_curve(db, c.id)
     return render(request, "agreement.html", login, nav="agreement", corpora=corpora,
                   corpus_id=c.id, c=c, fig=fig, over_time=over_time, curve=curve,
-                  scored=scored, bar=score_bar)
+                  scored=scored, bar=score_bar, effort=effort.effort_figures(db, c.id))
+
+
+def _csv_download(body: str, corpus_name: str, what: str) -> Response:
+    return Response(body, media_type="text/csv; charset=utf-8", headers={
+        "Content-Disposition": f'attachment; filename="{slug(corpus_name)}-{what}.csv"'})
+
+
+@router.get("/agreement/effort.csv")
+def effort_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
+    c = corpus_or_404(db, corpus)
+    return _csv_download(effort.effort_csv(db, c.id), c.name, "effort")
 
 
 @router.get("/agreement/log.csv")
 def agreement_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
     c = corpus_or_404(db, corpus)
-    body = agreement.agreement_csv(db, c.id)
-    return Response(body, media_type="text/csv; charset=utf-8", headers={
-        "Content-Disposition": f'attachment; filename="{slug(c.name)}-agreement.csv"'})
+    return _csv_download(agreement.agreement_csv(db, c.id), c.name, "agreement")

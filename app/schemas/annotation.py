@@ -10,6 +10,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, Field
 
+from app.models import ACTION_KINDS
 from app.schemas.common import RequestModel, UtcDateTime
 from app.services.annotation import QueueItem, QueuePlace
 
@@ -121,6 +122,13 @@ class RevisionCreate(RequestModel):
     source: RevisionSource = "edit"
     confirm_labels: bool = Field(default=False, description="accept labels outside the "
                                  "corpus's sets (only when its policy is confirm)")
+    active_seconds: float = Field(default=0.0, ge=0, le=86_400, description=(
+        "active editing time since the previous save, measured by the page (idle gaps over "
+        "60 s left out)"))
+    actions: dict[str, int] = Field(default_factory=dict, max_length=20, description=(
+        "edit actions since the previous save by kind: " + ", ".join(ACTION_KINDS)))
+    start: str | None = Field(default=None, max_length=200_000, description=(
+        "with the first save: the tree the work started from (the suggestion shown)"))
 
 
 class SavePublic(BaseModel):

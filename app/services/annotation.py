@@ -32,6 +32,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from app.models import (
+    ACTION_KINDS,
     ANN_DRAFT,
     ANN_FLAGGED,
     ANN_SUBMITTED,
@@ -63,7 +64,8 @@ from app.services.validation import (
     validate_pins,
     validate_tree_text,
 )
-from parser.trees import write_tree
+from parser.errors import ParserError
+from parser.trees import read_tree, write_tree
 
 #: Longest comment and flag reason.
 MAX_COMMENT_CHARS = 4_000
@@ -145,7 +147,9 @@ def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
 
 def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tree_text: str,
                   pins: dict[str, Any] | None = None, source: str = "edit",
-                  confirm_labels: bool = False) -> SaveResult:
+                  confirm_labels: bool = False, active_seconds: float = 0.0,
+                  actions: dict[str, int] | None = None,
+                  start_tree: str | None = None) -> SaveResult:
     """Append a revision to ``user``'s annotation of ``sentence`` (created on first save).
 
     ``base`` is the head the client's change was built on; anything else is a Conflict
@@ -181,7 +185,10 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
         raise _conflict(db, user, sentence, "another save of this annotation came first")
     revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
                         pins=clean_pins, source=source, user_id=user.id, created_at=now,
-                        token_version=sentence.token_version)
+                        token_version=sentence.token_version,
+                        active_seconds=float(active_seconds), actions=_clean_actions(actions))
+    if start_tree is not None and annotation.start_tree is None:
+        annotation.start_tree = _clean_start(start_tree)
     db.add(revision)
     if sentence.state == SENT_QUEUED:
         sentence.state = SENT_IN_PROGRESS
@@ -192,6 +199,24 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
                         "first") from None
     db.refresh(annotation)
     return SaveResult(annotation=annotation, revision=revision)
+
+
+def _clean_actions(actions: dict[str, int] | None) -> dict[str, int]:
+    out: dict[str, int] = {}
+    for kind, n in (actions or {}).items():
+        if kind not in ACTION_KINDS or not isinstance(n, int) or not 0 <= n <= 100_000:
+            raise BadInput(f"action count {kind!r}: {n!r} is not a known kind with a count "
+                           f"(kinds: {', '.join(ACTION_KINDS)})", kind="shape")
+        if n:
+            out[kind] = n
+    return out
+
+
+def _clean_start(text: str) -> str:
+    try:
+        return write_tree(read_tree(text))
+    except ParserError as exc:
+        raise BadInput(f"the start tree is not a bracketed tree: {exc}", kind="shape") from None
 
 
 def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotation:

@@ -13,8 +13,8 @@ import {familiesShown, markViewport, overviewJump, readFamiliesChoice, render, s
   toggleFold} from "./bench/draw.js";
 import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
-import {openTokens, wireTokens} from "./bench/tokens.js";
-import {loadUndo, markDirty, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
+import {openTokens, takePendingEffort, wireTokens} from "./bench/tokens.js";
+import {loadUndo, markDirty, noteActivity, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
 import {renderSide, renderText} from "./bench/side.js";
 import {$, S, root, sentenceId} from "./bench/state.js";
 import {setStatus} from "./bench/status.js";
@@ -44,6 +44,11 @@ function wire() {
   $("readings").addEventListener("keydown", onReadingsKey);
   wireHistory();
   wireTokens();
+  for (const type of ["keydown", "pointerdown", "input", "wheel"]) {
+    document.addEventListener(type, noteActivity, {capture: true, passive: true});
+  }
+  document.addEventListener("visibilitychange", noteActivity);
+  window.addEventListener("blur", () => { S.lastActive = null; });
   $("tree-pane").addEventListener("scroll", markViewport, {passive: true});
   $("overview").addEventListener("click", overviewJump);
   document.addEventListener("keydown", onKey);
@@ -86,6 +91,7 @@ async function start() {
     setStatus(S.head ? "saved" : "fresh");
     restoreDraft();
     loadUndo();
+    takePendingEffort();
     if (data.carried_from) markDirty("tokens");  // the tree carried over to the new tokens
     renderSide();
     // the entry point from elsewhere (a sentence held back for its tokens): /bench/ID?tokens

@@ -30,12 +30,14 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0007")
+    command.downgrade(cfg, "0008")
     engine = create_engine(settings.resolved_database_url)
     try:
-        cols = {c["name"] for c in inspect(engine).get_columns("grammar_versions")}
+        revision_cols = {c["name"] for c in inspect(engine).get_columns("revisions")}
+        annotation_cols = {c["name"] for c in inspect(engine).get_columns("annotations")}
     finally:
         engine.dispose()
-    assert "owner_pid" not in cols and "heartbeat_at" not in cols and "status" in cols
+    assert not {"active_seconds", "actions"} & revision_cols and "token_version" in revision_cols
+    assert "start_tree" not in annotation_cols and "head" in annotation_cols
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []

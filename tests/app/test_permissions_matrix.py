@@ -141,6 +141,7 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("GET", "/review/{sentence_id}"): Spec(ADJ, 200, ids={"sentence_id": "review"}),
     ("GET", "/agreement"): Spec(USER, 200, query="corpus=@corpus"),
     ("GET", "/agreement/log.csv"): Spec(USER, 200, query="corpus=@corpus"),
+    ("GET", "/agreement/effort.csv"): Spec(USER, 200, query="corpus=@corpus"),
     # --- findings (adjudicators) and search (everyone, as they may see)
     ("GET", "/api/corpora/{corpus_id}/findings"): Spec(ADJ, 200),
     ("POST", "/api/corpora/{corpus_id}/findings/runs"): Spec(ADJ, 202, json={}),

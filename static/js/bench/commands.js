@@ -5,7 +5,7 @@ import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
 import {moveTargets, render, spanWords} from "./draw.js";
-import {commit, flush, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
+import {commit, flush, tally, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
 import {say, setStatus} from "./status.js";
@@ -36,6 +36,7 @@ export function travel(from, to, what) {
     return;
   }
   to.push(snapshot());
+  tally(what);
   const state = from.pop();
   setTree(state.tree, state.pins);
   S.sel = state.sel;
@@ -68,7 +69,7 @@ export const cmd = {
     const goal = S.spans[target];
     const out = T.reattach(S.tree, ref, target, (s) => T.isSpanPinned(S.pins, s));
     S.carry = null;
-    commit(out.tree, S.pins, "edit", out.ref);
+    commit(out.tree, S.pins, "edit", out.ref, "move");
     say(`Moved under ${goal.label} (words ${goal.start + 1}-${goal.end} before the move).`);
   }),
   // m: take the chosen node; walk to the new parent; m or Enter puts it down there
@@ -105,7 +106,7 @@ export const cmd = {
       S.labels, "label");
     if (!label) return;
     const out = T.addConstituent(S.tree, start, end, label);
-    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index});
+    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index}, "add");
   }),
   relabel: guard(async () => {
     if (!S.sel) throw new T.EditError("choose a constituent or a POS tag first");
@@ -114,7 +115,7 @@ export const cmd = {
       if (T.isTagPinned(S.pins, i)) throw new T.EditError("this tag is pinned: unpin it first (p)");
       const tag = await askLabel(`POS tag of “${S.tokens[i]}”`, T.tagsOf(S.tree)[i], S.tags, "tag");
       if (!tag) return;
-      commit(T.setTag(S.tree, i, tag), S.pins, "edit", {kind: "tag", index: i});
+      commit(T.setTag(S.tree, i, tag), S.pins, "edit", {kind: "tag", index: i}, "retag");
       return;
     }
     const s = S.spans[S.sel.index];
@@ -122,25 +123,25 @@ export const cmd = {
     const label = await askLabel(`Relabel ${s.label} over “${spanWords(s.start, s.end)}”`,
       s.label, S.labels, "label");
     if (!label || label === s.label) return;
-    commit(T.relabel(S.tree, S.sel.index, label), S.pins, "edit", S.sel);
+    commit(T.relabel(S.tree, S.sel.index, label), S.pins, "edit", S.sel, "relabel");
   }),
   dissolve: guard(async () => {
     requireUnpinnedPhrase();
     const parent = S.spans[S.sel.index].parent;
     commit(T.removeConstituent(S.tree, S.sel.index), S.pins, "edit",
-      {kind: "phrase", index: parent});
+      {kind: "phrase", index: parent}, "remove");
   }),
   edge: guard(async (edge, delta) => {
     requireUnpinnedPhrase();
     const out = T.moveEdge(S.tree, S.sel.index, edge, delta);
-    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index});
+    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index}, "edge");
   }),
   pin: guard(async () => {
     if (!S.sel) throw new T.EditError("choose a constituent or a POS tag to pin");
     const pins = S.sel.kind === "tag"
       ? T.toggleTagPin(S.pins, S.sel.index, T.tagsOf(S.tree)[S.sel.index])
       : T.toggleSpanPin(S.pins, S.spans[S.sel.index]);
-    commit(S.tree, pins, "edit", S.sel);
+    commit(S.tree, pins, "edit", S.sel, "pin");
   }),
   regrow: guard(async () => {
     if (!S.data.suggestion) throw new T.EditError("no grammar yet: nothing to re-parse with");

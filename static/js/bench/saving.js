@@ -65,8 +65,29 @@ export function loadUndo() {
   }
 }
 
+// Edit actions by kind, counted with the next save; a revision source names its own kind.
+const KIND_OF_SOURCE = {alternative: "reading", reparse: "reparse", text: "text",
+  restore: "restore", tokens: "tokens"};
+
+export function tally(kind) {
+  S.actions[kind] = (S.actions[kind] || 0) + 1;
+}
+
+// Active editing time: the gaps between the annotator's inputs, a gap over a minute (or with
+// the page hidden) not counted.
+const IDLE_MS = 60_000;
+
+export function noteActivity() {
+  const now = performance.now();
+  if (S.lastActive !== null && !document.hidden && now - S.lastActive <= IDLE_MS) {
+    S.activeMs += now - S.lastActive;
+  }
+  S.lastActive = document.hidden ? null : now;
+}
+
 // Every edit ends here: remember the old state, take the new one, save soon.
-export function commit(tree, pins, source, sel = S.sel) {
+export function commit(tree, pins, source, sel = S.sel, kind = KIND_OF_SOURCE[source]) {
+  if (kind) tally(kind);
   S.undo.push(snapshot());
   if (S.undo.length > 500) S.undo.shift();
   S.redo = [];
@@ -114,8 +135,12 @@ export async function saveNow() {
   const text = T.writeTree(S.tree);
   const pins = S.pins;
   const unknown = unknownIn(S.tree);
+  const sentMs = S.activeMs;
+  const sentActions = {...S.actions};
   const body = {base: S.head, tree: text, pins, source: S.pendingSource,
-    confirm_labels: unknown.length > 0 && unknown.every((l) => S.confirmed.has(l))};
+    confirm_labels: unknown.length > 0 && unknown.every((l) => S.confirmed.has(l)),
+    active_seconds: Math.min(86_400, sentMs / 1000), actions: sentActions};
+  if (!S.head) body.start = S.data.tree;
   setStatus("saving");
   S.inflight = (async () => {
     let r;
@@ -127,6 +152,8 @@ export async function saveNow() {
       return;
     }
     if (r.status === 201) {
+      S.activeMs -= sentMs;
+      for (const [k, n] of Object.entries(sentActions)) S.actions[k] -= n;
       S.head = r.body.revision.number;
       S.data.annotation = r.body.annotation;
       if (T.writeTree(S.tree) === text && S.pins === pins) {

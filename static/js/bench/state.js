@@ -44,5 +44,8 @@ export const S = {
   modal: null,
   unseen: new Set(),  // positions of words the grammar never saw
   carry: null,
-  folded: new Set(),  // "label start end" of the phrases drawn folded        // a node taken to be moved: {ref, targets: Set of phrase indices}
+  folded: new Set(),
+  activeMs: 0,        // active editing time not yet sent with a save
+  lastActive: null,   // performance.now() of the last input, null after a pause
+  actions: {},        // edit actions by kind not yet sent with a save  // "label start end" of the phrases drawn folded        // a node taken to be moved: {ref, targets: Set of phrase indices}
 };

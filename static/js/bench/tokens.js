@@ -9,6 +9,16 @@ import {$, S, sentenceId, undoKey} from "./state.js";
 import {say} from "./status.js";
 
 let at = 0;
+const PENDING_KEY = `treewright-effort-${sentenceId}`;
+
+// The active time and actions not yet saved when the page reloaded after a fix.
+export function takePendingEffort() {
+  try {
+    const p = JSON.parse(sessionStorage.getItem(PENDING_KEY) || "null");
+    sessionStorage.removeItem(PENDING_KEY);
+    if (p) { S.activeMs += p.activeMs || 0; Object.assign(S.actions, p.actions || {}); }
+  } catch { /* nothing kept */ }
+}
 
 function chosenWord() {
   if (S.range) return S.range[0];
@@ -72,6 +82,11 @@ export async function applyTokenFix(change, undoing = false) {
     return false;
   }
   const {base: _base, ...back} = r.body.undo;
+  const actions = {...S.actions};
+  actions.tokens = (actions.tokens || 0) + 1;
+  try {
+    sessionStorage.setItem(PENDING_KEY, JSON.stringify({activeMs: S.activeMs, actions}));
+  } catch { /* the counts of this page are lost, the fix stands */ }
   try {
     localStorage.setItem(undoKey, JSON.stringify({tree: r.body.revision.tree,
       undo: undoing ? [] : [{fix: back}], redo: []}));
