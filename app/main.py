@@ -27,7 +27,7 @@ import app.routes
 from app.api_errors import SharedErrorDocs, busy_answer, is_lock_timeout, value_out_of_range
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
-from app.services import suggestions, training
+from app.services import admission, suggestions, training
 from app.services.errors import ServiceError
 from app.settings import STATIC_DIR, Settings, get_settings
 from parser.errors import ParserError
@@ -187,6 +187,9 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
                     "the session's CSRF token in the X-CSRF-Token header.",
     )
     application.state.settings = settings
+    admission.configure(  # this process's parse pool (app.services.admission)
+        slots=settings.parse_slots, threads=settings.parse_threads,
+        wait=settings.parse_wait_seconds, max_words=settings.parse_max_words)
     application.state.engine = engine
     application.state.sessionmaker = make_sessionmaker(engine)
     application.mount("/static", StaticFiles(directory=str(STATIC_DIR)), name="static")
@@ -201,7 +204,10 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         page = _error_page(request, exc.status_code, exc.detail)
         if page is not None:
             return page
-        return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code)
+        headers = {"Retry-After": str(exc.extra["retry_after"])} \
+            if "retry_after" in exc.extra else None
+        return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code,
+                            headers=headers)
 
     for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
         application.add_exception_handler(too_big, value_out_of_range)

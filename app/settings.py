@@ -73,6 +73,16 @@ class Settings(BaseSettings):
                                        "per failed login past the threshold.")
     training_in_process: bool = Field(default=False, description="Train grammars in a thread "
                                       "instead of a separate process (tests use this).")
+    parse_threads: int = Field(default=1, ge=1, le=64, description="numba threads each "
+                               "parse runs on.")
+    parse_slots: int = Field(default=0, ge=0, le=64, description="Parses running at once per "
+                             "server process; 0 means the cores divided by parse_threads.")
+    parse_wait_seconds: float = Field(default=20.0, gt=0, le=600, allow_inf_nan=False,
+                                      description="Longest a request waits for its parse "
+                                      "before answering 503 (the parse goes on and is kept).")
+    parse_max_words: int = Field(default=100, ge=1, le=250, description="Longer sentences "
+                                 "are not parsed on request; the Bench starts them flat and "
+                                 "offers to split them.")
     password_hash_cost: Literal["standard", "test"] = Field(
         default="standard", description="argon2 parameters for new password hashes: "
         "'standard' (argon2-cffi's defaults) or 'test' (cheap, for test suites only).")

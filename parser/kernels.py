@@ -30,7 +30,8 @@ runs once per distinct pair of children rather than once per rule (a GUM grammar
 2.3 rules per pair).
 
 Complexity: O(n^3 P + n^2 R) time per pass (P child pairs, R binary rules), O(n^2 N) memory.
-Limits: float64.
+Limits: float64. The kernels release the GIL (``nogil=True``): a long parse in one thread
+leaves the interpreter to the others (a web server's other requests).
 """
 
 from __future__ import annotations
@@ -75,7 +76,7 @@ def _split_max(XL, XR, i, k, floor, maxl, maxr):
         maxr[a] = m
 
 
-@njit(cache=True, parallel=True, fastmath=True)
+@njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
             p_left, p_right, p_off, r_parent, r_logp,
             up, uc, ulogp, nonempty, haslab):
@@ -150,7 +151,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
     return vt, vb, bp_rule, bp_edge, VL, VR
 
 
-@njit(cache=True, parallel=True, fastmath=True)
+@njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
            p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab):
     """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
@@ -242,7 +243,7 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
     return it, ib, sigma, IL, IR
 
 
-@njit(cache=True, parallel=True, fastmath=True)
+@njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, IL, IR,
             p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab,
             lab_off, lab_ids, n_labels):

@@ -119,7 +119,8 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.options.unknown_label_policy.value,
         queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus),
-        carried_from=carried_from, token_version=sentence.token_version)
+        carried_from=carried_from, token_version=sentence.token_version,
+        split_offered=suggestions.too_long(svc.stored_words(sentence)))
 
 
 def _suggestion_public(db: Session, corpus: Corpus,

@@ -96,6 +96,10 @@ class BenchPublic(BaseModel):
         "set when your newest revision was made on this earlier token version: the tree shown "
         "is it carried over to the current tokens, and the page saves it"))
 
+    split_offered: bool = Field(False, description=(
+        "the sentence is longer than the parser takes on request: it is shown unparsed, and "
+        "splitting it into shorter sentences would bring suggestions"))
+
 
 class TokenFixRequest(RequestModel):
     base: int = Field(ge=1, description="your head revision (the tree the fix carries over)")

@@ -54,6 +54,7 @@ from app.models import (
     Sentence,
     Suggestion,
 )
+from app.services.admission import admission
 from app.services.errors import BadInput, Conflict, NotFound
 from app.services.validation import stored_words
 from parser.batch import parse_many
@@ -207,8 +208,14 @@ def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
     row = _cached(db, sentence.id, version.id)
     if row is not None and (is_complete(row) or not complete):
         return row
+    word_list = _sentence_words(sentence)
+    if too_long(word_list):
+        return None
     grammar = grammar_for(db, version.id)
-    values = parse_suggestion(grammar, _sentence_words(sentence), k, complete=complete)
+    key = ("suggestion", str(db.get_bind().engine.url), version.id, tuple(word_list), k,
+           complete)
+    values = admission().run(
+        key, lambda: parse_suggestion(grammar, word_list, k, complete=complete))
     if row is not None:  # complete the fast row in place; the parse is deterministic
         for key, value in values.items():
             setattr(row, key, value)
@@ -297,7 +304,13 @@ def start_tree(sentence: Sentence, suggestion: Suggestion | None) -> StartTree:
         note = ("The grammar found no full parse; this is its fallback tree."
                 if suggestion.fallback else "Best reading of the active grammar.")
         return StartTree(suggestion.trees[0], "suggestion", note)
-    tree = flat_tree(_sentence_words(sentence))
+    word_list = _sentence_words(sentence)
+    tree = flat_tree(word_list)
+    if too_long(word_list):
+        return StartTree(write_tree(tree), "flat",
+                         f"This sentence has {len(word_list)} words, more than the "
+                         f"{admission().max_words} the parser takes on request: it starts flat. "
+                         "Split it into shorter sentences to get suggestions.")
     return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")
 
 
@@ -346,6 +359,12 @@ def _graft_pins(tree: Tree, spans: list[tuple[int, int, str]],
     return tree_from_spans(word_list, tag_list, items, root=None)
 
 
+def too_long(word_list: list[str]) -> bool:
+    """Whether a sentence is past the length parsed on request (the Bench starts it flat and
+    offers to split it)."""
+    return len(word_list) > admission().max_words
+
+
 def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any],
             k: int = 1) -> Reparse:
     """The best ``k`` trees keeping every pin (see the module docstring)."""
@@ -353,9 +372,12 @@ def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any
     if version is None:
         raise Conflict("this corpus has no active grammar yet; re-parse needs one",
                        kind="no_grammar")
-    grammar = grammar_for(db, version.id)
     word_list = _sentence_words(sentence)
     n = len(word_list)
+    if too_long(word_list):
+        raise Conflict(f"this sentence has {n} words, more than the {admission().max_words} "
+                       "the parser takes on request; split it first", kind="too_long")
+    grammar = grammar_for(db, version.id)
     spans: list[tuple[int, int, str]] = []
     for item in pins.get("spans") or []:
         s, e, label = int(item[0]), int(item[1]), str(item[2])
@@ -376,8 +398,11 @@ def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any
         required=[(s, e, _constraint_label(lab, labels)) for s, e, lab in spans],
         tags=[_constraint_label(tags[i], tagset) if i in tags else None for i in range(n)]
         if tags else [])
+    key = ("reparse", str(db.get_bind().engine.url), version.id, tuple(word_list), k,
+           tuple(spans), tuple(sorted(tags.items())))
     try:
-        result = parse(grammar, word_list, k=k, constraints=constraints)
+        result = admission().run(
+            key, lambda: parse(grammar, word_list, k=k, constraints=constraints))
     except ConstraintError as exc:
         raise BadInput(f"the pins contradict each other: {exc}", kind="pins") from exc
     out: list[str] = []

@@ -58,12 +58,13 @@ def settings(tmp_path: Path, request: pytest.FixtureRequest) -> Iterator[Setting
         data.mkdir()
         shutil.copyfile(request.getfixturevalue("_migrated_sqlite"), data / "treewright.db")
         yield Settings(data_dir=data, secret_key="test-secret",
-                       login_delay_seconds=0.05, training_in_process=True)
+                       login_delay_seconds=0.05, training_in_process=True,
+                       parse_wait_seconds=300)
         return
     url = request.getfixturevalue("_pg_worker_database")
     _empty_pg_database(url)
     yield Settings(data_dir=tmp_path / "data", database_url=url,
-                   secret_key="test-secret", login_delay_seconds=0.05,
+                   secret_key="test-secret", login_delay_seconds=0.05, parse_wait_seconds=300,
                    training_in_process=True)
 
 
