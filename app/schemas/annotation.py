@@ -95,7 +95,6 @@ class BenchPublic(BaseModel):
     carried_from: int | None = Field(default=None, description=(
         "set when your newest revision was made on this earlier token version: the tree shown "
         "is it carried over to the current tokens, and the page saves it"))
-
     split_offered: bool = Field(False, description=(
         "the sentence is longer than the parser takes on request: it is shown unparsed, and "
         "splitting it into shorter sentences would bring suggestions"))
