@@ -3,7 +3,8 @@
 // bench/: state.js (shared state), api.js (the server), status.js (save state and messages),
 // saving.js (commit, autosave, drafts, conflicts), draw.js (the tree), side.js (side and text
 // panels), navigate.js (choosing nodes and words), dialogs.js (prompt, yes/no, keys help),
-// commands.js (every edit) and keys.js (the keyboard).
+// commands.js (every edit), keytable.js (every key with its help text) and keys.js (the
+// keyboard).
 
 import * as T from "./treemodel.js";
 import {api, errorText} from "./bench/api.js";
@@ -13,6 +14,7 @@ import {familiesShown, markViewport, overviewJump, readFamiliesChoice, render, s
   toggleFold} from "./bench/draw.js";
 import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
+import {renderHelp} from "./bench/keytable.js";
 import {openTokens, takePendingEffort, wireTokens} from "./bench/tokens.js";
 import {loadUndo, markDirty, noteActivity, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
 import {renderSide, renderText} from "./bench/side.js";
@@ -34,6 +36,7 @@ function wire() {
   for (const btn of root.querySelectorAll("[data-cmd]")) {
     btn.addEventListener("click", () => actions[btn.dataset.cmd]());
   }
+  renderHelp($("help-keys"));
   $("help-close").addEventListener("click", () => toggleHelp(false));
   $("conflict-keep").addEventListener("click", () => resolveConflict(true));
   $("conflict-take").addEventListener("click", () => resolveConflict(false));

@@ -335,7 +335,7 @@ def test_bench_help_overlay_lists_the_keys(browser_page, live_server, ferry) -> 
     page.keyboard.press("?")
     page.wait_for_selector("#help:not([hidden])")
     text = page.inner_text("#help")
-    for needle in ("add a bracket", "dissolve", "pin / unpin", "regrow", "undo / redo",
+    for needle in ("add a bracket", "dissolve", "pin / unpin", "regrow", "undo", "redo",
                    "hand in", "next unfinished"):
         assert needle in text
     page.keyboard.press("Escape")

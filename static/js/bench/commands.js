@@ -4,7 +4,7 @@
 import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
-import {moveTargets, render, spanWords} from "./draw.js";
+import {moveTargets, render, spanWords, wordsLabel} from "./draw.js";
 import {commit, flush, tally, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
@@ -70,7 +70,7 @@ export const cmd = {
     const out = T.reattach(S.tree, ref, target, (s) => T.isSpanPinned(S.pins, s));
     S.carry = null;
     commit(out.tree, S.pins, "edit", out.ref, "move");
-    say(`Moved under ${goal.label} (words ${goal.start + 1}-${goal.end} before the move).`);
+    say(`Moved under ${goal.label} (${wordsLabel(goal.start, goal.end)} before the move).`);
   }),
   // m: take the chosen node; walk to the new parent; m or Enter puts it down there
   carry: guard(async () => {

@@ -2,15 +2,21 @@
 // probabilities are written.
 
 import * as T from "../treemodel.js";
-import {drawTree} from "../treeview.js";
+import {defaultWordText, drawTree} from "../treeview.js";
 import {cmd} from "./commands.js";
 import {select} from "./navigate.js";
 import {say} from "./status.js";
 import {renderReadings, renderSide, renderText} from "./side.js";
 import {$, S, UNSURE, WEAK, root} from "./state.js";
 
+// "word 8" or "words 8–10" (1-based, ends included) for the words start..end-1.
+export function wordsLabel(start, end) {
+  return end - start === 1 ? `word ${start + 1}` : `words ${start + 1}–${end}`;
+}
+
+// The words as written (a bracket, not its escape): for reading, not for trees.
 export function spanWords(start, end) {
-  return S.tokens.slice(start, end).join(" ");
+  return S.tokens.slice(start, end).map(defaultWordText).join(" ");
 }
 
 export function posteriorOf(s) {
@@ -36,7 +42,7 @@ function marksOf(ref) {
   const p = ref.index === 0 ? null : posteriorOf(s);
   const out = {pinned, classes: [`tw-fam-${familyOf(s.label)}`], dots: 0};
   if (S.carry && S.carry.targets.has(ref.index)) out.classes.push("tw-drop-ok");
-  let title = `${s.label} · words ${s.start + 1}-${s.end}`;
+  let title = `${s.label} · ${wordsLabel(s.start, s.end)}`;
   if (p !== null) {
     title += ` · grammar: ${formatP(p)}`;
     if (p < WEAK) { out.classes.push("tw-weak"); out.dots = 2; } else if (p < UNSURE) {

@@ -3,17 +3,18 @@
 
 import * as T from "../treemodel.js";
 import {cmd} from "./commands.js";
-import {formatP, formatProbability, posteriorOf, spanWords} from "./draw.js";
+import {formatP, formatProbability, posteriorOf, spanWords, wordsLabel} from "./draw.js";
 import {$, S, root} from "./state.js";
 
 export function renderSide() {
   const info = $("selection-info");
   if (S.range) {
-    info.textContent = `Words ${S.range[0] + 1}-${S.range[1]}: ${spanWords(...S.range)}`;
+    const label = wordsLabel(...S.range);
+    info.textContent = `${label[0].toUpperCase()}${label.slice(1)}: ${spanWords(...S.range)}`;
   } else if (S.sel && S.sel.kind === "phrase") {
     const s = S.spans[S.sel.index];
     const p = S.sel.index === 0 ? null : posteriorOf(s);
-    info.textContent = `${s.label} · words ${s.start + 1}-${s.end}: ${spanWords(s.start, s.end)}` +
+    info.textContent = `${s.label} · ${wordsLabel(s.start, s.end)}: ${spanWords(s.start, s.end)}` +
       (p !== null ? ` · grammar: ${formatP(p)}` : "") +
       (T.isSpanPinned(S.pins, s) ? " · pinned" : "");
   } else if (S.sel) {
