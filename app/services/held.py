@@ -9,9 +9,9 @@ out:
 * :func:`release`: back to annotation. Every hold on it is lifted (the annotations go back to
   ``draft`` with their saved revisions; the reasons stay in the event log) and the sentence is
   ``in_progress`` again, or ``queued`` when nobody has saved a tree of it.
-* fixing the tokens: token editing belongs on the Bench; :data:`TOKEN_FIX_PATH` is the hook
-  that links a held-back sentence to it (``None`` while the Bench has no token editing, and the
-  page says so instead of offering a link that leads nowhere).
+* fixing the tokens: on the Bench (``/bench/{id}?tokens`` opens its token fixer); only the
+  sentence's annotators reach it there, so the list names them (:attr:`HeldRow.assignees`) and
+  links those of them who look at it; then the sentence is released.
 * :func:`drop`: out of the corpus. The sentence becomes ``dropped``: kept with every
   annotation, revision and event, but out of every queue, export, agreement figure and
   training set. :func:`restore` brings a dropped sentence back (held back again when a hold
@@ -39,6 +39,7 @@ from app.models import (
     SENT_IN_PROGRESS,
     SENT_QUEUED,
     Annotation,
+    Assignment,
     Corpus,
     Document,
     Event,
@@ -50,9 +51,8 @@ from app.schemas.common import UtcDateTime
 from app.services.errors import Conflict, NotFound
 from app.services.gold import check_note
 
-#: Where a held-back sentence's tokens are fixed, as a format string of the sentence id; None
-#: while Treewright has no token editing (the page then says how to proceed without it).
-TOKEN_FIX_PATH: str | None = None
+#: Where a held-back sentence's tokens are fixed, as a format string of the sentence id.
+TOKEN_FIX_PATH: str | None = "/bench/{}?tokens"
 #: States a sentence can be dropped from (review and gold have their own way: reopen).
 DROPPABLE = (SENT_HELD_BACK, SENT_QUEUED, SENT_IN_PROGRESS)
 
@@ -74,6 +74,7 @@ class HeldRow:
     position: int
     text: str
     holds: list[Hold]
+    assignees: list[str]  # usernames: the people who can fix its tokens on the Bench
 
     @property
     def reasons(self) -> list[str]:
@@ -106,7 +107,15 @@ def held_back_list(db: Session, corpus_id: int | None = None, *,
         if ann is not None:
             entry[3].append(Hold(dispname or uname or "?", ann.flag or "", ann.comment or "",
                                  ann.updated_at))
-    out = [HeldRow(s.id, s.corpus_id, cname, dname, s.position, s.text, holds)
+    who: dict[int, list[str]] = {}
+    if found:
+        for sid, username in db.execute(select(Assignment.sentence_id, User.username)
+                                        .join(User, User.id == Assignment.user_id)
+                                        .where(Assignment.sentence_id.in_(list(found)))
+                                        .order_by(User.username)):
+            who.setdefault(sid, []).append(username)
+    out = [HeldRow(s.id, s.corpus_id, cname, dname, s.position, s.text, holds,
+                   who.get(s.id, []))
            for s, cname, dname, holds in found.values()]
     out.sort(key=lambda r: min((h.since for h in r.holds), default=datetime.max))
     return out[:limit]

@@ -69,9 +69,20 @@ def test_review_lists_the_held_back_sentence_with_reason_and_note(db, people, lo
     assert "&#39;oilchange&#39; should be two words" in section and "Ann1" in section
     assert f'action="/review/held/{held.id}/release"' in section
     assert f'action="/review/held/{held.id}/drop"' in section
-    # no token editing yet: the page says so instead of linking nowhere
-    assert "cannot edit a sentence" in section
+    # the adjudicator is not an annotator of it: the page names who fixes the tokens
+    assert "ann1, ann2 can respell, split or join its words on the Bench" in section
+    assert f'href="/bench/{held.id}?tokens"' not in section
     assert sentences[1].text not in section
+
+
+def test_an_annotator_of_it_gets_the_token_fixer_link(db, people, login):
+    corpus, sentences, held = _setup(db, people, login)
+    people.ann2.role = "adjudicator"  # an adjudicator who also annotates this sentence
+    db.commit()
+    page = login("ann2").client.get(f"/review?corpus={corpus.id}").text
+    section = page.split('id="held"', 1)[1].split("</section>", 1)[0]
+    assert f'href="/bench/{held.id}?tokens"' in section
+    assert login("ann2").client.get(f"/bench/{held.id}?tokens").status_code == 200
 
 
 def test_release_sends_it_back_to_annotation(db, people, login):
