@@ -436,6 +436,50 @@ def search_command(pattern: str, corpus_name: str, scope: str, state: str | None
     click.echo(f"{plural(found.total, 'match', 'matches')}{shown}", err=True)
 
 
+@main.group()
+def reference() -> None:
+    """Reference trees a corpus's grammars train on beside its gold (never its sentences)."""
+
+
+@reference.command("add")
+@click.argument("file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
+@click.option("--corpus", "corpus_name", required=True, help="Corpus that trains on the trees.")
+@click.option("--name", required=True, help="A name for the set, e.g. 'open web treebank'.")
+@click.option("--source", default="", help="Where the trees come from (a citation, a URL).")
+@click.option("--licence-file", type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              required=True, help="A text file with the trees' licence (shown on Grammars).")
+@data_dir_option
+def reference_add(file: Path, corpus_name: str, name: str, source: str, licence_file: Path,
+                  data_dir: Path | None) -> None:
+    """Add a bracketed file as a reference set of a corpus (stored whole or not at all)."""
+    from app.services import reference as svc
+
+    licence = licence_file.read_text(encoding="utf-8", errors="replace")
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        corpus = corpus_named(db, corpus_name)
+        added = svc.add_reference(db, corpus.id, file.read_bytes(), name=name, source=source,
+                                  licence=licence, filename=file.name)
+    click.echo(f"reference set {added.name!r} of corpus {corpus_name!r}: "
+               f"{plural(added.trees, 'tree')}, {plural(added.words, 'word')}; "
+               "the next grammar version trains on it")
+
+
+@reference.command("list")
+@click.option("--corpus", "corpus_name", required=True, help="Corpus whose sets to list.")
+@data_dir_option
+def reference_list(corpus_name: str, data_dir: Path | None) -> None:
+    """The corpus's reference sets with their size, source and whether training uses them."""
+    from app.services import reference as svc
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        sets = svc.reference_sets(db, corpus_named(db, corpus_name).id)
+    if not sets:
+        click.echo("no reference sets")
+    for r in sets:
+        click.echo(f"{r.id:>4}  {r.name}  ({plural(r.trees, 'tree')}; "
+                   f"{'in use' if r.in_use else 'not used'})  {r.source}")
+
+
 @main.command("findings")
 @click.option("--corpus", "corpus_name", required=True, help="Corpus whose findings to show.")
 @click.option("--run", "run_first", is_flag=True,

@@ -184,3 +184,20 @@ def test_cli_demo_force_keeps_a_copy_of_the_team_database(cli, settings, tmp_pat
     conn = sqlite3.connect(copy)
     assert conn.execute("SELECT name FROM corpora").fetchall() == [("Our treebank",)]
     conn.close()
+
+
+def test_cli_reference_add_and_list(cli, db, tmp_path) -> None:
+    gold = tmp_path / "seed.ptb"
+    gold.write_text(TREES)
+    cli("import", str(gold), "--corpus", "Quay", "--as", "gold")
+    older = tmp_path / "older.ptb"
+    older.write_text("(ROOT (S (NP (NNS Gulls)) (VP (VBD circled)) (. .)))\n" * 4)
+    licence = tmp_path / "LICENCE.txt"
+    licence.write_text("Invented trees; free to use.")
+    out = cli("reference", "add", str(older), "--corpus", "Quay", "--name", "older notes",
+              "--source", "the team's first season", "--licence-file", str(licence)).output
+    assert "reference set 'older notes' of corpus 'Quay': 4 trees, 12 words" in out
+    listed = cli("reference", "list", "--corpus", "Quay").output
+    assert "older notes  (4 trees; in use)  the team's first season" in listed
+    # the reference trees are not sentences of the corpus
+    assert db.scalar(select(func.count(Sentence.id))) == 10

@@ -30,7 +30,7 @@ from app.services.exports import export_gold
 from app.services.imports import import_bytes
 from app.services.suggestions import grammar_from_bytes
 from parser.adapt import DEFAULT, describe
-from tests.app.review_helpers import import_demo_gold
+from tests.app.review_helpers import import_demo_gold, wait_for_version
 from tests.parser.test_chart_entropy import SMALL
 
 OLDER = b"""(ROOT (S (NP (DT The) (NN lanternkeeper)) (VP (VBD trimmed) (NP (DT the) (NNS wicks)))
@@ -182,3 +182,31 @@ def test_queue_informative_orders_new_assignments_too(db, people):
     texts = [it.text for it in queue_page(db, people.ann1).items]
     assert texts[0] == "fish eat people with fish with people"
     assert texts[-1] == "fish eat people"
+
+
+def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
+    corpus = import_demo_gold(db, settings={"retrain_every": 0})
+    admin = login("admin")
+    resp = admin.client.post("/grammars/reference", data={
+        "corpus_id": corpus.id, "csrf_token": admin.csrf, "name": "harbour notes",
+        "source": "older team notes", "licence": LICENCE},
+        files={"upload": ("older.ptb", OLDER, "text/plain")})
+    assert resp.status_code == 200, resp.text
+    assert "Reference set harbour notes added: 3 trees" in resp.text
+    assert LICENCE in resp.text and "older team notes" in resp.text
+    bad = admin.client.post("/grammars/reference", data={
+        "corpus_id": corpus.id, "csrf_token": admin.csrf, "name": "broken",
+        "licence": LICENCE}, files={"upload": ("bad.ptb", b"(ROOT (S (NN a)\n", "text/plain")})
+    assert bad.status_code == 422 and "Nothing was added" in bad.text and "bad.ptb" in bad.text
+    for queued in db.scalars(select(GrammarVersion.id)).all():  # the seed import's version
+        wait_for_version(db, queued)
+    v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
+    html = login("ann1").client.get(f"/grammars?corpus={corpus.id}").text
+    # each version says its weight and its reference sets; annotators get no upload form
+    assert f'data-version="{v.id}"' in html and "harbour notes (3)" in html
+    assert describe(DEFAULT) in html and 'action="/grammars/reference"' not in html
+    # the learning curve has the reference-only start beside the version's point
+    scored = [x for x in training.scored_versions(db, corpus.id)
+              if training.reference_only_f1(x) is not None]
+    assert v.id in [x.id for x in scored]
+    assert html.count('class="chart-dot chart-s1"') == len(scored)

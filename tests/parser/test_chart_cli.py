@@ -103,3 +103,40 @@ def test_cli_errors_name_the_place(tmp_path: Path) -> None:
     result = CliRunner().invoke(train_command, [str(bad), "--out", str(tmp_path / "x.npz")])
     assert result.exit_code != 0
     assert "line 1" in result.output
+
+
+def test_cli_train_with_reference_and_a_fixed_weight(tmp_path: Path) -> None:
+    src = tmp_path / "domain.txt"
+    src.write_text("(ROOT (S (NP (NNS gulls)) (VP (VBD circled)) (. .)))\n")
+    ref = tmp_path / "reference.txt"
+    ref.write_text(TREES)
+    out = tmp_path / "g.npz"
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(out), "--reference",
+                                                str(ref), "--weight", "rules=2,lexicon=4"])
+    assert result.exit_code == 0, result.output
+    assert "trees: 1 in-domain, 3 reference" in result.output
+    assert "weight: rules=2,lexicon=4" in result.output
+    g = Grammar.load(out)
+    assert g.meta["weighting"] == {"rules": 2.0, "lexicon": 4.0, "prior": None}
+    assert {"gulls", "barked"} <= set(g.vocab)
+
+
+def test_cli_train_auto_weight_below_twenty_heldout_takes_the_default(tmp_path: Path) -> None:
+    src = tmp_path / "domain.txt"
+    src.write_text("(ROOT (S (NP (NNS gulls)) (VP (VBD circled)) (. .)))\n" * 30)
+    ref = tmp_path / "reference.txt"
+    ref.write_text(TREES)
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(tmp_path / "g.npz"),
+                                                "--reference", str(ref)])
+    assert result.exit_code == 0, result.output
+    assert "27 in-domain trees to train, 3 held out" in result.output
+    assert "(3 held-out trees (fewer than 20): default)" in result.output
+
+
+def test_cli_train_refuses_a_bad_weight(tmp_path: Path) -> None:
+    src = tmp_path / "domain.txt"
+    src.write_text(TREES)
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(tmp_path / "g.npz"),
+                                                "--reference", str(src), "--weight", "lots"])
+    assert result.exit_code != 0
+    assert "weighting part 'lots'" in result.output
