@@ -1,7 +1,7 @@
 """Cold start: labelled F1 on a new domain from its first in-domain gold trees, side by side.
 
 Usage: python bench/cold_start.py [--genre interview] [--test 60] [--candidates 120]
-                                  [--rows 0,25,50,100,200,300]
+                                  [--rows 0,25,50,100,200,300] [--no-table] [--no-job]
 
 Open data set: GUM (Zeldes 2017), ../shared/data/gum-trees. One GUM genre plays the new
 domain: its documents sorted by name, the last four are the test set (whole documents,
@@ -33,6 +33,7 @@ import os
 import random
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -61,9 +62,14 @@ def _read(path: Path) -> list[Tree]:
     return [_rooted(t) for t in read_trees(path.read_text(encoding="utf-8"), source=str(path))]
 
 
-def _auto(trees: list[Tree], reference: list[Tree]) -> tuple[Grammar, Weighting]:
+def _auto(trees: list[Tree], reference: list[Tree],
+          plain: Grammar | None = None) -> tuple[Grammar, Weighting]:
+    """The grammar the service would train; ``plain`` (already trained with plain counts on
+    the same trees) is reused when the choice is plain counts."""
     train, held = heldout_split(trees)
     choice = choose_weighting(train, held, reference)
+    if plain is not None and choice.weighting == Weighting():
+        return plain, choice.weighting
     return train_grammar(trees, reference=reference, weighting=choice.weighting), \
         choice.weighting
 
@@ -89,6 +95,8 @@ def main() -> None:
     ap.add_argument("--candidates", type=int, default=120)
     ap.add_argument("--rows", default="0,25,50,100,200,300")
     ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--no-table", action="store_true", help="only the job's time")
+    ap.add_argument("--no-job", action="store_true", help="only the table")
     args = ap.parse_args()
     rows = [int(x) for x in args.rows.split(",")]
     files = sorted(GUM.glob("*.ptb"))
@@ -107,6 +115,14 @@ def main() -> None:
     def f1(g: Grammar) -> float:
         return 100 * heldout_f1(g, test)
 
+    if not args.no_table:
+        _table(args, rows, reference, pool, test, rng, f1)
+    if not args.no_job:
+        _job(reference, pool)
+
+
+def _table(args: argparse.Namespace, rows: list[int], reference: list[Tree], pool: list[Tree],
+           test: list[Tree], rng: random.Random, f1: Callable[[Grammar], float]) -> None:
     print(f"{'trees':>5}  {'in-domain only':>14}  {'ref+in plain':>12}  {'ref+in auto':>11}  "
           f"{'auto, informative':>17}  weights (doc order / informative)", flush=True)
     picked: list[int] = []
@@ -122,9 +138,10 @@ def main() -> None:
             continue
         doc = pool[:n]
         only = f1(train_grammar(doc)) if n <= 200 else float("nan")
-        plain = f1(train_grammar(doc, reference=reference))
-        g_auto, w_auto = _auto(doc, reference)
-        auto = f1(g_auto)
+        g_plain = train_grammar(doc, reference=reference)
+        plain = f1(g_plain)
+        g_auto, w_auto = _auto(doc, reference, g_plain)
+        auto = plain if g_auto is g_plain else f1(g_auto)
         assert prev is not None
         need = n - len(picked)
         picked += _informative(pool, set(picked), prev, need, max(args.candidates, need), rng)
@@ -135,7 +152,9 @@ def main() -> None:
               f"{describe(w_auto)} / {describe(w_inf)}  ({time.process_time() - t0:.0f} s CPU)",
               flush=True)
 
-    # the service's job with all other genres as reference and 300 in-domain trees
+
+def _job(reference: list[Tree], pool: list[Tree]) -> None:
+    """The service's job with all other genres as reference and 300 in-domain trees."""
     trees = pool[:300]
     c0, w0 = time.process_time(), time.perf_counter()
     train, held = heldout_split(trees)
