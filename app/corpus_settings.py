@@ -94,6 +94,10 @@ class CorpusSettings(BaseModel):
         description="'document': sentences in document order; 'informative': the sentences "
                     "the active grammar is least sure of first (both annotators of a "
                     "sentence get it at the same place).")
+    visible_to_everyone: bool = Field(
+        False, description="Every account may read this corpus: its sentences, who is assigned "
+                           "to them and its agreement log. Otherwise only its members: the "
+                           "annotators assigned in it, adjudicators and admins.")
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import.")

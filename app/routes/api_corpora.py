@@ -15,6 +15,7 @@ from app.services import corpora as svc
 from app.services.assignment import assign_sentences
 from app.services.exports import SplitSpec, export_gold, record_export
 from app.services.imports import import_bytes
+from app.services.visibility import readable, readable_corpus
 
 router = APIRouter(tags=["corpora"])
 
@@ -159,7 +160,8 @@ def _detail(db: SessionDep, corpus: Corpus) -> CorpusPublic:
 
 @router.get("/api/corpora", response_model=list[CorpusSummaryPublic], responses=ERRORS)
 def list_corpora(login: ApiUser, db: SessionDep) -> list[CorpusSummaryPublic]:
-    return [CorpusSummaryPublic(**_summary(row)) for row in svc.corpus_overview(db)]
+    return [CorpusSummaryPublic(**_summary(row))
+            for row in readable(db, login.user, svc.corpus_overview(db))]
 
 
 @router.post("/api/corpora", response_model=CorpusPublic, status_code=201, responses=ERRORS)
@@ -172,7 +174,7 @@ def create_corpus(body: CorpusCreate, login: ApiAdmin, db: SessionDep) -> Corpus
 
 @router.get("/api/corpora/{corpus_id}", response_model=CorpusPublic, responses=ERRORS)
 def corpus_detail(corpus_id: int, login: ApiUser, db: SessionDep) -> CorpusPublic:
-    return _detail(db, svc.get_corpus(db, corpus_id))
+    return _detail(db, readable_corpus(db, corpus_id, login.user))
 
 
 @router.patch("/api/corpora/{corpus_id}", response_model=CorpusPublic, responses=ERRORS)
@@ -203,7 +205,7 @@ def corpus_sentences(corpus_id: int, login: ApiUser, db: SessionDep,
     """Sentences in reading order, one page at a time: follow ``next_cursor`` with ``after``
     (each page costs the same wherever it is), or ask for an offset ``page`` number (costs
     grow with the offset)."""
-    corpus = svc.get_corpus(db, corpus_id)
+    corpus = readable_corpus(db, corpus_id, login.user)
     listing = svc.sentence_page(db, corpus, page=page, after=after, per_page=per_page,
                                 state=state, document_id=document_id)
     return SentencePagePublic(

@@ -9,11 +9,12 @@ from __future__ import annotations
 from fastapi import APIRouter, Request
 from pydantic import BaseModel, Field
 
-from app.deps import ApiAdjudicator, ApiUser, SessionDep
+from app.deps import ApiAdjudicator, ApiUser, Login, SessionDep
 from app.models import GV_QUEUED, Corpus, GrammarVersion
 from app.schemas.common import RequestModel, UtcDateTime
 from app.services import training
 from app.services.corpora import get_corpus
+from app.services.visibility import readable_corpus
 
 router = APIRouter(tags=["grammars"])
 
@@ -50,14 +51,14 @@ def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPu
         finished_at=v.finished_at)
 
 
-def _corpus(db: SessionDep, corpus_id: int) -> Corpus:
-    return get_corpus(db, corpus_id)
+def _corpus(db: SessionDep, corpus_id: int, login: Login) -> Corpus:
+    return readable_corpus(db, corpus_id, login.user)
 
 
 @router.get("/api/grammars", response_model=list[GrammarVersionPublic])
 def list_versions(corpus_id: int, login: ApiUser, db: SessionDep) -> list[GrammarVersionPublic]:
     """The corpus's grammar versions, newest first."""
-    corpus = _corpus(db, corpus_id)
+    corpus = _corpus(db, corpus_id, login)
     return [version_public(v, corpus.active_grammar_id)
             for v in training.versions(db, corpus.id)]
 
@@ -69,7 +70,7 @@ def get_version(version_id: int, login: ApiUser, db: SessionDep,
     v = training.get_version(db, version_id)
     if v.status == GV_QUEUED:
         training.get_runner(request.app.state)  # starts a job nobody has picked up yet
-    corpus = _corpus(db, v.corpus_id)
+    corpus = _corpus(db, v.corpus_id, login)
     return version_public(v, corpus.active_grammar_id)
 
 
@@ -77,7 +78,7 @@ def get_version(version_id: int, login: ApiUser, db: SessionDep,
 def train_now(body: TrainCreate, login: ApiAdjudicator, db: SessionDep,
               request: Request) -> GrammarVersionPublic:
     """Queue the corpus's next version now (or return the job already queued or training)."""
-    corpus = _corpus(db, body.corpus_id)
+    corpus = _corpus(db, body.corpus_id, login)
     v = training.schedule_training(request.app.state, corpus.id,
                                    f"on demand by {login.user.username}", login.user.id)
     # the job was queued in a session of its own: read the corpus again

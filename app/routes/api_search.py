@@ -17,6 +17,7 @@ from pydantic import BaseModel, Field
 from app.deps import ApiUser, CorpusDep, SessionDep
 from app.schemas.common import ErrorPublic
 from app.services import search as svc
+from app.services.visibility import readable_corpus
 
 router = APIRouter(tags=["search"])
 
@@ -44,6 +45,7 @@ def search(login: ApiUser, corpus: CorpusDep, db: SessionDep, pattern: str,
            scope: str = svc.SCOPE_GOLD, state: str | None = None, page: int = 1,
            per_page: int = 20) -> SearchPagePublic:
     """Sentences whose trees (or words) match the pattern, in document order."""
+    readable_corpus(db, corpus.id, login.user)
     found = svc.search(db, corpus, login.user, pattern, scope=scope, state=state or None,
                        page=page, per_page=per_page)
     return SearchPagePublic(pattern=found.pattern, scope=found.scope, state=found.state,
@@ -64,5 +66,6 @@ class SearchExportPublic(BaseModel):
 def export(login: ApiUser, corpus: CorpusDep, db: SessionDep, pattern: str,
            scope: str = svc.SCOPE_GOLD, state: str | None = None) -> SearchExportPublic:
     """Every matching tree as bracketed text (the Search page offers it as a file)."""
+    readable_corpus(db, corpus.id, login.user)
     text = svc.export_text(db, corpus, login.user, pattern, scope=scope, state=state or None)
     return SearchExportPublic(pattern=pattern, scope=scope, count=text.count("\n"), text=text)

@@ -6,18 +6,20 @@ from __future__ import annotations
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 
-from app.deps import PageUser, SessionDep, corpus_or_404
+from app.deps import Login, PageUser, SessionDep
 from app.models import GrammarVersion
 from app.services import agreement, corpora, effort, training
 from app.services.charts import Point, Series, line_chart, score_bar
 from app.services.exports import slug
+from app.services.visibility import readable, readable_corpus
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
 
 
-def corpus_list(db: SessionDep) -> list[tuple[int, str, int]]:
-    return [(c.id, c.name, 0) for c in corpora.corpus_list(db)]
+def corpus_list(db: SessionDep, login: Login) -> list[tuple[int, str, int]]:
+    """The corpora ``login`` may read, for a page's corpus chooser."""
+    return [(c.id, c.name, 0) for c in readable(db, login.user, corpora.corpus_list(db))]
 
 
 def learning_curve(db: SessionDep, corpus_id: int) -> tuple[list[GrammarVersion], object]:
@@ -45,13 +47,13 @@ def learning_curve(db: SessionDep, corpus_id: int) -> tuple[list[GrammarVersion]
 @router.get("/agreement", response_class=HTMLResponse)
 def agreement_page(request: Request, login: PageUser, db: SessionDep,
                    corpus: int | None = None) -> Response:
-    corpora = corpus_list(db)
+    corpora = corpus_list(db, login)
     if corpus is None:
         if len(corpora) >= 1:
             return RedirectResponse(f"/agreement?corpus={corpora[0][0]}", status_code=303)
         return render(request, "agreement.html", login, nav="agreement", corpora=corpora,
                       corpus_id=None, c=None)
-    c = corpus_or_404(db, corpus)
+    c = readable_corpus(db, corpus, login.user)
     fig = agreement.corpus_figures(db, c.id)
     fmt = "%Y-%m-%d"
     labels = [p.start.strftime(fmt) for p in fig.periods]
@@ -74,11 +76,11 @@ def _csv_download(body: str, corpus_name: str, what: str) -> Response:
 
 @router.get("/agreement/effort.csv")
 def effort_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
-    c = corpus_or_404(db, corpus)
+    c = readable_corpus(db, corpus, login.user)
     return _csv_download(effort.effort_csv(db, c.id), c.name, "effort")
 
 
 @router.get("/agreement/log.csv")
 def agreement_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
-    c = corpus_or_404(db, corpus)
+    c = readable_corpus(db, corpus, login.user)
     return _csv_download(agreement.agreement_csv(db, c.id), c.name, "agreement")

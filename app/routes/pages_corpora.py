@@ -18,6 +18,7 @@ from app.models import SENTENCE_STATES, Corpus, Sentence
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences, assigned_to
 from app.services.errors import BadInput, ServiceError
+from app.services.visibility import readable, readable_corpus
 from app.web import render
 from app.wording import plural
 
@@ -61,7 +62,8 @@ def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus,
 @router.get("/", response_class=HTMLResponse)
 def corpora_index(request: Request, login: PageUser, db: SessionDep) -> HTMLResponse:
     return render(request, "corpora.html", login, nav="corpora",
-                  rows=svc.corpus_overview(db), states=SENTENCE_STATES, error=None, form={})
+                  rows=readable(db, login.user, svc.corpus_overview(db)),
+                  states=SENTENCE_STATES, error=None, form={})
 
 
 @router.post("/corpora", response_class=HTMLResponse)
@@ -75,7 +77,8 @@ def corpora_create(request: Request, login: PageAdmin, db: SessionDep, name: str
                                    tag_set=tags, user=login.user)
     except ServiceError as err:
         return render(request, "corpora.html", login, status_code=err.status_code,
-                      nav="corpora", rows=svc.corpus_overview(db), states=SENTENCE_STATES,
+                      nav="corpora", rows=readable(db, login.user, svc.corpus_overview(db)),
+                      states=SENTENCE_STATES,
                       error=str(err.detail),
                       form={"name": name, "description": description,
                             "label_set": label_set, "tag_set": tag_set})
@@ -87,7 +90,7 @@ def corpus_view(request: Request, corpus_id: int, login: PageUser, db: SessionDe
                 after: str | None = None, before: str | None = None, last: bool = False,
                 state: str | None = None, document: int | None = None,
                 done: str | None = None, assigned: int | None = None) -> HTMLResponse:
-    corpus = svc.get_corpus(db, corpus_id)
+    corpus = readable_corpus(db, corpus_id, login.user)
     notice = DONE_MESSAGES.get(done or "")
     if done == "assigned" and assigned is not None:
         notice = f"{plural(assigned, 'assignment')} made."

@@ -33,7 +33,7 @@ def _back(corpus_id: int, state: str, kind: str, page: int, done: str = "") -> s
 def findings_page(request: Request, login: PageAdjudicator, db: SessionDep,
                   corpus: int | None = None, state: str = "open", kind: str = "",
                   page: int = 1, done: str = "") -> Response:
-    corpora = corpus_list(db)
+    corpora = corpus_list(db, login)
     if corpus is None:
         if corpora:
             return RedirectResponse(f"/findings?corpus={corpora[0][0]}", status_code=303)

@@ -9,10 +9,11 @@ from fastapi import APIRouter, File, Form, Request, UploadFile
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from starlette.concurrency import run_in_threadpool
 
-from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep, corpus_or_404
+from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.routes.pages_agreement import corpus_list, learning_curve
 from app.services import reference, training
 from app.services.errors import ServiceError
+from app.services.visibility import readable_corpus
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -21,7 +22,7 @@ router = APIRouter(tags=["pages"], include_in_schema=False)
 @router.get("/grammars", response_class=HTMLResponse)
 def grammars_page(request: Request, login: PageUser, db: SessionDep,
                   corpus: int | None = None, queued: int | None = None) -> Response:
-    corpora = corpus_list(db)
+    corpora = corpus_list(db, login)
     if corpus is None:
         if corpora:
             return RedirectResponse(f"/grammars?corpus={corpora[0][0]}", status_code=303)
@@ -32,14 +33,15 @@ def grammars_page(request: Request, login: PageUser, db: SessionDep,
 
 def _page(request: Request, login: Login, db: SessionDep, corpus_id: int, *,
           status_code: int = 200, **extra: Any) -> Response:
-    c = corpus_or_404(db, corpus_id)
+    c = readable_corpus(db, corpus_id, login.user)
     training.get_runner(request.app.state)  # picks up jobs queued while nobody ran them
     versions = training.versions(db, c.id)
     _, curve = learning_curve(db, c.id)
     gold = training.current_gold_count(db, c.id)
     every = training.retrain_interval(c.options, gold)
     new_gold = training.new_gold_since_last(db, c)
-    response = render(request, "grammars.html", login, nav="grammars", corpora=corpus_list(db),
+    response = render(request, "grammars.html", login, nav="grammars",
+                      corpora=corpus_list(db, login),
                       corpus_id=c.id, c=c, versions=versions, curve=curve, gold=gold,
                       new_gold=new_gold, retrain_every=every,
                       heldout_every=c.options.heldout_every,

@@ -11,11 +11,12 @@ from urllib.parse import urlencode
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, PlainTextResponse, RedirectResponse, Response
 
-from app.deps import PageUser, SessionDep, corpus_or_404
+from app.deps import PageUser, SessionDep
 from app.models import SENTENCE_STATES
 from app.routes.pages_agreement import corpus_list
 from app.services import search as svc
 from app.services.errors import ServiceError
+from app.services.visibility import readable_corpus
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -28,13 +29,13 @@ SCOPE_NAMES = {svc.SCOPE_GOLD: "gold trees", svc.SCOPE_ANNOTATIONS: "annotations
 def search_page(request: Request, login: PageUser, db: SessionDep, corpus: int | None = None,
                 pattern: str = "", scope: str = "", state: str = "",
                 page: int = 1) -> Response:
-    corpora = corpus_list(db)
+    corpora = corpus_list(db, login)
     if corpus is None:
         if corpora:
             return RedirectResponse(f"/search?corpus={corpora[0][0]}", status_code=303)
         return render(request, "search.html", login, nav="search", corpora=corpora,
                       corpus_id=None, c=None)
-    c = corpus_or_404(db, corpus)
+    c = readable_corpus(db, corpus, login.user)
     scope = scope or svc.default_scope(c, login.user)
     results, error, status = None, "", 200
     if pattern.strip():
@@ -55,7 +56,7 @@ def search_page(request: Request, login: PageUser, db: SessionDep, corpus: int |
 def search_export(login: PageUser, db: SessionDep, corpus: int, pattern: str,
                   scope: str = "", state: str = "") -> Response:
     """The matching trees as a bracketed-text file, one tree per line."""
-    c = corpus_or_404(db, corpus)
+    c = readable_corpus(db, corpus, login.user)
     scope = scope or svc.default_scope(c, login.user)
     text = svc.export_text(db, c, login.user, pattern, scope=scope, state=state or None)
     name = re.sub(r"[^A-Za-z0-9_.-]+", "_", c.name) + "-search.ptb"

@@ -23,6 +23,7 @@ from app.services.errors import BadInput, ServiceError
 from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
 from app.services.imports import KINDS, TOKENIZERS, ImportReport, import_bytes, import_report
 from app.services.users import active_users
+from app.services.visibility import readable
 from app.web import render
 
 router = APIRouter(tags=["pages"], include_in_schema=False)
@@ -33,7 +34,7 @@ def _page(request: Request, login: Login, db: SessionDep, *, status_code: int = 
           export_error: str | None = None, form: dict[str, Any] | None = None,
           corpus_id: int | None = None,
           split_warning: dict[str, Any] | None = None) -> HTMLResponse:
-    corpora = corpus_list(db)
+    corpora = readable(db, login.user, corpus_list(db))
     documents = document_choices(db)
     people = active_users(db) if login.user.is_admin else []
     return render(request, "transfer.html", login, status_code=status_code, nav="transfer",

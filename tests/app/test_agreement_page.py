@@ -68,7 +68,7 @@ def test_agreement_csv_downloads_the_log(db, people, login):
 
 def test_agreement_page_without_records_says_so(db, people, login):
     corpus, _ = make_corpus(db, [SENTENCE], labels=LABELS, tags=TAGS)
-    html = login("ann1").client.get(f"/agreement?corpus={corpus.id}").text
+    html = login("adj").client.get(f"/agreement?corpus={corpus.id}").text
     assert "nothing has been compared" in html
 
 

@@ -26,7 +26,7 @@ def test_imports_api_upload_and_read_back(login, db, people) -> None:
     raw = _import(admin, b"Buoy0 bobbed .\nA new line .\n", "r.txt", kind="text")
     assert raw.json()["duplicates"][0]["same_as_document"] == "t"
     cid = body["corpus_id"]
-    ann = login("ann1")
+    ann = login("adj")  # adjudicators read every corpus (annotators: test_visibility.py)
     listing = ann.client.get("/api/corpora").json()
     assert listing[0]["states"]["gold"] == 10 and listing[0]["states"]["queued"] == 2
     detail = ann.client.get(f"/api/corpora/{cid}").json()

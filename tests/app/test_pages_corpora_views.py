@@ -16,7 +16,15 @@ def _seed(db, raw: int = 3) -> int:
     import_bytes(db, TREE.encode(), source="gold.ptb", corpus_name="Quayside", kind="gold")
     text = "".join(f"Crate {i} waits on the quay .\n" for i in range(raw))
     import_bytes(db, text.encode(), source="raw.txt", corpus_name="Quayside")
-    return db.scalar(select(Corpus.id))
+    return _open_to_everyone(db)
+
+
+def _open_to_everyone(db) -> int:
+    # these tests are about the pages; who may read a corpus is test_visibility.py's
+    corpus = db.scalar(select(Corpus))
+    corpus.settings = {**corpus.settings, "visible_to_everyone": True}
+    db.commit()
+    return corpus.id
 
 
 def test_pages_corpora_list_shows_counts(login, db) -> None:
@@ -79,7 +87,7 @@ def test_pages_corpora_corpus_page_paginates(login, db) -> None:
 def test_pages_corpora_words_are_escaped(login, db) -> None:
     import_bytes(db, b"A <img src=x onerror=alert(1)> word .\n", source="x.txt",
                  corpus_name="Hostile")
-    cid = db.scalar(select(Corpus.id))
+    cid = _open_to_everyone(db)
     html = login("ann1").client.get(f"/corpora/{cid}").text
     assert "<img src=x" not in html and "&lt;img" in html
 

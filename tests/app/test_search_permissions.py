@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 from sqlalchemy.orm import Session
 
-from app.models import ANN_DRAFT, Annotation, Corpus, Revision, Sentence, User
+from app.models import ANN_DRAFT, Annotation, Assignment, Corpus, Revision, Sentence, User
 from app.services import search as svc
 from app.services.errors import BadInput, Forbidden
 from tests.app.quality_helpers import GOLD, import_gold
@@ -19,6 +19,8 @@ ANN2_TREE = ("(ROOT (S (NP (DT the) (NN mate)) (VP (VBD rang) (ADJP (DT the) (NN
 
 
 def _draft(db: Session, sentence: Sentence, user: User, tree: str) -> Annotation:
+    # assigned, as a draft is in practice (the assignment makes the annotator a member)
+    db.add(Assignment(sentence_id=sentence.id, user_id=user.id))
     ann = Annotation(sentence_id=sentence.id, user_id=user.id, state=ANN_DRAFT, head=1)
     db.add(ann)
     db.flush()
