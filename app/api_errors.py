@@ -12,6 +12,15 @@ common layers are added to the OpenAPI document here, so no route forgets them:
 * 422 (a parameter or body that does not fit) on every route with parameters or a body.
 
 A status the route module documents itself keeps its own description and model.
+
+*Quiet refusals.* The pages expect some refusals as part of their work: a stale save (409, the
+conflict panel), a tree that does not fit yet while the adjudicator types (422), a label to
+confirm (422). A browser logs every 4xx answer to a script's request as a failed resource in
+its console, where it reads as a fault. So a page's request says ``X-Treewright-Quiet-Refusal:
+1`` and then gets such an expected refusal (409 or 422 from a service) as 200 with the real
+status in ``X-Treewright-Status`` and the same body; the pages' ``api()`` helpers read that
+header back. Every other client gets the plain status, and the OpenAPI document describes
+those.
 Cost: one walk over the routes' dependency trees at start-up, one pass over the document when
 it is first built.
 """
@@ -42,6 +51,22 @@ _DOCS: dict[int, str] = {
     413: "the body is larger than the configured limit",
     422: "a parameter or the body does not fit",
 }
+
+
+QUIET_REQUEST_HEADER = "X-Treewright-Quiet-Refusal"
+STATUS_HEADER = "X-Treewright-Status"
+#: Refusals a page expects in its normal work (see the module docstring).
+QUIET_STATUSES = frozenset({409, 422})
+
+
+def refusal_answer(request: Request, body: dict[str, Any], status_code: int,
+                   headers: dict[str, str] | None = None) -> JSONResponse:
+    """A service's refusal as JSON: with its status, or quietly (200 and the status in a
+    header) when a page asked for that and the refusal is one it expects."""
+    if status_code in QUIET_STATUSES and request.headers.get(QUIET_REQUEST_HEADER) == "1":
+        return JSONResponse(body, status_code=200,
+                            headers={**(headers or {}), STATUS_HEADER: str(status_code)})
+    return JSONResponse(body, status_code=status_code, headers=headers)
 
 
 def _walk(dependant: Dependant) -> list[Dependant]:

@@ -24,7 +24,13 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 import app.routes
-from app.api_errors import SharedErrorDocs, busy_answer, is_lock_timeout, value_out_of_range
+from app.api_errors import (
+    SharedErrorDocs,
+    busy_answer,
+    is_lock_timeout,
+    refusal_answer,
+    value_out_of_range,
+)
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
 from app.services import admission, suggestions, training
@@ -206,8 +212,8 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
             return page
         headers = {"Retry-After": str(exc.extra["retry_after"])} \
             if "retry_after" in exc.extra else None
-        return JSONResponse({"detail": exc.detail, **exc.extra}, status_code=exc.status_code,
-                            headers=headers)
+        return refusal_answer(request, {"detail": exc.detail, **exc.extra}, exc.status_code,
+                              headers)
 
     for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
         application.add_exception_handler(too_big, value_out_of_range)

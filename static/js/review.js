@@ -96,7 +96,10 @@ for (const panel of document.querySelectorAll(".rv-tree")) {
 async function api(path, body) {
   const resp = await fetch(`/api/review/${sentenceId}/${path}`, {
     method: "POST",
-    headers: { "Content-Type": "application/json", "X-CSRF-Token": csrf },
+    // an expected refusal (422 while typing, 409) comes back as 200 with its status in a
+    // header, so the browser does not log it as a failed resource (app/api_errors.py)
+    headers: { "Content-Type": "application/json", "X-CSRF-Token": csrf,
+      "X-Treewright-Quiet-Refusal": "1" },
     body: JSON.stringify(body),
   });
   let data = null;
@@ -105,7 +108,8 @@ async function api(path, body) {
   } catch (err) {
     data = { detail: `${resp.status} ${resp.statusText}` };
   }
-  return { ok: resp.ok, status: resp.status, data };
+  const status = Number(resp.headers.get("X-Treewright-Status")) || resp.status;
+  return { ok: status >= 200 && status < 300, status, data };
 }
 
 function say(el, message, kind) {

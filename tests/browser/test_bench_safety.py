@@ -132,6 +132,8 @@ def test_bench_stale_save_keeps_mine_or_takes_theirs(browser_page, live_server) 
     revs = revisions(live_server, world["user_id"], sid)
     assert [r.tree for r in revs] == [theirs, mine, theirs2, mine2]
     other.close()
+    # the two stale saves were refused quietly (app/api_errors.py): no failed resource logged
+    assert [e for e in page.console_errors if "favicon" not in e] == []
 
 
 def test_bench_failed_save_survives_a_reload(browser_page, live_server) -> None:
