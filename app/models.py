@@ -87,6 +87,14 @@ ANN_SUBMITTED = AnnotationState.SUBMITTED
 ANN_FLAGGED = AnnotationState.FLAGGED
 ANNOTATION_STATES = tuple(AnnotationState)
 
+# Start kinds: what the first tree of every annotation of a sentence is (the suggestion's
+# consensus tree, its best reading, the parser's fallback tree, or a flat tree without grammar).
+START_CONSENSUS = "consensus"
+START_BEST = "best"
+START_FALLBACK = "fallback"
+START_FLAT = "flat"
+START_KINDS = (START_CONSENSUS, START_BEST, START_FALLBACK, START_FLAT)
+
 # Where a revision's tree came from.
 REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat",
                "restore", "tokens")
@@ -220,6 +228,12 @@ class Sentence(Base):
     #: first". None until computed.
     entropy_per_word: Mapped[float | None] = mapped_column(Float, nullable=True)
     entropy_grammar_id: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    #: The start every annotator of this sentence gets (one of START_KINDS), fixed by the first
+    #: opening on the Bench; with the grammar version whose suggestion it came from (None for
+    #: ``flat``). None while nobody has opened the sentence.
+    start_kind: Mapped[str | None] = mapped_column(String(16), nullable=True, default=None)
+    start_grammar_version_id: Mapped[int | None] = mapped_column(
+        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None)
 
     document: Mapped[Document] = relationship(back_populates="sentences")
 
@@ -321,6 +335,13 @@ class Annotation(Base):
     submitted_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
     # the tree the annotator's work started from (the suggestion shown before the first save)
     start_tree: Mapped[str | None] = mapped_column(Text, nullable=True)
+    #: What this annotation started from (copied from its sentence's fixed start when the
+    #: annotation is created): one of START_KINDS, the grammar version and its suggestion row.
+    start_kind: Mapped[str | None] = mapped_column(String(16), nullable=True, default=None)
+    start_grammar_version_id: Mapped[int | None] = mapped_column(
+        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None)
+    start_suggestion_id: Mapped[int | None] = mapped_column(
+        ForeignKey("suggestions.id", ondelete="SET NULL"), nullable=True, default=None)
 
 
 class Revision(Base):

@@ -22,6 +22,7 @@ from app.models import (
     SENT_IN_REVIEW,
     Annotation,
     Corpus,
+    GrammarVersion,
     Sentence,
     Suggestion,
     User,
@@ -61,11 +62,15 @@ ERRORS: dict[int | str, dict[str, Any]] = {
 }
 
 
-def _annotation_public(a: Annotation | None) -> AnnotationPublic:
+def _annotation_public(a: Annotation | None, db: Session | None = None) -> AnnotationPublic:
     if a is None:
         return AnnotationPublic(id=None, state=ANN_DRAFT, head=0)
+    version = (db.get(GrammarVersion, a.start_grammar_version_id)
+               if db is not None and a.start_grammar_version_id is not None else None)
     return AnnotationPublic(id=a.id, state=a.state, head=a.head, comment=a.comment or "",
-                            flag=a.flag, submitted_at=a.submitted_at)
+                            flag=a.flag, submitted_at=a.submitted_at,
+                            start_kind=a.start_kind,
+                            start_grammar_version=version.number if version else None)
 
 
 def _corpus(db: Session, corpus_id: int) -> Corpus:
@@ -87,7 +92,6 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     corpus = _corpus(db, sentence.corpus_id)
     annotation = svc.own_annotation(db, user, sentence)
     head = svc.current_revision(db, annotation)
-    suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
     carried_from = None
     if head is not None and head.token_version != sentence.token_version:
         carried_from = head.token_version
@@ -98,12 +102,15 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
                 "tag) and saved as a new revision; your earlier revisions are kept.")
     elif head is not None:
         tree, pins, source, note = head.tree, head.pins or {}, head.source, None
-    else:
-        start = suggestions.start_tree(sentence, suggestion)
+    else:  # before the suggestion below: a first opening parses completely once, not twice
+        start = suggestions.fixed_start(db, sentence, corpus, k)
         tree, pins, source, note = start.tree, {}, start.source, start.note
-        if suggestion is None and training.open_job(db, corpus.id) is not None:
-            note = ("The grammar is being trained: suggestions arrive when the grammar is "
-                    "ready (open this sentence again then). Meanwhile this is a flat tree.")
+    suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
+    if head is None and suggestion is None and training.open_job(db, corpus.id) is not None:
+        note = ("The grammar is being trained: suggestions arrive when the grammar is "
+                "ready (open this sentence again then). Meanwhile this is a flat tree.")
+    start_version = (db.get(GrammarVersion, sentence.start_grammar_version_id)
+                     if sentence.start_grammar_version_id is not None else None)
     place = svc.queue_place(db, user, sentence.id)
     sugg_public = _suggestion_public(db, corpus, suggestion)
     editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
@@ -114,8 +121,10 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
                                 position=sentence.position,
                                 tokens=svc.stored_words(sentence), text=sentence.text,
                                 state=sentence.state),
-        annotation=_annotation_public(annotation), tree=tree, pins=Pins(**pins),
+        annotation=_annotation_public(annotation, db), tree=tree, pins=Pins(**pins),
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
+        start_kind=sentence.start_kind,
+        start_grammar_version=start_version.number if start_version else None,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.options.unknown_label_policy.value,
         queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus),
@@ -167,7 +176,7 @@ def save_revision(sentence_id: int, body: RevisionCreate, login: ApiUser,
                                active_seconds=body.active_seconds, actions=body.actions,
                                start_tree=body.start)
     rev = result.revision
-    return SavePublic(annotation=_annotation_public(result.annotation),
+    return SavePublic(annotation=_annotation_public(result.annotation, db),
                       revision=RevisionPublic(number=rev.number, tree=rev.tree,
                                               pins=Pins(**(rev.pins or {})), source=rev.source,
                                               created_at=rev.created_at))

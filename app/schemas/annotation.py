@@ -42,6 +42,11 @@ class AnnotationPublic(BaseModel):
     comment: str = ""
     flag: str | None = None
     submitted_at: UtcDateTime | None = None
+    start_kind: str | None = Field(default=None, description=(
+        "what the annotation started from: consensus, best, fallback or flat (the same for "
+        "every annotator of the sentence); null before the first save"))
+    start_grammar_version: int | None = Field(default=None, description=(
+        "number of the grammar version whose suggestion it started from"))
 
 
 class RevisionPublic(BaseModel):
@@ -83,6 +88,10 @@ class BenchPublic(BaseModel):
     start_note: str | None = Field(description="set when the tree is a start tree, not a "
                                                "saved revision")
     editable: bool
+    start_kind: str | None = Field(default=None, description=(
+        "the sentence's fixed start, the same for all its annotators (consensus, best, "
+        "fallback, flat); null while it has none"))
+    start_grammar_version: int | None = None
     suggestion: SuggestionPublic | None
     labels: list[str]
     tags: list[str]

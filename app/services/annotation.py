@@ -57,6 +57,7 @@ from app.services import agreement
 from app.services.errors import BadInput, Conflict, NotFound
 from app.services.gold import current_revision
 from app.services.held import open_state, still_held
+from app.services.suggestions import record_start
 from app.services.validation import (
     MAX_TREE_CHARS,
     stored_words,
@@ -136,6 +137,7 @@ def _check_open(db: Session, user: User, sentence: Sentence) -> None:
 def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
     """Create the user's (empty) annotation; a concurrent creation wins and this is a 409."""
     annotation = Annotation(sentence_id=sentence.id, user_id=user.id, state=ANN_DRAFT, head=0)
+    record_start(db, annotation, sentence)
     db.add(annotation)
     try:
         db.flush()

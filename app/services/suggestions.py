@@ -37,10 +37,10 @@ import tempfile
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 from nltk import Tree
-from sqlalchemy import exists, select
+from sqlalchemy import CursorResult, exists, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker, undefer
 
@@ -48,6 +48,10 @@ from app.models import (
     GV_READY,
     SENT_IN_PROGRESS,
     SENT_QUEUED,
+    START_BEST,
+    START_CONSENSUS,
+    START_FALLBACK,
+    START_FLAT,
     Annotation,
     Corpus,
     GrammarVersion,
@@ -205,6 +209,12 @@ def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
     version = active_version(db, corpus)
     if version is None:
         return None
+    return _suggestion_under(db, sentence, version, k, complete)
+
+
+def _suggestion_under(db: Session, sentence: Sentence, version: GrammarVersion, k: int,
+                      complete: bool) -> Suggestion | None:
+    """The cached suggestion of ``sentence`` under ``version``, parsed now if missing."""
     row = _cached(db, sentence.id, version.id)
     if row is not None and (is_complete(row) or not complete):
         return row
@@ -287,23 +297,37 @@ def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersi
 # --------------------------------------------------------------------------- start tree
 @dataclass
 class StartTree:
-    """What a new annotation starts from: the consensus or best reading, or a flat tree."""
+    """What a new annotation starts from: the consensus or best reading, or a flat tree.
+
+    ``kind`` is one of :data:`app.models.START_KINDS`; ``grammar_version_id`` /
+    ``grammar_version`` (its number) and ``suggestion_id`` name the suggestion it came from
+    (None for a flat tree)."""
 
     tree: str
     source: str  # "suggestion" | "flat"
     note: str
+    kind: str = START_FLAT
+    grammar_version_id: int | None = None
+    grammar_version: int | None = None
+    suggestion_id: int | None = None
 
 
-def start_tree(sentence: Sentence, suggestion: Suggestion | None) -> StartTree:
+def start_tree(sentence: Sentence, suggestion: Suggestion | None,
+               version_number: int | None = None) -> StartTree:
     """The consensus tree when the suggestion has one, else its best reading, else flat."""
+    of = f" (grammar version {version_number})" if version_number is not None else ""
     if suggestion is not None and suggestion.consensus:
         return StartTree(suggestion.consensus, "suggestion",
-                         "Consensus of the active grammar: the brackets most probable over "
-                         "all its readings.")
+                         f"Consensus of the grammar{of}: the brackets most probable over "
+                         "all its readings.", START_CONSENSUS, suggestion.grammar_version_id,
+                         version_number, suggestion.id)
     if suggestion is not None and suggestion.trees:
-        note = ("The grammar found no full parse; this is its fallback tree."
-                if suggestion.fallback else "Best reading of the active grammar.")
-        return StartTree(suggestion.trees[0], "suggestion", note)
+        fallback = suggestion.fallback
+        note = (f"The grammar{of} found no full parse; this is its fallback tree."
+                if fallback else f"Best reading of the grammar{of}.")
+        return StartTree(suggestion.trees[0], "suggestion", note,
+                         START_FALLBACK if fallback else START_BEST,
+                         suggestion.grammar_version_id, version_number, suggestion.id)
     word_list = _sentence_words(sentence)
     tree = flat_tree(word_list)
     if too_long(word_list):
@@ -312,6 +336,69 @@ def start_tree(sentence: Sentence, suggestion: Suggestion | None) -> StartTree:
                          f"{admission().max_words} the parser takes on request: it starts flat. "
                          "Split it into shorter sentences to get suggestions.")
     return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")
+
+
+def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> StartTree:
+    """The start every annotator of ``sentence`` gets, fixing it on the sentence if nobody has.
+
+    The first opening under a grammar fixes the sentence's start to that grammar version's
+    suggestion (its consensus tree, parsed completely now if the cached row lacks it), with a
+    compare-and-set so that two first openings at once agree; later openings get the same
+    tree whatever grammar is active by then. Without any grammar the start is a flat tree,
+    fixed only when the first annotation is created (:func:`record_start`), so a sentence
+    merely looked at before the first grammar still gets that grammar's suggestion.
+    Commits when it fixes a start."""
+    for _ in range(2):
+        if sentence.start_kind == START_FLAT:
+            return start_tree(sentence, None)
+        if sentence.start_kind is not None and sentence.start_grammar_version_id is not None:
+            fixed = db.get(GrammarVersion, sentence.start_grammar_version_id)
+            if fixed is not None and fixed.status == GV_READY:
+                # parsed again under the same version when the row is gone (a token fix
+                # removes a sentence's suggestions): every annotator still gets one grammar
+                try:
+                    row = _suggestion_under(db, sentence, fixed, k, complete=True)
+                except (NotFound, Conflict):  # its saved grammar is gone: fix a new start
+                    row = None
+                if row is not None:
+                    return start_tree(sentence, row, fixed.number)
+        version = active_version(db, corpus)
+        if version is None:
+            return start_tree(sentence, None)
+        row = suggestion_for(db, sentence, corpus, k, complete=True)
+        start = start_tree(sentence, row, version.number)
+        moved = db.execute(
+            update(Sentence)
+            .where(Sentence.id == sentence.id,
+                   (Sentence.start_kind.is_(None))
+                   | ((Sentence.start_kind != START_FLAT)
+                      & (Sentence.start_grammar_version_id.is_(None)
+                         | (Sentence.start_grammar_version_id
+                            == sentence.start_grammar_version_id))))
+            .values(start_kind=start.kind, start_grammar_version_id=version.id)
+            .execution_options(synchronize_session=False))
+        db.commit()
+        db.refresh(sentence)
+        if cast(CursorResult[Any], moved).rowcount == 1:
+            return start
+        # another first opening fixed it meanwhile: take theirs
+    return start_tree(sentence, None)
+
+
+def record_start(db: Session, annotation: Annotation, sentence: Sentence) -> None:
+    """Copy the sentence's fixed start onto a new annotation (no commit). A sentence nobody
+    opened under a grammar gets the flat start fixed now."""
+    if sentence.start_kind is None:
+        db.execute(update(Sentence)
+                   .where(Sentence.id == sentence.id, Sentence.start_kind.is_(None))
+                   .values(start_kind=START_FLAT)
+                   .execution_options(synchronize_session=False))
+        db.refresh(sentence)
+    annotation.start_kind = sentence.start_kind
+    annotation.start_grammar_version_id = sentence.start_grammar_version_id
+    if sentence.start_grammar_version_id is not None:
+        row = _cached(db, sentence.id, sentence.start_grammar_version_id)
+        annotation.start_suggestion_id = row.id if row is not None else None
 
 
 # --------------------------------------------------------------------------- re-parse

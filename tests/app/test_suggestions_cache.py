@@ -32,32 +32,31 @@ def _count(db) -> int:
     return db.scalar(select(func.count()).select_from(Suggestion))
 
 
-def test_suggestions_new_annotation_starts_from_best_and_is_cached(db, people, login,
-                                                                   settings) -> None:
+def test_suggestions_new_annotation_starts_from_consensus_and_is_cached(db, people, login,
+                                                                        settings) -> None:
     _, sentences, _ = _world(db, people)
     me = login("ann1")
     s = sentences[0]
     first = me.client.get(f"/api/bench/{s.id}").json()
     assert first["source"] == "suggestion"
-    fast = first["suggestion"]
-    # the page is drawn from the fast parse: k best trees, posteriors still to come
-    assert fast["grammar_version"] == 1 and fast["fallback"] is False
-    assert fast["complete"] is False and fast["posteriors"] == []
-    assert len(fast["alternatives"]) == settings.suggestion_k
-    assert first["tree"] == fast["alternatives"][0]["tree"]
-    assert all(a["probability"] is None for a in fast["alternatives"])
-    assert _count(db) == 1
-    full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
-    assert full["complete"] is True and full["posteriors"]
-    assert [a["tree"] for a in full["alternatives"]] == [a["tree"] for a in fast["alternatives"]]
-    probs = [a["probability"] for a in full["alternatives"]]
+    sugg = first["suggestion"]
+    # The first opening fixes the sentence's start, so it parses completely once: the
+    # consensus tree is the start, and the row is complete.
+    assert sugg["grammar_version"] == 1 and sugg["fallback"] is False
+    assert sugg["complete"] is True and sugg["posteriors"]
+    assert len(sugg["alternatives"]) == settings.suggestion_k
+    assert first["tree"] == sugg["consensus"]
+    assert first["start_kind"] == "consensus" and first["start_grammar_version"] == 1
+    probs = [a["probability"] for a in sugg["alternatives"]]
     assert all(0 < p <= 1 for p in probs)
     assert probs == sorted(probs, reverse=True)
     assert sum(probs) <= 1 + 1e-6  # distinct trees of one sentence
-    assert len({a["tree"] for a in full["alternatives"]}) == len(probs)
-    assert _count(db) == 1  # completed in place
+    assert len({a["tree"] for a in sugg["alternatives"]}) == len(probs)
+    assert _count(db) == 1
+    full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
+    assert full == sugg and _count(db) == 1
     again = me.client.get(f"/api/bench/{s.id}").json()
-    assert again["suggestion"] == full and _count(db) == 1
+    assert again["suggestion"] == full and again["tree"] == first["tree"] and _count(db) == 1
 
 
 def test_suggestions_posteriors_cover_the_root_and_the_best_tree(db, people, login) -> None:
@@ -143,8 +142,6 @@ def test_suggestions_consensus_is_the_start_tree_once_complete(db, people, login
     _, sentences, _ = _world(db, people)
     me = login("ann1")
     s = sentences[2]
-    fast = me.client.get(f"/api/bench/{s.id}").json()
-    assert fast["suggestion"]["consensus"] is None  # the fast row has no posteriors yet
     full = me.client.get(f"/api/bench/{s.id}/suggestion").json()
     consensus = read_tree(full["consensus"])
     assert consensus.leaves() == s.tokens
@@ -156,9 +153,8 @@ def test_suggestions_consensus_is_the_start_tree_once_complete(db, people, login
     for lab, a, b in constituents(consensus):
         if (lab, a, b) != ("ROOT", 0, len(s.tokens)):
             assert post[(lab, a, b)] > DEFAULT_COST
-    # A sentence nobody has started now starts from the consensus tree.
+    # A sentence nobody has started starts from the consensus tree.
     other = sentences[3]
-    me.client.get(f"/api/bench/{other.id}/suggestion")
     body = me.client.get(f"/api/bench/{other.id}").json()
     assert body["tree"] == body["suggestion"]["consensus"]
     assert body["start_note"].startswith("Consensus")
