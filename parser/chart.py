@@ -61,11 +61,16 @@ class Constraints:
         (smoothed) grammar a fixed tag the lexicon gives no probability for that word emits it
         with probability 1e-12 instead, so gold tags never make a sentence unparsable; with a
         grammar from explicit rules the rules are taken literally.
+    relabel_backoff: None keeps required labels strict; a probability p lets any node over a
+        required span stand in for its required label at a factor p (the relabel back-off):
+        a label the grammar cannot build over those words then costs p instead of the whole
+        parse. The trees returned then carry the stand-in's label; the caller relabels.
     """
 
     required: Sequence[tuple[int, int, str | None]] = ()
     forbidden: Sequence[tuple[int, int]] = ()
     tags: Sequence[str | None] = ()
+    relabel_backoff: float | None = None
 
 
 @dataclass
@@ -81,6 +86,8 @@ class ParseResult:
     #: The consensus tree (:mod:`parser.consensus`), computed with the posteriors; None
     #: without posteriors or for a fallback.
     consensus: Tree | None = None
+    #: With the posteriors: per word, {POS tag: posterior} for tags above the threshold.
+    tag_posteriors: list[dict[str, float]] = field(default_factory=list)
 
 
 class _Tables:
@@ -178,6 +185,7 @@ class _Problem:
     satisfiable: bool
     required: list[tuple[int, int, str | None]]
     tags: list[str | None]
+    backoff: float = kernels.NEG
 
 
 def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
@@ -225,10 +233,11 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
         s = int(sid[a, b])
         per_span.setdefault(s, [])
         if lab is not None:
-            if lab not in label_id:
-                satisfiable = False
-            else:
+            if lab in label_id:
                 per_span[s].append(label_id[lab])
+            elif c.relabel_backoff is None:
+                satisfiable = False
+            # with the back-off, a label the grammar lacks asks for any node over the span
     for a, b in forbidden:
         code[sid[a, b]] = -2
     req_off = np.zeros(n_span + 1, dtype=np.int64)
@@ -254,9 +263,14 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
             keep = np.where(np.isfinite(keep), keep, _FIXED_TAG_FLOOR)
         lex[i, :] = -np.inf
         lex[i, allowed] = keep
+    backoff = kernels.NEG
+    if c.relabel_backoff is not None:
+        if not 0.0 < c.relabel_backoff < 1.0:
+            raise ConstraintError(f"relabel back-off {c.relabel_backoff} is not in (0, 1)")
+        backoff = math.log(c.relabel_backoff)
     return _Problem(n=n, sid=sid, dead=dead, code=code, req_off=req_off,
                     req_lab=np.array(req_lab_list, dtype=np.int32), lex=lex,
-                    satisfiable=satisfiable, required=required, tags=tags)
+                    satisfiable=satisfiable, required=required, tags=tags, backoff=backoff)
 
 
 _FIXED_TAG_FLOOR = math.log(1e-12)
@@ -295,6 +309,7 @@ def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False
     result = ParseResult(trees=trees, logprobs=logprobs)
     if posteriors:
         result.inside_logprob, result.posteriors = chart.posteriors(posterior_threshold)
+        result.tag_posteriors = chart.tag_posteriors
         result.consensus = consensus_tree(
             words, [tag for _, tag in trees[0].pos()], result.posteriors, g.root_label,
             required=prob.required, cost=consensus_cost)
@@ -358,13 +373,14 @@ class _Chart:
             p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
             np.maximum(p.lex, kernels.NEG),
             tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_logp,
-            tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab)
+            tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab, p.backoff)
         for arr in (self.vt, self.vb):
             arr[arr <= kernels.LOW] = -np.inf
         self.full = int(p.sid[0, p.n])
         self.best = float(self.vt[self.full, g.start])
         self.ok = self.best > -math.inf
         self._inside: tuple[np.ndarray, ...] | None = None
+        self.tag_posteriors: list[dict[str, float]] = []
 
     # ------------------------------------------------------------- Viterbi tree
     def viterbi_tree(self, words: Sequence[str]) -> Tree:
@@ -398,7 +414,7 @@ class _Chart:
                 p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
                 np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG),
                 tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_w,
-                tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab)
+                tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, p.backoff)
         return self._inside
 
     def inside(self) -> float:
@@ -408,12 +424,21 @@ class _Chart:
     def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
         it, ib, sigma, il, ir = self._inside_chart()
         p, tab = self.p, self.tab
-        post = kernels.outside(
+        post, tpost = kernels.outside(
             p.n, self.g.n_symbols, self.g.start, p.sid, p.dead, p.code, p.req_off, p.req_lab,
             it, ib, sigma, il, ir, tab.pair_left, tab.pair_right, tab.pair_off,
             tab.lo_parent, tab.lo_w,
             tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
-            tab.lab_ids, len(tab.labels))
+            tab.lab_ids, len(tab.labels), p.backoff)
+        self.tag_posteriors = []
+        for i in range(p.n):
+            per: dict[str, float] = {}
+            row = tpost[i]
+            for sym in np.flatnonzero(row > 0.0):
+                tag = self.g.base[int(sym)]
+                per[tag] = per.get(tag, 0.0) + float(row[sym])
+            self.tag_posteriors.append({t: min(1.0, v) for t, v in per.items()
+                                        if v > threshold})
         spans, labs = np.nonzero(post > threshold)
         ii, kk = np.nonzero(p.sid >= 0)
         start = np.empty(len(ii), dtype=np.int64)

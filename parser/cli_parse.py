@@ -5,10 +5,11 @@ sentences from standard input. Both are commands of the ``treewright`` group (ap
 [--vertical V]`` prints the grammar's size, the weight of the in-domain trees against the
 reference trees (with ``auto``, each grid point's held-out F1) and the training time.
 
-``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one
-sentence per line (tokens split on whitespace; with ``--tagged`` each token is ``word/TAG``,
-split at the last slash) and writes exactly one line per input line: the best tree in bracketed
-form (with ``--consensus`` the consensus tree of :mod:`parser.consensus` instead, the more
+``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one sentence per line (lines end
+at a newline only; tokens split on whitespace; with ``--tagged`` each token is ``word/TAG``,
+split at the last slash, and a tag the grammar does not know is an error naming the line and
+token) and writes exactly one line per input line: the best tree in bracketed form (with
+``--consensus`` the consensus tree of :mod:`parser.consensus` instead, the more
 accurate one, at the cost of the posteriors), or with ``--json`` an object with the k trees,
 their log-probabilities, the inside log-probability, the span posteriors, the consensus tree
 and the fallback flag. Empty input lines give empty output lines (``--json``: an object with
@@ -40,7 +41,7 @@ from parser.grammar import (
     Weighting,
     train_grammar,
 )
-from parser.trees import read_trees, write_tree
+from parser.trees import read_trees, text_lines, write_tree
 
 
 def _read_files(paths: tuple[Path, ...]) -> list[Tree]:
@@ -123,7 +124,8 @@ def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path
     click.echo(f"wrote {out}")
 
 
-def _tokens(line: str, lineno: int, tagged: bool) -> tuple[list[str], list[str | None]]:
+def _tokens(line: str, lineno: int, tagged: bool,
+            known_tags: frozenset[str] = frozenset()) -> tuple[list[str], list[str | None]]:
     words: list[str] = []
     tags: list[str | None] = []
     for col, token in enumerate(line.split(), 1):
@@ -134,6 +136,10 @@ def _tokens(line: str, lineno: int, tagged: bool) -> tuple[list[str], list[str |
         if not slash or not word or not tag:
             raise click.ClickException(
                 f"line {lineno}, token {col} {token!r}: expected word/TAG")
+        if known_tags and tag not in known_tags:
+            raise click.ClickException(
+                f"line {lineno}, token {col} {token!r}: the grammar has no POS tag {tag!r} "
+                f"(it knows {len(known_tags)}: {', '.join(sorted(known_tags))})")
         words.append(word)
         tags.append(tag)
     return words, tags
@@ -178,12 +184,12 @@ def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, conse
         g = Grammar.load(grammar_path)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc
-    lines = sys.stdin.read().splitlines()
+    lines = text_lines(sys.stdin.read())  # newlines only: a form feed is no line break
     sentences: list[list[str]] = []
     constraints: list[Constraints | None] = []
     where: list[int] = []
     for lineno, line in enumerate(lines, 1):
-        words, tags = _tokens(line, lineno, tagged)
+        words, tags = _tokens(line, lineno, tagged, frozenset(g.tags))
         if words:
             sentences.append(words)
             constraints.append(Constraints(tags=tags) if tagged else None)

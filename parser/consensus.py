@@ -41,23 +41,28 @@ DEFAULT_COST = 0.4
 def consensus_tree(words: Sequence[str], tags: Sequence[str],
                    posteriors: Sequence[tuple[str, int, int, float]], root: str,
                    required: Iterable[tuple[int, int, str | None]] = (),
-                   cost: float = DEFAULT_COST) -> Tree:
+                   cost: float = DEFAULT_COST,
+                   prefer: Iterable[tuple[str, int, int]] = (), bonus: float = 0.0) -> Tree:
     """The tree of :mod:`parser.consensus` (see there) over ``words`` with ``tags``.
 
     ``posteriors``: ``(label, start, end, p)``, spans 0-based and end-exclusive; labels equal to
     ``root`` on the whole sentence are the root itself. ``required``: spans that must be
-    bracketed, ``(start, end, label or None)``.
+    bracketed, ``(start, end, label or None)``. ``prefer``: labelled spans ``(label, start,
+    end)`` (e.g. the brackets of the tree being re-parsed) whose posterior counts ``bonus``
+    more, so they stay unless the evidence against them is clear.
     """
     n = len(words)
     gain = np.zeros((n + 1, n + 1))
     labels: dict[tuple[int, int], list[tuple[float, str]]] = {}
     # Most probable label of every span, for required spans given without a label.
     best_label: dict[tuple[int, int], tuple[float, str]] = {}
+    preferred = set(prefer) if bonus else set()
     for label, i, k, p in posteriors:
         if (i, k) == (0, n) and label == root:
             continue
-        if p > cost:
-            gain[i, k] += p - cost
+        worth = p + bonus if (label, i, k) in preferred else p
+        if worth > cost:
+            gain[i, k] += worth - cost
             labels.setdefault((i, k), []).append((p, label))
         if (i, k) not in best_label or p > best_label[(i, k)][0]:
             best_label[(i, k)] = (p, label)

@@ -25,12 +25,14 @@ Limits: the hypergraph must be acyclic, which a chart with unary chains collapse
 from __future__ import annotations
 
 import heapq
+import math
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from nltk import Tree
 
+from parser import kernels
 from parser.errors import ParserError
 
 if TYPE_CHECKING:  # the chart imports this module; only its types are needed here
@@ -46,19 +48,23 @@ Deriv = tuple[float, Edge, tuple[Node, ...], tuple[int, ...]]
 _Candidate = tuple[float, int, Edge, tuple[Node, ...], tuple[int, ...]]
 
 
-def allowed(chart: _Chart, e: int, kind: int, s: int) -> bool:
-    """Whether unary edge ``e`` may end at span ``s`` under the chart's constraints (the same
-    test the compiled Viterbi loop applies)."""
+def edge_logw(chart: _Chart, e: int, kind: int, s: int) -> float:
+    """The log weight the chart's constraints add to unary edge ``e`` ending at span ``s``
+    (the same as the compiled loops' ``_edge_logw``): 0, -inf for an excluded edge, or the
+    relabel back-off over a required span whose labels the edge lacks."""
     p, tab = chart.p, chart.tab
     c = p.code[s]
     if c == -1:
-        return True
+        return 0.0
     nonempty = tab.nonempty
     if c == -2:
-        return not bool(nonempty[e, kind])
+        return -math.inf if nonempty[e, kind] else 0.0
+    backoff = -math.inf if p.backoff <= kernels.LOW else float(p.backoff)
     if kind == 1 and not nonempty[e, 1]:
-        return False
-    return all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]])
+        return backoff
+    if all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]]):
+        return 0.0
+    return backoff
 
 
 def open_chain(chain: Sequence[str], children: list[Any]) -> tuple[Tree, Tree]:
@@ -105,8 +111,10 @@ class LazyKBest:
             scores = tab.ulogp[es] + c.vb[s, tab.uc[es]]
             kind_id = 0 if k - i == 1 else 1
             for e, sc in zip(es, scores, strict=True):
-                if sc == -np.inf or not allowed(c, int(e), kind_id, s):
+                pen = edge_logw(c, int(e), kind_id, s)
+                if sc == -np.inf or pen == -math.inf:
                     continue
+                sc = sc + pen
                 heap.append((-float(sc), self._t(), ("u", int(e)),
                              ((BOT, s, int(tab.uc[e])),), (0,)))
         elif k - i == 1:
@@ -143,7 +151,9 @@ class LazyKBest:
     def _weight(self, edge: Edge, node: Node) -> float:
         tab = self.c.tab
         if edge[0] == "u":
-            return float(tab.ulogp[edge[1]])
+            s = node[1]
+            kind_id = 0 if self.end_of[s] - self.start_of[s] == 1 else 1
+            return float(tab.ulogp[edge[1]]) + edge_logw(self.c, edge[1], kind_id, s)
         if edge[0] == "b":
             return float(tab.po_logp[edge[1]])
         return float(self.c.p.lex[int(self.start_of[node[1]]), node[2]])

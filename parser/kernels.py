@@ -18,11 +18,16 @@ vectorizable reduction.
 * :func:`inside`: sum-product scores kept as ``value * exp(sigma[s])`` with each span's vector
   scaled to a maximum of 1, so nothing underflows whatever the sentence length.
 * :func:`outside`: outside scores scaled so that ``outside_top * inside_top`` is directly the
-  posterior of a top node; accumulates the posteriors of labelled spans via the unary edges.
+  posterior of a top node; accumulates the posteriors of labelled spans via the unary edges,
+  and of each word's preterminal symbols.
 
 Constraints enter as per-span data: ``dead[s]`` (span crosses a required span: no node at all)
 and ``code[s]``: -1 free, -2 forbidden (no node of the user's label set), otherwise required
-with the label ids ``req_lab[req_off[s]:req_off[s + 1]]`` (none listed: any node).
+with the label ids ``req_lab[req_off[s]:req_off[s + 1]]`` (none listed: any node). ``backoff``
+is the log weight of an edge over a required span that lacks the required labels: NEG keeps
+the constraint strict; a small probability (the *relabel back-off*) lets any node over the span
+stand in for the required label at that price, so a required labelled span never empties the
+chart (the caller puts the label on the node afterwards).
 
 Binary rules come grouped by their right-hand side (``p_left[q] p_right[q]`` for the rules
 ``p_off[q]:p_off[q + 1]``, each with its parent and weight), so that the loop over split points
@@ -47,19 +52,22 @@ LOW = -1e99
 
 
 @njit(cache=True, inline="always")
-def _allowed(e: int, kind: int, s: int, code: np.ndarray, req_off: np.ndarray,
-             req_lab: np.ndarray, nonempty: np.ndarray, haslab: np.ndarray) -> bool:
+def _edge_logw(e: int, kind: int, s: int, code: np.ndarray, req_off: np.ndarray,
+               req_lab: np.ndarray, nonempty: np.ndarray, haslab: np.ndarray,
+               backoff: float) -> float:
+    """Log weight the constraints add to unary edge ``e`` over span ``s``: 0 (free), NEG
+    (excluded) or, on a required span whose labels the edge lacks, ``backoff`` (NEG: strict)."""
     c = code[s]
     if c == -1:
-        return True
+        return 0.0
     if c == -2:
-        return not nonempty[e, kind]
+        return NEG if nonempty[e, kind] else 0.0
     if kind == 1 and not nonempty[e, 1]:
-        return False
+        return backoff
     for q in range(req_off[s], req_off[s + 1]):
         if not haslab[e, kind, req_lab[q]]:
-            return False
-    return True
+            return backoff
+    return 0.0
 
 
 @njit(cache=True, inline="always", fastmath=True)
@@ -79,7 +87,7 @@ def _split_max(XL, XR, i, k, floor, maxl, maxr):
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
             p_left, p_right, p_off, r_parent, r_logp,
-            up, uc, ulogp, nonempty, haslab):
+            up, uc, ulogp, nonempty, haslab, backoff):
     """Max-product chart over finite scores: "impossible" is :data:`NEG` (so the loops may be
     compiled with fast-math), ``lex`` must use NEG too. Returns vt, vb (float64[S, N] top/bottom
     log scores), bp_rule (int32[S, N]: best binary rule of each bottom), bp_edge (int32[S, N]:
@@ -138,9 +146,11 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
                 bv = bot[uc[e]]
                 if bv <= LOW:
                     continue
-                if not _allowed(e, kind, s, code, req_off, req_lab, nonempty, haslab):
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
+                                 backoff)
+                if pen <= LOW:
                     continue
-                sc = bv + ulogp[e]
+                sc = bv + ulogp[e] + pen
                 a = up[e]
                 if sc > top[a]:
                     top[a] = sc
@@ -153,7 +163,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
 
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
-           p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab):
+           p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab, backoff):
     """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
     IL, IR (float64[N, n + 1, n + 1]) of ``it``.
 
@@ -224,9 +234,11 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
                 bv = bot[uc[e]]
                 if bv == 0.0:
                     continue
-                if not _allowed(e, kind, s, code, req_off, req_lab, nonempty, haslab):
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
+                                 backoff)
+                if pen <= LOW:
                     continue
-                top[up[e]] += bv * uw[e]
+                top[up[e]] += bv * uw[e] * (1.0 if pen == 0.0 else np.exp(pen))
             c = 0.0
             for a in range(n_sym):
                 c = max(c, top[a])
@@ -246,10 +258,11 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
 def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, IL, IR,
             p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab,
-            lab_off, lab_ids, n_labels):
+            lab_off, lab_ids, n_labels, backoff):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
     span (for edge e and kind k, the labels of its nodes are
-    ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``).
+    ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``), and tpost: float64[n, N], the
+    posterior of each symbol as word i's preterminal.
 
     Outside scores of tops accumulate in OL[a, i, j] (span (i, j) as a left child, or the root)
     and OR[a, k, j] (span (j, k) as a right child), scaled so that outside * inside / Z of a
@@ -257,13 +270,14 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
     """
     n_span = n * (n + 1) // 2
     post = np.zeros((n_span, n_labels))
+    tpost = np.zeros((n, n_sym))
     OL = np.zeros((n + 1, n_sym, n + 1))
     OR = np.zeros((n + 1, n_sym, n + 1))
     n_edge = up.shape[0]
     n_pair = p_left.shape[0]
     full = sid[0, n]
     if it[full, start] == 0.0:
-        return post
+        return post, tpost
     OL[0, start, n] = 1.0 / it[full, start]
     for length in range(n, 0, -1):
         for i in prange(n - length + 1):
@@ -290,13 +304,18 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
                 bv = ibot[uc[e]]
                 if bv == 0.0:
                     continue
-                if not _allowed(e, kind, s, code, req_off, req_lab, nonempty, haslab):
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
+                                 backoff)
+                if pen <= LOW:
                     continue
-                obot[uc[e]] += oa * uw[e]
-                pe = oa * uw[e] * bv
+                w = uw[e] * (1.0 if pen == 0.0 else np.exp(pen))
+                obot[uc[e]] += oa * w
+                pe = oa * w * bv
                 for q in range(lab_off[2 * e + kind], lab_off[2 * e + kind + 1]):
                     post[s, lab_ids[q]] += pe
             if length == 1:
+                for b in range(n_sym):
+                    tpost[i, b] = obot[b] * ibot[b]
                 continue
             f = np.zeros(n + 1)
             maxl = np.empty(n_sym)
@@ -319,4 +338,4 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
                 for j in range(i + 1, k):
                     OL[i, b, j] += g * IR[k, c, j] * f[j]
                     OR[k, c, j] += g * IL[i, b, j] * f[j]
-    return post
+    return post, tpost

@@ -79,6 +79,7 @@ __all__ = [
     "read_trees",
     "strip_function_tags",
     "strip_label",
+    "text_lines",
     "tree_from_spans",
     "unescape_word",
     "words",
@@ -118,6 +119,21 @@ class TreeError(ParserError):
 
 # --------------------------------------------------------------------------------------------
 # reading
+
+
+def text_lines(text: str, keepends: bool = False) -> list[str]:
+    """The lines of ``text``, ended by ``\n`` (or ``\r\n``) only.
+
+    Unlike :meth:`str.splitlines`, a form feed, U+2028, U+0085 or a lone ``\r`` inside a line
+    does not end it, so line numbers agree with every editor that counts newlines (and with
+    the reader's error positions). A final newline does not start an empty last line.
+    With ``keepends`` each line keeps its ending."""
+    pieces = text.split("\n")
+    last = pieces.pop() if pieces else ""
+    out = [p + "\n" if keepends else p.removesuffix("\r") for p in pieces]
+    if last:
+        out.append(last if keepends else last.removesuffix("\r"))
+    return out
 
 
 def _line_col(text: str, offset: int, line_offset: int) -> tuple[int, int]:

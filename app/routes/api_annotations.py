@@ -32,6 +32,7 @@ from app.schemas.annotation import (
     AnnotationPublic,
     BenchErrorPublic,
     BenchPublic,
+    ChangesPublic,
     NoteUpdate,
     Pins,
     QueuePublic,
@@ -49,6 +50,7 @@ from app.schemas.annotation import (
 from app.services import annotation as svc
 from app.services import suggestions, tokens, training
 from app.services.corpora import get_corpus
+from parser.trees import write_tree
 
 log = logging.getLogger(__name__)
 
@@ -205,12 +207,26 @@ def set_note(sentence_id: int, body: NoteUpdate, login: ApiUser,
              responses=ERRORS)
 def reparse(sentence_id: int, body: ReparseRequest, login: ApiUser,
             db: SessionDep) -> ReparsePublic:
-    """The best trees that keep every pinned constituent and POS tag (nothing is saved)."""
+    """Re-parse around everything you said (pins, edited and removed brackets, corrected tags):
+    the consensus tree under those constraints first, then the k best readings; whether it is
+    plausible, and what it would change in the tree sent. Nothing is saved."""
     sentence = svc.assigned_sentence(db, login.user, sentence_id)
     corpus = _corpus(db, sentence.corpus_id)
-    out = suggestions.reparse(db, sentence, corpus, body.pins.model_dump(), k=body.k)
-    return ReparsePublic(trees=out.trees, fallback=out.fallback, seconds=out.seconds,
-                         grammar_version=out.grammar_version)
+    out = suggestions.reparse(db, sentence, corpus, body.pins.model_dump(), k=body.k,
+                              tree_text=body.tree)
+    o = out.outcome
+    proposal = write_tree(o.tree)
+    readings = [AlternativePublic(tree=write_tree(t), probability=None if p is None
+                                  else round(p, 6)) for t, p in o.readings]
+    trees = [proposal] + [r.tree for r in readings if r.tree != proposal]
+    d = out.changes
+    return ReparsePublic(
+        trees=trees, readings=readings, plausible=o.plausible, reasons=o.reasons,
+        summary=out.summary, stand_ins=o.stand_ins, fallback=o.fallback, seconds=o.seconds,
+        grammar_version=out.grammar_version,
+        changes=None if d is None else ChangesPublic(added=d.added, removed=d.removed,
+                                                     relabelled=d.relabelled,
+                                                     retagged=d.retagged, count=d.count))
 
 
 @router.post("/api/bench/{sentence_id}/tokens", response_model=TokenFixPublic,

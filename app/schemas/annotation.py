@@ -22,6 +22,17 @@ MAX_PINS = 2_000
 class Pins(RequestModel):
     spans: list[tuple[int, int, str]] = Field(default_factory=list, max_length=MAX_PINS)
     tags: list[tuple[int, str]] = Field(default_factory=list, max_length=MAX_PINS)
+    edited_spans: list[tuple[int, int, str]] = Field(
+        default_factory=list, max_length=MAX_PINS,
+        description="[start, end, label] of brackets the annotator added or relabelled: kept "
+                    "by a re-parse like pins, without being pinned")
+    edited_tags: list[tuple[int, str]] = Field(
+        default_factory=list, max_length=MAX_PINS,
+        description="[word index, tag] of tags the annotator corrected: fixed for a re-parse")
+    removed_spans: list[tuple[int, int]] = Field(
+        default_factory=list, max_length=MAX_PINS,
+        description="[start, end] of brackets the annotator removed: a re-parse never puts a "
+                    "bracket there")
 
 
 class SentencePublic(BaseModel):
@@ -162,10 +173,37 @@ class NoteUpdate(RequestModel):
 class ReparseRequest(RequestModel):
     pins: Pins = Field(default_factory=Pins)
     k: int = Field(default=1, ge=1, le=20)
+    tree: str | None = Field(default=None, max_length=200_000, description=(
+        "the tree being re-parsed (bracketed text): its brackets and tags are kept where the "
+        "grammar has no clear reason to change them, and the answer says what would change"))
+
+
+class ChangesPublic(BaseModel):
+    added: list[tuple[str, int, int]]
+    removed: list[tuple[str, int, int]]
+    relabelled: list[tuple[int, int, str, str]] = Field(
+        description="[start, end, old label, new label]")
+    retagged: list[tuple[int, str, str]] = Field(description="[word index, old tag, new tag]")
+    count: int = Field(description="edits the re-parse makes (a relabel counts once)")
 
 
 class ReparsePublic(BaseModel):
-    trees: list[str] = Field(description="best first; every one keeps every pin")
+    trees: list[str] = Field(description="the proposal first (the consensus tree under "
+                                         "everything said), then the readings; every one "
+                                         "keeps every pin and everything said")
+    readings: list[AlternativePublic] = Field(
+        default_factory=list, description="the k best readings under the constraints, with "
+                                          "P(reading | words, constraints)")
+    plausible: bool = Field(default=True, description=(
+        "false when the grammar found no tree under the constraints or its best is far less "
+        "probable than its unconstrained best: show it, do not apply it by itself"))
+    reasons: list[str] = Field(default_factory=list)
+    summary: str = ""
+    changes: ChangesPublic | None = Field(default=None, description=(
+        "what the proposal changes in the tree sent (null when none was sent)"))
+    stand_ins: list[tuple[int, int, str]] = Field(
+        default_factory=list, description="said brackets whose label the grammar never builds "
+                                          "over those words (kept as said)")
     fallback: bool = Field(description="the grammar had no parse keeping the pins; the tree "
                                        "is a well-formed stand-in that still keeps them")
     seconds: float

@@ -75,6 +75,7 @@ from parser.trees import (
     escape_word,
     is_preterminal,
     read_trees,
+    text_lines,
     write_tree,
 )
 
@@ -212,7 +213,7 @@ def read_text_items(text: str, source: str, tokenizer: str = "whitespace"
     split = _tokenizer(tokenizer)
     items: list[_Item] = []
     blank = 0
-    for number, line in enumerate(text.splitlines(), start=1):
+    for number, line in enumerate(text_lines(text), start=1):
         stripped = line.strip()
         if not stripped:
             blank += 1
@@ -239,7 +240,7 @@ def _chunks(text: str) -> list[tuple[int, str]]:
     buffer: list[str] = []
     start = 0
     balance = 0
-    for number, line in enumerate(text.splitlines(keepends=True)):
+    for number, line in enumerate(text_lines(text, keepends=True)):
         if not buffer and not line.strip():
             start = number + 1
             continue
@@ -275,7 +276,7 @@ def read_tree_items(text: str, source: str) -> tuple[list[_Item], int, set[str],
             if "still open" in err.message:
                 # The piece never balanced, so its first line opened the tree left unclosed:
                 # point there rather than at the end of the file.
-                first = chunk.splitlines()[0]
+                first = text_lines(chunk)[0]
                 raise ImportFailed(
                     "the tree that begins here is never closed: ')' is missing (the file ends "
                     "with brackets still open)", source=source, line=offset + 1,

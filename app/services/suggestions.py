@@ -9,10 +9,10 @@ re-parse around the annotator's pins.
   fills those rows for every sentence nobody has started, after a new grammar becomes active.
 * :func:`warm_up` runs when a server starts, so that the first annotator after a restart
   does not wait for the compiled chart loops or the grammar to load.
-* :func:`reparse` asks for the best tree that keeps every pinned constituent and POS tag
-  (constrained CKY), then puts the pinned labels back exactly as the annotator wrote them (the
-  grammar knows labels without function tags: a pin ``NP-SBJ`` is parsed as ``NP`` and
-  relabelled), so every pin survives to the letter.
+* :func:`reparse` re-parses around everything the annotator has said (pins, edited and
+  removed brackets, corrected tags; :mod:`parser.reparse`): the consensus tree under those
+  constraints, the k best readings, whether the result is plausible, and what it would change
+  in the annotator's tree. Every said label survives to the letter.
 
 What a Suggestion row holds (this module writes them; the JSON columns are plain lists):
 ``trees`` one-line bracketed texts, best first; ``logprobs`` log P(tree | words), i.e. the
@@ -39,7 +39,6 @@ from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any, cast
 
-from nltk import Tree
 from sqlalchemy import CursorResult, exists, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker, undefer
@@ -60,20 +59,14 @@ from app.models import (
 )
 from app.services.admission import admission
 from app.services.errors import BadInput, Conflict, NotFound
-from app.services.validation import stored_words
+from app.services.validation import stored_words, validate_tree_text
+from parser import reparse as loop
 from parser.batch import parse_many
-from parser.chart import Constraints, ParseResult, parse
+from parser.chart import ParseResult, parse
 from parser.errors import ConstraintError, GrammarError
 from parser.grammar import Grammar
-from parser.trees import (
-    constituents,
-    flat_tree,
-    pos_tags,
-    strip_label,
-    tree_from_spans,
-    words,
-    write_tree,
-)
+from parser.reparse import Changes, Outcome, Said
+from parser.trees import flat_tree, write_tree
 
 GRAMMAR_CACHE_SIZE = 3
 
@@ -404,46 +397,68 @@ def record_start(db: Session, annotation: Annotation, sentence: Sentence) -> Non
 # --------------------------------------------------------------------------- re-parse
 @dataclass
 class Reparse:
-    trees: list[str]
-    fallback: bool
-    seconds: float
+    outcome: Outcome
+    changes: Changes | None
+    summary: str
     grammar_version: int
 
 
-def _constraint_label(label: str, known: frozenset[str]) -> str | None:
-    if label in known:
-        return label
-    stripped = strip_label(label)
-    return stripped if stripped in known else None
+def said_from_pins(pins: dict[str, Any], n: int) -> Said:
+    """What the annotator has said (:class:`parser.reparse.Said`) from the Bench's pins: pins
+    and edited brackets are required, corrected tags fixed, removed brackets forbidden.
+    Raises BadInput for a span or word outside the sentence, or two tags for one word."""
+    required: dict[tuple[int, int, str], None] = {}
+    for key in ("spans", "edited_spans"):
+        for item in pins.get(key) or []:
+            s, e, label = int(item[0]), int(item[1]), str(item[2])
+            if not 0 <= s < e <= n:
+                raise BadInput(f"pinned span ({s}, {e}) lies outside the sentence's {n} words",
+                               kind="pins")
+            required[(s, e, label)] = None
+    forbidden: dict[tuple[int, int], None] = {}
+    for item in pins.get("removed_spans") or []:
+        s, e = int(item[0]), int(item[1])
+        if not 0 <= s < e <= n:
+            raise BadInput(f"removed span ({s}, {e}) lies outside the sentence's {n} words",
+                           kind="pins")
+        forbidden[(s, e)] = None
+    tags: dict[int, str] = {}
+    for key in ("tags", "edited_tags"):
+        for item in pins.get(key) or []:
+            i, tag = int(item[0]), str(item[1])
+            if not 0 <= i < n:
+                raise BadInput(f"pinned tag at word {i + 1} lies outside the sentence's {n} "
+                               "words", kind="pins")
+            if tags.get(i, tag) != tag:
+                raise BadInput(f"word {i + 1} is said to be both {tags[i]} and {tag}",
+                               kind="pins")
+            tags[i] = tag
+    return Said(required=tuple(required), forbidden=tuple(forbidden),
+                tags=tuple(sorted(tags.items())))
 
 
-def _graft_pins(tree: Tree, spans: list[tuple[int, int, str]],
-                tags: dict[int, str]) -> Tree:
-    """``tree`` with every pinned (start, end, label) present exactly and pinned tags set.
-
-    A pinned label the grammar knew only without its function tag replaces the node of that
-    span with the same stripped label; a pin the grammar could not label at all is added over
-    its span (constrained parsing guarantees nothing crosses it)."""
-    items = constituents(tree)
-    word_list = words(tree)
-    tag_list = pos_tags(tree)
-    for i, tag in tags.items():
-        tag_list[i] = tag
-    for s, e, label in spans:
-        if (label, s, e) in items:
-            continue
-        same = [j for j, (lab, a, b) in enumerate(items) if (a, b) == (s, e)
-                and strip_label(lab) == strip_label(label) and (lab, a, b) not in
-                [(pl, ps, pe) for ps, pe, pl in spans]]
-        if same:
-            items[same[0]] = (label, s, e)
-            continue
-        first = next((j for j, (_, a, b) in enumerate(items) if (a, b) == (s, e)), None)
-        if first is None or first == 0:
-            items.append((label, s, e))
-        else:
-            items.insert(first, (label, s, e))
-    return tree_from_spans(word_list, tag_list, items, root=None)
+def _summary(version: int, said: Said, outcome: Outcome, diff: Changes | None) -> str:
+    parts = []
+    for count, one in ((len(said.required), "bracket"), (len(said.forbidden), "removed bracket"),
+                       (len(said.tags), "tag")):
+        if count:
+            parts.append(f"{count} {one}{'' if count == 1 else 's'}")
+    around = (" around " + ", ".join(parts) + " you set") if parts else ""
+    head = f"Re-parsed with grammar version {version}{around}"
+    if diff is None:
+        return head + "."
+    if diff.count == 0:
+        return head + ": nothing would change."
+    bits = []
+    plain_added = len(diff.added) - len(diff.relabelled)
+    plain_removed = len(diff.removed) - len(diff.relabelled)
+    for count, one in ((plain_added, "bracket added"), (plain_removed, "bracket removed"),
+                       (len(diff.relabelled), "relabelled"), (len(diff.retagged), "tag changed")):
+        if count:
+            word = one if count == 1 else one.replace("bracket ", "brackets ").replace(
+                "tag ", "tags ")
+            bits.append(f"{count} {word}")
+    return head + ": " + ", ".join(bits) + "."
 
 
 def too_long(word_list: list[str]) -> bool:
@@ -453,8 +468,10 @@ def too_long(word_list: list[str]) -> bool:
 
 
 def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any],
-            k: int = 1) -> Reparse:
-    """The best ``k`` trees keeping every pin (see the module docstring)."""
+            k: int = 1, tree_text: str | None = None) -> Reparse:
+    """Re-parse around everything said in ``pins`` (:func:`parser.reparse.reparse`), favouring
+    the tree sent (``tree_text``, checked against the sentence's words) and saying what the
+    proposal would change in it."""
     version = active_version(db, corpus)
     if version is None:
         raise Conflict("this corpus has no active grammar yet; re-parse needs one",
@@ -465,37 +482,19 @@ def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any
         raise Conflict(f"this sentence has {n} words, more than the {admission().max_words} "
                        "the parser takes on request; split it first", kind="too_long")
     grammar = grammar_for(db, version.id)
-    spans: list[tuple[int, int, str]] = []
-    for item in pins.get("spans") or []:
-        s, e, label = int(item[0]), int(item[1]), str(item[2])
-        if not 0 <= s < e <= n:
-            raise BadInput(f"pinned span ({s}, {e}) lies outside the sentence's {n} words",
-                           kind="pins")
-        spans.append((s, e, label))
-    tags: dict[int, str] = {}
-    for item in pins.get("tags") or []:
-        i, tag = int(item[0]), str(item[1])
-        if not 0 <= i < n:
-            raise BadInput(f"pinned tag at word {i + 1} lies outside the sentence's {n} "
-                           "words", kind="pins")
-        tags[i] = tag
-    labels = frozenset(grammar.labels)
-    tagset = frozenset(grammar.tags)
-    constraints = Constraints(
-        required=[(s, e, _constraint_label(lab, labels)) for s, e, lab in spans],
-        tags=[_constraint_label(tags[i], tagset) if i in tags else None for i in range(n)]
-        if tags else [])
-    key = ("reparse", str(db.get_bind().engine.url), version.id, tuple(word_list), k,
-           tuple(spans), tuple(sorted(tags.items())))
+    said = said_from_pins(pins, n)
+    previous = None
+    if tree_text is not None:
+        # labels outside the corpus's sets are the save's business, not the re-parse's
+        previous = validate_tree_text(sentence, tree_text, corpus, confirm_labels=True)
+    key = ("reparse", str(db.get_bind().engine.url), version.id, tuple(word_list), k, said,
+           None if previous is None else write_tree(previous))
     try:
-        result = admission().run(
-            key, lambda: parse(grammar, word_list, k=k, constraints=constraints))
+        outcome = admission().run(
+            key, lambda: loop.reparse(grammar, word_list, said, previous, k=k))
     except ConstraintError as exc:
-        raise BadInput(f"the pins contradict each other: {exc}", kind="pins") from exc
-    out: list[str] = []
-    for t in result.trees:
-        text = write_tree(_graft_pins(t, spans, tags))
-        if text not in out:
-            out.append(text)
-    return Reparse(trees=out, fallback=bool(result.fallback), seconds=float(result.seconds),
+        raise BadInput(f"what you said contradicts itself: {exc}", kind="pins") from exc
+    diff = loop.changes(previous, outcome.tree) if previous is not None else None
+    return Reparse(outcome=outcome, changes=diff,
+                   summary=_summary(version.number, said, outcome, diff),
                    grammar_version=version.number)

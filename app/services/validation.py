@@ -107,7 +107,11 @@ def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
 
 def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
     """Check that every pinned span is a constituent of ``tree`` with that label and every pinned
-    tag is the tree's tag at that word; return the pins in canonical (sorted) form."""
+    tag is the tree's tag at that word; return the pins in canonical (sorted) form.
+
+    The annotator's other statements (``edited_spans``, ``edited_tags``, ``removed_spans``: see
+    :class:`app.schemas.annotation.Pins`) are kept only where the tree still agrees with them
+    (an edited bracket later removed is no longer said), and only when there are any."""
     spans_in = pins.get("spans") or []
     tags_in = pins.get("tags") or []
     have = {(s, e, lab) for lab, s, e in constituents(tree)}
@@ -127,7 +131,20 @@ def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
         tags_out.append([i, tag])
     spans_out.sort(key=lambda x: (x[0], -x[1], x[2]))
     tags_out.sort()
-    return {"spans": _unique(spans_out), "tags": _unique(tags_out)}
+    out: dict[str, Any] = {"spans": _unique(spans_out), "tags": _unique(tags_out)}
+    bracketed = {(s, e) for s, e, _ in have}
+    edited_items = [(int(a), int(b), str(c)) for a, b, c in pins.get("edited_spans") or []]
+    edited = [list(x) for x in sorted((x for x in edited_items if x in have),
+                                      key=lambda x: (x[0], -x[1], x[2]))]
+    retagged = sorted([int(i), str(t)] for i, t in pins.get("edited_tags") or []
+                      if 0 <= int(i) < len(tags) and tags[int(i)] == str(t))
+    removed = sorted([int(a), int(b)] for a, b in pins.get("removed_spans") or []
+                     if (int(a), int(b)) not in bracketed)
+    for key, items in (("edited_spans", edited), ("edited_tags", retagged),
+                       ("removed_spans", removed)):
+        if items:
+            out[key] = _unique(items)
+    return out
 
 
 def _unique(items: list[list[Any]]) -> list[list[Any]]:

@@ -58,7 +58,8 @@ def test_annotation_saves_append_revisions_and_reload_returns_newest(db, people,
     assert db.get(Sentence, s.id).state == "in_progress"
     back = me.client.get(f"/api/bench/{s.id}").json()
     assert back["tree"] == second and back["source"] == "edit"
-    assert back["pins"] == {"spans": [[1, 4, "NP"]], "tags": [[0, "VB"]]}
+    assert back["pins"] == {"spans": [[1, 4, "NP"]], "tags": [[0, "VB"]], "edited_spans": [],
+                            "edited_tags": [], "removed_spans": []}
     assert back["annotation"]["head"] == 2 and back["start_note"] is None
 
 

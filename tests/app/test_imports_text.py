@@ -78,3 +78,18 @@ def test_imports_text_byte_order_mark_is_dropped(db) -> None:
     import_bytes(db, "\ufeffHello there .\n".encode(), source="bom.txt", corpus_name="B")
     (row,) = _sentences(db, "B")
     assert row.tokens[0] == "Hello"
+
+
+def test_imports_text_lines_end_at_newlines_only(db) -> None:
+    # Common practice, no source: a form feed or U+2028 inside a line does not split it (one
+    # sentence per newline-ended line); a CRLF ending is a line end.
+    data = ("The ferry left at dawn .\r\nTwo crates\x0cstayed .\nThe ramp\u2028was wet .\n"
+            ).encode("utf-8")
+    result = import_bytes(db, data, source="lines.txt", corpus_name="Line ends")
+    assert result.imported == 3 and result.blank_lines == 0
+    rows = _sentences(db, "Line ends")
+    assert [r.tokens for r in rows] == [
+        ["The", "ferry", "left", "at", "dawn", "."],
+        ["Two", "crates", "stayed", "."],
+        ["The", "ramp", "was", "wet", "."],
+    ]

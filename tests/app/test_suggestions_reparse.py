@@ -64,13 +64,22 @@ def test_suggestions_reparse_keeps_every_pin_on_50_gum_sentences(gum_bench, rng)
     assert pinned_spans >= 50
 
 
-def test_suggestions_reparse_without_pins_is_the_best_suggestion(gum_bench) -> None:
+def test_suggestions_reparse_without_pins_is_the_start_suggestion(gum_bench) -> None:
     me, pairs = gum_bench
     sentence = pairs[0][0]
     bench = me.client.get(f"/api/bench/{sentence.id}").json()
     resp = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
-                          json={"pins": {"spans": [], "tags": []}})
-    assert resp.json()["trees"][0] == bench["suggestion"]["alternatives"][0]["tree"]
+                          json={"pins": {"spans": [], "tags": []}, "k": 3})
+    body = resp.json()
+    # the proposal is the consensus tree, the readings the k best
+    assert body["trees"][0] == bench["suggestion"]["consensus"] == bench["tree"]
+    assert [r["tree"] for r in body["readings"]] == [
+        a["tree"] for a in bench["suggestion"]["alternatives"][:3]]
+    assert body["plausible"] is True and body["reasons"] == []
+    # sent with the tree it would re-parse, it says nothing would change
+    again = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                           json={"pins": {}, "tree": bench["tree"]}).json()
+    assert again["changes"]["count"] == 0 and "nothing would change" in again["summary"]
 
 
 def test_suggestions_reparse_refuses_crossing_or_outside_pins(gum_bench) -> None:
@@ -107,3 +116,33 @@ def test_suggestions_reparse_keeps_a_label_the_grammar_never_saw(gum_bench) -> N
     tree = read_tree(resp.json()["trees"][0])
     assert ("NP-ODDITY", 1, 3) in constituents(tree)
     assert pos_tags(tree)[0] == "NN-ODD"
+
+
+def test_suggestions_reparse_uses_everything_said_not_only_pins(gum_bench) -> None:
+    me, pairs = gum_bench
+    sentence = next(s for s, g in pairs if len(s.tokens) >= 10)
+    bench = me.client.get(f"/api/bench/{sentence.id}").json()
+    start = read_tree(bench["tree"])
+    brackets = [(lab, s, e) for lab, s, e in constituents(start)[1:] if e - s > 1]
+    removed = brackets[-1]
+    relabelled = next(b for b in brackets if b[1:] != removed[1:])
+    tags = pos_tags(start)
+    new_tag = "NN" if tags[0] != "NN" else "JJ"
+    pins = {"edited_spans": [[relabelled[1], relabelled[2], "FRAG"]],
+            "edited_tags": [[0, new_tag]],
+            "removed_spans": [[removed[1], removed[2]]]}
+    body = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                          json={"pins": pins, "k": 3, "tree": bench["tree"]}).json()
+    for text in body["trees"]:
+        tree = read_tree(text)
+        spans = set(constituents(tree))
+        assert ("FRAG", relabelled[1], relabelled[2]) in spans
+        assert not any((s, e) == removed[1:] for _, s, e in spans)
+        assert pos_tags(tree)[0] == new_tag
+    assert body["changes"]["count"] >= 2  # at least the relabel and the retag
+    assert body["summary"].startswith("Re-parsed with grammar version 1 around 1 bracket, "
+                                      "1 removed bracket, 1 tag you set:")
+    # a word said to carry two tags is refused, naming the word
+    bad = me.client.post(f"/api/bench/{sentence.id}/reparse", headers=me.headers(),
+                         json={"pins": {"tags": [[0, "NN"]], "edited_tags": [[0, "VB"]]}})
+    assert bad.status_code == 422 and "word 1" in bad.json()["detail"]

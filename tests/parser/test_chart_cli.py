@@ -140,3 +140,30 @@ def test_cli_train_refuses_a_bad_weight(tmp_path: Path) -> None:
                                                 "--reference", str(src), "--weight", "lots"])
     assert result.exit_code != 0
     assert "weighting part 'lots'" in result.output
+
+
+def test_cli_parse_lines_end_at_newlines_only(tmp_path: Path) -> None:
+    # Common practice, no source: a form feed, U+2028 or U+0085 inside a line is not a line
+    # break for a line-per-sentence file (POSIX text files end lines with newline only).
+    out = _train(tmp_path)
+    rows = ["the cat barked .", "it saw\x0cthe park .", "the dog\u2028barked .",
+            "a cat\x85ran .", "the dog ran ."]
+    text = "\n".join(rows) + "\r\n" + "the cat saw the dog .\n"
+    result = CliRunner().invoke(parse_command, ["--grammar", str(out)], input=text)
+    assert result.exit_code == 0, result.output
+    lines = result.output.split("\n")[:-1]
+    assert len(lines) == 6  # 6 lines in, 6 out
+    assert read_tree(lines[1]).leaves() == ["it", "saw", "the", "park", "."]
+    assert read_tree(lines[5]).leaves() == "the cat saw the dog .".split()
+
+
+def test_cli_parse_tagged_unknown_tag_is_an_error_naming_line_and_token(tmp_path: Path) -> None:
+    out = _train(tmp_path)
+    text = "the/DT cat/NN barked/VBD ./.\nit/PRP ran/VBZZ ./.\n"
+    result = CliRunner().invoke(parse_command, ["--grammar", str(out), "--tagged"], input=text)
+    assert result.exit_code != 0
+    assert "line 2, token 2 'ran/VBZZ'" in result.output
+    assert "no POS tag 'VBZZ'" in result.output
+    good = CliRunner().invoke(parse_command, ["--grammar", str(out), "--tagged"],
+                              input="the/DT cat/NN barked/VBD ./.\n")
+    assert good.exit_code == 0 and read_tree(good.output).pos()[1] == ("cat", "NN")
