@@ -106,6 +106,7 @@ async function start() {
   // the suggestion is on screen: let a benchmark or test know when
   performance.mark("bench-drawn");
   if (data.suggestion && !data.suggestion.complete) completeSuggestion();
+  else if (data.suggestion) root.dataset.doubts = "1";
 }
 
 function takePosteriors(sugg) {
