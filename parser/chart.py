@@ -358,7 +358,7 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
             prob.n, g.n_symbols, prob.sid, prob.dead, prob.code, prob.req_off, prob.req_lab,
             np.maximum(prob.lex * b, kernels.NEG), live, tab.pair_left, tab.pair_right,
             tab.pair_off, tab.lo_parent, tab.lo_w ** b, tab.up, tab.uc, tab.uw ** b,
-            tab.nonempty, tab.haslab)
+            tab.nonempty, tab.haslab, prob.backoff)
         return float(np.log(it[chart.full, g.start]) + sigma[chart.full])
 
     expected_logp = (log_z(1.0 + step) - log_z(1.0 - step)) / (2.0 * step)
