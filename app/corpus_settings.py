@@ -92,8 +92,9 @@ class CorpusSettings(BaseModel):
     queue_order: QueueOrder = Field(
         QueueOrder.DOCUMENT,
         description="'document': sentences in document order; 'informative': the sentences "
-                    "the active grammar is least sure of first (both annotators of a "
-                    "sentence get it at the same place).")
+                    "the active grammar is least sure of first, ranked each time a grammar "
+                    "version becomes active (both annotators of a sentence get it at the same "
+                    "place).")
     visible_to_everyone: bool = Field(
         False, description="Every account may read this corpus: its sentences, who is assigned "
                            "to them and its agreement log. Otherwise only its members: the "
