@@ -16,7 +16,7 @@ from sqlalchemy.orm import Session
 from starlette.datastructures import FormData
 
 from app.api_errors import AUTH_DEPENDENCY_MARK
-from app.models import ROLE_ADJUDICATOR, ROLE_ADMIN, ROLES, Corpus, Sentence, User, UserSession
+from app.models import ROLE_ADJUDICATOR, ROLE_ADMIN, ROLES, Corpus, User, UserSession
 from app.security import CSRF_FIELD, CSRF_HEADER, SESSION_COOKIE, csrf_ok, find_session
 from app.settings import Settings
 
@@ -137,15 +137,6 @@ def corpus_or_404(db: Session, corpus_id: int) -> Corpus:
     if corpus is None:
         raise HTTPException(status_code=404, detail=f"no corpus with id {corpus_id}")
     return corpus
-
-
-def sentence_or_404(db: Session, sentence_id: int, corpus_id: int | None = None) -> Sentence:
-    """A sentence by id; 404 when absent or when it belongs to another corpus than given."""
-    sentence = db.get(Sentence, sentence_id)
-    if sentence is None or (corpus_id is not None and sentence.corpus_id != corpus_id):
-        where = f" in corpus {corpus_id}" if corpus_id is not None else ""
-        raise HTTPException(status_code=404, detail=f"no sentence with id {sentence_id}{where}")
-    return sentence
 
 
 def get_corpus(corpus_id: int, db: SessionDep) -> Corpus:

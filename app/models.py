@@ -182,9 +182,6 @@ class Corpus(Base):
         """The corpus's settings, typed and with defaults (app.corpus_settings)."""
         return read_settings(self.settings)
 
-    def setting(self, key: str) -> Any:
-        """One setting by name (prefer ``options.<name>``, which is typed)."""
-        return getattr(self.options, key)
 
 
 class Document(Base):

@@ -466,11 +466,6 @@ def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
         next_cursor=sentence_cursor(rows[-1][0]) if rows and has_next else None)
 
 
-def settings_defaults() -> dict[str, Any]:
-    values = CorpusSettings.model_validate({}).model_dump(mode="json")
-    return {key: values[key] for key in EDITABLE}
-
-
 def find_corpus(db: Session, corpus_id: int, *, fresh: bool = False) -> Corpus | None:
     """The corpus with this id, or None; ``fresh`` re-reads a row this session holds."""
     return db.get(Corpus, corpus_id, populate_existing=fresh)

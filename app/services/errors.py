@@ -30,7 +30,3 @@ class Conflict(ServiceError):
     """A stale or racing write; ``extra`` carries what the client needs (the current head)."""
 
     status_code = 409
-
-
-class TooLarge(ServiceError):
-    status_code = 413

@@ -6,7 +6,6 @@ What it does
     * :func:`make_gold`: store a tree as the sentence's gold and mark the sentence gold; any
       gold it still has is retired first, so at most one gold row per sentence is current.
       The row keeps the annotators' notes for the adjudicator as they were at that moment.
-    * :func:`active_gold`: the sentence's current gold row.
     * :func:`reopen`: retire the current gold (``retired_at``/``retired_by_id``, never deleted)
       and send the sentence back to review.
     * :func:`gold_added`: what follows new gold, called once by each workflow that made some
@@ -52,13 +51,6 @@ def current_revision(db: Session, annotation: Annotation | None) -> Revision | N
         return None
     return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
                                             Revision.number == annotation.head))
-
-
-def active_gold(db: Session, sentence_id: int) -> Gold | None:
-    """The sentence's current gold tree (newest unretired row), or None."""
-    return db.scalar(select(Gold).where(Gold.sentence_id == sentence_id,
-                                        Gold.retired_at.is_(None))
-                     .order_by(Gold.created_at.desc(), Gold.id.desc()).limit(1))
 
 
 def _retire(db: Session, sentence_id: int, by_id: int | None) -> list[int]:

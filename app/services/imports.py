@@ -595,11 +595,3 @@ def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> N
         return
     for sentence in ready:
         agreement.on_submitted(db, sentence)
-
-
-def count_rows(db: Session) -> dict[str, int]:
-    """Row counts of the tables an import writes (for checks that nothing was stored)."""
-    out = {}
-    for model in (Corpus, Document, Sentence, Gold, Annotation, Revision, Assignment):
-        out[model.__tablename__] = db.scalar(select(func.count()).select_from(model)) or 0
-    return out

@@ -10,8 +10,8 @@ from sqlalchemy import func, select
 
 from app.cli import main
 from app.models import Assignment, Sentence, User
-from app.services.imports import count_rows
 from tests.app.conftest import sqlite_only
+from tests.app.row_counts import count_rows
 
 TREES = "".join(f"(ROOT (S (NP-SBJ-1 (NNP Boat{i})) (VP (VBD sank)) (. .)))\n"
                 for i in range(10))

@@ -13,11 +13,12 @@ import pytest
 from sqlalchemy import select
 
 from app.models import GV_READY, Corpus, Gold, Sentence
-from app.services.imports import count_rows, import_bytes
+from app.services.imports import import_bytes
 from app.services.training import run_training
 from parser.trees import MAX_DEPTH
 from tests.app.bench_helpers import assign, make_corpus
 from tests.app.review_helpers import import_demo_gold, submit_tree
+from tests.app.row_counts import count_rows
 
 DEPTHS = [1_000, 10_000]
 WORDS = ["ahoy"]

@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlalchemy import select
 
 from app.models import Corpus
-from app.services.imports import count_rows
+from tests.app.row_counts import count_rows
 
 TREES = "".join(f"(ROOT (S (NP-SBJ (NNP Buoy{i})) (VP (VBD bobbed)) (. .)))\n"
                 for i in range(10))

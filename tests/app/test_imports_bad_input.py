@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 
 from app.services.errors import BadInput, NotFound
-from app.services.imports import MAX_TOKENS, ImportFailed, count_rows, import_bytes
+from app.services.imports import MAX_TOKENS, ImportFailed, import_bytes
+from tests.app.row_counts import count_rows
 
 GOOD_TREE = "(ROOT (S (NP-SBJ (DT The) (NN ferry) (CD {n})) (VP (VBD docked)) (. .)))"
 

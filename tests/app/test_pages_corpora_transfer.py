@@ -8,7 +8,7 @@ import zipfile
 from sqlalchemy import select
 
 from app.models import Corpus
-from app.services.imports import count_rows
+from tests.app.row_counts import count_rows
 
 TREES = "".join(f"(ROOT (S (NP-SBJ (NNP Boat{i})) (VP (VBD sank)) (. .)))\n" for i in range(20))
 

@@ -116,14 +116,14 @@ def test_pages_corpora_settings_saved_and_checked(login, db) -> None:
                              follow_redirects=False).status_code == 303
     db.expire_all()
     corpus = db.get(Corpus, cid)
-    assert corpus.setting("annotators_per_sentence") == 3
-    assert corpus.setting("auto_gold_when_identical") is False  # unchecked box
-    assert corpus.setting("unknown_label_policy") == "refuse"
+    assert corpus.options.annotators_per_sentence == 3
+    assert corpus.options.auto_gold_when_identical is False  # unchecked box
+    assert corpus.options.unknown_label_policy == "refuse"
     bad = admin.client.post(f"/corpora/{cid}/settings",
                             data={**form, "annotators_per_sentence": "0"})
     assert bad.status_code == 422 and "outside" in bad.text
     db.expire_all()
-    assert db.get(Corpus, cid).setting("annotators_per_sentence") == 3
+    assert db.get(Corpus, cid).options.annotators_per_sentence == 3
 
 
 def test_pages_corpora_remove_needs_typed_name(login, db) -> None:
