@@ -5,7 +5,7 @@ from __future__ import annotations
 import random
 import sqlite3
 
-from sqlalchemy import func, select
+from sqlalchemy import create_engine, func, select, text
 from sqlalchemy.orm import Session
 
 from app.models import Corpus, Document, Sentence
@@ -54,3 +54,30 @@ def import_state(db: Session, corpus_name: str, expected: int) -> str:
                            .order_by(Sentence.position)).all()
     assert list(positions) == list(range(expected)), "sentence positions have gaps"
     return "whole"
+
+
+def write_in_progress(settings: Settings) -> bool:
+    """Whether another connection holds an open write transaction on the database right now:
+    on SQLite, ``BEGIN IMMEDIATE`` without waiting fails exactly then; on PostgreSQL, another
+    backend of this database has a transaction id (it has written)."""
+    if settings.is_sqlite:
+        conn = sqlite3.connect(database_path(settings), timeout=0, isolation_level=None)
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+            conn.execute("ROLLBACK")
+            return False
+        except sqlite3.OperationalError as exc:
+            if "locked" in str(exc) or "busy" in str(exc):
+                return True
+            raise
+        finally:
+            conn.close()
+    engine = create_engine(settings.resolved_database_url)
+    try:
+        with engine.connect() as conn:
+            writers = conn.execute(text(
+                "SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() "
+                "AND backend_xid IS NOT NULL AND pid <> pg_backend_pid()")).scalar()
+        return bool(writers)
+    finally:
+        engine.dispose()

@@ -13,7 +13,7 @@ import time
 import pytest
 
 from tests.app.conftest import PASSWORD
-from tests.app.crash_helpers import sentence_file
+from tests.app.crash_helpers import sentence_file, write_in_progress
 from tests.app.live_server import Client, LiveServer
 
 SENTENCES = 5_000
@@ -37,7 +37,10 @@ def test_concurrency_import_leaves_the_server_answering(settings, app, people, r
 
         worker = threading.Thread(target=upload)
         worker.start()
-        time.sleep(0.3)  # the upload is on its way; the server is reading or storing it
+        deadline = time.monotonic() + 120
+        while not write_in_progress(settings) and "import" not in done:  # storing has begun
+            assert time.monotonic() < deadline, "the import never started storing"
+            time.sleep(0.005)
         answered = 0
         while "import" not in done and answered < 50:
             assert other.http.get("/api/queue").status_code == 200

@@ -24,7 +24,8 @@ from tests.app.live_server import Client, LiveServer, add_annotators, marked_tre
 
 USERS = 5
 MAX_SAVES = 400  # per client; the kill normally stops them long before
-BURST_SECONDS = 2.0
+#: The kill comes once every client has this many acknowledged saves (a condition, not a time).
+ACKED_BEFORE_KILL = 3
 TEXTS = ["The relief skipper logged the tide at six .", "Rain delayed the cargo ramp repairs ."]
 
 
@@ -72,7 +73,11 @@ def test_crash_saves_acknowledged_survive_kill(settings, db, people, tmp_path) -
                    for i, st in enumerate(streams)]
         for t in threads:
             t.start()
-        time.sleep(BURST_SECONDS)
+        deadline = time.monotonic() + 45
+        while not all(len(st.acked) >= ACKED_BEFORE_KILL for st in streams):
+            assert time.monotonic() < deadline, "the clients' saves did not get going"
+            assert all(t.is_alive() for t in threads), [st.other for st in streams]
+            time.sleep(0.01)
         server.kill()
         for t in threads:
             t.join(timeout=60)
