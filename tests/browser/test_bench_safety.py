@@ -223,6 +223,9 @@ def test_bench_hold_back_and_note(browser_page, live_server) -> None:
     page.fill("#note-text", "'bilge pump' is one word in this log")
     page.select_option("#hold-reason", "tokenization wrong")
     page.click("#hold-go")
+    # the Bench offers to fix the tokens instead; holding back stays possible
+    page.wait_for_selector("#confirm:not([hidden])")
+    page.click("#confirm-no")
     page.wait_for_function("() => document.querySelector('#hold-state').textContent"
                            ".includes('tokenization wrong')")
     with live_server.sessionmaker() as db:

@@ -122,6 +122,15 @@ def test_bench_fix_tokens_by_keyboard_and_mouse(browser, browser_page, live_serv
         assert (first.tree, first.token_version) == (TREE, 1)  # kept as made
     other.close()
 
+    # holding back for wrong tokens offers the fixer instead
+    page.select_option("#hold-reason", "tokenization wrong")
+    page.click("#hold-go")
+    page.wait_for_selector("#confirm:not([hidden])")
+    page.click("#confirm-yes")
+    page.wait_for_selector("#tokens:not([hidden])")
+    page.keyboard.press("Escape")
+    page.wait_for_selector("#tokens", state="hidden")
+
     # the way in from elsewhere opens the fixer at the first word
     page.goto(f"{live_server.base_url}/bench/{sid}?tokens")
     _ready(page)

@@ -235,6 +235,13 @@ export const cmd = {
   hold: guard(async () => {
     const reason = $("hold-reason").value;
     if (!reason) { say("Choose a reason to hold the sentence back.", "warn"); return; }
+    // wrong tokens can be fixed right here: offer that first
+    if (reason === "tokenization wrong" && await confirmBox("The tokens can be fixed here: " +
+        "split, join or respell a word (t), and your tree is carried over. Fix them now " +
+        "instead of holding the sentence back?", "Fix the tokens", "Hold back anyway")) {
+      openTokens();
+      return;
+    }
     const r = await api("PATCH", `/api/bench/${sentenceId}/note`,
       {flag: reason, comment: $("note-text").value});
     if (r.status === 200) { S.data.annotation = r.body; say(`Held back: ${reason}.`); }
