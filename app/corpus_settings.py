@@ -99,6 +99,10 @@ class CorpusSettings(BaseModel):
         False, description="Every account may read this corpus: its sentences, who is assigned "
                            "to them and its agreement log. Otherwise only its members: the "
                            "annotators assigned in it, adjudicators and admins.")
+    keep_grammars: int = Field(
+        5, ge=0, le=10_000,
+        description="Saved grammars kept besides the active one (the newest); older versions "
+                    "keep their record and scores but not the grammar itself (0: keep all).")
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import.")

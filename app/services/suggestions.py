@@ -39,7 +39,7 @@ from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any, cast
 
-from sqlalchemy import CursorResult, exists, select, update
+from sqlalchemy import CursorResult, delete, exists, select, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker, undefer
 
@@ -285,6 +285,34 @@ def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersi
         db.commit()
         done += len(part)
     return done
+
+
+def prune(db: Session, corpus: Corpus, keep_grammars: int) -> tuple[int, int]:
+    """After a new grammar becomes active: delete the suggestions of other versions for
+    sentences nobody has started (a started sentence keeps what it was started from), and
+    drop the saved grammar of versions older than the ``keep_grammars`` newest ones besides
+    the active one (0: keep all); their records and scores stay. Does not commit. Returns
+    (suggestions deleted, grammars dropped)."""
+    active = corpus.active_grammar_id
+    if active is None:
+        return 0, 0
+    others = select(GrammarVersion.id).where(GrammarVersion.corpus_id == corpus.id,
+                                             GrammarVersion.id != active)
+    started = exists().where(Annotation.sentence_id == Suggestion.sentence_id,
+                             Annotation.head > 0)
+    deleted = db.execute(delete(Suggestion).where(Suggestion.grammar_version_id.in_(others),
+                                                  ~started)
+                         .execution_options(synchronize_session=False))
+    dropped = 0
+    if keep_grammars > 0:
+        saved = db.scalars(others.where(GrammarVersion.data.is_not(None))
+                           .order_by(GrammarVersion.number.desc())).all()
+        old = list(saved[keep_grammars:])
+        if old:
+            dropped = cast(CursorResult[Any], db.execute(
+                update(GrammarVersion).where(GrammarVersion.id.in_(old)).values(data=None)
+                .execution_options(synchronize_session=False))).rowcount
+    return cast(CursorResult[Any], deleted).rowcount, dropped
 
 
 # --------------------------------------------------------------------------- start tree

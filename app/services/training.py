@@ -105,7 +105,7 @@ from app.services.findings import claim_run as claim_findings
 from app.services.findings import fail_interrupted_runs, run_finder
 from app.services.findings import queue_run as queue_findings
 from app.services.queue_order import apply_order
-from app.services.suggestions import refresh_unstarted
+from app.services.suggestions import prune, refresh_unstarted
 from app.settings import Settings
 from parser.adapt import choose_weighting, describe, parse_weighting
 from parser.errors import ParserError
@@ -522,11 +522,15 @@ def _score_heldout(grammar: Grammar, held: list[GoldTree],
 
 
 def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
-    """Re-suggest the sentences nobody has started; a short summary for the row's message."""
+    """Re-suggest the sentences nobody has started, then let go of what the older versions
+    left (:func:`app.services.suggestions.prune`); a short summary for the row's message."""
     # one process: the web service keeps the other core
     done = refresh_unstarted(db, corpus, version, processes=1)
     db.commit()
-    return f"new suggestions for {done} unstarted sentences"
+    deleted, dropped = prune(db, corpus, corpus.options.keep_grammars)
+    db.commit()
+    return (f"new suggestions for {done} unstarted sentences; {deleted} older suggestions "
+            f"and {dropped} older saved grammars let go")
 
 
 def load_reference(db: Session, corpus_id: int) -> list[tuple[int, list[Tree]]]:
