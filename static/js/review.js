@@ -1,5 +1,6 @@
-// The Review page: draw the submitted trees, build the result (take a tree, edit its
-// bracketed text with live validation), settle it as gold or reopen a settled sentence,
+// The Review page: draw the submitted trees (one zoom for all, one scroll box), build the
+// result (take a tree, edit it as a tree with the Bench's tree model and drawing, or as
+// bracketed text, with live validation), settle it as gold or reopen a settled sentence,
 // through the JSON API in app/routes/api_review.py. Keyboard shortcuts are listed in the
 // page's help dialog (#rv-help).
 
@@ -31,14 +32,20 @@ let busy = false;
 // (rv-m-split), only some annotators (rv-m-some); in the preview, a bracket no annotator
 // drew is rv-m-new.
 let drawTree = null;
-let readTree = null;
-let spansOf = null;
+let T = null; // the Bench's tree model (static/js/treemodel.js): reading, writing, edits
 try {
   ({ drawTree } = await import("./treeview.js"));
-  ({ readTree, spansOf } = await import("./treemodel.js"));
+  T = await import("./treemodel.js");
 } catch (err) {
   drawTree = null; // the bracketed text below each tree stays visible
 }
+const readTree = (text) => T.readTree(text);
+const spansOf = (tree) => T.spansOf(tree);
+
+// The submitted trees are drawn at one zoom, the largest at which the widest fits the page,
+// but never below MIN_ZOOM (labels 13 px at zoom 1 stay at least 11 px); wider than that, the
+// one scroll box around all of them scrolls them together.
+const MIN_ZOOM = 11 / 13;
 
 // "start:end" -> {kind, labels: {label: [letters]}}
 const combined = new Map();
@@ -70,28 +77,39 @@ function markFor(spans, index, preview) {
   };
 }
 
-function draw(container, treeText, preview = false) {
-  if (!drawTree || !container) return false;
+function draw(container, treeText, preview = false, extra = {}) {
+  if (!drawTree || !container) return null;
   container.replaceChildren();
   try {
-    const tree = readTree(treeText);
+    const tree = typeof treeText === "string" ? readTree(treeText) : treeText;
     const spans = spansOf(tree);
-    drawTree(container, tree, {
+    return drawTree(container, tree, {
       marks: (ref) => (ref.kind === "phrase" ? markFor(spans, ref.index, preview) : null),
+      ...extra,
     });
-    return true;
   } catch (err) {
     container.replaceChildren();
-    return false;
+    return null;
   }
 }
 
-for (const panel of document.querySelectorAll(".rv-tree")) {
-  if (draw(panel.querySelector(".rv-drawing"), panel.dataset.tree)) {
+function drawSubmitted() {
+  const panels = [...document.querySelectorAll(".rv-tree")];
+  const box = document.querySelector(".rv-trees");
+  if (!panels.length || !box) return;
+  // natural widths first, then one zoom for all
+  const widths = panels.map((p) => draw(p.querySelector(".rv-drawing"), p.dataset.tree)?.width);
+  if (widths.some((w) => !w)) return;
+  const room = box.clientWidth - 48; // the card's padding
+  const zoom = Math.min(1, Math.max(MIN_ZOOM, room / Math.max(...widths)));
+  root.dataset.zoom = zoom.toFixed(3);
+  for (const panel of panels) {
+    draw(panel.querySelector(".rv-drawing"), panel.dataset.tree, false, { zoom });
     panel.classList.add("rv-drawn");
     panel.querySelector(".rv-text-toggle").open = false;
   }
 }
+drawSubmitted();
 
 async function api(path, body) {
   const resp = await fetch(`/api/review/${sentenceId}/${path}`, {
@@ -132,7 +150,97 @@ function setResult(treeText, newSource, label) {
   text.value = treeText;
   source = newSource;
   sourceLabel.textContent = label;
+  edits.length = 0;
+  chosen = null;
+  drawResult();
   scheduleCheck(0);
+}
+
+// ------------------------------------------------------------------ the result as a tree
+// The result is edited as a tree with the Bench's tree model (treemodel.js) and drawing
+// (treeview.js): choose a node (click) or words (drag), then add, relabel, dissolve or move an
+// edge; each edit rewrites the bracketed text, which is checked as if typed.
+const editMsg = document.getElementById("rv-edit-msg");
+const labelBox = document.getElementById("rv-label");
+const edits = []; // earlier texts, for undo
+let chosen = null; // {kind, index} or {range: [start, end]}
+
+function resultTree() {
+  try {
+    return text && text.value.trim() ? readTree(text.value) : null;
+  } catch (err) {
+    return null;
+  }
+}
+
+function drawResult() {
+  if (!preview) return;
+  const tree = resultTree();
+  if (!tree) { preview.replaceChildren(); return; }
+  const n = T.wordsOf(tree).length;
+  if (chosen && chosen.range && chosen.range[1] > n) chosen = null;
+  draw(preview, tree, true, {
+    selected: chosen && !chosen.range ? chosen : null,
+    range: chosen && chosen.range ? chosen.range : null,
+    onSelect: (ref) => { chosen = ref; drawResult(); },
+    onRange: (start, end, done) => { if (done) { chosen = { range: [start, end] }; drawResult(); } },
+  });
+}
+
+function edit(kind) {
+  const tree = resultTree();
+  if (!tree) { say(editMsg, "the text is not a tree yet: fix it or start from a tree", "bad"); return; }
+  const label = (labelBox.value || "").trim();
+  try {
+    let out = null;
+    let next = chosen;
+    if (kind === "undo") {
+      if (!edits.length) throw new T.EditError("nothing to take back");
+      text.value = edits.pop();
+      chosen = null;
+      drawResult();
+      scheduleCheck(0);
+      say(editMsg, "taken back", null);
+      return;
+    }
+    if (kind === "add") {
+      const [a, b] = chosen && chosen.range ? chosen.range
+        : chosen && chosen.kind === "tag" ? [chosen.index, chosen.index + 1]
+          : chosen ? [spansOf(tree)[chosen.index].start, spansOf(tree)[chosen.index].end] : [0, 0];
+      const added = T.addConstituent(tree, a, b, label);
+      out = added.tree;
+      next = { kind: "phrase", index: added.index };
+    } else if (!chosen || chosen.range) {
+      throw new T.EditError("choose a constituent first (click its label)");
+    } else if (kind === "relabel") {
+      out = chosen.kind === "tag" ? T.setTag(tree, chosen.index, label)
+        : T.relabel(tree, chosen.index, label);
+    } else if (kind === "dissolve") {
+      if (chosen.kind !== "phrase") throw new T.EditError("a tag cannot be dissolved");
+      out = T.removeConstituent(tree, chosen.index);
+      next = null;
+    } else {
+      if (chosen.kind !== "phrase") throw new T.EditError("choose a constituent, not a tag");
+      const [edge, dir] = kind.split("-");
+      const delta = edge === "start" ? (dir === "out" ? -1 : 1) : (dir === "out" ? 1 : -1);
+      const moved = T.moveEdge(tree, chosen.index, edge, delta);
+      out = moved.tree;
+      next = { kind: "phrase", index: moved.index };
+    }
+    edits.push(text.value);
+    text.value = T.writeTreeIndented(out);
+    chosen = next;
+    drawResult();
+    scheduleCheck(0);
+    say(editMsg, "", null);
+  } catch (err) {
+    if (!(err instanceof T.EditError || err instanceof T.BracketError)) throw err;
+    say(editMsg, err.message, "bad");
+  }
+}
+
+for (const b of document.querySelectorAll("[data-edit]")) {
+  b.addEventListener("click", () => edit(b.dataset.edit));
 }
 
 function takeTree(letter) {
@@ -172,7 +280,6 @@ async function runCheck() {
     checkedText = value;
     say(checkLine, `fits the sentence: ${data.words.length} words`, "ok");
     confirmRow.hidden = !confirmBox.checked;
-    draw(preview, data.tree, true);
     settleButton.disabled = busy;
   } else {
     const d = data || {};
@@ -230,7 +337,7 @@ for (const b of document.querySelectorAll("[data-take]")) {
 for (const b of document.querySelectorAll("[data-take-gold]")) {
   b.addEventListener("click", () => takeGold(b.dataset.takeGold));
 }
-text?.addEventListener("input", () => scheduleCheck(350));
+text?.addEventListener("input", () => { chosen = null; drawResult(); scheduleCheck(350); });
 confirmBox?.addEventListener("change", () => scheduleCheck(0));
 settleButton?.addEventListener("click", settle);
 reopenButton?.addEventListener("click", reopen);
