@@ -22,7 +22,6 @@ from app.models import (
     SENT_IN_REVIEW,
     Annotation,
     Corpus,
-    GrammarVersion,
     Sentence,
     Suggestion,
     User,
@@ -67,12 +66,11 @@ ERRORS: dict[int | str, dict[str, Any]] = {
 def _annotation_public(a: Annotation | None, db: Session | None = None) -> AnnotationPublic:
     if a is None:
         return AnnotationPublic(id=None, state=ANN_DRAFT, head=0)
-    version = (db.get(GrammarVersion, a.start_grammar_version_id)
-               if db is not None and a.start_grammar_version_id is not None else None)
+    number = (training.version_number(db, a.start_grammar_version_id)
+              if db is not None else None)
     return AnnotationPublic(id=a.id, state=a.state, head=a.head, comment=a.comment or "",
                             flag=a.flag, submitted_at=a.submitted_at,
-                            start_kind=a.start_kind,
-                            start_grammar_version=version.number if version else None)
+                            start_kind=a.start_kind, start_grammar_version=number)
 
 
 def _corpus(db: Session, corpus_id: int) -> Corpus:
@@ -111,8 +109,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     if head is None and suggestion is None and training.open_job(db, corpus.id) is not None:
         note = ("The grammar is being trained: suggestions arrive when the grammar is "
                 "ready (open this sentence again then). Meanwhile this is a flat tree.")
-    start_version = (db.get(GrammarVersion, sentence.start_grammar_version_id)
-                     if sentence.start_grammar_version_id is not None else None)
+    start_number = training.version_number(db, sentence.start_grammar_version_id)
     place = svc.queue_place(db, user, sentence.id)
     sugg_public = _suggestion_public(db, corpus, suggestion)
     editable = (annotation is None or annotation.state != ANN_SUBMITTED) \
@@ -126,7 +123,7 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
         annotation=_annotation_public(annotation, db), tree=tree, pins=Pins(**pins),
         source=source, start_note=note, editable=editable, suggestion=sugg_public,
         start_kind=sentence.start_kind,
-        start_grammar_version=start_version.number if start_version else None,
+        start_grammar_version=start_number,
         labels=sorted(corpus.label_set or []), tags=sorted(corpus.tag_set or []),
         unknown_label_policy=corpus.options.unknown_label_policy.value,
         queue=place, unseen_words=suggestions.unseen_words(db, sentence, corpus),

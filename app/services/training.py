@@ -851,6 +851,14 @@ def versions(db: Session, corpus_id: int) -> list[GrammarVersion]:
                            .order_by(GrammarVersion.number.desc())))
 
 
+def version_number(db: Session, version_id: int | None) -> int | None:
+    """The number of a grammar version within its corpus (None for no or an unknown id)."""
+    if version_id is None:
+        return None
+    version = db.get(GrammarVersion, version_id)
+    return version.number if version is not None else None
+
+
 def get_version(db: Session, version_id: int) -> GrammarVersion:
     version = db.get(GrammarVersion, version_id)
     if version is None:
