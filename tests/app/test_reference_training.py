@@ -210,3 +210,15 @@ def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
               if training.reference_only_f1(x) is not None]
     assert v.id in [x.id for x in scored]
     assert html.count('class="chart-dot chart-s1"') == len(scored)
+
+
+def test_twelve_seed_gold_trees_queue_a_version_while_gold_is_scarce(db):
+    # 12 gold trees: past retrain_every_early (10) while below early_gold_limit (200), though
+    # short of retrain_every (25)
+    trees = "".join(f"(ROOT (S (NP (NNS Gulls{i})) (VP (VBD circled)) (. .)))\n"
+                    for i in range(12))
+    made = import_bytes(db, trees.encode(), source="seed.ptb", corpus_name="Harbour",
+                        kind="gold")
+    queued = db.scalars(select(GrammarVersion).where(
+        GrammarVersion.corpus_id == made.corpus_id)).all()
+    assert len(queued) == 1 and queued[0].options["reason"] == "10 new gold trees"
