@@ -1,0 +1,198 @@
+"""Split-merge refinement (parser.latent) on a small hand-made treebank.
+
+Checks: splitting keeps every gold tree's probability; splitting then merging every split back
+gives the grammar back; EM never lowers the training likelihood (the EM guarantee, Dempster,
+Laird and Rubin 1977, theorem 1; from memory); the refined grammar's span posteriors, projected
+onto ordinary labels by the chart, equal those of a brute-force enumeration of every tree.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import defaultdict
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pytest
+from nltk import Tree
+
+from parser import latent
+from parser.chart import parse
+from parser.errors import GrammarError
+from parser.grammar import Grammar, train_grammar
+from parser.trees import read_trees
+
+DATA = Path(__file__).resolve().parent.parent / "data" / "latent_small.ptb"
+EXACT = latent.RefineOptions(smoothing=0.0, word_smoothing=None, em_iterations=6,
+                             em_after_merge=3)
+
+
+@pytest.fixture(scope="module")
+def trees() -> list[Tree]:
+    return read_trees(DATA.read_text(encoding="utf-8"), source=str(DATA))
+
+
+@pytest.fixture(scope="module")
+def base(trees: list[Tree]) -> Grammar:
+    return train_grammar(trees)
+
+
+@pytest.fixture(scope="module")
+def bank(trees: list[Tree], base: Grammar) -> latent.Treebank:
+    return latent.treebank(base, latent.binarized_training_trees(trees, base))
+
+
+@pytest.fixture(scope="module")
+def refined(trees: list[Tree], base: Grammar) -> latent.LatentGrammar:
+    return latent.refine(base, trees, latent.RefineOptions(cycles=1, em_iterations=8))
+
+
+def _same(a: latent.LatentGrammar, b: latent.LatentGrammar) -> None:
+    assert np.array_equal(a.ks, b.ks)
+    np.testing.assert_allclose(a.bw, b.bw, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(a.uw, b.uw, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(a.lex, b.lex, rtol=0, atol=1e-9)
+
+
+def _merge_all(lg: latent.LatentGrammar, bank: latent.Treebank) -> latent.LatentGrammar:
+    ex = latent.expectations(lg, bank)
+    pairs = {s: list(range(int(k) // 2)) for s, k in enumerate(lg.ks)}
+    return lg.merge(pairs, ex.w_top, ex.w_bot)
+
+
+def test_split_keeps_every_tree_probability(base: Grammar, bank: latent.Treebank) -> None:
+    lg = latent.LatentGrammar.from_grammar(base)
+    split = lg.split(np.random.default_rng(3), noise=0.05)
+    assert split.n_subsymbols == 2 * base.n_symbols - 1
+    assert not np.allclose(split.bw[:8], np.repeat(split.bw[:1], 8))
+    np.testing.assert_allclose(latent.tree_logprobs(split, bank),
+                               latent.tree_logprobs(lg, bank), rtol=0, atol=1e-9)
+
+
+def test_split_then_merge_back_gives_the_base_grammar(base: Grammar,
+                                                       bank: latent.Treebank) -> None:
+    lg = latent.LatentGrammar.from_grammar(base)
+    back = _merge_all(lg.split(np.random.default_rng(5), noise=0.05), bank)
+    _same(back, lg)
+    g = back.to_grammar()
+    assert g.symbols == base.symbols
+    for name in ("bin_parent", "bin_left", "bin_right", "un_parent", "un_child", "un_chain",
+                 "lex_symbols"):
+        assert np.array_equal(getattr(g, name), getattr(base, name)), name
+    for name in ("bin_logp", "un_logp"):
+        np.testing.assert_allclose(np.exp(getattr(g, name)), np.exp(getattr(base, name)),
+                                   rtol=0, atol=1e-9)
+    np.testing.assert_allclose(np.exp(g.lex_logp), np.exp(base.lex_logp), rtol=0, atol=1e-9)
+
+
+def test_split_then_merge_back_after_a_cycle(refined: latent.LatentGrammar,
+                                             bank: latent.Treebank) -> None:
+    assert refined.ks.max() == 2  # a refined grammar with some symbols split
+    _same(_merge_all(refined.split(np.random.default_rng(7), noise=0.05), bank), refined)
+
+
+def test_em_never_lowers_the_training_likelihood(trees: list[Tree], base: Grammar) -> None:
+    seen: list[tuple[int, int, float]] = []
+    opts = latent.RefineOptions(cycles=2, smoothing=0.0, word_smoothing=None,
+                                em_iterations=6, em_after_merge=3, seed=11)
+    latent.refine(base, trees, opts, progress=lambda c, i, ll: seen.append((c, i, ll)))
+    runs: dict[tuple[int, bool], list[float]] = defaultdict(list)
+    for cycle, it, ll in seen:
+        runs[(cycle, it > opts.em_iterations)].append(ll)
+    assert len(runs) == 4 and all(len(r) >= 4 for r in runs.values())
+    for key, lls in runs.items():
+        for before, after in zip(lls, lls[1:], strict=False):
+            assert after >= before - 1e-9 * abs(before), (key, before, after)
+    # Not a flat line: the sub-symbols learn something.
+    assert runs[(1, False)][-1] > runs[(1, False)][0] + 1.0
+
+
+def test_refined_grammar_is_a_proper_pcfg(refined: latent.LatentGrammar) -> None:
+    report = refined.to_grammar().tightness(tolerance=1e-6)
+    assert report.tight
+
+
+def test_a_tree_with_an_unknown_rule_is_refused(base: Grammar) -> None:
+    odd = read_trees("(ROOT (S (VP (VBD slept) (NP (DT the) (NN mill))) (NP (PRP she))))")
+    with pytest.raises(GrammarError, match="tree 0"):
+        latent.treebank(base, latent.binarized_training_trees(odd, base))
+
+
+# --------------------------------------------------------------------------- brute force
+def _derivations(g: Grammar, words: list[str]) -> list[Tree]:
+    """Every derivation (binarized tree over g's symbols) of ``words`` rooted in the start
+    symbol, independently of the chart: tops by a unary edge over a bottom, bottoms by a
+    binary rule or a word; one list per span and role, shorter spans first."""
+    n = len(words)
+    tops: dict[tuple[int, int], list[Tree]] = {}
+    for width in range(1, n + 1):
+        for i in range(n - width + 1):
+            k = i + width
+            bottoms: list[Tree] = []
+            if width == 1:
+                col = g.word_column(words[i], i == 0)
+                bottoms = [Tree(g.symbols[s], [words[i]]) for row, s in enumerate(g.lex_symbols)
+                           if col >= 0 and g.lex_logp[row, col] > -math.inf]
+            for r in range(len(g.bin_parent)):
+                left, right = g.symbols[g.bin_left[r]], g.symbols[g.bin_right[r]]
+                for j in range(i + 1, k):
+                    for a in tops[(i, j)]:
+                        if a.label() != left:
+                            continue
+                        bottoms.extend(Tree(g.symbols[g.bin_parent[r]], [a, b])
+                                       for b in tops[(j, k)] if b.label() == right)
+            found = []
+            for e in range(len(g.un_parent)):
+                chain = g.chains[g.un_chain[e]]
+                for low in bottoms:
+                    if low.label() != g.symbols[g.un_child[e]]:
+                        continue
+                    node = low
+                    for label in reversed(chain[:-1]):
+                        node = Tree(label, [node])
+                    found.append(node)
+            tops[(i, k)] = found
+    return [t for t in tops[(0, n)] if t.label() == g.symbols[g.start]]
+
+
+def _spans(tree: Tree, start: int = 0) -> Iterator[tuple[str, int, int]]:
+    if isinstance(tree[0], str):
+        yield latent.bz.base_label(tree.label()), start, start + 1
+        return
+    end = start
+    for child in tree:
+        yield from _spans(child, end)
+        end += len(child.leaves())
+    if not tree.label().startswith("@"):
+        yield latent.bz.base_label(tree.label()), start, end
+
+
+def test_projected_posteriors_match_brute_force(base: Grammar, refined: latent.LatentGrammar
+                                                ) -> None:
+    words = "the owner of the mill slept .".split()
+    trees = _derivations(base, words)
+    assert len(trees) > 3
+    logp = latent.tree_logprobs(refined, latent.treebank(base, trees))
+    prob = np.exp(logp - logp.max())
+    brute: dict[tuple[str, int, int], float] = defaultdict(float)
+    for tree, p in zip(trees, prob / prob.sum(), strict=True):
+        for span in set(_spans(tree)):
+            brute[span] += p
+    result = parse(refined.to_grammar(), words, posteriors=True, posterior_threshold=0.0)
+    chart = {(lab, i, k): p for lab, i, k, p in result.posteriors
+             if not (k - i == 1 and lab in refined.base.tags)}
+    phrases = {key: p for key, p in brute.items()
+               if not (key[2] - key[1] == 1 and key[0] in refined.base.tags)}
+    assert chart.keys() == {key for key, p in phrases.items() if p > 0}
+    for key, p in phrases.items():
+        assert chart[key] == pytest.approx(p, abs=1e-9), key
+    # As span posteriors must: the root spans everything with certainty; every tree has
+    # exactly one tag per word, so each word's tag posteriors sum to one.
+    assert chart[(base.root_label, 0, len(words))] == pytest.approx(1.0, abs=1e-9)
+    for i in range(len(words)):
+        tags = sum(p for (lab, s, e), p in brute.items() if (s, e) == (i, i + 1)
+                   and lab in refined.base.tags)
+        assert tags == pytest.approx(1.0, abs=1e-9)
+    total = math.log(np.exp(logp).sum())
+    assert result.inside_logprob == pytest.approx(total, abs=1e-9)
