@@ -123,7 +123,8 @@ def test_admission_sets_the_numba_threads_of_each_parse() -> None:
 
 @pytest.fixture
 def small_pool():
-    pool = adm.configure(slots=1, threads=1, wait=10, max_words=12)
+    # a long wait: the first parse of a test process may load the compiled kernels slowly
+    pool = adm.configure(slots=1, threads=1, wait=300, max_words=12)
     yield pool
     adm.configure()
 
