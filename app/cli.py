@@ -301,7 +301,7 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
                    do_assign: bool, data_dir: Path | None) -> None:
     """Import sentences or bracketed trees; each file is stored whole or not at all."""
     from app.services.assignment import assign_sentences
-    from app.services.imports import import_file
+    from app.services.staged_import import import_path
 
     if kind == "annotation" and not annotator:
         raise click.UsageError("--as annotation needs --annotator USERNAME")
@@ -313,7 +313,7 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
             bar = _Bar(path.name)
             try:
                 with friendly_errors():
-                    result = import_file(db, path, corpus_name=corpus_name, kind=kind,
+                    result = import_path(db, path, corpus_name=corpus_name, kind=kind,
                                          document_name=document_name or path.stem,
                                          tokenizer=tokenizer, annotator=annotator,
                                          skip_duplicates=skip_duplicates, progress=bar)

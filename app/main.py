@@ -33,7 +33,7 @@ from app.api_errors import (
 )
 from app.db import make_engine, make_sessionmaker, upgrade_to_head
 from app.deps import LoginRequired
-from app.services import admission, suggestions, training
+from app.services import admission, staged_import, suggestions, training
 from app.services.errors import ServiceError
 from app.settings import STATIC_DIR, Settings, get_settings
 from parser.errors import ParserError
@@ -170,6 +170,10 @@ async def _startup_hooks(application: FastAPI) -> AsyncIterator[None]:
         log.info("warmed the parser; grammar versions loaded: %s", loaded)
     except (SQLAlchemyError, ParserError) as exc:  # the first Bench request pays instead
         log.warning("could not warm the parser: %s", exc)
+    with application.state.sessionmaker() as db:
+        dropped = await run_in_threadpool(staged_import.drop_abandoned_staging, db)
+        if dropped:
+            log.warning("removed %s import(s) a stopped process left half staged", dropped)
     runner = training.get_runner(application.state)
     yield
     runner.shutdown(wait=False)

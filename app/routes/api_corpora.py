@@ -14,7 +14,7 @@ from app.schemas.common import RequestModel, UtcDateTime
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences
 from app.services.exports import SplitSpec, export_gold, record_export
-from app.services.imports import import_bytes
+from app.services.staged_import import import_handle
 from app.services.visibility import readable, readable_corpus
 
 router = APIRouter(tags=["corpora"])
@@ -229,9 +229,10 @@ def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File(...),
     """Import one file (all or nothing); the corpus is made when it does not exist."""
     # A plain def: FastAPI runs it in a worker thread, so reading and storing a big file
     # (seconds) never holds up the event loop.
-    data = upload.file.read()
-    result = import_bytes(
-        db, data, source=upload.filename or "upload", corpus_name=corpus_name,
+    # Text and gold are read line by line and staged in short transactions (saves go on
+    # meanwhile); the import still appears whole or not at all.
+    result = import_handle(
+        db, upload.file, source=upload.filename or "upload", corpus_name=corpus_name,
         document_name=document_name or None, kind=kind, tokenizer=tokenizer,
         annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     return ImportPublic(

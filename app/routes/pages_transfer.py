@@ -21,7 +21,8 @@ from app.deps import Login, PageAdjudicator, PageAdmin, PageUser, SessionDep
 from app.services.corpora import corpus_list, document_choices, find_corpus
 from app.services.errors import BadInput, ServiceError
 from app.services.exports import SplitSpec, export_gold, parse_ratios, record_export, slug
-from app.services.imports import KINDS, TOKENIZERS, ImportReport, import_bytes, import_report
+from app.services.imports import KINDS, TOKENIZERS, ImportReport, import_report
+from app.services.staged_import import import_handle
 from app.services.users import active_users
 from app.services.visibility import readable
 from app.web import render
@@ -64,14 +65,13 @@ def transfer_import(request: Request, login: PageAdmin, db: SessionDep,
     form = {"corpus_name": corpus_name, "new_corpus": new_corpus,
             "document_name": document_name, "kind": kind, "annotator": annotator,
             "tokenizer": tokenizer, "skip_duplicates": skip_duplicates}
-    data = upload.file.read()
     source = upload.filename or "upload"
     target = new_corpus.strip() or corpus_name.strip()
     try:
         if not target:
             raise BadInput("choose a corpus or type the name of a new one")
-        result = import_bytes(
-            db, data, source=source, corpus_name=target,
+        result = import_handle(
+            db, upload.file, source=source, corpus_name=target,
             document_name=document_name.strip() or None, kind=kind, tokenizer=tokenizer,
             annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
     except ServiceError as err:

@@ -175,6 +175,15 @@ def create_corpus(db: Session, name: str, *, description: str = "",
     return corpus
 
 
+#: In a staging corpus's settings (app.services.staged_import): the source being imported.
+#: Such a corpus holds an import until it is published; nobody sees it.
+STAGING_KEY = "staging_import"
+
+
+def is_staging(corpus: Corpus) -> bool:
+    return bool((corpus.settings or {}).get(STAGING_KEY))
+
+
 def corpus_by_name(db: Session, name: str) -> Corpus | None:
     return db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
 
@@ -311,7 +320,7 @@ def _gold_counts(db: Session, corpus_id: int | None = None) -> dict[int, int]:
 
 def corpus_overview(db: Session) -> list[CorpusCounts]:
     """Every corpus with its sentence count per state, gold count and document count."""
-    corpora = db.scalars(select(Corpus).order_by(Corpus.name)).all()
+    corpora = [c for c in db.scalars(select(Corpus).order_by(Corpus.name)) if not is_staging(c)]
     states = _state_counts(db)
     gold = _gold_counts(db)
     docs = dict(db.execute(select(Document.corpus_id, func.count())
@@ -472,8 +481,8 @@ def find_corpus(db: Session, corpus_id: int, *, fresh: bool = False) -> Corpus |
 
 
 def corpus_list(db: Session) -> list[Corpus]:
-    """Every corpus, by name."""
-    return list(db.scalars(select(Corpus).order_by(Corpus.name)))
+    """Every corpus, by name (not those holding an import still being staged)."""
+    return [c for c in db.scalars(select(Corpus).order_by(Corpus.name)) if not is_staging(c)]
 
 
 def document_choices(db: Session) -> list[tuple[int, str, int]]:

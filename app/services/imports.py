@@ -17,8 +17,11 @@ Three kinds (:data:`KINDS`):
 
 All or nothing per file: the whole file is decoded and parsed before anything is written, and
 the rows are then written in one transaction, so a bad line anywhere aborts the file and
-nothing of it is stored. Errors (:class:`ImportFailed`) name the file, the line, and for
-bracket errors the column; non-UTF-8 bytes are reported by byte offset and line.
+nothing of it is stored. (The CLI, the API and the Transfer page import text and gold through
+:mod:`app.services.staged_import` instead, which streams the file and stages it in short
+transactions; this module's readers and checks are shared by both.) Errors
+(:class:`ImportFailed`) name the file, the line, and for bracket errors the column; non-UTF-8
+bytes are reported by byte offset and line.
 
 Duplicate sentences (same tokens) are reported, within the file and against the corpus; they
 are imported unless ``skip_duplicates``.
@@ -30,7 +33,7 @@ corpus once (O(corpus)); rows are written in batches. A progress callback is tol
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -207,6 +210,22 @@ def _check_length(tokens: Sequence[str], source: str, line: int) -> None:
                            source=source, line=line)
 
 
+def text_item(number: int, line: str, split: Callable[[str], list[str]],
+              source: str) -> _Item | None:
+    """The sentence of one plain-text line (``number`` from 1); None for a blank line."""
+    stripped = line.strip()
+    if not stripped:
+        return None
+    if "\x00" in stripped:
+        raise ImportFailed("the line holds a NUL character (is this a binary file?)",
+                           source=source, line=number, column=line.index("\x00") + 1)
+    tokens = [escape_word(tok) for tok in split(stripped)]
+    if not tokens:
+        return None
+    _check_length(tokens, source, number)
+    return _Item(line=number, tokens=tokens, text=" ".join(stripped.split()))
+
+
 def read_text_items(text: str, source: str, tokenizer: str = "whitespace"
                     ) -> tuple[list[_Item], int]:
     """Sentences of a plain-text file and the number of blank lines skipped."""
@@ -214,19 +233,11 @@ def read_text_items(text: str, source: str, tokenizer: str = "whitespace"
     items: list[_Item] = []
     blank = 0
     for number, line in enumerate(text_lines(text), start=1):
-        stripped = line.strip()
-        if not stripped:
+        item = text_item(number, line, split, source)
+        if item is None:
             blank += 1
-            continue
-        if "\x00" in stripped:
-            raise ImportFailed("the line holds a NUL character (is this a binary file?)",
-                               source=source, line=number, column=line.index("\x00") + 1)
-        tokens = [escape_word(tok) for tok in split(stripped)]
-        if not tokens:
-            blank += 1
-            continue
-        _check_length(tokens, source, number)
-        items.append(_Item(line=number, tokens=tokens, text=" ".join(stripped.split())))
+        else:
+            items.append(item)
     return items, blank
 
 
@@ -236,22 +247,25 @@ def _chunks(text: str) -> list[tuple[int, str]]:
     Each piece holds one or more whole trees, so a tree's first line is known without
     re-scanning, and a bracket error found in a piece is shifted back to file lines.
     """
-    out: list[tuple[int, str]] = []
+    return list(chunk_lines(text_lines(text, keepends=True)))
+
+
+def chunk_lines(lines: Iterable[str]) -> Iterator[tuple[int, str]]:
+    """:func:`_chunks` over lines (with their endings) as they come, for streamed files."""
     buffer: list[str] = []
     start = 0
     balance = 0
-    for number, line in enumerate(text_lines(text, keepends=True)):
+    for number, line in enumerate(lines):
         if not buffer and not line.strip():
             start = number + 1
             continue
         buffer.append(line)
         balance += line.count("(") - line.count(")")
         if balance <= 0:
-            out.append((start, "".join(buffer)))
+            yield start, "".join(buffer)
             buffer, balance, start = [], 0, number + 1
     if buffer:
-        out.append((start, "".join(buffer)))
-    return out
+        yield start, "".join(buffer)
 
 
 def _check_tree(tree: Tree, source: str, line: int) -> None:
@@ -268,41 +282,57 @@ def read_tree_items(text: str, source: str) -> tuple[list[_Item], int, set[str],
     """
     items: list[_Item] = []
     dropped = 0
-    kept: list[Tree] = []
+    labels: set[str] = set()
+    tags: set[str] = set()
     for offset, chunk in _chunks(text):
+        found, gone, chunk_labels, chunk_tags = tree_chunk_items(offset, chunk, source)
+        items += found
+        dropped += gone
+        labels |= chunk_labels
+        tags |= chunk_tags
+    return items, dropped, labels, tags
+
+
+def tree_chunk_items(offset: int, chunk: str, source: str
+                     ) -> tuple[list[_Item], int, set[str], set[str]]:
+    """The trees of one balanced piece (see :func:`chunk_lines`), the empty elements dropped
+    from them and their labels and tags."""
+    items: list[_Item] = []
+    dropped = 0
+    kept: list[Tree] = []
+    try:
+        trees = read_trees(chunk)
+    except BracketSyntaxError as err:
+        if "still open" in err.message:
+            # The piece never balanced, so its first line opened the tree left unclosed:
+            # point there rather than at the end of the file.
+            first = text_lines(chunk)[0]
+            raise ImportFailed(
+                "the tree that begins here is never closed: ')' is missing (the file ends "
+                "with brackets still open)", source=source, line=offset + 1,
+                column=first.index("(") + 1 if "(" in first else 1) from None
+        raise ImportFailed(f"{err.message}" + (f" (expected {err.expected})"
+                                               if err.expected else ""),
+                           source=source, line=err.line + offset, column=err.column) from None
+    first_line = offset + 1  # chunks start at a non-blank line
+    for tree in trees:
+        _check_tree(tree, source, first_line)
+        before = len(tree.leaves())
+        cleaned = drop_empty_elements(tree)
+        if cleaned is None:
+            raise ImportFailed("the tree holds only empty elements (-NONE-), no words",
+                               source=source, line=first_line)
+        dropped += before - len(cleaned.leaves())
+        tokens = cleaned.leaves()
+        _check_length(tokens, source, first_line)
         try:
-            trees = read_trees(chunk)
-        except BracketSyntaxError as err:
-            if "still open" in err.message:
-                # The piece never balanced, so its first line opened the tree left unclosed:
-                # point there rather than at the end of the file.
-                first = text_lines(chunk)[0]
-                raise ImportFailed(
-                    "the tree that begins here is never closed: ')' is missing (the file ends "
-                    "with brackets still open)", source=source, line=offset + 1,
-                    column=first.index("(") + 1 if "(" in first else 1) from None
-            raise ImportFailed(f"{err.message}" + (f" (expected {err.expected})"
-                                                   if err.expected else ""),
-                               source=source, line=err.line + offset, column=err.column) from None
-        first_line = offset + 1  # chunks start at a non-blank line
-        for tree in trees:
-            _check_tree(tree, source, first_line)
-            before = len(tree.leaves())
-            cleaned = drop_empty_elements(tree)
-            if cleaned is None:
-                raise ImportFailed("the tree holds only empty elements (-NONE-), no words",
-                                   source=source, line=first_line)
-            dropped += before - len(cleaned.leaves())
-            tokens = cleaned.leaves()
-            _check_length(tokens, source, first_line)
-            try:
-                stored = write_tree(cleaned)
-            except TreeError as err:
-                raise ImportFailed(f"the tree cannot be stored: {err}", source=source,
-                                   line=first_line) from None
-            kept.append(cleaned)
-            items.append(_Item(line=first_line, tokens=tokens, text=" ".join(tokens),
-                               tree=stored))
+            stored = write_tree(cleaned)
+        except TreeError as err:
+            raise ImportFailed(f"the tree cannot be stored: {err}", source=source,
+                               line=first_line) from None
+        kept.append(cleaned)
+        items.append(_Item(line=first_line, tokens=tokens, text=" ".join(tokens),
+                           tree=stored))
     labels, tags = tree_inventory(kept)
     return items, dropped, labels, tags
 

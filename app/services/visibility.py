@@ -20,7 +20,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.models import Assignment, Corpus, User
-from app.services.corpora import find_corpus
+from app.services.corpora import find_corpus, is_staging
 from app.services.errors import NotFound
 
 T = TypeVar("T")
@@ -35,6 +35,8 @@ def member_corpus_ids(db: Session, user: User) -> set[int]:
 def can_read(db: Session, corpus: Corpus, user: User | None,
              members: set[int] | None = None) -> bool:
     """True when ``user`` (None: the command line) may read ``corpus``."""
+    if is_staging(corpus):
+        return False  # an import still being staged: nobody sees it before it is published
     if user is None or user.can_adjudicate or corpus.options.visible_to_everyone:
         return True
     if members is None:
