@@ -39,3 +39,14 @@ def test_assign_notice_counts_in_words(db, people, login) -> None:
     resp = admin.client.post(f"/corpora/{corpus.id}/assign",
                              data={"csrf_token": admin.csrf, "per_sentence": "1"})
     assert "1 assignment made." in resp.text
+
+
+def test_the_four_edge_buttons_have_four_glyphs(db, people, login) -> None:
+    corpus, [s] = make_corpus(db, ["one line only ."])
+    assign(db, [s], people.ann1)
+    page = login("ann1").client.get(f"/bench/{s.id}").text
+    glyphs = {}
+    for cmd in ("edge-start-out", "edge-start-in", "edge-end-in", "edge-end-out"):
+        button = page.split(f'data-cmd="{cmd}"', 1)[1].split("</button>", 1)[0]
+        glyphs[cmd] = button.split(">", 1)[1].split("<kbd>", 1)[0].strip()
+    assert len(set(glyphs.values())) == 4 and all(glyphs.values()), glyphs
