@@ -220,6 +220,8 @@ def reparse(sentence_id: int, body: ReparseRequest, login: ApiUser,
     return ReparsePublic(
         trees=trees, readings=readings, plausible=o.plausible, reasons=o.reasons,
         summary=out.summary, stand_ins=o.stand_ins, fallback=o.fallback, seconds=o.seconds,
+        posteriors=[(lab, a, b, round(p, 4)) for lab, a, b, p in o.posteriors],
+        tag_posteriors=[{t: round(p, 4) for t, p in d.items()} for d in o.tag_posteriors],
         grammar_version=out.grammar_version,
         changes=None if d is None else ChangesPublic(added=d.added, removed=d.removed,
                                                      relabelled=d.relabelled,

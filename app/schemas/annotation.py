@@ -204,6 +204,11 @@ class ReparsePublic(BaseModel):
     stand_ins: list[tuple[int, int, str]] = Field(
         default_factory=list, description="said brackets whose label the grammar never builds "
                                           "over those words (kept as said)")
+    posteriors: list[tuple[str, int, int, float]] = Field(
+        default_factory=list, description="[label, start, end, p] under everything said: the "
+                                          "grammar's belief about the rest of the tree")
+    tag_posteriors: list[dict[str, float]] = Field(
+        default_factory=list, description="per word, {tag: p} under everything said")
     fallback: bool = Field(description="the grammar had no parse keeping the pins; the tree "
                                        "is a well-formed stand-in that still keeps them")
     seconds: float

@@ -17,13 +17,14 @@ import {onKey, onReadingsKey} from "./bench/keys.js";
 import {renderHelp} from "./bench/keytable.js";
 import {openTokens, takePendingEffort, wireTokens} from "./bench/tokens.js";
 import {loadUndo, markDirty, noteActivity, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
+import {ask, loadSaid} from "./bench/loop.js";
 import {renderSide, renderText} from "./bench/side.js";
 import {$, S, root, sentenceId} from "./bench/state.js";
 import {setStatus} from "./bench/status.js";
 
 function wire() {
   const actions = {
-    add: cmd.add, relabel: cmd.relabel, dissolve: cmd.dissolve,
+    add: () => cmd.add(), "add-pin": cmd.addPin, relabel: cmd.relabel, dissolve: cmd.dissolve,
     "edge-start-out": () => cmd.edge("start", -1), "edge-start-in": () => cmd.edge("start", 1),
     "edge-end-in": () => cmd.edge("end", -1), "edge-end-out": () => cmd.edge("end", 1),
     pin: cmd.pin, carry: cmd.carry, tokens: cmd.tokens, regrow: cmd.regrow, undo: cmd.undo, redo: cmd.redo,
@@ -78,7 +79,8 @@ async function start() {
   S.unseen = new Set(data.unseen_words || []);
   showFamilies(readFamiliesChoice());
   takePosteriors(data.suggestion);
-  setTree(T.readTree(data.tree), {spans: data.pins.spans, tags: data.pins.tags});
+  const first = T.readTree(data.tree);
+  setTree(first, loadSaid(data.pins, first));
   // labels already in a saved tree were accepted before
   if (S.head) unknownIn(S.tree).forEach((l) => S.confirmed.add(l));
   if (data.start_note) {
@@ -107,6 +109,8 @@ async function start() {
   performance.mark("bench-drawn");
   if (data.suggestion && !data.suggestion.complete) completeSuggestion();
   else if (data.suggestion) root.dataset.doubts = "1";
+  // the grammar's belief given what was said so far (tag doubts come from here too)
+  if (data.suggestion && S.editable) ask(false).then(() => { root.dataset.asked = "1"; });
 }
 
 function takePosteriors(sugg) {

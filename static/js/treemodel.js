@@ -370,13 +370,13 @@ export function toggleSpanPin(pins, s) {
   const spans = isSpanPinned(pins, s)
     ? pins.spans.filter((p) => !(p[0] === s.start && p[1] === s.end && p[2] === s.label))
     : [...pins.spans, [s.start, s.end, s.label]];
-  return {spans, tags: pins.tags};
+  return {...pins, spans};
 }
 
 export function toggleTagPin(pins, i, tag) {
   const tags = isTagPinned(pins, i) ? pins.tags.filter((p) => p[0] !== i)
     : [...pins.tags, [i, tag]];
-  return {spans: pins.spans, tags};
+  return {...pins, tags};
 }
 
 // The pins that still hold in `tree`, and how many were dropped.
@@ -387,7 +387,7 @@ export function pinsKept(pins, tree) {
     s.end === p[1] && s.label === p[2]));
   const keepTags = pins.tags.filter((p) => tags[p[0]] === p[1]);
   return {
-    pins: {spans: keepSpans, tags: keepTags},
+    pins: {...pins, spans: keepSpans, tags: keepTags},
     dropped: pins.spans.length - keepSpans.length + pins.tags.length - keepTags.length,
   };
 }

@@ -6,6 +6,7 @@ import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
 import {moveTargets, render, spanWords, wordsLabel} from "./draw.js";
 import {commit, flush, tally, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
+import {ask, take} from "./loop.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
 import {say, setStatus} from "./status.js";
@@ -95,19 +96,23 @@ export const cmd = {
     say(`Taken: walk to the new parent (arrows; ${targets.length} marked), m or Enter ` +
       "puts it down, Esc leaves it.");
   }),
-  add: guard(async () => {
+  add: guard(async (pinned = false) => {
     let start;
     let end;
     if (S.range) [start, end] = S.range;
     else if (S.sel && S.sel.kind === "phrase") ({start, end} = S.spans[S.sel.index]);
     else if (S.sel) [start, end] = [S.sel.index, S.sel.index + 1];
     else throw new T.EditError("choose words first: drag across them or use Shift+arrows");
-    const label = await askLabel(`New constituent over “${spanWords(start, end)}”`, "",
+    const label = await askLabel(
+      `New ${pinned ? "pinned " : ""}constituent over “${spanWords(start, end)}”`, "",
       S.labels, "label");
     if (!label) return;
     const out = T.addConstituent(S.tree, start, end, label);
-    commit(out.tree, S.pins, "edit", {kind: "phrase", index: out.index}, "add");
+    const pins = pinned ? T.toggleSpanPin(S.pins, T.spansOf(out.tree)[out.index]) : S.pins;
+    commit(out.tree, pins, "edit", {kind: "phrase", index: out.index}, "add");
   }),
+  // one action: add a bracket over the chosen words and pin it (A)
+  addPin: guard(async () => cmd.add(true)),
   relabel: guard(async () => {
     if (!S.sel) throw new T.EditError("choose a constituent or a POS tag first");
     if (S.sel.kind === "tag") {
@@ -145,21 +150,12 @@ export const cmd = {
   }),
   regrow: guard(async () => {
     if (!S.data.suggestion) throw new T.EditError("no grammar yet: nothing to re-parse with");
+    if (S.offer) { take(); return; }
     const btn = root.querySelector('[data-cmd="regrow"]');
     btn.classList.add("busy");
-    say("Re-parsing around the pins…");
+    say("Re-parsing around everything you said…");
     try {
-      const r = await api("POST", `/api/bench/${sentenceId}/reparse`, {pins: S.pins, k: 1});
-      if (r.status !== 200) { say(`Re-parse refused: ${errorText(r.body)}`, "warn"); return; }
-      const tree = T.readTree(r.body.trees[0]);
-      const kept = T.pinsKept(S.pins, tree);
-      if (kept.dropped) {
-        say(`The re-parse lost ${kept.dropped} pins; nothing changed.`, "warn");
-        return;
-      }
-      commit(tree, S.pins, "reparse", {kind: "phrase", index: 0});
-      say(r.body.fallback ? "Re-parsed: the grammar had no full parse, this is its fallback."
-        : `Re-parsed in ${Math.round(r.body.seconds * 1000)} ms; every pin kept.`);
+      await ask(true);
     } finally {
       btn.classList.remove("busy");
     }

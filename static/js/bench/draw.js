@@ -6,6 +6,7 @@ import {defaultWordText, drawTree} from "../treeview.js";
 import {cmd} from "./commands.js";
 import {select} from "./navigate.js";
 import {say} from "./status.js";
+import {isEdited, isRetagged} from "./loop.js";
 import {renderReadings, renderSide, renderText} from "./side.js";
 import {$, S, UNSURE, WEAK, root} from "./state.js";
 
@@ -31,25 +32,45 @@ export function marks(ref) {
   return out;
 }
 
+// Doubt marks show the grammar's belief about what the annotator has not touched: a pinned,
+// added or relabelled constituent, or a pinned or corrected tag, is theirs and has none.
+function doubt(out, p) {
+  if (p === null) return;
+  if (p < WEAK) { out.classes.push("tw-weak"); out.dots = 2; } else if (p < UNSURE) {
+    out.classes.push("tw-unsure"); out.dots = 1;
+  }
+}
+
+export function tagPosteriorOf(i) {
+  const per = S.tagPosteriors[i];
+  if (!per) return null;
+  return per[T.tagsOf(S.tree)[i]] ?? 0;
+}
+
 function marksOf(ref) {
   if (ref.kind === "tag") {
     const pinned = T.isTagPinned(S.pins, ref.index);
-    return {pinned, title: `${T.tagsOf(S.tree)[ref.index]} (POS tag of word ${ref.index + 1})` +
-      (pinned ? " · pinned" : "")};
+    const yours = pinned || isRetagged(ref.index);
+    const out = {pinned, classes: yours ? ["tw-yours"] : [], dots: 0};
+    const p = yours ? null : tagPosteriorOf(ref.index);
+    doubt(out, p);
+    out.title = `${T.tagsOf(S.tree)[ref.index]} (POS tag of word ${ref.index + 1})` +
+      (p !== null ? ` · grammar: ${formatP(p)}` : "") +
+      (pinned ? " · pinned" : yours ? " · yours" : "");
+    return out;
   }
   const s = S.spans[ref.index];
   const pinned = T.isSpanPinned(S.pins, s);
-  const p = ref.index === 0 ? null : posteriorOf(s);
+  const yours = pinned || isEdited(s);
+  const p = ref.index === 0 || yours ? null : posteriorOf(s);
   const out = {pinned, classes: [`tw-fam-${familyOf(s.label)}`], dots: 0};
   if (S.carry && S.carry.targets.has(ref.index)) out.classes.push("tw-drop-ok");
   let title = `${s.label} · ${wordsLabel(s.start, s.end)}`;
-  if (p !== null) {
-    title += ` · grammar: ${formatP(p)}`;
-    if (p < WEAK) { out.classes.push("tw-weak"); out.dots = 2; } else if (p < UNSURE) {
-      out.classes.push("tw-unsure"); out.dots = 1;
-    }
-  }
+  if (p !== null) title += ` · grammar: ${formatP(p)}`;
+  doubt(out, p);
+  if (yours) out.classes.push("tw-yours");
   if (pinned) title += " · pinned";
+  else if (yours) title += " · yours";
   out.title = title;
   return out;
 }

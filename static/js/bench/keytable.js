@@ -74,6 +74,9 @@ export const KEYS = [
   // --- change
   {id: "add", group: "change", keys: [["a"]], text: "add a bracket over the chosen words",
     match: is("a"), run: () => cmd.add()},
+  {id: "add-pin", group: "change", keys: [["A"]],
+    text: "add a bracket over the chosen words and pin it, in one step",
+    match: is("A"), run: () => cmd.addPin()},
   {id: "relabel", group: "change", keys: [["r"]], text: "relabel (on a tag: change the POS tag)",
     match: is("r"), run: () => cmd.relabel()},
   {id: "dissolve", group: "change", keys: [["x"], ["Del"]],
@@ -92,7 +95,9 @@ export const KEYS = [
     match: is("]", "}"), run: (ev) => cmd.edge("end", ev.key === "]" ? 1 : -1)},
   {id: "pin", group: "change", keys: [["p"]], text: "pin / unpin",
     match: is("p"), run: () => cmd.pin()},
-  {id: "regrow", group: "change", keys: [["g"]], text: "regrow: re-parse keeping every pin",
+  {id: "regrow", group: "change", keys: [["g"]],
+    text: "regrow: re-parse around everything you said (pins, your edits, removed brackets, " +
+      "corrected tags); takes the offered re-parse when one is shown",
     match: is("g"), run: () => cmd.regrow()},
   {id: "readings", group: "change", keys: [["o"]],
     text: "go to the readings (the consensus first; ↑ ↓ choose, ⏎ starts from one)",

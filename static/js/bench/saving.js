@@ -7,6 +7,7 @@ import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
 import {confirmBox} from "./dialogs.js";
 import {render} from "./draw.js";
+import {askSoon, keepSaid, showOffer, withSaid} from "./loop.js";
 import {renderSide} from "./side.js";
 import {$, RETRY_MS, S, SAVE_DELAY_MS, draftKey, sentenceId, undoKey} from "./state.js";
 import {say, setStatus} from "./status.js";
@@ -91,7 +92,13 @@ export function commit(tree, pins, source, sel = S.sel, kind = KIND_OF_SOURCE[so
   S.undo.push(snapshot());
   if (S.undo.length > 500) S.undo.shift();
   S.redo = [];
-  setTree(tree, pins);
+  // what the annotator changed is theirs (kept by every re-parse); the grammar's is not
+  const said = source === "edit" || source === "text" ? withSaid(S.tree, tree, pins)
+    : keepSaid(pins, tree);
+  setTree(tree, said);
+  S.offer = null;
+  showOffer(false);
+  if (source !== "reparse") askSoon();
   S.sel = sel;
   S.range = null;
   S.rangeAnchor = S.rangeHead = null;

@@ -36,6 +36,8 @@ export const S = {
   again: false,
   conflict: null,
   posteriors: new Map(),
+  tagPosteriors: [],  // per word {tag: p}, under everything said (bench/loop.js)
+  offer: null,        // a re-parse that would change the tree, not taken yet
   labels: new Set(),
   tags: new Set(),
   confirmed: new Set(),
