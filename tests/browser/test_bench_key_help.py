@@ -232,6 +232,13 @@ def add(page, keys, bench) -> None:
     assert _prompt_title(page).startswith("New constituent over")
 
 
+def add_pinned(page, keys, bench) -> None:
+    choose(page, "tag", 0)
+    page.keyboard.press("Shift+ArrowRight")
+    page.keyboard.press(keys[0])
+    assert _prompt_title(page).startswith("New pinned constituent over")
+
+
 def relabel(page, keys, bench) -> None:
     choose(page, "phrase", 1)
     page.keyboard.press(keys[0])
@@ -450,6 +457,7 @@ EFFECTS: dict[str, Callable[..., None]] = {
     "choose the words of the chosen constituent": constituent_words,
     "put a carried node back, drop the word range, then the choice": leave,
     "add a bracket over the chosen words": add,
+    "add a bracket over the chosen words and pin it": add_pinned,
     "relabel": relabel,
     "dissolve": dissolve,
     "move: take the chosen node": carry,

@@ -122,6 +122,8 @@ export function showOffer(asked) {
   }
   box.hidden = false;
   box.dataset.plausible = body.plausible ? "1" : "0";
+  if (asked) say("Re-parsed: the result is implausible, so your tree stays as it is; what it " +
+    "would change is shown above (g takes it anyway).", "warn");
   $("regrow-offer-text").textContent = body.summary +
     (body.plausible ? "" : " Not applied: " + body.reasons.join(" ")) +
     (body.plausible && body.reasons.length ? " " + body.reasons.join(" ") : "");
