@@ -9,6 +9,9 @@ assignments overall in this run, then user id), never to someone already assigne
 Running it again changes nothing for sentences that already have N: it is idempotent.
 
 Cost: O(S * P log P) for S sentences and P people; one query for the existing assignments.
+Memory: the existing assignments of the corpus and one batch of sentences and new rows (the
+sentences are streamed in queue order and the rows written in batches of ASSIGN_BATCH), not
+the whole corpus.
 """
 
 from __future__ import annotations
@@ -16,7 +19,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 
-from sqlalchemy import select
+from sqlalchemy import insert, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -38,6 +41,7 @@ from app.services.transactions import unit_of_work
 from app.wording import plural
 
 OPEN_STATES = (SENT_QUEUED, SENT_IN_PROGRESS)
+ASSIGN_BATCH = 5_000  # sentences read, and assignment rows written, at a time
 
 
 @dataclass
@@ -97,13 +101,6 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
     if sentence_ids is not None:
         wanted = set(sentence_ids)
         query = query.where(Sentence.id.in_(wanted))
-    places = {sid: reading_rank(doc, pos) for sid, doc, pos in db.execute(query)}
-    sentences = list(places)
-    if sentence_ids is not None:
-        unknown = wanted - set(sentences)
-        if unknown:
-            raise BadInput(f"sentence(s) {', '.join(map(str, sorted(unknown)))} are not open "
-                           f"sentences of corpus {corpus.name!r}")
     assigned: dict[int, set[int]] = {}
     load: dict[int, int] = {u.id: 0 for u in people}
     for sid, uid, state in db.execute(
@@ -115,8 +112,19 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
             load[uid] += 1
     names = {u.id: u.username for u in people}
     fresh: dict[int, int] = dict.fromkeys(load, 0)
-    for sid in sentences:
-        have = assigned.setdefault(sid, set())
+    found: set[int] = set()
+    pending: list[dict[str, int]] = []
+
+    def write() -> None:  # new rows in batches, as plain inserts: memory holds one batch
+        if pending:
+            db.execute(insert(Assignment), pending)
+            pending.clear()
+
+    # the sentences are read as a stream, in queue order, never all at once
+    for sid, doc, pos in db.execute(query.execution_options(yield_per=ASSIGN_BATCH)):
+        if sentence_ids is not None:
+            found.add(sid)
+        have = assigned.get(sid, set())
         missing = needed - len(have)
         if missing <= 0:
             result.already_complete += 1
@@ -125,16 +133,23 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
                             key=lambda uid: (load[uid], fresh[uid], uid))
         chosen = candidates[:missing]
         for uid in chosen:
-            db.add(Assignment(sentence_id=sid, user_id=uid, corpus_id=corpus.id,
-                              rank=places[sid]))
-            have.add(uid)
+            pending.append({"sentence_id": sid, "user_id": uid, "corpus_id": corpus.id,
+                            "rank": reading_rank(doc, pos)})
             load[uid] += 1
             fresh[uid] += 1
+        if len(pending) >= ASSIGN_BATCH:
+            write()
         if chosen:
             result.sentences += 1
             result.created += len(chosen)
-        if len(have) < needed:
+        if len(have) + len(chosen) < needed:
             result.short.append(sid)
+    if sentence_ids is not None:
+        unknown = wanted - found
+        if unknown:
+            raise BadInput(f"sentence(s) {', '.join(map(str, sorted(unknown)))} are not open "
+                           f"sentences of corpus {corpus.name!r}")
+    write()
     if result.created and informative(corpus):
         db.flush()
         apply_order(db, corpus.id)  # new rows start in reading order
