@@ -10,7 +10,10 @@ recall of the consensus, the number of fallback trees, the grammar's size and th
 parsing CPU seconds (time.process_time, so that a loaded machine changes little). The options
 are the feature annotations of parser.annotate (Klein and Manning 2003), markovization (with
 the variable-order threshold min_context) and the factoring, and the lexicon smoothing
-parameters of parser.lexicon; whatever an option does not name is the library's default.
+parameters of parser.lexicon, and split-merge refinement (parser.latent; ``refine=N``: N
+cycles from the default grammar, parsed with the exported refined grammar, whose posteriors
+the chart projects onto ordinary labels); whatever an option does not name is the library's
+default. ``--limit N`` parses only the first N test sentences (every row the same ones).
 """
 
 from __future__ import annotations
@@ -26,6 +29,7 @@ sys.path.insert(0, str(ROOT))
 from parser.binarize import clean_tree  # noqa: E402
 from parser.chart import parse  # noqa: E402
 from parser.grammar import DEFAULT_FEATURES, train_grammar  # noqa: E402
+from parser.latent import DEFAULT_PRUNE, RefineOptions, refine  # noqa: E402
 from parser.scoring import score_corpus  # noqa: E402
 from parser.trees import read_trees  # noqa: E402
 
@@ -57,6 +61,8 @@ OPTIONS: dict[str, dict] = {
     "default,min-context=3": {"min_context": 3},
     "default,min-context=10": {"min_context": 10},
     "default,v=3,min-context=0": {"vertical": 3, "min_context": 0},
+    "refine=1": {"refine": 1},
+    "refine=2": {"refine": 2},
 }
 
 
@@ -64,20 +70,32 @@ def _read(path: Path) -> list:
     return read_trees(path.read_text(encoding="utf-8"), source=str(path))
 
 
+def _progress(cycle: int, iteration: int, loglik: float) -> None:
+    print(f"  cycle {cycle} EM {iteration:2d} log-likelihood {loglik:.1f}", file=sys.stderr,
+          flush=True)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--only", nargs="*", choices=sorted(OPTIONS))
+    ap.add_argument("--limit", type=int, default=None,
+                    help="parse only the first N test sentences")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
     if len(files) < 99:
         sys.exit(f"expected the shared GUM trees at {GUM}")
     train = [t for f in files[:89] for t in _read(f)]
     gold = [c for f in files[89:] for t in _read(f)
-            if len((c := clean_tree(t)).leaves()) <= 40]
+            if len((c := clean_tree(t)).leaves()) <= 40][:args.limit]
     print(f"train {len(train)} trees, test {len(gold)} sentences (<= 40 words)", flush=True)
     for name in args.only or list(OPTIONS):
         t0 = time.process_time()
-        g = train_grammar(train, **OPTIONS[name])
+        options = dict(OPTIONS[name])
+        cycles = options.pop("refine", 0)
+        g = train_grammar(train, **options)
+        if cycles:
+            g = refine(g, train, RefineOptions(cycles=cycles), progress=_progress
+                       ).to_grammar(prune=DEFAULT_PRUNE)
         t1 = time.process_time()
         results = [parse(g, t.leaves(), posteriors=True) for t in gold]
         t2 = time.process_time()

@@ -2,8 +2,10 @@
 sentences from standard input. Both are commands of the ``treewright`` group (app/cli.py).
 
 ``train TREEFILE... --out GRAMMAR [--reference FILE...] [--weight W|auto] [--horizontal H]
-[--vertical V]`` prints the grammar's size, the weight of the in-domain trees against the
-reference trees (with ``auto``, each grid point's held-out F1) and the training time.
+[--vertical V] [--refine N]`` prints the grammar's size, the weight of the in-domain trees
+against the reference trees (with ``auto``, each grid point's held-out F1) and the training
+time; ``--refine N`` adds N split-merge cycles (:mod:`parser.latent`), printing each EM
+iteration's training log-likelihood, and writes the refined grammar.
 
 ``parse --grammar GRAMMAR [--k K] [--tagged] [--json]`` reads one sentence per line (lines end
 at a newline only; tokens split on whitespace; with ``--tagged`` each token is ``word/TAG``,
@@ -41,6 +43,7 @@ from parser.grammar import (
     Weighting,
     train_grammar,
 )
+from parser.latent import DEFAULT_PRUNE, RefineOptions, refine
 from parser.trees import read_trees, text_lines, write_tree
 
 
@@ -78,8 +81,11 @@ def _read_files(paths: tuple[Path, ...]) -> list[Tree]:
 @click.option("--min-context", type=click.IntRange(min=0), default=DEFAULT_MIN_CONTEXT,
               show_default=True,
               help="Labels seen fewer times fall back one markovization order (0: never).")
+@click.option("--refine", "cycles", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Split-merge cycles learning latent sub-symbols (0: none).")
 def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path, ...],
-                  weight: str, horizontal: int, vertical: int, min_context: int) -> None:
+                  weight: str, horizontal: int, vertical: int, min_context: int,
+                  cycles: int) -> None:
     """Train a grammar from bracketed tree files (the in-domain trees), optionally with
     reference trees from another domain."""
     t0 = time.perf_counter()
@@ -88,6 +94,9 @@ def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path
     options: dict[str, Any] = {"horizontal": horizontal, "vertical": vertical,
                                "min_context": min_context}
     choice = None
+    if cycles and reference:
+        raise click.UsageError("--refine learns from the in-domain trees alone; "
+                               "leave out --reference")
     try:
         if not reference:
             weighting = Weighting()
@@ -105,6 +114,8 @@ def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path
                 bar.update(done - bar.n)
             g = train_grammar(trees, reference=reference, weighting=weighting,
                               progress=progress, **options)
+        if cycles:
+            g = _refined(g, trees, cycles)
         g.save(out)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc
@@ -122,6 +133,16 @@ def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path
     click.echo(f"vocabulary: {len(g.vocab)} words, {len(g.signatures)} unknown-word classes")
     click.echo(f"time: {seconds:.2f} s")
     click.echo(f"wrote {out}")
+
+
+def _refined(g: Grammar, trees: list[Tree], cycles: int) -> Grammar:
+    def progress(cycle: int, iteration: int, loglik: float) -> None:
+        click.echo(f"refining: cycle {cycle}, EM iteration {iteration}, "
+                   f"log-likelihood {loglik:.2f}", err=True)
+
+    refined = refine(g, trees, RefineOptions(cycles=cycles), progress=progress)
+    click.echo(f"refined: {cycles} split-merge cycles, {refined.n_subsymbols} sub-symbols")
+    return refined.to_grammar(prune=DEFAULT_PRUNE)
 
 
 def _tokens(line: str, lineno: int, tagged: bool,

@@ -69,6 +69,10 @@ DEFAULT_NOISE = 0.01
 DEFAULT_WORD_SMOOTHING = 1.0
 DEFAULT_EM_ITERATIONS = 20
 DEFAULT_EM_AFTER_MERGE = 5
+#: Refined rules at most this probable are left out of a grammar exported for parsing
+#: (common practice, no source: the chart's cost grows with the rules, and such rules
+#: change no decision that matters).
+DEFAULT_PRUNE = 1e-6
 #: Separates a symbol's name from its sub-symbol number in exported grammars (the chart
 #: strips it with the rest of the annotations, see :func:`parser.binarize.base_label`).
 SUBSYMBOL = bz.FEATURE + "#"

@@ -167,3 +167,30 @@ def test_cli_parse_tagged_unknown_tag_is_an_error_naming_line_and_token(tmp_path
     good = CliRunner().invoke(parse_command, ["--grammar", str(out), "--tagged"],
                               input="the/DT cat/NN barked/VBD ./.\n")
     assert good.exit_code == 0 and read_tree(good.output).pos()[1] == ("cat", "NN")
+
+
+def test_cli_train_refine_writes_a_refined_grammar(tmp_path: Path) -> None:
+    src = Path(__file__).resolve().parent.parent / "data" / "latent_small.ptb"
+    plain, refined = tmp_path / "plain.npz", tmp_path / "refined.npz"
+    assert CliRunner().invoke(train_command, [str(src), "--out", str(plain)]).exit_code == 0
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(refined),
+                                                "--refine", "1"])
+    assert result.exit_code == 0, result.output
+    assert "refined: 1 split-merge cycles" in result.output
+    assert "cycle 1, EM iteration 1," in result.stderr
+    g, base = Grammar.load(refined), Grammar.load(plain)
+    assert g.meta["latent"]["base_symbols"] == base.n_symbols < g.n_symbols
+    assert g.labels == base.labels and g.tags == base.tags
+    parsed = CliRunner().invoke(parse_command, ["--grammar", str(refined)],
+                                input="the baker sold the bread .\n")
+    assert parsed.exit_code == 0, parsed.output
+    assert read_tree(parsed.output).leaves() == "the baker sold the bread .".split()
+
+
+def test_cli_train_refine_refuses_reference_trees(tmp_path: Path) -> None:
+    src = tmp_path / "trees.txt"
+    src.write_text(TREES)
+    result = CliRunner().invoke(train_command, [str(src), "--out", str(tmp_path / "g.npz"),
+                                                "--reference", str(src), "--refine", "1"])
+    assert result.exit_code != 0
+    assert "--refine" in result.output and "--reference" in result.output
