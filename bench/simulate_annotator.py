@@ -95,18 +95,24 @@ def next_edit(tree: Tree, gold: Tree) -> tuple[str, object] | None:
     missing = list((want - have).elements())
     extra = list((have - want).elements())
     spans_have = {(s, e) for _, s, e in have}
-    spans_want = {(s, e) for _, s, e in want}
     addable = [b for b in missing if (b[1], b[2]) not in spans_have
                and not any(_crosses((b[1], b[2]), (s, e)) for _, s, e in have)]
     if addable:
         return "add", max(addable, key=lambda b: (b[2] - b[1], -b[1]))
-    wrong = [b for b in extra if (b[1], b[2]) not in spans_want]
+    spare = Counter((s, e) for _, s, e in missing)
+    relabels: list[tuple[Bracket, str]] = []
+    wrong: list[Bracket] = []
+    for b in extra:
+        if spare[(b[1], b[2])]:
+            spare[(b[1], b[2])] -= 1
+            right = next(g for g in missing if (g[1], g[2]) == (b[1], b[2]))
+            relabels.append((b, right[0]))
+        else:
+            wrong.append(b)
     if wrong:
         return "remove", wrong[0]
-    for lab, s, e in extra:
-        right = next((g for g in missing if (g[1], g[2]) == (s, e)), None)
-        if right is not None:
-            return "relabel", ((lab, s, e), right[0])
+    if relabels:
+        return "relabel", relabels[0]
     if missing:  # a span present twice in gold (a unary chain) and once here
         return "add", missing[0]
     for i, (a, b) in enumerate(zip(pos_tags(tree), pos_tags(gold), strict=True)):
@@ -150,6 +156,8 @@ def loop_actions(g: Grammar, start: Tree, gold: Tree, auto: bool) -> tuple[int, 
     for _ in range(4 * len(words(gold)) + 20):
         edit = next_edit(tree, gold)
         if edit is None:
+            if tree != gold:
+                raise RuntimeError(f"no edit left but not at gold: {tree} / {gold}")
             break
         tree = apply_edit(tree, edit, said)
         actions += 1
