@@ -29,10 +29,10 @@ annotator has said nothing about only where the grammar, given everything said, 
 change by a margin. Each labelled bracket of the previous tree counts :data:`KEEP_BONUS` more in
 the consensus objective (its posterior p is scored as p + KEEP_BONUS against the bracket cost);
 each previous tag stays unless the tag of the best reading under the constraints has a
-posterior higher by more than KEEP_BONUS. The value was measured with
-``bench/simulate_annotator.py`` (see DEVELOPERS.md). An implausible proposal is never
-applied by itself: the caller shows it and keeps the previous tree unless the annotator takes
-it.
+posterior higher by more than KEEP_BONUS. The value is a judgement (under half the bracket
+cost), not tuned; ``bench/simulate_annotator.py`` measures what the loop saves with it. An
+implausible proposal is never applied by itself: the caller shows it and keeps the previous
+tree unless the annotator takes it.
 
 Complexity: two chart parses (the constrained one with posteriors and k-best, and an
 unconstrained Viterbi pass for the comparison), O(n^3 R) each, plus the O(n^3) consensus.
