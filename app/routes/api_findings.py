@@ -105,14 +105,14 @@ def list_findings(login: ApiAdjudicator, corpus: CorpusDep, db: SessionDep,
                   per_page: int = 25) -> FindingPagePublic:
     """The newest run's findings in one state, most suspicious first, a page at a time."""
     found = svc.finding_page(db, corpus.id, state=state, kind=kind, page=page,
-                             per_page=per_page)
+                             per_page=per_page, viewer=login.user)
     return FindingPagePublic(
         run=run_public(found.run), pending=run_public(found.pending),
         findings=[FindingPublic(id=e.row.id, kind=e.row.kind, key=e.row.key, rank=e.row.rank,
                                 score=e.row.score, summary=e.row.summary, state=e.state,
                                 occurrences=[OccurrencePublic(**{k: o[k] for k in (
                                     "sentence", "start", "end", "analysis", "source", "by")})
-                                    for o in e.row.occurrences],
+                                    for o in e.occurrences],
                                 detail=e.row.detail) for e in found.entries],
         counts=found.counts, page=found.page, pages=found.pages, total=found.total)
 

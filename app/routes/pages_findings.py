@@ -40,8 +40,9 @@ def findings_page(request: Request, login: PageAdjudicator, db: SessionDep,
         return render(request, "findings.html", login, nav="findings", corpora=corpora,
                       corpus_id=None, c=None)
     c = corpus_or_404(db, corpus)
-    listing = svc.finding_page(db, c.id, state=state, kind=kind or None, page=page)
-    sentence_ids = [o["sentence"] for e in listing.entries for o in e.row.occurrences]
+    listing = svc.finding_page(db, c.id, state=state, kind=kind or None, page=page,
+                               viewer=login.user)
+    sentence_ids = [o["sentence"] for e in listing.entries for o in e.occurrences]
     return render(request, "findings.html", login, nav="findings", corpora=corpora,
                   corpus_id=c.id, c=c, listing=listing, state=state, kind=kind,
                   kinds=KINDS, kind_names=KIND_NAMES, state_names=STATE_NAMES,

@@ -55,6 +55,7 @@ from app.models import (
     User,
     utcnow,
 )
+from app.services.blind import unfinished_sentences
 from app.services.errors import BadInput, NotFound
 from app.services.paging import PageWindow
 from parser.trees import drop_empty_elements, read_tree
@@ -271,6 +272,17 @@ class FindingEntry:
     state: str
     verdict: FindingVerdict | None
     verdict_by: str
+    #: the row's occurrences the viewer may see (blind annotation: app.services.blind)
+    occurrences: list[dict[str, Any]]
+
+
+def visible_occurrences(occurrences: list[dict[str, Any]], blind: set[int],
+                        username: str | None) -> list[dict[str, Any]]:
+    """The occurrences without other annotators' trees of the sentences in ``blind`` (those
+    the viewer still annotates)."""
+    return [o for o in occurrences
+            if not (o.get("source") == "annotation" and o.get("sentence") in blind
+                    and o.get("by") != username)]
 
 
 @dataclass(kw_only=True)
@@ -286,8 +298,10 @@ def _state(v: FindingVerdict | None) -> str:
 
 
 def finding_page(db: Session, corpus_id: int, *, state: str = STATE_OPEN,
-                 kind: str | None = None, page: int = 1, per_page: int = 25) -> FindingPage:
-    """One page of the newest run's findings in the given state, by rank."""
+                 kind: str | None = None, page: int = 1, per_page: int = 25,
+                 viewer: User | None = None) -> FindingPage:
+    """One page of the newest run's findings in the given state, by rank, as ``viewer`` may
+    see them (None: everything)."""
     if state not in FINDING_STATES:
         raise BadInput(f"unknown finding state {state!r}; one of {', '.join(FINDING_STATES)}")
     if kind and kind not in KINDS:
@@ -316,12 +330,19 @@ def finding_page(db: Session, corpus_id: int, *, state: str = STATE_OPEN,
     window = chosen[(page - 1) * per_page: page * per_page]
     rows = {r.id: r for r in db.scalars(select(FindingRow).where(FindingRow.id.in_(window)))}
     names = dict(db.execute(select(User.id, User.username)).all())
+    blind: set[int] = set()
+    if viewer is not None:
+        blind = unfinished_sentences(db, viewer, {
+            o["sentence"] for fid in window for o in rows[fid].occurrences
+            if o.get("source") == "annotation"})
     entries = []
     for fid in window:
         row = rows[fid]
         v = verdicts.get(row.key_hash)
         entries.append(FindingEntry(row, _state(v), v,
-                                    names.get(v.user_id, "") if v and v.user_id else ""))
+                                    names.get(v.user_id, "") if v and v.user_id else "",
+                                    visible_occurrences(list(row.occurrences), blind,
+                                                        viewer.username if viewer else None)))
     return FindingPage(run=run, pending=pending, entries=entries, counts=counts, page=page,
                        per_page=per_page, total=len(chosen))
 

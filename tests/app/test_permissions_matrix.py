@@ -339,3 +339,18 @@ def test_permissions_dual_role_adjudicator_is_blind_while_annotating(login, worl
                            headers=adj.headers()).status_code == 200
     resp = adj.client.get(f"/api/review/{sid}")
     assert resp.status_code == 200 and "VBD left" in resp.text
+
+
+def test_permissions_findings_hide_others_annotations_of_sentences_still_annotated() -> None:
+    from app.services.findings import visible_occurrences
+
+    occurrences = [
+        {"sentence": 5, "source": "annotation", "by": "ann1", "analysis": "PP"},
+        {"sentence": 5, "source": "annotation", "by": "adj", "analysis": "ADVP"},
+        {"sentence": 5, "source": "gold", "by": "import", "analysis": "PP"},
+        {"sentence": 6, "source": "annotation", "by": "ann1", "analysis": "PP"},
+    ]
+    # adj still annotates sentence 5: ann1's tree of it is left out, their own and gold stay
+    shown = visible_occurrences(occurrences, {5}, "adj")
+    assert [(o["sentence"], o["by"]) for o in shown] == [(5, "adj"), (5, "import"), (6, "ann1")]
+    assert visible_occurrences(occurrences, set(), "adj") == occurrences
