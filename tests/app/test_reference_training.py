@@ -201,8 +201,8 @@ def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
     for queued in db.scalars(select(GrammarVersion.id)).all():  # the seed import's version
         wait_for_version(db, queued)
     v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
-    html = login("ann1").client.get(f"/grammars?corpus={corpus.id}").text
-    # each version says its weight and its reference sets; annotators get no upload form
+    html = login("adj").client.get(f"/grammars?corpus={corpus.id}").text
+    # each version says its weight and its reference sets; only admins get the upload form
     assert f'data-version="{v.id}"' in html and "harbour notes (3)" in html
     assert describe(DEFAULT) in html and 'action="/grammars/reference"' not in html
     # the learning curve has the reference-only start beside the version's point
