@@ -114,6 +114,13 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("POST", "/api/grammars"): Spec(ADJ, 404, json={"corpus_id": MISSING}),
     ("GET", "/grammars"): Spec(USER, 200, query="corpus=@corpus"),
     ("POST", "/grammars/train"): Spec(ADJ, 404, form={"corpus_id": str(MISSING)}),
+    # reference sets: adding one to a corpus that does not exist and switching a set that
+    # does not exist get past the role check and change nothing
+    ("POST", "/grammars/reference"): Spec(ADMIN, 404, upload=True,
+                                          form={"corpus_id": str(MISSING)}),
+    ("POST", "/grammars/reference/{reference_id}/use"): Spec(
+        ADMIN, 404, form={"corpus_id": "@corpus", "in_use": "true"},
+        ids={"reference_id": "missing"}),
     # --- review and agreement
     ("GET", "/api/review"): Spec(ADJ, 200),
     ("GET", "/api/review/{sentence_id}"): Spec(ADJ, 200, ids={"sentence_id": "review"}),
