@@ -114,16 +114,20 @@ def _training_row(db: Session, *, host: str, pid: int | None, beat_age: float | 
     return version_id
 
 
+# "self" stands for this test process's pid, filled in at run time: a pid in the parameters
+# would give each pytest-xdist worker a different test id, and xdist refuses that
 @pytest.mark.parametrize(("host", "pid", "beat_age", "gone"), [
     ("another-host", 4242, 1.0, False),  # elsewhere and beating: alive
     ("another-host", 4242, training.STALE_AFTER + 30, True),  # elsewhere, silent: gone
-    (training.HOST, os.getpid(), 1.0, False),  # this process: alive
-    (training.HOST, None, None, True),  # claimed before owners were recorded
+    ("this-host", "self", 1.0, False),  # this process: alive
+    ("this-host", None, None, True),  # claimed before owners were recorded
 ])
 def test_training_owner_decides_by_heartbeat_and_process(app, db: Session,  # type: ignore[no-untyped-def]
-                                                         host: str, pid: int | None,
+                                                         host: str, pid: int | str | None,
                                                          beat_age: float | None,
                                                          gone: bool) -> None:
+    host = training.HOST if host == "this-host" else host
+    pid = os.getpid() if pid == "self" else pid
     version_id = _training_row(db, host=host, pid=pid, beat_age=beat_age)
     failed = training.fail_interrupted(app.state.sessionmaker)
     assert failed == int(gone)
