@@ -75,7 +75,8 @@ def test_annotation_each_annotator_sees_only_their_own_tree(world, login) -> Non
     theirs = two.client.get(f"/api/bench/{s.id}").json()
     assert theirs["tree"] != mine and theirs["source"] == "flat"
     assert theirs["annotation"] == {"id": None, "state": "draft", "head": 0, "comment": "",
-                                    "flag": None, "submitted_at": None}
+                                    "flag": None, "submitted_at": None,
+                                    "start_kind": None, "start_grammar_version": None}
     # ann2's first save is based on 0: ann1's head does not leak into ann2's annotation
     ok = two.client.post(f"/api/bench/{s.id}/revisions", headers=two.headers(),
                          json={"base": 0, "tree": flat_text(s.tokens)})
