@@ -337,14 +337,17 @@ class _Tally:
 # changed); a view reads the records logged since and adds them. When the count of records
 # then differs from what the sums hold (a record committed late with a lower id, records
 # removed with their sentences, a sentence dropped or brought back), the sums start again.
-_tallies: dict[tuple[str, int], _Tally] = {}
+_tallies: dict[tuple[str, int, datetime | None], _Tally] = {}
 _tally_lock = threading.Lock()
 
 
 def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
     """The Agreement page's figures: sums over every agreement record of the corpus, kept
     between views so that a view reads only the records logged since the last one."""
-    key = (str(db.get_bind().engine.url), corpus_id)
+    # the corpus's creation time is in the key: ids can come back (a corpus removed and
+    # another made in its place, a database emptied), and old sums must never be reused
+    key = (str(db.get_bind().engine.url), corpus_id,
+           db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)))
     # a dropped sentence is out of the figures (its records stay in the log)
     counted = select(AgreementRecord).join(Sentence, Sentence.id == AgreementRecord.sentence_id) \
         .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import threading
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any
 
 from nltk import Tree
@@ -70,7 +71,7 @@ class _Cached:
     parsed: dict[int, Tree]
 
 
-_CACHE: dict[tuple[str, int, str], _Cached] = {}
+_CACHE: dict[tuple[str, int, datetime | None, str], _Cached] = {}
 _LOCK = threading.Lock()
 
 
@@ -133,7 +134,10 @@ def _build(db: Session, corpus_id: int, scope: str, old: _Cached | None,
 def _index(db: Session, corpus_id: int, scope: str) -> _Cached:
     bind = db.get_bind()
     url = bind.url.render_as_string(hide_password=True) if hasattr(bind, "url") else str(bind)
-    cache_key = (url, corpus_id, scope)
+    # the corpus's creation time is in the key: ids can come back (a corpus removed and
+    # another made in its place, a database emptied), and an old index must never be reused
+    created = db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id))
+    cache_key = (url, corpus_id, created, scope)
     fingerprint = _fingerprint(db, corpus_id, scope)
     with _LOCK:
         cached = _CACHE.get(cache_key)
