@@ -45,7 +45,7 @@ chromium:
 
 ## test: the whole suite (parser, app, browser) on two workers
 test: install-test chromium
-	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) --timeout=$(PYTEST_TIMEOUT) -q
+	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) --timeout=$(PYTEST_TIMEOUT) -q --durations=15
 
 ## test-app: only the app tests (the PostgreSQL pass of .ci/run uses this)
 test-app: install-test
