@@ -578,6 +578,24 @@ def drain(factory: sessionmaker[Session]) -> int:
         ran += 1
 
 
+def _finished(factory: sessionmaker[Session], version_id: int,
+              timeout: float = 1800.0) -> GrammarVersion:
+    """Wait for another trainer's run of a version (trained, and its suggestions refreshed
+    when it became active) and return the finished row; Conflict after ``timeout`` s."""
+    deadline = time.monotonic() + timeout
+    while True:
+        with factory() as db:
+            row = db.get(GrammarVersion, version_id)
+            assert row is not None
+            if row.status not in (GV_QUEUED, GV_TRAINING) and (
+                    row.status != GV_READY or row.progress >= 1.0):
+                db.expunge(row)
+                return row
+        if time.monotonic() > deadline:
+            raise Conflict(f"grammar version {version_id} is still being trained elsewhere")
+        time.sleep(0.2)
+
+
 def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
                  user_id: int | None = None) -> GrammarVersion:
     """Train the corpus's next version now, in this thread, and return its finished row.
@@ -591,7 +609,9 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
             raise Conflict(f"grammar version {version.number} of corpus {corpus_id} is "
                            "training already")
     if claim(factory, version_id) is None:
-        raise Conflict(f"grammar version {version_id} was taken by another trainer")
+        # the background runner claimed the job between queueing and here: it trains it, so
+        # wait for that run instead of training the same version twice
+        return _finished(factory, version_id)
     run_version(factory, version_id)
     with factory() as db:
         row = db.get(GrammarVersion, version_id)
