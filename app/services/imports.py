@@ -33,7 +33,7 @@ corpus once (O(corpus)); rows are written in batches. A progress callback is tol
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Hashable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -341,31 +341,47 @@ def tree_chunk_items(offset: int, chunk: str, source: str
 # storing
 
 
+class DuplicateCheck:
+    """Duplicates of a file's items, within the file and against the corpus's sentences.
+
+    ``key`` turns an item's tokens into what is compared (the tokens themselves, or a digest
+    where a streamed file must not hold every sentence). Call the check once per item, in
+    file order: it answers the Duplicate the item is, or None for a first occurrence."""
+
+    def __init__(self, db: Session, corpus: Corpus | None,
+                 key: Callable[[list[str]], Hashable]) -> None:
+        self.key = key
+        self.existing: dict[Hashable, tuple[int, str]] = {}
+        self.seen: dict[Hashable, int] = {}
+        if corpus is not None and corpus.id is not None:
+            rows = db.execute(select(Sentence.id, Sentence.tokens, Document.name)
+                              .join(Document, Document.id == Sentence.document_id)
+                              .where(Sentence.corpus_id == corpus.id).order_by(Sentence.id))
+            for sid, tokens, doc_name in rows:
+                self.existing.setdefault(key(list(tokens)), (sid, doc_name))
+
+    def __call__(self, item: _Item) -> Duplicate | None:
+        key = self.key(item.tokens)
+        if key in self.seen:
+            return Duplicate(item.line, item.text, same_as_line=self.seen[key])
+        if key in self.existing:
+            sid, doc_name = self.existing[key]
+            return Duplicate(item.line, item.text, same_as_sentence_id=sid,
+                             same_as_document=doc_name)
+        self.seen[key] = item.line
+        return None
+
+
 def _find_duplicates(db: Session, corpus: Corpus | None, items: list[_Item]
                      ) -> tuple[list[Duplicate], set[int]]:
     """Duplicates within the file and against the corpus; the set holds their item indexes."""
-    existing: dict[tuple[str, ...], tuple[int, str]] = {}
-    if corpus is not None and corpus.id is not None:
-        rows = db.execute(select(Sentence.id, Sentence.tokens, Document.name)
-                          .join(Document, Document.id == Sentence.document_id)
-                          .where(Sentence.corpus_id == corpus.id).order_by(Sentence.id))
-        for sid, tokens, doc_name in rows:
-            existing.setdefault(tuple(tokens), (sid, doc_name))
-    seen: dict[tuple[str, ...], int] = {}
+    check = DuplicateCheck(db, corpus, tuple)
     dups: list[Duplicate] = []
     indexes: set[int] = set()
     for index, item in enumerate(items):
-        key = tuple(item.tokens)
-        if key in seen:
-            dups.append(Duplicate(item.line, item.text, same_as_line=seen[key]))
+        if (dup := check(item)) is not None:
+            dups.append(dup)
             indexes.add(index)
-        elif key in existing:
-            sid, doc_name = existing[key]
-            dups.append(Duplicate(item.line, item.text, same_as_sentence_id=sid,
-                                  same_as_document=doc_name))
-            indexes.add(index)
-        else:
-            seen[key] = item.line
     return dups, indexes
 
 

@@ -58,6 +58,7 @@ from app.services.imports import (
     MAX_DOCUMENT_NAME,
     REPORT_DUPLICATES,
     Duplicate,
+    DuplicateCheck,
     ImportFailed,
     ImportResult,
     Progress,
@@ -123,31 +124,16 @@ def _items(lines: Iterable[str], kind: str, source: str, tokenizer: str,
 def _check(db: Session, corpus: Corpus | None, lines: Iterable[str], kind: str, source: str,
            tokenizer: str) -> tuple[int, list[Duplicate], set[int], _Pass]:
     """Pass 1: count, duplicates (and the ordinals of the duplicate items), statistics."""
-    existing: dict[int, tuple[int, str]] = {}
-    if corpus is not None:
-        for sid, tokens, doc_name in db.execute(
-                select(Sentence.id, Sentence.tokens, Document.name)
-                .join(Document, Document.id == Sentence.document_id)
-                .where(Sentence.corpus_id == corpus.id).order_by(Sentence.id)):
-            existing.setdefault(_digest(list(tokens)), (sid, doc_name))
-    seen: dict[int, int] = {}
+    check = DuplicateCheck(db, corpus, _digest)
     dups: list[Duplicate] = []
     dup_ordinals: set[int] = set()
     stats = _Pass()
     count = 0
     for ordinal, item in enumerate(_items(lines, kind, source, tokenizer, stats)):
         count += 1
-        key = _digest(item.tokens)
-        if key in seen:
-            dups.append(Duplicate(item.line, item.text, same_as_line=seen[key]))
+        if (dup := check(item)) is not None:
+            dups.append(dup)
             dup_ordinals.add(ordinal)
-        elif key in existing:
-            sid, doc_name = existing[key]
-            dups.append(Duplicate(item.line, item.text, same_as_sentence_id=sid,
-                                  same_as_document=doc_name))
-            dup_ordinals.add(ordinal)
-        else:
-            seen[key] = item.line
     if not count:  # every line was blank: anything else gives an item or an error
         raise ImportFailed("the file is blank (only whitespace): there is nothing to import",
                            source=source)
