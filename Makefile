@@ -9,7 +9,7 @@ PYTEST_WORKERS ?= 2
 # Seconds one test may take before it fails as hung (pytest-timeout); generous on purpose.
 PYTEST_TIMEOUT ?= 900
 
-.PHONY: demo test test-app lint typecheck bench install install-test chromium clean-venv
+.PHONY: demo test test-app lint format typecheck bench install install-test chromium clean-venv
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -52,7 +52,12 @@ test-app: install-test
 	$(BIN)/python -m pytest -n $(PYTEST_WORKERS) --timeout=$(PYTEST_TIMEOUT) -q tests/app
 
 lint: install-test
-	$(BIN)/ruff check app parser tests bench
+	$(BIN)/ruff check app parser tests bench migrations setup.py
+	$(BIN)/ruff format --check app parser tests bench migrations setup.py
+
+## format: rewrite the Python sources in the project's one layout (ruff format; make lint checks it)
+format: install-test
+	$(BIN)/ruff format app parser tests bench migrations setup.py
 
 typecheck: install-test
 	$(BIN)/mypy

@@ -29,8 +29,12 @@ class BuildWithAssets(build_py):
         for name in BUNDLED:
             source = HERE / name
             if source.is_dir():
-                shutil.copytree(source, target / name, dirs_exist_ok=True,
-                                ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+                shutil.copytree(
+                    source,
+                    target / name,
+                    dirs_exist_ok=True,
+                    ignore=shutil.ignore_patterns("__pycache__", "*.pyc"),
+                )
             else:
                 target.mkdir(parents=True, exist_ok=True)
                 shutil.copy2(source, target / name)

@@ -59,13 +59,15 @@ STATUS_HEADER = "X-Treewright-Status"
 QUIET_STATUSES = frozenset({409, 422})
 
 
-def refusal_answer(request: Request, body: dict[str, Any], status_code: int,
-                   headers: dict[str, str] | None = None) -> JSONResponse:
+def refusal_answer(
+    request: Request, body: dict[str, Any], status_code: int, headers: dict[str, str] | None = None
+) -> JSONResponse:
     """A service's refusal as JSON: with its status, or quietly (200 and the status in a
     header) when a page asked for that and the refusal is one it expects."""
     if status_code in QUIET_STATUSES and request.headers.get(QUIET_REQUEST_HEADER) == "1":
-        return JSONResponse(body, status_code=200,
-                            headers={**(headers or {}), STATUS_HEADER: str(status_code)})
+        return JSONResponse(
+            body, status_code=200, headers={**(headers or {}), STATUS_HEADER: str(status_code)}
+        )
     return JSONResponse(body, status_code=status_code, headers=headers)
 
 
@@ -118,9 +120,13 @@ class SharedErrorDocs:
                     continue
                 responses = operation.setdefault("responses", {})
                 for code in sorted(codes):
-                    responses.setdefault(str(code), {
-                        "description": _DOCS[code],
-                        "content": {"application/json": {"schema": ref}}})
+                    responses.setdefault(
+                        str(code),
+                        {
+                            "description": _DOCS[code],
+                            "content": {"application/json": {"schema": ref}},
+                        },
+                    )
             return schema
 
         application.openapi = openapi  # type: ignore[method-assign]
@@ -134,8 +140,13 @@ def _too_big(where: str, values: Any, limit: int) -> list[dict[str, Any]]:
         except (TypeError, ValueError):
             continue
         if abs(number) > limit:
-            out.append({"loc": [where, name], "msg": f"{number} is out of range: at most "
-                        f"{limit} in size", "type": "out_of_range"})
+            out.append(
+                {
+                    "loc": [where, name],
+                    "msg": f"{number} is out of range: at most {limit} in size",
+                    "type": "out_of_range",
+                }
+            )
     return out
 
 
@@ -145,13 +156,19 @@ async def value_out_of_range(request: Request, exc: Exception) -> JSONResponse:
     columns at 2**31 - 1 (a DataError, as is a text too long for its column). URL parameters
     past the limit are named; otherwise the database's own words say what did not fit."""
     limit = MAX_DB_INT if request.app.state.settings.is_sqlite else MAX_PG_INT
-    errors = (_too_big("path", request.path_params, limit)
-              + _too_big("query", request.query_params, limit))
+    errors = _too_big("path", request.path_params, limit) + _too_big(
+        "query", request.query_params, limit
+    )
     if not errors:
         orig = getattr(exc, "orig", None) or exc
         first = str(orig).strip().splitlines()[0] if str(orig).strip() else type(orig).__name__
-        errors = [{"loc": ["body"], "msg": f"a value does not fit the database: {first}",
-                   "type": "out_of_range"}]
+        errors = [
+            {
+                "loc": ["body"],
+                "msg": f"a value does not fit the database: {first}",
+                "type": "out_of_range",
+            }
+        ]
     return JSONResponse({"detail": errors}, status_code=422)
 
 
@@ -163,14 +180,22 @@ def is_lock_timeout(exc: BaseException) -> bool:
     the busy timeout (a long import or many saves at once). Nothing was written."""
     orig = getattr(exc, "orig", None) or exc
     text = str(orig).lower()
-    return "database is locked" in text or "database table is locked" in text \
+    return (
+        "database is locked" in text
+        or "database table is locked" in text
         or "database is busy" in text
+    )
 
 
 def busy_answer(request: Request) -> JSONResponse:
     """503 with Retry-After: the request changed nothing and may be sent again as it is."""
     return JSONResponse(
-        {"detail": "the database is busy (another writer, such as a large import, holds it); "
-                   f"nothing was stored: send the request again in {BUSY_RETRY_SECONDS} s",
-         "kind": "busy", "retry_after": BUSY_RETRY_SECONDS},
-        status_code=503, headers={"Retry-After": str(BUSY_RETRY_SECONDS)})
+        {
+            "detail": "the database is busy (another writer, such as a large import, holds it); "
+            f"nothing was stored: send the request again in {BUSY_RETRY_SECONDS} s",
+            "kind": "busy",
+            "retry_after": BUSY_RETRY_SECONDS,
+        },
+        status_code=503,
+        headers={"Retry-After": str(BUSY_RETRY_SECONDS)},
+    )

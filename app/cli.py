@@ -40,9 +40,12 @@ PROGRESS_MIN = 300
 
 def data_dir_option(func: F) -> F:
     return click.option(
-        "--data-dir", type=click.Path(file_okay=False, path_type=Path), default=None,
+        "--data-dir",
+        type=click.Path(file_okay=False, path_type=Path),
+        default=None,
         help="Folder of the SQLite database, secret key and backups "
-             "[default: ./data or TREEWRIGHT_DATA_DIR].")(func)
+        "[default: ./data or TREEWRIGHT_DATA_DIR].",
+    )(func)
 
 
 def make_settings(data_dir: Path | None, **overrides: Any) -> Settings:
@@ -86,8 +89,9 @@ def corpus_named(db: Session, name: str) -> Corpus:
     corpus = db.scalar(select(Corpus).where(Corpus.name == " ".join(name.split())))
     if corpus is None:
         known = ", ".join(repr(n) for n in db.scalars(select(Corpus.name).order_by(Corpus.name)))
-        raise click.ClickException(f"no corpus named {name!r}"
-                                   + (f" (there are: {known})" if known else " (none yet)"))
+        raise click.ClickException(
+            f"no corpus named {name!r}" + (f" (there are: {known})" if known else " (none yet)")
+        )
     return corpus
 
 
@@ -96,9 +100,11 @@ class _Commands(click.Group):
     only when one of them runs or the command list is shown, since loading the parser (numba,
     NLTK) takes longer than most commands themselves."""
 
-    LAZY = {"train": ("parser.cli_parse", "train_command"),
-            "parse": ("parser.cli_parse", "parse_command"),
-            "score": ("parser.cli_score", "score")}
+    LAZY = {
+        "train": ("parser.cli_parse", "train_command"),
+        "parse": ("parser.cli_parse", "parse_command"),
+        "score": ("parser.cli_score", "score"),
+    }
 
     def list_commands(self, ctx: click.Context) -> list[str]:
         return sorted([*super().list_commands(ctx), *self.LAZY])
@@ -139,25 +145,40 @@ def _serve(settings: Settings, host: str, port: int, workers: int) -> None:
         upgrade_to_head(settings)  # once, before the workers race to do it
         # proxy headers as with one worker: X-Forwarded-For is believed from 127.0.0.1 only
         # (a reverse proxy on this machine), so the per-address login delay sees real clients
-        uvicorn.run("app.main:create_app", factory=True, host=host, port=port,
-                    workers=workers, log_level="info", proxy_headers=True)
+        uvicorn.run(
+            "app.main:create_app",
+            factory=True,
+            host=host,
+            port=port,
+            workers=workers,
+            log_level="info",
+            proxy_headers=True,
+        )
         return
     uvicorn.run(create_app(settings), host=host, port=port, log_level="info")
 
 
 @main.command()
 @click.option("--host", default=None, help="Address to bind [default: 127.0.0.1].")
-@click.option("--port", type=click.IntRange(1, 65535), default=None,
-              help="Port to listen on [default: 8000].")
-@click.option("--workers", type=click.IntRange(1, 64), default=1, show_default=True,
-              help="Worker processes (use more than one only with PostgreSQL).")
+@click.option(
+    "--port", type=click.IntRange(1, 65535), default=None, help="Port to listen on [default: 8000]."
+)
+@click.option(
+    "--workers",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker processes (use more than one only with PostgreSQL).",
+)
 @data_dir_option
 def serve(host: str | None, port: int | None, workers: int, data_dir: Path | None) -> None:
     """Run the web service."""
     settings = make_settings(data_dir, host=host, port=port)
     if workers > 1 and settings.is_sqlite:
-        click.echo("note: several workers on SQLite serialize every write; PostgreSQL is the "
-                   "better fit", err=True)
+        click.echo(
+            "note: several workers on SQLite serialize every write; PostgreSQL is the better fit",
+            err=True,
+        )
     _serve(settings, settings.host, settings.port, workers)
 
 
@@ -171,8 +192,9 @@ def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
         kept = None
         if keep_copy and path.exists():
             stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
-            kept = backup_sqlite(settings, settings.data_dir / "backups"
-                                 / f"before-demo-{stamp}.db").path
+            kept = backup_sqlite(
+                settings, settings.data_dir / "backups" / f"before-demo-{stamp}.db"
+            ).path
         for suffix in ("", "-wal", "-shm"):
             Path(str(path) + suffix).unlink(missing_ok=True)
         return kept
@@ -186,19 +208,31 @@ def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
 
 @main.command()
 @click.option("--host", default=None, help="Address to bind [default: 127.0.0.1].")
-@click.option("--port", type=click.IntRange(1, 65535), default=None,
-              help="Port to listen on [default: 8000].")
-@click.option("--force", is_flag=True,
-              help="Replace a database that is not a demo (a SQLite copy is kept in "
-                   "DATA_DIR/backups first).")
+@click.option(
+    "--port", type=click.IntRange(1, 65535), default=None, help="Port to listen on [default: 8000]."
+)
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace a database that is not a demo (a SQLite copy is kept in DATA_DIR/backups first).",
+)
 @click.option("--no-serve", is_flag=True, help="Load the demo and stop.")
-@click.option("--no-train", is_flag=True,
-              help="Skip training the first grammar (suggestions come after the first "
-                   "training). Otherwise it trains in the background while the pages are "
-                   "served (with --no-serve: in the foreground), its progress printed.")
+@click.option(
+    "--no-train",
+    is_flag=True,
+    help="Skip training the first grammar (suggestions come after the first "
+    "training). Otherwise it trains in the background while the pages are "
+    "served (with --no-serve: in the foreground), its progress printed.",
+)
 @data_dir_option
-def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_train: bool,
-         data_dir: Path | None) -> None:
+def demo(
+    host: str | None,
+    port: int | None,
+    force: bool,
+    no_serve: bool,
+    no_train: bool,
+    data_dir: Path | None,
+) -> None:
     """Load fresh demo data (invented ferry cooperative), print the logins, then serve."""
     from app.demo.loader import is_demo_database, load_demo
     from app.demo.progress import ESTIMATE, train_with_progress, watch_in_background
@@ -211,17 +245,23 @@ def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_tra
         raise click.ClickException(
             f"the database at {settings.resolved_database_url} holds data that is not the "
             "demo's; refusing to replace it. Use another --data-dir, or --force (a SQLite "
-            "copy is kept in DATA_DIR/backups first).")
+            "copy is kept in DATA_DIR/backups first)."
+        )
     kept = _wipe(settings, keep_copy=not demo_db)
     if kept:
         click.echo(f"kept a copy of the previous database: {kept}")
     with open_db(settings) as db, friendly_errors():
         summary = load_demo(db, train=False)
-        version_id = None if no_train else request_training(
-            db, summary.corpus_id, reason="demo: first grammar").id
-    click.echo(f"demo loaded: {summary.gold} gold trees and {summary.queued} sentences to "
-               f"annotate in {len(summary.documents)} documents "
-               f"({summary.assignments} assignments)")
+        version_id = (
+            None
+            if no_train
+            else request_training(db, summary.corpus_id, reason="demo: first grammar").id
+        )
+    click.echo(
+        f"demo loaded: {summary.gold} gold trees and {summary.queued} sentences to "
+        f"annotate in {len(summary.documents)} documents "
+        f"({summary.assignments} assignments)"
+    )
     click.echo("Demo logins (passwords are new on every `treewright demo`):")
     for username, role, password in summary.logins:
         click.echo(f"  {username:<10} {role:<12} {password:<18} {DEMO_DUTIES.get(role, '')}")
@@ -233,8 +273,10 @@ def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_tra
     if no_serve:
         train_with_progress(settings, version_id, click.echo)
         return
-    click.echo("The pages are served meanwhile; until the grammar is ready the Bench starts "
-               "from a flat tree and says that suggestions arrive when it is.")
+    click.echo(
+        "The pages are served meanwhile; until the grammar is ready the Bench starts "
+        "from a flat tree and says that suggestions arrive when it is."
+    )
     watch_in_background(settings, version_id, click.echo)
     _serve(settings, settings.host, settings.port, 1)
 
@@ -242,10 +284,10 @@ def demo(host: str | None, port: int | None, force: bool, no_serve: bool, no_tra
 #: What each demo login is for, printed beside it.
 DEMO_DUTIES = {
     "admin": "the adjudicator of this demo: settles disagreements on Review (the other two "
-             "annotate every sentence); also corpora, imports and users",
+    "annotate every sentence); also corpora, imports and users",
     "annotator": "annotates on the Bench",
     "adjudicator": "annotates; adjudicates only sentences it did not annotate while another "
-                   "adjudicator exists (corpus setting)",
+    "adjudicator exists (corpus setting)",
 }
 
 
@@ -275,30 +317,59 @@ class _Bar:
 
 
 @main.command("import")
-@click.argument("files", nargs=-1, required=True,
-                type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@click.option("--corpus", "corpus_name", required=True,
-              help="Corpus to import into (made when missing).")
-@click.option("--document", "document_name", default=None,
-              help="Document name [default: each file's name without extension].")
-@click.option("--as", "kind", type=click.Choice(["text", "gold", "annotation"]),
-              default="text", show_default=True,
-              help="text: one sentence per line, queued; gold: bracketed trees as gold; "
-                   "annotation: bracketed trees as --annotator's submitted annotations.")
+@click.argument(
+    "files", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path)
+)
+@click.option(
+    "--corpus", "corpus_name", required=True, help="Corpus to import into (made when missing)."
+)
+@click.option(
+    "--document",
+    "document_name",
+    default=None,
+    help="Document name [default: each file's name without extension].",
+)
+@click.option(
+    "--as",
+    "kind",
+    type=click.Choice(["text", "gold", "annotation"]),
+    default="text",
+    show_default=True,
+    help="text: one sentence per line, queued; gold: bracketed trees as gold; "
+    "annotation: bracketed trees as --annotator's submitted annotations.",
+)
 @click.option("--annotator", default=None, help="User name for --as annotation.")
-@click.option("--tokenizer", type=click.Choice(["whitespace", "treebank"]),
-              default="whitespace", show_default=True,
-              help="How text lines are split into tokens (treebank: NLTK's Treebank-style "
-                   "word tokenizer).")
-@click.option("--skip-duplicates", is_flag=True,
-              help="Leave out sentences already in the file or the corpus (default: import "
-                   "them and report them).")
-@click.option("--assign", "do_assign", is_flag=True,
-              help="Afterwards, assign the corpus's open sentences to the team.")
+@click.option(
+    "--tokenizer",
+    type=click.Choice(["whitespace", "treebank"]),
+    default="whitespace",
+    show_default=True,
+    help="How text lines are split into tokens (treebank: NLTK's Treebank-style word tokenizer).",
+)
+@click.option(
+    "--skip-duplicates",
+    is_flag=True,
+    help="Leave out sentences already in the file or the corpus (default: import "
+    "them and report them).",
+)
+@click.option(
+    "--assign",
+    "do_assign",
+    is_flag=True,
+    help="Afterwards, assign the corpus's open sentences to the team.",
+)
 @data_dir_option
-def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str | None,
-                   kind: str, annotator: str | None, tokenizer: str, skip_duplicates: bool,
-                   do_assign: bool, data_dir: Path | None) -> None:
+def import_command(
+    files: tuple[Path, ...],
+    corpus_name: str,
+    document_name: str | None,
+    kind: str,
+    annotator: str | None,
+    tokenizer: str,
+    skip_duplicates: bool,
+    do_assign: bool,
+    data_dir: Path | None,
+) -> None:
     """Import sentences or bracketed trees; each file is stored whole or not at all."""
     from app.services.assignment import assign_sentences
     from app.services.staged_import import import_path
@@ -313,10 +384,17 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
             bar = _Bar(path.name)
             try:
                 with friendly_errors():
-                    result = import_path(db, path, corpus_name=corpus_name, kind=kind,
-                                         document_name=document_name or path.stem,
-                                         tokenizer=tokenizer, annotator=annotator,
-                                         skip_duplicates=skip_duplicates, progress=bar)
+                    result = import_path(
+                        db,
+                        path,
+                        corpus_name=corpus_name,
+                        kind=kind,
+                        document_name=document_name or path.stem,
+                        tokenizer=tokenizer,
+                        annotator=annotator,
+                        skip_duplicates=skip_duplicates,
+                        progress=bar,
+                    )
             finally:
                 bar.close()
             click.echo(f"{path.name}: {result.summary()}")
@@ -334,21 +412,46 @@ def import_command(files: tuple[Path, ...], corpus_name: str, document_name: str
 @main.command("export")
 @click.option("--corpus", "corpus_name", required=True, help="Corpus whose gold to export.")
 @click.option("--document", "document_name", default=None, help="Only this document.")
-@click.option("--strip-function-tags", is_flag=True,
-              help="Write NP-SBJ-1 as NP (labels such as -LRB- stay whole).")
-@click.option("--split", "ratios", default=None, metavar="TRAIN/DEV/TEST",
-              help="Split into train, dev and test files by these ratios, e.g. 80/10/10.")
+@click.option(
+    "--strip-function-tags",
+    is_flag=True,
+    help="Write NP-SBJ-1 as NP (labels such as -LRB- stay whole).",
+)
+@click.option(
+    "--split",
+    "ratios",
+    default=None,
+    metavar="TRAIN/DEV/TEST",
+    help="Split into train, dev and test files by these ratios, e.g. 80/10/10.",
+)
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of the split.")
-@click.option("--by", type=click.Choice(["document", "sentence"]), default="document",
-              show_default=True, help="Keep documents whole, or shuffle sentences.")
-@click.option("--out", type=click.Path(path_type=Path), default=None,
-              help="Output file (without --split; default: standard output) or folder "
-                   "(with --split; default: the current folder).")
+@click.option(
+    "--by",
+    type=click.Choice(["document", "sentence"]),
+    default="document",
+    show_default=True,
+    help="Keep documents whole, or shuffle sentences.",
+)
+@click.option(
+    "--out",
+    type=click.Path(path_type=Path),
+    default=None,
+    help="Output file (without --split; default: standard output) or folder "
+    "(with --split; default: the current folder).",
+)
 @click.option("--zip", "as_zip", is_flag=True, help="With --split: write one .zip file.")
 @data_dir_option
-def export_command(corpus_name: str, document_name: str | None, strip_function_tags: bool,
-                   ratios: str | None, seed: int, by: str, out: Path | None, as_zip: bool,
-                   data_dir: Path | None) -> None:
+def export_command(
+    corpus_name: str,
+    document_name: str | None,
+    strip_function_tags: bool,
+    ratios: str | None,
+    seed: int,
+    by: str,
+    out: Path | None,
+    as_zip: bool,
+    data_dir: Path | None,
+) -> None:
     """Export gold trees as bracketed text, one tree per line."""
     from sqlalchemy import select
 
@@ -360,15 +463,30 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
         corpus = corpus_named(db, corpus_name)
         document_id = None
         if document_name:
-            document_id = db.scalar(select(Document.id).where(
-                Document.corpus_id == corpus.id, Document.name == document_name))
+            document_id = db.scalar(
+                select(Document.id).where(
+                    Document.corpus_id == corpus.id, Document.name == document_name
+                )
+            )
             if document_id is None:
                 raise click.ClickException(f"no document {document_name!r} in {corpus.name!r}")
         split = SplitSpec(parse_ratios(ratios), seed=seed, by=by) if ratios else None
-        result = export_gold(db, corpus.id, document_id=document_id,
-                             function_tags=not strip_function_tags, split=split)
-        record_export(db, corpus.id, result, user=None, document_id=document_id, split=split,
-                      function_tags=not strip_function_tags)
+        result = export_gold(
+            db,
+            corpus.id,
+            document_id=document_id,
+            function_tags=not strip_function_tags,
+            split=split,
+        )
+        record_export(
+            db,
+            corpus.id,
+            result,
+            user=None,
+            document_id=document_id,
+            split=split,
+            function_tags=not strip_function_tags,
+        )
     for warning in result.warnings:
         click.echo(f"warning: {warning}", err=True)
     if split is None and not as_zip:
@@ -384,8 +502,9 @@ def export_command(corpus_name: str, document_name: str | None, strip_function_t
         target = folder if folder.suffix == ".zip" else folder / f"{slug(corpus.name)}-gold.zip"
         target.parent.mkdir(parents=True, exist_ok=True)
         target.write_bytes(result.zip_bytes())
-        click.echo(f"wrote {target}: " + ", ".join(f"{n} ({c} trees)"
-                                                   for n, c in result.counts.items()))
+        click.echo(
+            f"wrote {target}: " + ", ".join(f"{n} ({c} trees)" for n, c in result.counts.items())
+        )
         return
     folder.mkdir(parents=True, exist_ok=True)
     for name, text in result.files.items():
@@ -404,17 +523,37 @@ def _marked(words: list[str], start: int, end: int) -> str:
 @main.command("search")
 @click.argument("pattern")
 @click.option("--corpus", "corpus_name", required=True, help="Corpus to search.")
-@click.option("--in", "scope", type=click.Choice(["gold", "annotations", "sentences"]),
-              default="gold", show_default=True,
-              help="The gold trees, every annotation's newest tree, or the sentences' words.")
+@click.option(
+    "--in",
+    "scope",
+    type=click.Choice(["gold", "annotations", "sentences"]),
+    default="gold",
+    show_default=True,
+    help="The gold trees, every annotation's newest tree, or the sentences' words.",
+)
 @click.option("--state", default=None, help="Only sentences in this state (e.g. gold, queued).")
-@click.option("--limit", type=click.IntRange(1, 200), default=20, show_default=True,
-              help="Show this many matches (the count is always complete).")
-@click.option("--bracketed", is_flag=True,
-              help="Print every matching tree as one-line bracketed text instead.")
+@click.option(
+    "--limit",
+    type=click.IntRange(1, 200),
+    default=20,
+    show_default=True,
+    help="Show this many matches (the count is always complete).",
+)
+@click.option(
+    "--bracketed",
+    is_flag=True,
+    help="Print every matching tree as one-line bracketed text instead.",
+)
 @data_dir_option
-def search_command(pattern: str, corpus_name: str, scope: str, state: str | None, limit: int,
-                   bracketed: bool, data_dir: Path | None) -> None:
+def search_command(
+    pattern: str,
+    corpus_name: str,
+    scope: str,
+    state: str | None,
+    limit: int,
+    bracketed: bool,
+    data_dir: Path | None,
+) -> None:
     """Find sentences by a word string (* for any word) or a bracketed fragment with holes,
     e.g. '(VP ... (PP on (NP ...)))'; the README describes the patterns."""
     from app.services import search as svc
@@ -422,16 +561,18 @@ def search_command(pattern: str, corpus_name: str, scope: str, state: str | None
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         corpus = corpus_named(db, corpus_name)
         if bracketed:
-            click.echo(svc.export_text(db, corpus, None, pattern, scope=scope, state=state),
-                       nl=False)
+            click.echo(
+                svc.export_text(db, corpus, None, pattern, scope=scope, state=state), nl=False
+            )
             return
-        found = svc.search(db, corpus, None, pattern, scope=scope, state=state,
-                           per_page=limit)
+        found = svc.search(db, corpus, None, pattern, scope=scope, state=state, per_page=limit)
     for hit in found.hits:
         who = f" ({hit.annotator})" if hit.annotator else ""
         start, end = hit.spans[0]
-        click.echo(f"{hit.sentence_id:>6}  {hit.document}:{hit.position + 1} [{hit.state}]{who}"
-                   f"  {_marked(hit.words, start, end)}")
+        click.echo(
+            f"{hit.sentence_id:>6}  {hit.document}:{hit.position + 1} [{hit.state}]{who}"
+            f"  {_marked(hit.words, start, end)}"
+        )
     shown = f"; {len(found.hits)} shown" if found.total > len(found.hits) else ""
     click.echo(f"{plural(found.total, 'match', 'matches')}{shown}", err=True)
 
@@ -446,22 +587,36 @@ def reference() -> None:
 @click.option("--corpus", "corpus_name", required=True, help="Corpus that trains on the trees.")
 @click.option("--name", required=True, help="A name for the set, e.g. 'open web treebank'.")
 @click.option("--source", default="", help="Where the trees come from (a citation, a URL).")
-@click.option("--licence-file", type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              required=True, help="A text file with the trees' licence (shown on Grammars).")
+@click.option(
+    "--licence-file",
+    type=click.Path(exists=True, dir_okay=False, path_type=Path),
+    required=True,
+    help="A text file with the trees' licence (shown on Grammars).",
+)
 @data_dir_option
-def reference_add(file: Path, corpus_name: str, name: str, source: str, licence_file: Path,
-                  data_dir: Path | None) -> None:
+def reference_add(
+    file: Path, corpus_name: str, name: str, source: str, licence_file: Path, data_dir: Path | None
+) -> None:
     """Add a bracketed file as a reference set of a corpus (stored whole or not at all)."""
     from app.services import reference as svc
 
     licence = licence_file.read_text(encoding="utf-8", errors="replace")
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         corpus = corpus_named(db, corpus_name)
-        added = svc.add_reference(db, corpus.id, file.read_bytes(), name=name, source=source,
-                                  licence=licence, filename=file.name)
-    click.echo(f"reference set {added.name!r} of corpus {corpus_name!r}: "
-               f"{plural(added.trees, 'tree')}, {plural(added.words, 'word')}; "
-               "the next grammar version trains on it")
+        added = svc.add_reference(
+            db,
+            corpus.id,
+            file.read_bytes(),
+            name=name,
+            source=source,
+            licence=licence,
+            filename=file.name,
+        )
+    click.echo(
+        f"reference set {added.name!r} of corpus {corpus_name!r}: "
+        f"{plural(added.trees, 'tree')}, {plural(added.words, 'word')}; "
+        "the next grammar version trains on it"
+    )
 
 
 @reference.command("list")
@@ -476,25 +631,55 @@ def reference_list(corpus_name: str, data_dir: Path | None) -> None:
     if not sets:
         click.echo("no reference sets")
     for r in sets:
-        click.echo(f"{r.id:>4}  {r.name}  ({plural(r.trees, 'tree')}; "
-                   f"{'in use' if r.in_use else 'not used'})  {r.source}")
+        click.echo(
+            f"{r.id:>4}  {r.name}  ({plural(r.trees, 'tree')}; "
+            f"{'in use' if r.in_use else 'not used'})  {r.source}"
+        )
 
 
 @main.command("findings")
 @click.option("--corpus", "corpus_name", required=True, help="Corpus whose findings to show.")
-@click.option("--run", "run_first", is_flag=True,
-              help="Run the finder now (in this process) before showing its findings.")
-@click.option("--with-annotations", is_flag=True,
-              help="With --run: also read submitted annotations of sentences not yet gold.")
-@click.option("--state", type=click.Choice(["open", "fine_as_is", "reopened"]),
-              default="open", show_default=True, help="Which findings to show.")
-@click.option("--kind", type=click.Choice(["bracket", "tag", "rule"]), default=None,
-              help="Only findings of this kind.")
-@click.option("--limit", type=click.IntRange(1, 200), default=20, show_default=True,
-              help="Show the most suspicious N.")
+@click.option(
+    "--run",
+    "run_first",
+    is_flag=True,
+    help="Run the finder now (in this process) before showing its findings.",
+)
+@click.option(
+    "--with-annotations",
+    is_flag=True,
+    help="With --run: also read submitted annotations of sentences not yet gold.",
+)
+@click.option(
+    "--state",
+    type=click.Choice(["open", "fine_as_is", "reopened"]),
+    default="open",
+    show_default=True,
+    help="Which findings to show.",
+)
+@click.option(
+    "--kind",
+    type=click.Choice(["bracket", "tag", "rule"]),
+    default=None,
+    help="Only findings of this kind.",
+)
+@click.option(
+    "--limit",
+    type=click.IntRange(1, 200),
+    default=20,
+    show_default=True,
+    help="Show the most suspicious N.",
+)
 @data_dir_option
-def findings_command(corpus_name: str, run_first: bool, with_annotations: bool, state: str,
-                     kind: str | None, limit: int, data_dir: Path | None) -> None:
+def findings_command(
+    corpus_name: str,
+    run_first: bool,
+    with_annotations: bool,
+    state: str,
+    kind: str | None,
+    limit: int,
+    data_dir: Path | None,
+) -> None:
     """Print the inconsistencies the finder found in a corpus, most suspicious first, each with
     its occurrences (sentence id, marked words, analysis, who settled it)."""
     from app.services import findings as svc
@@ -502,13 +687,16 @@ def findings_command(corpus_name: str, run_first: bool, with_annotations: bool, 
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         corpus = corpus_named(db, corpus_name)
         if run_first:
-            run = svc.run_now(db, corpus.id, reason="from the command line",
-                              with_annotations=with_annotations)
-            click.echo(f"run {run.id}: {run.status}, {run.message} "
-                       f"({run.seconds or 0:.1f} s)", err=True)
+            run = svc.run_now(
+                db, corpus.id, reason="from the command line", with_annotations=with_annotations
+            )
+            click.echo(
+                f"run {run.id}: {run.status}, {run.message} ({run.seconds or 0:.1f} s)", err=True
+            )
         page = svc.finding_page(db, corpus.id, state=state, kind=kind, per_page=limit)
-        words = svc.sentence_words(db, [o["sentence"] for e in page.entries
-                                        for o in e.row.occurrences])
+        words = svc.sentence_words(
+            db, [o["sentence"] for e in page.entries for o in e.row.occurrences]
+        )
     if page.run is None:
         raise click.ClickException(f"the finder has not run on {corpus_name!r} yet; add --run")
     for entry in page.entries:
@@ -516,11 +704,15 @@ def findings_command(corpus_name: str, run_first: bool, with_annotations: bool, 
         click.echo(f"#{f.rank}  [{f.kind}]  {f.summary}  (score {f.score:.2f})")
         for o in f.occurrences:
             analysis = o["analysis"] or "(no constituent)"
-            click.echo(f"    {o['sentence']:>6}  {analysis:<14} {o['by']:<12} "
-                       f"{_marked(words.get(o['sentence'], []), o['start'], o['end'])}")
-    click.echo(f"{plural(page.total, state.replace('_', ' ') + ' finding')}"
-               f"{f'; {len(page.entries)} shown' if page.total > len(page.entries) else ''}",
-               err=True)
+            click.echo(
+                f"    {o['sentence']:>6}  {analysis:<14} {o['by']:<12} "
+                f"{_marked(words.get(o['sentence'], []), o['start'], o['end'])}"
+            )
+    click.echo(
+        f"{plural(page.total, state.replace('_', ' ') + ' finding')}"
+        f"{f'; {len(page.entries)} shown' if page.total > len(page.entries) else ''}",
+        err=True,
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -544,14 +736,20 @@ def corpus_list(data_dir: Path | None) -> None:
         click.echo("no corpora yet")
     for row in rows:
         states = ", ".join(f"{state} {n}" for state, n in row.states.items())
-        click.echo(f"{row.corpus.id:>4}  {row.corpus.name}  ({row.sentences} sentences: "
-                   f"{states}; gold trees {row.gold})")
+        click.echo(
+            f"{row.corpus.id:>4}  {row.corpus.name}  ({row.sentences} sentences: "
+            f"{states}; gold trees {row.gold})"
+        )
 
 
 @corpus.command("remove")
 @click.argument("name")
-@click.option("--confirm", "typed", prompt="Type the corpus name to confirm its removal",
-              help="The corpus name again, to confirm.")
+@click.option(
+    "--confirm",
+    "typed",
+    prompt="Type the corpus name to confirm its removal",
+    help="The corpus name again, to confirm.",
+)
 @data_dir_option
 def corpus_remove(name: str, typed: str, data_dir: Path | None) -> None:
     """Remove a corpus and everything in it (asks for its name as confirmation)."""
@@ -565,21 +763,31 @@ def corpus_remove(name: str, typed: str, data_dir: Path | None) -> None:
 
 @main.command()
 @click.option("--corpus", "corpus_name", required=True, help="Corpus whose sentences to assign.")
-@click.option("--per-sentence", type=click.IntRange(1, 10), default=None,
-              help="Annotators per sentence [default: the corpus setting].")
-@click.option("--user", "usernames", multiple=True,
-              help="Assign only to these users (repeatable) [default: every active "
-                   "annotator and adjudicator].")
+@click.option(
+    "--per-sentence",
+    type=click.IntRange(1, 10),
+    default=None,
+    help="Annotators per sentence [default: the corpus setting].",
+)
+@click.option(
+    "--user",
+    "usernames",
+    multiple=True,
+    help="Assign only to these users (repeatable) [default: every active "
+    "annotator and adjudicator].",
+)
 @data_dir_option
-def assign(corpus_name: str, per_sentence: int | None, usernames: tuple[str, ...],
-           data_dir: Path | None) -> None:
+def assign(
+    corpus_name: str, per_sentence: int | None, usernames: tuple[str, ...], data_dir: Path | None
+) -> None:
     """Give every open sentence its annotators, balanced across the team."""
     from app.services.assignment import assign_sentences
 
     with open_db(make_settings(data_dir)) as db, friendly_errors():
         target = corpus_named(db, corpus_name)
-        result = assign_sentences(db, target.id, per_sentence=per_sentence,
-                                  usernames=list(usernames) or None)
+        result = assign_sentences(
+            db, target.id, per_sentence=per_sentence, usernames=list(usernames) or None
+        )
     click.echo(result.summary())
     for username, n in sorted(result.per_user.items()):
         click.echo(f"  {username}: {n}")
@@ -608,12 +816,21 @@ def _password(value: str | None, generate: bool) -> tuple[str, bool]:
 @click.argument("username")
 @click.option("--role", type=click.Choice(ROLES), default="annotator", show_default=True)
 @click.option("--display-name", default="", help="Name shown on the pages.")
-@click.option("--password", default=None,
-              help="The password (prefer the prompt: a command line can be seen by others).")
+@click.option(
+    "--password",
+    default=None,
+    help="The password (prefer the prompt: a command line can be seen by others).",
+)
 @click.option("--generate", is_flag=True, help="Make up a password and print it.")
 @data_dir_option
-def user_add(username: str, role: str, display_name: str, password: str | None,
-             generate: bool, data_dir: Path | None) -> None:
+def user_add(
+    username: str,
+    role: str,
+    display_name: str,
+    password: str | None,
+    generate: bool,
+    data_dir: Path | None,
+) -> None:
     """Create an account."""
     from app.services.users import create_user
 
@@ -677,8 +894,9 @@ def user_enable(username: str, data_dir: Path | None) -> None:
 @click.option("--password", default=None, help="The new password (default: prompt).")
 @click.option("--generate", is_flag=True, help="Make up a password and print it.")
 @data_dir_option
-def user_set_password(username: str, password: str | None, generate: bool,
-                      data_dir: Path | None) -> None:
+def user_set_password(
+    username: str, password: str | None, generate: bool, data_dir: Path | None
+) -> None:
     """Set a new password; the account's sessions end."""
     from app.services.users import set_password, user_by_name
 
@@ -693,8 +911,12 @@ def user_set_password(username: str, password: str | None, generate: bool,
 
 
 @main.command()
-@click.option("--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="Backup file [default: DATA_DIR/backups/treewright-<time>.db].")
+@click.option(
+    "--out",
+    type=click.Path(dir_okay=False, path_type=Path),
+    default=None,
+    help="Backup file [default: DATA_DIR/backups/treewright-<time>.db].",
+)
 @data_dir_option
 def backup(out: Path | None, data_dir: Path | None) -> None:
     """Write a consistent copy of the live SQLite database (safe while serving)."""
@@ -719,8 +941,7 @@ def restore(source: Path, yes: bool, data_dir: Path | None) -> None:
 
     settings = make_settings(data_dir)
     if not yes:
-        click.confirm(f"Replace the database in {settings.data_dir} with {source}?",
-                      abort=True)
+        click.confirm(f"Replace the database in {settings.data_dir} with {source}?", abort=True)
     with friendly_errors():
         safety, live = restore_sqlite(settings, source)
     if safety:

@@ -40,9 +40,11 @@ class QueueOrder(StrEnum):
 
 
 #: The choices of each setting that takes one of a few words.
-CHOICES: dict[str, type[StrEnum]] = {"unknown_label_policy": LabelPolicy,
-                                     "settle_own_annotation": SettleOwnPolicy,
-                                     "queue_order": QueueOrder}
+CHOICES: dict[str, type[StrEnum]] = {
+    "unknown_label_policy": LabelPolicy,
+    "settle_own_annotation": SettleOwnPolicy,
+    "queue_order": QueueOrder,
+}
 #: The value of ``reference_weight`` that lets held-out F1 choose the weighting.
 AUTO_WEIGHT = "auto"
 
@@ -53,60 +55,83 @@ class CorpusSettings(BaseModel):
     model_config = ConfigDict(extra="ignore", frozen=True, allow_inf_nan=False)
 
     annotators_per_sentence: int = Field(
-        2, ge=1, le=10, description="How many people annotate each sentence blind.")
+        2, ge=1, le=10, description="How many people annotate each sentence blind."
+    )
     auto_gold_when_identical: bool = Field(
-        True, description="Identical submitted trees become gold without review.")
+        True, description="Identical submitted trees become gold without review."
+    )
     retrain_every: int = Field(
-        25, ge=0, le=100_000,
-        description="Train the next grammar after this many new gold trees (0: only on demand).")
+        25,
+        ge=0,
+        le=100_000,
+        description="Train the next grammar after this many new gold trees (0: only on demand).",
+    )
     max_f1_drop: float = Field(
-        0.01, ge=0.0, le=1.0,
+        0.01,
+        ge=0.0,
+        le=1.0,
         description="A new grammar becomes active unless its held-out F1 is lower by more "
-                    "than this.")
+        "than this.",
+    )
     heldout_every: int = Field(
-        10, ge=2, le=1000, description="Every n-th gold tree is held out to score a new grammar.")
+        10, ge=2, le=1000, description="Every n-th gold tree is held out to score a new grammar."
+    )
     unknown_label_policy: LabelPolicy = Field(
         LabelPolicy.CONFIRM,
-        description="A label outside the label set: 'confirm' asks, 'refuse' rejects.")
+        description="A label outside the label set: 'confirm' asks, 'refuse' rejects.",
+    )
     settle_own_annotation: SettleOwnPolicy = Field(
         SettleOwnPolicy.IF_ALONE,
         description="An adjudicator settling a sentence they annotated: 'if_alone' only when "
-                    "no other adjudicator or admin exists, 'always', or 'never'. Always "
-                    "recorded in the gold history.")
+        "no other adjudicator or admin exists, 'always', or 'never'. Always "
+        "recorded in the gold history.",
+    )
     gold_visible_to_annotators: bool = Field(
-        True, description="Annotators may search the gold trees (they always see their own "
-                          "work, never another annotator's).")
+        True,
+        description="Annotators may search the gold trees (they always see their own "
+        "work, never another annotator's).",
+    )
     retrain_every_early: int = Field(
-        10, ge=0, le=100_000,
+        10,
+        ge=0,
+        le=100_000,
         description="While the corpus has fewer gold trees than early_gold_limit, train after "
-                    "this many new gold trees instead (0: always use retrain_every).")
+        "this many new gold trees instead (0: always use retrain_every).",
+    )
     early_gold_limit: int = Field(
-        200, ge=0, le=1_000_000,
-        description="Gold trees up to which retrain_every_early applies.")
+        200, ge=0, le=1_000_000, description="Gold trees up to which retrain_every_early applies."
+    )
     reference_weight: str = Field(
         AUTO_WEIGHT,
         description="How much an in-domain gold tree counts against the reference trees: "
-                    "'auto' (the best of a small grid by held-out F1 once 20 gold trees are "
-                    "held out, a measured default before), a number (e.g. 5) or "
-                    "'rules=N,lexicon=N'.")
+        "'auto' (the best of a small grid by held-out F1 once 20 gold trees are "
+        "held out, a measured default before), a number (e.g. 5) or "
+        "'rules=N,lexicon=N'.",
+    )
     queue_order: QueueOrder = Field(
         QueueOrder.DOCUMENT,
         description="'document': sentences in document order; 'informative': the sentences "
-                    "the active grammar is least sure of first, ranked each time a grammar "
-                    "version becomes active (both annotators of a sentence get it at the same "
-                    "place).")
+        "the active grammar is least sure of first, ranked each time a grammar "
+        "version becomes active (both annotators of a sentence get it at the same "
+        "place).",
+    )
     visible_to_everyone: bool = Field(
-        False, description="Every account may read this corpus: its sentences, who is assigned "
-                           "to them and its agreement log. Otherwise only its members: the "
-                           "annotators assigned in it, adjudicators and admins.")
+        False,
+        description="Every account may read this corpus: its sentences, who is assigned "
+        "to them and its agreement log. Otherwise only its members: the "
+        "annotators assigned in it, adjudicators and admins.",
+    )
     keep_grammars: int = Field(
-        5, ge=0, le=10_000,
+        5,
+        ge=0,
+        le=10_000,
         description="Saved grammars kept besides the active one (the newest); older versions "
-                    "keep their record and scores but not the grammar itself (0: keep all).")
+        "keep their record and scores but not the grammar itself (0: keep all).",
+    )
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
-        False, description="The label and tag sets grow with every bracketed import.")
-
+        False, description="The label and tag sets grow with every bracketed import."
+    )
 
     @field_validator("reference_weight")
     @classmethod
@@ -121,8 +146,7 @@ class CorpusSettings(BaseModel):
 
 
 #: The settings an admin edits on the corpus page, in the form's order.
-EDITABLE: tuple[str, ...] = tuple(k for k in CorpusSettings.model_fields
-                                  if k != "derive_inventory")
+EDITABLE: tuple[str, ...] = tuple(k for k in CorpusSettings.model_fields if k != "derive_inventory")
 
 
 class SettingError(ValueError):
@@ -160,13 +184,14 @@ def _message(key: str, raw: Any, error_type: str) -> str:
     if field.annotation is bool or error_type.startswith("bool"):
         return f"setting {key}: {raw!r} is not yes or no"
     if error_type == "enum":
-        return (f"setting {key}: {raw!r} is not one of "
-                f"{', '.join(p.value for p in CHOICES[key])}")
+        return f"setting {key}: {raw!r} is not one of {', '.join(p.value for p in CHOICES[key])}"
     if error_type in ("greater_than_equal", "less_than_equal"):
         return f"setting {key}: {raw} is outside {'..'.join(map(str, bounds(key)))}"
     if key == "reference_weight":
-        return (f"setting {key}: {raw!r} is not 'auto', a number or a weighting such as "
-                "'rules=2,lexicon=8'")
+        return (
+            f"setting {key}: {raw!r} is not 'auto', a number or a weighting such as "
+            "'rules=2,lexicon=8'"
+        )
     what = "an integer" if field.annotation is int else "a number"
     return f"setting {key}: {raw!r} is not {what}"
 
@@ -177,8 +202,7 @@ def checked_update(current: dict[str, Any] | None, changes: dict[str, Any]) -> d
     so a later change of a default still reaches corpora that never set the value."""
     for key in changes:
         if key not in EDITABLE:
-            raise SettingError(key, f"unknown corpus setting {key!r}; known: "
-                                    f"{', '.join(EDITABLE)}")
+            raise SettingError(key, f"unknown corpus setting {key!r}; known: {', '.join(EDITABLE)}")
     cleaned = {k: (v.strip() if isinstance(v, str) else v) for k, v in changes.items()}
     for key, value in cleaned.items():
         if CorpusSettings.model_fields[key].annotation is bool and value == "":

@@ -20,14 +20,20 @@ from __future__ import annotations
 
 from sqlalchemy import Connection, Engine, text
 
-TRIGGER_NAMES = ("tw_sentence_counts_insert", "tw_sentence_counts_delete",
-                 "tw_sentence_counts_update")
+TRIGGER_NAMES = (
+    "tw_sentence_counts_insert",
+    "tw_sentence_counts_delete",
+    "tw_sentence_counts_update",
+)
 
-_ADD = ("INSERT INTO sentence_counts (corpus_id, document_id, state, n) "
-        "VALUES ({r}.corpus_id, {r}.document_id, {r}.state, 1) "
-        "ON CONFLICT (document_id, state) DO UPDATE SET n = sentence_counts.n + 1")
-_REMOVE = ("UPDATE sentence_counts SET n = n - 1 "
-           "WHERE document_id = {r}.document_id AND state = {r}.state")
+_ADD = (
+    "INSERT INTO sentence_counts (corpus_id, document_id, state, n) "
+    "VALUES ({r}.corpus_id, {r}.document_id, {r}.state, 1) "
+    "ON CONFLICT (document_id, state) DO UPDATE SET n = sentence_counts.n + 1"
+)
+_REMOVE = (
+    "UPDATE sentence_counts SET n = n - 1 WHERE document_id = {r}.document_id AND state = {r}.state"
+)
 
 _SQLITE = [
     f"CREATE TRIGGER IF NOT EXISTS tw_sentence_counts_insert AFTER INSERT ON sentences "
@@ -45,10 +51,10 @@ _POSTGRES = [
     f"""CREATE OR REPLACE FUNCTION tw_sentence_counts() RETURNS trigger AS $$
 BEGIN
   IF TG_OP = 'DELETE' OR TG_OP = 'UPDATE' THEN
-    {_REMOVE.format(r='OLD')};
+    {_REMOVE.format(r="OLD")};
   END IF;
   IF TG_OP = 'INSERT' OR TG_OP = 'UPDATE' THEN
-    {_ADD.format(r='NEW')};
+    {_ADD.format(r="NEW")};
   END IF;
   RETURN NULL;
 END $$ LANGUAGE plpgsql""",
@@ -68,20 +74,27 @@ _POSTGRES_NAMES = ("tw_sentence_counts_insert", "tw_sentence_counts_update")
 def recount(conn: Connection) -> None:
     """Rebuild every count from the sentences (used after installing the triggers)."""
     conn.execute(text("DELETE FROM sentence_counts"))
-    conn.execute(text(
-        "INSERT INTO sentence_counts (corpus_id, document_id, state, n) "
-        "SELECT corpus_id, document_id, state, COUNT(*) FROM sentences "
-        "GROUP BY corpus_id, document_id, state"))
+    conn.execute(
+        text(
+            "INSERT INTO sentence_counts (corpus_id, document_id, state, n) "
+            "SELECT corpus_id, document_id, state, COUNT(*) FROM sentences "
+            "GROUP BY corpus_id, document_id, state"
+        )
+    )
 
 
 def installed(conn: Connection) -> bool:
     """Whether every count trigger exists."""
     if conn.dialect.name == "sqlite":
-        names = set(conn.execute(text(
-            "SELECT name FROM sqlite_master WHERE type = 'trigger'")).scalars())
+        names = set(
+            conn.execute(text("SELECT name FROM sqlite_master WHERE type = 'trigger'")).scalars()
+        )
         return set(TRIGGER_NAMES) <= names
-    names = set(conn.execute(text(
-        "SELECT tgname FROM pg_trigger WHERE tgrelid = 'sentences'::regclass")).scalars())
+    names = set(
+        conn.execute(
+            text("SELECT tgname FROM pg_trigger WHERE tgrelid = 'sentences'::regclass")
+        ).scalars()
+    )
     return set(_POSTGRES_NAMES) <= names
 
 
@@ -95,7 +108,7 @@ def ensure_triggers(engine: Engine) -> bool:
             conn.execute(text("SELECT pg_advisory_xact_lock(1729017)"))
             if installed(conn):
                 return False
-        for statement in (_SQLITE if conn.dialect.name == "sqlite" else _POSTGRES):
+        for statement in _SQLITE if conn.dialect.name == "sqlite" else _POSTGRES:
             conn.execute(text(statement))
         recount(conn)
     return True

@@ -31,8 +31,11 @@ def private_file(path: Path) -> Path:
     try:
         os.close(os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600))
     except FileExistsError:
-        for companion in (path, path.with_name(path.name + "-wal"),
-                          path.with_name(path.name + "-shm")):
+        for companion in (
+            path,
+            path.with_name(path.name + "-wal"),
+            path.with_name(path.name + "-shm"),
+        ):
             if companion.exists():
                 os.chmod(companion, 0o600)
     return path
@@ -72,9 +75,11 @@ def make_engine(settings: Settings) -> Engine:
     try:
         return create_engine(url, pool_pre_ping=True, pool_size=10, max_overflow=20)
     except ModuleNotFoundError as exc:  # e.g. psycopg, the optional extra "postgres"
-        raise RuntimeError(f"the database URL needs the driver {exc.name!r}, which is not "
-                           "installed; for PostgreSQL install Treewright with its 'postgres' "
-                           "extra (pip install 'treewright[postgres]')") from exc
+        raise RuntimeError(
+            f"the database URL needs the driver {exc.name!r}, which is not "
+            "installed; for PostgreSQL install Treewright with its 'postgres' "
+            "extra (pip install 'treewright[postgres]')"
+        ) from exc
 
 
 def alembic_config(settings: Settings) -> Config:

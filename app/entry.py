@@ -21,10 +21,12 @@ def parser_problem() -> str | None:
     if getattr(found, "IS_TREEWRIGHT_PARSER", False):
         return None
     where = getattr(found, "__file__", None) or "an unknown place"
-    return (f"the module 'parser' found at {where} is not Treewright's parser library: another "
-            "module of that name shadows it. Treewright's import names are 'app' and 'parser'; "
-            "install it as an application in a virtualenv of its own (or with pipx), and run it "
-            "from a folder without a parser.py or parser/ of its own.")
+    return (
+        f"the module 'parser' found at {where} is not Treewright's parser library: another "
+        "module of that name shadows it. Treewright's import names are 'app' and 'parser'; "
+        "install it as an application in a virtualenv of its own (or with pipx), and run it "
+        "from a folder without a parser.py or parser/ of its own."
+    )
 
 
 def run() -> None:

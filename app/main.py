@@ -40,9 +40,11 @@ from parser.errors import ParserError
 
 log = logging.getLogger(__name__)
 
-CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
-       "connect-src 'self'; font-src 'self'; object-src 'none'; base-uri 'none'; "
-       "form-action 'self'; frame-ancestors 'none'")
+CSP = (
+    "default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
+    "connect-src 'self'; font-src 'self'; object-src 'none'; base-uri 'none'; "
+    "form-action 'self'; frame-ancestors 'none'"
+)
 # FastAPI's interactive docs pages (/docs, /redoc) are switched off: they load their scripts
 # and fonts from CDNs into this origin and need inline script. The OpenAPI document itself is
 # at /openapi.json for any viewer or client generator.
@@ -58,6 +60,7 @@ class SecurityHeaders:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
+
         async def send_with_headers(message: Message) -> None:
             if message["type"] == "http.response.start":
                 headers = list(message.get("headers", []))
@@ -129,10 +132,17 @@ class _BodyTooLarge(Exception):
 
 
 async def _too_large(send: Send, limit: int) -> None:
-    body = (b'{"detail":"request body larger than the limit of %d bytes"}' % limit)
-    await send({"type": "http.response.start", "status": 413,
-                "headers": [(b"content-type", b"application/json"),
-                            (b"content-length", str(len(body)).encode())]})
+    body = b'{"detail":"request body larger than the limit of %d bytes"}' % limit
+    await send(
+        {
+            "type": "http.response.start",
+            "status": 413,
+            "headers": [
+                (b"content-type", b"application/json"),
+                (b"content-length", str(len(body)).encode()),
+            ],
+        }
+    )
     await send({"type": "http.response.body", "body": body})
 
 
@@ -155,8 +165,11 @@ def _error_page(request: Request, status: int, detail: Any) -> Any:
     from app.web import templates
 
     return templates.TemplateResponse(
-        request, "error.html", {"status": status, "detail": detail, "user": None,
-                                "csrf_token": ""}, status_code=status)
+        request,
+        "error.html",
+        {"status": status, "detail": detail, "user": None, "csrf_token": ""},
+        status_code=status,
+    )
 
 
 @asynccontextmanager
@@ -193,13 +206,16 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         lifespan=_startup_hooks,
         version="0.1.0",
         description="Build a constituency treebank with a parser in the loop. The JSON API "
-                    "below is what the pages use; it needs a login cookie and, for changes, "
-                    "the session's CSRF token in the X-CSRF-Token header.",
+        "below is what the pages use; it needs a login cookie and, for changes, "
+        "the session's CSRF token in the X-CSRF-Token header.",
     )
     application.state.settings = settings
     admission.configure(  # this process's parse pool (app.services.admission)
-        slots=settings.parse_slots, threads=settings.parse_threads,
-        wait=settings.parse_wait_seconds, max_words=settings.parse_max_words)
+        slots=settings.parse_slots,
+        threads=settings.parse_threads,
+        wait=settings.parse_wait_seconds,
+        max_words=settings.parse_max_words,
+    )
     application.state.engine = engine
     application.state.sessionmaker = make_sessionmaker(engine)
     application.mount("/static", StaticFiles(directory=str(STATIC_DIR)), name="static")
@@ -214,10 +230,12 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         page = _error_page(request, exc.status_code, exc.detail)
         if page is not None:
             return page
-        headers = {"Retry-After": str(exc.extra["retry_after"])} \
-            if "retry_after" in exc.extra else None
-        return refusal_answer(request, {"detail": exc.detail, **exc.extra}, exc.status_code,
-                              headers)
+        headers = (
+            {"Retry-After": str(exc.extra["retry_after"])} if "retry_after" in exc.extra else None
+        )
+        return refusal_answer(
+            request, {"detail": exc.detail, **exc.extra}, exc.status_code, headers
+        )
 
     for too_big in (OverflowError, DataError):  # a number or text the database cannot hold
         application.add_exception_handler(too_big, value_out_of_range)
@@ -225,19 +243,24 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
     @application.exception_handler(OperationalError)
     async def _busy(request: Request, exc: OperationalError) -> Any:
         if not is_lock_timeout(exc):
-            log.error("database error on %s %s", request.method, request.url.path,
-                      exc_info=exc)
+            log.error("database error on %s %s", request.method, request.url.path, exc_info=exc)
             return JSONResponse({"detail": "internal database error"}, status_code=500)
-        page = _error_page(request, 503, "The database is busy; nothing was stored. Try "
-                                         "again in a moment.")
+        page = _error_page(
+            request, 503, "The database is busy; nothing was stored. Try again in a moment."
+        )
         return page if page is not None else busy_answer(request)
 
     @application.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError) -> JSONResponse:
         errors: list[dict[str, Any]] = []
         for err in exc.errors():
-            errors.append({"loc": list(err.get("loc", ())), "msg": str(err.get("msg", "")),
-                           "type": str(err.get("type", ""))})
+            errors.append(
+                {
+                    "loc": list(err.get("loc", ())),
+                    "msg": str(err.get("msg", "")),
+                    "type": str(err.get("type", "")),
+                }
+            )
         return JSONResponse({"detail": errors}, status_code=422)
 
     @application.exception_handler(StarletteHTTPException)
@@ -245,8 +268,11 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         page = _error_page(request, exc.status_code, exc.detail)
         if page is not None:
             return page
-        return JSONResponse({"detail": exc.detail}, status_code=exc.status_code,
-                            headers=getattr(exc, "headers", None))
+        return JSONResponse(
+            {"detail": exc.detail},
+            status_code=exc.status_code,
+            headers=getattr(exc, "headers", None),
+        )
 
     application.add_middleware(BodySizeLimit, limit=settings.max_upload_bytes)
     application.add_middleware(SecurityHeaders)

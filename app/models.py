@@ -96,18 +96,40 @@ START_FLAT = "flat"
 START_KINDS = (START_CONSENSUS, START_BEST, START_FALLBACK, START_FLAT)
 
 # Where a revision's tree came from.
-REV_SOURCES = ("suggestion", "edit", "reparse", "alternative", "text", "import", "flat",
-               "restore", "tokens")
+REV_SOURCES = (
+    "suggestion",
+    "edit",
+    "reparse",
+    "alternative",
+    "text",
+    "import",
+    "flat",
+    "restore",
+    "tokens",
+)
 # the edit actions the Bench counts with each revision (Revision.actions)
-ACTION_KINDS = ("add", "remove", "relabel", "retag", "move", "edge", "pin", "reparse",
-                "reading", "text", "undo", "redo", "restore", "tokens")
+ACTION_KINDS = (
+    "add",
+    "remove",
+    "relabel",
+    "retag",
+    "move",
+    "edge",
+    "pin",
+    "reparse",
+    "reading",
+    "text",
+    "undo",
+    "redo",
+    "restore",
+    "tokens",
+)
 
 GV_QUEUED = GrammarStatus.QUEUED
 GV_TRAINING = GrammarStatus.TRAINING
 GV_READY = GrammarStatus.READY
 GV_REJECTED = GrammarStatus.REJECTED
 GV_FAILED = GrammarStatus.FAILED
-
 
 
 def utcnow() -> datetime:
@@ -169,13 +191,22 @@ class Corpus(Base):
     tag_set: Mapped[list[Any]] = mapped_column(JSON, default=list)
     settings: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
     active_grammar_id: Mapped[int | None] = mapped_column(
-        ForeignKey("grammar_versions.id", use_alter=True, name="fk_corpora_active_grammar",
-                   ondelete="SET NULL"), nullable=True)
+        ForeignKey(
+            "grammar_versions.id",
+            use_alter=True,
+            name="fk_corpora_active_grammar",
+            ondelete="SET NULL",
+        ),
+        nullable=True,
+    )
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
     documents: Mapped[list[Document]] = relationship(
-        back_populates="corpus", order_by="Document.position", cascade="all, delete-orphan",
-        passive_deletes=True)
+        back_populates="corpus",
+        order_by="Document.position",
+        cascade="all, delete-orphan",
+        passive_deletes=True,
+    )
 
     @property
     def options(self) -> CorpusSettings:
@@ -183,21 +214,22 @@ class Corpus(Base):
         return read_settings(self.settings)
 
 
-
 class Document(Base):
     __tablename__ = "documents"
     __table_args__ = (UniqueConstraint("corpus_id", "name"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     name: Mapped[str] = mapped_column(String(255))
     position: Mapped[int] = mapped_column(Integer, default=0)
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
     corpus: Mapped[Corpus] = relationship(back_populates="documents")
     sentences: Mapped[list[Sentence]] = relationship(
-        back_populates="document", order_by="Sentence.position", cascade="all, delete-orphan",
-        passive_deletes=True)
+        back_populates="document",
+        order_by="Sentence.position",
+        cascade="all, delete-orphan",
+        passive_deletes=True,
+    )
 
 
 class Sentence(Base):
@@ -205,14 +237,16 @@ class Sentence(Base):
     # Reading order is (document_id, position): a document's id grows with its position (both
     # are given at creation, never changed). The two indexes serve the corpus page's keyset
     # pages, with and without a state filter.
-    __table_args__ = (UniqueConstraint("document_id", "position"),
-                      Index("ix_sentences_corpus_order", "corpus_id", "document_id", "position"),
-                      Index("ix_sentences_corpus_state_order", "corpus_id", "state",
-                            "document_id", "position"))
+    __table_args__ = (
+        UniqueConstraint("document_id", "position"),
+        Index("ix_sentences_corpus_order", "corpus_id", "document_id", "position"),
+        Index("ix_sentences_corpus_state_order", "corpus_id", "state", "document_id", "position"),
+    )
     id: Mapped[int] = mapped_column(primary_key=True)
     corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"))
-    document_id: Mapped[int] = mapped_column(ForeignKey("documents.id", ondelete="CASCADE"),
-                                             index=True)
+    document_id: Mapped[int] = mapped_column(
+        ForeignKey("documents.id", ondelete="CASCADE"), index=True
+    )
     position: Mapped[int] = mapped_column(Integer)
     tokens: Mapped[list[Any]] = mapped_column(JSON)
     text: Mapped[str] = mapped_column(Text)
@@ -230,7 +264,8 @@ class Sentence(Base):
     #: ``flat``). None while nobody has opened the sentence.
     start_kind: Mapped[str | None] = mapped_column(String(16), nullable=True, default=None)
     start_grammar_version_id: Mapped[int | None] = mapped_column(
-        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None)
+        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None
+    )
 
     document: Mapped[Document] = relationship(back_populates="sentences")
 
@@ -243,14 +278,16 @@ class TokenVersion(Base):
     __tablename__ = "token_versions"
     __table_args__ = (UniqueConstraint("sentence_id", "number"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
     number: Mapped[int] = mapped_column(Integer)
     tokens: Mapped[list[Any]] = mapped_column(JSON)
     text: Mapped[str] = mapped_column(Text)
     change: Mapped[dict[str, Any]] = mapped_column(JSON)
-    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
-                                                nullable=True)
+    user_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
 
@@ -263,8 +300,10 @@ def _sentence_place(context: Any) -> tuple[int, int]:
     """(corpus_id, reading rank) of the sentence an Assignment being inserted names."""
     sentence_id = context.get_current_parameters()["sentence_id"]
     row = context.connection.execute(
-        select(Sentence.corpus_id, Sentence.document_id, Sentence.position)
-        .where(Sentence.id == sentence_id)).first()
+        select(Sentence.corpus_id, Sentence.document_id, Sentence.position).where(
+            Sentence.id == sentence_id
+        )
+    ).first()
     if row is None:  # the foreign key refuses the row anyway
         return 0, 0
     return int(row[0]), reading_rank(row[1], row[2])
@@ -279,16 +318,18 @@ class Assignment(Base):
     when an insert does not give them."""
 
     __tablename__ = "assignments"
-    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),
-                      Index("ix_assignments_queue", "user_id", "corpus_id", "rank",
-                            "sentence_id"))
+    __table_args__ = (
+        UniqueConstraint("sentence_id", "user_id"),
+        Index("ix_assignments_queue", "user_id", "corpus_id", "rank", "sentence_id"),
+    )
     id: Mapped[int] = mapped_column(primary_key=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
     user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
     corpus_id: Mapped[int] = mapped_column(
-        ForeignKey("corpora.id", ondelete="CASCADE"),
-        default=lambda ctx: _sentence_place(ctx)[0])
+        ForeignKey("corpora.id", ondelete="CASCADE"), default=lambda ctx: _sentence_place(ctx)[0]
+    )
     rank: Mapped[int] = mapped_column(BigInteger, default=lambda ctx: _sentence_place(ctx)[1])
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
@@ -299,11 +340,11 @@ class SentenceCount(Base):
     counting every sentence."""
 
     __tablename__ = "sentence_counts"
-    document_id: Mapped[int] = mapped_column(ForeignKey("documents.id", ondelete="CASCADE"),
-                                             primary_key=True)
+    document_id: Mapped[int] = mapped_column(
+        ForeignKey("documents.id", ondelete="CASCADE"), primary_key=True
+    )
     state: Mapped[str] = mapped_column(String(16), primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     n: Mapped[int] = mapped_column(Integer, default=0)
 
 
@@ -317,11 +358,14 @@ class Annotation(Base):
 
     __tablename__ = "annotations"
     # (user_id, state): a queue's submitted count reads the user's submitted annotations only
-    __table_args__ = (UniqueConstraint("sentence_id", "user_id"),
-                      Index("ix_annotations_user_state", "user_id", "state"))
+    __table_args__ = (
+        UniqueConstraint("sentence_id", "user_id"),
+        Index("ix_annotations_user_state", "user_id", "state"),
+    )
     id: Mapped[int] = mapped_column(primary_key=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
     user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
     state: Mapped[str] = mapped_column(String(16), default=ANN_DRAFT)
     head: Mapped[int] = mapped_column(Integer, default=0)
@@ -336,9 +380,11 @@ class Annotation(Base):
     #: annotation is created): one of START_KINDS, the grammar version and its suggestion row.
     start_kind: Mapped[str | None] = mapped_column(String(16), nullable=True, default=None)
     start_grammar_version_id: Mapped[int | None] = mapped_column(
-        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None)
+        ForeignKey("grammar_versions.id", ondelete="SET NULL"), nullable=True, default=None
+    )
     start_suggestion_id: Mapped[int | None] = mapped_column(
-        ForeignKey("suggestions.id", ondelete="SET NULL"), nullable=True, default=None)
+        ForeignKey("suggestions.id", ondelete="SET NULL"), nullable=True, default=None
+    )
 
 
 class Revision(Base):
@@ -347,22 +393,23 @@ class Revision(Base):
     __tablename__ = "revisions"
     __table_args__ = (UniqueConstraint("annotation_id", "number"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    annotation_id: Mapped[int] = mapped_column(ForeignKey("annotations.id", ondelete="CASCADE"),
-                                               index=True)
+    annotation_id: Mapped[int] = mapped_column(
+        ForeignKey("annotations.id", ondelete="CASCADE"), index=True
+    )
     number: Mapped[int] = mapped_column(Integer)
     tree: Mapped[str] = mapped_column(Text)
     pins: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
     source: Mapped[str] = mapped_column(String(16), default="edit")
-    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
-                                                nullable=True)
+    user_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     # the version of the sentence's tokens this tree was made on
     token_version: Mapped[int] = mapped_column(Integer, default=1, server_default="1")
     # measured by the page since the previous save: active editing seconds (idle gaps over a
     # minute left out) and the edit actions by kind
     active_seconds: Mapped[float] = mapped_column(Float, default=0.0, server_default="0")
-    actions: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict,
-                                                    server_default=text("'{}'"))
+    actions: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict, server_default=text("'{}'"))
 
 
 class Gold(Base):
@@ -370,14 +417,17 @@ class Gold(Base):
 
     __tablename__ = "gold"
     id: Mapped[int] = mapped_column(primary_key=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
     tree: Mapped[str] = mapped_column(Text)
     provenance: Mapped[str] = mapped_column(String(16))  # import | agreement | adjudication
     adjudicator_id: Mapped[int | None] = mapped_column(
-        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     source_annotation_id: Mapped[int | None] = mapped_column(
-        ForeignKey("annotations.id", ondelete="SET NULL"), nullable=True)
+        ForeignKey("annotations.id", ondelete="SET NULL"), nullable=True
+    )
     note: Mapped[str] = mapped_column(Text, default="")
     #: The annotators' notes for the adjudicator when the gold was made, as
     #: ``[{"annotation_id", "annotator", "note", "flag"}]`` (kept with the gold: notes can
@@ -388,7 +438,8 @@ class Gold(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     retired_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
     retired_by_id: Mapped[int | None] = mapped_column(
-        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
 
 
 class GrammarVersion(Base):
@@ -397,8 +448,7 @@ class GrammarVersion(Base):
     __tablename__ = "grammar_versions"
     __table_args__ = (UniqueConstraint("corpus_id", "number"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     number: Mapped[int] = mapped_column(Integer)
     status: Mapped[str] = mapped_column(String(16), default=GV_QUEUED)
     progress: Mapped[float] = mapped_column(Float, default=0.0)
@@ -426,8 +476,7 @@ class ReferenceSet(Base):
     __tablename__ = "reference_sets"
     __table_args__ = (UniqueConstraint("corpus_id", "name"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     name: Mapped[str] = mapped_column(String(128))
     source: Mapped[str] = mapped_column(Text, default="")
     licence: Mapped[str] = mapped_column(Text, default="")
@@ -437,8 +486,9 @@ class ReferenceSet(Base):
     word_count: Mapped[int] = mapped_column(Integer, default=0)
     #: Whether training uses the set (a set is switched off, never silently dropped).
     in_use: Mapped[bool] = mapped_column(Boolean, default=True)
-    created_by: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
-                                                   nullable=True)
+    created_by: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
 
@@ -449,10 +499,12 @@ class Suggestion(Base):
     __tablename__ = "suggestions"
     __table_args__ = (UniqueConstraint("sentence_id", "grammar_version_id"),)
     id: Mapped[int] = mapped_column(primary_key=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
     grammar_version_id: Mapped[int] = mapped_column(
-        ForeignKey("grammar_versions.id", ondelete="CASCADE"), index=True)
+        ForeignKey("grammar_versions.id", ondelete="CASCADE"), index=True
+    )
     trees: Mapped[list[Any]] = mapped_column(JSON)
     logprobs: Mapped[list[Any]] = mapped_column(JSON)
     posteriors: Mapped[list[Any]] = mapped_column(JSON, default=list)
@@ -469,14 +521,12 @@ class AgreementRecord(Base):
 
     __tablename__ = "agreement_records"
     id: Mapped[int] = mapped_column(primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
-    sentence_id: Mapped[int] = mapped_column(ForeignKey("sentences.id", ondelete="CASCADE"),
-                                             index=True)
-    annotation_a_id: Mapped[int] = mapped_column(ForeignKey("annotations.id",
-                                                            ondelete="CASCADE"))
-    annotation_b_id: Mapped[int] = mapped_column(ForeignKey("annotations.id",
-                                                            ondelete="CASCADE"))
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
+    sentence_id: Mapped[int] = mapped_column(
+        ForeignKey("sentences.id", ondelete="CASCADE"), index=True
+    )
+    annotation_a_id: Mapped[int] = mapped_column(ForeignKey("annotations.id", ondelete="CASCADE"))
+    annotation_b_id: Mapped[int] = mapped_column(ForeignKey("annotations.id", ondelete="CASCADE"))
     user_a_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"))
     user_b_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"))
     matched: Mapped[int] = mapped_column(Integer, default=0)
@@ -498,13 +548,16 @@ class Event(Base):
     __tablename__ = "events"
     id: Mapped[int] = mapped_column(primary_key=True)
     at: Mapped[datetime] = mapped_column(DateTime, default=utcnow, index=True)
-    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
-                                                nullable=True)
+    user_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     kind: Mapped[str] = mapped_column(String(64))
-    corpus_id: Mapped[int | None] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                                  nullable=True, index=True)
+    corpus_id: Mapped[int | None] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"), nullable=True, index=True
+    )
     sentence_id: Mapped[int | None] = mapped_column(
-        ForeignKey("sentences.id", ondelete="CASCADE"), nullable=True)
+        ForeignKey("sentences.id", ondelete="CASCADE"), nullable=True
+    )
     detail: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
 
 
@@ -539,12 +592,12 @@ class FindingRun(Base):
 
     __tablename__ = "finding_runs"
     id: Mapped[int] = mapped_column(primary_key=True)
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     status: Mapped[str] = mapped_column(String(16), default=RUN_QUEUED)
     reason: Mapped[str] = mapped_column(Text, default="")
     requested_by_id: Mapped[int | None] = mapped_column(
-        ForeignKey("users.id", ondelete="SET NULL"), nullable=True)
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     with_annotations: Mapped[bool] = mapped_column(Boolean, default=False)
     trees: Mapped[int] = mapped_column(Integer, default=0)
     seconds: Mapped[float | None] = mapped_column(Float, nullable=True)
@@ -561,8 +614,7 @@ class FindingRow(Base):
     __table_args__ = (Index("ix_findings_run_rank", "run_id", "rank"),)
     id: Mapped[int] = mapped_column(primary_key=True)
     run_id: Mapped[int] = mapped_column(ForeignKey("finding_runs.id", ondelete="CASCADE"))
-    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"),
-                                           index=True)
+    corpus_id: Mapped[int] = mapped_column(ForeignKey("corpora.id", ondelete="CASCADE"), index=True)
     kind: Mapped[str] = mapped_column(String(16))
     key: Mapped[str] = mapped_column(Text)
     key_hash: Mapped[str] = mapped_column(String(64), index=True)
@@ -585,7 +637,8 @@ class FindingVerdict(Base):
     key: Mapped[str] = mapped_column(Text)
     key_hash: Mapped[str] = mapped_column(String(64))
     verdict: Mapped[str] = mapped_column(String(16))
-    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id", ondelete="SET NULL"),
-                                                nullable=True)
+    user_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True
+    )
     note: Mapped[str] = mapped_column(Text, default="")
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)

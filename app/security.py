@@ -29,8 +29,10 @@ MAX_LOGIN_DELAY = 10.0
 
 # argon2-cffi's defaults (the library's RFC 9106 low-memory profile),
 # and parameters cheap enough for a test suite that logs in thousands of times.
-_HASHERS = {"standard": PasswordHasher(),
-            "test": PasswordHasher(time_cost=1, memory_cost=8, parallelism=1)}
+_HASHERS = {
+    "standard": PasswordHasher(),
+    "test": PasswordHasher(time_cost=1, memory_cost=8, parallelism=1),
+}
 
 
 HASHING_NICENESS = 10  # how much lower than the rest of the service a password check runs
@@ -55,7 +57,9 @@ def _hashing_threads() -> ThreadPoolExecutor:
             cores = len(os.sched_getaffinity(0))
             _hashing_pool = ThreadPoolExecutor(
                 max_workers=max(1, cores // _hasher().parallelism),
-                thread_name_prefix="password-check", initializer=_lower_priority)
+                thread_name_prefix="password-check",
+                initializer=_lower_priority,
+            )
         return _hashing_pool
 
 
@@ -90,9 +94,12 @@ def _token_hash(token: str) -> str:
 def create_session(db: Session, user: User, settings: Settings) -> tuple[str, UserSession]:
     """Start a login session; returns the raw cookie token (stored only as a hash)."""
     token = secrets.token_urlsafe(32)
-    sess = UserSession(token_hash=_token_hash(token), user_id=user.id,
-                       csrf_token=secrets.token_urlsafe(24),
-                       expires_at=utcnow() + timedelta(hours=settings.session_hours))
+    sess = UserSession(
+        token_hash=_token_hash(token),
+        user_id=user.id,
+        csrf_token=secrets.token_urlsafe(24),
+        expires_at=utcnow() + timedelta(hours=settings.session_hours),
+    )
     db.add(sess)
     db.flush()
     return token, sess
@@ -138,13 +145,29 @@ def failure_counts(db: Session, username: str, address: str) -> FailureCounts:
     """
     since = utcnow() - FAILURE_WINDOW
     last_login = db.scalar(
-        select(func.max(Event.at)).join(User, User.id == Event.user_id).where(
-            Event.at >= since, Event.kind == "login", User.username == username))
-    by_user = db.scalar(select(func.count()).select_from(LoginFailure).where(
-        LoginFailure.at >= max(since, last_login or since),
-        LoginFailure.username == username[:64])) or 0
-    by_addr = db.scalar(select(func.count()).select_from(LoginFailure).where(
-        LoginFailure.at >= since, LoginFailure.address == address[:64])) or 0
+        select(func.max(Event.at))
+        .join(User, User.id == Event.user_id)
+        .where(Event.at >= since, Event.kind == "login", User.username == username)
+    )
+    by_user = (
+        db.scalar(
+            select(func.count())
+            .select_from(LoginFailure)
+            .where(
+                LoginFailure.at >= max(since, last_login or since),
+                LoginFailure.username == username[:64],
+            )
+        )
+        or 0
+    )
+    by_addr = (
+        db.scalar(
+            select(func.count())
+            .select_from(LoginFailure)
+            .where(LoginFailure.at >= since, LoginFailure.address == address[:64])
+        )
+        or 0
+    )
     return FailureCounts(account=by_user, address=by_addr)
 
 
@@ -161,8 +184,10 @@ def login_delay(counts: FailureCounts, settings: Settings) -> float:
     The address threshold is the higher one, so colleagues behind one address are not slowed
     by each other's typing mistakes, only by many failures against many accounts.
     """
-    return max(_delay_past(counts.account, settings.login_delay_after, settings),
-               _delay_past(counts.address, settings.login_address_delay_after, settings))
+    return max(
+        _delay_past(counts.account, settings.login_delay_after, settings),
+        _delay_past(counts.address, settings.login_address_delay_after, settings),
+    )
 
 
 def record_failure(db: Session, username: str, address: str) -> None:
@@ -171,8 +196,9 @@ def record_failure(db: Session, username: str, address: str) -> None:
 
 def user_password(db: Session, username: str) -> tuple[int, str] | None:
     """The id and password hash of the active account ``username``; None if there is none."""
-    row = db.execute(select(User.id, User.password_hash, User.active).where(
-        User.username == username)).first()
+    row = db.execute(
+        select(User.id, User.password_hash, User.active).where(User.username == username)
+    ).first()
     if row is None or not row.active:
         return None
     return row.id, row.password_hash

@@ -42,50 +42,92 @@ ALEMBIC_INI = resource_path("alembic.ini")
 class Settings(BaseSettings):
     """Service configuration; defaults give a single-user SQLite install under ``./data``."""
 
-    model_config = SettingsConfigDict(env_prefix="TREEWRIGHT_", extra="ignore",
-                                      allow_inf_nan=False)
+    model_config = SettingsConfigDict(env_prefix="TREEWRIGHT_", extra="ignore", allow_inf_nan=False)
 
-    data_dir: Path = Field(default=Path("data"), description="Folder for the SQLite database, "
-                           "the secret key and backups.")
-    database_url: str | None = Field(default=None, description="SQLAlchemy URL; default is "
-                                     "SQLite at DATA_DIR/treewright.db. For PostgreSQL: "
-                                     "postgresql+psycopg://user@host/dbname")
-    sqlite_busy_seconds: float = Field(default=15.0, gt=0, le=600, allow_inf_nan=False,
-                                       description="How long a request waits for SQLite's "
-                                       "write lock before it answers 503 (try again).")
+    data_dir: Path = Field(
+        default=Path("data"),
+        description="Folder for the SQLite database, the secret key and backups.",
+    )
+    database_url: str | None = Field(
+        default=None,
+        description="SQLAlchemy URL; default is "
+        "SQLite at DATA_DIR/treewright.db. For PostgreSQL: "
+        "postgresql+psycopg://user@host/dbname",
+    )
+    sqlite_busy_seconds: float = Field(
+        default=15.0,
+        gt=0,
+        le=600,
+        allow_inf_nan=False,
+        description="How long a request waits for SQLite's "
+        "write lock before it answers 503 (try again).",
+    )
     host: str = Field(default="127.0.0.1", description="Address `serve` binds to.")
     port: int = Field(default=8000, description="Port `serve` listens on.")
-    secret_key: str | None = Field(default=None, description="Key for signing; by default "
-                                   "generated on first run into DATA_DIR/secret_key (mode 0600).")
-    max_upload_bytes: int = Field(default=20 * 1024 * 1024, description="Largest accepted "
-                                  "upload or request body, in bytes (larger gets 413).")
+    secret_key: str | None = Field(
+        default=None,
+        description="Key for signing; by default "
+        "generated on first run into DATA_DIR/secret_key (mode 0600).",
+    )
+    max_upload_bytes: int = Field(
+        default=20 * 1024 * 1024,
+        description="Largest accepted upload or request body, in bytes (larger gets 413).",
+    )
     session_hours: int = Field(default=12, description="Hours a login session lasts.")
-    cookie_secure: bool = Field(default=False, description="Mark cookies Secure (set true "
-                                "behind TLS).")
+    cookie_secure: bool = Field(
+        default=False, description="Mark cookies Secure (set true behind TLS)."
+    )
     suggestion_k: int = Field(default=5, description="Number of alternative trees offered.")
-    login_delay_after: int = Field(default=3, description="Failed logins against one account "
-                                   "(since its last successful login) before each further "
-                                   "attempt at it is delayed.")
-    login_address_delay_after: int = Field(default=20, description="Failed logins from one "
-                                           "address (against any accounts) before each "
-                                           "further attempt from it is delayed.")
-    login_delay_seconds: float = Field(default=2.0, allow_inf_nan=False, description="Delay "
-                                       "per failed login past the threshold.")
-    training_in_process: bool = Field(default=False, description="Train grammars in a thread "
-                                      "instead of a separate process (tests use this).")
-    parse_threads: int = Field(default=1, ge=1, le=64, description="numba threads each "
-                               "parse runs on.")
-    parse_slots: int = Field(default=0, ge=0, le=64, description="Parses running at once per "
-                             "server process; 0 means the cores divided by parse_threads.")
-    parse_wait_seconds: float = Field(default=20.0, gt=0, le=600, allow_inf_nan=False,
-                                      description="Longest a request waits for its parse "
-                                      "before answering 503 (the parse goes on and is kept).")
-    parse_max_words: int = Field(default=100, ge=1, le=250, description="Longer sentences "
-                                 "are not parsed on request; the Bench starts them flat and "
-                                 "offers to split them.")
+    login_delay_after: int = Field(
+        default=3,
+        description="Failed logins against one account "
+        "(since its last successful login) before each further "
+        "attempt at it is delayed.",
+    )
+    login_address_delay_after: int = Field(
+        default=20,
+        description="Failed logins from one "
+        "address (against any accounts) before each "
+        "further attempt from it is delayed.",
+    )
+    login_delay_seconds: float = Field(
+        default=2.0, allow_inf_nan=False, description="Delay per failed login past the threshold."
+    )
+    training_in_process: bool = Field(
+        default=False,
+        description="Train grammars in a thread instead of a separate process (tests use this).",
+    )
+    parse_threads: int = Field(
+        default=1, ge=1, le=64, description="numba threads each parse runs on."
+    )
+    parse_slots: int = Field(
+        default=0,
+        ge=0,
+        le=64,
+        description="Parses running at once per "
+        "server process; 0 means the cores divided by parse_threads.",
+    )
+    parse_wait_seconds: float = Field(
+        default=20.0,
+        gt=0,
+        le=600,
+        allow_inf_nan=False,
+        description="Longest a request waits for its parse "
+        "before answering 503 (the parse goes on and is kept).",
+    )
+    parse_max_words: int = Field(
+        default=100,
+        ge=1,
+        le=250,
+        description="Longer sentences "
+        "are not parsed on request; the Bench starts them flat and "
+        "offers to split them.",
+    )
     password_hash_cost: Literal["standard", "test"] = Field(
-        default="standard", description="argon2 parameters for new password hashes: "
-        "'standard' (argon2-cffi's defaults) or 'test' (cheap, for test suites only).")
+        default="standard",
+        description="argon2 parameters for new password hashes: "
+        "'standard' (argon2-cffi's defaults) or 'test' (cheap, for test suites only).",
+    )
 
     @property
     def resolved_database_url(self) -> str:

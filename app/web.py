@@ -20,9 +20,9 @@ templates.env.filters["as_written"] = as_written
 templates.env.filters["plural"] = plural
 
 
-def render(request: Request, name: str, login: Login | None, status_code: int = 200,
-           **context: Any) -> HTMLResponse:
+def render(
+    request: Request, name: str, login: Login | None, status_code: int = 200, **context: Any
+) -> HTMLResponse:
     """Render ``templates/name`` with ``user``, ``csrf_token`` and the given context."""
-    context.update(user=login.user if login else None,
-                   csrf_token=login.csrf_token if login else "")
+    context.update(user=login.user if login else None, csrf_token=login.csrf_token if login else "")
     return templates.TemplateResponse(request, name, context, status_code=status_code)

@@ -71,22 +71,25 @@ def _read(path: Path) -> list:
 
 
 def _progress(cycle: int, iteration: int, loglik: float) -> None:
-    print(f"  cycle {cycle} EM {iteration:2d} log-likelihood {loglik:.1f}", file=sys.stderr,
-          flush=True)
+    print(
+        f"  cycle {cycle} EM {iteration:2d} log-likelihood {loglik:.1f}",
+        file=sys.stderr,
+        flush=True,
+    )
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--only", nargs="*", choices=sorted(OPTIONS))
-    ap.add_argument("--limit", type=int, default=None,
-                    help="parse only the first N test sentences")
+    ap.add_argument("--limit", type=int, default=None, help="parse only the first N test sentences")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
     if len(files) < 99:
         sys.exit(f"expected the shared GUM trees at {GUM}")
     train = [t for f in files[:89] for t in _read(f)]
-    gold = [c for f in files[89:] for t in _read(f)
-            if len((c := clean_tree(t)).leaves()) <= 40][:args.limit]
+    gold = [c for f in files[89:] for t in _read(f) if len((c := clean_tree(t)).leaves()) <= 40][
+        : args.limit
+    ]
     print(f"train {len(train)} trees, test {len(gold)} sentences (<= 40 words)", flush=True)
     for name in args.only or list(OPTIONS):
         t0 = time.process_time()
@@ -94,19 +97,22 @@ def main() -> None:
         cycles = options.pop("refine", 0)
         g = train_grammar(train, **options)
         if cycles:
-            g = refine(g, train, RefineOptions(cycles=cycles), progress=_progress
-                       ).to_grammar(prune=DEFAULT_PRUNE)
+            g = refine(g, train, RefineOptions(cycles=cycles), progress=_progress).to_grammar(
+                prune=DEFAULT_PRUNE
+            )
         t1 = time.process_time()
         results = [parse(g, t.leaves(), posteriors=True) for t in gold]
         t2 = time.process_time()
         viterbi = score_corpus(zip(gold, [r.trees[0] for r in results], strict=True))
-        score = score_corpus(zip(gold, [r.consensus or r.trees[0] for r in results],
-                                 strict=True))
+        score = score_corpus(zip(gold, [r.consensus or r.trees[0] for r in results], strict=True))
         fallbacks = sum(r.fallback for r in results)
-        print(f"{name:26s} F1 Viterbi {100 * viterbi.f1:6.2f}  consensus {100 * score.f1:6.2f}"
-              f"  (P {100 * score.precision:6.2f}  R {100 * score.recall:6.2f})  fallbacks "
-              f"{fallbacks}  symbols {len(g.symbols)}  train {t1 - t0:5.1f} s  parse "
-              f"{t2 - t1:6.1f} s CPU", flush=True)
+        print(
+            f"{name:26s} F1 Viterbi {100 * viterbi.f1:6.2f}  consensus {100 * score.f1:6.2f}"
+            f"  (P {100 * score.precision:6.2f}  R {100 * score.recall:6.2f})  fallbacks "
+            f"{fallbacks}  symbols {len(g.symbols)}  train {t1 - t0:5.1f} s  parse "
+            f"{t2 - t1:6.1f} s CPU",
+            flush=True,
+        )
 
 
 if __name__ == "__main__":

@@ -143,11 +143,15 @@ def pick_sentences(grammar, files):
             at = next((i for i in range(1, len(toks)) if toks[i] in CLITICS), None)
             if at is None:
                 continue
-            imported = [*toks[:at - 1], toks[at - 1] + toks[at], *toks[at + 1:]]
+            imported = [*toks[: at - 1], toks[at - 1] + toks[at], *toks[at + 1 :]]
             result = parse(grammar, imported, posteriors=True)
             tree = result.consensus if result.consensus is not None else result.trees[0]
-            yield (gold, imported, write_tree(tree),
-                   {"position": at - 1, "pieces": [toks[at - 1], toks[at]]})
+            yield (
+                gold,
+                imported,
+                write_tree(tree),
+                {"position": at - 1, "pieces": [toks[at - 1], toks[at]]},
+            )
 
 
 def main() -> None:
@@ -159,44 +163,65 @@ def main() -> None:
         sys.exit(f"no GUM trees at {GUM}")
     grammar = grammar_from_bytes(gum_grammar_bytes())
     sentences = pick_sentences(grammar, files[TRAIN_FILES:])
-    sixty = next(strip_function_tags(t) for f in files for t in read_trees(f.read_text("utf-8"))
-                 if len(words(t)) == 60)
+    sixty = next(
+        strip_function_tags(t)
+        for f in files
+        for t in read_trees(f.read_text("utf-8"))
+        if len(words(t)) == 60
+    )
     from playwright.sync_api import sync_playwright
 
     with tempfile.TemporaryDirectory(prefix="tw-bench-moves-") as tmp:
         settings = Settings(data_dir=Path(tmp), secret_key="bench", login_delay_seconds=0.05)
         app = create_app(settings)
         with app.state.sessionmaker() as db:
-            user = User(username="bench", display_name="Bench Annotator", role=ROLE_ANNOTATOR,
-                        password_hash=hash_password(PASSWORD))
+            user = User(
+                username="bench",
+                display_name="Bench Annotator",
+                role=ROLE_ANNOTATOR,
+                password_hash=hash_password(PASSWORD),
+            )
             db.add(user)
             db.commit()
-            _corpus, rows = make_corpus(db, [" ".join(words(sixty))], name="GUM long",
-                                        labels=[], tags=[])
+            _corpus, rows = make_corpus(
+                db, [" ".join(words(sixty))], name="GUM long", labels=[], tags=[]
+            )
             assign(db, rows, user)
             sentence = rows[0]
-            annotation_service.save_revision(db, user, sentence, base=0,
-                                             tree_text=write_tree(sixty), source="text")
+            annotation_service.save_revision(
+                db, user, sentence, base=0, tree_text=write_tree(sixty), source="text"
+            )
             sid = sentence.id
-        with LiveServer(settings, log=Path(tmp) / "server.log") as server, \
-                sync_playwright() as pw:
-            browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True, args=[
-                "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                "--disable-component-update", "--no-first-run"])
+        with LiveServer(settings, log=Path(tmp) / "server.log") as server, sync_playwright() as pw:
+            browser = pw.chromium.launch(
+                executable_path=CHROMIUM,
+                headless=True,
+                args=[
+                    "--headless",
+                    "--no-sandbox",
+                    "--disable-gpu",
+                    "--disable-background-networking",
+                    "--disable-component-update",
+                    "--no-first-run",
+                ],
+            )
             page = browser.new_page(viewport={"width": 1440, "height": 900})
 
             # ---- actions, old moves against reattach and token fixes
             page.goto(f"{server.url}/static/css/bench.css")
             page.evaluate("async () => { window.T = await import('/static/js/treemodel.js'); }")
-            print(f"{'sentence':<46} {'words':>5} {'old moves':>10} {'with reattach':>14} "
-                  f"{'(moves, token fixes)':>21}")
+            print(
+                f"{'sentence':<46} {'words':>5} {'old moves':>10} {'with reattach':>14} "
+                f"{'(moves, token fixes)':>21}"
+            )
             olds, news, olds_tree_only = [], [], []
             left_out = 0
             for gold, imported, start, split in sentences:
                 if len(news) == 5:
                     break
-                res = page.evaluate(PLAN_JS, {"start": start, "gold": write_tree(gold),
-                                              "split": split})
+                res = page.evaluate(
+                    PLAN_JS, {"start": start, "gold": write_tree(gold), "split": split}
+                )
                 text = " ".join(imported)
                 label = (text[:43] + "...") if len(text) > 46 else text
                 old = res["old"]
@@ -204,29 +229,35 @@ def main() -> None:
                 # the same sentence with its tokens right from the start: tree moves alone
                 right = parse(grammar, words(gold), posteriors=True)
                 rtree = right.consensus if right.consensus is not None else right.trees[0]
-                both = page.evaluate(PLAN_JS, {"start": write_tree(rtree),
-                                               "gold": write_tree(gold), "split": None})
-                if not (new["reachable"] and both["old"]["reachable"]
-                        and both["new"]["reachable"]):
+                both = page.evaluate(
+                    PLAN_JS, {"start": write_tree(rtree), "gold": write_tree(gold), "split": None}
+                )
+                if not (new["reachable"] and both["old"]["reachable"] and both["new"]["reachable"]):
                     left_out += 1  # a plan fell short of gold (see the report): not counted
                     continue
                 news.append(new["actions"])
-                print(f"{label:<46} {len(words(gold)):>5} "
-                      f"{'unreachable' if not old['reachable'] else old['actions']:>10} "
-                      f"{new['actions']:>14} {str((new['moves'], new['fixes'])):>21}")
+                print(
+                    f"{label:<46} {len(words(gold)):>5} "
+                    f"{'unreachable' if not old['reachable'] else old['actions']:>10} "
+                    f"{new['actions']:>14} {str((new['moves'], new['fixes'])):>21}"
+                )
                 olds_tree_only.append((both["old"]["actions"], both["new"]["actions"]))
                 olds.append(old)
             print(f"sentences left out because a plan did not end exactly on gold: {left_out}")
-            print(f"old moves reach gold in {sum(o['reachable'] for o in olds)} of "
-                  f"{len(olds)} sentences (the others need a token fix); with reattach and "
-                  f"token fixes in {len(news)} of {len(news)}, median "
-                  f"{statistics.median(news):.0f} actions, total {sum(news)}")
+            print(
+                f"old moves reach gold in {sum(o['reachable'] for o in olds)} of "
+                f"{len(olds)} sentences (the others need a token fix); with reattach and "
+                f"token fixes in {len(news)} of {len(news)}, median "
+                f"{statistics.median(news):.0f} actions, total {sum(news)}"
+            )
             o_t = [a for a, _ in olds_tree_only]
             n_t = [b for _, b in olds_tree_only]
-            print(f"the same five with correct tokens from the start (tree edits only): old "
-                  f"moves median {statistics.median(o_t):.0f} (total {sum(o_t)}), with reattach "
-                  f"median {statistics.median(n_t):.0f} (total {sum(n_t)}), ratio "
-                  f"{sum(n_t) / sum(o_t):.2f}")
+            print(
+                f"the same five with correct tokens from the start (tree edits only): old "
+                f"moves median {statistics.median(o_t):.0f} (total {sum(o_t)}), with reattach "
+                f"median {statistics.median(n_t):.0f} (total {sum(n_t)}), ratio "
+                f"{sum(n_t) / sum(o_t):.2f}"
+            )
 
             # ---- time from a move to the redrawn tree, 60 words
             page.goto(f"{server.url}/login")
@@ -267,13 +298,19 @@ def main() -> None:
             }""")
             node, target = pick
             for _ in range(args.moves):
-                page.evaluate("i => document.querySelector(`#tree-pane g.tw-phrase"
-                              "[data-index='${i}']`).dispatchEvent(new MouseEvent('click', "
-                              "{bubbles: true}))", node)
+                page.evaluate(
+                    "i => document.querySelector(`#tree-pane g.tw-phrase"
+                    "[data-index='${i}']`).dispatchEvent(new MouseEvent('click', "
+                    "{bubbles: true}))",
+                    node,
+                )
                 page.keyboard.press("m")
-                page.evaluate("i => document.querySelector(`#tree-pane g.tw-phrase"
-                              "[data-index='${i}']`).dispatchEvent(new MouseEvent('click', "
-                              "{bubbles: true}))", target)
+                page.evaluate(
+                    "i => document.querySelector(`#tree-pane g.tw-phrase"
+                    "[data-index='${i}']`).dispatchEvent(new MouseEvent('click', "
+                    "{bubbles: true}))",
+                    target,
+                )
                 page.evaluate("() => { window.__armed = true; }")
                 before = page.get_attribute("#tree-pane svg", "data-tree")
                 done = page.evaluate("() => window.__moveTimes.length")
@@ -281,16 +318,19 @@ def main() -> None:
                 page.wait_for_function("n => window.__moveTimes.length > n", arg=done)
                 assert page.get_attribute("#tree-pane svg", "data-tree") != before
                 page.keyboard.press("u")
-                page.wait_for_function("t => document.querySelector('#tree-pane svg')"
-                                       ".dataset.tree === t", arg=before)
+                page.wait_for_function(
+                    "t => document.querySelector('#tree-pane svg').dataset.tree === t", arg=before
+                )
                 time.sleep(0.05)
             times = page.evaluate("() => window.__moveTimes")
             script = [a for a, _ in times]
             frame = [b for _, b in times]
-            print(f"move to redrawn tree, 60 words ({len(times)} moves): median "
-                  f"{statistics.median(script):.1f} ms to the new tree in the page, "
-                  f"{statistics.median(frame):.1f} ms to the next frame (target < 50 ms); "
-                  f"load average {os.getloadavg()[0]:.2f}")
+            print(
+                f"move to redrawn tree, 60 words ({len(times)} moves): median "
+                f"{statistics.median(script):.1f} ms to the new tree in the page, "
+                f"{statistics.median(frame):.1f} ms to the next frame (target < 50 ms); "
+                f"load average {os.getloadavg()[0]:.2f}"
+            )
             browser.close()
 
 

@@ -59,10 +59,15 @@ def percentile(values: list[float], q: float) -> float:
 
 def line(name: str, values: list[float], target: float | None) -> None:
     med = statistics.median(values)
-    verdict = "" if target is None else f"  target < {target:.0f} ms: " + (
-        "met" if med < target else "MISSED")
-    print(f"{name:<44} median {med:8.1f} ms   p90 {percentile(values, .9):8.1f} ms   "
-          f"n={len(values)}{verdict}")
+    verdict = (
+        ""
+        if target is None
+        else f"  target < {target:.0f} ms: " + ("met" if med < target else "MISSED")
+    )
+    print(
+        f"{name:<44} median {med:8.1f} ms   p90 {percentile(values, 0.9):8.1f} ms   "
+        f"n={len(values)}{verdict}"
+    )
 
 
 def main() -> None:
@@ -83,42 +88,59 @@ def main() -> None:
     train_trees = [t for i, t in enumerate(everything) if i not in skip]
     t0 = time.perf_counter()
     grammar = train_grammar(train_trees)
-    print(f"grammar: {len(train_trees)} GUM trees ({len(gold)} {LENGTH}-word sentences held "
-          f"out), trained in {time.perf_counter() - t0:.1f} s; {grammar}")
+    print(
+        f"grammar: {len(train_trees)} GUM trees ({len(gold)} {LENGTH}-word sentences held "
+        f"out), trained in {time.perf_counter() - t0:.1f} s; {grammar}"
+    )
     rng = random.Random(7)
 
     with tempfile.TemporaryDirectory(prefix="tw-bench-page-") as tmp:
         settings = Settings(data_dir=Path(tmp), secret_key="bench", login_delay_seconds=0.05)
         app = create_app(settings)
         with app.state.sessionmaker() as db:
-            user = User(username="bench", display_name="Bench Annotator", role=ROLE_ANNOTATOR,
-                        password_hash=hash_password(PASSWORD))
+            user = User(
+                username="bench",
+                display_name="Bench Annotator",
+                role=ROLE_ANNOTATOR,
+                password_hash=hash_password(PASSWORD),
+            )
             db.add(user)
             db.commit()
-            corpus, sentences = make_corpus(db, [" ".join(words(t)) for t in gold],
-                                            name="GUM test slice", labels=[], tags=[])
+            corpus, sentences = make_corpus(
+                db, [" ".join(words(t)) for t in gold], name="GUM test slice", labels=[], tags=[]
+            )
             assign(db, sentences, user)
             grammar_file = Path(tmp) / "g.npz"
             grammar.save(grammar_file)
             version = install_grammar(db, corpus, grammar_file.read_bytes())
             ids = [s.id for s in sentences]
-            warm_id, cold_ids, cached_ids = ids[0], ids[1:args.loads + 1], ids[args.loads + 1:]
+            warm_id, cold_ids, cached_ids = ids[0], ids[1 : args.loads + 1], ids[args.loads + 1 :]
             # the second half gets its suggestions computed ahead, as after a retrain
             t0 = time.perf_counter()
             for sid in cached_ids:
                 sentence = db.get(Sentence, sid)
                 suggestions.suggestion_for(db, sentence, corpus, settings.suggestion_k)
-            print(f"precomputed {len(cached_ids)} suggestions (k={settings.suggestion_k}, "
-                  f"with posteriors) in {time.perf_counter() - t0:.1f} s in this process")
+            print(
+                f"precomputed {len(cached_ids)} suggestions (k={settings.suggestion_k}, "
+                f"with posteriors) in {time.perf_counter() - t0:.1f} s in this process"
+            )
             gv = db.scalar(select(GrammarVersion).where(GrammarVersion.id == version.id))
             print(f"grammar version {gv.number}, {len(gv.data or b'') / 1e6:.1f} MB saved form")
         from playwright.sync_api import sync_playwright
 
-        with LiveServer(settings, log=Path(tmp) / "server.log") as server, \
-                sync_playwright() as pw:
-            browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True, args=[
-                "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                "--disable-component-update", "--no-first-run"])
+        with LiveServer(settings, log=Path(tmp) / "server.log") as server, sync_playwright() as pw:
+            browser = pw.chromium.launch(
+                executable_path=CHROMIUM,
+                headless=True,
+                args=[
+                    "--headless",
+                    "--no-sandbox",
+                    "--disable-gpu",
+                    "--disable-background-networking",
+                    "--disable-component-update",
+                    "--no-first-run",
+                ],
+            )
             page = browser.new_page(viewport={"width": 1400, "height": 900})
             page.goto(f"{server.url}/login")
             page.fill("input[name=username]", "bench")
@@ -132,7 +154,8 @@ def main() -> None:
                 page.goto(f"{server.url}/bench/{sid}")
                 page.wait_for_selector("#bench[data-ready='1']")
                 drawn = page.evaluate(
-                    "() => performance.getEntriesByName('bench-drawn')[0].startTime")
+                    "() => performance.getEntriesByName('bench-drawn')[0].startTime"
+                )
                 if wait_doubts:
                     page.wait_for_selector("#bench[data-doubts='1']", timeout=60_000)
                     doubts.append(page.evaluate("() => performance.now()"))
@@ -147,9 +170,12 @@ def main() -> None:
             # saves from the page, each on top of the previous head
             sid = cached_ids[0]
             load(sid)
-            tokens = page.evaluate("() => JSON.parse(document.getElementById('bench-data')"
-                                   ".textContent).sentence.tokens")
-            save_ms = page.evaluate("""async ([sid, tokens, n]) => {
+            tokens = page.evaluate(
+                "() => JSON.parse(document.getElementById('bench-data')"
+                ".textContent).sentence.tokens"
+            )
+            save_ms = page.evaluate(
+                """async ([sid, tokens, n]) => {
                 const csrf = document.querySelector('meta[name="csrf-token"]').content;
                 const out = [];
                 let base = 0;
@@ -168,16 +194,22 @@ def main() -> None:
                     base = body.revision.number;
                 }
                 return out;
-            }""", [sid, tokens, args.saves])
+            }""",
+                [sid, tokens, args.saves],
+            )
 
             reparse_ms = []
-            for sid, tree in zip(cold_ids, gold[1:args.loads + 1], strict=True):
+            for sid, tree in zip(cold_ids, gold[1 : args.loads + 1], strict=True):
                 spans = constituents(tree)[1:]
-                pins = {"spans": [[s, e, lab] for lab, s, e in
-                                  rng.sample(spans, min(len(spans), rng.randint(2, 3)))],
-                        "tags": [[i, t] for i, t in rng.sample(list(enumerate(pos_tags(tree))),
-                                                               1)]}
-                ms = page.evaluate("""async ([sid, pins]) => {
+                pins = {
+                    "spans": [
+                        [s, e, lab]
+                        for lab, s, e in rng.sample(spans, min(len(spans), rng.randint(2, 3)))
+                    ],
+                    "tags": [[i, t] for i, t in rng.sample(list(enumerate(pos_tags(tree))), 1)],
+                }
+                ms = page.evaluate(
+                    """async ([sid, pins]) => {
                     const csrf = document.querySelector('meta[name="csrf-token"]').content;
                     const t0 = performance.now();
                     const r = await fetch(`/api/bench/${sid}/reparse`, {method: "POST",
@@ -186,14 +218,18 @@ def main() -> None:
                     await r.json();
                     if (r.status !== 200) throw new Error("reparse " + r.status);
                     return performance.now() - t0;
-                }""", [sid, pins])
+                }""",
+                    [sid, pins],
+                )
                 reparse_ms.append(ms)
             browser.close()
         with app.state.sessionmaker() as db:
             from app.models import Suggestion
 
-            parse_s = [r.seconds * 1000 for r in db.scalars(
-                select(Suggestion).where(Suggestion.sentence_id.in_(cold_ids)))]
+            parse_s = [
+                r.seconds * 1000
+                for r in db.scalars(select(Suggestion).where(Suggestion.sentence_id.in_(cold_ids)))
+            ]
         app.state.engine.dispose()
 
     print()

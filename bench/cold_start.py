@@ -62,20 +62,26 @@ def _read(path: Path) -> list[Tree]:
     return [_rooted(t) for t in read_trees(path.read_text(encoding="utf-8"), source=str(path))]
 
 
-def _auto(trees: list[Tree], reference: list[Tree],
-          plain: Grammar | None = None) -> tuple[Grammar, Weighting]:
+def _auto(
+    trees: list[Tree], reference: list[Tree], plain: Grammar | None = None
+) -> tuple[Grammar, Weighting]:
     """The grammar the service would train; ``plain`` (already trained with plain counts on
     the same trees) is reused when the choice is plain counts."""
     train, held = heldout_split(trees)
     choice = choose_weighting(train, held, reference)
     if plain is not None and choice.weighting == Weighting():
         return plain, choice.weighting
-    return train_grammar(trees, reference=reference, weighting=choice.weighting), \
-        choice.weighting
+    return train_grammar(trees, reference=reference, weighting=choice.weighting), choice.weighting
 
 
-def _informative(pool: list[Tree], picked: set[int], grammar: Grammar, want: int,
-                 candidates: int, rng: random.Random) -> list[int]:
+def _informative(
+    pool: list[Tree],
+    picked: set[int],
+    grammar: Grammar,
+    want: int,
+    candidates: int,
+    rng: random.Random,
+) -> list[int]:
     """Indexes of the ``want`` most uncertain unpicked pool trees (of a random draw)."""
     left = [i for i in range(len(pool)) if i not in picked]
     draw = rng.sample(left, min(candidates, len(left)))
@@ -97,9 +103,12 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--no-table", action="store_true", help="only the job's time")
     ap.add_argument("--no-job", action="store_true", help="only the table")
-    ap.add_argument("--no-informative", action="store_true",
-                    help="leave out the most-informative-first column (its rows depend on "
-                         "each other; the others can run row by row in separate processes)")
+    ap.add_argument(
+        "--no-informative",
+        action="store_true",
+        help="leave out the most-informative-first column (its rows depend on "
+        "each other; the others can run row by row in separate processes)",
+    )
     args = ap.parse_args()
     rows = [int(x) for x in args.rows.split(",")]
     files = sorted(GUM.glob("*.ptb"))
@@ -108,11 +117,15 @@ def main() -> None:
         sys.exit(f"expected the shared GUM trees of genre {args.genre!r} at {GUM}")
     reference = [t for f in files if f not in mine for t in _read(f)]
     pool = [t for f in mine[:-4] for t in _read(f)]
-    test = [c for f in mine[-4:] for t in _read(f)
-            if len((c := clean_tree(t)).leaves()) <= 40][::2][:args.test]
-    print(f"genre {args.genre}: reference {len(reference)} trees (other genres), in-domain pool "
-          f"{len(pool)}, test {len(test)} sentences (every second of <= 40 words, last 4 "
-          f"documents); load {os.getloadavg()[0]:.1f}", flush=True)
+    test = [c for f in mine[-4:] for t in _read(f) if len((c := clean_tree(t)).leaves()) <= 40][
+        ::2
+    ][: args.test]
+    print(
+        f"genre {args.genre}: reference {len(reference)} trees (other genres), in-domain pool "
+        f"{len(pool)}, test {len(test)} sentences (every second of <= 40 words, last 4 "
+        f"documents); load {os.getloadavg()[0]:.1f}",
+        flush=True,
+    )
     rng = random.Random(args.seed)
 
     def f1(g: Grammar) -> float:
@@ -124,10 +137,20 @@ def main() -> None:
         _job(reference, pool)
 
 
-def _table(args: argparse.Namespace, rows: list[int], reference: list[Tree], pool: list[Tree],
-           test: list[Tree], rng: random.Random, f1: Callable[[Grammar], float]) -> None:
-    print(f"{'trees':>5}  {'in-domain only':>14}  {'ref+in plain':>12}  {'ref+in auto':>11}  "
-          f"{'auto, informative':>17}  weights (doc order / informative)", flush=True)
+def _table(
+    args: argparse.Namespace,
+    rows: list[int],
+    reference: list[Tree],
+    pool: list[Tree],
+    test: list[Tree],
+    rng: random.Random,
+    f1: Callable[[Grammar], float],
+) -> None:
+    print(
+        f"{'trees':>5}  {'in-domain only':>14}  {'ref+in plain':>12}  {'ref+in auto':>11}  "
+        f"{'auto, informative':>17}  weights (doc order / informative)",
+        flush=True,
+    )
     picked: list[int] = []
     prev: Grammar | None = None
     for n in rows:
@@ -136,8 +159,11 @@ def _table(args: argparse.Namespace, rows: list[int], reference: list[Tree], poo
             g = train_grammar([], reference=reference)
             base = f1(g)
             prev = g
-            print(f"{0:>5}  {'-':>14}  {base:>12.2f}  {base:>11.2f}  {base:>17.2f}  "
-                  f"reference only  ({time.process_time() - t0:.0f} s CPU)", flush=True)
+            print(
+                f"{0:>5}  {'-':>14}  {base:>12.2f}  {base:>11.2f}  {base:>17.2f}  "
+                f"reference only  ({time.process_time() - t0:.0f} s CPU)",
+                flush=True,
+            )
             continue
         doc = pool[:n]
         only = f1(train_grammar(doc)) if n <= 200 else float("nan")
@@ -149,13 +175,14 @@ def _table(args: argparse.Namespace, rows: list[int], reference: list[Tree], poo
         if not args.no_informative:
             assert prev is not None
             need = n - len(picked)
-            picked += _informative(pool, set(picked), prev, need, max(args.candidates, need),
-                                   rng)
+            picked += _informative(pool, set(picked), prev, need, max(args.candidates, need), rng)
             g_inf, weighting = _auto([pool[i] for i in picked], reference)
             prev, inf, w_inf = g_inf, f1(g_inf), describe(weighting)
-        print(f"{n:>5}  {only:>14.2f}  {plain:>12.2f}  {auto:>11.2f}  {inf:>17.2f}  "
-              f"{describe(w_auto)} / {w_inf}  ({time.process_time() - t0:.0f} s CPU)",
-              flush=True)
+        print(
+            f"{n:>5}  {only:>14.2f}  {plain:>12.2f}  {auto:>11.2f}  {inf:>17.2f}  "
+            f"{describe(w_auto)} / {w_inf}  ({time.process_time() - t0:.0f} s CPU)",
+            flush=True,
+        )
 
 
 def _job(reference: list[Tree], pool: list[Tree]) -> None:
@@ -167,10 +194,13 @@ def _job(reference: list[Tree], pool: list[Tree]) -> None:
     c1, w1 = time.process_time(), time.perf_counter()
     train_grammar(trees, reference=reference, weighting=choice.weighting)
     c2, w2 = time.process_time(), time.perf_counter()
-    print(f"job with {len(reference)} reference + {len(trees)} in-domain trees: weight choice "
-          f"(grid of 5 on {len(held)} held-out) {c1 - c0:.1f} s CPU / {w1 - w0:.1f} s wall, "
-          f"final grammar {c2 - c1:.1f} s CPU / {w2 - w1:.1f} s wall; load "
-          f"{os.getloadavg()[0]:.1f}", flush=True)
+    print(
+        f"job with {len(reference)} reference + {len(trees)} in-domain trees: weight choice "
+        f"(grid of 5 on {len(held)} held-out) {c1 - c0:.1f} s CPU / {w1 - w0:.1f} s wall, "
+        f"final grammar {c2 - c1:.1f} s CPU / {w2 - w1:.1f} s wall; load "
+        f"{os.getloadavg()[0]:.1f}",
+        flush=True,
+    )
 
 
 if __name__ == "__main__":

@@ -32,9 +32,11 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-WORDS = ("tide quay ferry mate rope winch hull deck bell crane gull buoy lock sluice barge "
-         "the a of at on under over rang turned filled waited drifted early late north "
-         "south . ,").split()
+WORDS = (
+    "tide quay ferry mate rope winch hull deck bell crane gull buoy lock sluice barge "
+    "the a of at on under over rang turned filled waited drifted early late north "
+    "south . ,"
+).split()
 
 
 def write_file(path: Path, count: int, seed: int = 7) -> None:
@@ -69,8 +71,13 @@ print(result.imported, time.perf_counter() - start,
 def run(way: str, path: Path) -> tuple[int, float, float]:
     """(sentences imported, seconds, peak MB) of one import in a child process."""
     with tempfile.TemporaryDirectory() as folder:
-        proc = subprocess.run([sys.executable, "-c", CHILD, way, folder, str(path)],
-                              cwd=ROOT, capture_output=True, text=True, check=False)
+        proc = subprocess.run(
+            [sys.executable, "-c", CHILD, way, folder, str(path)],
+            cwd=ROOT,
+            capture_output=True,
+            text=True,
+            check=False,
+        )
         if proc.returncode != 0:
             raise SystemExit(f"{way} import failed:\n{proc.stderr[-2000:]}")
         imported, seconds, peak_mb = proc.stdout.split()[-3:]

@@ -90,8 +90,7 @@ def fresh_settings(folder: Path, database_url: str | None) -> tuple[Settings, st
         conn.execute(text(f'CREATE DATABASE "{name}"'))
     admin.dispose()
     base = database_url.rsplit("/", 1)[0]
-    return Settings(data_dir=folder, database_url=f"{base}/{name}",
-                    secret_key="load-secret"), name
+    return Settings(data_dir=folder, database_url=f"{base}/{name}", secret_key="load-secret"), name
 
 
 def drop_database(database_url: str, name: str) -> None:
@@ -109,11 +108,9 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
     db = make_sessionmaker(engine)()
     try:
         for path in sorted(DEMO_DIR.glob("gold_*.ptb")):
-            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS,
-                         kind="gold")
+            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="gold")
         for path in sorted(DEMO_DIR.glob("raw_*.txt")):
-            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS,
-                         kind="text")
+            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="text")
         corpus = db.scalar(select(Corpus).where(Corpus.name == CORPUS))
         assert corpus is not None
         # the gold import queued the first version; train it here, as the demo does
@@ -121,13 +118,22 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
         if version.status != "ready":
             sys.exit(f"the grammar did not train: {version.status} {version.message}")
         password_hash = hash_password(PASSWORD)
-        users = [User(username=f"load{i:02d}", display_name=f"Load {i}", role="annotator",
-                      password_hash=password_hash) for i in range(clients)]
+        users = [
+            User(
+                username=f"load{i:02d}",
+                display_name=f"Load {i}",
+                role="annotator",
+                password_hash=password_hash,
+            )
+            for i in range(clients)
+        ]
         db.add_all(users)
         db.flush()
-        rows = db.execute(select(Sentence.id, Sentence.tokens).where(
-            Sentence.corpus_id == corpus.id, Sentence.state == "queued")
-            .order_by(Sentence.id)).all()
+        rows = db.execute(
+            select(Sentence.id, Sentence.tokens)
+            .where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
+            .order_by(Sentence.id)
+        ).all()
         raw = [sid for sid, _ in rows]
         words = {sid: [escape_word(str(w)) for w in tokens] for sid, tokens in rows}
         mine: dict[str, list[int]] = {u.username: [] for u in users}
@@ -144,9 +150,18 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
 
 
 # --------------------------------------------------------------------------- one client
-def run_client(client: Client, sentences: list[int], words: dict[int, list[str]],
-               corpus_id: int, warmup_until: float, stop_at: float, seed_value: int,
-               out: Tally, lock: threading.Lock, think: float = 0.0) -> None:
+def run_client(
+    client: Client,
+    sentences: list[int],
+    words: dict[int, list[str]],
+    corpus_id: int,
+    warmup_until: float,
+    stop_at: float,
+    seed_value: int,
+    out: Tally,
+    lock: threading.Lock,
+    think: float = 0.0,
+) -> None:
     rnd = random.Random(seed_value)
     mine = Tally()
     heads = dict.fromkeys(sentences, 0)  # a fresh database: nothing saved yet
@@ -162,8 +177,9 @@ def run_client(client: Client, sentences: list[int], words: dict[int, list[str]]
                 url = rnd.choice(["/queue", f"/bench/{sid}", f"/corpora/{corpus_id}", "/"])
                 resp = client.http.get(url)
             elif kind == "save":
-                tree = "(ROOT (S " + " ".join(f"({rnd.choice(TAGS)} {w})"
-                                              for w in words[sid]) + "))"
+                tree = (
+                    "(ROOT (S " + " ".join(f"({rnd.choice(TAGS)} {w})" for w in words[sid]) + "))"
+                )
                 resp = client.save(sid, heads[sid], tree)
                 if resp.status_code == 201:
                     heads[sid] = resp.json()["revision"]["number"]
@@ -207,15 +223,32 @@ def run(database_url: str | None, args: argparse.Namespace) -> Tally:
         tally = Tally()
         lock = threading.Lock()
         with LiveServer(settings, workers=args.workers, log=folder / "server.log") as server:
-            clients = [(Client(server.url, name, PASSWORD, timeout=60), sids)
-                       for name, sids in sorted(mine.items()) if sids]
+            clients = [
+                (Client(server.url, name, PASSWORD, timeout=60), sids)
+                for name, sids in sorted(mine.items())
+                if sids
+            ]
             start = time.monotonic()  # every client is logged in: the clock starts
             warmup_until = start + args.warmup
             stop_at = warmup_until + args.seconds
-            threads = [threading.Thread(target=run_client, args=(
-                client, sids, words, corpus_id, warmup_until, stop_at, i, tally, lock,
-                args.think))
-                for i, (client, sids) in enumerate(clients)]
+            threads = [
+                threading.Thread(
+                    target=run_client,
+                    args=(
+                        client,
+                        sids,
+                        words,
+                        corpus_id,
+                        warmup_until,
+                        stop_at,
+                        i,
+                        tally,
+                        lock,
+                        args.think,
+                    ),
+                )
+                for i, (client, sids) in enumerate(clients)
+            ]
             for t in threads:
                 t.start()
             for t in threads:
@@ -237,23 +270,28 @@ def report(columns: dict[str, Tally], seconds: float) -> None:
     print(head)
     print("-" * len(head))
     for kind in KINDS:
-        for label, fn in (("n", lambda v: f"{len(v)}"),
-                          ("p50 ms", lambda v: f"{percentile(v, .5):.1f}"),
-                          ("p95 ms", lambda v: f"{percentile(v, .95):.1f}"),
-                          ("max ms", lambda v: f"{max(v) if v else float('nan'):.1f}")):
+        for label, fn in (
+            ("n", lambda v: f"{len(v)}"),
+            ("p50 ms", lambda v: f"{percentile(v, 0.5):.1f}"),
+            ("p95 ms", lambda v: f"{percentile(v, 0.95):.1f}"),
+            ("max ms", lambda v: f"{max(v) if v else float('nan'):.1f}"),
+        ):
             cells = "".join(f"{fn(columns[n].latencies[kind]):>28}" for n in names)
             print(f"{kind:<8} {label:>8}{cells}")
         cells = "".join(f"{columns[n].errors[kind]:>28}" for n in names)
         print(f"{kind:<8} {'errors':>8}{cells}")
-    total = "".join(f"{sum(len(v) for v in columns[n].latencies.values()) / seconds:>24.1f} r/s"
-                    for n in names)
+    total = "".join(
+        f"{sum(len(v) for v in columns[n].latencies.values()) / seconds:>24.1f} r/s" for n in names
+    )
     print(f"{'all':<8} {'rate':>8}{total}")
     for n in names:
-        p95 = percentile(columns[n].latencies["save"], .95)
+        p95 = percentile(columns[n].latencies["save"], 0.95)
         errors = sum(columns[n].errors.values())
         verdict = "met" if p95 < TARGET_SAVE_P95_MS and errors == 0 else "MISSED"
-        print(f"{n}: p95 save {p95:.1f} ms, {errors} error(s); target p95 save < "
-              f"{TARGET_SAVE_P95_MS:.0f} ms with no errors: {verdict}")
+        print(
+            f"{n}: p95 save {p95:.1f} ms, {errors} error(s); target p95 save < "
+            f"{TARGET_SAVE_P95_MS:.0f} ms with no errors: {verdict}"
+        )
         for sample in columns[n].samples[:5]:
             print(f"  e.g. {sample}")
 
@@ -264,20 +302,32 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=30.0)
     ap.add_argument("--warmup", type=float, default=5.0)
     ap.add_argument("--workers", type=int, default=1)
-    ap.add_argument("--think", type=float, default=0.0,
-                    help="mean pause in seconds between a client's requests (0: none, each "
-                         "client sends its next request as soon as it has the answer)")
-    ap.add_argument("--database-url", default=None,
-                    help="a PostgreSQL server URL; a fresh database is made on it")
-    ap.add_argument("--compare-with", default=None,
-                    help="also run on this PostgreSQL server and print both side by side")
+    ap.add_argument(
+        "--think",
+        type=float,
+        default=0.0,
+        help="mean pause in seconds between a client's requests (0: none, each "
+        "client sends its next request as soon as it has the answer)",
+    )
+    ap.add_argument(
+        "--database-url",
+        default=None,
+        help="a PostgreSQL server URL; a fresh database is made on it",
+    )
+    ap.add_argument(
+        "--compare-with",
+        default=None,
+        help="also run on this PostgreSQL server and print both side by side",
+    )
     args = ap.parse_args()
     if args.clients < 2:
         ap.error("--clients must be at least 2")
     columns: dict[str, Tally] = {}
     first = "postgresql" if args.database_url else "sqlite"
-    print(f"{args.clients} clients, {args.seconds:.0f} s after {args.warmup:.0f} s warm-up, "
-          f"{args.workers} server worker(s), think time {args.think:g} s, loopback only")
+    print(
+        f"{args.clients} clients, {args.seconds:.0f} s after {args.warmup:.0f} s warm-up, "
+        f"{args.workers} server worker(s), think time {args.think:g} s, loopback only"
+    )
     columns[f"{first} ({args.workers}w)"] = run(args.database_url, args)
     if args.compare_with:
         columns[f"postgresql ({args.workers}w)"] = run(args.compare_with, args)

@@ -81,8 +81,9 @@ class HealthPoller(threading.Thread):
         return lat, bad
 
 
-def storm(url: str, count: int, wrong_share: float,
-          timeout: float) -> tuple[list[float], int, dict[int, int]]:
+def storm(
+    url: str, count: int, wrong_share: float, timeout: float
+) -> tuple[list[float], int, dict[int, int]]:
     """``count`` logins released at once; returns latencies (ms), 5xx/failures, status counts."""
     barrier = threading.Barrier(count)
     latencies: list[float] = []
@@ -96,8 +97,9 @@ def storm(url: str, count: int, wrong_share: float,
             barrier.wait()
             start = time.perf_counter()
             try:
-                status = http.post("/login", data={"username": f"storm{i}",
-                                                   "password": password}).status_code
+                status = http.post(
+                    "/login", data={"username": f"storm{i}", "password": password}
+                ).status_code
             except httpx.HTTPError:
                 status = 599
             took = (time.perf_counter() - start) * 1000
@@ -115,8 +117,10 @@ def storm(url: str, count: int, wrong_share: float,
 
 
 def row(name: str, lat: list[float], bad: int) -> str:
-    return (f"{name:<22}{len(lat):>7}{statistics.median(lat) if lat else float('nan'):>10.1f}"
-            f"{percentile(lat, 0.95):>10.1f}{max(lat) if lat else float('nan'):>10.1f}{bad:>6}")
+    return (
+        f"{name:<22}{len(lat):>7}{statistics.median(lat) if lat else float('nan'):>10.1f}"
+        f"{percentile(lat, 0.95):>10.1f}{max(lat) if lat else float('nan'):>10.1f}{bad:>6}"
+    )
 
 
 def main() -> None:
@@ -125,19 +129,31 @@ def main() -> None:
     ap.add_argument("--wrong-share", type=float, default=0.5)
     ap.add_argument("--rounds", type=int, default=1)
     ap.add_argument("--delay-seconds", type=float, default=2.0)
-    ap.add_argument("--timeout", type=float, default=60.0,
-                    help="seconds a client waits for an answer before counting it failed")
+    ap.add_argument(
+        "--timeout",
+        type=float,
+        default=60.0,
+        help="seconds a client waits for an answer before counting it failed",
+    )
     args = ap.parse_args()
     print("load:", os.getloadavg())
     with tempfile.TemporaryDirectory() as tmp:
-        settings = Settings(data_dir=Path(tmp), secret_key="storm-secret",
-                            login_delay_seconds=args.delay_seconds)
+        settings = Settings(
+            data_dir=Path(tmp), secret_key="storm-secret", login_delay_seconds=args.delay_seconds
+        )
         upgrade_to_head(settings)
         engine = make_engine(settings)
         hashed = hash_password(PASSWORD)
         with make_sessionmaker(engine)() as db:
-            db.add_all(User(username=f"storm{i}", display_name=f"Storm {i}", role="annotator",
-                            password_hash=hashed) for i in range(args.logins))
+            db.add_all(
+                User(
+                    username=f"storm{i}",
+                    display_name=f"Storm {i}",
+                    role="annotator",
+                    password_hash=hashed,
+                )
+                for i in range(args.logins)
+            )
             db.commit()
         engine.dispose()
         with LiveServer(settings) as server:
@@ -157,8 +173,10 @@ def main() -> None:
             during, during_bad = poller.take()
             poller.running = False
             poller.join()
-    print(f"{args.logins} simultaneous logins x {args.rounds} round(s), "
-          f"{args.wrong_share:.0%} wrong; login answers: {dict(sorted(statuses.items()))}")
+    print(
+        f"{args.logins} simultaneous logins x {args.rounds} round(s), "
+        f"{args.wrong_share:.0%} wrong; login answers: {dict(sorted(statuses.items()))}"
+    )
     print(f"{'':<22}{'count':>7}{'p50 ms':>10}{'p95 ms':>10}{'max ms':>10}{'5xx':>6}")
     print(row("health, quiet", quiet, quiet_bad))
     print(row("health, during storm", during, during_bad))

@@ -46,24 +46,32 @@ def main() -> None:
     files = sorted(GUM.glob("*.ptb"))
     if not files:
         sys.exit(f"no shared trees at {GUM}")
-    train = [t for f in files[:args.files] for t in read_trees(f.read_text(encoding="utf-8"))]
+    train = [t for f in files[: args.files] for t in read_trees(f.read_text(encoding="utf-8"))]
     t0 = time.process_time()
     grammar = train_grammar(train)
     print(f"trained on {len(train)} trees in {time.process_time() - t0:.1f} s CPU")
-    stream = [w for f in files[args.files:] for t in read_trees(f.read_text(encoding="utf-8"))
-              for w in words(t)]
+    stream = [
+        w
+        for f in files[args.files :]
+        for t in read_trees(f.read_text(encoding="utf-8"))
+        for w in words(t)
+    ]
     parse(grammar, stream[:5], k=2, posteriors=True)  # load the compiled loops first
     base_v = base_s = 0.0
-    print(f"{'words':>6} {'viterbi+k5 s':>13} {'ratio':>7} {'suggestion s':>13} {'ratio':>7} "
-          f"{'n^3 ratio':>10}")
+    print(
+        f"{'words':>6} {'viterbi+k5 s':>13} {'ratio':>7} {'suggestion s':>13} {'ratio':>7} "
+        f"{'n^3 ratio':>10}"
+    )
     for n in LENGTHS:
         sentence = stream[:n]
         v = _cpu(lambda s=sentence: parse(grammar, s, k=5))
         s = _cpu(lambda s=sentence: parse(grammar, s, k=5, posteriors=True))
         if n == LENGTHS[0]:
             base_v, base_s = v, s
-        print(f"{n:>6} {v:>13.3f} {v / base_v:>7.1f} {s:>13.3f} {s / base_s:>7.1f} "
-              f"{(n / LENGTHS[0]) ** 3:>10.0f}")
+        print(
+            f"{n:>6} {v:>13.3f} {v / base_v:>7.1f} {s:>13.3f} {s / base_s:>7.1f} "
+            f"{(n / LENGTHS[0]) ** 3:>10.0f}"
+        )
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"peak memory {peak:.0f} MB")
 

@@ -61,14 +61,19 @@ from tests.app.conftest import PASSWORD  # noqa: E402
 from tests.app.live_server import Client, LiveServer, add_annotators  # noqa: E402
 
 CONFIGS = {
-    "unbounded": {"TREEWRIGHT_PARSE_SLOTS": "64", "TREEWRIGHT_PARSE_THREADS": "2",
-                  "TREEWRIGHT_PARSE_MAX_WORDS": "250", "TREEWRIGHT_PARSE_WAIT_SECONDS": "600"},
+    "unbounded": {
+        "TREEWRIGHT_PARSE_SLOTS": "64",
+        "TREEWRIGHT_PARSE_THREADS": "2",
+        "TREEWRIGHT_PARSE_MAX_WORDS": "250",
+        "TREEWRIGHT_PARSE_WAIT_SECONDS": "600",
+    },
     "bounded": {},
 }
 
 
-def seed(settings: Settings, clients: int, n_words: int, long_words: int
-         ) -> tuple[list[int], int, int]:
+def seed(
+    settings: Settings, clients: int, n_words: int, long_words: int
+) -> tuple[list[int], int, int]:
     """The sentences: one per client, the long one, one for the saver."""
     upgrade_to_head(settings)
     engine = make_engine(settings)
@@ -161,8 +166,10 @@ def run(name: str, env: dict[str, str], args: argparse.Namespace) -> dict[str, f
 
             poller = threading.Thread(target=poll)
             poller.start()
-            threads = [threading.Thread(target=open_page, args=(c, sid))
-                       for c, sid in zip(clients, mine, strict=False)]
+            threads = [
+                threading.Thread(target=open_page, args=(c, sid))
+                for c, sid in zip(clients, mine, strict=False)
+            ]
             for t in threads:
                 t.start()
             t_burst = time.perf_counter()
@@ -176,8 +183,8 @@ def run(name: str, env: dict[str, str], args: argparse.Namespace) -> dict[str, f
             out["burst: median page s"] = statistics.median(pages)
             out["burst: pages answered 503"] = busy[0]
             out["burst: whole burst s"] = burst_s
-            out["health p50 ms"] = percentile(health_ms, .5)
-            out["health p95 ms"] = percentile(health_ms, .95)
+            out["health p50 ms"] = percentile(health_ms, 0.5)
+            out["health p95 ms"] = percentile(health_ms, 0.95)
             out["health max ms"] = max(health_ms)
             out["peak memory MB"] = _proc_kb(pid, "VmHWM") / 1024
             time.sleep(5)
@@ -202,14 +209,15 @@ def run(name: str, env: dict[str, str], args: argparse.Namespace) -> dict[str, f
             head = 0
             for _ in range(20):
                 t0 = time.perf_counter()
-                resp = saver.save(save_id, head, flat_text(["the", "crew", "ate"]),
-                                  confirm_labels=True)
+                resp = saver.save(
+                    save_id, head, flat_text(["the", "crew", "ate"]), confirm_labels=True
+                )
                 saves.append((time.perf_counter() - t0) * 1000)
                 if resp.status_code == 201:
                     head = resp.json()["revision"]["number"]
                 time.sleep(0.2)
             opener.join()
-            out["long: save p50 ms"] = percentile(saves, .5)
+            out["long: save p50 ms"] = percentile(saves, 0.5)
             out["long: save max ms"] = max(saves)
             out[f"long: {args.long}-word sentence opened s"] = long_s[0]
             for c in clients:
@@ -232,8 +240,10 @@ def main() -> None:
     for name in names:
         print(f"running {name} (load average {os.getloadavg()[0]:.1f})", flush=True)
         results[name] = run(name, CONFIGS[name], args)
-    print(f"\n{args.clients} clients open uncached {args.words}-word sentences at once; "
-          f"load average now {os.getloadavg()[0]:.1f}")
+    print(
+        f"\n{args.clients} clients open uncached {args.words}-word sentences at once; "
+        f"load average now {os.getloadavg()[0]:.1f}"
+    )
     print(f"{'figure':<34}" + "".join(f"{n:>14}" for n in names))
     for key in results[names[0]]:
         print(f"{key:<34}" + "".join(f"{results[n][key]:>14.2f}" for n in names))

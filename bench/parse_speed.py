@@ -111,31 +111,37 @@ def main() -> None:
         nltk_s = time.process_time() - t0
         ours_s = _cpu(lambda w=words: parse(ref_g, w), 5 if args.quick else 11)
         ours = parse(ref_g, words)
-        same = bool(best) and math.isclose(best[0].logprob() * math.log(2), ours.logprobs[0],
-                                           abs_tol=1e-9)
+        same = bool(best) and math.isclose(
+            best[0].logprob() * math.log(2), ours.logprobs[0], abs_tol=1e-9
+        )
         ratios.append(nltk_s / ours_s)
-        print(f"len {len(words):2d}: nltk {nltk_s:8.2f} s CPU  ours {1000 * ours_s:7.2f} ms CPU"
-              f"  ratio {nltk_s / ours_s:8.0f}  same best log-prob: {same}")
+        print(
+            f"len {len(words):2d}: nltk {nltk_s:8.2f} s CPU  ours {1000 * ours_s:7.2f} ms CPU"
+            f"  ratio {nltk_s / ours_s:8.0f}  same best log-prob: {same}"
+        )
     numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
 
     repeats = 3 if args.quick else 5
     n_sent = 3 if args.quick else 5
-    print(f"ours by length (median ms over {n_sent} sentences x {repeats} runs): "
-          "viterbi | k=10 | posteriors | best+k=10+posteriors")
+    print(
+        f"ours by length (median ms over {n_sent} sentences x {repeats} runs): "
+        "viterbi | k=10 | posteriors | best+k=10+posteriors"
+    )
     for n in (10, 20, 30, 40):
         group = by_len.get(n, [])[:n_sent]
         if not group:
             continue
         cols = []
         for kw in ({}, {"k": 10}, {"posteriors": True}, {"k": 10, "posteriors": True}):
-            runs = [t for w in group
-                    for t in _times(lambda w=w, kw=kw: parse(g, w, **kw), repeats)]
+            runs = [t for w in group for t in _times(lambda w=w, kw=kw: parse(g, w, **kw), repeats)]
             cols.append(statistics.median(runs))
         print(f"len {n:2d}: " + " | ".join(f"{1000 * c:8.1f}" for c in cols))
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"peak memory: {peak:.0f} MB")
-    print(f"speedup_vs_nltk_len11_20={statistics.median(ratios):.0f} (median of {len(ratios)} "
-          "sentences, CPU time, one thread each)")
+    print(
+        f"speedup_vs_nltk_len11_20={statistics.median(ratios):.0f} (median of {len(ratios)} "
+        "sentences, CPU time, one thread each)"
+    )
 
 
 if __name__ == "__main__":

@@ -56,8 +56,13 @@ from parser.variation import (  # noqa: E402
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
 LABELS = ["NP", "VP", "PP", "ADJP", "ADVP", "S", "SBAR", "NML", "QP", "PRN"]
 WORD_PATTERNS = ["the * of", "in the", "it was", "said", "ferry"]
-SHAPE_PATTERNS = ["(NP (DT the) ...)", "(VP ... (PP in (NP ...)))", "(S ... ~(NP ...))",
-                  "(SBAR ... (S ... (VP ... (NP) ...)))", "(NP|NML ... ~said ...)"]
+SHAPE_PATTERNS = [
+    "(NP (DT the) ...)",
+    "(VP ... (PP in (NP ...)))",
+    "(S ... ~(NP ...))",
+    "(SBAR ... (S ... (VP ... (NP) ...)))",
+    "(NP|NML ... ~said ...)",
+]
 
 
 def load_gum() -> tuple[list[Path], list[Tree]]:
@@ -112,14 +117,17 @@ def service_figures(files: list[Path], trees: list[Tree], n_sentences: int) -> N
         db.commit()
         t0 = time.perf_counter()
         for path in files:
-            import_bytes(db, path.read_bytes(), source=path.name, corpus_name="GUM gold",
-                         kind="gold")
+            import_bytes(
+                db, path.read_bytes(), source=path.name, corpus_name="GUM gold", kind="gold"
+            )
         print(f"imported {len(trees)} GUM trees as gold in {time.perf_counter() - t0:.1f} s")
         gold = corpus_by_name(db, "GUM gold")
 
         run, wall, cpu = timed(lambda: finding_svc.run_now(db, gold.id, reason="bench"))
-        print(f"[1] finder run through the service on {run.trees} gold trees: {wall:.2f} s "
-              f"wall, {cpu:.2f} s CPU ({run.message}; target < 10 s)  [{load()}]")
+        print(
+            f"[1] finder run through the service on {run.trees} gold trees: {wall:.2f} s "
+            f"wall, {cpu:.2f} s CPU ({run.message}; target < 10 s)  [{load()}]"
+        )
         sources = [TreeSource(i, i, t) for i, t in enumerate(trees)]
         found, wall, cpu = timed(lambda: find_inconsistencies(sources))
         print(f"    the finder alone: {wall:.2f} s wall, {cpu:.2f} s CPU, {len(found)} findings")
@@ -127,8 +135,9 @@ def service_figures(files: list[Path], trees: list[Tree], n_sentences: int) -> N
         lines = [" ".join(t.leaves()) for t in trees]
         text = "\n".join(lines[i % len(lines)] for i in range(n_sentences)) + "\n"
         t0 = time.perf_counter()
-        import_bytes(db, text.encode(), source="many.txt", corpus_name="Many sentences",
-                     kind="text")
+        import_bytes(
+            db, text.encode(), source="many.txt", corpus_name="Many sentences", kind="text"
+        )
         print(f"imported {n_sentences} sentences as text in {time.perf_counter() - t0:.1f} s")
         many = corpus_by_name(db, "Many sentences")
 
@@ -136,21 +145,29 @@ def service_figures(files: list[Path], trees: list[Tree], n_sentences: int) -> N
             return search_svc.search(db, corpus, None, pattern, scope=scope).total
 
         total, wall, cpu = timed(lambda: search(many, WORD_PATTERNS[0], "sentences"))
-        print(f"[2] word-string search over {n_sentences} sentences: first search (builds the "
-              f"index) {wall * 1000:.0f} ms wall, {cpu * 1000:.0f} ms CPU ({total} matches)")
+        print(
+            f"[2] word-string search over {n_sentences} sentences: first search (builds the "
+            f"index) {wall * 1000:.0f} ms wall, {cpu * 1000:.0f} ms CPU ({total} matches)"
+        )
         for pattern in WORD_PATTERNS:
             total, wall, cpu = medians(lambda p=pattern: search(many, p, "sentences"), 7)
-            print(f"    {pattern!r:12}: median {wall:6.1f} ms wall, {cpu:6.1f} ms CPU over 7; "
-                  f"{total} matching sentences (target < 200 ms)")
+            print(
+                f"    {pattern!r:12}: median {wall:6.1f} ms wall, {cpu:6.1f} ms CPU over 7; "
+                f"{total} matching sentences (target < 200 ms)"
+            )
         print(f"    [{load()}]")
 
         total, wall, cpu = timed(lambda: search(gold, SHAPE_PATTERNS[0], "gold"))
-        print(f"[3] tree-shape search over {len(trees)} gold trees: first search (reads the "
-              f"trees, builds the index) {wall * 1000:.0f} ms wall, {cpu * 1000:.0f} ms CPU")
+        print(
+            f"[3] tree-shape search over {len(trees)} gold trees: first search (reads the "
+            f"trees, builds the index) {wall * 1000:.0f} ms wall, {cpu * 1000:.0f} ms CPU"
+        )
         for pattern in SHAPE_PATTERNS:
             total, wall, cpu = medians(lambda p=pattern: search(gold, p, "gold"), 5)
-            print(f"    {pattern!r:40}: median {wall:6.1f} ms wall, {cpu:6.1f} ms CPU over 5; "
-                  f"{total} trees (target < 1000 ms)")
+            print(
+                f"    {pattern!r:40}: median {wall:6.1f} ms wall, {cpu:6.1f} ms CPU over 5; "
+                f"{total} trees (target < 1000 ms)"
+            )
         print(f"    [{load()}]")
     app.state.engine.dispose()
 
@@ -186,15 +203,20 @@ def _child_spans(node: Tree, start: int) -> list[tuple[int, int]]:
     return spans
 
 
-def plant(trees: list[Tree], seed: int, count: int, opts: FinderOptions
-          ) -> tuple[list[Tree], list[tuple[int, int, int, str]]]:
+def plant(
+    trees: list[Tree], seed: int, count: int, opts: FinderOptions
+) -> tuple[list[Tree], list[tuple[int, int, int, str]]]:
     """A copy of ``trees`` with ``count`` plants; each (tree index, start, end, what)."""
     rng = random.Random(seed)
     words = [tuple(t.leaves()) for t in trees]
     places: dict[tuple[str, ...], list[tuple[int, int]]] = defaultdict(list)
     # the word strings that are a constituent somewhere
-    strings = {words[ti][s:e] for ti, t in enumerate(trees) for _, s, e in _phrases(t)
-               if opts.min_length <= e - s <= opts.max_length}
+    strings = {
+        words[ti][s:e]
+        for ti, t in enumerate(trees)
+        for _, s, e in _phrases(t)
+        if opts.min_length <= e - s <= opts.max_length
+    }
     # every occurrence of every candidate string (constituent or not)
     for ti, w in enumerate(words):
         for s in range(len(w)):
@@ -282,7 +304,7 @@ def plant(trees: list[Tree], seed: int, count: int, opts: FinderOptions
 
 def _contains(words: tuple[str, ...], key: tuple[str, ...]) -> bool:
     n = len(key)
-    return any(words[s:s + n] == key for s in range(len(words) - n + 1))
+    return any(words[s : s + n] == key for s in range(len(words) - n + 1))
 
 
 def _start_of(tree: Tree, pos: tuple[int, ...]) -> int:
@@ -300,8 +322,9 @@ def recall_figures(trees: list[Tree], seed: int, count: int) -> None:
     opts = FinderOptions()
     base = find_inconsistencies([TreeSource(i, i, t) for i, t in enumerate(trees)], opts)
     changed, planted = plant(trees, seed, count, opts)
-    found, wall, _ = timed(lambda: find_inconsistencies(
-        [TreeSource(i, i, t) for i, t in enumerate(changed)], opts))
+    found, wall, _ = timed(
+        lambda: find_inconsistencies([TreeSource(i, i, t) for i, t in enumerate(changed)], opts)
+    )
     where = {(ti, s, e): n for n, (ti, s, e, _) in enumerate(planted)}
     rank_of: dict[int, int] = {}
     bracket_rank_of: dict[int, int] = {}
@@ -319,29 +342,37 @@ def recall_figures(trees: list[Tree], seed: int, count: int) -> None:
     for n, (_, _, _, what) in enumerate(planted):
         kinds[what.split()[0]][1] += 1
         kinds[what.split()[0]][0] += n in rank_of
-    print(f"[4] planted {len(planted)} inconsistencies (seed {seed}): {len(hits)} are among the "
-          f"{len(found)} findings (target >= 90); by kind: "
-          + ", ".join(f"{k} {a}/{b}" for k, (a, b) in sorted(kinds.items()))
-          + f"; finder {wall:.1f} s")
+    print(
+        f"[4] planted {len(planted)} inconsistencies (seed {seed}): {len(hits)} are among the "
+        f"{len(found)} findings (target >= 90); by kind: "
+        + ", ".join(f"{k} {a}/{b}" for k, (a, b) in sorted(kinds.items()))
+        + f"; finder {wall:.1f} s"
+    )
     base_keys = {f.key for f in base}
     new = [f for f in found if f.key not in base_keys]
-    lifted = sum(1 for f in found if f.kind == "bracket" and f.detail["rare_rule_here"]
-                 and _is_plant(f, where))
+    lifted = sum(
+        1
+        for f in found
+        if f.kind == "bracket" and f.detail["rare_rule_here"] and _is_plant(f, where)
+    )
     print(f"    plants whose finding is corroborated by a rare rule at the place: {lifted}")
-    print(f"    the untouched copy has {len(base)} findings; the planted copy "
-          f"{len(new)} new ones, {sum(1 for f in new if _is_plant(f, where))} of them plants")
+    print(
+        f"    the untouched copy has {len(base)} findings; the planted copy "
+        f"{len(new)} new ones, {sum(1 for f in new if _is_plant(f, where))} of them plants"
+    )
     for need in (50, 90, len(hits)):
         if need and len(hits) >= need:
             cut, bcut = hits[need - 1], bracket_hits[need - 1]
-            print(f"    {need} plants are reached at rank {cut} of all findings: precision at "
-                  f"that cut {need / cut:.3f}; among the {bracket_rank} bracket findings alone "
-                  f"at rank {bcut}: precision {need / bcut:.3f}")
+            print(
+                f"    {need} plants are reached at rank {cut} of all findings: precision at "
+                f"that cut {need / cut:.3f}; among the {bracket_rank} bracket findings alone "
+                f"at rank {bcut}: precision {need / bcut:.3f}"
+            )
     if len(hits) < 90:
         print("    fewer than 90 plants found: no cut reaches 90")
     missed = [planted[n] for n in range(len(planted)) if n not in rank_of]
     for ti, s, e, what in missed[:10]:
-        print(f"    missed: tree {ti} words {s}-{e} ({what}): "
-              f"{' '.join(trees[ti].leaves()[s:e])}")
+        print(f"    missed: tree {ti} words {s}-{e} ({what}): {' '.join(trees[ti].leaves()[s:e])}")
 
 
 def _is_plant(f: Any, where: dict[tuple[int, int, int], int]) -> bool:

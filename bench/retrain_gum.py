@@ -54,22 +54,27 @@ def describe(samples: list[float]) -> str:
     if not samples:
         return "no samples"
     qs = statistics.quantiles(samples, n=20) if len(samples) >= 20 else [max(samples)] * 19
-    return (f"median {statistics.median(samples):.1f} ms, 95th percentile {qs[18]:.1f} ms, "
-            f"max {max(samples):.1f} ms over {len(samples)} requests")
+    return (
+        f"median {statistics.median(samples):.1f} ms, 95th percentile {qs[18]:.1f} ms, "
+        f"max {max(samples):.1f} ms over {len(samples)} requests"
+    )
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--files", type=int, default=0, help="only the first N GUM files")
-    ap.add_argument("--wait-refresh", action="store_true",
-                    help="also wait for the suggestion refresh that follows activation")
+    ap.add_argument(
+        "--wait-refresh",
+        action="store_true",
+        help="also wait for the suggestion refresh that follows activation",
+    )
     ap.add_argument("--keep", type=Path, help="data folder to use and keep (default: temp)")
     args = ap.parse_args()
     if not GUM.is_dir():
         raise SystemExit(f"GUM trees not found at {GUM}")
     files = sorted(GUM.glob("*.ptb"))
     if args.files:
-        files = files[:args.files]
+        files = files[: args.files]
 
     data_dir = args.keep or Path(tempfile.mkdtemp(prefix="tw-bench-"))
     settings = Settings(data_dir=data_dir, secret_key="bench", training_in_process=False)
@@ -82,10 +87,13 @@ def main() -> None:
         corpus_id = corpus.id
         trees = 0
         for path in files:
-            trees += import_bytes(db, path.read_bytes(), source=path.name,
-                                  corpus_name="GUM bench", kind="gold").imported
-    print(f"imported {trees} GUM trees from {len(files)} files as gold in "
-          f"{time.perf_counter() - t0:.1f} s (database in {data_dir})")
+            trees += import_bytes(
+                db, path.read_bytes(), source=path.name, corpus_name="GUM bench", kind="gold"
+            ).imported
+    print(
+        f"imported {trees} GUM trees from {len(files)} files as gold in "
+        f"{time.perf_counter() - t0:.1f} s (database in {data_dir})"
+    )
 
     client = TestClient(app)
     idle = latency_ms(client, 200)
@@ -103,8 +111,9 @@ def main() -> None:
             assert row is not None
             status, progress, message = row.status, row.progress, row.message
         if message != last_message:
-            print(f"  {time.perf_counter() - t_start:7.1f} s  {status:9s} {progress:5.2f}  "
-                  f"{message}")
+            print(
+                f"  {time.perf_counter() - t_start:7.1f} s  {status:9s} {progress:5.2f}  {message}"
+            )
             last_message = message
         if status not in (GV_QUEUED, GV_TRAINING):
             if t_ready is None:
@@ -119,16 +128,22 @@ def main() -> None:
         assert row is not None
         opts = row.options or {}
         print()
-        print(f"version {row.number}: {row.status}; {row.training_size} gold trees, "
-              f"{row.heldout_size} held out (every {opts.get('heldout_every')}th sentence id)")
+        print(
+            f"version {row.number}: {row.status}; {row.training_size} gold trees, "
+            f"{row.heldout_size} held out (every {opts.get('heldout_every')}th sentence id)"
+        )
         if row.heldout_f1 is not None:
             h = opts.get("heldout", {})
-            print(f"held-out labelled F1 {row.heldout_f1:.4f} (P {h.get('precision', 0):.4f}, "
-                  f"R {h.get('recall', 0):.4f}, exact {h.get('exact', 0):.3f}, "
-                  f"{h.get('fallbacks', 0)} fallback parses)")
+            print(
+                f"held-out labelled F1 {row.heldout_f1:.4f} (P {h.get('precision', 0):.4f}, "
+                f"R {h.get('recall', 0):.4f}, exact {h.get('exact', 0):.3f}, "
+                f"{h.get('fallbacks', 0)} fallback parses)"
+            )
         print(f"wall time from 'train now' to the active grammar: {t_ready:.1f} s")
-        print(f"job time recorded (train_seconds): {row.train_seconds:.1f} s; split: "
-              + ", ".join(f"{k} {v:.1f} s" for k, v in opts.get("timing", {}).items()))
+        print(
+            f"job time recorded (train_seconds): {row.train_seconds:.1f} s; split: "
+            + ", ".join(f"{k} {v:.1f} s" for k, v in opts.get("timing", {}).items())
+        )
         if args.wait_refresh:
             print(f"with the suggestion refresh: {t_done:.1f} s; {row.message}")
     print(f"health endpoint idle:           {describe(idle)}")

@@ -83,7 +83,7 @@ def gum_trees() -> list[Any]:
 
 def _bulk(db: Session, model: type, rows: list[dict[str, Any]]) -> None:
     for at in range(0, len(rows), CHUNK):
-        db.execute(insert(model), rows[at:at + CHUNK])
+        db.execute(insert(model), rows[at : at + CHUNK])
 
 
 def build(settings: Settings, size: int, trees: list[Any]) -> dict[str, int]:
@@ -97,72 +97,163 @@ def build(settings: Settings, size: int, trees: list[Any]) -> dict[str, int]:
     try:
         admin = User(username="scale-admin", role="admin", password_hash=password_hash)
         reader = User(username="reader", role="annotator", password_hash=password_hash)
-        pairs = [User(username=f"pair{i:02d}", role="annotator", password_hash=password_hash)
-                 for i in range(20)]
+        pairs = [
+            User(username=f"pair{i:02d}", role="annotator", password_hash=password_hash)
+            for i in range(20)
+        ]
         corpus = Corpus(name=f"scale {size}", label_set=[], tag_set=[], settings={})
         db.add_all([admin, reader, *pairs, corpus])
         db.flush()
         n_docs = -(-size // PER_DOCUMENT)
-        _bulk(db, Document, [{"corpus_id": corpus.id, "name": f"raw-{d:05d}", "position": d}
-                             for d in range(n_docs)])
-        doc_ids = list(db.scalars(select(Document.id).where(Document.corpus_id == corpus.id)
-                                  .order_by(Document.position)))
+        _bulk(
+            db,
+            Document,
+            [
+                {"corpus_id": corpus.id, "name": f"raw-{d:05d}", "position": d}
+                for d in range(n_docs)
+            ],
+        )
+        doc_ids = list(
+            db.scalars(
+                select(Document.id)
+                .where(Document.corpus_id == corpus.id)
+                .order_by(Document.position)
+            )
+        )
         rows = []
         for i in range(size):
             length = rnd.randint(5, 40)
             at = rnd.randrange(len(vocabulary) - length)
-            toks = vocabulary[at:at + length]
-            rows.append({"corpus_id": corpus.id, "document_id": doc_ids[i // PER_DOCUMENT],
-                         "position": i % PER_DOCUMENT, "tokens": toks, "text": " ".join(toks),
-                         "state": "queued"})
+            toks = vocabulary[at : at + length]
+            rows.append(
+                {
+                    "corpus_id": corpus.id,
+                    "document_id": doc_ids[i // PER_DOCUMENT],
+                    "position": i % PER_DOCUMENT,
+                    "tokens": toks,
+                    "text": " ".join(toks),
+                    "state": "queued",
+                }
+            )
         _bulk(db, Sentence, rows)
-        placed = db.execute(select(Sentence.id, Sentence.document_id, Sentence.position)
-                            .where(Sentence.corpus_id == corpus.id)
-                            .order_by(Sentence.document_id, Sentence.position)).all()
+        placed = db.execute(
+            select(Sentence.id, Sentence.document_id, Sentence.position)
+            .where(Sentence.corpus_id == corpus.id)
+            .order_by(Sentence.document_id, Sentence.position)
+        ).all()
         raw = [sid for sid, _, _ in placed]
         # as the assignment service stores them
-        _bulk(db, Assignment, [{"sentence_id": sid, "user_id": reader.id,
-                                "corpus_id": corpus.id, "rank": reading_rank(doc, pos)}
-                               for sid, doc, pos in placed])
+        _bulk(
+            db,
+            Assignment,
+            [
+                {
+                    "sentence_id": sid,
+                    "user_id": reader.id,
+                    "corpus_id": corpus.id,
+                    "rank": reading_rank(doc, pos),
+                }
+                for sid, doc, pos in placed
+            ],
+        )
         # gold: one document per 200 GUM trees
         first_gold_doc = n_docs
         gold_docs = -(-len(trees) // PER_DOCUMENT)
-        _bulk(db, Document, [{"corpus_id": corpus.id, "name": f"gold-{d:05d}",
-                              "position": first_gold_doc + d} for d in range(gold_docs)])
-        gdoc_ids = list(db.scalars(select(Document.id).where(
-            Document.corpus_id == corpus.id, Document.position >= first_gold_doc)
-            .order_by(Document.position)))
-        _bulk(db, Sentence, [{"corpus_id": corpus.id, "document_id": gdoc_ids[i // PER_DOCUMENT],
-                              "position": i % PER_DOCUMENT, "tokens": words(t),
-                              "text": " ".join(words(t)), "state": "gold"}
-                             for i, t in enumerate(trees)])
-        gold_ids = list(db.scalars(select(Sentence.id).where(
-            Sentence.corpus_id == corpus.id, Sentence.state == "gold").order_by(Sentence.id)))
-        _bulk(db, Gold, [{"sentence_id": sid, "tree": write_tree(t), "provenance": "import"}
-                         for sid, t in zip(gold_ids, trees, strict=True)])
+        _bulk(
+            db,
+            Document,
+            [
+                {"corpus_id": corpus.id, "name": f"gold-{d:05d}", "position": first_gold_doc + d}
+                for d in range(gold_docs)
+            ],
+        )
+        gdoc_ids = list(
+            db.scalars(
+                select(Document.id)
+                .where(Document.corpus_id == corpus.id, Document.position >= first_gold_doc)
+                .order_by(Document.position)
+            )
+        )
+        _bulk(
+            db,
+            Sentence,
+            [
+                {
+                    "corpus_id": corpus.id,
+                    "document_id": gdoc_ids[i // PER_DOCUMENT],
+                    "position": i % PER_DOCUMENT,
+                    "tokens": words(t),
+                    "text": " ".join(words(t)),
+                    "state": "gold",
+                }
+                for i, t in enumerate(trees)
+            ],
+        )
+        gold_ids = list(
+            db.scalars(
+                select(Sentence.id)
+                .where(Sentence.corpus_id == corpus.id, Sentence.state == "gold")
+                .order_by(Sentence.id)
+            )
+        )
+        _bulk(
+            db,
+            Gold,
+            [
+                {"sentence_id": sid, "tree": write_tree(t), "provenance": "import"}
+                for sid, t in zip(gold_ids, trees, strict=True)
+            ],
+        )
         # agreement: pairs of submitted annotations with a record each
         n_pairs = size // 25
         for i, sid in enumerate(raw[:n_pairs]):
             a, b = pairs[(2 * i) % 20], pairs[(2 * i + 1) % 20]
-            anns = [Annotation(sentence_id=sid, user_id=u.id, state="submitted", head=1)
-                    for u in (a, b)]
+            anns = [
+                Annotation(sentence_id=sid, user_id=u.id, state="submitted", head=1) for u in (a, b)
+            ]
             db.add_all(anns)
             db.flush()
             for ann in anns:
-                db.add(Revision(annotation_id=ann.id, number=1, tree="(ROOT (X x))",
-                                source="edit", user_id=ann.user_id))
-            per_label = {lab: [rnd.randint(0, 3), rnd.randint(0, 4), rnd.randint(0, 4)]
-                         for lab in rnd.sample(LABELS, 5)}
+                db.add(
+                    Revision(
+                        annotation_id=ann.id,
+                        number=1,
+                        tree="(ROOT (X x))",
+                        source="edit",
+                        user_id=ann.user_id,
+                    )
+                )
+            per_label = {
+                lab: [rnd.randint(0, 3), rnd.randint(0, 4), rnd.randint(0, 4)]
+                for lab in rnd.sample(LABELS, 5)
+            }
             matched, ca, cb = rnd.randint(5, 12), rnd.randint(12, 15), rnd.randint(12, 15)
             f1 = 2 * matched / (ca + cb)
-            db.add(AgreementRecord(
-                corpus_id=corpus.id, sentence_id=sid, annotation_a_id=anns[0].id,
-                annotation_b_id=anns[1].id, user_a_id=a.id, user_b_id=b.id, matched=matched,
-                count_a=ca, count_b=cb, labelled_precision=matched / cb,
-                labelled_recall=matched / ca, labelled_f1=f1, unlabelled_f1=min(1.0, f1 + .1),
-                pos_agreement=0.95, identical=False,
-                detail={"per_label": per_label, "unlabelled": [matched + 1, ca, cb],
-                        "pos": [19, 20], "confusions": [["NP", "QP", 1]]}))
+            db.add(
+                AgreementRecord(
+                    corpus_id=corpus.id,
+                    sentence_id=sid,
+                    annotation_a_id=anns[0].id,
+                    annotation_b_id=anns[1].id,
+                    user_a_id=a.id,
+                    user_b_id=b.id,
+                    matched=matched,
+                    count_a=ca,
+                    count_b=cb,
+                    labelled_precision=matched / cb,
+                    labelled_recall=matched / ca,
+                    labelled_f1=f1,
+                    unlabelled_f1=min(1.0, f1 + 0.1),
+                    pos_agreement=0.95,
+                    identical=False,
+                    detail={
+                        "per_label": per_label,
+                        "unlabelled": [matched + 1, ca, cb],
+                        "pos": [19, 20],
+                        "confusions": [["NP", "QP", 1]],
+                    },
+                )
+            )
         db.commit()
         return {"corpus": corpus.id, "first": raw[0], "last": raw[-1], "pairs": n_pairs}
     finally:
@@ -187,35 +278,37 @@ def _get(client: TestClient, url: str) -> Callable[[], Any]:
         if resp.status_code != 200:
             raise SystemExit(f"GET {url}: {resp.status_code} {resp.text[:200]}")
         return resp
+
     return go
 
 
 def _last_link(html: str, fallback: str) -> str:
     """The page's own link to its last page (rel="last"), else ``fallback``."""
-    found = re.search(r'href="([^"]+)"[^>]*rel="last"', html) \
-        or re.search(r'rel="last"[^>]*href="([^"]+)"', html)
+    found = re.search(r'href="([^"]+)"[^>]*rel="last"', html) or re.search(
+        r'rel="last"[^>]*href="([^"]+)"', html
+    )
     return found.group(1).replace("&amp;", "&") if found else fallback
 
 
-def measure(settings: Settings, ids: dict[str, int], size: int,
-            repeat: int) -> dict[str, float]:
+def measure(settings: Settings, ids: dict[str, int], size: int, repeat: int) -> dict[str, float]:
     app = create_app(settings)
     out: dict[str, float] = {}
     try:
         reader, admin = TestClient(app), TestClient(app)
         for client, name in ((reader, "reader"), (admin, "scale-admin")):
-            resp = client.post("/login", data={"username": name, "password": PASSWORD},
-                               follow_redirects=False)
+            resp = client.post(
+                "/login", data={"username": name, "password": PASSWORD}, follow_redirects=False
+            )
             if resp.status_code != 303:
                 raise SystemExit(f"login {name}: {resp.status_code}")
         corpus = ids["corpus"]
         out["Queue page"] = median_ms(_get(reader, "/queue"), repeat)
         out["/api/queue"] = median_ms(_get(reader, "/api/queue"), repeat)
         out["/api/queue bytes"] = float(len(reader.get("/api/queue").content))
-        out["Bench page (last sentence)"] = median_ms(_get(reader, f"/bench/{ids['last']}"),
-                                                      repeat)
+        out["Bench page (last sentence)"] = median_ms(_get(reader, f"/bench/{ids['last']}"), repeat)
         out["/api/bench (last sentence)"] = median_ms(
-            _get(reader, f"/api/bench/{ids['last']}"), repeat)
+            _get(reader, f"/api/bench/{ids['last']}"), repeat
+        )
         first = admin.get(f"/corpora/{corpus}?state=queued").text
         last = _last_link(first, f"/corpora/{corpus}?state=queued&page={-(-size // 50)}")
         out["corpus page, queued, last page"] = median_ms(_get(admin, last), repeat)
@@ -230,15 +323,18 @@ def measure(settings: Settings, ids: dict[str, int], size: int,
 
 def fresh_settings(folder: Path, database_url: str | None) -> tuple[Settings, str | None]:
     if not database_url:
-        return Settings(data_dir=folder, secret_key="scale-secret",
-                        training_in_process=True), None
+        return Settings(data_dir=folder, secret_key="scale-secret", training_in_process=True), None
     name = "tw_scale_" + uuid.uuid4().hex[:10]
     admin = create_engine(database_url, isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
         conn.execute(text(f'CREATE DATABASE "{name}"'))
     admin.dispose()
-    return Settings(data_dir=folder, database_url=f"{database_url.rsplit('/', 1)[0]}/{name}",
-                    secret_key="scale-secret", training_in_process=True), name
+    return Settings(
+        data_dir=folder,
+        database_url=f"{database_url.rsplit('/', 1)[0]}/{name}",
+        secret_key="scale-secret",
+        training_in_process=True,
+    ), name
 
 
 def drop(database_url: str, name: str) -> None:
@@ -263,8 +359,11 @@ def main() -> None:
         try:
             t0 = time.perf_counter()
             ids = build(settings, size, trees)
-            print(f"built {size:,} raw + {len(trees):,} gold sentences, {ids['pairs']:,} "
-                  f"agreement pairs in {time.perf_counter() - t0:.1f} s", flush=True)
+            print(
+                f"built {size:,} raw + {len(trees):,} gold sentences, {ids['pairs']:,} "
+                f"agreement pairs in {time.perf_counter() - t0:.1f} s",
+                flush=True,
+            )
             columns[size] = measure(settings, ids, size, args.repeat)
         finally:
             if pg_name and args.database_url:

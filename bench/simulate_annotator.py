@@ -95,8 +95,12 @@ def next_edit(tree: Tree, gold: Tree) -> tuple[str, object] | None:
     missing = list((want - have).elements())
     extra = list((have - want).elements())
     spans_have = {(s, e) for _, s, e in have}
-    addable = [b for b in missing if (b[1], b[2]) not in spans_have
-               and not any(_crosses((b[1], b[2]), (s, e)) for _, s, e in have)]
+    addable = [
+        b
+        for b in missing
+        if (b[1], b[2]) not in spans_have
+        and not any(_crosses((b[1], b[2]), (s, e)) for _, s, e in have)
+    ]
     if addable:
         return "add", max(addable, key=lambda b: (b[2] - b[1], -b[1]))
     spare = Counter((s, e) for _, s, e in missing)
@@ -161,9 +165,17 @@ def loop_actions(g: Grammar, start: Tree, gold: Tree, auto: bool) -> tuple[int, 
             break
         tree = apply_edit(tree, edit, said)
         actions += 1
-        out = reparse(g, words(gold), Said(
-            required=tuple(said["required"]), forbidden=tuple(said["forbidden"]),
-            tags=tuple(sorted(said["tags"].items()))), previous=tree, k=1)
+        out = reparse(
+            g,
+            words(gold),
+            Said(
+                required=tuple(said["required"]),
+                forbidden=tuple(said["forbidden"]),
+                tags=tuple(sorted(said["tags"].items())),
+            ),
+            previous=tree,
+            k=1,
+        )
         if out.tree == tree:
             continue
         before, after = plain_actions(tree, gold), plain_actions(out.tree, gold)
@@ -196,9 +208,11 @@ def run(name: str, g: Grammar, tests: list[Tree]) -> None:
         auto_worse += w
     n = len(tests)
     print(f"{name}: {n} sentences, CPU {time.process_time() - t0:.0f} s")
-    print(f"  actions per sentence: plain {plain / n:.2f}, loop {loop / n:.2f} "
-          f"(offers taken {taken / n:.2f}), loop auto {auto / n:.2f} "
-          f"(applied {auto_taken / n:.2f}, of which made it worse {auto_worse / n:.2f})")
+    print(
+        f"  actions per sentence: plain {plain / n:.2f}, loop {loop / n:.2f} "
+        f"(offers taken {taken / n:.2f}), loop auto {auto / n:.2f} "
+        f"(applied {auto_taken / n:.2f}, of which made it worse {auto_worse / n:.2f})"
+    )
     print(f"  ratio loop/plain {loop / plain:.3f}, loop auto/plain {auto / plain:.3f}")
 
 
@@ -215,7 +229,7 @@ def main() -> None:
             t = strip_function_tags(t)
             if len(words(t)) <= MAX_WORDS:
                 tests.append(t)
-    tests = tests[:args.limit]
+    tests = tests[: args.limit]
     split = train_grammar([t for f in files[:89] for t in read(f)])
     run("in genre (GUM split: 89 files train, last 10 test)", split, tests)
     genre = "GUM_" + files[-1].name.split("_")[1]

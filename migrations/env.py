@@ -10,27 +10,35 @@ from app.settings import get_settings
 
 config = context.config
 if not config.get_main_option("sqlalchemy.url"):
-    config.set_main_option("sqlalchemy.url",
-                           get_settings().resolved_database_url.replace("%", "%%"))
+    config.set_main_option(
+        "sqlalchemy.url", get_settings().resolved_database_url.replace("%", "%%")
+    )
 
 target_metadata = Base.metadata
 
 
 def run_migrations_offline() -> None:
-    context.configure(url=config.get_main_option("sqlalchemy.url"),
-                      target_metadata=target_metadata, literal_binds=True,
-                      render_as_batch=True)
+    context.configure(
+        url=config.get_main_option("sqlalchemy.url"),
+        target_metadata=target_metadata,
+        literal_binds=True,
+        render_as_batch=True,
+    )
     with context.begin_transaction():
         context.run_migrations()
 
 
 def run_migrations_online() -> None:
-    connectable = engine_from_config(config.get_section(config.config_ini_section, {}),
-                                     prefix="sqlalchemy.", poolclass=pool.NullPool)
+    connectable = engine_from_config(
+        config.get_section(config.config_ini_section, {}),
+        prefix="sqlalchemy.",
+        poolclass=pool.NullPool,
+    )
     with connectable.connect() as connection:
         is_sqlite = connection.dialect.name == "sqlite"
-        context.configure(connection=connection, target_metadata=target_metadata,
-                          render_as_batch=is_sqlite)
+        context.configure(
+            connection=connection, target_metadata=target_metadata, render_as_batch=is_sqlite
+        )
         with context.begin_transaction():
             context.run_migrations()
         connection.commit()

@@ -77,15 +77,17 @@ def parse_weighting(text: str) -> Weighting:
         key, sep, value = part.partition("=")
         key = key.strip()
         if not sep or key not in ("rules", "lexicon", "prior"):
-            raise GrammarError(f"weighting part {part.strip()!r}: expected rules=N, lexicon=N "
-                               "or prior=N")
+            raise GrammarError(
+                f"weighting part {part.strip()!r}: expected rules=N, lexicon=N or prior=N"
+            )
         if key in values:
             raise GrammarError(f"weighting part {part.strip()!r}: {key} is given twice")
         try:
             values[key] = float(value)
         except ValueError:
-            raise GrammarError(f"weighting part {part.strip()!r}: {value.strip()!r} is not a "
-                               "number") from None
+            raise GrammarError(
+                f"weighting part {part.strip()!r}: {value.strip()!r} is not a number"
+            ) from None
     return Weighting(**values)
 
 
@@ -97,8 +99,9 @@ def heldout_split(trees: Sequence[Tree], every: int = 10) -> tuple[list[Tree], l
     return train, held
 
 
-def heldout_f1(grammar: Grammar, held: Sequence[Tree],
-               progress: Callable[[int, int], None] | None = None) -> float:
+def heldout_f1(
+    grammar: Grammar, held: Sequence[Tree], progress: Callable[[int, int], None] | None = None
+) -> float:
     """Labelled bracket F1 (parser.scoring defaults) of the grammar's consensus trees of the
     held-out trees' words against those trees."""
     from parser.chart import parse
@@ -126,16 +129,24 @@ class Choice:
     reason: str = ""
 
     def to_dict(self) -> dict[str, Any]:
-        return {"weighting": describe(self.weighting), "reason": self.reason,
-                "heldout": self.heldout,
-                "grid": [{"weighting": describe(w), "f1": round(f, 5)} for w, f in self.scores]}
+        return {
+            "weighting": describe(self.weighting),
+            "reason": self.reason,
+            "heldout": self.heldout,
+            "grid": [{"weighting": describe(w), "f1": round(f, 5)} for w, f in self.scores],
+        }
 
 
-def choose_weighting(train: Sequence[Tree], held: Sequence[Tree], reference: Sequence[Tree],
-                     grid: Sequence[Weighting] = GRID, default: Weighting = DEFAULT,
-                     progress: Callable[[int, int], None] | None = None,
-                     score: Callable[[Grammar], float] | None = None,
-                     **train_options: Any) -> Choice:
+def choose_weighting(
+    train: Sequence[Tree],
+    held: Sequence[Tree],
+    reference: Sequence[Tree],
+    grid: Sequence[Weighting] = GRID,
+    default: Weighting = DEFAULT,
+    progress: Callable[[int, int], None] | None = None,
+    score: Callable[[Grammar], float] | None = None,
+    **train_options: Any,
+) -> Choice:
     """The grid point with the best held-out F1 (the first of equals), or ``default`` when
     there are fewer than MIN_HELDOUT held-out trees, no reference or no in-domain training
     tree (then there is nothing to weigh). ``score(grammar)`` replaces :func:`heldout_f1` on
@@ -145,8 +156,11 @@ def choose_weighting(train: Sequence[Tree], held: Sequence[Tree], reference: Seq
     if not train:
         return Choice(default, reason="no in-domain training trees")
     if len(held) < MIN_HELDOUT:
-        return Choice(default, heldout=len(held),
-                      reason=f"{len(held)} held-out trees (fewer than {MIN_HELDOUT}): default")
+        return Choice(
+            default,
+            heldout=len(held),
+            reason=f"{len(held)} held-out trees (fewer than {MIN_HELDOUT}): default",
+        )
     grammars = train_weighted(train, reference=reference, weightings=grid, **train_options)
     scores: list[tuple[Weighting, float]] = []
     for i, (w, g) in enumerate(zip(grid, grammars, strict=True)):
@@ -154,5 +168,9 @@ def choose_weighting(train: Sequence[Tree], held: Sequence[Tree], reference: Seq
         if progress is not None:
             progress(i + 1, len(grid))
     best = max(range(len(scores)), key=lambda i: (scores[i][1], -i))
-    return Choice(scores[best][0], scores, len(held),
-                  reason=f"best held-out F1 of {len(grid)} weightings on {len(held)} trees")
+    return Choice(
+        scores[best][0],
+        scores,
+        len(held),
+        reason=f"best held-out F1 of {len(grid)} weightings on {len(held)} trees",
+    )

@@ -123,8 +123,12 @@ def _np_ending_in(last: str, mark: str) -> Annotator:
     child POS, a possessive) and RIGHT-REC-NP (last child NP) of Klein and Manning 2003."""
 
     def annotate(node: Tree, ancestors: Sequence[str], parent: Tree) -> str:
-        if node.label() == "NP" and len(node) > 1 and isinstance(node[-1], Tree) \
-                and node[-1].label() == last:
+        if (
+            node.label() == "NP"
+            and len(node) > 1
+            and isinstance(node[-1], Tree)
+            and node[-1].label() == last
+        ):
             return mark
         return ""
 
@@ -134,8 +138,11 @@ def _np_ending_in(last: str, mark: str) -> Annotator:
 def _base_np(node: Tree, ancestors: Sequence[str], parent: Tree) -> str:
     """BASE-NP (after Klein and Manning 2003; our rule): an NP all of whose children are
     POS tags."""
-    if node.label() == "NP" and not is_preterminal(node) \
-            and all(isinstance(c, Tree) and is_preterminal(c) for c in node):
+    if (
+        node.label() == "NP"
+        and not is_preterminal(node)
+        and all(isinstance(c, Tree) and is_preterminal(c) for c in node)
+    ):
         return "b"
     return ""
 
@@ -155,8 +162,12 @@ def _function_tags(categories: frozenset[str] | None) -> Annotator:
 
 #: Function tags that :func:`parser.binarize.clean_tree` must keep for a feature ("*": all).
 FUNCTIONS_NEEDED: dict[str, tuple[str, ...]] = {
-    "tmp-np": ("TMP",), "function-tags": ("*",), "pp-functions": ("*",),
-    "clause-functions": ("*",), "adverbial-functions": ("*",)}
+    "tmp-np": ("TMP",),
+    "function-tags": ("*",),
+    "pp-functions": ("*",),
+    "clause-functions": ("*",),
+    "adverbial-functions": ("*",),
+}
 
 ANNOTATORS: dict[str, Annotator] = {
     "split-vp": _vp_head,

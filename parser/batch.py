@@ -31,20 +31,27 @@ def _init_worker(path: str) -> None:
     _WORKER_GRAMMAR = Grammar.load(path)
 
 
-def _parse_chunk(items: list[tuple[list[str], Constraints | None]], k: int,
-                 posteriors: bool) -> list[ParseResult]:
+def _parse_chunk(
+    items: list[tuple[list[str], Constraints | None]], k: int, posteriors: bool
+) -> list[ParseResult]:
     if _WORKER_GRAMMAR is None:
         raise RuntimeError("worker started without a grammar")
-    return [parse(_WORKER_GRAMMAR, words, k=k, posteriors=posteriors, constraints=c)
-            for words, c in items]
+    return [
+        parse(_WORKER_GRAMMAR, words, k=k, posteriors=posteriors, constraints=c)
+        for words, c in items
+    ]
 
 
-def parse_many(grammar: Grammar | str | Path, sentences: Sequence[Sequence[str]], k: int = 1,
-               posteriors: bool = False,
-               constraints: Sequence[Constraints | None] | None = None,
-               processes: int | None = None,
-               progress: Callable[[int, int], None] | None = None,
-               chunk: int = 16) -> list[ParseResult]:
+def parse_many(
+    grammar: Grammar | str | Path,
+    sentences: Sequence[Sequence[str]],
+    k: int = 1,
+    posteriors: bool = False,
+    constraints: Sequence[Constraints | None] | None = None,
+    processes: int | None = None,
+    progress: Callable[[int, int], None] | None = None,
+    chunk: int = 16,
+) -> list[ParseResult]:
     """Parse ``sentences`` (token lists) with ``grammar`` (an object or a saved file)."""
     total = len(sentences)
     cons = list(constraints) if constraints is not None else [None] * total
@@ -66,10 +73,14 @@ def parse_many(grammar: Grammar | str | Path, sentences: Sequence[Sequence[str]]
             grammar.save(path)
         else:
             path = str(grammar)
-        chunks = [items[x:x + chunk] for x in range(0, total, chunk)]
+        chunks = [items[x : x + chunk] for x in range(0, total, chunk)]
         results: list[ParseResult] = []
-        with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"),
-                                 initializer=_init_worker, initargs=(path,)) as pool:
+        with ProcessPoolExecutor(
+            max_workers=workers,
+            mp_context=get_context("spawn"),
+            initializer=_init_worker,
+            initargs=(path,),
+        ) as pool:
             futures = [pool.submit(_parse_chunk, c, k, posteriors) for c in chunks]
             for fut in futures:
                 results.extend(fut.result())

@@ -72,8 +72,9 @@ def clean_tree(tree: Tree, keep_functions: Collection[str] = ()) -> Tree:
 def _strip_keeping(node: Tree, keep: frozenset[str]) -> Tree:
     """:func:`parser.trees.strip_function_tags`, remembering the tags of ``keep``."""
     label = node.label()
-    out = Tree(strip_label(label),
-               [_strip_keeping(c, keep) if isinstance(c, Tree) else c for c in node])
+    out = Tree(
+        strip_label(label), [_strip_keeping(c, keep) if isinstance(c, Tree) else c for c in node]
+    )
     if keep and label and label[0] != "-":
         parts = {p for p in re.split(r"[-=]", label)[1:] if p.isalpha()}
         marks = parts if "*" in keep else keep.intersection(parts)
@@ -104,13 +105,20 @@ def check_label(label: str) -> None:
     if label.startswith(INTERMEDIATE) or any(ch in label for ch in _RESERVED):
         raise GrammarError(
             f"label {label!r} uses a character reserved for annotations "
-            f"(a leading {INTERMEDIATE!r}, or any of {''.join(_RESERVED)!r})")
+            f"(a leading {INTERMEDIATE!r}, or any of {''.join(_RESERVED)!r})"
+        )
 
 
-def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
-             tag_ancestors: int = 0, annotators: Sequence[Annotator] = (),
-             head_outward: bool = False, plain_intermediates: bool = False,
-             rare: Callable[[str], bool] | None = None) -> Tree:
+def binarize(
+    tree: Tree,
+    horizontal: int | None = 1,
+    vertical: int = 2,
+    tag_ancestors: int = 0,
+    annotators: Sequence[Annotator] = (),
+    head_outward: bool = False,
+    plain_intermediates: bool = False,
+    rare: Callable[[str], bool] | None = None,
+) -> Tree:
     """Markovize and binarize a cleaned tree (see the module docstring).
 
     ``horizontal`` None keeps all previous siblings (no horizontal markovization);
@@ -136,8 +144,15 @@ def binarize(tree: Tree, horizontal: int | None = 1, vertical: int = 2,
         raise GrammarError(f"horizontal markovization must be >= 0, got {horizontal}")
     if vertical < 1:
         raise GrammarError(f"vertical markovization must be >= 1, got {vertical}")
-    settings = _Settings(horizontal, vertical, tag_ancestors, tuple(annotators), head_outward,
-                         plain_intermediates, rare)
+    settings = _Settings(
+        horizontal,
+        vertical,
+        tag_ancestors,
+        tuple(annotators),
+        head_outward,
+        plain_intermediates,
+        rare,
+    )
     return _binarize(tree, (), None, settings)
 
 
@@ -158,22 +173,21 @@ def rare_labels(trees: Iterable[Tree], min_count: int) -> Callable[[str], bool]:
     return lambda label: counts[label] < min_count
 
 
-def _annotated(node: Tree, ancestors: tuple[str, ...], parent: Tree | None,
-               st: _Settings) -> str:
+def _annotated(node: Tree, ancestors: tuple[str, ...], parent: Tree | None, st: _Settings) -> str:
     label = str(node.label())
     check_label(label)
     depth = st.tag_ancestors + 1 if is_preterminal(node) else st.vertical
     annotators = st.annotators if parent is not None else ()
-    features = "".join(FEATURE + suffix for annotate in annotators
-                       if (suffix := annotate(node, ancestors, parent)))
+    features = "".join(
+        FEATURE + suffix for annotate in annotators if (suffix := annotate(node, ancestors, parent))
+    )
     full = label + "".join(ANCESTOR + a for a in ancestors[: depth - 1]) + features
     if st.rare is not None and depth > 1 and st.rare(full):
         return label + features
     return full
 
 
-def _binarize(node: Tree, ancestors: tuple[str, ...], parent: Tree | None,
-              st: _Settings) -> Tree:
+def _binarize(node: Tree, ancestors: tuple[str, ...], parent: Tree | None, st: _Settings) -> Tree:
     label = _annotated(node, ancestors, parent, st)
     if is_preterminal(node):
         return Tree(label, [node[0]])
@@ -211,11 +225,12 @@ def _window(seen: list[str], horizontal: int | None) -> list[str]:
     """The siblings an intermediate node remembers: the last ``horizontal`` (None: all)."""
     if horizontal is None:
         return seen
-    return seen[max(0, len(seen) - horizontal):] if horizontal else []
+    return seen[max(0, len(seen) - horizontal) :] if horizontal else []
 
 
-def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str], head: int,
-                  st: _Settings) -> Tree:
+def _head_outward(
+    label: str, inner_name: str, kids: list[Tree], names: list[str], head: int, st: _Settings
+) -> Tree:
     order = list(range(head + 1, len(kids))) + list(range(head - 1, -1, -1))
     inner = kids[head]
     added: list[str] = []
@@ -225,7 +240,8 @@ def _head_outward(label: str, inner_name: str, kids: list[Tree], names: list[str
             node_label = label
         else:
             node_label = _intermediate(
-                INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":", added, st)
+                INTERMEDIATE + inner_name + SIBLINGS + names[head] + ":", added, st
+            )
         pair = [inner, kids[pos]] if pos > head else [kids[pos], inner]
         inner = Tree(node_label, pair)
     return inner
@@ -241,8 +257,28 @@ _HEAD_RULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "FRAG": ("right", ()),
     "INTJ": ("left", ("UH",)),
     "NAC": ("left", ("NN", "NNS", "NNP", "NNPS", "NP", "NAC")),
-    "NP": ("right", ("NN", "NNP", "NNPS", "NNS", "NX", "POS", "JJR", "PRP", "CD", "NP", "QP",
-                     "JJ", "JJS", "RB", "ADJP", "DT", "FW")),
+    "NP": (
+        "right",
+        (
+            "NN",
+            "NNP",
+            "NNPS",
+            "NNS",
+            "NX",
+            "POS",
+            "JJR",
+            "PRP",
+            "CD",
+            "NP",
+            "QP",
+            "JJ",
+            "JJS",
+            "RB",
+            "ADJP",
+            "DT",
+            "FW",
+        ),
+    ),
     "NX": ("right", ("NN", "NNS", "NNP", "NNPS", "NX")),
     "PP": ("left", ("IN", "TO", "VBG", "VBN", "RP", "FW", "PP")),
     "PRN": ("left", ()),
@@ -250,14 +286,18 @@ _HEAD_RULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "QP": ("left", ("CD", "$", "NNS", "NN", "JJ", "RB", "DT", "QP")),
     "RRC": ("right", ("VP", "NP", "ADVP", "ADJP", "PP")),
     "S": ("left", ("VP", "S", "SBAR", "ADJP", "UCP", "NP", "TO", "IN")),
-    "SBAR": ("left", ("WHNP", "WHPP", "WHADVP", "WHADJP", "IN", "DT", "S", "SQ", "SINV",
-                      "SBAR", "FRAG")),
+    "SBAR": (
+        "left",
+        ("WHNP", "WHPP", "WHADVP", "WHADJP", "IN", "DT", "S", "SQ", "SINV", "SBAR", "FRAG"),
+    ),
     "SBARQ": ("left", ("SQ", "S", "SINV", "SBARQ", "FRAG")),
     "SINV": ("left", ("VBZ", "VBD", "VBP", "VB", "MD", "VP", "S", "SINV", "ADJP", "NP")),
     "SQ": ("left", ("VBZ", "VBD", "VBP", "VB", "MD", "VP", "SQ")),
     "UCP": ("right", ()),
-    "VP": ("left", ("VBD", "VBN", "MD", "VBZ", "VB", "VBG", "VBP", "TO", "VP", "ADJP", "NN",
-                    "NNS", "NP")),
+    "VP": (
+        "left",
+        ("VBD", "VBN", "MD", "VBZ", "VB", "VBG", "VBP", "TO", "VP", "ADJP", "NN", "NNS", "NP"),
+    ),
     "WHADJP": ("left", ("WRB", "JJ", "ADJP")),
     "WHADVP": ("right", ("WRB",)),
     "WHNP": ("left", ("WDT", "WP", "WP$", "WHADJP", "WHPP", "WHNP", "NN", "NNS", "NNP")),

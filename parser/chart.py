@@ -103,8 +103,9 @@ class _Tables:
         self.lo_w = np.exp(self.lo_logp)
         # Distinct (left, right) pairs of the rules in this order, and each pair's rule range.
         first = np.ones(len(self.lo_left), dtype=bool)
-        first[1:] = ((self.lo_left[1:] != self.lo_left[:-1])
-                     | (self.lo_right[1:] != self.lo_right[:-1]))
+        first[1:] = (self.lo_left[1:] != self.lo_left[:-1]) | (
+            self.lo_right[1:] != self.lo_right[:-1]
+        )
         starts = np.flatnonzero(first)
         self.pair_left = np.ascontiguousarray(self.lo_left[starts])
         self.pair_right = np.ascontiguousarray(self.lo_right[starts])
@@ -135,8 +136,13 @@ class _Tables:
             chain = g.chains[self.uchain[e]]
             for kind in (0, 1):
                 nodes = chain if kind == 1 else chain[:-1]
-                ids = sorted({label_id[base_label(x)] for x in nodes
-                              if not x.startswith("@") and base_label(x) in label_id})
+                ids = sorted(
+                    {
+                        label_id[base_label(x)]
+                        for x in nodes
+                        if not x.startswith("@") and base_label(x) in label_id
+                    }
+                )
                 self.haslab[e, kind, ids] = True
                 lab_ids.extend(ids)
                 lab_off.append(len(lab_ids))
@@ -146,7 +152,8 @@ class _Tables:
         self.tag_symbols: dict[str, np.ndarray] = {}
         for t in g.tags:
             self.tag_symbols[t] = np.array(
-                [s for s in g.lex_symbols if g.base[s] == t], dtype=np.int64)
+                [s for s in g.lex_symbols if g.base[s] == t], dtype=np.int64
+            )
 
 
 def _offsets(sorted_keys: np.ndarray, n: int) -> np.ndarray:
@@ -188,8 +195,9 @@ class _Problem:
     backoff: float = kernels.NEG
 
 
-def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
-             constraints: Constraints | None) -> _Problem:
+def _prepare(
+    g: Grammar, tab: _Tables, words: Sequence[str], constraints: Constraints | None
+) -> _Problem:
     n = len(words)
     c = constraints or Constraints()
     required = [(int(a), int(b), lab) for a, b, lab in c.required]
@@ -212,7 +220,7 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
         if (a, b) in req_spans:
             raise ConstraintError(f"span ({a}, {b}) is both required and forbidden")
     for x, (a, b, _) in enumerate(required):
-        for c2, d, _ in required[x + 1:]:
+        for c2, d, _ in required[x + 1 :]:
             if a < c2 < b < d or c2 < a < d < b:
                 raise ConstraintError(f"required spans ({a}, {b}) and ({c2}, {d}) cross")
     sid = span_ids(n)
@@ -228,8 +236,9 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
     label_id = {lab: i for i, lab in enumerate(tab.labels)}
     per_span: dict[int, list[int]] = {}
     for a, b, lab in required:
-        dead |= (((starts < a) & (a < ends) & (ends < b))
-                 | ((a < starts) & (starts < b) & (b < ends)))
+        dead |= ((starts < a) & (a < ends) & (ends < b)) | (
+            (a < starts) & (starts < b) & (b < ends)
+        )
         s = int(sid[a, b])
         per_span.setdefault(s, [])
         if lab is not None:
@@ -268,18 +277,33 @@ def _prepare(g: Grammar, tab: _Tables, words: Sequence[str],
         if not 0.0 < c.relabel_backoff < 1.0:
             raise ConstraintError(f"relabel back-off {c.relabel_backoff} is not in (0, 1)")
         backoff = math.log(c.relabel_backoff)
-    return _Problem(n=n, sid=sid, dead=dead, code=code, req_off=req_off,
-                    req_lab=np.array(req_lab_list, dtype=np.int32), lex=lex,
-                    satisfiable=satisfiable, required=required, tags=tags, backoff=backoff)
+    return _Problem(
+        n=n,
+        sid=sid,
+        dead=dead,
+        code=code,
+        req_off=req_off,
+        req_lab=np.array(req_lab_list, dtype=np.int32),
+        lex=lex,
+        satisfiable=satisfiable,
+        required=required,
+        tags=tags,
+        backoff=backoff,
+    )
 
 
 _FIXED_TAG_FLOOR = math.log(1e-12)
 
 
-def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False,
-          constraints: Constraints | None = None,
-          posterior_threshold: float = POSTERIOR_THRESHOLD,
-          consensus_cost: float = DEFAULT_COST) -> ParseResult:
+def parse(
+    g: Grammar,
+    words: Sequence[str],
+    k: int = 1,
+    posteriors: bool = False,
+    constraints: Constraints | None = None,
+    posterior_threshold: float = POSTERIOR_THRESHOLD,
+    consensus_cost: float = DEFAULT_COST,
+) -> ParseResult:
     """Parse ``words``; see the module docstring. Raises ConstraintError for malformed
     constraints and ParserError for an empty sentence; never for ordinary words.
 
@@ -292,15 +316,23 @@ def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False
     if k < 1:
         raise ParserError(f"k must be at least 1, got {k}")
     if posteriors and not posterior_threshold < consensus_cost:
-        raise ParserError(f"posterior threshold {posterior_threshold} must be below the "
-                          f"consensus cost {consensus_cost}")
+        raise ParserError(
+            f"posterior threshold {posterior_threshold} must be below the "
+            f"consensus cost {consensus_cost}"
+        )
     tab = tables(g)
     prob = _prepare(g, tab, words, constraints)
     chart = _Chart(g, tab, prob) if prob.satisfiable else None
     if chart is None or not chart.ok:
         tree = fallback_tree(g, words, prob)
-        return ParseResult(trees=[tree], logprobs=[-math.inf], inside_logprob=None,
-                           posteriors=[], fallback=True, seconds=time.perf_counter() - t0)
+        return ParseResult(
+            trees=[tree],
+            logprobs=[-math.inf],
+            inside_logprob=None,
+            posteriors=[],
+            fallback=True,
+            seconds=time.perf_counter() - t0,
+        )
     if k == 1:
         trees = [chart.viterbi_tree(words)]
         logprobs = [chart.best]
@@ -311,14 +343,20 @@ def parse(g: Grammar, words: Sequence[str], k: int = 1, posteriors: bool = False
         result.inside_logprob, result.posteriors = chart.posteriors(posterior_threshold)
         result.tag_posteriors = chart.tag_posteriors
         result.consensus = consensus_tree(
-            words, [tag for _, tag in trees[0].pos()], result.posteriors, g.root_label,
-            required=prob.required, cost=consensus_cost)
+            words,
+            [tag for _, tag in trees[0].pos()],
+            result.posteriors,
+            g.root_label,
+            required=prob.required,
+            cost=consensus_cost,
+        )
     result.seconds = time.perf_counter() - t0
     return result
 
 
-def inside_logprob(g: Grammar, words: Sequence[str],
-                   constraints: Constraints | None = None) -> float:
+def inside_logprob(
+    g: Grammar, words: Sequence[str], constraints: Constraints | None = None
+) -> float:
     """log of the total probability of all trees of ``words`` (that satisfy the constraints);
     -inf when there is none."""
     tab = tables(g)
@@ -355,10 +393,27 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
 
     def log_z(b: float) -> float:
         it, _, sigma, _, _ = kernels.inside(
-            prob.n, g.n_symbols, prob.sid, prob.dead, prob.code, prob.req_off, prob.req_lab,
-            np.maximum(prob.lex * b, kernels.NEG), live, tab.pair_left, tab.pair_right,
-            tab.pair_off, tab.lo_parent, tab.lo_w ** b, tab.up, tab.uc, tab.uw ** b,
-            tab.nonempty, tab.haslab, prob.backoff)
+            prob.n,
+            g.n_symbols,
+            prob.sid,
+            prob.dead,
+            prob.code,
+            prob.req_off,
+            prob.req_lab,
+            np.maximum(prob.lex * b, kernels.NEG),
+            live,
+            tab.pair_left,
+            tab.pair_right,
+            tab.pair_off,
+            tab.lo_parent,
+            tab.lo_w**b,
+            tab.up,
+            tab.uc,
+            tab.uw**b,
+            tab.nonempty,
+            tab.haslab,
+            prob.backoff,
+        )
         return float(np.log(it[chart.full, g.start]) + sigma[chart.full])
 
     expected_logp = (log_z(1.0 + step) - log_z(1.0 - step)) / (2.0 * step)
@@ -368,12 +423,27 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
 class _Chart:
     def __init__(self, g: Grammar, tab: _Tables, p: _Problem) -> None:
         self.g, self.tab, self.p = g, tab, p
-        (self.vt, self.vb, self.bp_rule, self.bp_edge, self.VL,
-         self.VR) = kernels.viterbi(
-            p.n, g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
+        (self.vt, self.vb, self.bp_rule, self.bp_edge, self.VL, self.VR) = kernels.viterbi(
+            p.n,
+            g.n_symbols,
+            p.sid,
+            p.dead,
+            p.code,
+            p.req_off,
+            p.req_lab,
             np.maximum(p.lex, kernels.NEG),
-            tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_logp,
-            tab.up, tab.uc, tab.ulogp, tab.nonempty, tab.haslab, p.backoff)
+            tab.pair_left,
+            tab.pair_right,
+            tab.pair_off,
+            tab.lo_parent,
+            tab.lo_logp,
+            tab.up,
+            tab.uc,
+            tab.ulogp,
+            tab.nonempty,
+            tab.haslab,
+            p.backoff,
+        )
         for arr in (self.vt, self.vb):
             arr[arr <= kernels.LOW] = -np.inf
         self.full = int(p.sid[0, p.n])
@@ -401,7 +471,7 @@ class _Chart:
             left = int(self.tab.lo_left[r])
             right = int(self.tab.lo_right[r])
             # The split point is the first one reaching the rule's best score (as in the kernel).
-            j = i + 1 + int(np.argmax(self.VL[i, left, i + 1:k] + self.VR[k, right, i + 1:k]))
+            j = i + 1 + int(np.argmax(self.VL[i, left, i + 1 : k] + self.VR[k, right, i + 1 : k]))
             todo.append((j, k, right, low))  # the stack takes the left child up first
             todo.append((i, j, left, low))
         return unbinarize(holder[0])
@@ -411,10 +481,27 @@ class _Chart:
         if self._inside is None:
             p, tab = self.p, self.tab
             self._inside = kernels.inside(
-                p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab,
-                np.maximum(p.lex, kernels.NEG), np.maximum(self.vt, kernels.NEG),
-                tab.pair_left, tab.pair_right, tab.pair_off, tab.lo_parent, tab.lo_w,
-                tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, p.backoff)
+                p.n,
+                self.g.n_symbols,
+                p.sid,
+                p.dead,
+                p.code,
+                p.req_off,
+                p.req_lab,
+                np.maximum(p.lex, kernels.NEG),
+                np.maximum(self.vt, kernels.NEG),
+                tab.pair_left,
+                tab.pair_right,
+                tab.pair_off,
+                tab.lo_parent,
+                tab.lo_w,
+                tab.up,
+                tab.uc,
+                tab.uw,
+                tab.nonempty,
+                tab.haslab,
+                p.backoff,
+            )
         return self._inside
 
     def inside(self) -> float:
@@ -425,11 +512,34 @@ class _Chart:
         it, ib, sigma, il, ir = self._inside_chart()
         p, tab = self.p, self.tab
         post, tpost = kernels.outside(
-            p.n, self.g.n_symbols, self.g.start, p.sid, p.dead, p.code, p.req_off, p.req_lab,
-            it, ib, sigma, il, ir, tab.pair_left, tab.pair_right, tab.pair_off,
-            tab.lo_parent, tab.lo_w,
-            tab.up, tab.uc, tab.uw, tab.nonempty, tab.haslab, tab.lab_off,
-            tab.lab_ids, len(tab.labels), p.backoff)
+            p.n,
+            self.g.n_symbols,
+            self.g.start,
+            p.sid,
+            p.dead,
+            p.code,
+            p.req_off,
+            p.req_lab,
+            it,
+            ib,
+            sigma,
+            il,
+            ir,
+            tab.pair_left,
+            tab.pair_right,
+            tab.pair_off,
+            tab.lo_parent,
+            tab.lo_w,
+            tab.up,
+            tab.uc,
+            tab.uw,
+            tab.nonempty,
+            tab.haslab,
+            tab.lab_off,
+            tab.lab_ids,
+            len(tab.labels),
+            p.backoff,
+        )
         self.tag_posteriors = []
         for i in range(p.n):
             per: dict[str, float] = {}
@@ -437,16 +547,17 @@ class _Chart:
             for sym in np.flatnonzero(row > 0.0):
                 tag = self.g.base[int(sym)]
                 per[tag] = per.get(tag, 0.0) + float(row[sym])
-            self.tag_posteriors.append({t: min(1.0, v) for t, v in per.items()
-                                        if v > threshold})
+            self.tag_posteriors.append({t: min(1.0, v) for t, v in per.items() if v > threshold})
         spans, labs = np.nonzero(post > threshold)
         ii, kk = np.nonzero(p.sid >= 0)
         start = np.empty(len(ii), dtype=np.int64)
         end = np.empty(len(ii), dtype=np.int64)
         start[p.sid[ii, kk]] = ii
         end[p.sid[ii, kk]] = kk
-        out = [(tab.labels[b], int(start[s]), int(end[s]), min(1.0, float(post[s, b])))
-               for s, b in zip(spans, labs, strict=True)]
+        out = [
+            (tab.labels[b], int(start[s]), int(end[s]), min(1.0, float(post[s, b])))
+            for s, b in zip(spans, labs, strict=True)
+        ]
         out.sort(key=lambda x: (x[1], -x[2], x[0]))
         return self.inside(), out
 

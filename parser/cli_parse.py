@@ -61,75 +61,137 @@ def _read_files(paths: tuple[Path, ...]) -> list[Tree]:
 
 
 @click.command("train")
-@click.argument("treefiles", nargs=-1, required=True,
-                type=click.Path(exists=True, dir_okay=False, path_type=Path))
-@click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
-              help="Where to write the grammar (.npz).")
-@click.option("--reference", "references", multiple=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="A bracketed file of reference trees from another domain (repeatable); "
-                   "the TREEFILEs are the in-domain trees.")
-@click.option("--weight", "weight", default="auto", show_default=True,
-              help="How much an in-domain tree counts against the reference trees: 'auto' "
-                   "(every 10th in-domain tree held out to choose from a small grid by "
-                   "labelled F1; a measured default below 20 held-out trees), a number, or "
-                   "'rules=N,lexicon=N'.")
-@click.option("--horizontal", type=click.IntRange(min=0), default=DEFAULT_HORIZONTAL,
-              show_default=True, help="Previous siblings an intermediate node remembers.")
-@click.option("--vertical", type=click.IntRange(min=1), default=DEFAULT_VERTICAL,
-              show_default=True, help="1: plain labels; 2: parent annotation; 3: grandparent.")
-@click.option("--min-context", type=click.IntRange(min=0), default=DEFAULT_MIN_CONTEXT,
-              show_default=True,
-              help="Labels seen fewer times fall back one markovization order (0: never).")
-@click.option("--refine", "cycles", type=click.IntRange(min=0), default=0, show_default=True,
-              help="Split-merge cycles learning latent sub-symbols (0: none).")
-def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path, ...],
-                  weight: str, horizontal: int, vertical: int, min_context: int,
-                  cycles: int) -> None:
+@click.argument(
+    "treefiles",
+    nargs=-1,
+    required=True,
+    type=click.Path(exists=True, dir_okay=False, path_type=Path),
+)
+@click.option(
+    "--out",
+    "out",
+    required=True,
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Where to write the grammar (.npz).",
+)
+@click.option(
+    "--reference",
+    "references",
+    multiple=True,
+    type=click.Path(exists=True, dir_okay=False, path_type=Path),
+    help="A bracketed file of reference trees from another domain (repeatable); "
+    "the TREEFILEs are the in-domain trees.",
+)
+@click.option(
+    "--weight",
+    "weight",
+    default="auto",
+    show_default=True,
+    help="How much an in-domain tree counts against the reference trees: 'auto' "
+    "(every 10th in-domain tree held out to choose from a small grid by "
+    "labelled F1; a measured default below 20 held-out trees), a number, or "
+    "'rules=N,lexicon=N'.",
+)
+@click.option(
+    "--horizontal",
+    type=click.IntRange(min=0),
+    default=DEFAULT_HORIZONTAL,
+    show_default=True,
+    help="Previous siblings an intermediate node remembers.",
+)
+@click.option(
+    "--vertical",
+    type=click.IntRange(min=1),
+    default=DEFAULT_VERTICAL,
+    show_default=True,
+    help="1: plain labels; 2: parent annotation; 3: grandparent.",
+)
+@click.option(
+    "--min-context",
+    type=click.IntRange(min=0),
+    default=DEFAULT_MIN_CONTEXT,
+    show_default=True,
+    help="Labels seen fewer times fall back one markovization order (0: never).",
+)
+@click.option(
+    "--refine",
+    "cycles",
+    type=click.IntRange(min=0),
+    default=0,
+    show_default=True,
+    help="Split-merge cycles learning latent sub-symbols (0: none).",
+)
+def train_command(
+    treefiles: tuple[Path, ...],
+    out: Path,
+    references: tuple[Path, ...],
+    weight: str,
+    horizontal: int,
+    vertical: int,
+    min_context: int,
+    cycles: int,
+) -> None:
     """Train a grammar from bracketed tree files (the in-domain trees), optionally with
     reference trees from another domain."""
     t0 = time.perf_counter()
     trees = _read_files(treefiles)
     reference = _read_files(references)
-    options: dict[str, Any] = {"horizontal": horizontal, "vertical": vertical,
-                               "min_context": min_context}
+    options: dict[str, Any] = {
+        "horizontal": horizontal,
+        "vertical": vertical,
+        "min_context": min_context,
+    }
     choice = None
     if cycles and reference:
-        raise click.UsageError("--refine learns from the in-domain trees alone; "
-                               "leave out --reference")
+        raise click.UsageError(
+            "--refine learns from the in-domain trees alone; leave out --reference"
+        )
     try:
         if not reference:
             weighting = Weighting()
         elif weight.strip().lower() == "auto":
             train, held = heldout_split(trees)
-            click.echo(f"choosing the weight: {len(train)} in-domain trees to train, "
-                       f"{len(held)} held out", err=True)
+            click.echo(
+                f"choosing the weight: {len(train)} in-domain trees to train, {len(held)} held out",
+                err=True,
+            )
             choice = choose_weighting(train, held, reference, **options)
             weighting = choice.weighting
         else:
             weighting = parse_weighting(weight)
-        with tqdm(total=len(trees) + len(reference), desc="training", unit="tree",
-                  file=sys.stderr, disable=len(trees) + len(reference) < 500) as bar:
+        with tqdm(
+            total=len(trees) + len(reference),
+            desc="training",
+            unit="tree",
+            file=sys.stderr,
+            disable=len(trees) + len(reference) < 500,
+        ) as bar:
+
             def progress(done: int, total: int) -> None:
                 bar.update(done - bar.n)
-            g = train_grammar(trees, reference=reference, weighting=weighting,
-                              progress=progress, **options)
+
+            g = train_grammar(
+                trees, reference=reference, weighting=weighting, progress=progress, **options
+            )
         if cycles:
             g = _refined(g, trees, cycles)
         g.save(out)
     except ParserError as exc:
         raise click.ClickException(str(exc)) from exc
     seconds = time.perf_counter() - t0
-    click.echo(f"trees: {len(trees)}" + (f" in-domain, {len(reference)} reference"
-                                         if reference else ""))
+    click.echo(
+        f"trees: {len(trees)}" + (f" in-domain, {len(reference)} reference" if reference else "")
+    )
     if reference:
-        click.echo(f"weight: {describe(weighting)}"
-                   + (f" ({choice.reason})" if choice is not None else ""))
+        click.echo(
+            f"weight: {describe(weighting)}" + (f" ({choice.reason})" if choice is not None else "")
+        )
         for w, f1 in choice.scores if choice is not None else ():
             click.echo(f"  {describe(w):>24}  held-out F1 {f1:.4f}")
     click.echo(f"rules: {len(g.bin_logp)} binary, {len(g.un_logp)} unary edges")
-    click.echo(f"nonterminals: {g.n_symbols} symbols ({len(g.labels)} labels, "
-               f"{len(g.tags)} POS tags)")
+    click.echo(
+        f"nonterminals: {g.n_symbols} symbols ({len(g.labels)} labels, {len(g.tags)} POS tags)"
+    )
     click.echo(f"vocabulary: {len(g.vocab)} words, {len(g.signatures)} unknown-word classes")
     click.echo(f"time: {seconds:.2f} s")
     click.echo(f"wrote {out}")
@@ -137,16 +199,19 @@ def train_command(treefiles: tuple[Path, ...], out: Path, references: tuple[Path
 
 def _refined(g: Grammar, trees: list[Tree], cycles: int) -> Grammar:
     def progress(cycle: int, iteration: int, loglik: float) -> None:
-        click.echo(f"refining: cycle {cycle}, EM iteration {iteration}, "
-                   f"log-likelihood {loglik:.2f}", err=True)
+        click.echo(
+            f"refining: cycle {cycle}, EM iteration {iteration}, log-likelihood {loglik:.2f}",
+            err=True,
+        )
 
     refined = refine(g, trees, RefineOptions(cycles=cycles), progress=progress)
     click.echo(f"refined: {cycles} split-merge cycles, {refined.n_subsymbols} sub-symbols")
     return refined.to_grammar(prune=DEFAULT_PRUNE)
 
 
-def _tokens(line: str, lineno: int, tagged: bool,
-            known_tags: frozenset[str] = frozenset()) -> tuple[list[str], list[str | None]]:
+def _tokens(
+    line: str, lineno: int, tagged: bool, known_tags: frozenset[str] = frozenset()
+) -> tuple[list[str], list[str | None]]:
     words: list[str] = []
     tags: list[str | None] = []
     for col, token in enumerate(line.split(), 1):
@@ -155,12 +220,12 @@ def _tokens(line: str, lineno: int, tagged: bool,
             continue
         word, slash, tag = token.rpartition("/")
         if not slash or not word or not tag:
-            raise click.ClickException(
-                f"line {lineno}, token {col} {token!r}: expected word/TAG")
+            raise click.ClickException(f"line {lineno}, token {col} {token!r}: expected word/TAG")
         if known_tags and tag not in known_tags:
             raise click.ClickException(
                 f"line {lineno}, token {col} {token!r}: the grammar has no POS tag {tag!r} "
-                f"(it knows {len(known_tags)}: {', '.join(sorted(known_tags))})")
+                f"(it knows {len(known_tags)}: {', '.join(sorted(known_tags))})"
+            )
         words.append(word)
         tags.append(tag)
     return words, tags
@@ -172,34 +237,64 @@ def _finite(x: float | None) -> float | None:
 
 def _as_json(r: ParseResult | None) -> str:
     if r is None:
-        return json.dumps({"trees": [], "logprobs": [], "inside_logprob": None,
-                           "posteriors": [], "consensus": None, "fallback": False})
-    return json.dumps({
-        "trees": [write_tree(t) for t in r.trees],
-        "logprobs": [_finite(x) for x in r.logprobs],
-        "inside_logprob": _finite(r.inside_logprob),
-        "posteriors": [[lab, a, b, round(p, 6)] for lab, a, b, p in r.posteriors],
-        "consensus": write_tree(r.consensus) if r.consensus is not None else None,
-        "fallback": r.fallback,
-    })
+        return json.dumps(
+            {
+                "trees": [],
+                "logprobs": [],
+                "inside_logprob": None,
+                "posteriors": [],
+                "consensus": None,
+                "fallback": False,
+            }
+        )
+    return json.dumps(
+        {
+            "trees": [write_tree(t) for t in r.trees],
+            "logprobs": [_finite(x) for x in r.logprobs],
+            "inside_logprob": _finite(r.inside_logprob),
+            "posteriors": [[lab, a, b, round(p, 6)] for lab, a, b, p in r.posteriors],
+            "consensus": write_tree(r.consensus) if r.consensus is not None else None,
+            "fallback": r.fallback,
+        }
+    )
 
 
 @click.command("parse")
-@click.option("--grammar", "grammar_path", required=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="A grammar written by train.")
-@click.option("--k", "k", type=click.IntRange(min=1), default=1, show_default=True,
-              help="How many trees per sentence (with --json).")
+@click.option(
+    "--grammar",
+    "grammar_path",
+    required=True,
+    type=click.Path(exists=True, dir_okay=False, path_type=Path),
+    help="A grammar written by train.",
+)
+@click.option(
+    "--k",
+    "k",
+    type=click.IntRange(min=1),
+    default=1,
+    show_default=True,
+    help="How many trees per sentence (with --json).",
+)
 @click.option("--tagged", is_flag=True, help="Tokens are word/TAG; the tags are kept.")
-@click.option("--json", "as_json", is_flag=True,
-              help="One JSON object per line: trees, log-probabilities, posteriors, fallback.")
-@click.option("--consensus", "consensus", is_flag=True,
-              help="Write the consensus tree (most probable brackets over all readings; more "
-                   "accurate, about three times slower) instead of the best single tree.")
-@click.option("--jobs", type=click.IntRange(min=1), default=2, show_default=True,
-              help="Worker processes.")
-def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, consensus: bool,
-                  jobs: int) -> None:
+@click.option(
+    "--json",
+    "as_json",
+    is_flag=True,
+    help="One JSON object per line: trees, log-probabilities, posteriors, fallback.",
+)
+@click.option(
+    "--consensus",
+    "consensus",
+    is_flag=True,
+    help="Write the consensus tree (most probable brackets over all readings; more "
+    "accurate, about three times slower) instead of the best single tree.",
+)
+@click.option(
+    "--jobs", type=click.IntRange(min=1), default=2, show_default=True, help="Worker processes."
+)
+def parse_command(
+    grammar_path: Path, k: int, tagged: bool, as_json: bool, consensus: bool, jobs: int
+) -> None:
     """Parse sentences from standard input, one per line."""
     try:
         g = Grammar.load(grammar_path)
@@ -215,14 +310,27 @@ def parse_command(grammar_path: Path, k: int, tagged: bool, as_json: bool, conse
             sentences.append(words)
             constraints.append(Constraints(tags=tags) if tagged else None)
             where.append(lineno - 1)
-    with tqdm(total=len(sentences), desc="parsing", unit="sentence", file=sys.stderr,
-              disable=len(sentences) < 50) as bar:
+    with tqdm(
+        total=len(sentences),
+        desc="parsing",
+        unit="sentence",
+        file=sys.stderr,
+        disable=len(sentences) < 50,
+    ) as bar:
+
         def progress(done: int, total: int) -> None:
             bar.update(done - bar.n)
+
         try:
-            results = parse_many(g, sentences, k=k if as_json else 1,
-                                 posteriors=as_json or consensus,
-                                 constraints=constraints, processes=jobs, progress=progress)
+            results = parse_many(
+                g,
+                sentences,
+                k=k if as_json else 1,
+                posteriors=as_json or consensus,
+                constraints=constraints,
+                processes=jobs,
+                progress=progress,
+            )
         except ParserError as exc:
             raise click.ClickException(str(exc)) from exc
     by_line: list[ParseResult | None] = [None] * len(lines)

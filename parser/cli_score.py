@@ -49,8 +49,10 @@ def _table(result: CorpusScore) -> str:
     ]
     rows = sorted(result.per_label.items(), key=lambda kv: (-kv[1].gold, kv[0]))
     for label, c in rows:
-        lines.append(f"{label:<12}{c.gold:>7}{c.test:>7}{c.matched:>9}"
-                     f"{100 * c.precision:>8.2f}{100 * c.recall:>8.2f}{100 * c.f1:>8.2f}")
+        lines.append(
+            f"{label:<12}{c.gold:>7}{c.test:>7}{c.matched:>9}"
+            f"{100 * c.precision:>8.2f}{100 * c.recall:>8.2f}{100 * c.f1:>8.2f}"
+        )
     return "\n".join(lines)
 
 
@@ -58,12 +60,21 @@ def _table(result: CorpusScore) -> str:
 @click.argument("gold", type=click.Path(exists=True, dir_okay=False, path_type=Path))
 @click.argument("test", type=click.Path(exists=True, dir_okay=False, path_type=Path))
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of a table.")
-@click.option("--keep-punctuation", is_flag=True,
-              help=f"Count words tagged {' '.join(sorted(DEFAULT_DELETE_POS))} too.")
-@click.option("--equivalent", "equivalent", multiple=True, metavar="A,B",
-              help="Treat these labels as one (repeatable), e.g. --equivalent ADVP,PRT.")
-def score(gold: Path, test: Path, as_json: bool, keep_punctuation: bool,
-          equivalent: tuple[str, ...]) -> None:
+@click.option(
+    "--keep-punctuation",
+    is_flag=True,
+    help=f"Count words tagged {' '.join(sorted(DEFAULT_DELETE_POS))} too.",
+)
+@click.option(
+    "--equivalent",
+    "equivalent",
+    multiple=True,
+    metavar="A,B",
+    help="Treat these labels as one (repeatable), e.g. --equivalent ADVP,PRT.",
+)
+def score(
+    gold: Path, test: Path, as_json: bool, keep_punctuation: bool, equivalent: tuple[str, ...]
+) -> None:
     """Score the bracketed trees in TEST against those in GOLD, tree by tree."""
     options = ScoringOptions(
         delete_pos=frozenset() if keep_punctuation else DEFAULT_DELETE_POS,
@@ -79,7 +90,8 @@ def score(gold: Path, test: Path, as_json: bool, keep_punctuation: bool,
         first = min(len(gold_trees), len(test_trees)) + 1
         raise click.ClickException(
             f"tree {first}: {gold} has {len(gold_trees)} trees but {test} has "
-            f"{len(test_trees)}; tree {first} has no partner")
+            f"{len(test_trees)}; tree {first} has no partner"
+        )
     if as_json:
         click.echo(json.dumps(result.to_dict(), indent=2))
     else:

@@ -38,11 +38,16 @@ from parser.trees import tree_from_spans
 DEFAULT_COST = 0.4
 
 
-def consensus_tree(words: Sequence[str], tags: Sequence[str],
-                   posteriors: Sequence[tuple[str, int, int, float]], root: str,
-                   required: Iterable[tuple[int, int, str | None]] = (),
-                   cost: float = DEFAULT_COST,
-                   prefer: Iterable[tuple[str, int, int]] = (), bonus: float = 0.0) -> Tree:
+def consensus_tree(
+    words: Sequence[str],
+    tags: Sequence[str],
+    posteriors: Sequence[tuple[str, int, int, float]],
+    root: str,
+    required: Iterable[tuple[int, int, str | None]] = (),
+    cost: float = DEFAULT_COST,
+    prefer: Iterable[tuple[str, int, int]] = (),
+    bonus: float = 0.0,
+) -> Tree:
     """The tree of :mod:`parser.consensus` (see there) over ``words`` with ``tags``.
 
     ``posteriors``: ``(label, start, end, p)``, spans 0-based and end-exclusive; labels equal to
@@ -78,7 +83,7 @@ def consensus_tree(words: Sequence[str], tags: Sequence[str],
     for length in range(2, n + 1):
         for i in range(n - length + 1):
             k = i + length
-            vals = score[i, i + 1:k] + score[i + 1:k, k]
+            vals = score[i, i + 1 : k] + score[i + 1 : k, k]
             x = int(np.argmax(vals))
             split[i, k] = i + 1 + x
             score[i, k] = gain[i, k] + vals[x]

@@ -13,8 +13,14 @@ class BracketSyntaxError(ParserError):
     ``expected`` says what the reader wanted at that place (for example ``"')'"``).
     """
 
-    def __init__(self, message: str, line: int, column: int, expected: str | None = None,
-                 source: str | None = None) -> None:
+    def __init__(
+        self,
+        message: str,
+        line: int,
+        column: int,
+        expected: str | None = None,
+        source: str | None = None,
+    ) -> None:
         self.message = message
         self.line = line
         self.column = column

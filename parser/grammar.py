@@ -63,8 +63,15 @@ DEFAULT_TAG_ANCESTORS = 1
 #: 76.91, base-np 77.06, right-rec-np 76.64, tmp-np 76.46, possessive-np 76.36 (unary-dt 76.23,
 #: unary-rb 76.11, split-aux 76.10, split-cc 76.04, dominates-verb 76.27: left out); all seven
 #: 77.14 (consensus tree 79.60).
-DEFAULT_FEATURES: tuple[str, ...] = ("split-vp", "unary-internal", "in-grandparent", "base-np",
-                                     "right-rec-np", "possessive-np", "tmp-np")
+DEFAULT_FEATURES: tuple[str, ...] = (
+    "split-vp",
+    "unary-internal",
+    "in-grandparent",
+    "base-np",
+    "right-rec-np",
+    "possessive-np",
+    "tmp-np",
+)
 
 #: Factoring (bench/accuracy_options.py, GUM split, words only, consensus-tree labelled F1,
 #: each with the seven features above): h=1 with annotated intermediates 79.60 (2,023
@@ -111,12 +118,26 @@ class Grammar:
         lex_symbols: int32[T]; lex_logp: float64[T, X]  (includes the lexical share of B)
     """
 
-    def __init__(self, *, symbols: Sequence[str], start: int,
-                 bin_parent: np.ndarray, bin_left: np.ndarray, bin_right: np.ndarray,
-                 bin_logp: np.ndarray, un_parent: np.ndarray, un_child: np.ndarray,
-                 un_chain: np.ndarray, un_logp: np.ndarray, chains: Sequence[Sequence[str]],
-                 lex_symbols: np.ndarray, lex_logp: np.ndarray, vocab: Sequence[str],
-                 signatures: Sequence[str], meta: dict[str, Any] | None = None) -> None:
+    def __init__(
+        self,
+        *,
+        symbols: Sequence[str],
+        start: int,
+        bin_parent: np.ndarray,
+        bin_left: np.ndarray,
+        bin_right: np.ndarray,
+        bin_logp: np.ndarray,
+        un_parent: np.ndarray,
+        un_child: np.ndarray,
+        un_chain: np.ndarray,
+        un_logp: np.ndarray,
+        chains: Sequence[Sequence[str]],
+        lex_symbols: np.ndarray,
+        lex_logp: np.ndarray,
+        vocab: Sequence[str],
+        signatures: Sequence[str],
+        meta: dict[str, Any] | None = None,
+    ) -> None:
         self.symbols: tuple[str, ...] = tuple(symbols)
         self.start = int(start)
         self.bin_parent = _frozen(bin_parent, np.int32)
@@ -141,19 +162,26 @@ class Grammar:
         n = len(self.symbols)
         if not 0 <= self.start < n:
             raise GrammarError(f"start symbol index {self.start} out of range")
-        for name, arr in (("bin_parent", self.bin_parent), ("bin_left", self.bin_left),
-                          ("bin_right", self.bin_right), ("un_parent", self.un_parent),
-                          ("un_child", self.un_child), ("lex_symbols", self.lex_symbols)):
+        for name, arr in (
+            ("bin_parent", self.bin_parent),
+            ("bin_left", self.bin_left),
+            ("bin_right", self.bin_right),
+            ("un_parent", self.un_parent),
+            ("un_child", self.un_child),
+            ("lex_symbols", self.lex_symbols),
+        ):
             if arr.size and (arr.min() < 0 or arr.max() >= n):
                 raise GrammarError(f"{name} refers to a symbol outside 0..{n - 1}")
-        if self.un_chain.size and (self.un_chain.min() < 0
-                                   or self.un_chain.max() >= len(self.chains)):
+        if self.un_chain.size and (
+            self.un_chain.min() < 0 or self.un_chain.max() >= len(self.chains)
+        ):
             raise GrammarError("un_chain refers to a chain that does not exist")
-        if self.lex_logp.shape != (len(self.lex_symbols),
-                                   len(self.vocab) + len(self.signatures)):
-            raise GrammarError(f"lexicon shape {self.lex_logp.shape} does not match "
-                               f"{len(self.lex_symbols)} tags x "
-                               f"{len(self.vocab) + len(self.signatures)} columns")
+        if self.lex_logp.shape != (len(self.lex_symbols), len(self.vocab) + len(self.signatures)):
+            raise GrammarError(
+                f"lexicon shape {self.lex_logp.shape} does not match "
+                f"{len(self.lex_symbols)} tags x "
+                f"{len(self.vocab) + len(self.signatures)} columns"
+            )
 
     def _derive(self) -> None:
         n = len(self.symbols)
@@ -259,10 +287,19 @@ class Grammar:
         # and is larger (a third of the entries are finite; their coordinates cost more).
         with open(path, "wb") as fh:
             np.savez_compressed(
-                fh, meta=blob, bin_parent=self.bin_parent, bin_left=self.bin_left,
-                bin_right=self.bin_right, bin_logp=self.bin_logp, un_parent=self.un_parent,
-                un_child=self.un_child, un_chain=self.un_chain, un_logp=self.un_logp,
-                lex_symbols=self.lex_symbols, lex_logp=self.lex_logp)
+                fh,
+                meta=blob,
+                bin_parent=self.bin_parent,
+                bin_left=self.bin_left,
+                bin_right=self.bin_right,
+                bin_logp=self.bin_logp,
+                un_parent=self.un_parent,
+                un_child=self.un_child,
+                un_chain=self.un_chain,
+                un_logp=self.un_logp,
+                lex_symbols=self.lex_symbols,
+                lex_logp=self.lex_logp,
+            )
 
     @classmethod
     def load(cls, path: str | Path) -> Grammar:
@@ -276,15 +313,34 @@ class Grammar:
             raise GrammarError(f"{path}: not a Treewright grammar file ({exc})") from exc
         version = meta.get("format_version")
         if version != FORMAT_VERSION:
-            raise GrammarError(f"{path}: grammar format version {version!r} is not supported "
-                               f"(this build reads version {FORMAT_VERSION})")
+            raise GrammarError(
+                f"{path}: grammar format version {version!r} is not supported "
+                f"(this build reads version {FORMAT_VERSION})"
+            )
         try:
-            return cls(symbols=meta["symbols"], start=meta["start"], chains=meta["chains"],
-                       vocab=meta["vocab"], signatures=meta["signatures"], meta=meta["meta"],
-                       **{k: arrays[k] for k in ("bin_parent", "bin_left", "bin_right",
-                                                 "bin_logp", "un_parent", "un_child",
-                                                 "un_chain", "un_logp", "lex_symbols",
-                                                 "lex_logp")})
+            return cls(
+                symbols=meta["symbols"],
+                start=meta["start"],
+                chains=meta["chains"],
+                vocab=meta["vocab"],
+                signatures=meta["signatures"],
+                meta=meta["meta"],
+                **{
+                    k: arrays[k]
+                    for k in (
+                        "bin_parent",
+                        "bin_left",
+                        "bin_right",
+                        "bin_logp",
+                        "un_parent",
+                        "un_child",
+                        "un_chain",
+                        "un_logp",
+                        "lex_symbols",
+                        "lex_logp",
+                    )
+                },
+            )
         except KeyError as exc:
             raise GrammarError(f"{path}: grammar file lacks {exc}") from exc
 
@@ -315,15 +371,19 @@ class Grammar:
             elif 1 <= len(rhs) <= 2 and not any("'" in r for r in rhs):
                 rules.append((lhs, tuple(rhs), prob, False))
             else:
-                raise GrammarError(f"line {lineno}: right-hand side must be one or two symbols "
-                                   f"or one quoted word, got {m.group(3)!r}")
+                raise GrammarError(
+                    f"line {lineno}: right-hand side must be one or two symbols "
+                    f"or one quoted word, got {m.group(3)!r}"
+                )
         if not rules:
             raise GrammarError("no rules")
         return _from_rules(rules, start or rules[0][0])
 
     def __repr__(self) -> str:
-        return (f"Grammar({self.n_symbols} symbols, {len(self.bin_logp)} binary rules, "
-                f"{len(self.un_logp)} unary edges, {len(self.vocab)} words)")
+        return (
+            f"Grammar({self.n_symbols} symbols, {len(self.bin_logp)} binary rules, "
+            f"{len(self.un_logp)} unary edges, {len(self.vocab)} words)"
+        )
 
 
 _RULE_LINE = re.compile(r"^([0-9.eE+-]+)\s+(\S+)\s*->\s*(.+)$")
@@ -393,12 +453,23 @@ def _from_rules(rules: list[tuple[str, tuple[str, ...], float, bool]], start: st
     e = np.array(edges, dtype=float).reshape(-1, 4)
     symbols = sorted(names, key=names.__getitem__)
     return Grammar(
-        symbols=symbols, start=names[start],
-        bin_parent=b[:, 0], bin_left=b[:, 1], bin_right=b[:, 2],
+        symbols=symbols,
+        start=names[start],
+        bin_parent=b[:, 0],
+        bin_left=b[:, 1],
+        bin_right=b[:, 2],
         bin_logp=np.log(b[:, 3]) - np.log(stays[b[:, 0].astype(int)]),
-        un_parent=e[:, 0], un_child=e[:, 1], un_chain=e[:, 2], un_logp=np.log(e[:, 3]),
-        chains=chains, lex_symbols=np.array([names[a] for a in lex_names]), lex_logp=lex,
-        vocab=vocab, signatures=[], meta={"signature_scheme": "none", "source": "rules"})
+        un_parent=e[:, 0],
+        un_child=e[:, 1],
+        un_chain=e[:, 2],
+        un_logp=np.log(e[:, 3]),
+        chains=chains,
+        lex_symbols=np.array([names[a] for a in lex_names]),
+        lex_logp=lex,
+        vocab=vocab,
+        signatures=[],
+        meta={"signature_scheme": "none", "source": "rules"},
+    )
 
 
 # --------------------------------------------------------------------------- training
@@ -428,22 +499,27 @@ class Weighting:
 
     def __post_init__(self) -> None:
         if not (self.rules > 0 and self.lexicon > 0):
-            raise GrammarError(f"weights must be positive, got rules={self.rules} "
-                               f"lexicon={self.lexicon}")
+            raise GrammarError(
+                f"weights must be positive, got rules={self.rules} lexicon={self.lexicon}"
+            )
         if self.prior is not None and not self.prior > 0:
             raise GrammarError(f"the prior strength must be positive, got {self.prior}")
 
     def to_dict(self) -> dict[str, float | None]:
         return {"rules": self.rules, "lexicon": self.lexicon, "prior": self.prior}
 
-    def combine(self, edges: DomainCounts, binaries: DomainCounts,
-                lexical: DomainCounts) -> tuple[Effective, Effective, Effective]:
+    def combine(
+        self, edges: DomainCounts, binaries: DomainCounts, lexical: DomainCounts
+    ) -> tuple[Effective, Effective, Effective]:
         """Effective (float) counts of the unary edges, binary rules and lexical uses from
         the counts per domain (index 0 reference, 1 in-domain). Edges are normalized per
         parent (top role); binary rules and lexical uses together per bottom symbol."""
         if self.prior is None:
-            return (_merged(edges, self.rules), _merged(binaries, self.rules),
-                    _merged(lexical, self.rules))
+            return (
+                _merged(edges, self.rules),
+                _merged(binaries, self.rules),
+                _merged(lexical, self.rules),
+            )
         # MAP: reference counts rescaled so that each left-hand side's total is ``prior``.
         top_ref: Counter[int] = Counter()
         for (a, _, _), k in edges[0].items():
@@ -474,14 +550,21 @@ def _rescaled(counts: DomainCounts, factor: Callable[[Any], float]) -> Effective
     return out
 
 
-def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZONTAL,
-                   vertical: int = DEFAULT_VERTICAL, progress: Progress | None = None,
-                   tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
-                   features: Sequence[str] = DEFAULT_FEATURES, alpha: float = 1.0,
-                   beta: float = 1.0, head_outward: bool = DEFAULT_HEAD_OUTWARD,
-                   plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES,
-                   min_context: int = DEFAULT_MIN_CONTEXT, reference: Iterable[Tree] = (),
-                   weightings: Sequence[Weighting] = (Weighting(),)) -> list[Grammar]:
+def train_weighted(
+    trees: Iterable[Tree],
+    horizontal: int | None = DEFAULT_HORIZONTAL,
+    vertical: int = DEFAULT_VERTICAL,
+    progress: Progress | None = None,
+    tag_ancestors: int = DEFAULT_TAG_ANCESTORS,
+    features: Sequence[str] = DEFAULT_FEATURES,
+    alpha: float = 1.0,
+    beta: float = 1.0,
+    head_outward: bool = DEFAULT_HEAD_OUTWARD,
+    plain_intermediates: bool = DEFAULT_PLAIN_INTERMEDIATES,
+    min_context: int = DEFAULT_MIN_CONTEXT,
+    reference: Iterable[Tree] = (),
+    weightings: Sequence[Weighting] = (Weighting(),),
+) -> list[Grammar]:
     """One grammar per weighting, all from one count of the trees (the counting dominates
     the cost, so a grid of weightings costs little more than one grammar); the parameters
     are those of :func:`train_grammar`.
@@ -536,11 +619,11 @@ def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZ
         if root_label is None:
             root_label = cleaned.label()
         elif cleaned.label() != root_label:
-            raise GrammarError(f"tree {i} has root label {cleaned.label()!r}, "
-                               f"the first tree had {root_label!r}")
+            raise GrammarError(
+                f"tree {i} has root label {cleaned.label()!r}, the first tree had {root_label!r}"
+            )
         cleaned_list.append(cleaned)
-    settings = (horizontal, vertical, tag_ancestors, annotators, head_outward,
-                plain_intermediates)
+    settings = (horizontal, vertical, tag_ancestors, annotators, head_outward, plain_intermediates)
     rare = None
     if min_context > 1:
         rare = bz.rare_labels((bz.binarize(c, *settings) for c in cleaned_list), min_context)
@@ -559,8 +642,10 @@ def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZ
     symbols = sorted(names, key=names.__getitem__)
     n = len(symbols)
     lex_ids = sorted({t for t, _, _, _ in lex_obs})
-    lex_count = (Counter(t for t, _, _, d in lex_obs if d == 0),
-                 Counter(t for t, _, _, d in lex_obs if d == 1))
+    lex_count = (
+        Counter(t for t, _, _, d in lex_obs if d == 0),
+        Counter(t for t, _, _, d in lex_obs if d == 1),
+    )
     seconds_counting = time.perf_counter() - t0
     chain_list = sorted(chains, key=chains.__getitem__)
 
@@ -586,33 +671,62 @@ def train_weighted(trees: Iterable[Tree], horizontal: int | None = DEFAULT_HORIZ
         lex_row = {t: i for i, t in enumerate(lex_ids)}
         lex_logp, vocab, sigs = estimate_lexicon(
             ((lex_row[t], w, f, weighting.lexicon if d else 1.0) for t, w, f, d in lex_obs),
-            len(lex_ids), alpha=alpha, beta=beta)
+            len(lex_ids),
+            alpha=alpha,
+            beta=beta,
+        )
         # Lexical share of each lexical symbol's bottom role (1 for pure POS tags).
         share = np.array([lex_mass[t] / bottom[t] for t in lex_ids])
         lex_logp = lex_logp + np.log(share)[:, None]
         meta = {
-            "signature_scheme": SCHEME, "source": "trees", "horizontal": horizontal,
-            "vertical": vertical, "tag_ancestors": tag_ancestors, "features": list(features),
-            "alpha": alpha, "beta": beta, "head_outward": head_outward,
-            "plain_intermediates": plain_intermediates, "min_context": min_context,
-            "trees": total, "in_domain_trees": len(in_list), "reference_trees": len(ref_list),
+            "signature_scheme": SCHEME,
+            "source": "trees",
+            "horizontal": horizontal,
+            "vertical": vertical,
+            "tag_ancestors": tag_ancestors,
+            "features": list(features),
+            "alpha": alpha,
+            "beta": beta,
+            "head_outward": head_outward,
+            "plain_intermediates": plain_intermediates,
+            "min_context": min_context,
+            "trees": total,
+            "in_domain_trees": len(in_list),
+            "reference_trees": len(ref_list),
             "weighting": weighting.to_dict(),
             "tag_counts": {symbols[t]: lex_count[0][t] + lex_count[1][t] for t in lex_ids},
             "seconds": round(seconds_counting + time.perf_counter() - t1, 3),
         }
-        return Grammar(symbols=symbols, start=start,
-                       bin_parent=bins[:, 0], bin_left=bins[:, 1], bin_right=bins[:, 2],
-                       bin_logp=bin_logp, un_parent=edges[:, 0], un_child=edges[:, 1],
-                       un_chain=edges[:, 2], un_logp=un_logp, chains=chain_list,
-                       lex_symbols=np.array(lex_ids), lex_logp=lex_logp, vocab=vocab,
-                       signatures=sigs, meta=meta)
+        return Grammar(
+            symbols=symbols,
+            start=start,
+            bin_parent=bins[:, 0],
+            bin_left=bins[:, 1],
+            bin_right=bins[:, 2],
+            bin_logp=bin_logp,
+            un_parent=edges[:, 0],
+            un_child=edges[:, 1],
+            un_chain=edges[:, 2],
+            un_logp=un_logp,
+            chains=chain_list,
+            lex_symbols=np.array(lex_ids),
+            lex_logp=lex_logp,
+            vocab=vocab,
+            signatures=sigs,
+            meta=meta,
+        )
 
     return [estimate(w) for w in weightings]
 
 
-def train_grammar(trees: Iterable[Tree], *, reference: Iterable[Tree] = (),
-                  weighting: Weighting | None = None, progress: Progress | None = None,
-                  **options: Any) -> Grammar:
+def train_grammar(
+    trees: Iterable[Tree],
+    *,
+    reference: Iterable[Tree] = (),
+    weighting: Weighting | None = None,
+    progress: Progress | None = None,
+    **options: Any,
+) -> Grammar:
     """Estimate a grammar from training trees (each with its root wrapper, e.g. ROOT).
 
     ``horizontal``/``vertical``: markovization orders (see :func:`parser.binarize.binarize`);
@@ -628,5 +742,10 @@ def train_grammar(trees: Iterable[Tree], *, reference: Iterable[Tree] = (),
     those of :func:`train_weighted`, with the defaults of this module.
     Raises GrammarError when there is no tree or the trees disagree on the root label.
     """
-    return train_weighted(trees, reference=reference, weightings=(weighting or Weighting(),),
-                          progress=progress, **options)[0]
+    return train_weighted(
+        trees,
+        reference=reference,
+        weightings=(weighting or Weighting(),),
+        progress=progress,
+        **options,
+    )[0]

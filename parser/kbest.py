@@ -62,7 +62,7 @@ def edge_logw(chart: _Chart, e: int, kind: int, s: int) -> float:
     backoff = -math.inf if p.backoff <= kernels.LOW else float(p.backoff)
     if kind == 1 and not nonempty[e, 1]:
         return backoff
-    if all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s]:p.req_off[s + 1]]):
+    if all(tab.haslab[e, kind, lab] for lab in p.req_lab[p.req_off[s] : p.req_off[s + 1]]):
         return 0.0
     return backoff
 
@@ -115,8 +115,9 @@ class LazyKBest:
                 if sc == -np.inf or pen == -math.inf:
                     continue
                 sc = sc + pen
-                heap.append((-float(sc), self._t(), ("u", int(e)),
-                             ((BOT, s, int(tab.uc[e])),), (0,)))
+                heap.append(
+                    (-float(sc), self._t(), ("u", int(e)), ((BOT, s, int(tab.uc[e])),), (0,))
+                )
         elif k - i == 1:
             sc = float(c.p.lex[i, a])
             if sc > -np.inf:
@@ -139,9 +140,18 @@ class LazyKBest:
                 for f in finite:
                     jx, rx = divmod(int(f), n_rules)
                     r = lo + rx
-                    heap.append((-float(flat[f]), self._t(), ("b", r, int(js[jx])),
-                                 ((TOP, int(sl[jx]), int(tab.po_left[r])),
-                                  (TOP, int(sr[jx]), int(tab.po_right[r]))), (0, 0)))
+                    heap.append(
+                        (
+                            -float(flat[f]),
+                            self._t(),
+                            ("b", r, int(js[jx])),
+                            (
+                                (TOP, int(sl[jx]), int(tab.po_left[r])),
+                                (TOP, int(sr[jx]), int(tab.po_right[r])),
+                            ),
+                            (0, 0),
+                        )
+                    )
         heapq.heapify(heap)
         self.cand[node] = heap
         self.seen[node] = {(item[2], item[4]) for item in heap}
@@ -163,8 +173,7 @@ class LazyKBest:
         if node not in self.derivs:
             return False
         found = self.derivs[node]
-        return len(found) > rank or (self.expanded[node] == len(found)
-                                     and not self.cand[node])
+        return len(found) > rank or (self.expanded[node] == len(found) and not self.cand[node])
 
     # ------------------------------------------------------------------ derivations
     def get(self, node: Node, rank: int) -> Deriv | None:
@@ -182,9 +191,11 @@ class LazyKBest:
                 # the successors of the last derivation become candidates; each needs the
                 # next derivation of one tail, which may have to be found first
                 _, edge, tails, ranks = found[-1]
-                wanted = [(tails[x], ranks[x] + 1) for x in range(len(tails))
-                          if (edge, ranks[:x] + (ranks[x] + 1,) + ranks[x + 1:])
-                          not in self.seen[nd]]
+                wanted = [
+                    (tails[x], ranks[x] + 1)
+                    for x in range(len(tails))
+                    if (edge, ranks[:x] + (ranks[x] + 1,) + ranks[x + 1 :]) not in self.seen[nd]
+                ]
                 missing = [(t, r) for t, r in wanted if not self._settled(t, r)]
                 if missing:
                     stack.extend(missing)
@@ -205,7 +216,7 @@ class LazyKBest:
         _, edge, tails, ranks = d
         seen = self.seen[node]
         for x in range(len(tails)):
-            new = ranks[:x] + (ranks[x] + 1,) + ranks[x + 1:]
+            new = ranks[:x] + (ranks[x] + 1,) + ranks[x + 1 :]
             if (edge, new) in seen:
                 continue
             tail_found = self.derivs[tails[x]]
@@ -213,7 +224,8 @@ class LazyKBest:
                 continue  # that tail has no further derivation
             seen.add((edge, new))
             score = self._weight(edge, node) + sum(
-                self.derivs[t][r][0] for t, r in zip(tails, new, strict=True))
+                self.derivs[t][r][0] for t, r in zip(tails, new, strict=True)
+            )
             heapq.heappush(self.cand[node], (-score, self._t(), edge, tails, new))
 
     # ------------------------------------------------------------------ trees

@@ -52,9 +52,17 @@ LOW = -1e99
 
 
 @njit(cache=True, inline="always")
-def _edge_logw(e: int, kind: int, s: int, code: np.ndarray, req_off: np.ndarray,
-               req_lab: np.ndarray, nonempty: np.ndarray, haslab: np.ndarray,
-               backoff: float) -> float:
+def _edge_logw(
+    e: int,
+    kind: int,
+    s: int,
+    code: np.ndarray,
+    req_off: np.ndarray,
+    req_lab: np.ndarray,
+    nonempty: np.ndarray,
+    haslab: np.ndarray,
+    backoff: float,
+) -> float:
     """Log weight the constraints add to unary edge ``e`` over span ``s``: 0 (free), NEG
     (excluded) or, on a required span whose labels the edge lacks, ``backoff`` (NEG: strict)."""
     c = code[s]
@@ -85,9 +93,27 @@ def _split_max(XL, XR, i, k, floor, maxl, maxr):
 
 
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
-def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
-            p_left, p_right, p_off, r_parent, r_logp,
-            up, uc, ulogp, nonempty, haslab, backoff):
+def viterbi(
+    n,
+    n_sym,
+    sid,
+    dead,
+    code,
+    req_off,
+    req_lab,
+    lex,
+    p_left,
+    p_right,
+    p_off,
+    r_parent,
+    r_logp,
+    up,
+    uc,
+    ulogp,
+    nonempty,
+    haslab,
+    backoff,
+):
     """Max-product chart over finite scores: "impossible" is :data:`NEG` (so the loops may be
     compiled with fast-math), ``lex`` must use NEG too. Returns vt, vb (float64[S, N] top/bottom
     log scores), bp_rule (int32[S, N]: best binary rule of each bottom), bp_edge (int32[S, N]:
@@ -146,8 +172,7 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
                 bv = bot[uc[e]]
                 if bv <= LOW:
                     continue
-                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
-                                 backoff)
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
                 if pen <= LOW:
                     continue
                 sc = bv + ulogp[e] + pen
@@ -162,8 +187,28 @@ def viterbi(n, n_sym, sid, dead, code, req_off, req_lab, lex,
 
 
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
-def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
-           p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab, backoff):
+def inside(
+    n,
+    n_sym,
+    sid,
+    dead,
+    code,
+    req_off,
+    req_lab,
+    lex,
+    vt,
+    p_left,
+    p_right,
+    p_off,
+    r_parent,
+    r_w,
+    up,
+    uc,
+    uw,
+    nonempty,
+    haslab,
+    backoff,
+):
     """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
     IL, IR (float64[N, n + 1, n + 1]) of ``it``.
 
@@ -234,8 +279,7 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
                 bv = bot[uc[e]]
                 if bv == 0.0:
                     continue
-                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
-                                 backoff)
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
                 if pen <= LOW:
                     continue
                 top[up[e]] += bv * uw[e] * (1.0 if pen == 0.0 else np.exp(pen))
@@ -256,9 +300,35 @@ def inside(n, n_sym, sid, dead, code, req_off, req_lab, lex, vt,
 
 
 @njit(cache=True, parallel=True, fastmath=True, nogil=True)
-def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, IL, IR,
-            p_left, p_right, p_off, r_parent, r_w, up, uc, uw, nonempty, haslab,
-            lab_off, lab_ids, n_labels, backoff):
+def outside(
+    n,
+    n_sym,
+    start,
+    sid,
+    dead,
+    code,
+    req_off,
+    req_lab,
+    it,
+    ib,
+    sigma,
+    IL,
+    IR,
+    p_left,
+    p_right,
+    p_off,
+    r_parent,
+    r_w,
+    up,
+    uc,
+    uw,
+    nonempty,
+    haslab,
+    lab_off,
+    lab_ids,
+    n_labels,
+    backoff,
+):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
     span (for edge e and kind k, the labels of its nodes are
     ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``), and tpost: float64[n, N], the
@@ -304,8 +374,7 @@ def outside(n, n_sym, start, sid, dead, code, req_off, req_lab, it, ib, sigma, I
                 bv = ibot[uc[e]]
                 if bv == 0.0:
                     continue
-                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab,
-                                 backoff)
+                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
                 if pen <= LOW:
                     continue
                 w = uw[e] * (1.0 if pen == 0.0 else np.exp(pen))

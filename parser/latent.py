@@ -115,8 +115,14 @@ def binarized_training_trees(trees: Iterable[Tree], g: Grammar) -> list[Tree]:
     if meta.get("source") != "trees":
         raise GrammarError("refinement needs a grammar trained from trees")
     features = meta.get("features", [])
-    settings = (meta["horizontal"], meta["vertical"], meta["tag_ancestors"],
-                annotators_for(features), meta["head_outward"], meta["plain_intermediates"])
+    settings = (
+        meta["horizontal"],
+        meta["vertical"],
+        meta["tag_ancestors"],
+        annotators_for(features),
+        meta["head_outward"],
+        meta["plain_intermediates"],
+    )
     cleaned = [bz.clean_tree(t, functions_kept(features)) for t in trees]
     rare = None
     if meta["min_context"] > 1:
@@ -129,10 +135,14 @@ def treebank(g: Grammar, binarized: Sequence[Tree]) -> Treebank:
     naming the tree and the rule when a tree uses one ``g`` lacks."""
     names = {s: i for i, s in enumerate(g.symbols)}
     chain_ids = {c: i for i, c in enumerate(g.chains)}
-    edge_ids = {(int(a), int(b), int(c)): e for e, (a, b, c) in
-                enumerate(zip(g.un_parent, g.un_child, g.un_chain, strict=True))}
-    bin_ids = {(int(a), int(b), int(c)): r for r, (a, b, c) in
-               enumerate(zip(g.bin_parent, g.bin_left, g.bin_right, strict=True))}
+    edge_ids = {
+        (int(a), int(b), int(c)): e
+        for e, (a, b, c) in enumerate(zip(g.un_parent, g.un_child, g.un_chain, strict=True))
+    }
+    bin_ids = {
+        (int(a), int(b), int(c)): r
+        for r, (a, b, c) in enumerate(zip(g.bin_parent, g.bin_left, g.bin_right, strict=True))
+    }
     kind: list[int] = []
     sym: list[int] = []
     rule: list[int] = []
@@ -164,8 +174,9 @@ def treebank(g: Grammar, binarized: Sequence[Tree]) -> Treebank:
                 a, b = names[chain[0]], names[chain[-1]]
                 e = edge_ids[(a, b, chain_ids[tuple(chain)])]
             except KeyError as exc:
-                raise GrammarError(f"tree {t}: the grammar has no unary edge "
-                                   f"{' -> '.join(chain)}") from exc
+                raise GrammarError(
+                    f"tree {t}: the grammar has no unary edge {' -> '.join(chain)}"
+                ) from exc
             if len(cur) == 1:
                 col = g.word_column(cur[0], leaf[0] == 0)
                 leaf[0] += 1
@@ -176,8 +187,10 @@ def treebank(g: Grammar, binarized: Sequence[Tree]) -> Treebank:
                 lft, rgt = top(cur[0]), top(cur[1])
                 key = (b, sym[lft], sym[rgt])
                 if key not in bin_ids:
-                    raise GrammarError(f"tree {t}: the grammar has no rule {chain[-1]} -> "
-                                       f"{g.symbols[key[1]]} {g.symbols[key[2]]}")
+                    raise GrammarError(
+                        f"tree {t}: the grammar has no rule {chain[-1]} -> "
+                        f"{g.symbols[key[1]]} {g.symbols[key[2]]}"
+                    )
                 bottom = add(BINARY, b, bin_ids[key], lft, rgt, t, False)
             else:
                 raise GrammarError(f"tree {t}: node {cur.label()!r} has {len(cur)} children")
@@ -191,16 +204,38 @@ def treebank(g: Grammar, binarized: Sequence[Tree]) -> Treebank:
     idx = np.arange(m, dtype=np.int32)
     parent[lft_a[lft_a >= 0]] = idx[lft_a >= 0]
     parent[rgt_a[rgt_a >= 0]] = idx[rgt_a >= 0]
-    return Treebank(kind=np.array(kind, dtype=np.int8), sym=np.array(sym, dtype=np.int32),
-                    rule=np.array(rule, dtype=np.int32), left=lft_a, right=rgt_a,
-                    parent=parent, tree_of=np.array(tree_of, dtype=np.int32),
-                    identity=np.array(identity, dtype=bool), n_trees=len(binarized))
+    return Treebank(
+        kind=np.array(kind, dtype=np.int8),
+        sym=np.array(sym, dtype=np.int32),
+        rule=np.array(rule, dtype=np.int32),
+        left=lft_a,
+        right=rgt_a,
+        parent=parent,
+        tree_of=np.array(tree_of, dtype=np.int32),
+        identity=np.array(identity, dtype=bool),
+        n_trees=len(binarized),
+    )
 
 
 # --------------------------------------------------------------------------- kernels
 @njit(cache=True)
-def _inside(kind, sym, rule, left, right, ks, boff, uoff, bw, uw, lex, lex_row, noff,  # type: ignore[no-untyped-def]
-            ins, scale):
+def _inside(  # type: ignore[no-untyped-def]
+    kind,
+    sym,
+    rule,
+    left,
+    right,
+    ks,
+    boff,
+    uoff,
+    bw,
+    uw,
+    lex,
+    lex_row,
+    noff,
+    ins,
+    scale,
+):
     for n in range(len(kind)):
         ka = ks[sym[n]]
         o = noff[n]
@@ -240,8 +275,31 @@ def _inside(kind, sym, rule, left, right, ks, boff, uoff, bw, uw, lex, lex_row, 
 
 
 @njit(cache=True)
-def _outside(kind, sym, rule, left, right, parent, tree_of, ks, boff, uoff, bw, uw, lex_row,  # type: ignore[no-untyped-def]
-             noff, ins, scale, logz, out, oscale, post, bc, uc, lc):
+def _outside(  # type: ignore[no-untyped-def]
+    kind,
+    sym,
+    rule,
+    left,
+    right,
+    parent,
+    tree_of,
+    ks,
+    boff,
+    uoff,
+    bw,
+    uw,
+    lex_row,
+    noff,
+    ins,
+    scale,
+    logz,
+    out,
+    oscale,
+    post,
+    bc,
+    uc,
+    lc,
+):
     """Scaled outside scores, node posteriors and expected rule counts (added to bc, uc, lc)."""
     for n in range(len(kind) - 1, -1, -1):
         ka = ks[sym[n]]
@@ -318,8 +376,21 @@ def _normalize(out, o, k, oscale, n, sc):  # type: ignore[no-untyped-def]
 
 
 @njit(cache=True)
-def _merge_loss(kind, sym, identity, parent, ks, soff, noff, ins, out, w_top, w_bot, poff,  # type: ignore[no-untyped-def]
-                loss):
+def _merge_loss(  # type: ignore[no-untyped-def]
+    kind,
+    sym,
+    identity,
+    parent,
+    ks,
+    soff,
+    noff,
+    ins,
+    out,
+    w_top,
+    w_bot,
+    poff,
+    loss,
+):
     """Add, per pair (2j, 2j+1) of sub-symbols, the approximate log-likelihood lost by merging
     it, over every node where the symbol's sub-symbol is a latent variable of its own."""
     for n in range(len(kind)):
@@ -378,13 +449,26 @@ def _split_block(par, lef, rig, ident, old, old_off, ks, fs, new_off, noise, nof
                     if fr == 2:
                         sr = (1.0 + er if z2 % 2 == 0 else 1.0 - er) / 2.0
                     new[new_off[r] + (x2 * kl2 + y2) * kr2 + z2] = (
-                        old[old_off[r] + (x * kl + y) * kr + z] * sl * sr)
+                        old[old_off[r] + (x * kl + y) * kr + z] * sl * sr
+                    )
     return new
 
 
 @njit(cache=True)
-def _merge_block(par, lef, rig, old, old_off, ks_old, ks_new, new_off, soff_old, soff_new,  # type: ignore[no-untyped-def]
-                 submap, wpar):
+def _merge_block(  # type: ignore[no-untyped-def]
+    par,
+    lef,
+    rig,
+    old,
+    old_off,
+    ks_old,
+    ks_new,
+    new_off,
+    soff_old,
+    soff_new,
+    submap,
+    wpar,
+):
     """Merge sub-symbols: ``submap[soff_old[s] + x]`` is x's new index; rows of a merged
     parent are averaged with weights ``wpar`` (by old sub-symbol id), children summed."""
     new = np.zeros(new_off[-1])
@@ -407,7 +491,8 @@ def _merge_block(par, lef, rig, old, old_off, ks_old, ks_new, new_off, soff_old,
                 for z in range(kr):
                     z2 = submap[soff_old[rr] + z] if rr >= 0 else 0
                     new[new_off[r] + (x2 * kl2 + y2) * kr2 + z2] += (
-                        wx * old[old_off[r] + (x * kl + y) * kr + z])
+                        wx * old[old_off[r] + (x * kl + y) * kr + z]
+                    )
     return new
 
 
@@ -428,13 +513,15 @@ class LatentGrammar:
     lex_row[T] (-1 for symbols that emit no word).
     """
 
-    def __init__(self, base: Grammar, ks: np.ndarray, bw: np.ndarray, uw: np.ndarray,
-                 lex: np.ndarray) -> None:
+    def __init__(
+        self, base: Grammar, ks: np.ndarray, bw: np.ndarray, uw: np.ndarray, lex: np.ndarray
+    ) -> None:
         self.base = base
         self.ks = np.asarray(ks, dtype=np.int64)
         self.soff = _offsets(self.ks)
-        self.boff = _offsets(self.ks[base.bin_parent] * self.ks[base.bin_left]
-                             * self.ks[base.bin_right])
+        self.boff = _offsets(
+            self.ks[base.bin_parent] * self.ks[base.bin_left] * self.ks[base.bin_right]
+        )
         self.uoff = _offsets(self.ks[base.un_parent] * self.ks[base.un_child])
         n = base.n_symbols
         self.lex_row = np.full(n, -1, dtype=np.int64)
@@ -443,15 +530,19 @@ class LatentGrammar:
         self.bw, self.uw, self.lex = bw, uw, lex
         if len(bw) != self.boff[-1] or len(uw) != self.uoff[-1] or lex.shape[0] != lex_k.sum():
             raise GrammarError("latent grammar arrays do not match the sub-symbol counts")
-        self.identity_edge = np.array([len(base.chains[c]) == 1 for c in base.un_chain],
-                                      dtype=bool)
+        self.identity_edge = np.array([len(base.chains[c]) == 1 for c in base.un_chain], dtype=bool)
 
     @classmethod
     def from_grammar(cls, g: Grammar) -> LatentGrammar:
         """Every symbol with one sub-symbol: the same probabilities as ``g``."""
         with np.errstate(under="ignore"):
-            return cls(g, np.ones(g.n_symbols, dtype=np.int64), np.exp(g.bin_logp),
-                       np.exp(g.un_logp), np.exp(g.lex_logp))
+            return cls(
+                g,
+                np.ones(g.n_symbols, dtype=np.int64),
+                np.exp(g.bin_logp),
+                np.exp(g.un_logp),
+                np.exp(g.lex_logp),
+            )
 
     @property
     def n_subsymbols(self) -> int:
@@ -459,10 +550,18 @@ class LatentGrammar:
 
     def _rule_arrays(self) -> tuple[tuple[np.ndarray, ...], tuple[np.ndarray, ...]]:
         g = self.base
-        binary = (g.bin_parent.astype(np.int64), g.bin_left.astype(np.int64),
-                  g.bin_right.astype(np.int64), np.zeros(len(g.bin_parent), dtype=np.bool_))
-        unary = (g.un_parent.astype(np.int64), g.un_child.astype(np.int64),
-                 np.full(len(g.un_parent), -1, dtype=np.int64), self.identity_edge)
+        binary = (
+            g.bin_parent.astype(np.int64),
+            g.bin_left.astype(np.int64),
+            g.bin_right.astype(np.int64),
+            np.zeros(len(g.bin_parent), dtype=np.bool_),
+        )
+        unary = (
+            g.un_parent.astype(np.int64),
+            g.un_child.astype(np.int64),
+            np.full(len(g.un_parent), -1, dtype=np.int64),
+            self.identity_edge,
+        )
         return binary, unary
 
     # ----------------------------------------------------------------- split
@@ -474,20 +573,26 @@ class LatentGrammar:
         ks_new = self.ks * fs
         binary, unary = self._rule_arrays()
         blocks = []
-        for (par, lef, rig, ident), old, old_off in ((binary, self.bw, self.boff),
-                                                       (unary, self.uw, self.uoff)):
+        for (par, lef, rig, ident), old, old_off in (
+            (binary, self.bw, self.boff),
+            (unary, self.uw, self.uoff),
+        ):
             kr_new = np.where(rig >= 0, ks_new[np.maximum(rig, 0)], 1)
             new_off = _offsets(ks_new[par] * ks_new[lef] * kr_new)
             noff_new = _offsets(ks_new[par])
             eps = rng.uniform(-noise, noise, size=(int(noff_new[-1]), 2))
-            blocks.append(_split_block(par, lef, rig, ident, old, old_off, self.ks, fs,
-                                       new_off, eps, noff_new))
+            blocks.append(
+                _split_block(
+                    par, lef, rig, ident, old, old_off, self.ks, fs, new_off, eps, noff_new
+                )
+            )
         lex = np.repeat(self.lex, fs[g.lex_symbols].repeat(self.ks[g.lex_symbols]), axis=0)
         return LatentGrammar(g, ks_new, blocks[0], blocks[1], lex)
 
     # ----------------------------------------------------------------- merge
-    def merge(self, merged: Mapping[int, Sequence[int]], w_top: np.ndarray,
-              w_bot: np.ndarray) -> LatentGrammar:
+    def merge(
+        self, merged: Mapping[int, Sequence[int]], w_top: np.ndarray, w_bot: np.ndarray
+    ) -> LatentGrammar:
         """Merge, for each symbol s in ``merged``, its sub-symbol pairs (2j, 2j+1) for j in
         ``merged[s]``. ``w_top``/``w_bot``: expected counts per sub-symbol (global ids) in the
         top and bottom roles, the weights of the average over a merged parent."""
@@ -507,17 +612,37 @@ class LatentGrammar:
         soff_new = _offsets(ks_new)
         binary, unary = self._rule_arrays()
         blocks = []
-        for (par, lef, rig, _), old, old_off, w in ((binary, self.bw, self.boff, w_bot),
-                                                    (unary, self.uw, self.uoff, w_top)):
+        for (par, lef, rig, _), old, old_off, w in (
+            (binary, self.bw, self.boff, w_bot),
+            (unary, self.uw, self.uoff, w_top),
+        ):
             kr_new = np.where(rig >= 0, ks_new[np.maximum(rig, 0)], 1)
             new_off = _offsets(ks_new[par] * ks_new[lef] * kr_new)
-            blocks.append(_merge_block(par, lef, rig, old, old_off, self.ks, ks_new, new_off,
-                                       self.soff, soff_new, submap, w + 1e-30))
+            blocks.append(
+                _merge_block(
+                    par,
+                    lef,
+                    rig,
+                    old,
+                    old_off,
+                    self.ks,
+                    ks_new,
+                    new_off,
+                    self.soff,
+                    soff_new,
+                    submap,
+                    w + 1e-30,
+                )
+            )
         # Lexicon: rows of a merged tag averaged with the bottom weights.
         rows_old = np.concatenate([self.soff[t] + np.arange(self.ks[t]) for t in g.lex_symbols])
         new_k = ks_new[g.lex_symbols]
-        target = np.concatenate([o + submap[self.soff[t]:self.soff[t] + self.ks[t]] for t, o in
-                                 zip(g.lex_symbols, _offsets(new_k)[:-1], strict=True)])
+        target = np.concatenate(
+            [
+                o + submap[self.soff[t] : self.soff[t] + self.ks[t]]
+                for t, o in zip(g.lex_symbols, _offsets(new_k)[:-1], strict=True)
+            ]
+        )
         wr = w_bot[rows_old] + 1e-30
         lex = np.zeros((int(new_k.sum()), self.lex.shape[1]))
         np.add.at(lex, target, self.lex * wr[:, None])
@@ -540,8 +665,10 @@ class LatentGrammar:
         g = self.base
         binary, unary = self._rule_arrays()
         arrays = []
-        for (par, lef, rig, _), w, off in ((binary, self.bw, self.boff),
-                                           (unary, self.uw, self.uoff)):
+        for (par, lef, rig, _), w, off in (
+            (binary, self.bw, self.boff),
+            (unary, self.uw, self.uoff),
+        ):
             kl = self.ks[lef]
             kr = np.where(rig >= 0, self.ks[np.maximum(rig, 0)], 1)
             rule = np.repeat(np.arange(len(par)), off[1:] - off[:-1])
@@ -551,9 +678,15 @@ class LatentGrammar:
             x = pos // (kr[rule] * kl[rule])
             keep = w > prune
             rule, x, y, z = rule[keep], x[keep], y[keep], z[keep]
-            arrays.append((self.soff[par[rule]] + x, self.soff[lef[rule]] + y,
-                           np.where(rig[rule] >= 0, self.soff[np.maximum(rig[rule], 0)] + z, -1),
-                           np.log(w[keep]), rule))
+            arrays.append(
+                (
+                    self.soff[par[rule]] + x,
+                    self.soff[lef[rule]] + y,
+                    np.where(rig[rule] >= 0, self.soff[np.maximum(rig[rule], 0)] + z, -1),
+                    np.log(w[keep]),
+                    rule,
+                )
+            )
         (bp, bl, br, blp, _), (up, uc, _, ulp, ue) = arrays
         lex_syms = np.concatenate([self.soff[t] + np.arange(self.ks[t]) for t in g.lex_symbols])
         with np.errstate(divide="ignore"):
@@ -561,11 +694,24 @@ class LatentGrammar:
         meta = dict(g.meta)
         meta["latent"] = {"subsymbols": self.n_subsymbols, "base_symbols": g.n_symbols}
         start = int(self.soff[g.start])
-        return Grammar(symbols=self.subsymbol_names(), start=start, bin_parent=bp,
-                       bin_left=bl, bin_right=br, bin_logp=blp, un_parent=up, un_child=uc,
-                       un_chain=g.un_chain[ue], un_logp=ulp, chains=g.chains,
-                       lex_symbols=lex_syms, lex_logp=lex_logp, vocab=g.vocab,
-                       signatures=g.signatures, meta=meta)
+        return Grammar(
+            symbols=self.subsymbol_names(),
+            start=start,
+            bin_parent=bp,
+            bin_left=bl,
+            bin_right=br,
+            bin_logp=blp,
+            un_parent=up,
+            un_child=uc,
+            un_chain=g.un_chain[ue],
+            un_logp=ulp,
+            chains=g.chains,
+            lex_symbols=lex_syms,
+            lex_logp=lex_logp,
+            vocab=g.vocab,
+            signatures=g.signatures,
+            meta=meta,
+        )
 
 
 # --------------------------------------------------------------------------- EM
@@ -585,14 +731,30 @@ class Expectations:
     noff: np.ndarray
 
 
-def _inside_pass(lg: LatentGrammar, tb: Treebank
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _inside_pass(
+    lg: LatentGrammar, tb: Treebank
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(node offsets, scaled inside scores, their log scales, log P(tree) per tree)."""
     noff = _offsets(lg.ks[tb.sym])
     ins = np.zeros(int(noff[-1]))
     scale = np.zeros(len(tb.kind))
-    _inside(tb.kind, tb.sym, tb.rule, tb.left, tb.right, lg.ks, lg.boff, lg.uoff, lg.bw,
-            lg.uw, lg.lex, lg.lex_row, noff, ins, scale)
+    _inside(
+        tb.kind,
+        tb.sym,
+        tb.rule,
+        tb.left,
+        tb.right,
+        lg.ks,
+        lg.boff,
+        lg.uoff,
+        lg.bw,
+        lg.uw,
+        lg.lex,
+        lg.lex_row,
+        noff,
+        ins,
+        scale,
+    )
     roots = np.flatnonzero(tb.parent < 0)
     logz = np.full(tb.n_trees, -np.inf)
     with np.errstate(divide="ignore"):
@@ -620,20 +782,53 @@ def expectations(lg: LatentGrammar, tb: Treebank) -> Expectations:
     bc = np.zeros_like(lg.bw)
     uc = np.zeros_like(lg.uw)
     lc = np.zeros_like(lg.lex)
-    _outside(*args, tb.parent, tb.tree_of, lg.ks, lg.boff, lg.uoff, lg.bw, lg.uw, lg.lex_row,
-             noff, ins, scale, logz, out, oscale, post, bc, uc, lc)
+    _outside(
+        *args,
+        tb.parent,
+        tb.tree_of,
+        lg.ks,
+        lg.boff,
+        lg.uoff,
+        lg.bw,
+        lg.uw,
+        lg.lex_row,
+        noff,
+        ins,
+        scale,
+        logz,
+        out,
+        oscale,
+        post,
+        bc,
+        uc,
+        lc,
+    )
     node_sub = np.repeat(lg.soff[tb.sym], lg.ks[tb.sym]) + (
-        np.arange(len(ins)) - np.repeat(noff[:-1], lg.ks[tb.sym]))
+        np.arange(len(ins)) - np.repeat(noff[:-1], lg.ks[tb.sym])
+    )
     is_top = np.repeat(tb.kind == TOP, lg.ks[tb.sym])
     n_sub = lg.n_subsymbols
     w_top = np.bincount(node_sub[is_top], post[is_top], minlength=n_sub)
     w_bot = np.bincount(node_sub[~is_top], post[~is_top], minlength=n_sub)
-    return Expectations(loglik=float(logz.sum()), bc=bc, uc=uc, lc=lc, ins=ins, out=out,
-                        w_top=w_top, w_bot=w_bot, noff=noff)
+    return Expectations(
+        loglik=float(logz.sum()),
+        bc=bc,
+        uc=uc,
+        lc=lc,
+        ins=ins,
+        out=out,
+        w_top=w_top,
+        w_bot=w_bot,
+        noff=noff,
+    )
 
 
-def maximize(lg: LatentGrammar, ex: Expectations, smoothing: float = DEFAULT_SMOOTHING,
-             word_smoothing: float | None = DEFAULT_WORD_SMOOTHING) -> LatentGrammar:
+def maximize(
+    lg: LatentGrammar,
+    ex: Expectations,
+    smoothing: float = DEFAULT_SMOOTHING,
+    word_smoothing: float | None = DEFAULT_WORD_SMOOTHING,
+) -> LatentGrammar:
     """The M-step: relative frequencies of the expected counts per left-hand side (a top or
     a bottom sub-symbol), then smoothing (module docstring). A sub-symbol with no expected
     count keeps its old rules."""
@@ -678,8 +873,9 @@ def _smooth(w: np.ndarray, group: np.ndarray, k_parent: np.ndarray, alpha: float
     return out
 
 
-def _maximize_lexicon(lg: LatentGrammar, lc: np.ndarray, bottom: np.ndarray,
-                      word_smoothing: float | None) -> np.ndarray:
+def _maximize_lexicon(
+    lg: LatentGrammar, lc: np.ndarray, bottom: np.ndarray, word_smoothing: float | None
+) -> np.ndarray:
     g = lg.base
     lex_total = lc.sum(axis=1)
     seen = bottom > 0
@@ -706,21 +902,36 @@ def _maximize_lexicon(lg: LatentGrammar, lc: np.ndarray, bottom: np.ndarray,
 
 
 # --------------------------------------------------------------------------- cycles
-def merge_losses(lg: LatentGrammar, tb: Treebank, ex: Expectations) -> tuple[np.ndarray,
-                                                                              np.ndarray]:
+def merge_losses(
+    lg: LatentGrammar, tb: Treebank, ex: Expectations
+) -> tuple[np.ndarray, np.ndarray]:
     """Approximate likelihood loss of merging each pair (2j, 2j+1): ``(loss, pair_symbol)``,
     indexed by pair (pairs of symbol s start at ``offsets[s]``; one pair per two
     sub-symbols)."""
     pairs = lg.ks // 2
     poff = _offsets(pairs)
     loss = np.zeros(int(poff[-1]))
-    _merge_loss(tb.kind, tb.sym, tb.identity, tb.parent, lg.ks, lg.soff, ex.noff, ex.ins,
-                ex.out, ex.w_top, ex.w_bot, poff, loss)
+    _merge_loss(
+        tb.kind,
+        tb.sym,
+        tb.identity,
+        tb.parent,
+        lg.ks,
+        lg.soff,
+        ex.noff,
+        ex.ins,
+        ex.out,
+        ex.w_top,
+        ex.w_bot,
+        poff,
+        loss,
+    )
     return loss, np.repeat(np.arange(len(pairs)), pairs)
 
 
-def merge_least_useful(lg: LatentGrammar, tb: Treebank, ex: Expectations,
-                       fraction: float = DEFAULT_MERGE_FRACTION) -> LatentGrammar:
+def merge_least_useful(
+    lg: LatentGrammar, tb: Treebank, ex: Expectations, fraction: float = DEFAULT_MERGE_FRACTION
+) -> LatentGrammar:
     """Merge back the ``fraction`` of the latest splits whose loss is smallest."""
     loss, owner = merge_losses(lg, tb, ex)
     n_merge = int(round(fraction * len(loss)))
@@ -759,8 +970,13 @@ class RefineOptions:
             raise GrammarError(f"word smoothing must be positive, got {self.word_smoothing}")
 
 
-def em(lg: LatentGrammar, tb: Treebank, iterations: int, options: RefineOptions,
-       report: Callable[[int, float], None] | None = None) -> tuple[LatentGrammar, list[float]]:
+def em(
+    lg: LatentGrammar,
+    tb: Treebank,
+    iterations: int,
+    options: RefineOptions,
+    report: Callable[[int, float], None] | None = None,
+) -> tuple[LatentGrammar, list[float]]:
     """``iterations`` EM steps; returns the grammar and the training log-likelihood before
     each step and after the last."""
     logliks = []
@@ -775,14 +991,19 @@ def em(lg: LatentGrammar, tb: Treebank, iterations: int, options: RefineOptions,
     return lg, logliks
 
 
-def refine(g: Grammar, trees: Iterable[Tree], options: RefineOptions | None = None,
-           progress: LatentProgress | None = None) -> LatentGrammar:
+def refine(
+    g: Grammar,
+    trees: Iterable[Tree],
+    options: RefineOptions | None = None,
+    progress: LatentProgress | None = None,
+) -> LatentGrammar:
     """Split-merge cycles from ``g`` over the trees it was trained on."""
     opts = options or RefineOptions()
     tb = treebank(g, binarized_training_trees(trees, g))
     rng = np.random.default_rng(opts.seed)
     lg = LatentGrammar.from_grammar(g)
     for cycle in range(1, opts.cycles + 1):
+
         def report(it: int, ll: float, cycle: int = cycle) -> None:
             if progress is not None:
                 progress(cycle, it, ll)

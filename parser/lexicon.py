@@ -32,10 +32,56 @@ import numpy as np
 SCHEME = "tw-sig-1"
 
 _SUFFIXES = (
-    "ing", "ed", "ly", "ion", "ions", "ity", "ness", "ment", "ments", "able", "ible", "al",
-    "ial", "ive", "ous", "ful", "less", "ist", "ists", "ism", "ize", "ise", "ized", "ant", "ent",
-    "ence", "ance", "ary", "ory", "er", "ers", "est", "ic", "ics", "ical", "y", "s", "es", "ies",
-    "th", "en", "ship", "hood", "age", "ate", "ated", "ward", "wards", "like", "'s",
+    "ing",
+    "ed",
+    "ly",
+    "ion",
+    "ions",
+    "ity",
+    "ness",
+    "ment",
+    "ments",
+    "able",
+    "ible",
+    "al",
+    "ial",
+    "ive",
+    "ous",
+    "ful",
+    "less",
+    "ist",
+    "ists",
+    "ism",
+    "ize",
+    "ise",
+    "ized",
+    "ant",
+    "ent",
+    "ence",
+    "ance",
+    "ary",
+    "ory",
+    "er",
+    "ers",
+    "est",
+    "ic",
+    "ics",
+    "ical",
+    "y",
+    "s",
+    "es",
+    "ies",
+    "th",
+    "en",
+    "ship",
+    "hood",
+    "age",
+    "ate",
+    "ated",
+    "ward",
+    "wards",
+    "like",
+    "'s",
 )
 _SUFFIXES_BY_LENGTH = sorted(_SUFFIXES, key=len, reverse=True)
 
@@ -89,8 +135,12 @@ def _features(word: str, first: bool) -> list[str]:
 
 
 def estimate_lexicon(
-    pairs: Iterable[tuple[int, str, bool] | tuple[int, str, bool, float]], n_tags: int,
-    alpha: float = 1.0, beta: float = 1.0, rare: int = 1, backoff_weight: float = 0.01,
+    pairs: Iterable[tuple[int, str, bool] | tuple[int, str, bool, float]],
+    n_tags: int,
+    alpha: float = 1.0,
+    beta: float = 1.0,
+    rare: int = 1,
+    backoff_weight: float = 0.01,
 ) -> tuple[np.ndarray, list[str], list[str]]:
     """Estimate log P(x | t) from (tag id, word, sentence-initial[, weight]) observations.
 
@@ -145,13 +195,14 @@ def estimate_lexicon(
     mass = np.zeros((n_tags, len(vocab) + n_sig))
     c_word = np.array([word_count[w] for w in vocab], dtype=float)
     sig_of_word = np.array(
-        [_finest_known(w, first_seen[w], sig_index) for w in vocab], dtype=np.int64)
+        [_finest_known(w, first_seen[w], sig_index) for w in vocab], dtype=np.int64
+    )
     mass[:, : len(vocab)] = beta * p_tag_given_sig[:, sig_of_word]
     for (tag, word), c in tag_word.items():
         mass[tag, col[word]] += c
     mass[:, : len(vocab)] *= (c_word / (c_word + beta))[None, :]
     weights = np.array([sig_weight[s] for s in sigs])
-    mass[:, len(vocab):] = p_tag_given_sig * (np.maximum(c_sig, 1.0) * weights)[None, :]
+    mass[:, len(vocab) :] = p_tag_given_sig * (np.maximum(c_sig, 1.0) * weights)[None, :]
     total = mass.sum(axis=1, keepdims=True)
     seen = np.zeros(n_tags, dtype=bool)
     for tag, _ in tag_word:

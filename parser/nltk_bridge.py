@@ -48,8 +48,7 @@ def to_nltk(g: Grammar, sentences: Sequence[Sequence[str]]) -> tuple[PCFG, list[
             mid = Nonterminal(f"E{e}")
             add(top(a), (mid,), float(lp))
             add(mid, (bot(b),), 0.0)
-    for a, left, right, lp in zip(g.bin_parent, g.bin_left, g.bin_right, g.bin_logp,
-                                  strict=True):
+    for a, left, right, lp in zip(g.bin_parent, g.bin_left, g.bin_right, g.bin_logp, strict=True):
         add(bot(a), (top(left), top(right)), float(lp))
     tokens: list[list[str]] = []
     used: set[int] = set()

@@ -104,8 +104,9 @@ def _known(label: str, known: Sequence[str] | frozenset[str]) -> str | None:
     return stripped if stripped in known else None
 
 
-def constraints_for(g: Grammar, n: int, said: Said,
-                    backoff: float | None = RELABEL_BACKOFF) -> Constraints:
+def constraints_for(
+    g: Grammar, n: int, said: Said, backoff: float | None = RELABEL_BACKOFF
+) -> Constraints:
     """The chart constraints of ``said`` for a sentence of ``n`` words (labels and tags the
     grammar lacks are left free, to be set afterwards by :func:`graft`)."""
     labels = frozenset(g.labels)
@@ -117,7 +118,8 @@ def constraints_for(g: Grammar, n: int, said: Said,
         required=[(s, e, _known(lab, labels)) for s, e, lab in said.required],
         forbidden=[(s, e) for s, e in said.forbidden if (s, e) != (0, n)],
         tags=tags if any(t is not None for t in tags) else [],
-        relabel_backoff=backoff)
+        relabel_backoff=backoff,
+    )
 
 
 def graft(tree: Tree, said: Said) -> Tree:
@@ -135,8 +137,11 @@ def graft(tree: Tree, said: Said) -> Tree:
     for s, e, label in said.required:
         if (label, s, e) in items:
             continue
-        free = [j for j, (lab, a, b) in enumerate(items)
-                if (a, b) == (s, e) and j != 0 and (lab, a, b) not in wanted]
+        free = [
+            j
+            for j, (lab, a, b) in enumerate(items)
+            if (a, b) == (s, e) and j != 0 and (lab, a, b) not in wanted
+        ]
         same = [j for j in free if strip_label(items[j][0]) == strip_label(label)]
         if same or free:
             items[(same or free)[0]] = (label, s, e)
@@ -149,8 +154,14 @@ def graft(tree: Tree, said: Said) -> Tree:
     return tree_from_spans(word_list, tag_list, items, root=None)
 
 
-def reparse(g: Grammar, word_list: Sequence[str], said: Said, previous: Tree | None = None,
-            k: int = 5, keep_bonus: float = KEEP_BONUS) -> Outcome:
+def reparse(
+    g: Grammar,
+    word_list: Sequence[str],
+    said: Said,
+    previous: Tree | None = None,
+    k: int = 5,
+    keep_bonus: float = KEEP_BONUS,
+) -> Outcome:
     """Re-parse ``word_list`` around ``said``, favouring ``previous`` (see the module
     docstring). Raises :class:`parser.errors.ConstraintError` when the said brackets cross each
     other or a bracket is both required and forbidden."""
@@ -162,18 +173,29 @@ def reparse(g: Grammar, word_list: Sequence[str], said: Said, previous: Tree | N
     reasons: list[str] = []
     if result.fallback:
         tree = graft(result.trees[0], said)
-        reasons.append("The grammar found no tree that keeps everything you said; this is a "
-                       "stand-in that keeps it and nothing more.")
-        return Outcome(tree=tree, readings=[(tree, None)], plausible=False, reasons=reasons,
-                       fallback=True, seconds=time.perf_counter() - t0)
+        reasons.append(
+            "The grammar found no tree that keeps everything you said; this is a "
+            "stand-in that keeps it and nothing more."
+        )
+        return Outcome(
+            tree=tree,
+            readings=[(tree, None)],
+            plausible=False,
+            reasons=reasons,
+            fallback=True,
+            seconds=time.perf_counter() - t0,
+        )
     free = parse(g, word_list, k=1)
     log10_ratio = None
     if not free.fallback and math.isfinite(free.logprobs[0]):
         log10_ratio = (result.logprobs[0] - free.logprobs[0]) / math.log(10)
     best = result.trees[0]
     have = set(constituents(best))
-    stand_ins = [(s, e, lab) for s, e, lab in said.required
-                 if not any((x, s, e) in have for x in (lab, strip_label(lab)))]
+    stand_ins = [
+        (s, e, lab)
+        for s, e, lab in said.required
+        if not any((x, s, e) in have for x in (lab, strip_label(lab)))
+    ]
     fixed = dict(said.tags)
     prev_tags = pos_tags(previous) if previous is not None else None
     tags: list[str] = []
@@ -183,14 +205,27 @@ def reparse(g: Grammar, word_list: Sequence[str], said: Said, previous: Tree | N
             continue
         post = result.tag_posteriors[i] if i < len(result.tag_posteriors) else {}
         choice = viterbi_tag  # as the start's consensus tree has (parser.chart)
-        if prev_tags is not None and prev_tags[i] != choice \
-                and post.get(prev_tags[i], 0.0) + keep_bonus >= post.get(choice, 0.0):
+        if (
+            prev_tags is not None
+            and prev_tags[i] != choice
+            and post.get(prev_tags[i], 0.0) + keep_bonus >= post.get(choice, 0.0)
+        ):
             choice = prev_tags[i]
         tags.append(choice)
-    prefer = [(strip_label(lab), s, e) for lab, s, e in constituents(previous)[1:]] \
-        if previous is not None else []
-    proposal = consensus_tree(word_list, tags, result.posteriors, g.root_label,
-                              required=constraints.required, prefer=prefer, bonus=keep_bonus)
+    prefer = (
+        [(strip_label(lab), s, e) for lab, s, e in constituents(previous)[1:]]
+        if previous is not None
+        else []
+    )
+    proposal = consensus_tree(
+        word_list,
+        tags,
+        result.posteriors,
+        g.root_label,
+        required=constraints.required,
+        prefer=prefer,
+        bonus=keep_bonus,
+    )
     proposal = graft(proposal, said)
     inside = result.inside_logprob
     readings: list[tuple[Tree, float | None]] = []
@@ -199,18 +234,30 @@ def reparse(g: Grammar, word_list: Sequence[str], said: Said, previous: Tree | N
         readings.append((graft(t, said), p))
     if stand_ins:
         names = ", ".join(f"{lab} over words {s + 1}-{e}" for s, e, lab in stand_ins)
-        reasons.append(f"The grammar never builds {names}; it kept the bracket as you labelled "
-                       "it and parsed the rest around it.")
+        reasons.append(
+            f"The grammar never builds {names}; it kept the bracket as you labelled "
+            "it and parsed the rest around it."
+        )
     plausible = True
     if log10_ratio is not None and log10_ratio < math.log10(FAR_LESS):
         plausible = False
-        reasons.append(f"Under what you said, the grammar's best reading is 10^{-log10_ratio:.0f}"
-                       " times less probable than its free best: the rest of the tree is "
-                       "little more than a guess.")
-    return Outcome(tree=proposal, readings=readings, plausible=plausible, reasons=reasons,
-                   fallback=False, stand_ins=stand_ins, log10_ratio=log10_ratio,
-                   posteriors=result.posteriors, tag_posteriors=result.tag_posteriors,
-                   seconds=time.perf_counter() - t0)
+        reasons.append(
+            f"Under what you said, the grammar's best reading is 10^{-log10_ratio:.0f}"
+            " times less probable than its free best: the rest of the tree is "
+            "little more than a guess."
+        )
+    return Outcome(
+        tree=proposal,
+        readings=readings,
+        plausible=plausible,
+        reasons=reasons,
+        fallback=False,
+        stand_ins=stand_ins,
+        log10_ratio=log10_ratio,
+        posteriors=result.posteriors,
+        tag_posteriors=result.tag_posteriors,
+        seconds=time.perf_counter() - t0,
+    )
 
 
 @dataclass
@@ -247,6 +294,9 @@ def changes(before: Tree, after: Tree) -> Changes:
         if match is not None:
             spare.remove(match)
             relabelled.append((s, e, match[0], lab))
-    retagged = [(i, a, b) for i, (a, b) in enumerate(zip(pos_tags(before), pos_tags(after),
-                                                          strict=True)) if a != b]
+    retagged = [
+        (i, a, b)
+        for i, (a, b) in enumerate(zip(pos_tags(before), pos_tags(after), strict=True))
+        if a != b
+    ]
     return Changes(added=added, removed=removed, relabelled=relabelled, retagged=retagged)

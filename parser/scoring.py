@@ -73,15 +73,17 @@ class WordMismatchError(ScoringError):
     number of the pair when the error comes from :func:`score_corpus`.
     """
 
-    def __init__(self, index: int, gold_word: str | None, test_word: str | None,
-                 sentence: int | None = None) -> None:
+    def __init__(
+        self, index: int, gold_word: str | None, test_word: str | None, sentence: int | None = None
+    ) -> None:
         self.index = index
         self.gold_word = gold_word
         self.test_word = test_word
         self.sentence = sentence
         where = f"tree {sentence}: " if sentence is not None else ""
-        super().__init__(f"{where}the words differ at word {index + 1}: "
-                         f"gold {gold_word!r}, test {test_word!r}")
+        super().__init__(
+            f"{where}the words differ at word {index + 1}: gold {gold_word!r}, test {test_word!r}"
+        )
 
 
 @dataclass(frozen=True)
@@ -153,12 +155,17 @@ class Counts:
         return _ratio(2 * self.matched, self.gold + self.test, 1.0)
 
     def __add__(self, other: Counts) -> Counts:
-        return Counts(self.matched + other.matched, self.gold + other.gold,
-                      self.test + other.test)
+        return Counts(self.matched + other.matched, self.gold + other.gold, self.test + other.test)
 
     def to_dict(self) -> dict[str, float | int]:
-        return {"precision": self.precision, "recall": self.recall, "f1": self.f1,
-                "matched": self.matched, "gold": self.gold, "test": self.test}
+        return {
+            "precision": self.precision,
+            "recall": self.recall,
+            "f1": self.f1,
+            "matched": self.matched,
+            "gold": self.gold,
+            "test": self.test,
+        }
 
 
 def _compare(gold: Counter[Any], test: Counter[Any]) -> Counts:
@@ -272,8 +279,9 @@ class CorpusScore:
             "zero_crossing": self.zero_crossing,
             "pos_accuracy": self.pos_accuracy,
             "unlabelled": self.unlabelled.to_dict(),
-            "per_label": {label: counts.to_dict()
-                          for label, counts in sorted(self.per_label.items())},
+            "per_label": {
+                label: counts.to_dict() for label, counts in sorted(self.per_label.items())
+            },
         }
 
 
@@ -302,8 +310,13 @@ def _collect(tree: Tree) -> tuple[list[str], list[str], list[_Node]]:
             else:
                 word_list.append(child)
                 tags.append(node.label())
-        nodes[slot] = (node.label(), start, len(word_list),
-                       not has_subtree and len(node) == 1, len(node))
+        nodes[slot] = (
+            node.label(),
+            start,
+            len(word_list),
+            not has_subtree and len(node) == 1,
+            len(node),
+        )
 
     if isinstance(tree, Tree):
         walk(tree)
@@ -393,8 +406,13 @@ def _prepare(gold: Tree, test: Tree, options: ScoringOptions) -> _Prepared:
     test_words, test_tags, test_nodes = _collect(test)
     _check_words(gold_words, test_words)
     kept = _kept_before(gold_tags, options)
-    return _Prepared(_triples(gold_nodes, kept, options), _triples(test_nodes, kept, options),
-                     gold_tags, test_tags, kept)
+    return _Prepared(
+        _triples(gold_nodes, kept, options),
+        _triples(test_nodes, kept, options),
+        gold_tags,
+        test_tags,
+        kept,
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -423,8 +441,9 @@ def score_pair(gold: Tree, test: Tree, options: ScoringOptions | None = None) ->
     )
 
 
-def score_corpus(pairs: Iterable[tuple[Tree, Tree]],
-                 options: ScoringOptions | None = None) -> CorpusScore:
+def score_corpus(
+    pairs: Iterable[tuple[Tree, Tree]], options: ScoringOptions | None = None
+) -> CorpusScore:
     """Micro-averaged score over ``(gold, test)`` pairs.
 
     A :class:`WordMismatchError` carries the 1-based number of the offending pair.
@@ -436,8 +455,9 @@ def score_corpus(pairs: Iterable[tuple[Tree, Tree]],
         try:
             s = score_pair(gold, test, options)
         except WordMismatchError as err:
-            raise WordMismatchError(err.index, err.gold_word, err.test_word,
-                                    sentence=number) from None
+            raise WordMismatchError(
+                err.index, err.gold_word, err.test_word, sentence=number
+            ) from None
         sentences += 1
         labelled += s.labelled
         unlabelled += s.unlabelled
@@ -448,12 +468,22 @@ def score_corpus(pairs: Iterable[tuple[Tree, Tree]],
         zero_crossing += s.crossing == 0
         pos_correct += s.pos_correct
         pos_total += s.pos_total
-    return CorpusScore(sentences, labelled, unlabelled, per_label, exact, crossing,
-                       zero_crossing, pos_correct, pos_total)
+    return CorpusScore(
+        sentences,
+        labelled,
+        unlabelled,
+        per_label,
+        exact,
+        crossing,
+        zero_crossing,
+        pos_correct,
+        pos_total,
+    )
 
 
-def label_confusions(gold: Tree, test: Tree,
-                     options: ScoringOptions | None = None) -> Counter[tuple[str, str]]:
+def label_confusions(
+    gold: Tree, test: Tree, options: ScoringOptions | None = None
+) -> Counter[tuple[str, str]]:
     """``(gold_label, test_label)`` counts for spans both trees have but label differently.
 
     On each span, labels present on both sides are matched off first (as multisets); the labels

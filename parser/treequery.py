@@ -183,8 +183,9 @@ class _Reader:
     def take(self) -> tuple[str, int]:
         tok = self.peek()
         if tok is None:
-            raise QuerySyntaxError("the pattern ends too early; a ')' is missing",
-                                   len(self.text) + 1)
+            raise QuerySyntaxError(
+                "the pattern ends too early; a ')' is missing", len(self.text) + 1
+            )
         self.pos += 1
         return tok
 
@@ -201,8 +202,9 @@ def _label(text: str, column: int) -> tuple[str, ...] | None:
     parts = tuple(text.split("|"))
     for part in parts:
         if not part or "*" in part or part in ("_", "...") or part.startswith("~"):
-            raise QuerySyntaxError(f"'{text}' is not a label (a name, '*' or names joined "
-                                   "with '|')", column)
+            raise QuerySyntaxError(
+                f"'{text}' is not a label (a name, '*' or names joined with '|')", column
+            )
     return parts
 
 
@@ -216,8 +218,9 @@ def _fragment(reader: _Reader) -> Fragment:
     while True:
         nxt = reader.peek()
         if nxt is None:
-            raise QuerySyntaxError(f"the '(' at column {open_col} is never closed",
-                                   len(reader.text) + 1)
+            raise QuerySyntaxError(
+                f"the '(' at column {open_col} is never closed", len(reader.text) + 1
+            )
         tok, col = nxt
         if tok == ")":
             reader.take()
@@ -263,17 +266,22 @@ def parse_pattern(text: str) -> Pattern:
     if first != "(":
         for tok, c in reader.tokens:
             if tok in ("(", ")"):
-                raise QuerySyntaxError("a word string cannot hold brackets; start the pattern "
-                                       "with '(' for a tree fragment", c)
+                raise QuerySyntaxError(
+                    "a word string cannot hold brackets; start the pattern "
+                    "with '(' for a tree fragment",
+                    c,
+                )
             if tok in ("_", "...") or tok.startswith("~"):
-                raise QuerySyntaxError(f"'{tok}' belongs in a bracketed fragment; in a word "
-                                       "string '*' stands for any word", c)
+                raise QuerySyntaxError(
+                    f"'{tok}' belongs in a bracketed fragment; in a word "
+                    "string '*' stands for any word",
+                    c,
+                )
         return WordString(tuple(_word(tok, c) for tok, c in reader.tokens))
     frag = _fragment(reader)
     rest = reader.peek()
     if rest is not None:
-        raise QuerySyntaxError(f"unexpected '{rest[0]}' after the fragment's closing ')'",
-                               rest[1])
+        raise QuerySyntaxError(f"unexpected '{rest[0]}' after the fragment's closing ')'", rest[1])
     return frag
 
 
@@ -285,8 +293,11 @@ def match_words(pattern: WordString, tokens: Sequence[str]) -> list[tuple[int, i
     """Spans ``(start, end)`` of every place the word string occurs in ``tokens``."""
     n = len(pattern.words)
     low = [t.lower() for t in tokens]
-    return [(i, i + n) for i in range(len(low) - n + 1)
-            if all(w.matches(low[i + k]) for k, w in enumerate(pattern.words))]
+    return [
+        (i, i + n)
+        for i in range(len(low) - n + 1)
+        if all(w.matches(low[i + k]) for k, w in enumerate(pattern.words))
+    ]
 
 
 def _node_matches(frag: Fragment, node: Tree | str) -> bool:

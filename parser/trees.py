@@ -150,8 +150,7 @@ def _token_offset(text: str, index: int) -> int:
     return match.start() + len(match.group()) - len(match.group().lstrip())
 
 
-def _parse(text: str, source: str | None, line_offset: int = 0,
-           single: bool = False) -> list[Tree]:
+def _parse(text: str, source: str | None, line_offset: int = 0, single: bool = False) -> list[Tree]:
     """Parse every tree in ``text``; ``line_offset`` lines come before it (for messages).
 
     With ``single``, anything after the first tree is an error.
@@ -167,8 +166,7 @@ def _parse(text: str, source: str | None, line_offset: int = 0,
             gc.enable()
 
 
-def _parse_tokens(text: str, source: str | None, line_offset: int,
-                  single: bool) -> list[Tree]:
+def _parse_tokens(text: str, source: str | None, line_offset: int, single: bool) -> list[Tree]:
     tokens = _TOKEN_RE.findall(text)
     trees: list[Tree] = []
     # one entry per open bracket: [label, children, token index of the "(",
@@ -185,8 +183,12 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
 
     for i, (tag, word, label, close, bare) in enumerate(tokens):
         if len(stack) >= MAX_DEPTH and not close and not bare:
-            raise fail(i, f"brackets nested more than {MAX_DEPTH} levels deep; the deepest "
-                          "tree accepted has that many levels", "')'")
+            raise fail(
+                i,
+                f"brackets nested more than {MAX_DEPTH} levels deep; the deepest "
+                "tree accepted has that many levels",
+                "')'",
+            )
         if single and trees and not stack and not close:
             raise fail(i, "text after the tree: only one tree was wanted", "end of input")
         if tag:
@@ -211,17 +213,29 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
             children = top[1]
             if children:
                 if isinstance(children[0], str):
-                    raise fail(i, f"the preterminal {top[0]!r} already holds the word "
-                                  f"{children[0]!r}; a preterminal holds one word", "')'")
-                raise fail(i, f"the word {bare!r} stands beside a subtree; a word must sit "
-                              f"alone in its POS bracket, e.g. (TAG {bare})", "'('")
+                    raise fail(
+                        i,
+                        f"the preterminal {top[0]!r} already holds the word "
+                        f"{children[0]!r}; a preterminal holds one word",
+                        "')'",
+                    )
+                raise fail(
+                    i,
+                    f"the word {bare!r} stands beside a subtree; a word must sit "
+                    f"alone in its POS bracket, e.g. (TAG {bare})",
+                    "'('",
+                )
             top[3] = i
             children.append(bare)
             continue
         else:
             if stack and not label:
-                raise fail(i, "a bracket without a label inside a tree "
-                              "(only the outermost bracket may lack one)", "a label")
+                raise fail(
+                    i,
+                    "a bracket without a label inside a tree "
+                    "(only the outermost bracket may lack one)",
+                    "a label",
+                )
             stack.append([label, [], i, -1])
             continue
         # a finished node (preterminal token or closed bracket) goes to its parent
@@ -229,8 +243,12 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
             top = stack[-1]
             if top[3] >= 0:
                 bare = top[1][0]
-                raise fail(top[3], f"the word {bare!r} stands beside a subtree; a word must "
-                                   f"sit alone in its POS bracket, e.g. (TAG {bare})", "'('")
+                raise fail(
+                    top[3],
+                    f"the word {bare!r} stands beside a subtree; a word must "
+                    f"sit alone in its POS bracket, e.g. (TAG {bare})",
+                    "'('",
+                )
             top[1].append(node)
         else:
             trees.append(node)
@@ -241,7 +259,11 @@ def _parse_tokens(text: str, source: str | None, line_offset: int,
         raise BracketSyntaxError(
             f"end of input with {len(stack)} bracket(s) still open; the unclosed tree begins "
             f"at line {line}, column {column}",
-            end_line, end_column, expected="')'", source=source)
+            end_line,
+            end_column,
+            expected="')'",
+            source=source,
+        )
     return trees
 
 
@@ -259,8 +281,7 @@ def read_tree(text: str, source: str | None = None) -> Tree:
     trees = _parse(text, source, single=True)
     if not trees:
         line, column = _line_col(text, len(text), 0)
-        raise BracketSyntaxError("no tree in the text", line, column, expected="'('",
-                                 source=source)
+        raise BracketSyntaxError("no tree in the text", line, column, expected="'('", source=source)
     return trees[0]
 
 
@@ -329,8 +350,9 @@ def _check_children(node: Tree) -> None:
     if len(node) == 0:
         raise TreeError(f"the node {node.label()!r} has no children")
     if len(node) > 1 and any(not isinstance(child, Tree) for child in node):
-        raise TreeError(f"the node {node.label()!r} mixes words and subtrees "
-                        "(or holds several words)")
+        raise TreeError(
+            f"the node {node.label()!r} mixes words and subtrees (or holds several words)"
+        )
 
 
 def _flat_strings(node: Tree, root: bool, all_brackets: bool, memo: dict[int, str]) -> str:
@@ -350,8 +372,15 @@ def _flat_strings(node: Tree, root: bool, all_brackets: bool, memo: dict[int, st
     return text
 
 
-def _indented(node: Tree, indent: int, width: int, root: bool, all_brackets: bool,
-              memo: dict[int, str], out: list[str]) -> None:
+def _indented(
+    node: Tree,
+    indent: int,
+    width: int,
+    root: bool,
+    all_brackets: bool,
+    memo: dict[int, str],
+    out: list[str],
+) -> None:
     text = memo[id(node)]
     if len(text) + indent < width:
         out.append(text)
@@ -368,8 +397,9 @@ def _indented(node: Tree, indent: int, width: int, root: bool, all_brackets: boo
     out.append(")")
 
 
-def write_tree(tree: Tree, indent: bool = False, *, width: int = 70,
-               all_brackets: bool = False) -> str:
+def write_tree(
+    tree: Tree, indent: bool = False, *, width: int = 70, all_brackets: bool = False
+) -> str:
     """The bracketed text of one tree, without a final newline.
 
     ``indent=False`` gives one line. ``indent=True`` breaks a node over several lines only when
@@ -385,8 +415,9 @@ def write_tree(tree: Tree, indent: bool = False, *, width: int = 70,
     return "".join(out)
 
 
-def write_trees(trees: Iterable[Tree], indent: bool = False, *, width: int = 70,
-                all_brackets: bool = False) -> str:
+def write_trees(
+    trees: Iterable[Tree], indent: bool = False, *, width: int = 70, all_brackets: bool = False
+) -> str:
     """Several trees: one per line, or (``indent=True``) separated by a blank line.
 
     The text ends with a newline unless there are no trees (then it is empty).
@@ -430,8 +461,10 @@ def strip_label(label: str) -> str:
 
 def strip_function_tags(tree: Tree) -> Tree:
     """A copy of ``tree`` with :func:`strip_label` applied to every label, POS tags included."""
-    return Tree(strip_label(tree.label()),
-                [strip_function_tags(c) if isinstance(c, Tree) else c for c in tree])
+    return Tree(
+        strip_label(tree.label()),
+        [strip_function_tags(c) if isinstance(c, Tree) else c for c in tree],
+    )
 
 
 def drop_empty_elements(tree: Tree, empty_tags: Iterable[str] = EMPTY_TAGS) -> Tree | None:
@@ -485,8 +518,12 @@ def _tags_for(word_list: Sequence[str], tags: Sequence[str] | None) -> list[str]
     return list(tags)
 
 
-def flat_tree(word_list: Sequence[str], tags: Sequence[str] | None = None,
-              root: str | None = "ROOT", phrase: str = "S") -> Tree:
+def flat_tree(
+    word_list: Sequence[str],
+    tags: Sequence[str] | None = None,
+    root: str | None = "ROOT",
+    phrase: str = "S",
+) -> Tree:
     """``(ROOT (S (T1 w1) (T2 w2) ...))``: a well-formed tree when no grammar is at hand.
 
     Missing tags are :data:`UNKNOWN_TAG`; ``root=None`` returns the ``phrase`` node itself.
@@ -498,8 +535,12 @@ def flat_tree(word_list: Sequence[str], tags: Sequence[str] | None = None,
     return node if root is None else Tree(root, [node])
 
 
-def tree_from_spans(word_list: Sequence[str], tags: Sequence[str] | None,
-                    spans: Iterable[tuple[str, int, int]], root: str | None = "ROOT") -> Tree:
+def tree_from_spans(
+    word_list: Sequence[str],
+    tags: Sequence[str] | None,
+    spans: Iterable[tuple[str, int, int]],
+    root: str | None = "ROOT",
+) -> Tree:
     """Build the tree whose phrasal nodes are exactly ``spans`` (``(label, start, end)``).
 
     Spans must nest (two spans that overlap without one containing the other raise
@@ -547,8 +588,9 @@ def tree_from_spans(word_list: Sequence[str], tags: Sequence[str] | None,
         if stack:
             parent = stack[-1]
             if end > parent[2]:
-                raise TreeError(f"span {label} ({start}, {end}) crosses "
-                                f"{parent[0]} ({parent[1]}, {parent[2]})")
+                raise TreeError(
+                    f"span {label} ({start}, {end}) crosses {parent[0]} ({parent[1]}, {parent[2]})"
+                )
             fill(parent[3], start)
         elif done:
             raise TreeError(f"span {label} ({start}, {end}) lies outside the root span")

@@ -165,15 +165,19 @@ def _prepare(source: TreeSource, vocab: dict[str, int], keep: bool) -> _Prepared
     return _Prepared(source, words, ids, tags, spans, rules)
 
 
-def find_inconsistencies(sources: Iterable[TreeSource],
-                         options: FinderOptions | None = None) -> list[Finding]:
+def find_inconsistencies(
+    sources: Iterable[TreeSource], options: FinderOptions | None = None
+) -> list[Finding]:
     """Every finding of the three kinds, most suspicious first (ties by key)."""
     opts = options or FinderOptions()
     vocab: dict[str, int] = {}
     prepared = [_prepare(s, vocab, opts.keep_function_tags) for s in sources]
     rules = _rule_counts(prepared)
-    found = (_bracket_findings(prepared, opts, rules) + _tag_findings(prepared, opts)
-             + _rule_findings(prepared, opts, rules))
+    found = (
+        _bracket_findings(prepared, opts, rules)
+        + _tag_findings(prepared, opts)
+        + _rule_findings(prepared, opts, rules)
+    )
     found.sort(key=lambda f: (-f.score, f.kind, f.key))
     return found
 
@@ -191,8 +195,9 @@ def _nuclei(prepared: Sequence[_Prepared], opts: FinderOptions) -> set[tuple[int
     return out
 
 
-def _occurrences(prepared: Sequence[_Prepared], nuclei: set[tuple[int, ...]],
-                 opts: FinderOptions) -> dict[tuple[int, ...], list[tuple[int, int]]]:
+def _occurrences(
+    prepared: Sequence[_Prepared], nuclei: set[tuple[int, ...]], opts: FinderOptions
+) -> dict[tuple[int, ...], list[tuple[int, int]]]:
     """Every (tree index, start) at which each nucleus occurs, as a constituent or not."""
     prefixes = {n[:k] for n in nuclei for k in range(1, len(n) + 1)}
     where: dict[tuple[int, ...], list[tuple[int, int]]] = defaultdict(list)
@@ -209,10 +214,11 @@ def _occurrences(prepared: Sequence[_Prepared], nuclei: set[tuple[int, ...]],
     return where
 
 
-def _context(ids: list[int], start: int, end: int, k: int) -> tuple[tuple[int, ...],
-                                                                    tuple[int, ...]]:
-    left = tuple(ids[max(0, start - k):start])
-    right = tuple(ids[end:end + k])
+def _context(
+    ids: list[int], start: int, end: int, k: int
+) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    left = tuple(ids[max(0, start - k) : start])
+    right = tuple(ids[end : end + k])
     if len(left) < k:
         left = (_START,) + left
     if len(right) < k:
@@ -284,16 +290,19 @@ def _rare_rule_at(p: _Prepared, start: int, end: int, rules: _RuleCounts, rare_m
     return around is not None and rules[(around[0], around[1])] <= rare_max
 
 
-def _bracket_findings(prepared: Sequence[_Prepared], opts: FinderOptions,
-                      rules: _RuleCounts) -> list[Finding]:
+def _bracket_findings(
+    prepared: Sequence[_Prepared], opts: FinderOptions, rules: _RuleCounts
+) -> list[Finding]:
     nuclei = _nuclei(prepared, opts)
     found = []
     for nucleus, places in _occurrences(prepared, nuclei, opts).items():
         if len(places) < 2:
             continue
         size = len(nucleus)
-        occ = [(prepared[t], i, i + size, prepared[t].spans.get((i, i + size), NO_CONSTITUENT))
-               for t, i in places]
+        occ = [
+            (prepared[t], i, i + size, prepared[t].spans.get((i, i + size), NO_CONSTITUENT))
+            for t, i in places
+        ]
         counts = Counter(a for *_, a in occ)
         if len(counts) < 2 or len({p.source.sentence for p, *_ in occ}) < 2:
             continue
@@ -302,22 +311,40 @@ def _bracket_findings(prepared: Sequence[_Prepared], opts: FinderOptions,
         lopsided = 1.0 - minority / len(occ)
         # corroboration: an odd occurrence at (or directly under) a rule seen only there
         odd = {a for a, n in counts.items() if n == minority}
-        rare_here = any(_rare_rule_at(p, s, e, rules, opts.rare_max)
-                        for p, s, e, a in occ if a in odd)
-        score = (CORROBORATION * rare_here + 3.0 * both + 1.0 * side + 2.0 * lopsided
-                 + 0.25 * min(size, 6))
-        text = " ".join(prepared[places[0][0]].words[places[0][1]:places[0][1] + size])
-        order = {a: r for r, (a, _) in enumerate(sorted(counts.items(),
-                                                         key=lambda kv: (kv[1], kv[0])))}
-        occurrences = sorted((Occurrence(p.source.key, p.source.sentence, s, e, a)
-                              for p, s, e, a in occ),
-                             key=lambda o: (order[o.analysis], o.sentence, o.start))
-        found.append(Finding(
-            KIND_BRACKET, f"{KIND_BRACKET}:{text}", round(score, 4),
-            f"“{text}” is " + " / ".join(f"{_show(a)} ×{n}" for a, n in counts.most_common()),
-            _trimmed(occurrences, opts.keep_per_analysis),
-            {"words": text, "analyses": dict(counts.most_common()), "context_both": both,
-             "context_one_side": side, "rare_rule_here": rare_here}))
+        rare_here = any(
+            _rare_rule_at(p, s, e, rules, opts.rare_max) for p, s, e, a in occ if a in odd
+        )
+        score = (
+            CORROBORATION * rare_here
+            + 3.0 * both
+            + 1.0 * side
+            + 2.0 * lopsided
+            + 0.25 * min(size, 6)
+        )
+        text = " ".join(prepared[places[0][0]].words[places[0][1] : places[0][1] + size])
+        order = {
+            a: r for r, (a, _) in enumerate(sorted(counts.items(), key=lambda kv: (kv[1], kv[0])))
+        }
+        occurrences = sorted(
+            (Occurrence(p.source.key, p.source.sentence, s, e, a) for p, s, e, a in occ),
+            key=lambda o: (order[o.analysis], o.sentence, o.start),
+        )
+        found.append(
+            Finding(
+                KIND_BRACKET,
+                f"{KIND_BRACKET}:{text}",
+                round(score, 4),
+                f"“{text}” is " + " / ".join(f"{_show(a)} ×{n}" for a, n in counts.most_common()),
+                _trimmed(occurrences, opts.keep_per_analysis),
+                {
+                    "words": text,
+                    "analyses": dict(counts.most_common()),
+                    "context_both": both,
+                    "context_one_side": side,
+                    "rare_rule_here": rare_here,
+                },
+            )
+        )
     return found
 
 
@@ -353,19 +380,32 @@ def _tag_findings(prepared: Sequence[_Prepared], opts: FinderOptions) -> list[Fi
         lopsided = 1.0 - minority / len(group)
         wider = _varies(_wide_tag_groups(group))
         score = 3.0 + 3.0 * wider + 2.0 * lopsided
-        order = {a: r for r, (a, _) in enumerate(sorted(counts.items(),
-                                                         key=lambda kv: (kv[1], kv[0])))}
-        occurrences = sorted((Occurrence(p.source.key, p.source.sentence, i, i + 1, p.tags[i])
-                              for p, i in group),
-                             key=lambda o: (order[o.analysis], o.sentence, o.start))
-        found.append(Finding(
-            KIND_TAG, f"{KIND_TAG}:{before} {word} {after}", round(score, 4),
-            f"“{word}” between “{before}” and “{after}” is "
-            + " / ".join(f"{t} ×{n}" for t, n in counts.most_common())
-            + f" (usually {common})",
-            _trimmed(occurrences, opts.keep_per_analysis),
-            {"word": word, "left": before, "right": after, "tags": dict(counts.most_common()),
-             "usual_tag": common, "usual_counts": dict(usual[word].most_common(5))}))
+        order = {
+            a: r for r, (a, _) in enumerate(sorted(counts.items(), key=lambda kv: (kv[1], kv[0])))
+        }
+        occurrences = sorted(
+            (Occurrence(p.source.key, p.source.sentence, i, i + 1, p.tags[i]) for p, i in group),
+            key=lambda o: (order[o.analysis], o.sentence, o.start),
+        )
+        found.append(
+            Finding(
+                KIND_TAG,
+                f"{KIND_TAG}:{before} {word} {after}",
+                round(score, 4),
+                f"“{word}” between “{before}” and “{after}” is "
+                + " / ".join(f"{t} ×{n}" for t, n in counts.most_common())
+                + f" (usually {common})",
+                _trimmed(occurrences, opts.keep_per_analysis),
+                {
+                    "word": word,
+                    "left": before,
+                    "right": after,
+                    "tags": dict(counts.most_common()),
+                    "usual_tag": common,
+                    "usual_counts": dict(usual[word].most_common(5)),
+                },
+            )
+        )
     return found
 
 
@@ -388,10 +428,10 @@ def _rule_counts(prepared: Sequence[_Prepared]) -> _RuleCounts:
     return Counter((parent, kids) for p in prepared for parent, kids, _, _ in p.rules)
 
 
-def _rule_findings(prepared: Sequence[_Prepared], opts: FinderOptions,
-                   counts: _RuleCounts) -> list[Finding]:
-    places: dict[tuple[str, tuple[str, ...]], list[tuple[_Prepared, int, int]]] = \
-        defaultdict(list)
+def _rule_findings(
+    prepared: Sequence[_Prepared], opts: FinderOptions, counts: _RuleCounts
+) -> list[Finding]:
+    places: dict[tuple[str, tuple[str, ...]], list[tuple[_Prepared, int, int]]] = defaultdict(list)
     for p in prepared:
         for parent, kids, start, end in p.rules:
             rule = (parent, kids)
@@ -399,28 +439,31 @@ def _rule_findings(prepared: Sequence[_Prepared], opts: FinderOptions,
                 continue
             if len(places[rule]) <= opts.rare_max:
                 places[rule].append((p, start, end))
-    frequent = {r: c for r, c in counts.items()
-                if c >= opts.frequent_min and r[0] not in WRAPPER_LABELS}
+    frequent = {
+        r: c for r, c in counts.items() if c >= opts.frequent_min and r[0] not in WRAPPER_LABELS
+    }
     # one-edit keys of the frequent rules
-    by_hole: dict[tuple[str, tuple[str, ...], int], list[tuple[str, tuple[str, ...]]]] = \
+    by_hole: dict[tuple[str, tuple[str, ...], int], list[tuple[str, tuple[str, ...]]]] = (
         defaultdict(list)
-    by_shorter: dict[tuple[str, tuple[str, ...]], list[tuple[str, tuple[str, ...]]]] = \
-        defaultdict(list)
+    )
+    by_shorter: dict[tuple[str, tuple[str, ...]], list[tuple[str, tuple[str, ...]]]] = defaultdict(
+        list
+    )
     by_kids: dict[tuple[str, ...], list[tuple[str, tuple[str, ...]]]] = defaultdict(list)
     for rule in frequent:
         parent, kids = rule
         by_kids[kids].append(rule)
         for i in range(len(kids)):
-            by_hole[(parent, kids[:i] + kids[i + 1:], i)].append(rule)
-            by_shorter[(parent, kids[:i] + kids[i + 1:])].append(rule)
+            by_hole[(parent, kids[:i] + kids[i + 1 :], i)].append(rule)
+            by_shorter[(parent, kids[:i] + kids[i + 1 :])].append(rule)
     found = []
     for rule in places:
         c = counts[rule]
         parent, kids = rule
         near: set[tuple[str, tuple[str, ...]]] = set()
         for i in range(len(kids)):
-            near.update(by_hole.get((parent, kids[:i] + kids[i + 1:], i), ()))  # one replaced
-            shorter = (parent, kids[:i] + kids[i + 1:])
+            near.update(by_hole.get((parent, kids[:i] + kids[i + 1 :], i), ()))  # one replaced
+            shorter = (parent, kids[:i] + kids[i + 1 :])
             if shorter in frequent:  # the rare rule has one child more
                 near.add(shorter)
         near.update(by_shorter.get(rule, ()))  # the rare rule lacks one child
@@ -432,11 +475,21 @@ def _rule_findings(prepared: Sequence[_Prepared], opts: FinderOptions,
         best = frequent[twins[0]]
         score = 1.0 + math.log10(best) - 0.5 * (c - 1)
         text = _rule_text(parent, kids)
-        found.append(Finding(
-            KIND_RULE, f"{KIND_RULE}:{text}", round(score, 4),
-            f"{text} ×{c}, beside {_rule_text(*twins[0])} ×{best}",
-            [Occurrence(p.source.key, p.source.sentence, s, e, text)
-             for p, s, e in places[rule]],
-            {"rule": text, "count": c,
-             "near": [{"rule": _rule_text(*r), "count": frequent[r]} for r in twins[:5]]}))
+        found.append(
+            Finding(
+                KIND_RULE,
+                f"{KIND_RULE}:{text}",
+                round(score, 4),
+                f"{text} ×{c}, beside {_rule_text(*twins[0])} ×{best}",
+                [
+                    Occurrence(p.source.key, p.source.sentence, s, e, text)
+                    for p, s, e in places[rule]
+                ],
+                {
+                    "rule": text,
+                    "count": c,
+                    "near": [{"rule": _rule_text(*r), "count": frequent[r]} for r in twins[:5]],
+                },
+            )
+        )
     return found

@@ -21,8 +21,10 @@ def gum_dir() -> Path:
     """Return the GUM tree folder, or skip (or fail in CI) when it is missing."""
     if GUM_DIR.is_dir() and any(GUM_DIR.glob("*.ptb")):
         return GUM_DIR
-    reason = (f"shared GUM trees not found at {GUM_DIR}; they live beside the project in "
-              "../shared/data/gum-trees")
+    reason = (
+        f"shared GUM trees not found at {GUM_DIR}; they live beside the project in "
+        "../shared/data/gum-trees"
+    )
     if os.environ.get("TREEWRIGHT_REQUIRE_SHARED") == "1":
         pytest.fail(reason + " and TREEWRIGHT_REQUIRE_SHARED=1 makes that an error")
     pytest.skip(reason)

@@ -59,7 +59,7 @@ def find_cycle(graph: dict[str, set[str]]) -> list[str] | None:
         path.append(node)
         for nxt in sorted(graph.get(node, ())):
             if state.get(nxt) == 1:
-                return path[path.index(nxt):] + [nxt]
+                return path[path.index(nxt) :] + [nxt]
             if nxt not in state:
                 found = visit(nxt)
                 if found:
@@ -77,7 +77,8 @@ def find_cycle(graph: dict[str, set[str]]) -> list[str] | None:
 
 
 def test_architecture_cycle_finder_sees_a_cycle_through_a_function_level_import(
-        tmp_path: Path) -> None:
+    tmp_path: Path,
+) -> None:
     # the checker itself: a cycle closed by an import inside a function is found
     pkg = tmp_path / "app" / "services"
     pkg.mkdir(parents=True)
@@ -85,8 +86,9 @@ def test_architecture_cycle_finder_sees_a_cycle_through_a_function_level_import(
     (pkg / "two.py").write_text("def f():\n    from app.services.one import g\n")
     (pkg / "three.py").write_text("import app.services.two\n")
     names = {"app.services.one", "app.services.two", "app.services.three"}
-    graph = {f"app.services.{p.stem}": _imported_modules(p, names)
-             for p in sorted(pkg.glob("*.py"))}
+    graph = {
+        f"app.services.{p.stem}": _imported_modules(p, names) for p in sorted(pkg.glob("*.py"))
+    }
     assert graph["app.services.three"] == {"app.services.two"}
     cycle = find_cycle(graph)
     assert cycle is not None and set(cycle) == {"app.services.one", "app.services.two"}
@@ -120,8 +122,9 @@ def test_architecture_gold_loop_runs_one_way() -> None:
 
     for i, later in enumerate(chain):
         for earlier in chain[:i]:
-            assert not reaches(f"app.services.{later}", f"app.services.{earlier}"), \
+            assert not reaches(f"app.services.{later}", f"app.services.{earlier}"), (
                 f"{later} reaches back to {earlier}"
+            )
 
 
 #: SQLAlchemy names a route module may import: none of them builds or runs a query.
@@ -133,20 +136,30 @@ def _route_offences(path: Path, root: Path = ROOT) -> list[str]:
     rel = path.relative_to(root)
     tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
     for node in ast.walk(tree):
-        if isinstance(node, ast.ImportFrom) and node.module and node.module.startswith(
-                "sqlalchemy"):
+        if (
+            isinstance(node, ast.ImportFrom)
+            and node.module
+            and node.module.startswith("sqlalchemy")
+        ):
             for alias in node.names:
                 if (node.module, alias.name) not in ROUTE_SQLALCHEMY_ALLOWED:
                     out.append(f"{rel}:{node.lineno} imports {node.module}.{alias.name}")
         elif isinstance(node, ast.Import):
-            out += [f"{rel}:{node.lineno} imports {a.name}" for a in node.names
-                    if a.name.startswith("sqlalchemy")]
+            out += [
+                f"{rel}:{node.lineno} imports {a.name}"
+                for a in node.names
+                if a.name.startswith("sqlalchemy")
+            ]
         elif isinstance(node, ast.ImportFrom) and node.module == "app.models":
             for alias in node.names:
                 if not (alias.name[:1].isupper()):  # classes and CONSTANTS only
                     out.append(f"{rel}:{node.lineno} imports app.models.{alias.name}")
-        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
-              and isinstance(node.func.value, ast.Name) and node.func.value.id == "db"):
+        elif (
+            isinstance(node, ast.Call)
+            and isinstance(node.func, ast.Attribute)
+            and isinstance(node.func.value, ast.Name)
+            and node.func.value.id == "db"
+        ):
             out.append(f"{rel}:{node.lineno} calls db.{node.func.attr}()")
     return out
 
@@ -160,14 +173,19 @@ def test_architecture_routes_hold_no_queries_or_transactions() -> None:
 
 def test_architecture_route_checker_catches_a_query(tmp_path: Path) -> None:
     bad = tmp_path / "bad_route.py"
-    bad.write_text("from sqlalchemy import select\nfrom app.models import utcnow\n"
-                   "def page(db):\n    db.commit()\n")
+    bad.write_text(
+        "from sqlalchemy import select\nfrom app.models import utcnow\n"
+        "def page(db):\n    db.commit()\n"
+    )
     assert len(_route_offences(bad, tmp_path)) == 3
 
 
 def test_architecture_cli_commands_never_commit() -> None:
     # the CLI calls units of work (see app/services/transactions.py); they commit
     tree = ast.parse((ROOT / "app" / "cli.py").read_text(encoding="utf-8"))
-    commits = [node.lineno for node in ast.walk(tree)
-               if isinstance(node, ast.Attribute) and node.attr in ("commit", "rollback")]
+    commits = [
+        node.lineno
+        for node in ast.walk(tree)
+        if isinstance(node, ast.Attribute) and node.attr in ("commit", "rollback")
+    ]
     assert commits == [], f"app/cli.py commits or rolls back at lines {commits}"

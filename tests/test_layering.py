@@ -37,6 +37,7 @@ def test_layering_importing_parser_loads_no_web_modules() -> None:
         "{'app', 'fastapi', 'sqlalchemy', 'starlette'})\n"
         "print(','.join(bad))\n"
     )
-    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,
-                         text=True, check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True
+    )
     assert out.stdout.strip() == "", f"parser pulled in web modules: {out.stdout}"

@@ -15,18 +15,27 @@ ROOT = Path(__file__).resolve().parent.parent
 def test_packaging_cli_refuses_a_parser_module_that_shadows_ours(tmp_path: Path) -> None:
     (tmp_path / "parser.py").write_text("VALUE = 1\n")  # someone else's module named parser
     env = {**os.environ, "PYTHONPATH": str(tmp_path)}
-    done = subprocess.run([sys.executable, "-c", "from app.entry import run; run()", "user",
-                           "list", "--help"], cwd=tmp_path, env=env, capture_output=True,
-                          text=True, timeout=120)
+    done = subprocess.run(
+        [sys.executable, "-c", "from app.entry import run; run()", "user", "list", "--help"],
+        cwd=tmp_path,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert done.returncode != 0
     assert "is not Treewright's parser library" in done.stderr
     assert str(tmp_path / "parser.py") in done.stderr
 
 
 def test_packaging_cli_accepts_our_parser(tmp_path: Path) -> None:
-    done = subprocess.run([sys.executable, "-c", "from app.entry import run; run()", "user",
-                           "list", "--help"], cwd=tmp_path, capture_output=True, text=True,
-                          timeout=120)
+    done = subprocess.run(
+        [sys.executable, "-c", "from app.entry import run; run()", "user", "list", "--help"],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert done.returncode == 0, done.stderr
 
 

@@ -27,8 +27,10 @@ from app.services.users import create_user
 
 DEMO_DIR = Path(__file__).resolve().parent
 CORPUS_NAME = "Saltmarrow Ferry Cooperative"
-CORPUS_DESCRIPTION = ("Engine log, committee minutes and timetable notices of an invented "
-                      "island ferry cooperative. Every name in it is made up.")
+CORPUS_DESCRIPTION = (
+    "Engine log, committee minutes and timetable notices of an invented "
+    "island ferry cooperative. Every name in it is made up."
+)
 DEMO_EVENT = "demo_loaded"
 
 
@@ -75,8 +77,7 @@ def is_demo_database(db: Session) -> bool:
     users = set(db.scalars(select(User.username)))
     if not names and not users:
         return True
-    loaded = db.scalar(select(func.count()).select_from(Event)
-                       .where(Event.kind == DEMO_EVENT)) or 0
+    loaded = db.scalar(select(func.count()).select_from(Event).where(Event.kind == DEMO_EVENT)) or 0
     return bool(loaded) and names <= {CORPUS_NAME} and users <= {u.username for u in DEMO_USERS}
 
 
@@ -90,8 +91,9 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
     people: dict[str, User] = {}
     for spec in DEMO_USERS:
         password = secrets.token_urlsafe(12)
-        people[spec.role] = create_user.step(db, spec.username, password, spec.role,
-                                             display_name=spec.display_name)
+        people[spec.role] = create_user.step(
+            db, spec.username, password, spec.role, display_name=spec.display_name
+        )
         logins.append((spec.username, spec.role, password))
     admin = people[ROLE_ADMIN]
     corpus = create_corpus.step(db, CORPUS_NAME, description=CORPUS_DESCRIPTION, user=admin)
@@ -104,18 +106,37 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
         gold_file = folder / f"gold_{stem}.ptb"
         raw_file = folder / f"raw_{stem}.txt"
         if gold_file.exists():
-            gold += import_bytes(db, gold_file.read_bytes(), source=gold_file.name,
-                                 corpus_name=CORPUS_NAME, document_name=name, kind="gold",
-                                 user=admin).imported
+            gold += import_bytes(
+                db,
+                gold_file.read_bytes(),
+                source=gold_file.name,
+                corpus_name=CORPUS_NAME,
+                document_name=name,
+                kind="gold",
+                user=admin,
+            ).imported
         if raw_file.exists():
-            queued += import_bytes(db, raw_file.read_bytes(), source=raw_file.name,
-                                   corpus_name=CORPUS_NAME, document_name=name, kind="text",
-                                   user=admin).imported
+            queued += import_bytes(
+                db,
+                raw_file.read_bytes(),
+                source=raw_file.name,
+                corpus_name=CORPUS_NAME,
+                document_name=name,
+                kind="text",
+                user=admin,
+            ).imported
     annotators = [u.username for role, u in people.items() if role != ROLE_ADMIN]
-    assigned = assign_sentences.step(db, corpus.id, per_sentence=len(annotators),
-                                     usernames=annotators, by=admin)
-    db.add(Event(user_id=admin.id, kind=DEMO_EVENT, corpus_id=corpus.id,
-                 detail={"gold": gold, "queued": queued}))
+    assigned = assign_sentences.step(
+        db, corpus.id, per_sentence=len(annotators), usernames=annotators, by=admin
+    )
+    db.add(
+        Event(
+            user_id=admin.id,
+            kind=DEMO_EVENT,
+            corpus_id=corpus.id,
+            detail={"gold": gold, "queued": queued},
+        )
+    )
     db.commit()
     grammar = None
     if train:
@@ -126,8 +147,16 @@ def load_demo(db: Session, folder: Path = DEMO_DIR, *, train: bool = True) -> De
 
         bind = db.get_bind()
         engine = bind if isinstance(bind, Engine) else bind.engine
-        version = run_training(make_sessionmaker(engine), corpus.id,
-                               reason="demo: first grammar", user_id=admin.id)
+        version = run_training(
+            make_sessionmaker(engine), corpus.id, reason="demo: first grammar", user_id=admin.id
+        )
         grammar = (version.number, version.status, version.heldout_f1)
-    return DemoSummary(corpus_id=corpus.id, documents=documents, gold=gold, queued=queued,
-                       assignments=assigned.created, logins=logins, grammar=grammar)
+    return DemoSummary(
+        corpus_id=corpus.id,
+        documents=documents,
+        gold=gold,
+        queued=queued,
+        assignments=assigned.created,
+        logins=logins,
+        grammar=grammar,
+    )

@@ -44,23 +44,35 @@ class Snapshot:
 
     def line(self) -> str:
         if self.running:
-            return (f"first grammar: {self.status} {self.progress:.0%}"
-                    + (f" ({self.message})" if self.message else ""))
+            return f"first grammar: {self.status} {self.progress:.0%}" + (
+                f" ({self.message})" if self.message else ""
+            )
         score = f", held-out F1 {self.heldout_f1:.3f}" if self.heldout_f1 is not None else ""
-        return (f"grammar version {self.number}: {self.status}{score}"
-                + ("; the Bench offers suggestions now" if self.status == "ready" else
-                   f" ({self.message})" if self.message else ""))
+        return f"grammar version {self.number}: {self.status}{score}" + (
+            "; the Bench offers suggestions now"
+            if self.status == "ready"
+            else f" ({self.message})"
+            if self.message
+            else ""
+        )
 
 
 def snapshot(factory: sessionmaker[Session], version_id: int) -> Snapshot:
     with factory() as db:
         v = get_version(db, version_id)
-        return Snapshot(v.number, str(v.status), float(v.progress or 0.0), v.message or "",
-                        v.heldout_f1)
+        return Snapshot(
+            v.number, str(v.status), float(v.progress or 0.0), v.message or "", v.heldout_f1
+        )
 
 
-def watch(factory: sessionmaker[Session], version_id: int, echo: Callable[[str], None], *,
-          interval: float = 2.0, stop: threading.Event | None = None) -> Snapshot:
+def watch(
+    factory: sessionmaker[Session],
+    version_id: int,
+    echo: Callable[[str], None],
+    *,
+    interval: float = 2.0,
+    stop: threading.Event | None = None,
+) -> Snapshot:
     """Echo the job's progress until it ends (or ``stop`` is set); return its last state."""
     stop = stop or threading.Event()
     told: tuple[str, int] | None = None
@@ -74,9 +86,11 @@ def watch(factory: sessionmaker[Session], version_id: int, echo: Callable[[str],
             return now
 
 
-def watch_in_background(settings: Settings, version_id: int,
-                        echo: Callable[[str], None]) -> threading.Thread:
+def watch_in_background(
+    settings: Settings, version_id: int, echo: Callable[[str], None]
+) -> threading.Thread:
     """Start :func:`watch` in a daemon thread with an engine of its own."""
+
     def run() -> None:
         engine = make_engine(settings)
         try:
@@ -89,14 +103,16 @@ def watch_in_background(settings: Settings, version_id: int,
     return thread
 
 
-def train_with_progress(settings: Settings, version_id: int,
-                        echo: Callable[[str], None]) -> Snapshot:
+def train_with_progress(
+    settings: Settings, version_id: int, echo: Callable[[str], None]
+) -> Snapshot:
     """Train the queued job ``version_id`` in this thread, telling its progress meanwhile."""
     engine = make_engine(settings)
     factory = make_sessionmaker(engine)
     # the watcher tells the end too: it sees the finished row on its next read
-    watcher = threading.Thread(target=watch, args=(factory, version_id, echo),
-                               kwargs={"interval": 1.0}, daemon=True)
+    watcher = threading.Thread(
+        target=watch, args=(factory, version_id, echo), kwargs={"interval": 1.0}, daemon=True
+    )
     try:
         watcher.start()
         if claim(factory, version_id) is not None:

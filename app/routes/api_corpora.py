@@ -25,7 +25,8 @@ class ErrorPublic(BaseModel):
 
 
 ERRORS: dict[int | str, dict[str, Any]] = {
-    code: {"model": ErrorPublic} for code in (401, 403, 404, 409, 413, 422)}
+    code: {"model": ErrorPublic} for code in (401, 403, 404, 409, 413, 422)
+}
 
 
 class CorpusSummaryPublic(BaseModel):
@@ -95,7 +96,8 @@ class SentencePagePublic(BaseModel):
     total: int
     pages: int
     next_cursor: str | None = Field(
-        None, description="pass as ``after`` for the next page; null on the last page")
+        None, description="pass as ``after`` for the next page; null on the last page"
+    )
     sentences: list[SentencePublic]
 
 
@@ -142,33 +144,58 @@ class AssignPublic(BaseModel):
 
 def _summary(row: svc.CorpusCounts) -> dict[str, Any]:
     c = row.corpus
-    return {"id": c.id, "name": c.name, "description": c.description,
-            "documents": row.documents, "sentences": row.sentences, "states": row.states,
-            "gold": row.gold, "created_at": c.created_at}
+    return {
+        "id": c.id,
+        "name": c.name,
+        "description": c.description,
+        "documents": row.documents,
+        "sentences": row.sentences,
+        "states": row.states,
+        "gold": row.gold,
+        "created_at": c.created_at,
+    }
 
 
 def _detail(db: SessionDep, corpus: Corpus) -> CorpusPublic:
-    docs = [DocumentPublic(id=d.document.id, name=d.document.name,
-                           position=d.document.position, sentences=d.sentences, states=d.states)
-            for d in svc.document_rows(db, corpus)]
-    return CorpusPublic(**_summary(svc.corpus_counts(db, corpus)),
-                        label_set=list(corpus.label_set or []),
-                        tag_set=list(corpus.tag_set or []),
-                        settings=svc.effective_settings(corpus),
-                        active_grammar_id=corpus.active_grammar_id, document_list=docs)
+    docs = [
+        DocumentPublic(
+            id=d.document.id,
+            name=d.document.name,
+            position=d.document.position,
+            sentences=d.sentences,
+            states=d.states,
+        )
+        for d in svc.document_rows(db, corpus)
+    ]
+    return CorpusPublic(
+        **_summary(svc.corpus_counts(db, corpus)),
+        label_set=list(corpus.label_set or []),
+        tag_set=list(corpus.tag_set or []),
+        settings=svc.effective_settings(corpus),
+        active_grammar_id=corpus.active_grammar_id,
+        document_list=docs,
+    )
 
 
 @router.get("/api/corpora", response_model=list[CorpusSummaryPublic], responses=ERRORS)
 def list_corpora(login: ApiUser, db: SessionDep) -> list[CorpusSummaryPublic]:
-    return [CorpusSummaryPublic(**_summary(row))
-            for row in readable(db, login.user, svc.corpus_overview(db))]
+    return [
+        CorpusSummaryPublic(**_summary(row))
+        for row in readable(db, login.user, svc.corpus_overview(db))
+    ]
 
 
 @router.post("/api/corpora", response_model=CorpusPublic, status_code=201, responses=ERRORS)
 def create_corpus(body: CorpusCreate, login: ApiAdmin, db: SessionDep) -> CorpusPublic:
-    corpus = svc.create_corpus(db, body.name, description=body.description,
-                               label_set=body.label_set, tag_set=body.tag_set,
-                               settings=body.settings, user=login.user)
+    corpus = svc.create_corpus(
+        db,
+        body.name,
+        description=body.description,
+        label_set=body.label_set,
+        tag_set=body.tag_set,
+        settings=body.settings,
+        user=login.user,
+    )
     return _detail(db, corpus)
 
 
@@ -178,97 +205,159 @@ def corpus_detail(corpus_id: int, login: ApiUser, db: SessionDep) -> CorpusPubli
 
 
 @router.patch("/api/corpora/{corpus_id}", response_model=CorpusPublic, responses=ERRORS)
-def update_corpus(corpus_id: int, body: CorpusUpdate, login: ApiAdmin,
-                  db: SessionDep) -> CorpusPublic:
+def update_corpus(
+    corpus_id: int, body: CorpusUpdate, login: ApiAdmin, db: SessionDep
+) -> CorpusPublic:
     corpus = svc.get_corpus(db, corpus_id)
-    svc.update_corpus(db, corpus, settings=body.settings, description=body.description,
-                      label_set=body.label_set, tag_set=body.tag_set, user=login.user)
+    svc.update_corpus(
+        db,
+        corpus,
+        settings=body.settings,
+        description=body.description,
+        label_set=body.label_set,
+        tag_set=body.tag_set,
+        user=login.user,
+    )
     return _detail(db, corpus)
 
 
-@router.post("/api/corpora/{corpus_id}/remove", response_model=RemovedPublic,
-             responses=ERRORS)
-def remove_corpus(corpus_id: int, body: CorpusRemove, login: ApiAdmin,
-                  db: SessionDep) -> RemovedPublic:
+@router.post("/api/corpora/{corpus_id}/remove", response_model=RemovedPublic, responses=ERRORS)
+def remove_corpus(
+    corpus_id: int, body: CorpusRemove, login: ApiAdmin, db: SessionDep
+) -> RemovedPublic:
     """Remove the corpus and everything in it; ``confirm_name`` must be its exact name."""
     name = svc.delete_corpus(db, corpus_id, body.confirm_name, user=login.user)
     return RemovedPublic(removed=name)
 
 
-@router.get("/api/corpora/{corpus_id}/sentences", response_model=SentencePagePublic,
-            responses=ERRORS)
-def corpus_sentences(corpus_id: int, login: ApiUser, db: SessionDep,
-                     page: int | None = Query(None, ge=1, le=1_000_000),
-                     after: str | None = Query(None, max_length=40),
-                     per_page: int = Query(50, ge=1, le=500), state: str | None = None,
-                     document_id: int | None = None) -> SentencePagePublic:
+@router.get(
+    "/api/corpora/{corpus_id}/sentences", response_model=SentencePagePublic, responses=ERRORS
+)
+def corpus_sentences(
+    corpus_id: int,
+    login: ApiUser,
+    db: SessionDep,
+    page: int | None = Query(None, ge=1, le=1_000_000),
+    after: str | None = Query(None, max_length=40),
+    per_page: int = Query(50, ge=1, le=500),
+    state: str | None = None,
+    document_id: int | None = None,
+) -> SentencePagePublic:
     """Sentences in reading order, one page at a time: follow ``next_cursor`` with ``after``
     (each page costs the same wherever it is), or ask for an offset ``page`` number (costs
     grow with the offset)."""
     corpus = readable_corpus(db, corpus_id, login.user)
-    listing = svc.sentence_page(db, corpus, page=page, after=after, per_page=per_page,
-                                state=state, document_id=document_id)
+    listing = svc.sentence_page(
+        db, corpus, page=page, after=after, per_page=per_page, state=state, document_id=document_id
+    )
     return SentencePagePublic(
-        page=listing.page, per_page=listing.per_page, total=listing.total,
-        pages=listing.pages, next_cursor=listing.next_cursor,
-        sentences=[SentencePublic(id=r.sentence.id, document_id=r.sentence.document_id,
-                                  document=r.document_name, position=r.sentence.position,
-                                  text=r.sentence.text, tokens=list(r.sentence.tokens),
-                                  state=r.sentence.state, assigned_to=r.assignees)
-                   for r in listing.rows])
+        page=listing.page,
+        per_page=listing.per_page,
+        total=listing.total,
+        pages=listing.pages,
+        next_cursor=listing.next_cursor,
+        sentences=[
+            SentencePublic(
+                id=r.sentence.id,
+                document_id=r.sentence.document_id,
+                document=r.document_name,
+                position=r.sentence.position,
+                text=r.sentence.text,
+                tokens=list(r.sentence.tokens),
+                state=r.sentence.state,
+                assigned_to=r.assignees,
+            )
+            for r in listing.rows
+        ],
+    )
 
 
-@router.post("/api/corpora/import", response_model=ImportPublic, status_code=201,
-             responses=ERRORS)
-def import_file(login: ApiAdmin, db: SessionDep, upload: UploadFile = File(...),
-                corpus_name: str = Form(..., min_length=1, max_length=128),
-                document_name: str | None = Form(None),
-                kind: str = Form("text"), tokenizer: str = Form("whitespace"),
-                annotator: str | None = Form(None),
-                skip_duplicates: bool = Form(False)) -> ImportPublic:
+@router.post("/api/corpora/import", response_model=ImportPublic, status_code=201, responses=ERRORS)
+def import_file(
+    login: ApiAdmin,
+    db: SessionDep,
+    upload: UploadFile = File(...),
+    corpus_name: str = Form(..., min_length=1, max_length=128),
+    document_name: str | None = Form(None),
+    kind: str = Form("text"),
+    tokenizer: str = Form("whitespace"),
+    annotator: str | None = Form(None),
+    skip_duplicates: bool = Form(False),
+) -> ImportPublic:
     """Import one file (all or nothing); the corpus is made when it does not exist."""
     # A plain def: FastAPI runs it in a worker thread, so reading and storing a big file
     # (seconds) never holds up the event loop.
     # Text and gold are read line by line and staged in short transactions (saves go on
     # meanwhile); the import still appears whole or not at all.
     result = import_handle(
-        db, upload.file, source=upload.filename or "upload", corpus_name=corpus_name,
-        document_name=document_name or None, kind=kind, tokenizer=tokenizer,
-        annotator=annotator or None, skip_duplicates=skip_duplicates, user=login.user)
+        db,
+        upload.file,
+        source=upload.filename or "upload",
+        corpus_name=corpus_name,
+        document_name=document_name or None,
+        kind=kind,
+        tokenizer=tokenizer,
+        annotator=annotator or None,
+        skip_duplicates=skip_duplicates,
+        user=login.user,
+    )
     return ImportPublic(
-        corpus_id=result.corpus_id, corpus_name=result.corpus_name,
-        document_id=result.document_id, document_name=result.document_name, kind=result.kind,
-        imported=result.imported, attached=result.attached,
+        corpus_id=result.corpus_id,
+        corpus_name=result.corpus_name,
+        document_id=result.document_id,
+        document_name=result.document_name,
+        kind=result.kind,
+        imported=result.imported,
+        attached=result.attached,
         skipped_duplicates=result.skipped_duplicates,
         empty_elements_dropped=result.empty_elements_dropped,
         duplicates=[DuplicatePublic(**d.__dict__) for d in result.duplicates],
-        summary=result.summary())
+        summary=result.summary(),
+    )
 
 
 @router.get("/api/corpora/{corpus_id}/export", response_model=ExportPublic, responses=ERRORS)
-def export(corpus_id: int, login: ApiAdjudicator, db: SessionDep,
-           document_id: int | None = None, function_tags: bool = True,
-           train: float | None = Query(None, ge=0, allow_inf_nan=False),
-           dev: float | None = Query(None, ge=0, allow_inf_nan=False),
-           test: float | None = Query(None, ge=0, allow_inf_nan=False), seed: int = 0,
-           by: str = Query("document", pattern="^(document|sentence)$")) -> ExportPublic:
+def export(
+    corpus_id: int,
+    login: ApiAdjudicator,
+    db: SessionDep,
+    document_id: int | None = None,
+    function_tags: bool = True,
+    train: float | None = Query(None, ge=0, allow_inf_nan=False),
+    dev: float | None = Query(None, ge=0, allow_inf_nan=False),
+    test: float | None = Query(None, ge=0, allow_inf_nan=False),
+    seed: int = 0,
+    by: str = Query("document", pattern="^(document|sentence)$"),
+) -> ExportPublic:
     """Gold as bracketed text; give train/dev/test ratios for a deterministic split."""
     split = None
     if train is not None or dev is not None or test is not None:
         split = SplitSpec((train or 0.0, dev or 0.0, test or 0.0), seed=seed, by=by)
-    result = export_gold(db, corpus_id, document_id=document_id, function_tags=function_tags,
-                         split=split)
-    record_export(db, corpus_id, result, user=login.user, document_id=document_id,
-                  split=split, function_tags=function_tags)
+    result = export_gold(
+        db, corpus_id, document_id=document_id, function_tags=function_tags, split=split
+    )
+    record_export(
+        db,
+        corpus_id,
+        result,
+        user=login.user,
+        document_id=document_id,
+        split=split,
+        function_tags=function_tags,
+    )
     return ExportPublic(files=result.files, counts=result.counts, warnings=result.warnings)
 
 
-@router.post("/api/corpora/{corpus_id}/assign", response_model=AssignPublic,
-             responses=ERRORS)
+@router.post("/api/corpora/{corpus_id}/assign", response_model=AssignPublic, responses=ERRORS)
 def assign(corpus_id: int, body: AssignCreate, login: ApiAdmin, db: SessionDep) -> AssignPublic:
     """Give every open sentence its annotators (idempotent)."""
-    result = assign_sentences(db, corpus_id, per_sentence=body.per_sentence,
-                              usernames=body.usernames, by=login.user)
-    return AssignPublic(created=result.created, sentences=result.sentences,
-                        already_complete=result.already_complete, short=result.short,
-                        per_user=result.per_user)
+    result = assign_sentences(
+        db, corpus_id, per_sentence=body.per_sentence, usernames=body.usernames, by=login.user
+    )
+    return AssignPublic(
+        created=result.created,
+        sentences=result.sentences,
+        already_complete=result.already_complete,
+        short=result.short,
+        per_user=result.per_user,
+    )

@@ -43,11 +43,12 @@ class OccurrencePublic(BaseModel):
     sentence: int
     start: int
     end: int = Field(description="span over the sentence's words, end exclusive")
-    analysis: str = Field(description="labels over the span top down joined by '+' ('' for "
-                          "none), the POS tag, or the rule")
+    analysis: str = Field(
+        description="labels over the span top down joined by '+' ('' for "
+        "none), the POS tag, or the rule"
+    )
     source: str = Field(description="gold or annotation")
-    by: str = Field(description="who settled the gold (or 'import', 'agreement'), or the "
-                    "annotator")
+    by: str = Field(description="who settled the gold (or 'import', 'agreement'), or the annotator")
 
 
 class FindingPublic(BaseModel):
@@ -73,8 +74,9 @@ class FindingPagePublic(BaseModel):
 
 
 class RunCreate(RequestModel):
-    with_annotations: bool = Field(False, description="also read submitted annotations of "
-                                   "sentences that are not gold yet")
+    with_annotations: bool = Field(
+        False, description="also read submitted annotations of sentences that are not gold yet"
+    )
 
 
 class VerdictCreate(RequestModel):
@@ -85,64 +87,117 @@ class VerdictPublic(BaseModel):
     finding_id: int
     state: str
     reopened: list[int] = Field(default_factory=list, description="sentences sent to review")
-    skipped: list[int] = Field(default_factory=list,
-                               description="named sentences that were not gold")
+    skipped: list[int] = Field(
+        default_factory=list, description="named sentences that were not gold"
+    )
 
 
 def run_public(run: FindingRun | None) -> RunPublic | None:
     if run is None:
         return None
-    return RunPublic(id=run.id, status=run.status, reason=run.reason,
-                     with_annotations=run.with_annotations, trees=run.trees,
-                     seconds=run.seconds, message=run.message, created_at=run.created_at,
-                     finished_at=run.finished_at)
+    return RunPublic(
+        id=run.id,
+        status=run.status,
+        reason=run.reason,
+        with_annotations=run.with_annotations,
+        trees=run.trees,
+        seconds=run.seconds,
+        message=run.message,
+        created_at=run.created_at,
+        finished_at=run.finished_at,
+    )
 
 
-@router.get("/api/corpora/{corpus_id}/findings", response_model=FindingPagePublic,
-            responses=ERRORS)
-def list_findings(login: ApiAdjudicator, corpus: CorpusDep, db: SessionDep,
-                  state: str = "open", kind: str | None = None, page: int = 1,
-                  per_page: int = 25) -> FindingPagePublic:
+@router.get("/api/corpora/{corpus_id}/findings", response_model=FindingPagePublic, responses=ERRORS)
+def list_findings(
+    login: ApiAdjudicator,
+    corpus: CorpusDep,
+    db: SessionDep,
+    state: str = "open",
+    kind: str | None = None,
+    page: int = 1,
+    per_page: int = 25,
+) -> FindingPagePublic:
     """The newest run's findings in one state, most suspicious first, a page at a time."""
-    found = svc.finding_page(db, corpus.id, state=state, kind=kind, page=page,
-                             per_page=per_page, viewer=login.user)
+    found = svc.finding_page(
+        db, corpus.id, state=state, kind=kind, page=page, per_page=per_page, viewer=login.user
+    )
     return FindingPagePublic(
-        run=run_public(found.run), pending=run_public(found.pending),
-        findings=[FindingPublic(id=e.row.id, kind=e.row.kind, key=e.row.key, rank=e.row.rank,
-                                score=e.row.score, summary=e.row.summary, state=e.state,
-                                occurrences=[OccurrencePublic(**{k: o[k] for k in (
-                                    "sentence", "start", "end", "analysis", "source", "by")})
-                                    for o in e.occurrences],
-                                detail=e.row.detail) for e in found.entries],
-        counts=found.counts, page=found.page, pages=found.pages, total=found.total)
+        run=run_public(found.run),
+        pending=run_public(found.pending),
+        findings=[
+            FindingPublic(
+                id=e.row.id,
+                kind=e.row.kind,
+                key=e.row.key,
+                rank=e.row.rank,
+                score=e.row.score,
+                summary=e.row.summary,
+                state=e.state,
+                occurrences=[
+                    OccurrencePublic(
+                        **{
+                            k: o[k]
+                            for k in ("sentence", "start", "end", "analysis", "source", "by")
+                        }
+                    )
+                    for o in e.occurrences
+                ],
+                detail=e.row.detail,
+            )
+            for e in found.entries
+        ],
+        counts=found.counts,
+        page=found.page,
+        pages=found.pages,
+        total=found.total,
+    )
 
 
-@router.post("/api/corpora/{corpus_id}/findings/runs", response_model=RunPublic,
-             status_code=202, responses=ERRORS)
-def start_run(login: ApiAdjudicator, corpus: CorpusDep, body: RunCreate,
-              request: Request) -> RunPublic:
+@router.post(
+    "/api/corpora/{corpus_id}/findings/runs",
+    response_model=RunPublic,
+    status_code=202,
+    responses=ERRORS,
+)
+def start_run(
+    login: ApiAdjudicator, corpus: CorpusDep, body: RunCreate, request: Request
+) -> RunPublic:
     """Queue a run of the finder; it runs in the background (poll the list's ``pending``)."""
-    run = actions.request_run(request.app.state, corpus.id, user=login.user,
-                              with_annotations=body.with_annotations)
+    run = actions.request_run(
+        request.app.state, corpus.id, user=login.user, with_annotations=body.with_annotations
+    )
     out = run_public(run)
     assert out is not None
     return out
 
 
-@router.post("/api/corpora/{corpus_id}/findings/{finding_id}/fine",
-             response_model=VerdictPublic, responses=ERRORS)
-def mark_fine(login: ApiAdjudicator, corpus: CorpusDep, finding_id: int, body: VerdictCreate,
-              db: SessionDep) -> VerdictPublic:
+@router.post(
+    "/api/corpora/{corpus_id}/findings/{finding_id}/fine",
+    response_model=VerdictPublic,
+    responses=ERRORS,
+)
+def mark_fine(
+    login: ApiAdjudicator, corpus: CorpusDep, finding_id: int, body: VerdictCreate, db: SessionDep
+) -> VerdictPublic:
     """Keep the finding as it is: no longer listed as open, in this run or later ones."""
     v = actions.mark_fine(db, corpus.id, finding_id, login.user, note=body.note)
     return VerdictPublic(finding_id=finding_id, state=v.verdict)
 
 
-@router.post("/api/corpora/{corpus_id}/findings/{finding_id}/reopen",
-             response_model=VerdictPublic, responses=ERRORS)
-def reopen(login: ApiAdjudicator, corpus: CorpusDep, finding_id: int, body: VerdictCreate,
-           db: SessionDep) -> VerdictPublic:
+@router.post(
+    "/api/corpora/{corpus_id}/findings/{finding_id}/reopen",
+    response_model=VerdictPublic,
+    responses=ERRORS,
+)
+def reopen(
+    login: ApiAdjudicator, corpus: CorpusDep, finding_id: int, body: VerdictCreate, db: SessionDep
+) -> VerdictPublic:
     """Send every gold sentence the finding names back to review (their gold is kept)."""
     done = actions.reopen_finding(db, corpus.id, finding_id, login.user, note=body.note)
-    return VerdictPublic(finding_id=finding_id, state=done.verdict.verdict,
-                         reopened=done.sentence_ids, skipped=done.skipped)
+    return VerdictPublic(
+        finding_id=finding_id,
+        state=done.verdict.verdict,
+        reopened=done.sentence_ids,
+        skipped=done.skipped,
+    )

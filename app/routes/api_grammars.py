@@ -43,12 +43,22 @@ class TrainCreate(RequestModel):
 
 def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPublic:
     return GrammarVersionPublic(
-        id=v.id, corpus_id=v.corpus_id, number=v.number, status=v.status,
-        progress=v.progress, message=v.message, active=v.id == active_id,
-        reason=(v.options or {}).get("reason"), training_size=v.training_size,
-        heldout_size=v.heldout_size, heldout_f1=v.heldout_f1, train_seconds=v.train_seconds,
-        gold_count_at_start=v.gold_count_at_start, created_at=v.created_at,
-        finished_at=v.finished_at)
+        id=v.id,
+        corpus_id=v.corpus_id,
+        number=v.number,
+        status=v.status,
+        progress=v.progress,
+        message=v.message,
+        active=v.id == active_id,
+        reason=(v.options or {}).get("reason"),
+        training_size=v.training_size,
+        heldout_size=v.heldout_size,
+        heldout_f1=v.heldout_f1,
+        train_seconds=v.train_seconds,
+        gold_count_at_start=v.gold_count_at_start,
+        created_at=v.created_at,
+        finished_at=v.finished_at,
+    )
 
 
 def _corpus(db: SessionDep, corpus_id: int, login: Login) -> Corpus:
@@ -59,13 +69,13 @@ def _corpus(db: SessionDep, corpus_id: int, login: Login) -> Corpus:
 def list_versions(corpus_id: int, login: ApiUser, db: SessionDep) -> list[GrammarVersionPublic]:
     """The corpus's grammar versions, newest first."""
     corpus = _corpus(db, corpus_id, login)
-    return [version_public(v, corpus.active_grammar_id)
-            for v in training.versions(db, corpus.id)]
+    return [version_public(v, corpus.active_grammar_id) for v in training.versions(db, corpus.id)]
 
 
 @router.get("/api/grammars/{version_id}", response_model=GrammarVersionPublic)
-def get_version(version_id: int, login: ApiUser, db: SessionDep,
-                request: Request) -> GrammarVersionPublic:
+def get_version(
+    version_id: int, login: ApiUser, db: SessionDep, request: Request
+) -> GrammarVersionPublic:
     """One version: poll this while it trains (status, progress, message)."""
     v = training.get_version(db, version_id)
     if v.status == GV_QUEUED:
@@ -75,11 +85,13 @@ def get_version(version_id: int, login: ApiUser, db: SessionDep,
 
 
 @router.post("/api/grammars", response_model=GrammarVersionPublic, status_code=202)
-def train_now(body: TrainCreate, login: ApiAdjudicator, db: SessionDep,
-              request: Request) -> GrammarVersionPublic:
+def train_now(
+    body: TrainCreate, login: ApiAdjudicator, db: SessionDep, request: Request
+) -> GrammarVersionPublic:
     """Queue the corpus's next version now (or return the job already queued or training)."""
     corpus = _corpus(db, body.corpus_id, login)
-    v = training.schedule_training(request.app.state, corpus.id,
-                                   f"on demand by {login.user.username}", login.user.id)
+    v = training.schedule_training(
+        request.app.state, corpus.id, f"on demand by {login.user.username}", login.user.id
+    )
     # the job was queued in a session of its own: read the corpus again
     return version_public(v, get_corpus(db, corpus.id, fresh=True).active_grammar_id)

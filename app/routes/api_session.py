@@ -21,5 +21,10 @@ class SessionPublic(BaseModel):
 @router.get("/api/session", response_model=SessionPublic)
 def current_session(login: ApiUser) -> SessionPublic:
     u = login.user
-    return SessionPublic(user_id=u.id, username=u.username, display_name=u.display_name,
-                         role=u.role, csrf_token=login.csrf_token)
+    return SessionPublic(
+        user_id=u.id,
+        username=u.username,
+        display_name=u.display_name,
+        role=u.role,
+        csrf_token=login.csrf_token,
+    )

@@ -41,8 +41,14 @@ class UserUpdate(RequestModel):
 
 
 def _public(user: User) -> UserPublic:
-    return UserPublic(id=user.id, username=user.username, display_name=user.display_name,
-                      role=user.role, active=user.active, created_at=user.created_at)
+    return UserPublic(
+        id=user.id,
+        username=user.username,
+        display_name=user.display_name,
+        role=user.role,
+        active=user.active,
+        created_at=user.created_at,
+    )
 
 
 @router.get("/api/users", response_model=list[UserPublic], responses=ERRORS)
@@ -52,14 +58,21 @@ def list_users(login: ApiAdmin, db: SessionDep) -> list[UserPublic]:
 
 @router.post("/api/users", response_model=UserPublic, status_code=201, responses=ERRORS)
 def create_user(body: UserCreate, login: ApiAdmin, db: SessionDep) -> UserPublic:
-    user = svc.create_user(db, body.username, body.password, body.role,
-                           display_name=body.display_name, by=login.user)
+    user = svc.create_user(
+        db, body.username, body.password, body.role, display_name=body.display_name, by=login.user
+    )
     return _public(user)
 
 
 @router.patch("/api/users/{user_id}", response_model=UserPublic, responses=ERRORS)
 def update_user(user_id: int, body: UserUpdate, login: ApiAdmin, db: SessionDep) -> UserPublic:
     """Change role, active state and/or password; disabling or a new password ends sessions."""
-    user = svc.update_user(db, svc.get_user(db, user_id), role=body.role, active=body.active,
-                           password=body.password, by=login.user)
+    user = svc.update_user(
+        db,
+        svc.get_user(db, user_id),
+        role=body.role,
+        active=body.active,
+        password=body.password,
+        by=login.user,
+    )
     return _public(user)

@@ -54,25 +54,46 @@ def _build(spec: dict[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, A
             op = item.get(method)
             if op is None:
                 continue
-            params = [{"name": p["name"], "where": p.get("in", ""),
-                       "required": p.get("required", False),
-                       "type": _schema_name(p.get("schema"))}
-                      for p in op.get("parameters", [])]
-            operations.append({
-                "method": method.upper(), "path": path, "summary": op.get("summary", ""),
-                "description": op.get("description", ""), "tag": (op.get("tags") or [""])[0],
-                "params": params, "body": _body_schema(op), "ok": _ok_schema(op),
-                "codes": sorted(str(c) for c in (op.get("responses") or {})),
-                "anchor": f"{method}-{path}".replace("/", "-").replace("{", "").replace("}", ""),
-            })
+            params = [
+                {
+                    "name": p["name"],
+                    "where": p.get("in", ""),
+                    "required": p.get("required", False),
+                    "type": _schema_name(p.get("schema")),
+                }
+                for p in op.get("parameters", [])
+            ]
+            operations.append(
+                {
+                    "method": method.upper(),
+                    "path": path,
+                    "summary": op.get("summary", ""),
+                    "description": op.get("description", ""),
+                    "tag": (op.get("tags") or [""])[0],
+                    "params": params,
+                    "body": _body_schema(op),
+                    "ok": _ok_schema(op),
+                    "codes": sorted(str(c) for c in (op.get("responses") or {})),
+                    "anchor": f"{method}-{path}".replace("/", "-")
+                    .replace("{", "")
+                    .replace("}", ""),
+                }
+            )
     schemas = []
     for name, schema in sorted(spec.get("components", {}).get("schemas", {}).items()):
         required = set(schema.get("required", []))
-        fields = [{"name": field, "type": _schema_name(sub), "required": field in required,
-                   "description": sub.get("description", "")}
-                  for field, sub in (schema.get("properties") or {}).items()]
-        schemas.append({"name": name, "description": schema.get("description", ""),
-                        "fields": fields})
+        fields = [
+            {
+                "name": field,
+                "type": _schema_name(sub),
+                "required": field in required,
+                "description": sub.get("description", ""),
+            }
+            for field, sub in (schema.get("properties") or {}).items()
+        ]
+        schemas.append(
+            {"name": name, "description": schema.get("description", ""), "fields": fields}
+        )
     return operations, schemas
 
 
@@ -83,5 +104,12 @@ def api_docs(request: Request, login: OptionalLogin) -> HTMLResponse:
         cached = _build(request.app.openapi())
         request.app.state.api_reference = cached
     operations, schemas = cached
-    return render(request, "apidocs.html", login, nav="api", operations=operations,
-                  schemas=schemas, version=request.app.version)
+    return render(
+        request,
+        "apidocs.html",
+        login,
+        nav="api",
+        operations=operations,
+        schemas=schemas,
+        version=request.app.version,
+    )

@@ -39,14 +39,25 @@ def _posted_from_elsewhere(request: Request) -> bool:
 
 
 @router.post("/login", response_class=HTMLResponse)
-async def login_submit(request: Request, settings: SettingsDep, username: str = Form(""),
-                       password: str = Form(""), next: str = Form("/")) -> Response:
+async def login_submit(
+    request: Request,
+    settings: SettingsDep,
+    username: str = Form(""),
+    password: str = Form(""),
+    next: str = Form("/"),
+) -> Response:
     # No database session lives across an await: the two database steps open and close their
     # own in a worker thread, so neither the failure delay nor the password check keeps a
     # pooled connection, and the event loop itself never waits for one.
     if _posted_from_elsewhere(request):
-        return render(request, "login.html", None, status_code=403, next="/",
-                      error="This login form was sent from another site; log in here.")
+        return render(
+            request,
+            "login.html",
+            None,
+            status_code=403,
+            next="/",
+            error="This login form was sent from another site; log in here.",
+        )
     factory = request.app.state.sessionmaker
     address = request.client.host if request.client else "unknown"
     username = username.strip()
@@ -55,15 +66,26 @@ async def login_submit(request: Request, settings: SettingsDep, username: str = 
         await asyncio.sleep(attempt.delay)
     # argon2 is slow on purpose: its own few threads, a bounded number at once
     account = await check_password_off_loop(attempt.found, password)
-    token = await run_in_threadpool(logins.finish, factory, account, username, address,
-                                    settings)
+    token = await run_in_threadpool(logins.finish, factory, account, username, address, settings)
     if token is None:
-        return render(request, "login.html", None, status_code=401, next=_safe_next(next),
-                      error="That user name and password do not match an active account.")
+        return render(
+            request,
+            "login.html",
+            None,
+            status_code=401,
+            next=_safe_next(next),
+            error="That user name and password do not match an active account.",
+        )
     response = RedirectResponse(_safe_next(next), status_code=303)
-    response.set_cookie(SESSION_COOKIE, token, httponly=True, samesite="strict",
-                        secure=settings.cookie_secure, max_age=settings.session_hours * 3600,
-                        path="/")
+    response.set_cookie(
+        SESSION_COOKIE,
+        token,
+        httponly=True,
+        samesite="strict",
+        secure=settings.cookie_secure,
+        max_age=settings.session_hours * 3600,
+        path="/",
+    )
     return response
 
 

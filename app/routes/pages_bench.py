@@ -24,5 +24,11 @@ def bench_next(login: PageUser, db: SessionDep) -> Response:
 def bench_page(sentence_id: int, request: Request, login: PageUser, db: SessionDep) -> Response:
     sentence = svc.assigned_sentence(db, login.user, sentence_id)
     data = bench_payload(db, login.user, sentence, request.app.state.settings.suggestion_k)
-    return render(request, "bench.html", login, nav="queue", data=data,
-                  bench_json=data.model_dump(mode="json"))
+    return render(
+        request,
+        "bench.html",
+        login,
+        nav="queue",
+        data=data,
+        bench_json=data.model_dump(mode="json"),
+    )

@@ -31,97 +31,184 @@ DONE_MESSAGES = {
 }
 
 
-def _corpus_page(request: Request, login: Login, db: SessionDep, corpus: Corpus, *,
-                 after: str | None = None, before: str | None = None, last: bool = False,
-                 state: str | None = None, document: int | None = None,
-                 error: str | None = None, notice: str | None = None,
-                 form: dict[str, Any] | None = None, status_code: int = 200) -> HTMLResponse:
+def _corpus_page(
+    request: Request,
+    login: Login,
+    db: SessionDep,
+    corpus: Corpus,
+    *,
+    after: str | None = None,
+    before: str | None = None,
+    last: bool = False,
+    state: str | None = None,
+    document: int | None = None,
+    error: str | None = None,
+    notice: str | None = None,
+    form: dict[str, Any] | None = None,
+    status_code: int = 200,
+) -> HTMLResponse:
     if state not in SENTENCE_STATES:
         state = None
     try:
-        listing = svc.sentence_page(db, corpus, per_page=PER_PAGE, state=state,
-                                    document_id=document, after=after, before=before,
-                                    last=last)
+        listing = svc.sentence_page(
+            db,
+            corpus,
+            per_page=PER_PAGE,
+            state=state,
+            document_id=document,
+            after=after,
+            before=before,
+            last=last,
+        )
     except BadInput as err:  # a mangled cursor: say so above the first page
         error = error or str(err.detail)
         status_code = 422
-        listing = svc.sentence_page(db, corpus, per_page=PER_PAGE, state=state,
-                                    document_id=document)
+        listing = svc.sentence_page(
+            db, corpus, per_page=PER_PAGE, state=state, document_id=document
+        )
     ids = [row.sentence.id for row in listing.rows]
     mine = assigned_to(db, login.user, ids)
-    return render(request, "corpus.html", login, status_code=status_code, nav="corpora",
-                  corpus=corpus, counts=svc.corpus_counts(db, corpus),
-                  documents=svc.document_rows(db, corpus), listing=listing, mine=mine,
-                  state=state, document=document, states=SENTENCE_STATES,
-                  settings=svc.effective_settings(corpus), specs=svc.SETTING_SPECS,
-                  policies=svc.LABEL_POLICIES,
-                  own_policies=svc.SETTLE_OWN_POLICIES, error=error, notice=notice, form=form or {},
-                  link=lambda sentence: sentence_link(sentence, mine, login))
+    return render(
+        request,
+        "corpus.html",
+        login,
+        status_code=status_code,
+        nav="corpora",
+        corpus=corpus,
+        counts=svc.corpus_counts(db, corpus),
+        documents=svc.document_rows(db, corpus),
+        listing=listing,
+        mine=mine,
+        state=state,
+        document=document,
+        states=SENTENCE_STATES,
+        settings=svc.effective_settings(corpus),
+        specs=svc.SETTING_SPECS,
+        policies=svc.LABEL_POLICIES,
+        own_policies=svc.SETTLE_OWN_POLICIES,
+        error=error,
+        notice=notice,
+        form=form or {},
+        link=lambda sentence: sentence_link(sentence, mine, login),
+    )
 
 
 @router.get("/", response_class=HTMLResponse)
 def corpora_index(request: Request, login: PageUser, db: SessionDep) -> HTMLResponse:
-    return render(request, "corpora.html", login, nav="corpora",
-                  rows=readable(db, login.user, svc.corpus_overview(db)),
-                  states=SENTENCE_STATES, error=None, form={})
+    return render(
+        request,
+        "corpora.html",
+        login,
+        nav="corpora",
+        rows=readable(db, login.user, svc.corpus_overview(db)),
+        states=SENTENCE_STATES,
+        error=None,
+        form={},
+    )
 
 
 @router.post("/corpora", response_class=HTMLResponse)
-def corpora_create(request: Request, login: PageAdmin, db: SessionDep, name: str = Form(""),
-                   description: str = Form(""), label_set: str = Form(""),
-                   tag_set: str = Form(""), ptb_sets: bool = Form(False)) -> Response:
+def corpora_create(
+    request: Request,
+    login: PageAdmin,
+    db: SessionDep,
+    name: str = Form(""),
+    description: str = Form(""),
+    label_set: str = Form(""),
+    tag_set: str = Form(""),
+    ptb_sets: bool = Form(False),
+) -> Response:
     labels = svc.parse_inventory(label_set) or (list(svc.PTB_LABELS) if ptb_sets else None)
     tags = svc.parse_inventory(tag_set) or (list(svc.PTB_TAGS) if ptb_sets else None)
     try:
-        corpus = svc.create_corpus(db, name, description=description, label_set=labels,
-                                   tag_set=tags, user=login.user)
+        corpus = svc.create_corpus(
+            db, name, description=description, label_set=labels, tag_set=tags, user=login.user
+        )
     except ServiceError as err:
-        return render(request, "corpora.html", login, status_code=err.status_code,
-                      nav="corpora", rows=readable(db, login.user, svc.corpus_overview(db)),
-                      states=SENTENCE_STATES,
-                      error=str(err.detail),
-                      form={"name": name, "description": description,
-                            "label_set": label_set, "tag_set": tag_set})
+        return render(
+            request,
+            "corpora.html",
+            login,
+            status_code=err.status_code,
+            nav="corpora",
+            rows=readable(db, login.user, svc.corpus_overview(db)),
+            states=SENTENCE_STATES,
+            error=str(err.detail),
+            form={
+                "name": name,
+                "description": description,
+                "label_set": label_set,
+                "tag_set": tag_set,
+            },
+        )
     return RedirectResponse(f"/corpora/{corpus.id}?done=created", status_code=303)
 
 
 @router.get("/corpora/{corpus_id}", response_class=HTMLResponse)
-def corpus_view(request: Request, corpus_id: int, login: PageUser, db: SessionDep,
-                after: str | None = None, before: str | None = None, last: bool = False,
-                state: str | None = None, document: int | None = None,
-                done: str | None = None, assigned: int | None = None) -> HTMLResponse:
+def corpus_view(
+    request: Request,
+    corpus_id: int,
+    login: PageUser,
+    db: SessionDep,
+    after: str | None = None,
+    before: str | None = None,
+    last: bool = False,
+    state: str | None = None,
+    document: int | None = None,
+    done: str | None = None,
+    assigned: int | None = None,
+) -> HTMLResponse:
     corpus = readable_corpus(db, corpus_id, login.user)
     notice = DONE_MESSAGES.get(done or "")
     if done == "assigned" and assigned is not None:
         notice = f"{plural(assigned, 'assignment')} made."
-    return _corpus_page(request, login, db, corpus, after=after or None,
-                        before=before or None, last=last, state=state or None,
-                        document=document, notice=notice)
+    return _corpus_page(
+        request,
+        login,
+        db,
+        corpus,
+        after=after or None,
+        before=before or None,
+        last=last,
+        state=state or None,
+        document=document,
+        notice=notice,
+    )
 
 
 @router.post("/corpora/{corpus_id}/assign", response_class=HTMLResponse)
-def corpus_assign(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
-                  per_sentence: str = Form("")) -> Response:
+def corpus_assign(
+    request: Request, corpus_id: int, login: PageAdmin, db: SessionDep, per_sentence: str = Form("")
+) -> Response:
     corpus = svc.get_corpus(db, corpus_id)
     try:
         wanted = int(per_sentence) if per_sentence.strip() else None
     except ValueError:
-        return _corpus_page(request, login, db, corpus, status_code=422,
-                            error=f"annotators per sentence: {per_sentence!r} is not a number")
+        return _corpus_page(
+            request,
+            login,
+            db,
+            corpus,
+            status_code=422,
+            error=f"annotators per sentence: {per_sentence!r} is not a number",
+        )
     try:
         result = assign_sentences(db, corpus.id, per_sentence=wanted, by=login.user)
     except ServiceError as err:
-        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
-                            error=str(err.detail))
+        return _corpus_page(
+            request, login, db, corpus, status_code=err.status_code, error=str(err.detail)
+        )
     if result.short:
         return _corpus_page(request, login, db, corpus, notice=result.summary())
-    return RedirectResponse(f"/corpora/{corpus.id}?done=assigned&assigned={result.created}",
-                            status_code=303)
+    return RedirectResponse(
+        f"/corpora/{corpus.id}?done=assigned&assigned={result.created}", status_code=303
+    )
 
 
 @router.post("/corpora/{corpus_id}/settings", response_class=HTMLResponse)
-def corpus_settings(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
-                    form: PostedForm) -> Response:
+def corpus_settings(
+    request: Request, corpus_id: int, login: PageAdmin, db: SessionDep, form: PostedForm
+) -> Response:
     corpus = svc.get_corpus(db, corpus_id)
     values: dict[str, Any] = {}
     for key, spec in svc.SETTING_SPECS.items():
@@ -132,25 +219,39 @@ def corpus_settings(request: Request, corpus_id: int, login: PageAdmin, db: Sess
     label_text = str(form.get("label_set", ""))
     tag_text = str(form.get("tag_set", ""))
     try:
-        svc.update_corpus(db, corpus, settings=values,
-                          description=str(form.get("description", "")),
-                          label_set=_changed(label_text, corpus.label_set),
-                          tag_set=_changed(tag_text, corpus.tag_set), user=login.user)
+        svc.update_corpus(
+            db,
+            corpus,
+            settings=values,
+            description=str(form.get("description", "")),
+            label_set=_changed(label_text, corpus.label_set),
+            tag_set=_changed(tag_text, corpus.tag_set),
+            user=login.user,
+        )
     except ServiceError as err:
-        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
-                            error=str(err.detail))
+        return _corpus_page(
+            request, login, db, corpus, status_code=err.status_code, error=str(err.detail)
+        )
     return RedirectResponse(f"/corpora/{corpus.id}?done=settings", status_code=303)
 
 
 @router.post("/corpora/{corpus_id}/remove", response_class=HTMLResponse)
-def corpus_remove(request: Request, corpus_id: int, login: PageAdmin, db: SessionDep,
-                  confirm_name: str = Form("")) -> Response:
+def corpus_remove(
+    request: Request, corpus_id: int, login: PageAdmin, db: SessionDep, confirm_name: str = Form("")
+) -> Response:
     corpus = svc.get_corpus(db, corpus_id)
     try:
         svc.delete_corpus(db, corpus.id, confirm_name, user=login.user)
     except ServiceError as err:
-        return _corpus_page(request, login, db, corpus, status_code=err.status_code,
-                            error=str(err.detail), form={"confirm_name": confirm_name})
+        return _corpus_page(
+            request,
+            login,
+            db,
+            corpus,
+            status_code=err.status_code,
+            error=str(err.detail),
+            form={"confirm_name": confirm_name},
+        )
     return RedirectResponse("/", status_code=303)
 
 

@@ -30,37 +30,73 @@ def _back(corpus_id: int, state: str, kind: str, page: int, done: str = "") -> s
 
 
 @router.get("/findings", response_class=HTMLResponse)
-def findings_page(request: Request, login: PageAdjudicator, db: SessionDep,
-                  corpus: int | None = None, state: str = "open", kind: str = "",
-                  page: int = 1, done: str = "") -> Response:
+def findings_page(
+    request: Request,
+    login: PageAdjudicator,
+    db: SessionDep,
+    corpus: int | None = None,
+    state: str = "open",
+    kind: str = "",
+    page: int = 1,
+    done: str = "",
+) -> Response:
     corpora = corpus_list(db, login)
     if corpus is None:
         if corpora:
             return RedirectResponse(f"/findings?corpus={corpora[0][0]}", status_code=303)
-        return render(request, "findings.html", login, nav="findings", corpora=corpora,
-                      corpus_id=None, c=None)
+        return render(
+            request, "findings.html", login, nav="findings", corpora=corpora, corpus_id=None, c=None
+        )
     c = corpus_or_404(db, corpus)
-    listing = svc.finding_page(db, c.id, state=state, kind=kind or None, page=page,
-                               viewer=login.user)
+    listing = svc.finding_page(
+        db, c.id, state=state, kind=kind or None, page=page, viewer=login.user
+    )
     sentence_ids = [o["sentence"] for e in listing.entries for o in e.occurrences]
-    return render(request, "findings.html", login, nav="findings", corpora=corpora,
-                  corpus_id=c.id, c=c, listing=listing, state=state, kind=kind,
-                  kinds=KINDS, kind_names=KIND_NAMES, state_names=STATE_NAMES,
-                  words=svc.sentence_words(db, sentence_ids), done=done)
+    return render(
+        request,
+        "findings.html",
+        login,
+        nav="findings",
+        corpora=corpora,
+        corpus_id=c.id,
+        c=c,
+        listing=listing,
+        state=state,
+        kind=kind,
+        kinds=KINDS,
+        kind_names=KIND_NAMES,
+        state_names=STATE_NAMES,
+        words=svc.sentence_words(db, sentence_ids),
+        done=done,
+    )
 
 
 @router.post("/findings/run")
-def run_now(request: Request, login: PageAdjudicator, corpus_id: int = Form(...),
-            with_annotations: str = Form("")) -> Response:
-    actions.request_run(request.app.state, corpus_id, user=login.user,
-                        with_annotations=with_annotations == "on")
+def run_now(
+    request: Request,
+    login: PageAdjudicator,
+    corpus_id: int = Form(...),
+    with_annotations: str = Form(""),
+) -> Response:
+    actions.request_run(
+        request.app.state, corpus_id, user=login.user, with_annotations=with_annotations == "on"
+    )
     return RedirectResponse(f"/findings?corpus={corpus_id}&done=queued", status_code=303)
 
 
 @router.post("/findings/{finding_id}/verdict")
-def verdict(request: Request, finding_id: int, login: PageAdjudicator, db: SessionDep,
-            corpus_id: int = Form(...), action: str = Form(...), note: str = Form(""),
-            state: str = Form("open"), kind: str = Form(""), page: int = Form(1)) -> Response:
+def verdict(
+    request: Request,
+    finding_id: int,
+    login: PageAdjudicator,
+    db: SessionDep,
+    corpus_id: int = Form(...),
+    action: str = Form(...),
+    note: str = Form(""),
+    state: str = Form("open"),
+    kind: str = Form(""),
+    page: int = Form(1),
+) -> Response:
     c = corpus_or_404(db, corpus_id)
     if action == "fine":
         actions.mark_fine(db, c.id, finding_id, login.user, note=note)

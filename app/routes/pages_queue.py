@@ -17,17 +17,33 @@ PER_PAGE = 100
 
 
 @router.get("/queue", response_class=HTMLResponse)
-def queue_page(request: Request, login: PageUser, db: SessionDep, corpus: int | None = None,
-               after: str | None = None, before: str | None = None) -> Response:
+def queue_page(
+    request: Request,
+    login: PageUser,
+    db: SessionDep,
+    corpus: int | None = None,
+    after: str | None = None,
+    before: str | None = None,
+) -> Response:
     """One page of the queue (``after`` / ``before`` a cursor), in the queue's order."""
     try:
-        queue = svc.queue_page(db, login.user, corpus, after=after or None,
-                               before=before or None, limit=PER_PAGE)
+        queue = svc.queue_page(
+            db, login.user, corpus, after=after or None, before=before or None, limit=PER_PAGE
+        )
     except BadInput:  # a mangled cursor: the first page
         queue = svc.queue_page(db, login.user, corpus, limit=PER_PAGE)
     corpora = svc.queue_corpora(db, login.user)
     chosen = find_corpus(db, corpus) if corpus is not None else None
-    return render(request, "queue.html", login, nav="queue", queue=queue, items=queue.items,
-                  first_index=queue.first_index - 1, corpora=corpora,
-                  corpus_id=corpus, corpus_name=chosen.name if chosen else None,
-                  next_open=svc.next_open(db, login.user, corpus))
+    return render(
+        request,
+        "queue.html",
+        login,
+        nav="queue",
+        queue=queue,
+        items=queue.items,
+        first_index=queue.first_index - 1,
+        corpora=corpora,
+        corpus_id=corpus,
+        corpus_name=chosen.name if chosen else None,
+        next_open=svc.next_open(db, login.user, corpus),
+    )

@@ -79,8 +79,14 @@ def _set_numba_threads(threads: int) -> None:
 class ParseAdmission:
     """The pool; see the module docstring. Thread-safe."""
 
-    def __init__(self, slots: int = 0, threads: int = 1, wait: float = 20.0,
-                 cache_size: int = 256, max_words: int = DEFAULT_MAX_WORDS) -> None:
+    def __init__(
+        self,
+        slots: int = 0,
+        threads: int = 1,
+        wait: float = 20.0,
+        cache_size: int = 256,
+        max_words: int = DEFAULT_MAX_WORDS,
+    ) -> None:
         self.max_words = max_words
         self.threads = max(1, threads)
         self.slots = slots if slots > 0 else max(1, cores() // self.threads)
@@ -93,13 +99,15 @@ class ParseAdmission:
         self.running = 0
         self.peak_running = 0
         self.parses = 0
-        self._pool = ThreadPoolExecutor(max_workers=self.slots, thread_name_prefix="tw-parse",
-                                        initializer=_set_numba_threads,
-                                        initargs=(self.threads,))
+        self._pool = ThreadPoolExecutor(
+            max_workers=self.slots,
+            thread_name_prefix="tw-parse",
+            initializer=_set_numba_threads,
+            initargs=(self.threads,),
+        )
 
     # ------------------------------------------------------------------ asking
-    def run(self, key: Hashable, parse: Callable[[], Any], *,
-            wait: float | None = None) -> Any:
+    def run(self, key: Hashable, parse: Callable[[], Any], *, wait: float | None = None) -> Any:
         """The answer of ``parse`` for ``key``: from the LRU, from the parse already asked
         for, or from a new one in line. Raises ParserBusy after ``wait`` seconds (default
         the pool's) and whatever ``parse`` raises."""
@@ -120,7 +128,9 @@ class ParseAdmission:
             raise ParserBusy(
                 f"the parser is busy: {ahead} parse(s) ahead of this one, {self.running} "
                 f"running; it goes on, and asking again in a few seconds gets its answer",
-                ahead=ahead, retry_after=max(1, round(limit))) from None
+                ahead=ahead,
+                retry_after=max(1, round(limit)),
+            ) from None
 
     def cached(self, key: Hashable) -> Any | None:
         with self._lock:
@@ -179,13 +189,16 @@ _current: ParseAdmission | None = None
 _current_lock = threading.Lock()
 
 
-def configure(slots: int = 0, threads: int = 1, wait: float = 20.0,
-              max_words: int = DEFAULT_MAX_WORDS) -> ParseAdmission:
+def configure(
+    slots: int = 0, threads: int = 1, wait: float = 20.0, max_words: int = DEFAULT_MAX_WORDS
+) -> ParseAdmission:
     """Replace this process's pool (the app does it once at start, from its settings)."""
     global _current
     with _current_lock:
-        old, _current = _current, ParseAdmission(slots=slots, threads=threads, wait=wait,
-                                                 max_words=max_words)
+        old, _current = (
+            _current,
+            ParseAdmission(slots=slots, threads=threads, wait=wait, max_words=max_words),
+        )
     if old is not None:
         old.close()
     return _current

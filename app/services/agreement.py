@@ -79,9 +79,11 @@ class SubmittedTree:
 def submitted_trees(db: Session, sentence: Sentence) -> list[SubmittedTree]:
     """Every submitted annotation of the sentence with its current tree, oldest first; only
     trees on the sentence's current tokens (a tree on earlier tokens is not compared)."""
-    anns = db.scalars(select(Annotation).where(Annotation.sentence_id == sentence.id,
-                                               Annotation.state == ANN_SUBMITTED)
-                      .order_by(Annotation.id)).all()
+    anns = db.scalars(
+        select(Annotation)
+        .where(Annotation.sentence_id == sentence.id, Annotation.state == ANN_SUBMITTED)
+        .order_by(Annotation.id)
+    ).all()
     out: list[SubmittedTree] = []
     for ann in anns:
         rev = current_revision(db, ann)
@@ -91,11 +93,13 @@ def submitted_trees(db: Session, sentence: Sentence) -> list[SubmittedTree]:
     return out
 
 
-def is_complete(db: Session, sentence: Sentence, corpus: Corpus,
-                submitted: Sequence[SubmittedTree]) -> bool:
+def is_complete(
+    db: Session, sentence: Sentence, corpus: Corpus, submitted: Sequence[SubmittedTree]
+) -> bool:
     """Whether every annotation the sentence waits for is submitted (see the module doc)."""
-    assigned = set(db.scalars(select(Assignment.user_id)
-                              .where(Assignment.sentence_id == sentence.id)).all())
+    assigned = set(
+        db.scalars(select(Assignment.user_id).where(Assignment.sentence_id == sentence.id)).all()
+    )
     done = {s.annotation.user_id for s in submitted}
     if assigned:
         return assigned <= done
@@ -103,37 +107,55 @@ def is_complete(db: Session, sentence: Sentence, corpus: Corpus,
 
 
 def _record_exists(db: Session, a: SubmittedTree, b: SubmittedTree) -> bool:
-    rows = db.scalars(select(AgreementRecord).where(
-        AgreementRecord.annotation_a_id == a.annotation.id,
-        AgreementRecord.annotation_b_id == b.annotation.id)).all()
-    return any(r.detail.get("revision_a") == a.revision.id
-               and r.detail.get("revision_b") == b.revision.id for r in rows)
+    rows = db.scalars(
+        select(AgreementRecord).where(
+            AgreementRecord.annotation_a_id == a.annotation.id,
+            AgreementRecord.annotation_b_id == b.annotation.id,
+        )
+    ).all()
+    return any(
+        r.detail.get("revision_a") == a.revision.id and r.detail.get("revision_b") == b.revision.id
+        for r in rows
+    )
 
 
-def score_record(corpus_id: int, sentence_id: int, a: SubmittedTree,
-                 b: SubmittedTree) -> AgreementRecord:
+def score_record(
+    corpus_id: int, sentence_id: int, a: SubmittedTree, b: SubmittedTree
+) -> AgreementRecord:
     """An (unsaved) agreement record of tree ``b`` scored against tree ``a``."""
     tree_a = read_tree(a.text)
     tree_b = read_tree(b.text)
     s = score_pair(tree_a, tree_b)
     confusions = label_confusions(tree_a, tree_b)
     return AgreementRecord(
-        corpus_id=corpus_id, sentence_id=sentence_id,
-        annotation_a_id=a.annotation.id, annotation_b_id=b.annotation.id,
-        user_a_id=a.annotation.user_id, user_b_id=b.annotation.user_id,
-        matched=s.labelled.matched, count_a=s.labelled.gold, count_b=s.labelled.test,
-        labelled_precision=s.labelled.precision, labelled_recall=s.labelled.recall,
-        labelled_f1=s.labelled.f1, unlabelled_f1=s.unlabelled.f1,
-        pos_agreement=s.pos_accuracy, identical=a.text == b.text,
+        corpus_id=corpus_id,
+        sentence_id=sentence_id,
+        annotation_a_id=a.annotation.id,
+        annotation_b_id=b.annotation.id,
+        user_a_id=a.annotation.user_id,
+        user_b_id=b.annotation.user_id,
+        matched=s.labelled.matched,
+        count_a=s.labelled.gold,
+        count_b=s.labelled.test,
+        labelled_precision=s.labelled.precision,
+        labelled_recall=s.labelled.recall,
+        labelled_f1=s.labelled.f1,
+        unlabelled_f1=s.unlabelled.f1,
+        pos_agreement=s.pos_accuracy,
+        identical=a.text == b.text,
         detail={
-            "revision_a": a.revision.id, "revision_b": b.revision.id,
+            "revision_a": a.revision.id,
+            "revision_b": b.revision.id,
             "unlabelled": [s.unlabelled.matched, s.unlabelled.gold, s.unlabelled.test],
             "pos": [s.pos_correct, s.pos_total],
-            "crossing": s.crossing, "words": s.length,
-            "per_label": {label: [c.matched, c.gold, c.test]
-                          for label, c in sorted(s.per_label.items())},
+            "crossing": s.crossing,
+            "words": s.length,
+            "per_label": {
+                label: [c.matched, c.gold, c.test] for label, c in sorted(s.per_label.items())
+            },
             "confusions": [[ga, tb, n] for (ga, tb), n in sorted(confusions.items())],
-        })
+        },
+    )
 
 
 def on_submitted(db: Session, sentence: Sentence) -> None:
@@ -159,15 +181,29 @@ def on_submitted(db: Session, sentence: Sentence) -> None:
     if sentence.state == SENT_GOLD:
         outcome = "already gold"
     elif identical and corpus.options.auto_gold_when_identical:
-        make_gold(db, sentence, submitted[0].text, provenance="agreement",
-                  source_annotation_id=submitted[0].annotation.id)
+        make_gold(
+            db,
+            sentence,
+            submitted[0].text,
+            provenance="agreement",
+            source_annotation_id=submitted[0].annotation.id,
+        )
         outcome = "gold"
     else:
         sentence.state = SENT_IN_REVIEW
         outcome = "in_review"
-    db.add(Event(kind="agreement.logged", corpus_id=corpus.id, sentence_id=sentence.id,
-                 detail={"pairs": logged, "annotations": [s.annotation.id for s in submitted],
-                         "outcome": outcome}))
+    db.add(
+        Event(
+            kind="agreement.logged",
+            corpus_id=corpus.id,
+            sentence_id=sentence.id,
+            detail={
+                "pairs": logged,
+                "annotations": [s.annotation.id for s in submitted],
+                "outcome": outcome,
+            },
+        )
+    )
     db.flush()
     if outcome == "gold":
         gold_added(db, corpus)
@@ -250,8 +286,7 @@ def timeline(days: dict[datetime, list[Counts]]) -> tuple[str, list[PeriodFigure
     return timeline_of_sums({day: (len(cs), sum(cs, Counts())) for day, cs in days.items()})
 
 
-def timeline_of_sums(days: dict[datetime, tuple[int, Counts]]
-                     ) -> tuple[str, list[PeriodFigures]]:
+def timeline_of_sums(days: dict[datetime, tuple[int, Counts]]) -> tuple[str, list[PeriodFigures]]:
     """:func:`timeline` from each day's (records, summed counts)."""
     if len(days) <= MAX_DAYS_SHOWN:
         return "day", [PeriodFigures(at, n, c) for at, (n, c) in sorted(days.items())]
@@ -277,7 +312,8 @@ class _Tally:
     sentences: set[int] = field(default_factory=set)
     pairs: dict[tuple[int, int], PairFigures] = field(default_factory=dict)
     pair_sentences: dict[tuple[int, int], set[int]] = field(
-        default_factory=lambda: defaultdict(set))
+        default_factory=lambda: defaultdict(set)
+    )
     labels: dict[str, Counts] = field(default_factory=dict)
     confusions: Counter[tuple[str, str]] = field(default_factory=Counter)
     days: dict[datetime, tuple[int, Counts]] = field(default_factory=dict)
@@ -315,22 +351,37 @@ class _Tally:
     def figures(self, names: dict[int, str], top_confusions: int) -> CorpusAgreement:
         pairs = []
         for key, pf in self.pairs.items():
-            pairs.append(PairFigures(
-                names.get(key[0], "?"), names.get(key[1], "?"),
-                sentences=len(self.pair_sentences[key]), counts=pf.counts,
-                unlabelled=pf.unlabelled, pos_correct=pf.pos_correct, pos_total=pf.pos_total,
-                identical=pf.identical))
-        label_rows = sorted((LabelFigures(k, v) for k, v in self.labels.items()),
-                            key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test),
-                                            lf.label))
+            pairs.append(
+                PairFigures(
+                    names.get(key[0], "?"),
+                    names.get(key[1], "?"),
+                    sentences=len(self.pair_sentences[key]),
+                    counts=pf.counts,
+                    unlabelled=pf.unlabelled,
+                    pos_correct=pf.pos_correct,
+                    pos_total=pf.pos_total,
+                    identical=pf.identical,
+                )
+            )
+        label_rows = sorted(
+            (LabelFigures(k, v) for k, v in self.labels.items()),
+            key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test), lf.label),
+        )
         period, period_rows = timeline_of_sums(self.days)
         return CorpusAgreement(
-            records=self.records, sentences=len(self.sentences), counts=self.total,
-            unlabelled=self.unlabelled, pos_correct=self.pos_correct,
-            pos_total=self.pos_total, identical=self.identical,
-            pairs=sorted(pairs, key=lambda p: (p.user_a, p.user_b)), labels=label_rows,
+            records=self.records,
+            sentences=len(self.sentences),
+            counts=self.total,
+            unlabelled=self.unlabelled,
+            pos_correct=self.pos_correct,
+            pos_total=self.pos_total,
+            identical=self.identical,
+            pairs=sorted(pairs, key=lambda p: (p.user_a, p.user_b)),
+            labels=label_rows,
             confusions=[(a, b, n) for (a, b), n in self.confusions.most_common(top_confusions)],
-            periods=period_rows, period=period)
+            periods=period_rows,
+            period=period,
+        )
 
 
 # Per process, per (database, corpus): the sums so far. Records are only ever added (never
@@ -346,25 +397,33 @@ def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> 
     between views so that a view reads only the records logged since the last one."""
     # the corpus's creation time is in the key: ids can come back (a corpus removed and
     # another made in its place, a database emptied), and old sums must never be reused
-    key = (str(db.get_bind().engine.url), corpus_id,
-           db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)))
+    key = (
+        str(db.get_bind().engine.url),
+        corpus_id,
+        db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
+    )
     # a dropped sentence is out of the figures (its records stay in the log)
-    counted = select(AgreementRecord).join(Sentence, Sentence.id == AgreementRecord.sentence_id) \
+    counted = (
+        select(AgreementRecord)
+        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
         .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
-    count, last = db.execute(select(func.count(), func.coalesce(func.max(AgreementRecord.id), 0))
-                             .select_from(AgreementRecord)
-                             .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-                             .where(AgreementRecord.corpus_id == corpus_id,
-                                    Sentence.state != SENT_DROPPED)).one()
+    )
+    count, last = db.execute(
+        select(func.count(), func.coalesce(func.max(AgreementRecord.id), 0))
+        .select_from(AgreementRecord)
+        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
+    ).one()
     with _tally_lock:  # held while adding: the sums are shared by every request
         tally = _tallies.get(key)
         if tally is None or tally.last_id > last or tally.records > count:
             tally = _Tally()
         if (tally.records, tally.last_id) != (count, last):
-            new = db.scalars(counted.where(AgreementRecord.id > tally.last_id)
-                             .order_by(AgreementRecord.id)).all()
+            new = db.scalars(
+                counted.where(AgreementRecord.id > tally.last_id).order_by(AgreementRecord.id)
+            ).all()
             if tally.records + len(new) != count:  # a record came in late, or a sentence
-                tally = _Tally()                   # came back: sum them all again
+                tally = _Tally()  # came back: sum them all again
                 new = db.scalars(counted.order_by(AgreementRecord.id)).all()
             for r in new:
                 tally.add(r)
@@ -378,14 +437,33 @@ def _user_names(db: Session, ids: Iterable[int]) -> dict[int, str]:
     wanted = list(ids)
     if not wanted:
         return {}
-    return {u.id: u.display_name or u.username
-            for u in db.scalars(select(User).where(User.id.in_(wanted))).all()}
+    return {
+        u.id: u.display_name or u.username
+        for u in db.scalars(select(User).where(User.id.in_(wanted))).all()
+    }
 
 
-CSV_COLUMNS = ("record_id", "logged_at", "sentence_id", "document", "position",
-               "annotator_a", "annotator_b", "annotation_a_id", "annotation_b_id",
-               "matched", "count_a", "count_b", "labelled_precision", "labelled_recall",
-               "labelled_f1", "unlabelled_f1", "pos_agreement", "crossing", "identical")
+CSV_COLUMNS = (
+    "record_id",
+    "logged_at",
+    "sentence_id",
+    "document",
+    "position",
+    "annotator_a",
+    "annotator_b",
+    "annotation_a_id",
+    "annotation_b_id",
+    "matched",
+    "count_a",
+    "count_b",
+    "labelled_precision",
+    "labelled_recall",
+    "labelled_f1",
+    "unlabelled_f1",
+    "pos_agreement",
+    "crossing",
+    "identical",
+)
 
 
 def agreement_csv(db: Session, corpus_id: int) -> str:
@@ -395,19 +473,36 @@ def agreement_csv(db: Session, corpus_id: int) -> str:
         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
         .join(Document, Document.id == Sentence.document_id)
         .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
-        .order_by(AgreementRecord.created_at, AgreementRecord.id)).all()
+        .order_by(AgreementRecord.created_at, AgreementRecord.id)
+    ).all()
     names = _user_names(db, {r.user_a_id for r, _, _ in rows} | {r.user_b_id for r, _, _ in rows})
     out = io.StringIO()
     w = csv.writer(out, lineterminator="\n")
     w.writerow(CSV_COLUMNS)
     for r, position, doc in rows:
-        w.writerow([r.id, r.created_at.isoformat(timespec="seconds"), r.sentence_id,
-                    _csv_safe(doc), position, _csv_safe(names.get(r.user_a_id, "")),
-                    _csv_safe(names.get(r.user_b_id, "")), r.annotation_a_id, r.annotation_b_id,
-                    r.matched, r.count_a, r.count_b, f"{r.labelled_precision:.4f}",
-                    f"{r.labelled_recall:.4f}", f"{r.labelled_f1:.4f}",
-                    f"{r.unlabelled_f1:.4f}", f"{r.pos_agreement:.4f}",
-                    r.detail.get("crossing", ""), int(r.identical)])
+        w.writerow(
+            [
+                r.id,
+                r.created_at.isoformat(timespec="seconds"),
+                r.sentence_id,
+                _csv_safe(doc),
+                position,
+                _csv_safe(names.get(r.user_a_id, "")),
+                _csv_safe(names.get(r.user_b_id, "")),
+                r.annotation_a_id,
+                r.annotation_b_id,
+                r.matched,
+                r.count_a,
+                r.count_b,
+                f"{r.labelled_precision:.4f}",
+                f"{r.labelled_recall:.4f}",
+                f"{r.labelled_f1:.4f}",
+                f"{r.unlabelled_f1:.4f}",
+                f"{r.pos_agreement:.4f}",
+                r.detail.get("crossing", ""),
+                int(r.identical),
+            ]
+        )
     return out.getvalue()
 
 

@@ -78,16 +78,21 @@ def assigned_sentence(db: Session, user: User, sentence_id: int) -> Sentence:
     """The sentence if it is assigned to ``user``; NotFound otherwise (same message whether the
     sentence is absent or someone else's, so nothing leaks)."""
     sentence = db.scalar(
-        select(Sentence).join(Assignment, Assignment.sentence_id == Sentence.id)
-        .where(Sentence.id == sentence_id, Assignment.user_id == user.id))
+        select(Sentence)
+        .join(Assignment, Assignment.sentence_id == Sentence.id)
+        .where(Sentence.id == sentence_id, Assignment.user_id == user.id)
+    )
     if sentence is None:
         raise NotFound(f"sentence {sentence_id} is not in your queue")
     return sentence
 
 
 def own_annotation(db: Session, user: User, sentence: Sentence) -> Annotation | None:
-    return db.scalar(select(Annotation).where(Annotation.sentence_id == sentence.id,
-                                              Annotation.user_id == user.id))
+    return db.scalar(
+        select(Annotation).where(
+            Annotation.sentence_id == sentence.id, Annotation.user_id == user.id
+        )
+    )
 
 
 def own_revisions(db: Session, user: User, sentence: Sentence) -> list[Revision]:
@@ -95,10 +100,13 @@ def own_revisions(db: Session, user: User, sentence: Sentence) -> list[Revision]
     annotation = own_annotation(db, user, sentence)
     if annotation is None:
         return []
-    return list(db.scalars(select(Revision).where(Revision.annotation_id == annotation.id)
-                           .order_by(Revision.number.desc())))
-
-
+    return list(
+        db.scalars(
+            select(Revision)
+            .where(Revision.annotation_id == annotation.id)
+            .order_by(Revision.number.desc())
+        )
+    )
 
 
 # --------------------------------------------------------------------------- saving
@@ -112,26 +120,38 @@ def revision_view(revision: Revision | None) -> dict[str, Any] | None:
     """What a 409 answer carries about the current revision (JSON-ready)."""
     if revision is None:
         return None
-    return {"number": revision.number, "tree": revision.tree, "pins": revision.pins or {},
-            "source": revision.source,
-            "created_at": revision.created_at.replace(tzinfo=UTC).isoformat()}
+    return {
+        "number": revision.number,
+        "tree": revision.tree,
+        "pins": revision.pins or {},
+        "source": revision.source,
+        "created_at": revision.created_at.replace(tzinfo=UTC).isoformat(),
+    }
 
 
 def _conflict(db: Session, user: User, sentence: Sentence, why: str) -> Conflict:
     db.rollback()
     annotation = own_annotation(db, user, sentence)
     current = current_revision(db, annotation)
-    return Conflict(why, current=revision_view(current),
-                    head=annotation.head if annotation else 0,
-                    state=annotation.state if annotation else ANN_DRAFT)
+    return Conflict(
+        why,
+        current=revision_view(current),
+        head=annotation.head if annotation else 0,
+        state=annotation.state if annotation else ANN_DRAFT,
+    )
 
 
 def _check_open(db: Session, user: User, sentence: Sentence) -> None:
     """A sentence in review, gold or dropped takes no more annotation (the Bench shows it read
     only)."""
     if sentence.state in (SENT_IN_REVIEW, SENT_GOLD, SENT_DROPPED):
-        raise _conflict(db, user, sentence, f"this sentence is {sentence.state.replace('_', ' ')}"
-                        "; annotations of it take no more changes")
+        raise _conflict(
+            db,
+            user,
+            sentence,
+            f"this sentence is {sentence.state.replace('_', ' ')}"
+            "; annotations of it take no more changes",
+        )
 
 
 def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
@@ -142,24 +162,35 @@ def _new_annotation(db: Session, user: User, sentence: Sentence) -> Annotation:
     try:
         db.flush()
     except IntegrityError:
-        raise _conflict(db, user, sentence, "another request created this annotation first; "
-                        "try again") from None
+        raise _conflict(
+            db, user, sentence, "another request created this annotation first; try again"
+        ) from None
     return annotation
 
 
-def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tree_text: str,
-                  pins: dict[str, Any] | None = None, source: str = "edit",
-                  confirm_labels: bool = False, active_seconds: float = 0.0,
-                  actions: dict[str, int] | None = None,
-                  start_tree: str | None = None) -> SaveResult:
+def save_revision(
+    db: Session,
+    user: User,
+    sentence: Sentence,
+    *,
+    base: int,
+    tree_text: str,
+    pins: dict[str, Any] | None = None,
+    source: str = "edit",
+    confirm_labels: bool = False,
+    active_seconds: float = 0.0,
+    actions: dict[str, int] | None = None,
+    start_tree: str | None = None,
+) -> SaveResult:
     """Append a revision to ``user``'s annotation of ``sentence`` (created on first save).
 
     ``base`` is the head the client's change was built on; anything else is a Conflict
     carrying the current revision. Commits on success.
     """
     if source not in REV_SOURCES:
-        raise BadInput(f"unknown revision source {source!r}; one of {', '.join(REV_SOURCES)}",
-                       kind="shape")
+        raise BadInput(
+            f"unknown revision source {source!r}; one of {', '.join(REV_SOURCES)}", kind="shape"
+        )
     corpus = db.get(Corpus, sentence.corpus_id)
     if corpus is None:  # cannot happen while the foreign key holds; say so rather than crash
         raise NotFound(f"sentence {sentence.id} has no corpus")
@@ -168,27 +199,46 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
     annotation = own_annotation(db, user, sentence)
     if annotation is None:
         if base != 0:
-            raise _conflict(db, user, sentence, f"save based on revision {base}, but you have "
-                            "no saved revision of this sentence")
+            raise _conflict(
+                db,
+                user,
+                sentence,
+                f"save based on revision {base}, but you have no saved revision of this sentence",
+            )
         annotation = _new_annotation(db, user, sentence)
     if annotation.state == ANN_SUBMITTED:
-        raise _conflict(db, user, sentence, "this annotation is submitted and takes no more "
-                        "changes")
+        raise _conflict(
+            db, user, sentence, "this annotation is submitted and takes no more changes"
+        )
     _check_open(db, user, sentence)
     if base != annotation.head:
-        raise _conflict(db, user, sentence, f"save based on revision {base}, but the newest "
-                        f"is revision {annotation.head}")
+        raise _conflict(
+            db,
+            user,
+            sentence,
+            f"save based on revision {base}, but the newest is revision {annotation.head}",
+        )
     now = utcnow()
     moved = db.execute(
-        update(Annotation).where(Annotation.id == annotation.id, Annotation.head == base)
+        update(Annotation)
+        .where(Annotation.id == annotation.id, Annotation.head == base)
         .values(head=base + 1, updated_at=now)
-        .execution_options(synchronize_session=False))
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         raise _conflict(db, user, sentence, "another save of this annotation came first")
-    revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
-                        pins=clean_pins, source=source, user_id=user.id, created_at=now,
-                        token_version=sentence.token_version,
-                        active_seconds=float(active_seconds), actions=_clean_actions(actions))
+    revision = Revision(
+        annotation_id=annotation.id,
+        number=base + 1,
+        tree=write_tree(tree),
+        pins=clean_pins,
+        source=source,
+        user_id=user.id,
+        created_at=now,
+        token_version=sentence.token_version,
+        active_seconds=float(active_seconds),
+        actions=_clean_actions(actions),
+    )
     if start_tree is not None and annotation.start_tree is None:
         annotation.start_tree = _clean_start(start_tree)
     db.add(revision)
@@ -197,8 +247,7 @@ def save_revision(db: Session, user: User, sentence: Sentence, *, base: int, tre
     try:
         db.commit()
     except IntegrityError:
-        raise _conflict(db, user, sentence, "another save of this annotation came "
-                        "first") from None
+        raise _conflict(db, user, sentence, "another save of this annotation came first") from None
     db.refresh(annotation)
     return SaveResult(annotation=annotation, revision=revision)
 
@@ -207,8 +256,11 @@ def _clean_actions(actions: dict[str, int] | None) -> dict[str, int]:
     out: dict[str, int] = {}
     for kind, n in (actions or {}).items():
         if kind not in ACTION_KINDS or not isinstance(n, int) or not 0 <= n <= 100_000:
-            raise BadInput(f"action count {kind!r}: {n!r} is not a known kind with a count "
-                           f"(kinds: {', '.join(ACTION_KINDS)})", kind="shape")
+            raise BadInput(
+                f"action count {kind!r}: {n!r} is not a known kind with a count "
+                f"(kinds: {', '.join(ACTION_KINDS)})",
+                kind="shape",
+            )
         if n:
             out[kind] = n
     return out
@@ -230,19 +282,34 @@ def submit(db: Session, user: User, sentence: Sentence, *, base: int) -> Annotat
         raise _conflict(db, user, sentence, "this annotation is already submitted")
     _check_open(db, user, sentence)
     if base != annotation.head:
-        raise _conflict(db, user, sentence, f"submit based on revision {base}, but the newest "
-                        f"is revision {annotation.head}")
+        raise _conflict(
+            db,
+            user,
+            sentence,
+            f"submit based on revision {base}, but the newest is revision {annotation.head}",
+        )
     now = utcnow()
     moved = db.execute(
         update(Annotation)
-        .where(Annotation.id == annotation.id, Annotation.head == base,
-               Annotation.state != ANN_SUBMITTED)
+        .where(
+            Annotation.id == annotation.id,
+            Annotation.head == base,
+            Annotation.state != ANN_SUBMITTED,
+        )
         .values(state=ANN_SUBMITTED, submitted_at=now, updated_at=now)
-        .execution_options(synchronize_session=False))
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         raise _conflict(db, user, sentence, "the annotation changed while submitting")
-    db.add(Event(user_id=user.id, kind="annotation.submitted", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"revision": base}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind="annotation.submitted",
+            corpus_id=sentence.corpus_id,
+            sentence_id=sentence.id,
+            detail={"revision": base},
+        )
+    )
     db.flush()
     db.refresh(annotation)
     _agreement_hook(db, sentence)
@@ -256,8 +323,15 @@ def _agreement_hook(db: Session, sentence: Sentence) -> None:
     agreement.on_submitted(db, sentence)
 
 
-def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None,
-             flag: str | None, clear_flag: bool = False) -> Annotation:
+def set_note(
+    db: Session,
+    user: User,
+    sentence: Sentence,
+    *,
+    comment: str | None,
+    flag: str | None,
+    clear_flag: bool = False,
+) -> Annotation:
     """Store the annotator's comment and/or flag reason. A flag sets the state ``flagged``
     (the annotator holds the sentence back instead of submitting) and the sentence's state
     ``held_back`` (see app.services.held for the ways out); ``clear_flag`` returns the
@@ -265,17 +339,18 @@ def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None
     Works before the first save too (the annotation is created without revisions)."""
 
     if comment is not None and len(comment) > MAX_COMMENT_CHARS:
-        raise BadInput(f"comment is {len(comment)} characters; the limit is "
-                       f"{MAX_COMMENT_CHARS}", kind="shape")
+        raise BadInput(
+            f"comment is {len(comment)} characters; the limit is {MAX_COMMENT_CHARS}", kind="shape"
+        )
     if flag is not None:
         flag = flag.strip()
         if not flag or len(flag) > MAX_FLAG_CHARS:
-            raise BadInput(f"a flag reason needs 1 to {MAX_FLAG_CHARS} characters",
-                           kind="shape")
+            raise BadInput(f"a flag reason needs 1 to {MAX_FLAG_CHARS} characters", kind="shape")
     annotation = own_annotation(db, user, sentence) or _new_annotation(db, user, sentence)
     if annotation.state == ANN_SUBMITTED and (flag is not None or clear_flag):
-        raise _conflict(db, user, sentence, "this annotation is submitted; it can no longer "
-                        "be flagged")
+        raise _conflict(
+            db, user, sentence, "this annotation is submitted; it can no longer be flagged"
+        )
     if flag is not None and sentence.state == SENT_DROPPED:
         raise _conflict(db, user, sentence, "this sentence was dropped from the corpus")
     if comment is not None:
@@ -285,8 +360,15 @@ def set_note(db: Session, user: User, sentence: Sentence, *, comment: str | None
         annotation.state = ANN_FLAGGED
         if sentence.state in (SENT_QUEUED, SENT_IN_PROGRESS):
             sentence.state = SENT_HELD_BACK
-        db.add(Event(user_id=user.id, kind="annotation.flagged", corpus_id=sentence.corpus_id,
-                     sentence_id=sentence.id, detail={"flag": flag}))
+        db.add(
+            Event(
+                user_id=user.id,
+                kind="annotation.flagged",
+                corpus_id=sentence.corpus_id,
+                sentence_id=sentence.id,
+                detail={"flag": flag},
+            )
+        )
     elif clear_flag and annotation.state == ANN_FLAGGED:
         annotation.flag = None
         annotation.state = ANN_DRAFT
@@ -347,8 +429,11 @@ def parse_queue_cursor(cursor: str) -> tuple[int, int, int]:
     """The key of a queue cursor (``CORPUS-RANK-SENTENCE``), or BadInput."""
     parts = cursor.split("-")
     if len(parts) != 3 or not all(p.isdigit() and len(p) < 19 for p in parts):
-        raise BadInput(f"queue cursor {cursor[:40]!r} is not of the form CORPUS-RANK-SENTENCE "
-                       "(three whole numbers)", kind="shape")
+        raise BadInput(
+            f"queue cursor {cursor[:40]!r} is not of the form CORPUS-RANK-SENTENCE "
+            "(three whole numbers)",
+            kind="shape",
+        )
     return int(parts[0]), int(parts[1]), int(parts[2])
 
 
@@ -363,11 +448,18 @@ def _dropped(db: Session, user: User, corpus_id: int | None, *extra: Any) -> int
     """How many of the user's assignments (meeting ``extra``) are of dropped sentences:
     driven from the dropped sentences of each corpus (an index range per corpus)."""
     corpora = [corpus_id] if corpus_id is not None else select(Corpus.id)
-    return db.scalar(
-        select(func.count()).select_from(Sentence)
-        .join(Assignment, (Assignment.sentence_id == Sentence.id)
-              & (Assignment.user_id == user.id))
-        .where(Sentence.corpus_id.in_(corpora), Sentence.state == SENT_DROPPED, *extra)) or 0
+    return (
+        db.scalar(
+            select(func.count())
+            .select_from(Sentence)
+            .join(
+                Assignment,
+                (Assignment.sentence_id == Sentence.id) & (Assignment.user_id == user.id),
+            )
+            .where(Sentence.corpus_id.in_(corpora), Sentence.state == SENT_DROPPED, *extra)
+        )
+        or 0
+    )
 
 
 def queue_counts(db: Session, user: User, corpus_id: int | None = None) -> tuple[int, int]:
@@ -378,37 +470,67 @@ def queue_counts(db: Session, user: User, corpus_id: int | None = None) -> tuple
     total -= _dropped(db, user, corpus_id)
     # from the user's submitted annotations (index on user and state), each checked against
     # the queue: O(work handed in), not O(queue)
-    submitted = db.scalar(
-        select(func.count()).select_from(Annotation)
-        .join(Assignment, (Assignment.sentence_id == Annotation.sentence_id)
-              & (Assignment.user_id == Annotation.user_id))
-        .where(Annotation.user_id == user.id, Annotation.state == ANN_SUBMITTED,
-               *where)) or 0
+    submitted = (
+        db.scalar(
+            select(func.count())
+            .select_from(Annotation)
+            .join(
+                Assignment,
+                (Assignment.sentence_id == Annotation.sentence_id)
+                & (Assignment.user_id == Annotation.user_id),
+            )
+            .where(Annotation.user_id == user.id, Annotation.state == ANN_SUBMITTED, *where)
+        )
+        or 0
+    )
     return int(total), int(submitted)
 
 
-def queue_page(db: Session, user: User, corpus_id: int | None = None, *,
-               after: str | None = None, before: str | None = None,
-               limit: int = 100) -> QueuePage:
+def queue_page(
+    db: Session,
+    user: User,
+    corpus_id: int | None = None,
+    *,
+    after: str | None = None,
+    before: str | None = None,
+    limit: int = 100,
+) -> QueuePage:
     """One page of the user's queue in order: the first, or the one ``after`` / ``before`` a
     cursor."""
     limit = min(max(limit, 1), 1000)
     where = _mine(user, corpus_id)
     key = tuple_(*_QUEUE_KEY)
     stmt = (
-        select(Assignment.corpus_id, Assignment.rank, Assignment.sentence_id, Corpus.name,
-               Document.name, Sentence.position, Sentence.text, Sentence.state,
-               Annotation.state, Annotation.head, Annotation.flag)
+        select(
+            Assignment.corpus_id,
+            Assignment.rank,
+            Assignment.sentence_id,
+            Corpus.name,
+            Document.name,
+            Sentence.position,
+            Sentence.text,
+            Sentence.state,
+            Annotation.state,
+            Annotation.head,
+            Annotation.flag,
+        )
         .join(Sentence, Sentence.id == Assignment.sentence_id)
         .join(Document, Document.id == Sentence.document_id)
         .join(Corpus, Corpus.id == Assignment.corpus_id)
-        .outerjoin(Annotation, (Annotation.sentence_id == Assignment.sentence_id)
-                   & (Annotation.user_id == user.id))
-        .where(*where, Sentence.state != SENT_DROPPED))
+        .outerjoin(
+            Annotation,
+            (Annotation.sentence_id == Assignment.sentence_id) & (Annotation.user_id == user.id),
+        )
+        .where(*where, Sentence.state != SENT_DROPPED)
+    )
     if before is not None:
-        rows = list(db.execute(stmt.where(key < tuple_(*parse_queue_cursor(before)))
-                               .order_by(*(c.desc() for c in _QUEUE_KEY))
-                               .limit(limit + 1)).all())
+        rows = list(
+            db.execute(
+                stmt.where(key < tuple_(*parse_queue_cursor(before)))
+                .order_by(*(c.desc() for c in _QUEUE_KEY))
+                .limit(limit + 1)
+            ).all()
+        )
         has_prev, has_next = len(rows) > limit, True
         rows = rows[:limit][::-1]
     else:
@@ -421,29 +543,56 @@ def queue_page(db: Session, user: User, corpus_id: int | None = None, *,
     first_index = 1
     if rows and has_prev:
         earlier = key < tuple_(*_key_of(rows[0]))
-        first_index += (db.scalar(select(func.count()).select_from(Assignment)
-                                  .where(*where, earlier)) or 0) \
-            - _dropped(db, user, corpus_id, earlier)
-    items = [QueueItem(sentence_id=r[2], corpus_id=r[0], corpus_name=r[3], document_name=r[4],
-                       position=r[5], text=r[6], sentence_state=r[7], annotation_state=r[8],
-                       head=r[9] or 0, flag=r[10]) for r in rows]
-    return QueuePage(items=items, total=total, submitted=submitted, first_index=first_index,
-                     prev_cursor=queue_cursor(_key_of(rows[0])) if rows and has_prev else None,
-                     next_cursor=queue_cursor(_key_of(rows[-1])) if rows and has_next else None)
+        first_index += (
+            db.scalar(select(func.count()).select_from(Assignment).where(*where, earlier)) or 0
+        ) - _dropped(db, user, corpus_id, earlier)
+    items = [
+        QueueItem(
+            sentence_id=r[2],
+            corpus_id=r[0],
+            corpus_name=r[3],
+            document_name=r[4],
+            position=r[5],
+            text=r[6],
+            sentence_state=r[7],
+            annotation_state=r[8],
+            head=r[9] or 0,
+            flag=r[10],
+        )
+        for r in rows
+    ]
+    return QueuePage(
+        items=items,
+        total=total,
+        submitted=submitted,
+        first_index=first_index,
+        prev_cursor=queue_cursor(_key_of(rows[0])) if rows and has_prev else None,
+        next_cursor=queue_cursor(_key_of(rows[-1])) if rows and has_next else None,
+    )
 
 
-def _first_open(db: Session, user: User, corpus_id: int | None, *, after: Any = None,
-                upto: Any = None) -> int | None:
+def _first_open(
+    db: Session, user: User, corpus_id: int | None, *, after: Any = None, upto: Any = None
+) -> int | None:
     """The first sentence in queue order (after key ``after``, before key ``upto``) whose own
     annotation is neither submitted nor flagged."""
     key = tuple_(*_QUEUE_KEY)
-    stmt = (select(Assignment.sentence_id)
-            .join(Sentence, Sentence.id == Assignment.sentence_id)
-            .outerjoin(Annotation, (Annotation.sentence_id == Assignment.sentence_id)
-                       & (Annotation.user_id == Assignment.user_id))
-            .where(*_mine(user, corpus_id), Sentence.state != SENT_DROPPED,
-                   or_(Annotation.state.is_(None), Annotation.state.not_in(_DONE)))
-            .order_by(*_QUEUE_KEY).limit(1))
+    stmt = (
+        select(Assignment.sentence_id)
+        .join(Sentence, Sentence.id == Assignment.sentence_id)
+        .outerjoin(
+            Annotation,
+            (Annotation.sentence_id == Assignment.sentence_id)
+            & (Annotation.user_id == Assignment.user_id),
+        )
+        .where(
+            *_mine(user, corpus_id),
+            Sentence.state != SENT_DROPPED,
+            or_(Annotation.state.is_(None), Annotation.state.not_in(_DONE)),
+        )
+        .order_by(*_QUEUE_KEY)
+        .limit(1)
+    )
     if after is not None:
         stmt = stmt.where(key > tuple_(*after))
     if upto is not None:
@@ -473,21 +622,26 @@ class QueuePlace:
 def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
     """Where ``sentence_id`` sits in the user's queue (it must be assigned to them): a few
     index lookups, whatever the queue's length (the Bench asks on every page load)."""
-    row = db.execute(select(*_QUEUE_KEY).where(Assignment.user_id == user.id,
-                                               Assignment.sentence_id == sentence_id)).first()
+    row = db.execute(
+        select(*_QUEUE_KEY).where(
+            Assignment.user_id == user.id, Assignment.sentence_id == sentence_id
+        )
+    ).first()
     if row is None:
         raise NotFound(f"sentence {sentence_id} is not in your queue")
     here = _key_of(row)
     key = tuple_(*_QUEUE_KEY)
     earlier, later = key < tuple_(*here), key > tuple_(*here)
     mine = _mine(user, None)
-    before = (db.scalar(select(func.count()).select_from(Assignment).where(*mine, earlier))
-              or 0) - _dropped(db, user, None, earlier)
-    in_queue = (select(Assignment.sentence_id)
-                .join(Sentence, Sentence.id == Assignment.sentence_id)
-                .where(*mine, Sentence.state != SENT_DROPPED))
-    prev_id = db.scalar(in_queue.where(earlier)
-                        .order_by(*(c.desc() for c in _QUEUE_KEY)).limit(1))
+    before = (
+        db.scalar(select(func.count()).select_from(Assignment).where(*mine, earlier)) or 0
+    ) - _dropped(db, user, None, earlier)
+    in_queue = (
+        select(Assignment.sentence_id)
+        .join(Sentence, Sentence.id == Assignment.sentence_id)
+        .where(*mine, Sentence.state != SENT_DROPPED)
+    )
+    prev_id = db.scalar(in_queue.where(earlier).order_by(*(c.desc() for c in _QUEUE_KEY)).limit(1))
     next_id = db.scalar(in_queue.where(later).order_by(*_QUEUE_KEY).limit(1))
     open_id = _first_open(db, user, None, after=here)
     if open_id is None:  # wrap round to the start, stopping before this sentence
@@ -495,15 +649,27 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
     total, submitted = queue_counts(db, user)
     if db.scalar(select(Sentence.state).where(Sentence.id == sentence_id)) == SENT_DROPPED:
         total += 1  # a dropped sentence opened by its link: counted while it is shown
-    return QueuePlace(index=before + 1, total=total, submitted=submitted, prev_id=prev_id,
-                      next_id=next_id, next_open_id=open_id)
+    return QueuePlace(
+        index=before + 1,
+        total=total,
+        submitted=submitted,
+        prev_id=prev_id,
+        next_id=next_id,
+        next_open_id=open_id,
+    )
 
 
 def queue_corpora(db: Session, user: User) -> list[tuple[int, str]]:
     """(id, name) of every corpus with a sentence assigned to ``user``, by name."""
-    rows = db.execute(select(Corpus.id, Corpus.name).where(Corpus.id.in_(
-        select(Assignment.corpus_id).where(Assignment.user_id == user.id).distinct()))
-        .order_by(Corpus.name)).all()
+    rows = db.execute(
+        select(Corpus.id, Corpus.name)
+        .where(
+            Corpus.id.in_(
+                select(Assignment.corpus_id).where(Assignment.user_id == user.id).distinct()
+            )
+        )
+        .order_by(Corpus.name)
+    ).all()
     return [(int(i), str(n)) for i, n in rows]
 
 

@@ -54,21 +54,29 @@ class AssignResult:
     needed: int = 0
 
     def summary(self) -> str:
-        text = (f"{plural(self.created, 'assignment')} made over "
-                f"{plural(self.sentences, 'sentence')}; {self.already_complete} already had "
-                f"{self.needed}")
+        text = (
+            f"{plural(self.created, 'assignment')} made over "
+            f"{plural(self.sentences, 'sentence')}; {self.already_complete} already had "
+            f"{self.needed}"
+        )
         if self.short:
-            text += (f"; {plural(len(self.short), 'sentence')} could not reach {self.needed} "
-                     f"annotators (the team is too small)")
+            text += (
+                f"; {plural(len(self.short), 'sentence')} could not reach {self.needed} "
+                f"annotators (the team is too small)"
+            )
         return text
 
 
 def team(db: Session, usernames: Iterable[str] | None = None) -> list[User]:
     """The people to assign to: the named users, or every active annotator and adjudicator."""
     if usernames is None:
-        return list(db.scalars(select(User).where(
-            User.active.is_(True), User.role.in_((ROLE_ANNOTATOR, ROLE_ADJUDICATOR)))
-            .order_by(User.id)))
+        return list(
+            db.scalars(
+                select(User)
+                .where(User.active.is_(True), User.role.in_((ROLE_ANNOTATOR, ROLE_ADJUDICATOR)))
+                .order_by(User.id)
+            )
+        )
     names = list(dict.fromkeys(usernames))
     users = list(db.scalars(select(User).where(User.username.in_(names)).order_by(User.id)))
     missing = set(names) - {u.username for u in users}
@@ -81,32 +89,41 @@ def team(db: Session, usernames: Iterable[str] | None = None) -> list[User]:
 
 
 @unit_of_work
-def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = None,
-                     usernames: Iterable[str] | None = None,
-                     sentence_ids: Iterable[int] | None = None,
-                     by: User | None = None) -> AssignResult:
+def assign_sentences(
+    db: Session,
+    corpus_id: int,
+    *,
+    per_sentence: int | None = None,
+    usernames: Iterable[str] | None = None,
+    sentence_ids: Iterable[int] | None = None,
+    by: User | None = None,
+) -> AssignResult:
     """Bring every open sentence (or the given ones) of the corpus up to N assignees.
     Commits (``assign_sentences.step`` does not)."""
     corpus = get_corpus(db, corpus_id)
-    needed = int(per_sentence if per_sentence is not None
-                 else corpus.options.annotators_per_sentence)
+    needed = int(
+        per_sentence if per_sentence is not None else corpus.options.annotators_per_sentence
+    )
     if needed < 1:
         raise BadInput(f"annotators per sentence must be at least 1, not {needed}")
     people = team(db, usernames)
     result = AssignResult(needed=needed)
-    query = (select(Sentence.id, Sentence.document_id, Sentence.position)
-             .join(Document, Document.id == Sentence.document_id)
-             .where(Sentence.corpus_id == corpus.id, Sentence.state.in_(OPEN_STATES))
-             .order_by(*sentence_order(db, corpus)))
+    query = (
+        select(Sentence.id, Sentence.document_id, Sentence.position)
+        .join(Document, Document.id == Sentence.document_id)
+        .where(Sentence.corpus_id == corpus.id, Sentence.state.in_(OPEN_STATES))
+        .order_by(*sentence_order(db, corpus))
+    )
     if sentence_ids is not None:
         wanted = set(sentence_ids)
         query = query.where(Sentence.id.in_(wanted))
     assigned: dict[int, set[int]] = {}
     load: dict[int, int] = {u.id: 0 for u in people}
     for sid, uid, state in db.execute(
-            select(Assignment.sentence_id, Assignment.user_id, Sentence.state)
-            .join(Sentence, Sentence.id == Assignment.sentence_id)
-            .where(Sentence.corpus_id == corpus.id)):
+        select(Assignment.sentence_id, Assignment.user_id, Sentence.state)
+        .join(Sentence, Sentence.id == Assignment.sentence_id)
+        .where(Sentence.corpus_id == corpus.id)
+    ):
         assigned.setdefault(sid, set()).add(uid)
         if state in OPEN_STATES and uid in load:
             load[uid] += 1
@@ -129,12 +146,19 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
         if missing <= 0:
             result.already_complete += 1
             continue
-        candidates = sorted((uid for uid in load if uid not in have),
-                            key=lambda uid: (load[uid], fresh[uid], uid))
+        candidates = sorted(
+            (uid for uid in load if uid not in have), key=lambda uid: (load[uid], fresh[uid], uid)
+        )
         chosen = candidates[:missing]
         for uid in chosen:
-            pending.append({"sentence_id": sid, "user_id": uid, "corpus_id": corpus.id,
-                            "rank": reading_rank(doc, pos)})
+            pending.append(
+                {
+                    "sentence_id": sid,
+                    "user_id": uid,
+                    "corpus_id": corpus.id,
+                    "rank": reading_rank(doc, pos),
+                }
+            )
             load[uid] += 1
             fresh[uid] += 1
         if len(pending) >= ASSIGN_BATCH:
@@ -147,16 +171,23 @@ def assign_sentences(db: Session, corpus_id: int, *, per_sentence: int | None = 
     if sentence_ids is not None:
         unknown = wanted - found
         if unknown:
-            raise BadInput(f"sentence(s) {', '.join(map(str, sorted(unknown)))} are not open "
-                           f"sentences of corpus {corpus.name!r}")
+            raise BadInput(
+                f"sentence(s) {', '.join(map(str, sorted(unknown)))} are not open "
+                f"sentences of corpus {corpus.name!r}"
+            )
     write()
     if result.created and informative(corpus):
         db.flush()
         apply_order(db, corpus.id)  # new rows start in reading order
     result.per_user = {names[uid]: n for uid, n in fresh.items() if n}
-    db.add(Event(user_id=by.id if by else None, kind="assign", corpus_id=corpus.id,
-                 detail={"created": result.created, "per_sentence": needed,
-                         "per_user": result.per_user}))
+    db.add(
+        Event(
+            user_id=by.id if by else None,
+            kind="assign",
+            corpus_id=corpus.id,
+            detail={"created": result.created, "per_sentence": needed, "per_user": result.per_user},
+        )
+    )
     db.flush()
     return result
 
@@ -166,5 +197,10 @@ def assigned_to(db: Session, user: User, sentence_ids: Iterable[int]) -> set[int
     ids = list(sentence_ids)
     if not ids:
         return set()
-    return set(db.scalars(select(Assignment.sentence_id).where(
-        Assignment.user_id == user.id, Assignment.sentence_id.in_(ids))))
+    return set(
+        db.scalars(
+            select(Assignment.sentence_id).where(
+                Assignment.user_id == user.id, Assignment.sentence_id.in_(ids)
+            )
+        )
+    )

@@ -28,8 +28,10 @@ from app.db import private_file, upgrade_to_head
 from app.services.errors import BadInput, ServiceError
 from app.settings import Settings
 
-PG_HINT = ("this database is PostgreSQL: back it up with `pg_dump -Fc DBNAME > "
-           "treewright.dump` and restore with `pg_restore -d DBNAME treewright.dump`")
+PG_HINT = (
+    "this database is PostgreSQL: back it up with `pg_dump -Fc DBNAME > "
+    "treewright.dump` and restore with `pg_restore -d DBNAME treewright.dump`"
+)
 
 
 class BackupError(ServiceError):
@@ -74,8 +76,10 @@ def _check(path: Path) -> int:
     finally:
         conn.close()
     if not {"alembic_version", "users", "corpora"} <= names:
-        raise BackupError(f"{path}: not a Treewright database (tables users, corpora and "
-                          "alembic_version are missing)")
+        raise BackupError(
+            f"{path}: not a Treewright database (tables users, corpora and "
+            "alembic_version are missing)"
+        )
     return len(names)
 
 
@@ -130,8 +134,9 @@ def restore_sqlite(settings: Settings, source: Path) -> tuple[BackupInfo | None,
     safety = None
     if live.exists():
         stamp = datetime.now().strftime("%Y%m%d-%H%M%S")
-        safety = backup_sqlite(settings, settings.data_dir / "backups"
-                               / f"before-restore-{stamp}.db")
+        safety = backup_sqlite(
+            settings, settings.data_dir / "backups" / f"before-restore-{stamp}.db"
+        )
     live.parent.mkdir(parents=True, exist_ok=True)
     src = sqlite3.connect(f"file:{source}?mode=ro", uri=True)
     dst = sqlite3.connect(private_file(live), timeout=15)

@@ -26,17 +26,20 @@ from app.services.errors import Forbidden
 def _unfinished(user_id: int, sentence_ids: Iterable[int] | None) -> Select[tuple[int]]:
     started = union(
         select(Assignment.sentence_id).where(Assignment.user_id == user_id),
-        select(Annotation.sentence_id).where(Annotation.user_id == user_id)).subquery()
-    submitted = select(Annotation.sentence_id).where(Annotation.user_id == user_id,
-                                                     Annotation.state == ANN_SUBMITTED)
+        select(Annotation.sentence_id).where(Annotation.user_id == user_id),
+    ).subquery()
+    submitted = select(Annotation.sentence_id).where(
+        Annotation.user_id == user_id, Annotation.state == ANN_SUBMITTED
+    )
     query = select(started.c.sentence_id).where(started.c.sentence_id.not_in(submitted))
     if sentence_ids is not None:
         query = query.where(started.c.sentence_id.in_(list(sentence_ids)))
     return query
 
 
-def unfinished_sentences(db: Session, user: User,
-                         sentence_ids: Iterable[int] | None = None) -> set[int]:
+def unfinished_sentences(
+    db: Session, user: User, sentence_ids: Iterable[int] | None = None
+) -> set[int]:
     """The ids of the sentences (of ``sentence_ids``, default all) ``user`` still annotates."""
     return set(db.scalars(_unfinished(user.id, sentence_ids)))
 
@@ -48,6 +51,8 @@ def still_annotating(db: Session, sentence_id: int, user: User) -> bool:
 def ensure_not_blind(db: Session, sentence_id: int, user: User) -> None:
     """Forbidden (403) while ``user`` is an unfinished annotator of the sentence."""
     if still_annotating(db, sentence_id, user):
-        raise Forbidden(f"you are still annotating sentence {sentence_id}: submit your own "
-                        "tree on the Bench before you see or settle the others' trees",
-                        kind="blind")
+        raise Forbidden(
+            f"you are still annotating sentence {sentence_id}: submit your own "
+            "tree on the Bench before you see or settle the others' trees",
+            kind="blind",
+        )

@@ -94,9 +94,17 @@ def _ceil_div(a: float, b: float) -> int:
     return n if n >= q else n + 1
 
 
-def line_chart(series: Sequence[Series], *, title: str, x_title: str, y_title: str = "F1",
-               categories: Sequence[str] | None = None, frame: Frame | None = None,
-               y_min: float = 0.0, y_max: float = 1.0) -> Markup:
+def line_chart(
+    series: Sequence[Series],
+    *,
+    title: str,
+    x_title: str,
+    y_title: str = "F1",
+    categories: Sequence[str] | None = None,
+    frame: Frame | None = None,
+    y_min: float = 0.0,
+    y_max: float = 1.0,
+) -> Markup:
     """An SVG line chart; with ``categories`` the x values are indices into that list.
 
     A chart with no point at all shows the axes and the words "no data yet".
@@ -127,10 +135,14 @@ def line_chart(series: Sequence[Series], *, title: str, x_title: str, y_title: s
     # grid and y ticks
     for t in _nice_ticks(y_min, y_max, 6):
         y = sy(t)
-        parts.append(f'<line class="chart-grid" x1="{f.left}" y1="{_fmt(y)}" '
-                     f'x2="{f.width - f.right}" y2="{_fmt(y)}"/>')
-        parts.append(f'<text class="chart-tick" x="{f.left - 6}" y="{_fmt(y + 4)}" '
-                     f'text-anchor="end">{t:.1f}</text>')
+        parts.append(
+            f'<line class="chart-grid" x1="{f.left}" y1="{_fmt(y)}" '
+            f'x2="{f.width - f.right}" y2="{_fmt(y)}"/>'
+        )
+        parts.append(
+            f'<text class="chart-tick" x="{f.left - 6}" y="{_fmt(y + 4)}" '
+            f'text-anchor="end">{t:.1f}</text>'
+        )
     # x ticks
     base = f.top + f.plot_h
     if categories is not None:
@@ -138,45 +150,64 @@ def line_chart(series: Sequence[Series], *, title: str, x_title: str, y_title: s
         for i, name in enumerate(categories):
             if i % stride:
                 continue
-            parts.append(f'<text class="chart-tick" x="{_fmt(sx(i))}" y="{_fmt(base + 16)}" '
-                         f'text-anchor="middle">{escape(name)}</text>')
+            parts.append(
+                f'<text class="chart-tick" x="{_fmt(sx(i))}" y="{_fmt(base + 16)}" '
+                f'text-anchor="middle">{escape(name)}</text>'
+            )
     elif xs:
         whole = all(float(x).is_integer() for x in xs)  # counts: no tick at 74.5 trees
         for t in _nice_ticks(x_lo, x_hi, 7):
             if whole and not float(t).is_integer():
                 continue
-            parts.append(f'<text class="chart-tick" x="{_fmt(sx(t))}" y="{_fmt(base + 16)}" '
-                         f'text-anchor="middle">{t:g}</text>')
-    parts.append(f'<line class="chart-axis" x1="{f.left}" y1="{_fmt(base)}" '
-                 f'x2="{f.width - f.right}" y2="{_fmt(base)}"/>')
-    parts.append(f'<line class="chart-axis" x1="{f.left}" y1="{f.top}" '
-                 f'x2="{f.left}" y2="{_fmt(base)}"/>')
-    parts.append(f'<text class="chart-axis-title" x="{_fmt(f.left + f.plot_w / 2)}" '
-                 f'y="{f.height - 4}" text-anchor="middle">{escape(x_title)}</text>')
-    parts.append(f'<text class="chart-axis-title" x="12" y="{_fmt(f.top + f.plot_h / 2)}" '
-                 f'text-anchor="middle" transform="rotate(-90 12 {_fmt(f.top + f.plot_h / 2)})"'
-                 f">{escape(y_title)}</text>")
+            parts.append(
+                f'<text class="chart-tick" x="{_fmt(sx(t))}" y="{_fmt(base + 16)}" '
+                f'text-anchor="middle">{t:g}</text>'
+            )
+    parts.append(
+        f'<line class="chart-axis" x1="{f.left}" y1="{_fmt(base)}" '
+        f'x2="{f.width - f.right}" y2="{_fmt(base)}"/>'
+    )
+    parts.append(
+        f'<line class="chart-axis" x1="{f.left}" y1="{f.top}" x2="{f.left}" y2="{_fmt(base)}"/>'
+    )
+    parts.append(
+        f'<text class="chart-axis-title" x="{_fmt(f.left + f.plot_w / 2)}" '
+        f'y="{f.height - 4}" text-anchor="middle">{escape(x_title)}</text>'
+    )
+    parts.append(
+        f'<text class="chart-axis-title" x="12" y="{_fmt(f.top + f.plot_h / 2)}" '
+        f'text-anchor="middle" transform="rotate(-90 12 {_fmt(f.top + f.plot_h / 2)})"'
+        f">{escape(y_title)}</text>"
+    )
     if not xs:
-        parts.append(f'<text class="chart-empty" x="{_fmt(f.left + f.plot_w / 2)}" '
-                     f'y="{_fmt(f.top + f.plot_h / 2)}" text-anchor="middle">no data yet</text>')
+        parts.append(
+            f'<text class="chart-empty" x="{_fmt(f.left + f.plot_w / 2)}" '
+            f'y="{_fmt(f.top + f.plot_h / 2)}" text-anchor="middle">no data yet</text>'
+        )
     for s in series:
         pts = sorted(s.points, key=lambda p: p.x)
         if len(pts) > 1:
             path = " ".join(f"{_fmt(sx(p.x))},{_fmt(sy(p.y))}" for p in pts)
-            parts.append(f'<polyline class="chart-line chart-{escape(s.css)}" '
-                         f'fill="none" points="{path}"/>')
+            parts.append(
+                f'<polyline class="chart-line chart-{escape(s.css)}" fill="none" points="{path}"/>'
+            )
         for p in pts:
             tip = p.tip or f"{s.name}: {p.y:.3f}"
-            parts.append(f'<circle class="chart-dot chart-{escape(s.css)}" '
-                         f'cx="{_fmt(sx(p.x))}" cy="{_fmt(sy(p.y))}" r="3.5">'
-                         f"<title>{escape(tip)}</title></circle>")
+            parts.append(
+                f'<circle class="chart-dot chart-{escape(s.css)}" '
+                f'cx="{_fmt(sx(p.x))}" cy="{_fmt(sy(p.y))}" r="3.5">'
+                f"<title>{escape(tip)}</title></circle>"
+            )
     if len(series) > 1:
         x = f.left + 8
         for s in series:
-            parts.append(f'<rect class="chart-key chart-{escape(s.css)}" x="{x}" '
-                         f'y="{f.top}" width="10" height="10"/>')
-            parts.append(f'<text class="chart-tick" x="{x + 14}" y="{f.top + 9}">'
-                         f"{escape(s.name)}</text>")
+            parts.append(
+                f'<rect class="chart-key chart-{escape(s.css)}" x="{x}" '
+                f'y="{f.top}" width="10" height="10"/>'
+            )
+            parts.append(
+                f'<text class="chart-tick" x="{x + 14}" y="{f.top + 9}">{escape(s.name)}</text>'
+            )
             x += 24 + 7 * len(s.name)
     parts.append("</svg>")
     return Markup("".join(parts))
@@ -184,13 +215,16 @@ def line_chart(series: Sequence[Series], *, title: str, x_title: str, y_title: s
 
 def score_bar(value: float | None, *, width: int = 120, height: int = 12) -> Markup:
     """A small horizontal bar for one score in [0, 1] (empty frame for ``None``)."""
-    parts = [f'<svg class="score-bar" viewBox="0 0 {width} {height}" width="{width}" '
-             f'height="{height}" aria-hidden="true" xmlns="http://www.w3.org/2000/svg">',
-             f'<rect class="score-bar-back" x="0" y="0" width="{width}" height="{height}"/>']
+    parts = [
+        f'<svg class="score-bar" viewBox="0 0 {width} {height}" width="{width}" '
+        f'height="{height}" aria-hidden="true" xmlns="http://www.w3.org/2000/svg">',
+        f'<rect class="score-bar-back" x="0" y="0" width="{width}" height="{height}"/>',
+    ]
     if value is not None:
         w = max(0.0, min(1.0, value)) * width
-        parts.append(f'<rect class="score-bar-fill" x="0" y="0" width="{_fmt(w)}" '
-                     f'height="{height}"/>')
+        parts.append(
+            f'<rect class="score-bar-fill" x="0" y="0" width="{_fmt(w)}" height="{height}"/>'
+        )
     parts.append("</svg>")
     return Markup("".join(parts))
 
@@ -228,16 +262,18 @@ BAR_H = 18.0
 def ladder_rows(spans: Sequence[LadderSpan]) -> list[int]:
     """A row (1 = lowest) for each span: above every span it contains, and never on the same
     row as a span it overlaps (crossing brackets from different annotators)."""
-    order = sorted(range(len(spans)), key=lambda i: (spans[i].end - spans[i].start,
-                                                     spans[i].start))
+    order = sorted(range(len(spans)), key=lambda i: (spans[i].end - spans[i].start, spans[i].start))
     rows = [0] * len(spans)
     placed: list[int] = []
     for i in order:
         s = spans[i]
-        row = 1 + max((rows[j] for j in placed
-                       if spans[j].start >= s.start and spans[j].end <= s.end), default=0)
-        while any(rows[j] == row and spans[j].start < s.end and s.start < spans[j].end
-                  for j in placed):
+        row = 1 + max(
+            (rows[j] for j in placed if spans[j].start >= s.start and spans[j].end <= s.end),
+            default=0,
+        )
+        while any(
+            rows[j] == row and spans[j].start < s.end and s.start < spans[j].end for j in placed
+        ):
             row += 1
         rows[i] = row
         placed.append(i)
@@ -247,12 +283,19 @@ def ladder_rows(spans: Sequence[LadderSpan]) -> list[int]:
 def _chip_text(span: LadderSpan, everyone: int) -> str:
     if span.kind == "all":
         return " ".join(x.label for x in span.labels)
-    return "  ".join(x.label if len(x.owners) == everyone else f"{x.label}·{''.join(x.owners)}"
-                     for x in span.labels)
+    return "  ".join(
+        x.label if len(x.owners) == everyone else f"{x.label}·{''.join(x.owners)}"
+        for x in span.labels
+    )
 
 
-def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: int, *,
-                title: str = "Combined brackets") -> Markup:
+def span_ladder(
+    words: Sequence[str],
+    spans: Sequence[LadderSpan],
+    annotators: int,
+    *,
+    title: str = "Combined brackets",
+) -> Markup:
     """Words along the bottom; above them one bar per bracketed span, stacked so that a span
     sits above the spans inside it. The bar's class says whether everyone agrees on it
     (``lad-all``), everyone has the span with different labels (``lad-split``) or only some
@@ -261,7 +304,7 @@ def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: i
     # widen the words under a bar whose label would not fit, shortest bars first
     for span in sorted(spans, key=lambda sp: sp.end - sp.start):
         count = span.end - span.start
-        have = sum(widths[span.start:span.end]) + WORD_GAP * (count - 1)
+        have = sum(widths[span.start : span.end]) + WORD_GAP * (count - 1)
         need = len(_chip_text(span, annotators)) * LABEL_CHAR_W + 12
         if need > have:
             for i in range(span.start, span.end):
@@ -276,9 +319,12 @@ def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: i
     top_row = max(rows, default=0)
     word_y = (top_row + 1) * ROW_H + 8
     height = word_y + 22
-    parts = [f'<svg class="ladder" role="img" viewBox="0 0 {_fmt(total_w)} {_fmt(height)}" '
-             f'width="{_fmt(total_w)}" height="{_fmt(height)}" '
-             'xmlns="http://www.w3.org/2000/svg">', f"<title>{escape(title)}</title>"]
+    parts = [
+        f'<svg class="ladder" role="img" viewBox="0 0 {_fmt(total_w)} {_fmt(height)}" '
+        f'width="{_fmt(total_w)}" height="{_fmt(height)}" '
+        'xmlns="http://www.w3.org/2000/svg">',
+        f"<title>{escape(title)}</title>",
+    ]
     for span, row in sorted(zip(spans, rows, strict=True), key=lambda p: -p[1]):
         x0 = xs[span.start]
         x1 = xs[span.end - 1] + widths[span.end - 1]
@@ -292,12 +338,17 @@ def span_ladder(words: Sequence[str], spans: Sequence[LadderSpan], annotators: i
             f'<rect class="lad-bar" x="{_fmt(x0 + 1)}" y="{_fmt(y)}" '
             f'width="{_fmt(x1 - x0 - 2)}" height="{BAR_H}" rx="3"/>'
             f'<text class="lad-label" x="{_fmt((x0 + x1) / 2)}" y="{_fmt(y + BAR_H - 5)}" '
-            f'text-anchor="middle">{escape(text)}</text></g>')
+            f'text-anchor="middle">{escape(text)}</text></g>'
+        )
     for i, word in enumerate(words):
         cx = xs[i] + widths[i] / 2
-        parts.append(f'<text class="lad-word" x="{_fmt(cx)}" y="{_fmt(word_y + 4)}" '
-                     f'text-anchor="middle">{escape(word)}</text>')
-        parts.append(f'<text class="lad-index" x="{_fmt(cx)}" y="{_fmt(word_y + 18)}" '
-                     f'text-anchor="middle">{i + 1}</text>')
+        parts.append(
+            f'<text class="lad-word" x="{_fmt(cx)}" y="{_fmt(word_y + 4)}" '
+            f'text-anchor="middle">{escape(word)}</text>'
+        )
+        parts.append(
+            f'<text class="lad-index" x="{_fmt(cx)}" y="{_fmt(word_y + 18)}" '
+            f'text-anchor="middle">{i + 1}</text>'
+        )
     parts.append("</svg>")
     return Markup("".join(parts))

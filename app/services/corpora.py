@@ -59,12 +59,14 @@ from app.services.transactions import unit_of_work
 # (Vadas and Curran 2007; from memory) and the ROOT wrapper (common practice, no source).
 PTB_LABELS: tuple[str, ...] = tuple(
     "ROOT S SBAR SBARQ SINV SQ ADJP ADVP CONJP FRAG INTJ LST NAC NML NP NX PP PRN PRT QP RRC "
-    "UCP VP WHADJP WHADVP WHNP WHPP X".split())
+    "UCP VP WHADJP WHADVP WHNP WHPP X".split()
+)
 # POS tags of the Penn Treebank (Marcus, Santorini and Marcinkiewicz 1993, Computational
 # Linguistics 19(2), the POS tag table; from memory), with HYPH and NFP as GUM uses them.
 PTB_TAGS: tuple[str, ...] = tuple(
     "CC CD DT EX FW IN JJ JJR JJS LS MD NN NNS NNP NNPS PDT POS PRP PRP$ RB RBR RBS RP SYM TO "
-    "UH VB VBD VBG VBN VBP VBZ WDT WP WP$ WRB # $ . , : `` '' -LRB- -RRB- HYPH NFP".split())
+    "UH VB VBD VBG VBN VBP VBZ WDT WP WP$ WRB # $ . , : `` '' -LRB- -RRB- HYPH NFP".split()
+)
 
 LABEL_POLICIES = tuple(p.value for p in LabelPolicy)
 #: Who may settle a sentence they annotated (see app.services.review.check_own_settle).
@@ -115,8 +117,9 @@ def clean_name(name: str, what: str = "corpus", limit: int = MAX_NAME) -> str:
         raise BadInput(f"a {what} name has at most {limit} characters, not {len(cleaned)}")
     bad = _control_character(cleaned)
     if bad is not None:
-        raise BadInput(f"a {what} name cannot hold the control character {bad[1]} "
-                       f"(character {bad[0]})")
+        raise BadInput(
+            f"a {what} name cannot hold the control character {bad[1]} (character {bad[0]})"
+        )
     return cleaned
 
 
@@ -143,8 +146,10 @@ def _check_inventory(items: Iterable[str], what: str) -> list[str]:
             seen.add(item)
             out.append(item)
             if len(out) > MAX_INVENTORY:
-                raise BadInput(f"a {what} lists at most {MAX_INVENTORY:,} entries; entry "
-                               f"{position} is one more")
+                raise BadInput(
+                    f"a {what} lists at most {MAX_INVENTORY:,} entries; entry "
+                    f"{position} is one more"
+                )
     return out
 
 
@@ -154,9 +159,16 @@ def parse_inventory(text: str) -> list[str]:
 
 
 @unit_of_work
-def create_corpus(db: Session, name: str, *, description: str = "",
-                  label_set: Iterable[str] | None = None, tag_set: Iterable[str] | None = None,
-                  settings: dict[str, Any] | None = None, user: User | None = None) -> Corpus:
+def create_corpus(
+    db: Session,
+    name: str,
+    *,
+    description: str = "",
+    label_set: Iterable[str] | None = None,
+    tag_set: Iterable[str] | None = None,
+    settings: dict[str, Any] | None = None,
+    user: User | None = None,
+) -> Corpus:
     """A new, empty corpus. Without ``label_set``/``tag_set`` both are derived from imports.
     Commits (``create_corpus.step`` does not)."""
     name = clean_name(name)
@@ -166,12 +178,19 @@ def create_corpus(db: Session, name: str, *, description: str = "",
     tags = _check_inventory(tag_set, "tag set") if tag_set is not None else []
     values = validate_settings(settings or {})
     values[DERIVED_KEY] = label_set is None and tag_set is None
-    corpus = Corpus(name=name, description=description.strip(), label_set=labels,
-                    tag_set=tags, settings=values)
+    corpus = Corpus(
+        name=name, description=description.strip(), label_set=labels, tag_set=tags, settings=values
+    )
     db.add(corpus)
     db.flush()
-    db.add(Event(user_id=user.id if user else None, kind="corpus_created", corpus_id=corpus.id,
-                 detail={"name": name}))
+    db.add(
+        Event(
+            user_id=user.id if user else None,
+            kind="corpus_created",
+            corpus_id=corpus.id,
+            detail={"name": name},
+        )
+    )
     return corpus
 
 
@@ -221,8 +240,9 @@ def absorb_tree_inventory(corpus: Corpus, labels: set[str], tags: set[str]) -> N
     corpus.tag_set = sorted(set(corpus.tag_set or []) | tags)
 
 
-def validate_settings(values: dict[str, Any],
-                      current: dict[str, Any] | None = None) -> dict[str, Any]:
+def validate_settings(
+    values: dict[str, Any], current: dict[str, Any] | None = None
+) -> dict[str, Any]:
     """The stored settings after ``values`` are applied to ``current``, checked and typed;
     BadInput naming the setting for an unknown key or a bad value."""
     try:
@@ -238,9 +258,16 @@ def effective_settings(corpus: Corpus) -> dict[str, Any]:
 
 
 @unit_of_work
-def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | None = None,
-                  description: str | None = None, label_set: Iterable[str] | None = None,
-                  tag_set: Iterable[str] | None = None, user: User | None = None) -> Corpus:
+def update_corpus(
+    db: Session,
+    corpus: Corpus,
+    *,
+    settings: dict[str, Any] | None = None,
+    description: str | None = None,
+    label_set: Iterable[str] | None = None,
+    tag_set: Iterable[str] | None = None,
+    user: User | None = None,
+) -> Corpus:
     """Change settings, description or inventories. Explicit inventories stop derivation.
     Commits."""
     merged = validate_settings(settings or {}, corpus.settings)
@@ -260,9 +287,18 @@ def update_corpus(db: Session, corpus: Corpus, *, settings: dict[str, Any] | Non
     if reorder:
         db.flush()
         apply_order(db, corpus.id)
-    db.add(Event(user_id=user.id if user else None, kind="corpus_settings", corpus_id=corpus.id,
-                 detail={"settings": settings or {},
-                         "label_set": label_set is not None, "tag_set": tag_set is not None}))
+    db.add(
+        Event(
+            user_id=user.id if user else None,
+            kind="corpus_settings",
+            corpus_id=corpus.id,
+            detail={
+                "settings": settings or {},
+                "label_set": label_set is not None,
+                "tag_set": tag_set is not None,
+            },
+        )
+    )
     db.flush()
     return corpus
 
@@ -277,8 +313,13 @@ def delete_corpus(db: Session, corpus_id: int, typed_name: str, user: User | Non
     name = corpus.name
     db.expunge(corpus)
     db.execute(delete(Corpus).where(Corpus.id == corpus_id))
-    db.add(Event(user_id=user.id if user else None, kind="corpus_removed",
-                 detail={"name": name, "corpus_id": corpus_id}))
+    db.add(
+        Event(
+            user_id=user.id if user else None,
+            kind="corpus_removed",
+            detail={"name": name, "corpus_id": corpus_id},
+        )
+    )
     db.flush()
     return name
 
@@ -300,19 +341,23 @@ class CorpusCounts:
 
 
 def _state_counts(db: Session, *where: Any) -> dict[tuple[int, str], int]:
-    rows = db.execute(select(SentenceCount.corpus_id, SentenceCount.state,
-                             func.sum(SentenceCount.n))
-                      .where(*where).group_by(SentenceCount.corpus_id, SentenceCount.state))
+    rows = db.execute(
+        select(SentenceCount.corpus_id, SentenceCount.state, func.sum(SentenceCount.n))
+        .where(*where)
+        .group_by(SentenceCount.corpus_id, SentenceCount.state)
+    )
     return {(cid, state): int(n or 0) for cid, state, n in rows}
 
 
 def _gold_counts(db: Session, corpus_id: int | None = None) -> dict[int, int]:
     """Sentences with a current gold tree per corpus. Driven from the gold table (the
     corpus looked up per gold row): O(gold rows), never a scan of every sentence."""
-    corpus_of = (select(Sentence.corpus_id).where(Sentence.id == Gold.sentence_id)
-                 .scalar_subquery())
-    stmt = (select(corpus_of, func.count(func.distinct(Gold.sentence_id)))
-            .where(Gold.retired_at.is_(None)).group_by(corpus_of))
+    corpus_of = select(Sentence.corpus_id).where(Sentence.id == Gold.sentence_id).scalar_subquery()
+    stmt = (
+        select(corpus_of, func.count(func.distinct(Gold.sentence_id)))
+        .where(Gold.retired_at.is_(None))
+        .group_by(corpus_of)
+    )
     if corpus_id is not None:
         stmt = stmt.where(corpus_of == corpus_id)
     return {cid: n for cid, n in db.execute(stmt)}
@@ -323,12 +368,14 @@ def corpus_overview(db: Session) -> list[CorpusCounts]:
     corpora = [c for c in db.scalars(select(Corpus).order_by(Corpus.name)) if not is_staging(c)]
     states = _state_counts(db)
     gold = _gold_counts(db)
-    docs = dict(db.execute(select(Document.corpus_id, func.count())
-                           .group_by(Document.corpus_id)).all())
+    docs = dict(
+        db.execute(select(Document.corpus_id, func.count()).group_by(Document.corpus_id)).all()
+    )
     out = []
     for corpus in corpora:
-        counts = CorpusCounts(corpus=corpus, gold=gold.get(corpus.id, 0),
-                              documents=docs.get(corpus.id, 0))
+        counts = CorpusCounts(
+            corpus=corpus, gold=gold.get(corpus.id, 0), documents=docs.get(corpus.id, 0)
+        )
         for state in SENTENCE_STATES:
             counts.states[state] = states.get((corpus.id, state), 0)
         out.append(counts)
@@ -337,10 +384,14 @@ def corpus_overview(db: Session) -> list[CorpusCounts]:
 
 def corpus_counts(db: Session, corpus: Corpus) -> CorpusCounts:
     states = _state_counts(db, SentenceCount.corpus_id == corpus.id)
-    counts = CorpusCounts(corpus=corpus,
-                          gold=_gold_counts(db, corpus.id).get(corpus.id, 0),
-                          documents=db.scalar(select(func.count()).select_from(Document)
-                                              .where(Document.corpus_id == corpus.id)) or 0)
+    counts = CorpusCounts(
+        corpus=corpus,
+        gold=_gold_counts(db, corpus.id).get(corpus.id, 0),
+        documents=db.scalar(
+            select(func.count()).select_from(Document).where(Document.corpus_id == corpus.id)
+        )
+        or 0,
+    )
     for state in SENTENCE_STATES:
         counts.states[state] = states.get((corpus.id, state), 0)
     return counts
@@ -354,15 +405,27 @@ class DocumentRow:
 
 
 def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
-    rows = db.execute(select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n)
-                      .where(SentenceCount.corpus_id == corpus.id))
+    rows = db.execute(
+        select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n).where(
+            SentenceCount.corpus_id == corpus.id
+        )
+    )
     per_doc: dict[int, dict[str, int]] = {}
     for doc_id, state, n in rows:
         per_doc.setdefault(doc_id, dict.fromkeys(SENTENCE_STATES, 0))[state] = n
-    docs = db.scalars(select(Document).where(Document.corpus_id == corpus.id)
-                      .order_by(Document.position, Document.id)).all()
-    return [DocumentRow(document=d, states=per_doc.get(d.id, dict.fromkeys(SENTENCE_STATES, 0)),
-                        sentences=sum(per_doc.get(d.id, {}).values())) for d in docs]
+    docs = db.scalars(
+        select(Document)
+        .where(Document.corpus_id == corpus.id)
+        .order_by(Document.position, Document.id)
+    ).all()
+    return [
+        DocumentRow(
+            document=d,
+            states=per_doc.get(d.id, dict.fromkeys(SENTENCE_STATES, 0)),
+            sentences=sum(per_doc.get(d.id, {}).values()),
+        )
+        for d in docs
+    ]
 
 
 @dataclass
@@ -399,27 +462,36 @@ def parse_cursor(cursor: str, what: str = "cursor") -> tuple[int, int]:
     """The (document id, position) of a cursor, or BadInput saying what is wrong."""
     parts = cursor.split("-")
     if len(parts) != 2 or not all(p.isdigit() and len(p) < 19 for p in parts):
-        raise BadInput(f"{what} {cursor[:40]!r} is not of the form DOCUMENT-POSITION "
-                       "(two whole numbers)")
+        raise BadInput(
+            f"{what} {cursor[:40]!r} is not of the form DOCUMENT-POSITION (two whole numbers)"
+        )
     return int(parts[0]), int(parts[1])
 
 
-def sentence_count(db: Session, corpus: Corpus, *, state: str | None = None,
-                   document_id: int | None = None) -> int:
+def sentence_count(
+    db: Session, corpus: Corpus, *, state: str | None = None, document_id: int | None = None
+) -> int:
     """How many sentences of the corpus (in ``state``, in the document), from the counts."""
     where = [SentenceCount.corpus_id == corpus.id]
     if state:
         where.append(SentenceCount.state == state)
     if document_id is not None:
         where.append(SentenceCount.document_id == document_id)
-    return int(db.scalar(select(func.coalesce(func.sum(SentenceCount.n), 0)).where(*where))
-               or 0)
+    return int(db.scalar(select(func.coalesce(func.sum(SentenceCount.n), 0)).where(*where)) or 0)
 
 
-def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
-                  state: str | None = None, document_id: int | None = None,
-                  after: str | None = None, before: str | None = None, last: bool = False,
-                  page: int | None = None) -> SentencePage:
+def sentence_page(
+    db: Session,
+    corpus: Corpus,
+    *,
+    per_page: int = 50,
+    state: str | None = None,
+    document_id: int | None = None,
+    after: str | None = None,
+    before: str | None = None,
+    last: bool = False,
+    page: int | None = None,
+) -> SentencePage:
     """One page of the corpus's sentences in reading order, with who is assigned to each:
     the first page; the page ``after`` or ``before`` a cursor; the ``last`` page; or (JSON API)
     offset page number ``page``."""
@@ -430,8 +502,14 @@ def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
     if state:
         where.append(Sentence.state == state)
     if document_id is not None:
-        if db.scalar(select(Document.id).where(Document.id == document_id,
-                                               Document.corpus_id == corpus.id)) is None:
+        if (
+            db.scalar(
+                select(Document.id).where(
+                    Document.id == document_id, Document.corpus_id == corpus.id
+                )
+            )
+            is None
+        ):
             raise NotFound(f"no document with id {document_id} in corpus {corpus.name!r}")
         where.append(Sentence.document_id == document_id)
     total = sentence_count(db, corpus, state=state, document_id=document_id)
@@ -442,12 +520,18 @@ def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
     has_prev = has_next = False
     if page is not None:
         page = max(page, 1)
-        rows = list(db.execute(stmt.order_by(*forward).limit(per_page)
-                               .offset((page - 1) * per_page)).all())
+        rows = list(
+            db.execute(stmt.order_by(*forward).limit(per_page).offset((page - 1) * per_page)).all()
+        )
         has_prev, has_next = page > 1, (page - 1) * per_page + len(rows) < total
     elif before is not None:
-        rows = list(db.execute(stmt.where(key < tuple_(*parse_cursor(before, "before")))
-                               .order_by(*backward).limit(per_page + 1)).all())
+        rows = list(
+            db.execute(
+                stmt.where(key < tuple_(*parse_cursor(before, "before")))
+                .order_by(*backward)
+                .limit(per_page + 1)
+            ).all()
+        )
         has_prev, has_next = len(rows) > per_page, True
         rows = rows[:per_page][::-1]
     elif last:
@@ -463,16 +547,21 @@ def sentence_page(db: Session, corpus: Corpus, *, per_page: int = 50,
     ids = [s.id for s, _ in rows]
     who: dict[int, list[str]] = {}
     if ids:
-        for sid, username in db.execute(select(Assignment.sentence_id, User.username)
-                                        .join(User, User.id == Assignment.user_id)
-                                        .where(Assignment.sentence_id.in_(ids))
-                                        .order_by(User.username)):
+        for sid, username in db.execute(
+            select(Assignment.sentence_id, User.username)
+            .join(User, User.id == Assignment.user_id)
+            .where(Assignment.sentence_id.in_(ids))
+            .order_by(User.username)
+        ):
             who.setdefault(sid, []).append(username)
     return SentencePage(
-        rows=[SentenceRow(s, name, who.get(s.id, [])) for s, name in rows], per_page=per_page,
-        total=total, page=page,
+        rows=[SentenceRow(s, name, who.get(s.id, [])) for s, name in rows],
+        per_page=per_page,
+        total=total,
+        page=page,
         prev_cursor=sentence_cursor(rows[0][0]) if rows and has_prev else None,
-        next_cursor=sentence_cursor(rows[-1][0]) if rows and has_next else None)
+        next_cursor=sentence_cursor(rows[-1][0]) if rows and has_next else None,
+    )
 
 
 def find_corpus(db: Session, corpus_id: int, *, fresh: bool = False) -> Corpus | None:
@@ -487,6 +576,11 @@ def corpus_list(db: Session) -> list[Corpus]:
 
 def document_choices(db: Session) -> list[tuple[int, str, int]]:
     """(id, name, corpus id) of every document, by corpus and position."""
-    return [(i, n, c) for i, n, c in db.execute(
-        select(Document.id, Document.name, Document.corpus_id)
-        .order_by(Document.corpus_id, Document.position))]
+    return [
+        (i, n, c)
+        for i, n, c in db.execute(
+            select(Document.id, Document.name, Document.corpus_id).order_by(
+                Document.corpus_id, Document.position
+            )
+        )
+    ]

@@ -42,7 +42,7 @@ class Effort:
     seconds: float = 0.0
     actions: int = 0
     by_kind: dict[str, int] = field(default_factory=lambda: defaultdict(int))
-    compared: int = 0          # annotations with a start tree on the same tokens
+    compared: int = 0  # annotations with a start tree on the same tokens
     f1_sum: float = 0.0
     edits: int = 0
 
@@ -66,8 +66,13 @@ class Effort:
     def edits_per_sentence(self) -> float | None:
         return self.edits / self.compared if self.compared else None
 
-    def add(self, n_words: int, seconds: float, actions: dict[str, int],
-            distance: tuple[float, int] | None) -> None:
+    def add(
+        self,
+        n_words: int,
+        seconds: float,
+        actions: dict[str, int],
+        distance: tuple[float, int] | None,
+    ) -> None:
         self.sentences += 1
         self.words += n_words
         self.seconds += seconds
@@ -93,7 +98,8 @@ def start_distance(start_text: str | None, final_text: str) -> tuple[float, int]
         return None
     f1 = score_pair(start, final).labelled.f1
     edits = len(set(constituents(start)) ^ set(constituents(final))) + sum(
-        a != b for a, b in zip(pos_tags(start), pos_tags(final), strict=True))
+        a != b for a, b in zip(pos_tags(start), pos_tags(final), strict=True)
+    )
     return f1, edits
 
 
@@ -103,8 +109,12 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
         select(Annotation, User.username)
         .join(Sentence, Sentence.id == Annotation.sentence_id)
         .join(User, User.id == Annotation.user_id)
-        .where(Sentence.corpus_id == corpus_id, Annotation.state == ANN_SUBMITTED,
-               Sentence.state != SENT_DROPPED)).all()
+        .where(
+            Sentence.corpus_id == corpus_id,
+            Annotation.state == ANN_SUBMITTED,
+            Sentence.state != SENT_DROPPED,
+        )
+    ).all()
     by_ann: dict[int, list[Revision]] = defaultdict(list)
     if anns:
         ids = [a.id for a, _ in anns]
@@ -129,10 +139,20 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     return sorted(people.values(), key=lambda e: e.name), total
 
 
-EFFORT_COLUMNS = ["annotator", "sentences", "words", "active_seconds", "sentences_per_hour",
-                  "seconds_per_word", "actions", "actions_per_sentence",
-                  "compared_with_start", "mean_f1_to_start", "edits_from_start_per_sentence",
-                  "actions_by_kind"]
+EFFORT_COLUMNS = [
+    "annotator",
+    "sentences",
+    "words",
+    "active_seconds",
+    "sentences_per_hour",
+    "seconds_per_word",
+    "actions",
+    "actions_per_sentence",
+    "compared_with_start",
+    "mean_f1_to_start",
+    "edits_from_start_per_sentence",
+    "actions_by_kind",
+]
 
 
 def _num(value: float | None, digits: int) -> str:
@@ -147,9 +167,20 @@ def effort_csv(db: Session, corpus_id: int) -> str:
     w.writerow(EFFORT_COLUMNS)
     for e in [*people, total]:
         name = "'" + e.name if e.name[:1] and e.name[0] in "=+-@" else e.name  # spreadsheet
-        w.writerow([name, e.sentences, e.words, f"{e.seconds:.1f}",
-                    _num(e.sentences_per_hour, 2), _num(e.seconds_per_word, 2), e.actions,
-                    _num(e.actions_per_sentence, 2), e.compared, _num(e.start_f1, 4),
-                    _num(e.edits_per_sentence, 2),
-                    " ".join(f"{k}={n}" for k, n in sorted(e.by_kind.items()))])
+        w.writerow(
+            [
+                name,
+                e.sentences,
+                e.words,
+                f"{e.seconds:.1f}",
+                _num(e.sentences_per_hour, 2),
+                _num(e.seconds_per_word, 2),
+                e.actions,
+                _num(e.actions_per_sentence, 2),
+                e.compared,
+                _num(e.start_f1, 4),
+                _num(e.edits_per_sentence, 2),
+                " ".join(f"{k}={n}" for k, n in sorted(e.by_kind.items())),
+            ]
+        )
     return out.getvalue()

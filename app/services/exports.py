@@ -80,8 +80,9 @@ def parse_ratios(text: str) -> tuple[float, float, float]:
     """``"0.8,0.1,0.1"``, ``"80/10/10"`` or ``"8:1:1"`` as three numbers."""
     parts = [p for p in re.split(r"[\s,/:]+", (text or "").strip()) if p]
     if len(parts) != 3:
-        raise BadInput(f"ratios {text!r}: give three numbers for train, dev and test, "
-                       "e.g. 80/10/10")
+        raise BadInput(
+            f"ratios {text!r}: give three numbers for train, dev and test, e.g. 80/10/10"
+        )
     try:
         a, b, c = (float(p) for p in parts)
     except ValueError:
@@ -107,11 +108,13 @@ class SplitAdvice:
     def describe(self, cli: bool = True) -> str:
         """The way out in words; ``cli`` names the command line's options, else the page's."""
         if self.spec.by == "sentence":
-            what = "keep nothing together" + (" (--by sentence)" if cli else
-                                              " (shuffle sentences)")
+            what = "keep nothing together" + (" (--by sentence)" if cli else " (shuffle sentences)")
         else:
-            what = (f"seed {self.spec.seed}" + (f" (--seed {self.spec.seed})" if cli else "")
-                    + ", documents kept whole")
+            what = (
+                f"seed {self.spec.seed}"
+                + (f" (--seed {self.spec.seed})" if cli else "")
+                + ", documents kept whole"
+            )
         return f"{what}: train {self.sizes[0]}, dev {self.sizes[1]}, test {self.sizes[2]}"
 
 
@@ -148,17 +151,29 @@ def slug(name: str) -> str:
 
 def gold_items(db: Session, corpus: Corpus, document_id: int | None = None) -> list[GoldItem]:
     """Current gold of the corpus (or one document) in document, then sentence order."""
-    where = [Sentence.corpus_id == corpus.id, Sentence.state == SENT_GOLD,
-             Gold.retired_at.is_(None)]
+    where = [
+        Sentence.corpus_id == corpus.id,
+        Sentence.state == SENT_GOLD,
+        Gold.retired_at.is_(None),
+    ]
     if document_id is not None:
-        if db.scalar(select(Document.id).where(Document.id == document_id,
-                                               Document.corpus_id == corpus.id)) is None:
+        if (
+            db.scalar(
+                select(Document.id).where(
+                    Document.id == document_id, Document.corpus_id == corpus.id
+                )
+            )
+            is None
+        ):
             raise NotFound(f"no document with id {document_id} in corpus {corpus.name!r}")
         where.append(Sentence.document_id == document_id)
-    rows = db.execute(select(Sentence.id, Document.id, Document.name, Gold.tree, Gold.id)
-                      .join(Document, Document.id == Sentence.document_id)
-                      .join(Gold, Gold.sentence_id == Sentence.id).where(*where)
-                      .order_by(Document.position, Document.id, Sentence.position, Gold.id))
+    rows = db.execute(
+        select(Sentence.id, Document.id, Document.name, Gold.tree, Gold.id)
+        .join(Document, Document.id == Sentence.document_id)
+        .join(Gold, Gold.sentence_id == Sentence.id)
+        .where(*where)
+        .order_by(Document.position, Document.id, Sentence.position, Gold.id)
+    )
     latest: dict[int, GoldItem] = {}
     for sid, did, dname, tree, _gid in rows:
         latest[sid] = GoldItem(sid, did, dname, tree)  # the newest gold row wins
@@ -169,10 +184,13 @@ def _stripped(item: GoldItem) -> str:
     try:
         return write_tree(strip_function_tags(read_tree(item.tree)))
     except ParserError as err:  # stored before the reader's depth limit (parser.trees)
-        raise BadInput(f"the gold tree of sentence {item.sentence_id} cannot be exported "
-                       f"without function tags: {err}; reopen it and settle a shallower "
-                       "tree, or export with function tags", kind="tree",
-                       sentence_id=item.sentence_id) from err
+        raise BadInput(
+            f"the gold tree of sentence {item.sentence_id} cannot be exported "
+            f"without function tags: {err}; reopen it and settle a shallower "
+            "tree, or export with function tags",
+            kind="tree",
+            sentence_id=item.sentence_id,
+        ) from err
 
 
 def _render(items: list[GoldItem], function_tags: bool) -> str:
@@ -202,7 +220,7 @@ def split_items(items: list[GoldItem], spec: SplitSpec) -> list[list[GoldItem]]:
         rng.shuffle(shuffled)
         start = 0
         for part, size in enumerate(_largest_remainder(len(items), spec.shares)):
-            parts[part] = shuffled[start:start + size]
+            parts[part] = shuffled[start : start + size]
             start += size
     else:
         documents: dict[int, list[GoldItem]] = {}
@@ -214,8 +232,12 @@ def split_items(items: list[GoldItem], spec: SplitSpec) -> list[list[GoldItem]]:
         filled = [0, 0, 0]
         for doc_id in order:
             # the part with the largest shortfall; ties go to the earlier part
-            part = max(range(3), key=lambda i: (targets[i] - filled[i], -i)
-                       if spec.shares[i] > 0 else (float("-inf"), -i))
+            part = max(
+                range(3),
+                key=lambda i: (
+                    (targets[i] - filled[i], -i) if spec.shares[i] > 0 else (float("-inf"), -i)
+                ),
+            )
             parts[part].extend(documents[doc_id])
             filled[part] += len(documents[doc_id])
     return [sorted(p, key=lambda item: position[item.sentence_id]) for p in parts]
@@ -256,8 +278,14 @@ def split_advice(items: list[GoldItem], spec: SplitSpec) -> list[SplitAdvice]:
     return out
 
 
-def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
-                function_tags: bool = True, split: SplitSpec | None = None) -> ExportResult:
+def export_gold(
+    db: Session,
+    corpus_id: int,
+    *,
+    document_id: int | None = None,
+    function_tags: bool = True,
+    split: SplitSpec | None = None,
+) -> ExportResult:
     """Gold of a corpus (or document) as bracketed text files.
 
     Without ``split`` one file ``<corpus>[-<document>].ptb``; with it one file per part whose
@@ -278,8 +306,7 @@ def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
         result.files[f"{base}.ptb"] = _render(items, function_tags)
         result.counts[f"{base}.ptb"] = len(items)
         return result
-    for name, share, part in zip(PART_NAMES, split.shares, split_items(items, split),
-                                 strict=True):
+    for name, share, part in zip(PART_NAMES, split.shares, split_items(items, split), strict=True):
         if share <= 0:
             continue
         file_name = f"{base}-{name}.ptb"
@@ -289,31 +316,50 @@ def export_gold(db: Session, corpus_id: int, *, document_id: int | None = None,
             result.empty_parts.append(name)
     if result.empty_parts:
         documents = len({item.document_id for item in items})
-        kept = (f"{plural(len(items), 'gold tree')} in {plural(documents, 'document')} kept "
-                "whole" if split.by == "document" else plural(len(items), "gold tree"))
+        kept = (
+            f"{plural(len(items), 'gold tree')} in {plural(documents, 'document')} kept whole"
+            if split.by == "document"
+            else plural(len(items), "gold tree")
+        )
         result.empty_message = (
             f"the {' and '.join(result.empty_parts)} "
             f"{'part is' if len(result.empty_parts) == 1 else 'parts are'} empty: {kept} "
-            f"cannot fill {'/'.join(f'{r:g}' for r in split.ratios)}")
+            f"cannot fill {'/'.join(f'{r:g}' for r in split.ratios)}"
+        )
         result.warnings.append(result.empty_message)
         result.advice = split_advice(items, split)
         if result.advice:
-            result.warnings.append("for a split with no empty part: "
-                                   + "; or ".join(a.describe() for a in result.advice))
+            result.warnings.append(
+                "for a split with no empty part: "
+                + "; or ".join(a.describe() for a in result.advice)
+            )
         else:
-            result.warnings.append("no split of so few gold trees fills every part: settle "
-                                   "more gold, or set a ratio to 0")
+            result.warnings.append(
+                "no split of so few gold trees fills every part: settle "
+                "more gold, or set a ratio to 0"
+            )
     return result
 
 
 @unit_of_work
-def record_export(db: Session, corpus_id: int, result: ExportResult, *, user: User | None,
-                  document_id: int | None = None, split: SplitSpec | None = None,
-                  function_tags: bool = True) -> None:
+def record_export(
+    db: Session,
+    corpus_id: int,
+    result: ExportResult,
+    *,
+    user: User | None,
+    document_id: int | None = None,
+    split: SplitSpec | None = None,
+    function_tags: bool = True,
+) -> None:
     """Note an export in the event log (gold text leaving the service); Commits."""
-    detail: dict[str, object] = {"files": dict(result.counts), "function_tags": function_tags,
-                                 "document_id": document_id}
+    detail: dict[str, object] = {
+        "files": dict(result.counts),
+        "function_tags": function_tags,
+        "document_id": document_id,
+    }
     if split is not None:
         detail["split"] = {"ratios": list(split.ratios), "seed": split.seed, "by": split.by}
-    db.add(Event(user_id=user.id if user else None, kind="export", corpus_id=corpus_id,
-                 detail=detail))
+    db.add(
+        Event(user_id=user.id if user else None, kind="export", corpus_id=corpus_id, detail=detail)
+    )

@@ -41,8 +41,9 @@ from app.services.training import get_runner
 from app.services.transactions import unit_of_work
 
 
-def request_run(target: Any, corpus_id: int, *, user: User | None,
-                with_annotations: bool = False) -> FindingRun:
+def request_run(
+    target: Any, corpus_id: int, *, user: User | None, with_annotations: bool = False
+) -> FindingRun:
     """Queue a run (or join the queued one) and start the worker. ``target`` is ``app.state``
     or a sessionmaker (see ``app.services.training.get_runner``). Commits."""
     runner = get_runner(target)
@@ -50,8 +51,13 @@ def request_run(target: Any, corpus_id: int, *, user: User | None,
         if db.get(Corpus, corpus_id) is None:
             raise NotFound(f"no corpus with id {corpus_id}")
         who = f"on request by {user.username}" if user is not None else "on request"
-        run = queue_run(db, corpus_id, reason=who, user_id=user.id if user else None,
-                        with_annotations=with_annotations)
+        run = queue_run(
+            db,
+            corpus_id,
+            reason=who,
+            user_id=user.id if user else None,
+            with_annotations=with_annotations,
+        )
         db.commit()
         db.refresh(run)
         db.expunge(run)
@@ -59,22 +65,37 @@ def request_run(target: Any, corpus_id: int, *, user: User | None,
     return run
 
 
-def _verdict(db: Session, corpus_id: int, finding_id: int, verdict: str, user: User,
-             note: str) -> FindingVerdict:
+def _verdict(
+    db: Session, corpus_id: int, finding_id: int, verdict: str, user: User, note: str
+) -> FindingVerdict:
     row = get_finding(db, finding_id, corpus_id)
-    v = FindingVerdict(corpus_id=row.corpus_id, kind=row.kind, key=row.key,
-                       key_hash=row.key_hash, verdict=verdict, user_id=user.id, note=note,
-                       created_at=utcnow())
+    v = FindingVerdict(
+        corpus_id=row.corpus_id,
+        kind=row.kind,
+        key=row.key,
+        key_hash=row.key_hash,
+        verdict=verdict,
+        user_id=user.id,
+        note=note,
+        created_at=utcnow(),
+    )
     db.add(v)
-    db.add(Event(user_id=user.id, kind=f"finding.{verdict}", corpus_id=row.corpus_id,
-                 detail={"finding": row.id, "key": row.key, "note": note}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind=f"finding.{verdict}",
+            corpus_id=row.corpus_id,
+            detail={"finding": row.id, "key": row.key, "note": note},
+        )
+    )
     db.flush()
     return v
 
 
 @unit_of_work
-def mark_fine(db: Session, corpus_id: int, finding_id: int, user: User, *,
-              note: str | None = None) -> FindingVerdict:
+def mark_fine(
+    db: Session, corpus_id: int, finding_id: int, user: User, *, note: str | None = None
+) -> FindingVerdict:
     """Keep the finding as it is and stop listing it as open. Commits."""
     return _verdict(db, corpus_id, finding_id, VERDICT_FINE, user, check_note(note))
 
@@ -87,8 +108,9 @@ class Reopened:
 
 
 @unit_of_work
-def reopen_finding(db: Session, corpus_id: int, finding_id: int, user: User, *,
-                   note: str | None = None) -> Reopened:
+def reopen_finding(
+    db: Session, corpus_id: int, finding_id: int, user: User, *, note: str | None = None
+) -> Reopened:
     """Send the finding's gold sentences back to review and record the verdict. Commits
     (everything or, on any error, nothing)."""
     note = check_note(note)
@@ -100,8 +122,13 @@ def reopen_finding(db: Session, corpus_id: int, finding_id: int, user: User, *,
         if sentence is None or sentence.state != SENT_GOLD:
             skipped.append(sid)
             continue
-        reopen_step(db, sid, user, note=note or f"reopened from finding {row.id}",
-                    detail={"finding": row.id})
+        reopen_step(
+            db,
+            sid,
+            user,
+            note=note or f"reopened from finding {row.id}",
+            detail={"finding": row.id},
+        )
         reopened.append(sid)
     v = _verdict(db, corpus_id, finding_id, VERDICT_REOPENED, user, note)
     return Reopened(v, reopened, skipped)

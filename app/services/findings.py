@@ -75,19 +75,40 @@ def key_hash(key: str) -> str:
 # queueing and running
 
 
-def queue_run(db: Session, corpus_id: int, *, reason: str, user_id: int | None = None,
-              with_annotations: bool = False) -> FindingRun:
+def queue_run(
+    db: Session,
+    corpus_id: int,
+    *,
+    reason: str,
+    user_id: int | None = None,
+    with_annotations: bool = False,
+) -> FindingRun:
     """The corpus's queued run (asking for annotations too if this request does), or a new
     one. A step: flushes, does not commit."""
-    run = db.scalar(select(FindingRun).where(FindingRun.corpus_id == corpus_id,
-                                             FindingRun.status == RUN_QUEUED).limit(1))
+    run = db.scalar(
+        select(FindingRun)
+        .where(FindingRun.corpus_id == corpus_id, FindingRun.status == RUN_QUEUED)
+        .limit(1)
+    )
     if run is None:
-        run = FindingRun(corpus_id=corpus_id, status=RUN_QUEUED, reason=reason,
-                         requested_by_id=user_id, with_annotations=with_annotations,
-                         message="waiting for the worker", created_at=utcnow())
+        run = FindingRun(
+            corpus_id=corpus_id,
+            status=RUN_QUEUED,
+            reason=reason,
+            requested_by_id=user_id,
+            with_annotations=with_annotations,
+            message="waiting for the worker",
+            created_at=utcnow(),
+        )
         db.add(run)
-        db.add(Event(user_id=user_id, kind="findings.queued", corpus_id=corpus_id,
-                     detail={"reason": reason, "with_annotations": with_annotations}))
+        db.add(
+            Event(
+                user_id=user_id,
+                kind="findings.queued",
+                corpus_id=corpus_id,
+                detail={"reason": reason, "with_annotations": with_annotations},
+            )
+        )
     elif with_annotations:
         run.with_annotations = True
     db.flush()
@@ -98,25 +119,43 @@ def claim_run(factory: sessionmaker[Session]) -> int | None:
     """Take the oldest queued run (queued -> running); None when none waits."""
     with factory() as db:
         while True:
-            run_id = db.scalar(select(FindingRun.id).where(FindingRun.status == RUN_QUEUED)
-                               .order_by(FindingRun.id).limit(1))
+            run_id = db.scalar(
+                select(FindingRun.id)
+                .where(FindingRun.status == RUN_QUEUED)
+                .order_by(FindingRun.id)
+                .limit(1)
+            )
             if run_id is None:
                 return None
-            taken = db.execute(update(FindingRun).where(FindingRun.id == run_id,
-                                                        FindingRun.status == RUN_QUEUED)
-                               .values(status=RUN_RUNNING, message="finding")
-                               .execution_options(synchronize_session=False))
+            taken = db.execute(
+                update(FindingRun)
+                .where(FindingRun.id == run_id, FindingRun.status == RUN_QUEUED)
+                .values(status=RUN_RUNNING, message="finding")
+                .execution_options(synchronize_session=False)
+            )
             db.commit()
             if getattr(taken, "rowcount", 0) == 1:
                 return int(run_id)
 
 
-def run_now(db: Session, corpus_id: int, *, reason: str, with_annotations: bool = False,
-            options: FinderOptions | None = None) -> FindingRun:
+def run_now(
+    db: Session,
+    corpus_id: int,
+    *,
+    reason: str,
+    with_annotations: bool = False,
+    options: FinderOptions | None = None,
+) -> FindingRun:
     """Run the finder on the corpus in this process, now (the command line), and return the
     finished (or failed) run. Commits."""
-    run = FindingRun(corpus_id=corpus_id, status=RUN_RUNNING, reason=reason,
-                     with_annotations=with_annotations, message="finding", created_at=utcnow())
+    run = FindingRun(
+        corpus_id=corpus_id,
+        status=RUN_RUNNING,
+        reason=reason,
+        with_annotations=with_annotations,
+        message="finding",
+        created_at=utcnow(),
+    )
     db.add(run)
     db.commit()
     run_finder(sessionmaker(bind=db.get_bind()), run.id, options)
@@ -127,10 +166,16 @@ def run_now(db: Session, corpus_id: int, *, reason: str, with_annotations: bool 
 def fail_interrupted_runs(factory: sessionmaker[Session]) -> int:
     """Mark runs left ``running`` by a process that died as failed. Commits."""
     with factory() as db:
-        result = db.execute(update(FindingRun).where(FindingRun.status == RUN_RUNNING)
-                            .values(status=RUN_FAILED, finished_at=utcnow(),
-                                    message="interrupted: the service stopped while it ran")
-                            .execution_options(synchronize_session=False))
+        result = db.execute(
+            update(FindingRun)
+            .where(FindingRun.status == RUN_RUNNING)
+            .values(
+                status=RUN_FAILED,
+                finished_at=utcnow(),
+                message="interrupted: the service stopped while it ran",
+            )
+            .execution_options(synchronize_session=False)
+        )
         db.commit()
         return int(getattr(result, "rowcount", 0) or 0)
 
@@ -152,17 +197,19 @@ class SourceInfo:
     by: str
 
 
-def load_sources(db: Session, corpus_id: int, *, with_annotations: bool
-                 ) -> tuple[list[TreeSource], dict[str, SourceInfo]]:
+def load_sources(
+    db: Session, corpus_id: int, *, with_annotations: bool
+) -> tuple[list[TreeSource], dict[str, SourceInfo]]:
     """The trees a run reads: keys ``g<gold id>`` and ``a<annotation id>``."""
     names = dict(db.execute(select(User.id, User.username)).all())
     sources: list[TreeSource] = []
     info: dict[str, SourceInfo] = {}
-    rows = db.execute(select(Gold.id, Gold.sentence_id, Gold.tree, Gold.provenance,
-                             Gold.adjudicator_id)
-                      .join(Sentence, Sentence.id == Gold.sentence_id)
-                      .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
-                      .order_by(Gold.sentence_id, Gold.id)).all()
+    rows = db.execute(
+        select(Gold.id, Gold.sentence_id, Gold.tree, Gold.provenance, Gold.adjudicator_id)
+        .join(Sentence, Sentence.id == Gold.sentence_id)
+        .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+        .order_by(Gold.sentence_id, Gold.id)
+    ).all()
     for gid, sid, text, provenance, adj in rows:
         tree = drop_empty_elements(read_tree(text))
         if tree is None:
@@ -172,15 +219,20 @@ def load_sources(db: Session, corpus_id: int, *, with_annotations: bool
         by = names.get(adj, "") if adj else ""
         info[key] = SourceInfo("gold", by or provenance)
     if with_annotations:
-        arows = db.execute(select(Annotation.id, Annotation.sentence_id, Annotation.user_id,
-                                  Revision.tree)
-                           .join(Sentence, Sentence.id == Annotation.sentence_id)
-                           .join(Revision, (Revision.annotation_id == Annotation.id)
-                                 & (Revision.number == Annotation.head))
-                           .where(Sentence.corpus_id == corpus_id,
-                                  Sentence.state != SENT_GOLD,
-                                  Annotation.state == ANN_SUBMITTED)
-                           .order_by(Annotation.sentence_id, Annotation.id)).all()
+        arows = db.execute(
+            select(Annotation.id, Annotation.sentence_id, Annotation.user_id, Revision.tree)
+            .join(Sentence, Sentence.id == Annotation.sentence_id)
+            .join(
+                Revision,
+                (Revision.annotation_id == Annotation.id) & (Revision.number == Annotation.head),
+            )
+            .where(
+                Sentence.corpus_id == corpus_id,
+                Sentence.state != SENT_GOLD,
+                Annotation.state == ANN_SUBMITTED,
+            )
+            .order_by(Annotation.sentence_id, Annotation.id)
+        ).all()
         for aid, sid, uid, text in arows:
             tree = drop_empty_elements(read_tree(text))
             if tree is None:
@@ -191,17 +243,20 @@ def load_sources(db: Session, corpus_id: int, *, with_annotations: bool
     return sources, info
 
 
-def run_finder(factory: sessionmaker[Session], run_id: int,
-               options: FinderOptions | None = None) -> None:
+def run_finder(
+    factory: sessionmaker[Session], run_id: int, options: FinderOptions | None = None
+) -> None:
     """Run one claimed run to its end; a failure lands in the row, not in the caller."""
     try:
         _run(factory, run_id, options)
     except Exception as exc:  # noqa: BLE001 - every failure must reach the row
         log.exception("findings run %s failed", run_id)
         with factory() as db:
-            db.execute(update(FindingRun).where(FindingRun.id == run_id)
-                       .values(status=RUN_FAILED, message=f"failed: {exc}"[:2000],
-                               finished_at=utcnow()))
+            db.execute(
+                update(FindingRun)
+                .where(FindingRun.id == run_id)
+                .values(status=RUN_FAILED, message=f"failed: {exc}"[:2000], finished_at=utcnow())
+            )
             db.commit()
 
 
@@ -217,22 +272,50 @@ def _run(factory: sessionmaker[Session], run_id: int, options: FinderOptions | N
             occ = []
             for o in f.occurrences:
                 who = info[str(o.key)]
-                occ.append({"key": o.key, "sentence": o.sentence, "start": o.start,
-                            "end": o.end, "analysis": o.analysis, "source": who.source,
-                            "by": who.by})
-            db.add(FindingRow(run_id=run.id, corpus_id=run.corpus_id, kind=f.kind, key=f.key,
-                              key_hash=key_hash(f.key), rank=rank, score=f.score,
-                              summary=f.summary, occurrences=occ, detail=f.detail))
+                occ.append(
+                    {
+                        "key": o.key,
+                        "sentence": o.sentence,
+                        "start": o.start,
+                        "end": o.end,
+                        "analysis": o.analysis,
+                        "source": who.source,
+                        "by": who.by,
+                    }
+                )
+            db.add(
+                FindingRow(
+                    run_id=run.id,
+                    corpus_id=run.corpus_id,
+                    kind=f.kind,
+                    key=f.key,
+                    key_hash=key_hash(f.key),
+                    rank=rank,
+                    score=f.score,
+                    summary=f.summary,
+                    occurrences=occ,
+                    detail=f.detail,
+                )
+            )
         # older runs' findings are superseded; their runs stay as a record
-        db.execute(delete(FindingRow).where(FindingRow.corpus_id == run.corpus_id,
-                                            FindingRow.run_id != run.id))
+        db.execute(
+            delete(FindingRow).where(
+                FindingRow.corpus_id == run.corpus_id, FindingRow.run_id != run.id
+            )
+        )
         run.status = RUN_DONE
         run.trees = len(sources)
         run.seconds = round(time.perf_counter() - t0, 3)
         run.finished_at = utcnow()
         run.message = f"{len(found)} findings in {len(sources)} trees"
-        db.add(Event(user_id=run.requested_by_id, kind="findings.done",
-                     corpus_id=run.corpus_id, detail={"run": run.id, "findings": len(found)}))
+        db.add(
+            Event(
+                user_id=run.requested_by_id,
+                kind="findings.done",
+                corpus_id=run.corpus_id,
+                detail={"run": run.id, "findings": len(found)},
+            )
+        )
         db.commit()
 
 
@@ -249,13 +332,17 @@ def latest_run(db: Session, corpus_id: int, *, finished: bool = True) -> Finding
 
 def pending_run(db: Session, corpus_id: int) -> FindingRun | None:
     """The corpus's queued or running run, if any."""
-    return db.scalar(select(FindingRun).where(FindingRun.corpus_id == corpus_id,
-                                              FindingRun.status.in_((RUN_QUEUED, RUN_RUNNING)))
-                     .order_by(FindingRun.id).limit(1))
+    return db.scalar(
+        select(FindingRun)
+        .where(FindingRun.corpus_id == corpus_id, FindingRun.status.in_((RUN_QUEUED, RUN_RUNNING)))
+        .order_by(FindingRun.id)
+        .limit(1)
+    )
 
 
-def verdicts_of(db: Session, corpus_id: int, hashes: Sequence[str] | None = None
-                ) -> dict[str, FindingVerdict]:
+def verdicts_of(
+    db: Session, corpus_id: int, hashes: Sequence[str] | None = None
+) -> dict[str, FindingVerdict]:
     """The newest verdict per key hash (of the given hashes, or of every key)."""
     q = select(FindingVerdict).where(FindingVerdict.corpus_id == corpus_id)
     if hashes is not None:
@@ -276,13 +363,20 @@ class FindingEntry:
     occurrences: list[dict[str, Any]]
 
 
-def visible_occurrences(occurrences: list[dict[str, Any]], blind: set[int],
-                        username: str | None) -> list[dict[str, Any]]:
+def visible_occurrences(
+    occurrences: list[dict[str, Any]], blind: set[int], username: str | None
+) -> list[dict[str, Any]]:
     """The occurrences without other annotators' trees of the sentences in ``blind`` (those
     the viewer still annotates)."""
-    return [o for o in occurrences
-            if not (o.get("source") == "annotation" and o.get("sentence") in blind
-                    and o.get("by") != username)]
+    return [
+        o
+        for o in occurrences
+        if not (
+            o.get("source") == "annotation"
+            and o.get("sentence") in blind
+            and o.get("by") != username
+        )
+    ]
 
 
 @dataclass(kw_only=True)
@@ -297,9 +391,16 @@ def _state(v: FindingVerdict | None) -> str:
     return v.verdict if v is not None else STATE_OPEN
 
 
-def finding_page(db: Session, corpus_id: int, *, state: str = STATE_OPEN,
-                 kind: str | None = None, page: int = 1, per_page: int = 25,
-                 viewer: User | None = None) -> FindingPage:
+def finding_page(
+    db: Session,
+    corpus_id: int,
+    *,
+    state: str = STATE_OPEN,
+    kind: str | None = None,
+    page: int = 1,
+    per_page: int = 25,
+    viewer: User | None = None,
+) -> FindingPage:
     """One page of the newest run's findings in the given state, by rank, as ``viewer`` may
     see them (None: everything)."""
     if state not in FINDING_STATES:
@@ -311,14 +412,21 @@ def finding_page(db: Session, corpus_id: int, *, state: str = STATE_OPEN,
     run = latest_run(db, corpus_id)
     pending = pending_run(db, corpus_id)
     if run is None:
-        return FindingPage(run=None, pending=pending, entries=[],
-                           counts=dict.fromkeys(FINDING_STATES, 0), page=page,
-                           per_page=per_page, total=0)
+        return FindingPage(
+            run=None,
+            pending=pending,
+            entries=[],
+            counts=dict.fromkeys(FINDING_STATES, 0),
+            page=page,
+            per_page=per_page,
+            total=0,
+        )
     where: list[Any] = [FindingRow.run_id == run.id]
     if kind:
         where.append(FindingRow.kind == kind)
-    pairs = db.execute(select(FindingRow.id, FindingRow.key_hash).where(*where)
-                       .order_by(FindingRow.rank)).all()
+    pairs = db.execute(
+        select(FindingRow.id, FindingRow.key_hash).where(*where).order_by(FindingRow.rank)
+    ).all()
     verdicts = verdicts_of(db, corpus_id)
     counts = dict.fromkeys(FINDING_STATES, 0)
     chosen: list[int] = []
@@ -327,24 +435,45 @@ def finding_page(db: Session, corpus_id: int, *, state: str = STATE_OPEN,
         counts[s] += 1
         if s == state:
             chosen.append(fid)
-    window = chosen[(page - 1) * per_page: page * per_page]
+    window = chosen[(page - 1) * per_page : page * per_page]
     rows = {r.id: r for r in db.scalars(select(FindingRow).where(FindingRow.id.in_(window)))}
     names = dict(db.execute(select(User.id, User.username)).all())
     blind: set[int] = set()
     if viewer is not None:
-        blind = unfinished_sentences(db, viewer, {
-            o["sentence"] for fid in window for o in rows[fid].occurrences
-            if o.get("source") == "annotation"})
+        blind = unfinished_sentences(
+            db,
+            viewer,
+            {
+                o["sentence"]
+                for fid in window
+                for o in rows[fid].occurrences
+                if o.get("source") == "annotation"
+            },
+        )
     entries = []
     for fid in window:
         row = rows[fid]
         v = verdicts.get(row.key_hash)
-        entries.append(FindingEntry(row, _state(v), v,
-                                    names.get(v.user_id, "") if v and v.user_id else "",
-                                    visible_occurrences(list(row.occurrences), blind,
-                                                        viewer.username if viewer else None)))
-    return FindingPage(run=run, pending=pending, entries=entries, counts=counts, page=page,
-                       per_page=per_page, total=len(chosen))
+        entries.append(
+            FindingEntry(
+                row,
+                _state(v),
+                v,
+                names.get(v.user_id, "") if v and v.user_id else "",
+                visible_occurrences(
+                    list(row.occurrences), blind, viewer.username if viewer else None
+                ),
+            )
+        )
+    return FindingPage(
+        run=run,
+        pending=pending,
+        entries=entries,
+        counts=counts,
+        page=page,
+        per_page=per_page,
+        total=len(chosen),
+    )
 
 
 def get_finding(db: Session, finding_id: int, corpus_id: int | None = None) -> FindingRow:
@@ -358,5 +487,9 @@ def sentence_words(db: Session, sentence_ids: Sequence[int]) -> dict[int, list[s
     """Tokens of the sentences a page of findings names."""
     if not sentence_ids:
         return {}
-    return {sid: list(toks) for sid, toks in db.execute(
-        select(Sentence.id, Sentence.tokens).where(Sentence.id.in_(list(set(sentence_ids)))))}
+    return {
+        sid: list(toks)
+        for sid, toks in db.execute(
+            select(Sentence.id, Sentence.tokens).where(Sentence.id.in_(list(set(sentence_ids))))
+        )
+    }

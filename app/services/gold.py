@@ -49,16 +49,20 @@ def current_revision(db: Session, annotation: Annotation | None) -> Revision | N
     """The annotation's newest revision (number == head); None before its first save."""
     if annotation is None or annotation.head == 0:
         return None
-    return db.scalar(select(Revision).where(Revision.annotation_id == annotation.id,
-                                            Revision.number == annotation.head))
+    return db.scalar(
+        select(Revision).where(
+            Revision.annotation_id == annotation.id, Revision.number == annotation.head
+        )
+    )
 
 
 def _retire(db: Session, sentence_id: int, by_id: int | None) -> list[int]:
     """Retire every current gold row of the sentence; their ids."""
     now = utcnow()
     retired = []
-    for old in db.scalars(select(Gold).where(Gold.sentence_id == sentence_id,
-                                             Gold.retired_at.is_(None))).all():
+    for old in db.scalars(
+        select(Gold).where(Gold.sentence_id == sentence_id, Gold.retired_at.is_(None))
+    ).all():
         old.retired_at = now
         old.retired_by_id = by_id
         retired.append(old.id)
@@ -68,18 +72,35 @@ def _retire(db: Session, sentence_id: int, by_id: int | None) -> list[int]:
 def annotator_notes(db: Session, sentence_id: int) -> list[dict[str, Any]]:
     """The notes for the adjudicator on the sentence's annotations (empty notes left out), in
     annotation order: ``{"annotation_id", "annotator", "note", "flag"}``."""
-    rows = db.execute(select(Annotation, User.username, User.display_name)
-                      .join(User, User.id == Annotation.user_id)
-                      .where(Annotation.sentence_id == sentence_id)
-                      .order_by(Annotation.id)).all()
-    return [{"annotation_id": a.id, "annotator": dname or uname, "note": a.comment.strip(),
-             "flag": a.flag}
-            for a, uname, dname in rows if (a.comment or "").strip()]
+    rows = db.execute(
+        select(Annotation, User.username, User.display_name)
+        .join(User, User.id == Annotation.user_id)
+        .where(Annotation.sentence_id == sentence_id)
+        .order_by(Annotation.id)
+    ).all()
+    return [
+        {
+            "annotation_id": a.id,
+            "annotator": dname or uname,
+            "note": a.comment.strip(),
+            "flag": a.flag,
+        }
+        for a, uname, dname in rows
+        if (a.comment or "").strip()
+    ]
 
 
-def make_gold(db: Session, sentence: Sentence, tree_text: str, *, provenance: str,
-              adjudicator_id: int | None = None, source_annotation_id: int | None = None,
-              note: str = "", own_annotation: bool = False) -> Gold:
+def make_gold(
+    db: Session,
+    sentence: Sentence,
+    tree_text: str,
+    *,
+    provenance: str,
+    adjudicator_id: int | None = None,
+    source_annotation_id: int | None = None,
+    note: str = "",
+    own_annotation: bool = False,
+) -> Gold:
     """Store ``tree_text`` as the sentence's gold and mark the sentence gold, keeping with it
     the annotators' notes of this moment (:func:`annotator_notes`) and whether the
     adjudicator had annotated the sentence (``own_annotation``).
@@ -88,10 +109,17 @@ def make_gold(db: Session, sentence: Sentence, tree_text: str, *, provenance: st
     is at most one current gold tree. A step of a larger workflow: flushes, does not commit.
     """
     _retire(db, sentence.id, adjudicator_id)
-    gold = Gold(sentence_id=sentence.id, tree=tree_text, provenance=provenance,
-                adjudicator_id=adjudicator_id, source_annotation_id=source_annotation_id,
-                note=note, annotator_notes=annotator_notes(db, sentence.id),
-                own_annotation=own_annotation, created_at=utcnow())
+    gold = Gold(
+        sentence_id=sentence.id,
+        tree=tree_text,
+        provenance=provenance,
+        adjudicator_id=adjudicator_id,
+        source_annotation_id=source_annotation_id,
+        note=note,
+        annotator_notes=annotator_notes(db, sentence.id),
+        own_annotation=own_annotation,
+        created_at=utcnow(),
+    )
     db.add(gold)
     sentence.state = SENT_GOLD
     db.flush()
@@ -109,8 +137,9 @@ def check_note(note: str | None) -> str:
     """An adjudicator's note, stripped; BadInput when it is too long."""
     note = (note or "").strip()
     if len(note) > MAX_NOTE_CHARS:
-        raise BadInput(f"the note is {len(note)} characters long; the limit is "
-                       f"{MAX_NOTE_CHARS}", kind="note")
+        raise BadInput(
+            f"the note is {len(note)} characters long; the limit is {MAX_NOTE_CHARS}", kind="note"
+        )
     return note
 
 
@@ -122,8 +151,14 @@ def reopen(db: Session, sentence_id: int, user: User, *, note: str | None = None
     return sentence
 
 
-def reopen_step(db: Session, sentence_id: int, user: User, *, note: str | None = None,
-                detail: dict[str, Any] | None = None) -> Sentence:
+def reopen_step(
+    db: Session,
+    sentence_id: int,
+    user: User,
+    *,
+    note: str | None = None,
+    detail: dict[str, Any] | None = None,
+) -> Sentence:
     """:func:`reopen` as a step of a larger workflow: flushes, does not commit (on a race it
     raises Conflict and the caller rolls back). ``detail`` adds to the event's detail."""
     sentence = db.get(Sentence, sentence_id)
@@ -131,19 +166,30 @@ def reopen_step(db: Session, sentence_id: int, user: User, *, note: str | None =
         raise NotFound(f"no sentence with id {sentence_id}")
     note = check_note(note)
     if sentence.state != SENT_GOLD:
-        raise Conflict(f"sentence {sentence_id} is {sentence.state}, not gold; only a settled "
-                       "sentence can be reopened", state=sentence.state)
-    moved = db.execute(update(Sentence).where(Sentence.id == sentence.id,
-                                              Sentence.state == SENT_GOLD)
-                       .values(state=SENT_IN_REVIEW)
-                       .execution_options(synchronize_session=False))
+        raise Conflict(
+            f"sentence {sentence_id} is {sentence.state}, not gold; only a settled "
+            "sentence can be reopened",
+            state=sentence.state,
+        )
+    moved = db.execute(
+        update(Sentence)
+        .where(Sentence.id == sentence.id, Sentence.state == SENT_GOLD)
+        .values(state=SENT_IN_REVIEW)
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence_id} changed meanwhile; reload it")
     db.expire(sentence, ["state"])
     retired = _retire(db, sentence.id, user.id)
-    db.add(Event(user_id=user.id, kind="gold.reopened", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id,
-                 detail={"retired": retired, "note": note, **(detail or {})}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind="gold.reopened",
+            corpus_id=sentence.corpus_id,
+            sentence_id=sentence.id,
+            detail={"retired": retired, "note": note, **(detail or {})},
+        )
+    )
     db.flush()
     return sentence

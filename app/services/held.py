@@ -86,37 +86,42 @@ def token_fix_link(sentence_id: int) -> str | None:
     return TOKEN_FIX_PATH.format(sentence_id) if TOKEN_FIX_PATH else None
 
 
-def held_back_list(db: Session, corpus_id: int | None = None, *,
-                   limit: int = 500) -> list[HeldRow]:
+def held_back_list(db: Session, corpus_id: int | None = None, *, limit: int = 500) -> list[HeldRow]:
     """Held-back sentences (longest held first) with every hold on each."""
     where = [Sentence.state == SENT_HELD_BACK]
     if corpus_id is not None:
         where.append(Sentence.corpus_id == corpus_id)
     rows = db.execute(
-        select(Sentence, Corpus.name, Document.name, Annotation, User.username,
-               User.display_name)
+        select(Sentence, Corpus.name, Document.name, Annotation, User.username, User.display_name)
         .join(Corpus, Corpus.id == Sentence.corpus_id)
         .join(Document, Document.id == Sentence.document_id)
-        .outerjoin(Annotation, (Annotation.sentence_id == Sentence.id)
-                   & (Annotation.state == ANN_FLAGGED))
+        .outerjoin(
+            Annotation, (Annotation.sentence_id == Sentence.id) & (Annotation.state == ANN_FLAGGED)
+        )
         .outerjoin(User, User.id == Annotation.user_id)
-        .where(*where).order_by(Sentence.id, Annotation.id)).all()
+        .where(*where)
+        .order_by(Sentence.id, Annotation.id)
+    ).all()
     found: dict[int, tuple[Sentence, str, str, list[Hold]]] = {}
     for sentence, cname, dname, ann, uname, dispname in rows:
         entry = found.setdefault(sentence.id, (sentence, cname, dname, []))
         if ann is not None:
-            entry[3].append(Hold(dispname or uname or "?", ann.flag or "", ann.comment or "",
-                                 ann.updated_at))
+            entry[3].append(
+                Hold(dispname or uname or "?", ann.flag or "", ann.comment or "", ann.updated_at)
+            )
     who: dict[int, list[str]] = {}
     if found:
-        for sid, username in db.execute(select(Assignment.sentence_id, User.username)
-                                        .join(User, User.id == Assignment.user_id)
-                                        .where(Assignment.sentence_id.in_(list(found)))
-                                        .order_by(User.username)):
+        for sid, username in db.execute(
+            select(Assignment.sentence_id, User.username)
+            .join(User, User.id == Assignment.user_id)
+            .where(Assignment.sentence_id.in_(list(found)))
+            .order_by(User.username)
+        ):
             who.setdefault(sid, []).append(username)
-    out = [HeldRow(s.id, s.corpus_id, cname, dname, s.position, s.text, holds,
-                   who.get(s.id, []))
-           for s, cname, dname, holds in found.values()]
+    out = [
+        HeldRow(s.id, s.corpus_id, cname, dname, s.position, s.text, holds, who.get(s.id, []))
+        for s, cname, dname, holds in found.values()
+    ]
     out.sort(key=lambda r: min((h.since for h in r.holds), default=datetime.max))
     return out[:limit]
 
@@ -129,42 +134,62 @@ class DroppedRow:
     text: str
 
 
-def dropped_list(db: Session, corpus_id: int | None = None, *,
-                 limit: int = 200) -> list[DroppedRow]:
+def dropped_list(
+    db: Session, corpus_id: int | None = None, *, limit: int = 200
+) -> list[DroppedRow]:
     """Dropped sentences (of one corpus, or all), oldest first."""
     where = [Sentence.state == SENT_DROPPED]
     if corpus_id is not None:
         where.append(Sentence.corpus_id == corpus_id)
-    rows = db.execute(select(Sentence, Document.name)
-                      .join(Document, Document.id == Sentence.document_id)
-                      .where(*where).order_by(Sentence.id).limit(limit)).all()
+    rows = db.execute(
+        select(Sentence, Document.name)
+        .join(Document, Document.id == Sentence.document_id)
+        .where(*where)
+        .order_by(Sentence.id)
+        .limit(limit)
+    ).all()
     return [DroppedRow(s.id, dname, s.position, s.text) for s, dname in rows]
 
 
 def open_state(db: Session, sentence_id: int) -> str:
     """``in_progress`` when someone saved a tree of the sentence, else ``queued``."""
-    started = db.scalar(select(Annotation.id).where(Annotation.sentence_id == sentence_id,
-                                                    Annotation.head > 0).limit(1))
+    started = db.scalar(
+        select(Annotation.id)
+        .where(Annotation.sentence_id == sentence_id, Annotation.head > 0)
+        .limit(1)
+    )
     return SENT_IN_PROGRESS if started is not None else SENT_QUEUED
 
 
 def still_held(db: Session, sentence_id: int) -> bool:
-    return db.scalar(select(Annotation.id).where(Annotation.sentence_id == sentence_id,
-                                                 Annotation.state == ANN_FLAGGED)
-                     .limit(1)) is not None
+    return (
+        db.scalar(
+            select(Annotation.id)
+            .where(Annotation.sentence_id == sentence_id, Annotation.state == ANN_FLAGGED)
+            .limit(1)
+        )
+        is not None
+    )
 
 
-def _move(db: Session, sentence: Sentence, allowed: tuple[str, ...], new_state: str,
-          what: str) -> str:
+def _move(
+    db: Session, sentence: Sentence, allowed: tuple[str, ...], new_state: str, what: str
+) -> str:
     """Compare-and-set the sentence's state from one of ``allowed``; return the old one."""
     old = sentence.state
     if old not in allowed:
-        raise Conflict(f"sentence {sentence.id} is {old.replace('_', ' ')}; only a "
-                       f"{' or '.join(s.replace('_', ' ') for s in allowed)} sentence can be "
-                       f"{what}", state=old)
-    moved = db.execute(update(Sentence).where(Sentence.id == sentence.id,
-                                              Sentence.state == old)
-                       .values(state=new_state).execution_options(synchronize_session=False))
+        raise Conflict(
+            f"sentence {sentence.id} is {old.replace('_', ' ')}; only a "
+            f"{' or '.join(s.replace('_', ' ') for s in allowed)} sentence can be "
+            f"{what}",
+            state=old,
+        )
+    moved = db.execute(
+        update(Sentence)
+        .where(Sentence.id == sentence.id, Sentence.state == old)
+        .values(state=new_state)
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence.id} changed meanwhile; reload it")
@@ -185,14 +210,24 @@ def release(db: Session, sentence_id: int, user: User, *, note: str | None = Non
     _move(db, sentence, (SENT_HELD_BACK,), open_state(db, sentence.id), "released")
     lifted = []
     now = utcnow()
-    for ann in db.scalars(select(Annotation).where(Annotation.sentence_id == sentence.id,
-                                                   Annotation.state == ANN_FLAGGED)).all():
+    for ann in db.scalars(
+        select(Annotation).where(
+            Annotation.sentence_id == sentence.id, Annotation.state == ANN_FLAGGED
+        )
+    ).all():
         lifted.append({"annotation_id": ann.id, "reason": ann.flag})
         ann.state = ANN_DRAFT
         ann.flag = None
         ann.updated_at = now
-    db.add(Event(user_id=user.id, kind="sentence.released", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"holds": lifted, "note": note}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind="sentence.released",
+            corpus_id=sentence.corpus_id,
+            sentence_id=sentence.id,
+            detail={"holds": lifted, "note": note},
+        )
+    )
     db.commit()
     db.refresh(sentence)
     return sentence
@@ -203,8 +238,15 @@ def drop(db: Session, sentence_id: int, user: User, *, note: str | None = None) 
     sentence = _sentence(db, sentence_id)
     note = check_note(note)
     old = _move(db, sentence, DROPPABLE, SENT_DROPPED, "dropped")
-    db.add(Event(user_id=user.id, kind="sentence.dropped", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"from": old, "note": note}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind="sentence.dropped",
+            corpus_id=sentence.corpus_id,
+            sentence_id=sentence.id,
+            detail={"from": old, "note": note},
+        )
+    )
     db.commit()
     db.refresh(sentence)
     return sentence
@@ -216,8 +258,15 @@ def restore(db: Session, sentence_id: int, user: User, *, note: str | None = Non
     note = check_note(note)
     new_state = SENT_HELD_BACK if still_held(db, sentence.id) else open_state(db, sentence.id)
     _move(db, sentence, (SENT_DROPPED,), new_state, "restored")
-    db.add(Event(user_id=user.id, kind="sentence.restored", corpus_id=sentence.corpus_id,
-                 sentence_id=sentence.id, detail={"to": new_state, "note": note}))
+    db.add(
+        Event(
+            user_id=user.id,
+            kind="sentence.restored",
+            corpus_id=sentence.corpus_id,
+            sentence_id=sentence.id,
+            detail={"to": new_state, "note": note},
+        )
+    )
     db.commit()
     db.refresh(sentence)
     return sentence

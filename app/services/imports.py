@@ -96,8 +96,9 @@ Progress = Callable[[int, int], None]
 class ImportFailed(BadInput):
     """A file that cannot be imported; ``line``/``column`` locate the problem when known."""
 
-    def __init__(self, detail: str, *, source: str, line: int | None = None,
-                 column: int | None = None) -> None:
+    def __init__(
+        self, detail: str, *, source: str, line: int | None = None, column: int | None = None
+    ) -> None:
         where = source
         if line is not None:
             where += f", line {line}"
@@ -122,8 +123,10 @@ class Duplicate:
     def describe(self) -> str:
         if self.same_as_line is not None:
             return f"line {self.line} repeats line {self.same_as_line}: {self.text}"
-        return (f"line {self.line} repeats sentence {self.same_as_sentence_id} of document "
-                f"{self.same_as_document!r}: {self.text}")
+        return (
+            f"line {self.line} repeats sentence {self.same_as_sentence_id} of document "
+            f"{self.same_as_document!r}: {self.text}"
+        )
 
 
 @dataclass
@@ -146,14 +149,17 @@ class ImportResult:
     event_id: int | None = None
 
     def summary(self) -> str:
-        parts = [f"{plural(self.imported, 'sentence')} imported into {self.corpus_name!r} / "
-                 f"{self.document_name!r} as {self.kind}"]
+        parts = [
+            f"{plural(self.imported, 'sentence')} imported into {self.corpus_name!r} / "
+            f"{self.document_name!r} as {self.kind}"
+        ]
         if self.attached:
             parts.append(f"{self.attached} attached to existing sentences")
         if self.duplicates:
-            parts.append(plural(len(self.duplicates), "duplicate")
-                         + (f", {self.skipped_duplicates} skipped" if self.skipped_duplicates
-                            else ""))
+            parts.append(
+                plural(len(self.duplicates), "duplicate")
+                + (f", {self.skipped_duplicates} skipped" if self.skipped_duplicates else "")
+            )
         if self.empty_elements_dropped:
             parts.append(f"{plural(self.empty_elements_dropped, 'empty element')} removed")
         return "; ".join(parts)
@@ -183,7 +189,10 @@ def decode(data: bytes, source: str) -> str:
         raise ImportFailed(
             f"the file is not UTF-8 text: byte 0x{data[err.start]:02X} at byte offset "
             f"{err.start} (byte {column} of the line) cannot be decoded; save the file as "
-            f"UTF-8 and import it again", source=source, line=line) from None
+            f"UTF-8 and import it again",
+            source=source,
+            line=line,
+        ) from None
     if text.startswith("\ufeff"):
         text = text[1:]
     if not text.strip():
@@ -205,20 +214,28 @@ def _tokenizer(name: str) -> Callable[[str], list[str]]:
 
 def _check_length(tokens: Sequence[str], source: str, line: int) -> None:
     if len(tokens) > MAX_TOKENS:
-        raise ImportFailed(f"{len(tokens)} tokens; a sentence has at most {MAX_TOKENS} (is it "
-                           f"a paragraph that needs splitting into sentences?)",
-                           source=source, line=line)
+        raise ImportFailed(
+            f"{len(tokens)} tokens; a sentence has at most {MAX_TOKENS} (is it "
+            f"a paragraph that needs splitting into sentences?)",
+            source=source,
+            line=line,
+        )
 
 
-def text_item(number: int, line: str, split: Callable[[str], list[str]],
-              source: str) -> _Item | None:
+def text_item(
+    number: int, line: str, split: Callable[[str], list[str]], source: str
+) -> _Item | None:
     """The sentence of one plain-text line (``number`` from 1); None for a blank line."""
     stripped = line.strip()
     if not stripped:
         return None
     if "\x00" in stripped:
-        raise ImportFailed("the line holds a NUL character (is this a binary file?)",
-                           source=source, line=number, column=line.index("\x00") + 1)
+        raise ImportFailed(
+            "the line holds a NUL character (is this a binary file?)",
+            source=source,
+            line=number,
+            column=line.index("\x00") + 1,
+        )
     tokens = [escape_word(tok) for tok in split(stripped)]
     if not tokens:
         return None
@@ -226,8 +243,9 @@ def text_item(number: int, line: str, split: Callable[[str], list[str]],
     return _Item(line=number, tokens=tokens, text=" ".join(stripped.split()))
 
 
-def read_text_items(text: str, source: str, tokenizer: str = "whitespace"
-                    ) -> tuple[list[_Item], int]:
+def read_text_items(
+    text: str, source: str, tokenizer: str = "whitespace"
+) -> tuple[list[_Item], int]:
     """Sentences of a plain-text file and the number of blank lines skipped."""
     split = _tokenizer(tokenizer)
     items: list[_Item] = []
@@ -270,8 +288,12 @@ def chunk_lines(lines: Iterable[str]) -> Iterator[tuple[int, str]]:
 
 def _check_tree(tree: Tree, source: str, line: int) -> None:
     if is_preterminal(tree):
-        raise ImportFailed(f"the tree {tree} is a single POS bracket; a sentence tree needs a "
-                           f"phrase above its words", source=source, line=line)
+        raise ImportFailed(
+            f"the tree {tree} is a single POS bracket; a sentence tree needs a "
+            f"phrase above its words",
+            source=source,
+            line=line,
+        )
 
 
 def read_tree_items(text: str, source: str) -> tuple[list[_Item], int, set[str], set[str]]:
@@ -293,8 +315,9 @@ def read_tree_items(text: str, source: str) -> tuple[list[_Item], int, set[str],
     return items, dropped, labels, tags
 
 
-def tree_chunk_items(offset: int, chunk: str, source: str
-                     ) -> tuple[list[_Item], int, set[str], set[str]]:
+def tree_chunk_items(
+    offset: int, chunk: str, source: str
+) -> tuple[list[_Item], int, set[str], set[str]]:
     """The trees of one balanced piece (see :func:`chunk_lines`), the empty elements dropped
     from them and their labels and tags."""
     items: list[_Item] = []
@@ -309,30 +332,39 @@ def tree_chunk_items(offset: int, chunk: str, source: str
             first = text_lines(chunk)[0]
             raise ImportFailed(
                 "the tree that begins here is never closed: ')' is missing (the file ends "
-                "with brackets still open)", source=source, line=offset + 1,
-                column=first.index("(") + 1 if "(" in first else 1) from None
-        raise ImportFailed(f"{err.message}" + (f" (expected {err.expected})"
-                                               if err.expected else ""),
-                           source=source, line=err.line + offset, column=err.column) from None
+                "with brackets still open)",
+                source=source,
+                line=offset + 1,
+                column=first.index("(") + 1 if "(" in first else 1,
+            ) from None
+        raise ImportFailed(
+            f"{err.message}" + (f" (expected {err.expected})" if err.expected else ""),
+            source=source,
+            line=err.line + offset,
+            column=err.column,
+        ) from None
     first_line = offset + 1  # chunks start at a non-blank line
     for tree in trees:
         _check_tree(tree, source, first_line)
         before = len(tree.leaves())
         cleaned = drop_empty_elements(tree)
         if cleaned is None:
-            raise ImportFailed("the tree holds only empty elements (-NONE-), no words",
-                               source=source, line=first_line)
+            raise ImportFailed(
+                "the tree holds only empty elements (-NONE-), no words",
+                source=source,
+                line=first_line,
+            )
         dropped += before - len(cleaned.leaves())
         tokens = cleaned.leaves()
         _check_length(tokens, source, first_line)
         try:
             stored = write_tree(cleaned)
         except TreeError as err:
-            raise ImportFailed(f"the tree cannot be stored: {err}", source=source,
-                               line=first_line) from None
+            raise ImportFailed(
+                f"the tree cannot be stored: {err}", source=source, line=first_line
+            ) from None
         kept.append(cleaned)
-        items.append(_Item(line=first_line, tokens=tokens, text=" ".join(tokens),
-                           tree=stored))
+        items.append(_Item(line=first_line, tokens=tokens, text=" ".join(tokens), tree=stored))
     labels, tags = tree_inventory(kept)
     return items, dropped, labels, tags
 
@@ -348,15 +380,19 @@ class DuplicateCheck:
     where a streamed file must not hold every sentence). Call the check once per item, in
     file order: it answers the Duplicate the item is, or None for a first occurrence."""
 
-    def __init__(self, db: Session, corpus: Corpus | None,
-                 key: Callable[[list[str]], Hashable]) -> None:
+    def __init__(
+        self, db: Session, corpus: Corpus | None, key: Callable[[list[str]], Hashable]
+    ) -> None:
         self.key = key
         self.existing: dict[Hashable, tuple[int, str]] = {}
         self.seen: dict[Hashable, int] = {}
         if corpus is not None and corpus.id is not None:
-            rows = db.execute(select(Sentence.id, Sentence.tokens, Document.name)
-                              .join(Document, Document.id == Sentence.document_id)
-                              .where(Sentence.corpus_id == corpus.id).order_by(Sentence.id))
+            rows = db.execute(
+                select(Sentence.id, Sentence.tokens, Document.name)
+                .join(Document, Document.id == Sentence.document_id)
+                .where(Sentence.corpus_id == corpus.id)
+                .order_by(Sentence.id)
+            )
             for sid, tokens, doc_name in rows:
                 self.existing.setdefault(key(list(tokens)), (sid, doc_name))
 
@@ -366,14 +402,16 @@ class DuplicateCheck:
             return Duplicate(item.line, item.text, same_as_line=self.seen[key])
         if key in self.existing:
             sid, doc_name = self.existing[key]
-            return Duplicate(item.line, item.text, same_as_sentence_id=sid,
-                             same_as_document=doc_name)
+            return Duplicate(
+                item.line, item.text, same_as_sentence_id=sid, same_as_document=doc_name
+            )
         self.seen[key] = item.line
         return None
 
 
-def _find_duplicates(db: Session, corpus: Corpus | None, items: list[_Item]
-                     ) -> tuple[list[Duplicate], set[int]]:
+def _find_duplicates(
+    db: Session, corpus: Corpus | None, items: list[_Item]
+) -> tuple[list[Duplicate], set[int]]:
     """Duplicates within the file and against the corpus; the set holds their item indexes."""
     check = DuplicateCheck(db, corpus, tuple)
     dups: list[Duplicate] = []
@@ -386,12 +424,14 @@ def _find_duplicates(db: Session, corpus: Corpus | None, items: list[_Item]
 
 
 def _document(db: Session, corpus: Corpus, name: str) -> tuple[Document, bool]:
-    doc = db.scalar(select(Document).where(Document.corpus_id == corpus.id,
-                                           Document.name == name))
+    doc = db.scalar(select(Document).where(Document.corpus_id == corpus.id, Document.name == name))
     if doc is not None:
         return doc, False
-    last = db.scalar(select(func.coalesce(func.max(Document.position), -1))
-                     .where(Document.corpus_id == corpus.id))
+    last = db.scalar(
+        select(func.coalesce(func.max(Document.position), -1)).where(
+            Document.corpus_id == corpus.id
+        )
+    )
     position = int(last) + 1 if last is not None else 0
     doc = Document(corpus_id=corpus.id, name=name, position=position)
     db.add(doc)
@@ -410,12 +450,22 @@ def _annotator(db: Session, username: str | None) -> User:
     return user
 
 
-def import_bytes(db: Session, data: bytes, *, source: str, corpus_name: str,
-                 document_name: str | None = None, kind: str = "text",
-                 tokenizer: str = "whitespace", annotator: str | None = None,
-                 skip_duplicates: bool = False, create_corpus_if_missing: bool = True,
-                 user: User | None = None, progress: Progress | None = None,
-                 commit: bool = True) -> ImportResult:
+def import_bytes(
+    db: Session,
+    data: bytes,
+    *,
+    source: str,
+    corpus_name: str,
+    document_name: str | None = None,
+    kind: str = "text",
+    tokenizer: str = "whitespace",
+    annotator: str | None = None,
+    skip_duplicates: bool = False,
+    create_corpus_if_missing: bool = True,
+    user: User | None = None,
+    progress: Progress | None = None,
+    commit: bool = True,
+) -> ImportResult:
     """Import one file's bytes. Everything is checked first, then written in one transaction.
 
     On any error the session is rolled back and the exception propagates: nothing of the file
@@ -436,10 +486,21 @@ def import_bytes(db: Session, data: bytes, *, source: str, corpus_name: str,
     if not items:
         raise ImportFailed("no sentences found", source=source)
     try:
-        result = _store(db, items, source=source, corpus_name=corpus_name,
-                        document_name=document_name, kind=kind, annotator=annotator,
-                        skip_duplicates=skip_duplicates, create=create_corpus_if_missing,
-                        user=user, progress=progress, labels=labels, tags=tags)
+        result = _store(
+            db,
+            items,
+            source=source,
+            corpus_name=corpus_name,
+            document_name=document_name,
+            kind=kind,
+            annotator=annotator,
+            skip_duplicates=skip_duplicates,
+            create=create_corpus_if_missing,
+            user=user,
+            progress=progress,
+            labels=labels,
+            tags=tags,
+        )
         result.blank_lines = blank
         result.empty_elements_dropped = dropped
         if commit:
@@ -460,10 +521,22 @@ def import_file(db: Session, path: Path, **options: Any) -> ImportResult:
     return import_bytes(db, data, source=path.name, **options)
 
 
-def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
-           document_name: str, kind: str, annotator: str | None, skip_duplicates: bool,
-           create: bool, user: User | None, progress: Progress | None,
-           labels: set[str], tags: set[str]) -> ImportResult:
+def _store(
+    db: Session,
+    items: list[_Item],
+    *,
+    source: str,
+    corpus_name: str,
+    document_name: str,
+    kind: str,
+    annotator: str | None,
+    skip_duplicates: bool,
+    create: bool,
+    user: User | None,
+    progress: Progress | None,
+    labels: set[str],
+    tags: set[str],
+) -> ImportResult:
     ann_user = _annotator(db, annotator) if kind == "annotation" else None
     corpus = corpus_by_name(db, corpus_name)
     corpus_created = False
@@ -473,14 +546,22 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
         corpus = create_corpus.step(db, corpus_name, user=user)
         corpus_created = True
     doc, doc_created = _document(db, corpus, document_name)
-    result = ImportResult(corpus_id=corpus.id, corpus_name=corpus.name, document_id=doc.id,
-                          document_name=doc.name, kind=kind, source=source,
-                          corpus_created=corpus_created, document_created=doc_created)
+    result = ImportResult(
+        corpus_id=corpus.id,
+        corpus_name=corpus.name,
+        document_id=doc.id,
+        document_name=doc.name,
+        kind=kind,
+        source=source,
+        corpus_created=corpus_created,
+        document_created=doc_created,
+    )
     attach: dict[int, Sentence] = {}
     if ann_user is not None:
         attach = _attachable(db, doc, ann_user, items)
-    dups, dup_indexes = _find_duplicates(db, corpus, [it for i, it in enumerate(items)
-                                                      if i not in attach])
+    dups, dup_indexes = _find_duplicates(
+        db, corpus, [it for i, it in enumerate(items) if i not in attach]
+    )
     # _find_duplicates saw the list without attached items; map its indexes back
     unattached = [i for i in range(len(items)) if i not in attach]
     dup_items = {unattached[i] for i in dup_indexes}
@@ -488,8 +569,9 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
     if kind != "text":
         absorb_tree_inventory(corpus, labels, tags)
 
-    position = db.scalar(select(func.coalesce(func.max(Sentence.position), -1))
-                         .where(Sentence.document_id == doc.id))
+    position = db.scalar(
+        select(func.coalesce(func.max(Sentence.position), -1)).where(Sentence.document_id == doc.id)
+    )
     next_position = (position if position is not None else -1) + 1
     total = len(items)
     now = utcnow()
@@ -503,8 +585,15 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
             result.attached += 1
             continue
         state = {"text": SENT_QUEUED, "gold": SENT_GOLD, "annotation": SENT_IN_PROGRESS}[kind]
-        sentence = Sentence(corpus_id=corpus.id, document_id=doc.id, position=next_position,
-                            tokens=item.tokens, text=item.text, state=state, created_at=now)
+        sentence = Sentence(
+            corpus_id=corpus.id,
+            document_id=doc.id,
+            position=next_position,
+            tokens=item.tokens,
+            text=item.text,
+            state=state,
+            created_at=now,
+        )
         next_position += 1
         pending.append((item, sentence, True))
     # Rows are written in batches: sentences first (one flush gives them ids), then the rows
@@ -512,17 +601,23 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
     fresh = [sentence for _, sentence, new in pending if new]
     result.imported = len(fresh)
     for start in range(0, len(fresh), BATCH):
-        db.add_all(fresh[start:start + BATCH])
+        db.add_all(fresh[start : start + BATCH])
         db.flush()
         if progress:
             progress(min(start + BATCH, len(fresh)), total)
     if kind == "gold":
-        db.add_all(Gold(sentence_id=sentence.id, tree=item.tree, provenance="import",
-                        note=f"imported from {source}, line {item.line}", created_at=now)
-                   for item, sentence, _ in pending)
+        db.add_all(
+            Gold(
+                sentence_id=sentence.id,
+                tree=item.tree,
+                provenance="import",
+                note=f"imported from {source}, line {item.line}",
+                created_at=now,
+            )
+            for item, sentence, _ in pending
+        )
     elif ann_user is not None:
-        _add_annotations(db, [(item, sentence) for item, sentence, _ in pending], ann_user,
-                         now)
+        _add_annotations(db, [(item, sentence) for item, sentence, _ in pending], ann_user, now)
     db.flush()
     if kind == "annotation":
         _route_complete(db, corpus, [sentence for _, sentence, _ in pending])
@@ -530,14 +625,23 @@ def _store(db: Session, items: list[_Item], *, source: str, corpus_name: str,
         gold_added(db, corpus)  # the gold loop counts seed gold too
     if progress:
         progress(total, total)
-    event = Event(user_id=user.id if user else None, kind="import", corpus_id=corpus.id,
-                  detail={"source": source, "document": doc.name, "kind": kind,
-                          "imported": result.imported, "attached": result.attached,
-                          "duplicates": len(dups), "annotator": annotator,
-                          "summary": result.summary(),
-                          "skipped_duplicates": result.skipped_duplicates,
-                          "duplicate_lines": [d.describe()
-                                              for d in result.duplicates[:REPORT_DUPLICATES]]})
+    event = Event(
+        user_id=user.id if user else None,
+        kind="import",
+        corpus_id=corpus.id,
+        detail={
+            "source": source,
+            "document": doc.name,
+            "kind": kind,
+            "imported": result.imported,
+            "attached": result.attached,
+            "duplicates": len(dups),
+            "annotator": annotator,
+            "summary": result.summary(),
+            "skipped_duplicates": result.skipped_duplicates,
+            "duplicate_lines": [d.describe() for d in result.duplicates[:REPORT_DUPLICATES]],
+        },
+    )
     db.add(event)
     db.flush()
     result.event_id = event.id
@@ -567,21 +671,33 @@ def import_report(db: Session, event_id: int) -> ImportReport:
     if event is None or event.kind != "import" or "summary" not in (event.detail or {}):
         raise NotFound(f"no import report {event_id}")
     d = event.detail
-    return ImportReport(event.corpus_id, str(d.get("kind", "")), str(d["summary"]),
-                        int(d.get("duplicates", 0)), list(d.get("duplicate_lines", [])),
-                        int(d.get("skipped_duplicates", 0)))
+    return ImportReport(
+        event.corpus_id,
+        str(d.get("kind", "")),
+        str(d["summary"]),
+        int(d.get("duplicates", 0)),
+        list(d.get("duplicate_lines", [])),
+        int(d.get("skipped_duplicates", 0)),
+    )
 
 
-def _attachable(db: Session, doc: Document, ann_user: User, items: list[_Item]
-                ) -> dict[int, Sentence]:
+def _attachable(
+    db: Session, doc: Document, ann_user: User, items: list[_Item]
+) -> dict[int, Sentence]:
     """Items whose words equal a sentence of ``doc`` this annotator has not annotated yet."""
-    taken = set(db.scalars(select(Annotation.sentence_id).join(Sentence)
-                           .where(Sentence.document_id == doc.id,
-                                  Annotation.user_id == ann_user.id)))
+    taken = set(
+        db.scalars(
+            select(Annotation.sentence_id)
+            .join(Sentence)
+            .where(Sentence.document_id == doc.id, Annotation.user_id == ann_user.id)
+        )
+    )
     free: dict[tuple[str, ...], list[Sentence]] = {}
-    for sentence in db.scalars(select(Sentence).where(Sentence.document_id == doc.id,
-                                                      Sentence.state != SENT_GOLD)
-                               .order_by(Sentence.position)):
+    for sentence in db.scalars(
+        select(Sentence)
+        .where(Sentence.document_id == doc.id, Sentence.state != SENT_GOLD)
+        .order_by(Sentence.position)
+    ):
         if sentence.id not in taken:
             free.setdefault(tuple(sentence.tokens), []).append(sentence)
     out: dict[int, Sentence] = {}
@@ -592,31 +708,61 @@ def _attachable(db: Session, doc: Document, ann_user: User, items: list[_Item]
     return out
 
 
-def _add_annotations(db: Session, rows: list[tuple[_Item, Sentence]], ann_user: User,
-                     now: Any) -> None:
+def _add_annotations(
+    db: Session, rows: list[tuple[_Item, Sentence]], ann_user: User, now: Any
+) -> None:
     """A submitted annotation with one ``import`` revision per sentence, and the assignment."""
     assigned: set[int] = set()
     ids = [sentence.id for _, sentence in rows]
     for start in range(0, len(ids), BATCH):
-        assigned |= set(db.scalars(select(Assignment.sentence_id).where(
-            Assignment.user_id == ann_user.id,
-            Assignment.sentence_id.in_(ids[start:start + BATCH]))))
+        assigned |= set(
+            db.scalars(
+                select(Assignment.sentence_id).where(
+                    Assignment.user_id == ann_user.id,
+                    Assignment.sentence_id.in_(ids[start : start + BATCH]),
+                )
+            )
+        )
     annotations = []
     for _, sentence in rows:
         if sentence.id not in assigned:
-            db.add(Assignment(sentence_id=sentence.id, user_id=ann_user.id, created_at=now,
-                              corpus_id=sentence.corpus_id,
-                              rank=reading_rank(sentence.document_id, sentence.position)))
-        annotations.append(Annotation(sentence_id=sentence.id, user_id=ann_user.id,
-                                      state=ANN_SUBMITTED, head=1, created_at=now,
-                                      updated_at=now, submitted_at=now, comment=""))
+            db.add(
+                Assignment(
+                    sentence_id=sentence.id,
+                    user_id=ann_user.id,
+                    created_at=now,
+                    corpus_id=sentence.corpus_id,
+                    rank=reading_rank(sentence.document_id, sentence.position),
+                )
+            )
+        annotations.append(
+            Annotation(
+                sentence_id=sentence.id,
+                user_id=ann_user.id,
+                state=ANN_SUBMITTED,
+                head=1,
+                created_at=now,
+                updated_at=now,
+                submitted_at=now,
+                comment="",
+            )
+        )
         if sentence.state == SENT_QUEUED:
             sentence.state = SENT_IN_PROGRESS
     db.add_all(annotations)
     db.flush()
-    db.add_all(Revision(annotation_id=annotation.id, number=1, tree=item.tree, source="import",
-                        user_id=ann_user.id, created_at=now, pins={})
-               for (item, _), annotation in zip(rows, annotations, strict=True))
+    db.add_all(
+        Revision(
+            annotation_id=annotation.id,
+            number=1,
+            tree=item.tree,
+            source="import",
+            user_id=ann_user.id,
+            created_at=now,
+            pins={},
+        )
+        for (item, _), annotation in zip(rows, annotations, strict=True)
+    )
 
 
 def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> None:
@@ -631,11 +777,19 @@ def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> N
         return
     counts: dict[int, int] = {}
     for start in range(0, len(ids), BATCH):
-        counts.update({sid: n for sid, n in db.execute(
-            select(Annotation.sentence_id, func.count())
-            .where(Annotation.sentence_id.in_(ids[start:start + BATCH]),
-                   Annotation.state == ANN_SUBMITTED)
-            .group_by(Annotation.sentence_id))})
+        counts.update(
+            {
+                sid: n
+                for sid, n in db.execute(
+                    select(Annotation.sentence_id, func.count())
+                    .where(
+                        Annotation.sentence_id.in_(ids[start : start + BATCH]),
+                        Annotation.state == ANN_SUBMITTED,
+                    )
+                    .group_by(Annotation.sentence_id)
+                )
+            }
+        )
     ready = [s for s in sentences if counts.get(s.id, 0) >= needed]
     if not ready:
         return

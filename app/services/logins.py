@@ -42,16 +42,24 @@ class Attempt:
     delay: float
 
 
-def look_up(factory: sessionmaker[Session], username: str, address: str,
-            settings: Settings) -> Attempt:
+def look_up(
+    factory: sessionmaker[Session], username: str, address: str, settings: Settings
+) -> Attempt:
     """The account and the delay owed, read in one short session (closed on return)."""
     with session_scope(factory) as db:
-        return Attempt(found=user_password(db, username),
-                       delay=login_delay(failure_counts(db, username, address), settings))
+        return Attempt(
+            found=user_password(db, username),
+            delay=login_delay(failure_counts(db, username, address), settings),
+        )
 
 
-def finish(factory: sessionmaker[Session], account: int | None, username: str, address: str,
-           settings: Settings) -> str | None:
+def finish(
+    factory: sessionmaker[Session],
+    account: int | None,
+    username: str,
+    address: str,
+    settings: Settings,
+) -> str | None:
     """The new session's cookie token for ``account`` (the id a password check returned);
     None, with the failure recorded, when there is none or it was disabled meanwhile.
     Commits, in one short session of its own."""

@@ -47,24 +47,40 @@ def apply_order(db: Session, corpus_id: int) -> int:
     if corpus is None:
         return 0
     rows = db.execute(
-        select(Sentence.id, Sentence.document_id, Sentence.position, Sentence.entropy_per_word,
-               func.min(Assignment.rank))
+        select(
+            Sentence.id,
+            Sentence.document_id,
+            Sentence.position,
+            Sentence.entropy_per_word,
+            func.min(Assignment.rank),
+        )
         .join(Assignment, Assignment.sentence_id == Sentence.id)
         .join(Document, Document.id == Sentence.document_id)
         .where(Sentence.corpus_id == corpus_id)
-        .group_by(Sentence.id, Sentence.document_id, Sentence.position,
-                  Sentence.entropy_per_word, Document.position, Document.id)
-        .order_by(*sentence_order(db, corpus))).all()
+        .group_by(
+            Sentence.id,
+            Sentence.document_id,
+            Sentence.position,
+            Sentence.entropy_per_word,
+            Document.position,
+            Document.id,
+        )
+        .order_by(*sentence_order(db, corpus))
+    ).all()
     wanted: dict[int, int] = {}
     for place, (sid, doc, pos, entropy, _) in enumerate(rows):
-        wanted[sid] = place if informative(corpus) and entropy is not None \
-            else reading_rank(doc, pos)
-    changes = [{"sid": sid, "new_rank": wanted[sid]} for sid, _, _, _, now in rows
-               if now != wanted[sid]]
+        wanted[sid] = (
+            place if informative(corpus) and entropy is not None else reading_rank(doc, pos)
+        )
+    changes = [
+        {"sid": sid, "new_rank": wanted[sid]} for sid, _, _, _, now in rows if now != wanted[sid]
+    ]
     if changes:
         table = cast(Table, Assignment.__table__)
         db.connection().execute(
-            update(table).where(table.c.sentence_id == bindparam("sid"))
-            .values(rank=bindparam("new_rank")), changes)
+            update(table)
+            .where(table.c.sentence_id == bindparam("sid"))
+            .values(rank=bindparam("new_rank")),
+            changes,
+        )
     return len(changes)
-

@@ -40,58 +40,99 @@ class ReferenceSummary:
 
 
 def _summary(row: ReferenceSet) -> ReferenceSummary:
-    return ReferenceSummary(row.id, row.name, row.source, row.licence, row.tree_count,
-                            row.word_count, row.in_use)
+    return ReferenceSummary(
+        row.id, row.name, row.source, row.licence, row.tree_count, row.word_count, row.in_use
+    )
 
 
 @unit_of_work
-def add_reference(db: Session, corpus_id: int, data: bytes, *, name: str, source: str,
-                  licence: str, filename: str, user: User | None = None) -> ReferenceSummary:
+def add_reference(
+    db: Session,
+    corpus_id: int,
+    data: bytes,
+    *,
+    name: str,
+    source: str,
+    licence: str,
+    filename: str,
+    user: User | None = None,
+) -> ReferenceSummary:
     """Store the trees of a bracketed file as a reference set of the corpus. Commits."""
     corpus = get_corpus(db, corpus_id)
     name = clean_name(name, "reference set")
     if not licence.strip():
-        raise BadInput("a reference set needs its licence text (or a line saying the trees "
-                       "are the team's own)")
+        raise BadInput(
+            "a reference set needs its licence text (or a line saying the trees are the team's own)"
+        )
     if len(licence) > MAX_LICENCE:
         raise BadInput(f"the licence text has {len(licence)} characters; at most {MAX_LICENCE}")
-    if db.scalar(select(ReferenceSet.id).where(ReferenceSet.corpus_id == corpus.id,
-                                               ReferenceSet.name == name)) is not None:
+    if (
+        db.scalar(
+            select(ReferenceSet.id).where(
+                ReferenceSet.corpus_id == corpus.id, ReferenceSet.name == name
+            )
+        )
+        is not None
+    ):
         raise Conflict(f"corpus {corpus.name!r} already has a reference set named {name!r}")
     items, _, _, _ = read_tree_items(decode(data, filename), filename)
     if not items:
         raise BadInput(f"{filename}: no trees in the file")
-    row = ReferenceSet(corpus_id=corpus.id, name=name, source=source.strip(),
-                       licence=licence.strip(), trees="".join(f"{i.tree}\n" for i in items),
-                       tree_count=len(items), word_count=sum(len(i.tokens) for i in items),
-                       in_use=True, created_by=user.id if user else None)
+    row = ReferenceSet(
+        corpus_id=corpus.id,
+        name=name,
+        source=source.strip(),
+        licence=licence.strip(),
+        trees="".join(f"{i.tree}\n" for i in items),
+        tree_count=len(items),
+        word_count=sum(len(i.tokens) for i in items),
+        in_use=True,
+        created_by=user.id if user else None,
+    )
     db.add(row)
     db.flush()
-    db.add(Event(user_id=user.id if user else None, kind="reference.added",
-                 corpus_id=corpus.id, detail={"name": name, "trees": len(items),
-                                              "file": filename}))
+    db.add(
+        Event(
+            user_id=user.id if user else None,
+            kind="reference.added",
+            corpus_id=corpus.id,
+            detail={"name": name, "trees": len(items), "file": filename},
+        )
+    )
     return _summary(row)
 
 
 @unit_of_work
-def set_in_use(db: Session, reference_id: int, in_use: bool,
-               user: User | None = None) -> ReferenceSummary:
+def set_in_use(
+    db: Session, reference_id: int, in_use: bool, user: User | None = None
+) -> ReferenceSummary:
     """Let training use the set, or stop it (the set stays stored). Commits."""
     row = db.get(ReferenceSet, reference_id)
     if row is None:
         raise NotFound(f"no reference set with id {reference_id}")
     row.in_use = in_use
-    db.add(Event(user_id=user.id if user else None, kind="reference.in_use",
-                 corpus_id=row.corpus_id, detail={"name": row.name, "in_use": in_use}))
+    db.add(
+        Event(
+            user_id=user.id if user else None,
+            kind="reference.in_use",
+            corpus_id=row.corpus_id,
+            detail={"name": row.name, "in_use": in_use},
+        )
+    )
     db.flush()
     return _summary(row)
 
 
 def reference_sets(db: Session, corpus_id: int) -> list[ReferenceSummary]:
     """The corpus's reference sets, oldest first (the trees are not loaded)."""
-    return [_summary(r) for r in db.scalars(
-        select(ReferenceSet).where(ReferenceSet.corpus_id == corpus_id)
-        .order_by(ReferenceSet.id))]
+    return [
+        _summary(r)
+        for r in db.scalars(
+            select(ReferenceSet)
+            .where(ReferenceSet.corpus_id == corpus_id)
+            .order_by(ReferenceSet.id)
+        )
+    ]
 
 
 def names_by_id(db: Session, corpus_id: int) -> dict[int, str]:

@@ -107,37 +107,56 @@ class ReviewList:
     settled: list[SettledRow]
 
 
-def review_list(db: Session, corpus_id: int | None = None, *, settled_limit: int = 25,
-                waiting_limit: int = 500) -> ReviewList:
+def review_list(
+    db: Session, corpus_id: int | None = None, *, settled_limit: int = 25, waiting_limit: int = 500
+) -> ReviewList:
     """Sentences waiting in review (longest waiting first) and the latest gold decisions."""
     where = [Sentence.state == SENT_IN_REVIEW]
     if corpus_id is not None:
         where.append(Sentence.corpus_id == corpus_id)
-    last_sub = (select(Annotation.sentence_id, func.max(Annotation.submitted_at).label("at"))
-                .where(Annotation.state == ANN_SUBMITTED).group_by(Annotation.sentence_id)
-                .subquery())
+    last_sub = (
+        select(Annotation.sentence_id, func.max(Annotation.submitted_at).label("at"))
+        .where(Annotation.state == ANN_SUBMITTED)
+        .group_by(Annotation.sentence_id)
+        .subquery()
+    )
     rows = db.execute(
         select(Sentence, Document.name, last_sub.c.at)
         .join(Document, Document.id == Sentence.document_id)
         .outerjoin(last_sub, last_sub.c.sentence_id == Sentence.id)
-        .where(*where).order_by(last_sub.c.at, Sentence.id).limit(waiting_limit)).all()
+        .where(*where)
+        .order_by(last_sub.c.at, Sentence.id)
+        .limit(waiting_limit)
+    ).all()
     ids = [s.id for s, _, _ in rows]
     lowest: dict[int, float] = {}
     annotators: dict[int, set[str]] = defaultdict(set)
     if ids:
-        for sid, f1 in db.execute(select(AgreementRecord.sentence_id,
-                                         func.min(AgreementRecord.labelled_f1))
-                                  .where(AgreementRecord.sentence_id.in_(ids))
-                                  .group_by(AgreementRecord.sentence_id)):
+        for sid, f1 in db.execute(
+            select(AgreementRecord.sentence_id, func.min(AgreementRecord.labelled_f1))
+            .where(AgreementRecord.sentence_id.in_(ids))
+            .group_by(AgreementRecord.sentence_id)
+        ):
             lowest[sid] = f1
         for sid, uname, dname in db.execute(
-                select(Annotation.sentence_id, User.username, User.display_name)
-                .join(User, User.id == Annotation.user_id)
-                .where(Annotation.sentence_id.in_(ids), Annotation.state == ANN_SUBMITTED)):
+            select(Annotation.sentence_id, User.username, User.display_name)
+            .join(User, User.id == Annotation.user_id)
+            .where(Annotation.sentence_id.in_(ids), Annotation.state == ANN_SUBMITTED)
+        ):
             annotators[sid].add(dname or uname)
-    waiting = [WaitingRow(s.id, s.corpus_id, doc, s.position, s.text,
-                          sorted(annotators[s.id]), lowest.get(s.id), at)
-               for s, doc, at in rows]
+    waiting = [
+        WaitingRow(
+            s.id,
+            s.corpus_id,
+            doc,
+            s.position,
+            s.text,
+            sorted(annotators[s.id]),
+            lowest.get(s.id),
+            at,
+        )
+        for s, doc, at in rows
+    ]
     g_where = [] if corpus_id is None else [Sentence.corpus_id == corpus_id]
     grows = db.execute(
         select(Gold, Sentence, Document.name, User.username, User.display_name)
@@ -145,11 +164,25 @@ def review_list(db: Session, corpus_id: int | None = None, *, settled_limit: int
         .join(Document, Document.id == Sentence.document_id)
         .outerjoin(User, User.id == Gold.adjudicator_id)
         .where(Gold.provenance != "import", *g_where)
-        .order_by(Gold.created_at.desc(), Gold.id.desc()).limit(settled_limit)).all()
-    settled = [SettledRow(g.id, s.id, s.corpus_id, doc, s.position, s.text, g.provenance,
-                          (dn or un) if un else None, g.note, g.created_at,
-                          g.retired_at is None)
-               for g, s, doc, un, dn in grows]
+        .order_by(Gold.created_at.desc(), Gold.id.desc())
+        .limit(settled_limit)
+    ).all()
+    settled = [
+        SettledRow(
+            g.id,
+            s.id,
+            s.corpus_id,
+            doc,
+            s.position,
+            s.text,
+            g.provenance,
+            (dn or un) if un else None,
+            g.note,
+            g.created_at,
+            g.retired_at is None,
+        )
+        for g, s, doc, un, dn in grows
+    ]
     return ReviewList(waiting, settled)
 
 
@@ -231,8 +264,10 @@ class ReviewDetail:
 def _names(db: Session, ids: set[int]) -> dict[int, str]:
     if not ids:
         return {}
-    return {u.id: u.display_name or u.username
-            for u in db.scalars(select(User).where(User.id.in_(ids))).all()}
+    return {
+        u.id: u.display_name or u.username
+        for u in db.scalars(select(User).where(User.id.in_(ids))).all()
+    }
 
 
 def counted_constituents(text: str) -> list[tuple[str, int, int]]:
@@ -267,8 +302,14 @@ def combine(trees: list[ReviewTree]) -> list[CombinedSpan]:
             kind = "all"
         else:
             kind = "split"
-        out.append(CombinedSpan(start, end, kind, [
-            SpanLabel(label, sorted(owners)) for label, owners in sorted(labels.items())]))
+        out.append(
+            CombinedSpan(
+                start,
+                end,
+                kind,
+                [SpanLabel(label, sorted(owners)) for label, owners in sorted(labels.items())],
+            )
+        )
     return out
 
 
@@ -283,51 +324,101 @@ def review_detail(db: Session, sentence_id: int, viewer: User | None) -> ReviewD
     corpus = db.get(Corpus, sentence.corpus_id)
     document = db.get(Document, sentence.document_id)
     assert corpus is not None and document is not None  # foreign keys guarantee both
-    anns = db.scalars(select(Annotation).where(Annotation.sentence_id == sentence.id,
-                                               Annotation.state == ANN_SUBMITTED)
-                      .order_by(Annotation.id)).all()
-    golds = db.scalars(select(Gold).where(Gold.sentence_id == sentence.id)
-                       .order_by(Gold.created_at.desc(), Gold.id.desc())).all()
-    names = _names(db, {a.user_id for a in anns}
-                   | {g.adjudicator_id for g in golds if g.adjudicator_id}
-                   | {g.retired_by_id for g in golds if g.retired_by_id})
+    anns = db.scalars(
+        select(Annotation)
+        .where(Annotation.sentence_id == sentence.id, Annotation.state == ANN_SUBMITTED)
+        .order_by(Annotation.id)
+    ).all()
+    golds = db.scalars(
+        select(Gold)
+        .where(Gold.sentence_id == sentence.id)
+        .order_by(Gold.created_at.desc(), Gold.id.desc())
+    ).all()
+    names = _names(
+        db,
+        {a.user_id for a in anns}
+        | {g.adjudicator_id for g in golds if g.adjudicator_id}
+        | {g.retired_by_id for g in golds if g.retired_by_id},
+    )
     trees: list[ReviewTree] = []
     for ann in anns:
         rev = current_revision(db, ann)
         if rev is None:
             continue
         letter = LETTERS[len(trees) % len(LETTERS)]
-        trees.append(ReviewTree(letter, ann.id, ann.user_id, names.get(ann.user_id, "?"),
-                                rev.number, write_tree(read_tree(rev.tree)), ann.submitted_at,
-                                (ann.comment or "").strip()))
+        trees.append(
+            ReviewTree(
+                letter,
+                ann.id,
+                ann.user_id,
+                names.get(ann.user_id, "?"),
+                rev.number,
+                write_tree(read_tree(rev.tree)),
+                ann.submitted_at,
+                (ann.comment or "").strip(),
+            )
+        )
     letter_of = {t.annotation_id: t.letter for t in trees}
     pairs = []
     if trees:
-        recs = db.scalars(select(AgreementRecord).where(
-            AgreementRecord.sentence_id == sentence.id).order_by(AgreementRecord.id)).all()
+        recs = db.scalars(
+            select(AgreementRecord)
+            .where(AgreementRecord.sentence_id == sentence.id)
+            .order_by(AgreementRecord.id)
+        ).all()
         latest: dict[tuple[int, int], AgreementRecord] = {}
         for r in recs:
             latest[(r.annotation_a_id, r.annotation_b_id)] = r
         for (a, b), r in latest.items():
             if a in letter_of and b in letter_of:
-                pairs.append(PairRow(letter_of[a], letter_of[b], r.labelled_f1,
-                                     r.unlabelled_f1, r.pos_agreement, r.matched, r.count_a,
-                                     r.count_b))
-    history = [GoldEntry(g.id, g.tree, g.provenance, names.get(g.adjudicator_id or -1),
-                         g.source_annotation_id, letter_of.get(g.source_annotation_id or -1),
-                         g.note, g.created_at, g.retired_at, names.get(g.retired_by_id or -1),
-                         list(g.annotator_notes or []), bool(g.own_annotation))
-               for g in golds]
+                pairs.append(
+                    PairRow(
+                        letter_of[a],
+                        letter_of[b],
+                        r.labelled_f1,
+                        r.unlabelled_f1,
+                        r.pos_agreement,
+                        r.matched,
+                        r.count_a,
+                        r.count_b,
+                    )
+                )
+    history = [
+        GoldEntry(
+            g.id,
+            g.tree,
+            g.provenance,
+            names.get(g.adjudicator_id or -1),
+            g.source_annotation_id,
+            letter_of.get(g.source_annotation_id or -1),
+            g.note,
+            g.created_at,
+            g.retired_at,
+            names.get(g.retired_by_id or -1),
+            list(g.annotator_notes or []),
+            bool(g.own_annotation),
+        )
+        for g in golds
+    ]
     token_words = words(read_tree(trees[0].tree)) if trees else [str(t) for t in sentence.tokens]
-    return ReviewDetail(sentence=sentence, corpus=corpus, document=document.name,
-                        words=token_words, trees=trees, combined=combine(trees), pairs=pairs,
-                        history=history, neighbours=_neighbours(db, sentence))
+    return ReviewDetail(
+        sentence=sentence,
+        corpus=corpus,
+        document=document.name,
+        words=token_words,
+        trees=trees,
+        combined=combine(trees),
+        pairs=pairs,
+        history=history,
+        neighbours=_neighbours(db, sentence),
+    )
 
 
 def _neighbours(db: Session, sentence: Sentence) -> tuple[int | None, int | None]:
     """The previous and next sentence in review in the same corpus (by id)."""
-    base = select(Sentence.id).where(Sentence.corpus_id == sentence.corpus_id,
-                                     Sentence.state == SENT_IN_REVIEW)
+    base = select(Sentence.id).where(
+        Sentence.corpus_id == sentence.corpus_id, Sentence.state == SENT_IN_REVIEW
+    )
     prev = db.scalar(base.where(Sentence.id < sentence.id).order_by(Sentence.id.desc()).limit(1))
     nxt = db.scalar(base.where(Sentence.id > sentence.id).order_by(Sentence.id).limit(1))
     return prev, nxt
@@ -339,16 +430,29 @@ def _neighbours(db: Session, sentence: Sentence) -> tuple[int | None, int | None
 
 def own_submitted_annotation(db: Session, sentence_id: int, user: User) -> int | None:
     """The id of ``user``'s submitted annotation of the sentence, if any."""
-    return db.scalar(select(Annotation.id).where(Annotation.sentence_id == sentence_id,
-                                                 Annotation.user_id == user.id,
-                                                 Annotation.state == ANN_SUBMITTED))
+    return db.scalar(
+        select(Annotation.id).where(
+            Annotation.sentence_id == sentence_id,
+            Annotation.user_id == user.id,
+            Annotation.state == ANN_SUBMITTED,
+        )
+    )
 
 
 def other_adjudicators(db: Session, user: User) -> int:
     """How many other active accounts may adjudicate."""
-    return db.scalar(select(func.count()).select_from(User).where(
-        User.id != user.id, User.active.is_(True),
-        User.role.in_((ROLE_ADMIN, ROLE_ADJUDICATOR)))) or 0
+    return (
+        db.scalar(
+            select(func.count())
+            .select_from(User)
+            .where(
+                User.id != user.id,
+                User.active.is_(True),
+                User.role.in_((ROLE_ADMIN, ROLE_ADJUDICATOR)),
+            )
+        )
+        or 0
+    )
 
 
 def check_own_settle(db: Session, corpus: Corpus, sentence_id: int, user: User) -> bool:
@@ -360,21 +464,33 @@ def check_own_settle(db: Session, corpus: Corpus, sentence_id: int, user: User) 
     if policy == SettleOwnPolicy.ALWAYS:
         return True
     if policy == SettleOwnPolicy.NEVER:
-        raise Forbidden("you annotated this sentence, and this corpus lets nobody settle a "
-                        "sentence they annotated: another adjudicator settles it",
-                        kind="own_annotation")
+        raise Forbidden(
+            "you annotated this sentence, and this corpus lets nobody settle a "
+            "sentence they annotated: another adjudicator settles it",
+            kind="own_annotation",
+        )
     others = other_adjudicators(db, user)
     if others:
-        raise Forbidden(f"you annotated this sentence; {others} other "
-                        f"{'person' if others == 1 else 'people'} can adjudicate, so one of "
-                        "them settles it (an admin can change this in the corpus settings)",
-                        kind="own_annotation")
+        raise Forbidden(
+            f"you annotated this sentence; {others} other "
+            f"{'person' if others == 1 else 'people'} can adjudicate, so one of "
+            "them settles it (an admin can change this in the corpus settings)",
+            kind="own_annotation",
+        )
     return True
 
 
-def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
-           source_annotation_id: int | None = None, source_gold_id: int | None = None,
-           note: str | None = None, confirm_labels: bool = False) -> Gold:
+def settle(
+    db: Session,
+    sentence_id: int,
+    adjudicator: User,
+    *,
+    tree_text: str,
+    source_annotation_id: int | None = None,
+    source_gold_id: int | None = None,
+    note: str | None = None,
+    confirm_labels: bool = False,
+) -> Gold:
     """Settle a sentence in review: ``tree_text`` becomes its gold. Commits.
 
     ``source_annotation_id`` / ``source_gold_id`` say which submitted tree or earlier gold the
@@ -390,45 +506,72 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
     note = check_note(note)
     ensure_not_blind(db, sentence.id, adjudicator)
     if sentence.state != SENT_IN_REVIEW:
-        raise Conflict(f"sentence {sentence_id} is {sentence.state}, not in review; "
-                       "reopen it first", state=sentence.state)
+        raise Conflict(
+            f"sentence {sentence_id} is {sentence.state}, not in review; reopen it first",
+            state=sentence.state,
+        )
     own = check_own_settle(db, corpus, sentence.id, adjudicator)
     if source_annotation_id is not None and source_gold_id is not None:
-        raise BadInput("give the annotation or the earlier gold the tree started from, "
-                       "not both", kind="source")
+        raise BadInput(
+            "give the annotation or the earlier gold the tree started from, not both", kind="source"
+        )
     source_text: str | None = None
     if source_annotation_id is not None:
         ann = db.get(Annotation, source_annotation_id)
         if ann is None or ann.sentence_id != sentence.id or ann.state != ANN_SUBMITTED:
-            raise BadInput(f"annotation {source_annotation_id} is not a submitted annotation "
-                           f"of sentence {sentence_id}", kind="source")
+            raise BadInput(
+                f"annotation {source_annotation_id} is not a submitted annotation "
+                f"of sentence {sentence_id}",
+                kind="source",
+            )
         rev = current_revision(db, ann)
         source_text = rev.tree if rev else None
     if source_gold_id is not None:
         old = db.get(Gold, source_gold_id)
         if old is None or old.sentence_id != sentence.id:
-            raise BadInput(f"gold {source_gold_id} is not a gold tree of sentence "
-                           f"{sentence_id}", kind="source")
+            raise BadInput(
+                f"gold {source_gold_id} is not a gold tree of sentence {sentence_id}", kind="source"
+            )
         source_text = old.tree
     tree = validate_tree_text(sentence, tree_text, corpus, confirm_labels=confirm_labels)
     text = write_tree(tree)
     # compare-and-set: only one settle of this review wins
-    moved = db.execute(update(Sentence).where(Sentence.id == sentence.id,
-                                              Sentence.state == SENT_IN_REVIEW)
-                       .values(state=SENT_GOLD).execution_options(synchronize_session=False))
+    moved = db.execute(
+        update(Sentence)
+        .where(Sentence.id == sentence.id, Sentence.state == SENT_IN_REVIEW)
+        .values(state=SENT_GOLD)
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict(f"sentence {sentence_id} was settled or changed meanwhile; reload it")
     db.refresh(sentence)
-    gold = make_gold(db, sentence, text, provenance="adjudication",
-                     adjudicator_id=adjudicator.id, source_annotation_id=source_annotation_id,
-                     note=note, own_annotation=own)
+    gold = make_gold(
+        db,
+        sentence,
+        text,
+        provenance="adjudication",
+        adjudicator_id=adjudicator.id,
+        source_annotation_id=source_annotation_id,
+        note=note,
+        own_annotation=own,
+    )
     edited = None if source_text is None else write_tree(read_tree(source_text)) != text
-    db.add(Event(user_id=adjudicator.id, kind="gold.settled", corpus_id=corpus.id,
-                 sentence_id=sentence.id,
-                 detail={"gold_id": gold.id, "from_annotation": source_annotation_id,
-                         "from_gold": source_gold_id, "edited": edited,
-                         "own_annotation": own}))
+    db.add(
+        Event(
+            user_id=adjudicator.id,
+            kind="gold.settled",
+            corpus_id=corpus.id,
+            sentence_id=sentence.id,
+            detail={
+                "gold_id": gold.id,
+                "from_annotation": source_annotation_id,
+                "from_gold": source_gold_id,
+                "edited": edited,
+                "own_annotation": own,
+            },
+        )
+    )
     gold_added(db, corpus)
     db.commit()
     return gold
@@ -436,15 +579,22 @@ def settle(db: Session, sentence_id: int, adjudicator: User, *, tree_text: str,
 
 def corpus_choices(db: Session) -> list[tuple[int, str, int]]:
     """(id, name, sentences in review) of every corpus, by name."""
-    waiting = dict(db.execute(select(Sentence.corpus_id, func.count(Sentence.id))
-                              .where(Sentence.state == SENT_IN_REVIEW)
-                              .group_by(Sentence.corpus_id)).all())
-    return [(c.id, c.name, waiting.get(c.id, 0))
-            for c in db.scalars(select(Corpus).order_by(Corpus.name))]
+    waiting = dict(
+        db.execute(
+            select(Sentence.corpus_id, func.count(Sentence.id))
+            .where(Sentence.state == SENT_IN_REVIEW)
+            .group_by(Sentence.corpus_id)
+        ).all()
+    )
+    return [
+        (c.id, c.name, waiting.get(c.id, 0))
+        for c in db.scalars(select(Corpus).order_by(Corpus.name))
+    ]
 
 
-def check_tree(db: Session, sentence_id: int, tree_text: str, *,
-               confirm_labels: bool = False) -> Tree:
+def check_tree(
+    db: Session, sentence_id: int, tree_text: str, *, confirm_labels: bool = False
+) -> Tree:
     """The adjudicator's tree read and validated for the sentence, storing nothing."""
     sentence = db.get(Sentence, sentence_id)
     if sentence is None:

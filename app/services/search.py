@@ -77,17 +77,22 @@ _LOCK = threading.Lock()
 
 def _fingerprint(db: Session, corpus_id: int, scope: str) -> tuple[Any, ...]:
     if scope == SCOPE_GOLD:
-        q = (select(func.count(Gold.id), func.max(Gold.id))
-             .join(Sentence, Sentence.id == Gold.sentence_id)
-             .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None)))
+        q = (
+            select(func.count(Gold.id), func.max(Gold.id))
+            .join(Sentence, Sentence.id == Gold.sentence_id)
+            .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+        )
     elif scope == SCOPE_ANNOTATIONS:
-        q = (select(func.count(Revision.id), func.max(Revision.id))
-             .join(Annotation, Annotation.id == Revision.annotation_id)
-             .join(Sentence, Sentence.id == Annotation.sentence_id)
-             .where(Sentence.corpus_id == corpus_id))
+        q = (
+            select(func.count(Revision.id), func.max(Revision.id))
+            .join(Annotation, Annotation.id == Revision.annotation_id)
+            .join(Sentence, Sentence.id == Annotation.sentence_id)
+            .where(Sentence.corpus_id == corpus_id)
+        )
     else:
         q = select(func.count(Sentence.id), func.max(Sentence.id)).where(
-            Sentence.corpus_id == corpus_id)
+            Sentence.corpus_id == corpus_id
+        )
     row = db.execute(q).one()
     return tuple(row)
 
@@ -95,28 +100,46 @@ def _fingerprint(db: Session, corpus_id: int, scope: str) -> tuple[Any, ...]:
 def _rows(db: Session, corpus_id: int, scope: str) -> list[tuple[EntryKey, int, str]]:
     """(entry key, id of the immutable row holding the tree, tree text) of a tree scope."""
     if scope == SCOPE_GOLD:
-        return [(EntryKey(sid, gid, None), gid, text) for sid, gid, text in db.execute(
-            select(Gold.sentence_id, Gold.id, Gold.tree)
-            .join(Sentence, Sentence.id == Gold.sentence_id)
-            .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
-            .order_by(Gold.sentence_id, Gold.id))]
-    return [(EntryKey(sid, aid, uid), rid, text) for sid, aid, uid, rid, text in db.execute(
-        select(Annotation.sentence_id, Annotation.id, Annotation.user_id, Revision.id,
-               Revision.tree)
-        .join(Revision, (Revision.annotation_id == Annotation.id)
-              & (Revision.number == Annotation.head))
-        .join(Sentence, Sentence.id == Annotation.sentence_id)
-        .where(Sentence.corpus_id == corpus_id)
-        .order_by(Annotation.sentence_id, Annotation.id))]
+        return [
+            (EntryKey(sid, gid, None), gid, text)
+            for sid, gid, text in db.execute(
+                select(Gold.sentence_id, Gold.id, Gold.tree)
+                .join(Sentence, Sentence.id == Gold.sentence_id)
+                .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+                .order_by(Gold.sentence_id, Gold.id)
+            )
+        ]
+    return [
+        (EntryKey(sid, aid, uid), rid, text)
+        for sid, aid, uid, rid, text in db.execute(
+            select(
+                Annotation.sentence_id,
+                Annotation.id,
+                Annotation.user_id,
+                Revision.id,
+                Revision.tree,
+            )
+            .join(
+                Revision,
+                (Revision.annotation_id == Annotation.id) & (Revision.number == Annotation.head),
+            )
+            .join(Sentence, Sentence.id == Annotation.sentence_id)
+            .where(Sentence.corpus_id == corpus_id)
+            .order_by(Annotation.sentence_id, Annotation.id)
+        )
+    ]
 
 
-def _build(db: Session, corpus_id: int, scope: str, old: _Cached | None,
-           fingerprint: tuple[Any, ...]) -> _Cached:
+def _build(
+    db: Session, corpus_id: int, scope: str, old: _Cached | None, fingerprint: tuple[Any, ...]
+) -> _Cached:
     index = SearchIndex()
     if scope == SCOPE_SENTENCES:
-        for sid, tokens in db.execute(select(Sentence.id, Sentence.tokens)
-                                      .where(Sentence.corpus_id == corpus_id)
-                                      .order_by(Sentence.id)):
+        for sid, tokens in db.execute(
+            select(Sentence.id, Sentence.tokens)
+            .where(Sentence.corpus_id == corpus_id)
+            .order_by(Sentence.id)
+        ):
             index.add(EntryKey(sid, sid, None), tokens)
         return _Cached(fingerprint, index, {}, {})
     known = old.parsed if old is not None else {}
@@ -176,8 +199,11 @@ def _sees_all(user: User | None) -> bool:
 def check_access(corpus: Corpus, user: User | None, scope: str) -> None:
     if scope not in SCOPES:
         raise BadInput(f"unknown scope {scope!r}; one of {', '.join(SCOPES)}", kind="scope")
-    if scope == SCOPE_GOLD and not _sees_all(user) \
-            and not corpus.options.gold_visible_to_annotators:
+    if (
+        scope == SCOPE_GOLD
+        and not _sees_all(user)
+        and not corpus.options.gold_visible_to_annotators
+    ):
         raise Forbidden(f"corpus {corpus.name!r} does not let annotators search its gold")
 
 
@@ -217,26 +243,38 @@ class _Match:
     spans: tuple[tuple[int, int], ...]
 
 
-def _matches(db: Session, corpus: Corpus, user: User | None, pattern_text: str, scope: str,
-             state: str | None) -> tuple[_Cached, list[_Match]]:
+def _matches(
+    db: Session, corpus: Corpus, user: User | None, pattern_text: str, scope: str, state: str | None
+) -> tuple[_Cached, list[_Match]]:
     check_access(corpus, user, scope)
     if state and state not in SENTENCE_STATES:
-        raise BadInput(f"unknown sentence state {state!r}; one of {', '.join(SENTENCE_STATES)}",
-                       kind="state")
+        raise BadInput(
+            f"unknown sentence state {state!r}; one of {', '.join(SENTENCE_STATES)}", kind="state"
+        )
     pattern = read_pattern(pattern_text)
     if scope == SCOPE_SENTENCES and isinstance(pattern, Fragment):
-        raise BadInput("a bracketed fragment searches trees: choose the gold or the annotations",
-                       kind="scope")
+        raise BadInput(
+            "a bracketed fragment searches trees: choose the gold or the annotations", kind="scope"
+        )
     cached = _index(db, corpus.id, scope)
     allowed: set[int] | None = None
     if state:
-        allowed = set(db.scalars(select(Sentence.id).where(Sentence.corpus_id == corpus.id,
-                                                           Sentence.state == state)))
-    only_user = user.id if scope == SCOPE_ANNOTATIONS and user is not None \
-        and not user.can_adjudicate else None
+        allowed = set(
+            db.scalars(
+                select(Sentence.id).where(Sentence.corpus_id == corpus.id, Sentence.state == state)
+            )
+        )
+    only_user = (
+        user.id
+        if scope == SCOPE_ANNOTATIONS and user is not None and not user.can_adjudicate
+        else None
+    )
     # blind annotation: not even an adjudicator sees others' trees of what they still annotate
-    blind = unfinished_sentences(db, user) if scope == SCOPE_ANNOTATIONS and user is not None \
-        and only_user is None else set()
+    blind = (
+        unfinished_sentences(db, user)
+        if scope == SCOPE_ANNOTATIONS and user is not None and only_user is None
+        else set()
+    )
     out = []
     for hit in cached.index.search(pattern):
         key = hit.key
@@ -259,44 +297,90 @@ def _link(scope: str, key: EntryKey, user: User | None) -> str | None:
     return None
 
 
-def search(db: Session, corpus: Corpus, user: User | None, pattern_text: str, *,
-           scope: str = SCOPE_GOLD, state: str | None = None, page: int = 1,
-           per_page: int = 20) -> SearchPage:
+def search(
+    db: Session,
+    corpus: Corpus,
+    user: User | None,
+    pattern_text: str,
+    *,
+    scope: str = SCOPE_GOLD,
+    state: str | None = None,
+    page: int = 1,
+    per_page: int = 20,
+) -> SearchPage:
     """One page of the sentences whose ``scope`` matches the pattern, as ``user`` may see
     (``None``: the command line, which sees everything)."""
     per_page = min(max(per_page, 1), 200)
     page = max(page, 1)
     cached, found = _matches(db, corpus, user, pattern_text, scope, state)
-    window = found[(page - 1) * per_page: page * per_page]
+    window = found[(page - 1) * per_page : page * per_page]
     sids = [m.key.sentence_id for m in window]
-    info = {sid: (doc, pos, st, toks) for sid, doc, pos, st, toks in db.execute(
-        select(Sentence.id, Document.name, Sentence.position, Sentence.state, Sentence.tokens)
-        .join(Document, Document.id == Sentence.document_id)
-        .where(Sentence.id.in_(sids)))} if sids else {}
+    info = (
+        {
+            sid: (doc, pos, st, toks)
+            for sid, doc, pos, st, toks in db.execute(
+                select(
+                    Sentence.id, Document.name, Sentence.position, Sentence.state, Sentence.tokens
+                )
+                .join(Document, Document.id == Sentence.document_id)
+                .where(Sentence.id.in_(sids))
+            )
+        }
+        if sids
+        else {}
+    )
     uids = {m.key.user_id for m in window if m.key.user_id is not None}
-    names = dict(db.execute(select(User.id, User.username).where(User.id.in_(uids))).all()) \
-        if uids else {}
+    names = (
+        dict(db.execute(select(User.id, User.username).where(User.id.in_(uids))).all())
+        if uids
+        else {}
+    )
     source = {SCOPE_GOLD: "gold", SCOPE_ANNOTATIONS: "annotation"}.get(scope, "sentence")
     hits = []
     for m in window:
         doc, pos, st, toks = info[m.key.sentence_id]
         tree = cached.trees.get(m.key)
-        hits.append(SearchHit(m.key.sentence_id, doc, pos, st, list(toks),
-                              write_tree(tree) if tree is not None else None, list(m.spans),
-                              source, names.get(m.key.user_id) if m.key.user_id else None,
-                              _link(scope, m.key, user)))
-    return SearchPage(pattern=pattern_text, scope=scope, state=state, hits=hits, page=page,
-                      per_page=per_page, total=len(found))
+        hits.append(
+            SearchHit(
+                m.key.sentence_id,
+                doc,
+                pos,
+                st,
+                list(toks),
+                write_tree(tree) if tree is not None else None,
+                list(m.spans),
+                source,
+                names.get(m.key.user_id) if m.key.user_id else None,
+                _link(scope, m.key, user),
+            )
+        )
+    return SearchPage(
+        pattern=pattern_text,
+        scope=scope,
+        state=state,
+        hits=hits,
+        page=page,
+        per_page=per_page,
+        total=len(found),
+    )
 
 
-def export_text(db: Session, corpus: Corpus, user: User | None, pattern_text: str, *,
-                scope: str = SCOPE_GOLD, state: str | None = None) -> str:
+def export_text(
+    db: Session,
+    corpus: Corpus,
+    user: User | None,
+    pattern_text: str,
+    *,
+    scope: str = SCOPE_GOLD,
+    state: str | None = None,
+) -> str:
     """Every matching tree as one-line bracketed text (sentences scope: the words, each a
     flat line), one per line."""
     cached, found = _matches(db, corpus, user, pattern_text, scope, state)
     lines = []
     for m in found:
         tree = cached.trees.get(m.key)
-        lines.append(write_tree(tree) if tree is not None
-                     else " ".join(cached.index.tokens[m.entry]))
+        lines.append(
+            write_tree(tree) if tree is not None else " ".join(cached.index.tokens[m.entry])
+        )
     return "\n".join(lines) + ("\n" if lines else "")

@@ -72,6 +72,8 @@ from app.services.imports import (
 )
 
 STAGE_CHUNK = 2_000  # sentences per staging transaction
+
+
 def binary_lines(handle: BinaryIO, source: str) -> Iterator[str]:
     """The lines of an open binary file as text, decoded one at a time; a byte that is not
     UTF-8 is an ImportFailed naming its line and byte. A leading byte-order mark is dropped."""
@@ -83,15 +85,19 @@ def binary_lines(handle: BinaryIO, source: str) -> Iterator[str]:
             raise ImportFailed(
                 f"the file is not UTF-8 text: byte 0x{raw[err.start]:02X} (byte "
                 f"{err.start + 1} of the line) cannot be decoded; save the file as UTF-8 and "
-                "import it again", source=source, line=number) from None
+                "import it again",
+                source=source,
+                line=number,
+            ) from None
         if number == 1 and line.startswith("\ufeff"):
             line = line[1:]
         yield line
 
 
 def _digest(tokens: list[str]) -> int:
-    return int.from_bytes(hashlib.blake2b("\x1f".join(tokens).encode(), digest_size=8)
-                          .digest(), "big")
+    return int.from_bytes(
+        hashlib.blake2b("\x1f".join(tokens).encode(), digest_size=8).digest(), "big"
+    )
 
 
 @dataclass
@@ -102,8 +108,9 @@ class _Pass:
     tags: set[str] = field(default_factory=set)
 
 
-def _items(lines: Iterable[str], kind: str, source: str, tokenizer: str,
-           stats: _Pass) -> Iterator[_Item]:
+def _items(
+    lines: Iterable[str], kind: str, source: str, tokenizer: str, stats: _Pass
+) -> Iterator[_Item]:
     if kind == "text":
         split = _tokenizer(tokenizer)
         for number, line in enumerate(lines, start=1):
@@ -121,8 +128,9 @@ def _items(lines: Iterable[str], kind: str, source: str, tokenizer: str,
         yield from found
 
 
-def _check(db: Session, corpus: Corpus | None, lines: Iterable[str], kind: str, source: str,
-           tokenizer: str) -> tuple[int, list[Duplicate], set[int], _Pass]:
+def _check(
+    db: Session, corpus: Corpus | None, lines: Iterable[str], kind: str, source: str, tokenizer: str
+) -> tuple[int, list[Duplicate], set[int], _Pass]:
     """Pass 1: count, duplicates (and the ordinals of the duplicate items), statistics."""
     check = DuplicateCheck(db, corpus, _digest)
     dups: list[Duplicate] = []
@@ -135,15 +143,19 @@ def _check(db: Session, corpus: Corpus | None, lines: Iterable[str], kind: str, 
             dups.append(dup)
             dup_ordinals.add(ordinal)
     if not count:  # every line was blank: anything else gives an item or an error
-        raise ImportFailed("the file is blank (only whitespace): there is nothing to import",
-                           source=source)
+        raise ImportFailed(
+            "the file is blank (only whitespace): there is nothing to import", source=source
+        )
     return count, dups, dup_ordinals, stats
 
 
 def _drop_staging(db: Session, staging_id: int) -> None:
     db.rollback()
-    db.execute(delete(Gold).where(Gold.sentence_id.in_(
-        select(Sentence.id).where(Sentence.corpus_id == staging_id))))
+    db.execute(
+        delete(Gold).where(
+            Gold.sentence_id.in_(select(Sentence.id).where(Sentence.corpus_id == staging_id))
+        )
+    )
     db.execute(delete(Sentence).where(Sentence.corpus_id == staging_id))
     db.execute(delete(Document).where(Document.corpus_id == staging_id))
     db.execute(delete(Corpus).where(Corpus.id == staging_id))
@@ -158,18 +170,28 @@ ABANDONED_AFTER = timedelta(hours=6)
 def drop_abandoned_staging(db: Session, older_than: timedelta = ABANDONED_AFTER) -> int:
     """Delete the staging corpora a killed import left behind (called at start). Commits."""
     before = utcnow() - older_than
-    ids = [c.id for c in db.scalars(select(Corpus).where(Corpus.created_at <= before))
-           if is_staging(c)]
+    ids = [
+        c.id for c in db.scalars(select(Corpus).where(Corpus.created_at <= before)) if is_staging(c)
+    ]
     for staging_id in ids:
         _drop_staging(db, staging_id)
     return len(ids)
 
 
-def import_stream(db: Session, open_lines: Callable[[], Iterable[str]], *, source: str,
-                  corpus_name: str, document_name: str, kind: str = "text",
-                  tokenizer: str = "whitespace", skip_duplicates: bool = False,
-                  create_corpus_if_missing: bool = True, user: User | None = None,
-                  progress: Progress | None = None) -> ImportResult:
+def import_stream(
+    db: Session,
+    open_lines: Callable[[], Iterable[str]],
+    *,
+    source: str,
+    corpus_name: str,
+    document_name: str,
+    kind: str = "text",
+    tokenizer: str = "whitespace",
+    skip_duplicates: bool = False,
+    create_corpus_if_missing: bool = True,
+    user: User | None = None,
+    progress: Progress | None = None,
+) -> ImportResult:
     """Import a text or gold file in three steps (check, stage, publish). Commits."""
     if kind not in ("text", "gold"):
         raise BadInput(f"a streamed import takes text or gold, not {kind!r}")
@@ -178,12 +200,15 @@ def import_stream(db: Session, open_lines: Callable[[], Iterable[str]], *, sourc
     corpus = corpus_by_name(db, corpus_name)
     if corpus is None and not create_corpus_if_missing:
         raise NotFound(f"no corpus named {corpus_name!r}")
-    count, dups, dup_ordinals, stats = _check(db, corpus, open_lines(), kind, source,
-                                              tokenizer)
+    count, dups, dup_ordinals, stats = _check(db, corpus, open_lines(), kind, source, tokenizer)
     db.rollback()  # the check read only; start the staging with a fresh transaction
 
-    staging = Corpus(name=f"import in progress {uuid.uuid4().hex}", label_set=[], tag_set=[],
-                     settings={STAGING_KEY: source})
+    staging = Corpus(
+        name=f"import in progress {uuid.uuid4().hex}",
+        label_set=[],
+        tag_set=[],
+        settings={STAGING_KEY: source},
+    )
     db.add(staging)
     db.flush()
     stage_doc = Document(corpus_id=staging.id, name="staged", position=0)
@@ -201,9 +226,16 @@ def import_stream(db: Session, open_lines: Callable[[], Iterable[str]], *, sourc
             db.add_all(rows)
             db.flush()
             if kind == "gold":
-                golds = [Gold(sentence_id=s.id, tree=item.tree, provenance="import",
-                              note=f"imported from {source}, line {item.line}",
-                              created_at=now) for item, s in batch]
+                golds = [
+                    Gold(
+                        sentence_id=s.id,
+                        tree=item.tree,
+                        provenance="import",
+                        note=f"imported from {source}, line {item.line}",
+                        created_at=now,
+                    )
+                    for item, s in batch
+                ]
                 db.add_all(golds)
                 rows += golds
             db.commit()
@@ -217,18 +249,39 @@ def import_stream(db: Session, open_lines: Callable[[], Iterable[str]], *, sourc
             if ordinal in dup_ordinals and skip_duplicates:
                 skipped += 1
                 continue
-            batch.append((item, Sentence(corpus_id=staging_id, document_id=stage_doc_id,
-                                         position=imported, tokens=item.tokens,
-                                         text=item.text, state=state, created_at=now)))
+            batch.append(
+                (
+                    item,
+                    Sentence(
+                        corpus_id=staging_id,
+                        document_id=stage_doc_id,
+                        position=imported,
+                        tokens=item.tokens,
+                        text=item.text,
+                        state=state,
+                        created_at=now,
+                    ),
+                )
+            )
             imported += 1
             if len(batch) >= STAGE_CHUNK:
                 write()
         if batch:
             write()
-        result = _publish(db, staging_id, stage_doc_id, source=source,
-                          corpus_name=corpus_name, document_name=document_name, kind=kind,
-                          user=user, stats=stats, imported=imported, skipped=skipped,
-                          dups=dups)
+        result = _publish(
+            db,
+            staging_id,
+            stage_doc_id,
+            source=source,
+            corpus_name=corpus_name,
+            document_name=document_name,
+            kind=kind,
+            user=user,
+            stats=stats,
+            imported=imported,
+            skipped=skipped,
+            dups=dups,
+        )
     except BaseException:
         _drop_staging(db, staging_id)
         raise
@@ -238,39 +291,72 @@ def import_stream(db: Session, open_lines: Callable[[], Iterable[str]], *, sourc
     return result
 
 
-def _publish(db: Session, staging_id: int, stage_doc_id: int, *, source: str,
-             corpus_name: str, document_name: str, kind: str, user: User | None,
-             stats: _Pass, imported: int, skipped: int, dups: list[Duplicate]
-             ) -> ImportResult:
+def _publish(
+    db: Session,
+    staging_id: int,
+    stage_doc_id: int,
+    *,
+    source: str,
+    corpus_name: str,
+    document_name: str,
+    kind: str,
+    user: User | None,
+    stats: _Pass,
+    imported: int,
+    skipped: int,
+    dups: list[Duplicate],
+) -> ImportResult:
     """The staged sentences become the document's, in one short transaction. Commits."""
     corpus = corpus_by_name(db, corpus_name)
     corpus_created = corpus is None
     if corpus is None:
         corpus = create_corpus.step(db, corpus_name, user=user)
     doc, doc_created = _document(db, corpus, document_name)
-    last = db.scalar(select(func.coalesce(func.max(Sentence.position), -1))
-                     .where(Sentence.document_id == doc.id))
+    last = db.scalar(
+        select(func.coalesce(func.max(Sentence.position), -1)).where(Sentence.document_id == doc.id)
+    )
     offset = (last if last is not None else -1) + 1
-    db.execute(update(Sentence).where(Sentence.document_id == stage_doc_id).values(
-        corpus_id=corpus.id, document_id=doc.id, position=Sentence.position + offset),
-        execution_options={"synchronize_session": False})
-    result = ImportResult(corpus_id=corpus.id, corpus_name=corpus.name, document_id=doc.id,
-                          document_name=doc.name, kind=kind, source=source,
-                          imported=imported, skipped_duplicates=skipped,
-                          blank_lines=stats.blank, empty_elements_dropped=stats.dropped,
-                          duplicates=dups, corpus_created=corpus_created,
-                          document_created=doc_created)
+    db.execute(
+        update(Sentence)
+        .where(Sentence.document_id == stage_doc_id)
+        .values(corpus_id=corpus.id, document_id=doc.id, position=Sentence.position + offset),
+        execution_options={"synchronize_session": False},
+    )
+    result = ImportResult(
+        corpus_id=corpus.id,
+        corpus_name=corpus.name,
+        document_id=doc.id,
+        document_name=doc.name,
+        kind=kind,
+        source=source,
+        imported=imported,
+        skipped_duplicates=skipped,
+        blank_lines=stats.blank,
+        empty_elements_dropped=stats.dropped,
+        duplicates=dups,
+        corpus_created=corpus_created,
+        document_created=doc_created,
+    )
     if kind == "gold":
         absorb_tree_inventory(corpus, stats.labels, stats.tags)
         if imported:
             gold_added(db, corpus)
     detail: dict[str, Any] = {
-        "source": source, "document": doc.name, "kind": kind, "imported": imported,
-        "attached": 0, "duplicates": len(dups), "annotator": None,
-        "summary": result.summary(), "skipped_duplicates": skipped,
-        "duplicate_lines": [d.describe() for d in dups[:REPORT_DUPLICATES]], "staged": True}
-    event = Event(user_id=user.id if user else None, kind="import", corpus_id=corpus.id,
-                  detail=detail)
+        "source": source,
+        "document": doc.name,
+        "kind": kind,
+        "imported": imported,
+        "attached": 0,
+        "duplicates": len(dups),
+        "annotator": None,
+        "summary": result.summary(),
+        "skipped_duplicates": skipped,
+        "duplicate_lines": [d.describe() for d in dups[:REPORT_DUPLICATES]],
+        "staged": True,
+    }
+    event = Event(
+        user_id=user.id if user else None, kind="import", corpus_id=corpus.id, detail=detail
+    )
     db.add(event)
     db.flush()
     result.event_id = event.id
@@ -278,9 +364,17 @@ def _publish(db: Session, staging_id: int, stage_doc_id: int, *, source: str,
     return result
 
 
-def import_handle(db: Session, handle: BinaryIO, *, source: str, corpus_name: str,
-                  kind: str = "text", document_name: str | None = None,
-                  annotator: str | None = None, **options: Any) -> ImportResult:
+def import_handle(
+    db: Session,
+    handle: BinaryIO,
+    *,
+    source: str,
+    corpus_name: str,
+    kind: str = "text",
+    document_name: str | None = None,
+    annotator: str | None = None,
+    **options: Any,
+) -> ImportResult:
     """Import an open binary file: text and gold streamed and staged (:func:`import_stream`),
     annotations through :func:`app.services.imports.import_bytes` (one transaction)."""
     if kind not in KINDS:
@@ -291,12 +385,25 @@ def import_handle(db: Session, handle: BinaryIO, *, source: str, corpus_name: st
         raise ImportFailed("the file is empty: there is nothing to import", source=source)
     if kind == "annotation":
         handle.seek(0)
-        return import_bytes(db, handle.read(), source=source, corpus_name=corpus_name,
-                            kind=kind, document_name=document_name, annotator=annotator,
-                            **options)
-    return import_stream(db, lambda: binary_lines(handle, source), source=source,
-                         corpus_name=corpus_name, document_name=document_name, kind=kind,
-                         **options)
+        return import_bytes(
+            db,
+            handle.read(),
+            source=source,
+            corpus_name=corpus_name,
+            kind=kind,
+            document_name=document_name,
+            annotator=annotator,
+            **options,
+        )
+    return import_stream(
+        db,
+        lambda: binary_lines(handle, source),
+        source=source,
+        corpus_name=corpus_name,
+        document_name=document_name,
+        kind=kind,
+        **options,
+    )
 
 
 def import_path(db: Session, path: Path, **options: Any) -> ImportResult:

@@ -96,15 +96,19 @@ def grammar_for(db: Session, version_id: int) -> Grammar:
         if cached is not None:
             _grammars.move_to_end(key)
             return cached
-    version = db.scalar(select(GrammarVersion).options(undefer(GrammarVersion.data))
-                        .where(GrammarVersion.id == version_id))
+    version = db.scalar(
+        select(GrammarVersion)
+        .options(undefer(GrammarVersion.data))
+        .where(GrammarVersion.id == version_id)
+    )
     if version is None or not version.data:
         raise NotFound(f"grammar version {version_id} has no saved grammar")
     try:
         grammar = grammar_from_bytes(version.data)
     except GrammarError as exc:
-        raise Conflict(f"grammar version {version_id} cannot be loaded: {exc}",
-                       kind="no_grammar") from exc
+        raise Conflict(
+            f"grammar version {version_id} cannot be loaded: {exc}", kind="no_grammar"
+        ) from exc
     # The first parse in a process compiles the chart's loops; pay it here, not on a request
     # that an annotator is waiting for more than this one.
     parse(grammar, ["a", "b"])
@@ -124,9 +128,11 @@ def warm_up(factory: sessionmaker[Session]) -> list[int]:
     parse(tiny, ["a", "b"], k=2, posteriors=True)
     loaded: list[int] = []
     with factory() as db:
-        ids = db.scalars(select(Corpus.active_grammar_id)
-                         .where(Corpus.active_grammar_id.is_not(None))
-                         .order_by(Corpus.id)).all()
+        ids = db.scalars(
+            select(Corpus.active_grammar_id)
+            .where(Corpus.active_grammar_id.is_not(None))
+            .order_by(Corpus.id)
+        ).all()
         for version_id in [i for i in ids if i is not None][:GRAMMAR_CACHE_SIZE]:
             try:
                 grammar_for(db, version_id)
@@ -152,12 +158,12 @@ def active_version(db: Session, corpus: Corpus) -> GrammarVersion | None:
 
 
 # --------------------------------------------------------------------------- suggestions
-def parse_suggestion(grammar: Grammar, word_list: list[str], k: int,
-                     complete: bool = True) -> dict[str, Any]:
+def parse_suggestion(
+    grammar: Grammar, word_list: list[str], k: int, complete: bool = True
+) -> dict[str, Any]:
     """Parse once and return the Suggestion row's column values (see the module docstring);
     without ``complete`` only the k best trees (no posteriors, no probabilities)."""
-    return suggestion_values(parse(grammar, word_list, k=k, posteriors=complete),
-                             complete=complete)
+    return suggestion_values(parse(grammar, word_list, k=k, posteriors=complete), complete=complete)
 
 
 def suggestion_values(result: ParseResult, complete: bool = True) -> dict[str, Any]:
@@ -172,8 +178,9 @@ def suggestion_values(result: ParseResult, complete: bool = True) -> dict[str, A
     return {
         "trees": [write_tree(t) for t in result.trees],
         "logprobs": logprobs,
-        "posteriors": [[lab, int(s), int(e), round(float(p), 4)]
-                       for lab, s, e, p in result.posteriors],
+        "posteriors": [
+            [lab, int(s), int(e), round(float(p), 4)] for lab, s, e, p in result.posteriors
+        ],
         "consensus": write_tree(result.consensus) if result.consensus is not None else None,
         "fallback": bool(result.fallback),
         "seconds": float(result.seconds),
@@ -191,8 +198,9 @@ def _sentence_words(sentence: Sentence) -> list[str]:
     return stored_words(sentence)
 
 
-def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
-                   complete: bool = True) -> Suggestion | None:
+def suggestion_for(
+    db: Session, sentence: Sentence, corpus: Corpus, k: int, complete: bool = True
+) -> Suggestion | None:
     """The cached suggestion under the active grammar, parsed now if missing; None when the
     corpus has no active grammar. Commits when it adds or completes a row.
 
@@ -205,8 +213,9 @@ def suggestion_for(db: Session, sentence: Sentence, corpus: Corpus, k: int,
     return _suggestion_under(db, sentence, version, k, complete)
 
 
-def _suggestion_under(db: Session, sentence: Sentence, version: GrammarVersion, k: int,
-                      complete: bool) -> Suggestion | None:
+def _suggestion_under(
+    db: Session, sentence: Sentence, version: GrammarVersion, k: int, complete: bool
+) -> Suggestion | None:
     """The cached suggestion of ``sentence`` under ``version``, parsed now if missing."""
     row = _cached(db, sentence.id, version.id)
     if row is not None and (is_complete(row) or not complete):
@@ -215,10 +224,10 @@ def _suggestion_under(db: Session, sentence: Sentence, version: GrammarVersion, 
     if too_long(word_list):
         return None
     grammar = grammar_for(db, version.id)
-    key = ("suggestion", str(db.get_bind().engine.url), version.id, tuple(word_list), k,
-           complete)
+    key = ("suggestion", str(db.get_bind().engine.url), version.id, tuple(word_list), k, complete)
     values = admission().run(
-        key, lambda: parse_suggestion(grammar, word_list, k, complete=complete))
+        key, lambda: parse_suggestion(grammar, word_list, k, complete=complete)
+    )
     if row is not None:  # complete the fast row in place; the parse is deterministic
         for key, value in values.items():
             setattr(row, key, value)
@@ -245,17 +254,29 @@ def unseen_words(db: Session, sentence: Sentence, corpus: Corpus) -> list[int]:
     except (NotFound, Conflict):  # no loadable grammar: nothing to compare with
         return []
     known = len(grammar.vocab)
-    return [i for i, w in enumerate(_sentence_words(sentence))
-            if not 0 <= grammar.word_column(w, first=i == 0) < known]
+    return [
+        i
+        for i, w in enumerate(_sentence_words(sentence))
+        if not 0 <= grammar.word_column(w, first=i == 0) < known
+    ]
 
 
 def _cached(db: Session, sentence_id: int, version_id: int) -> Suggestion | None:
-    return db.scalar(select(Suggestion).where(Suggestion.sentence_id == sentence_id,
-                                              Suggestion.grammar_version_id == version_id))
+    return db.scalar(
+        select(Suggestion).where(
+            Suggestion.sentence_id == sentence_id, Suggestion.grammar_version_id == version_id
+        )
+    )
 
 
-def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersion,
-                      k: int = 5, batch: int = 200, processes: int | None = None) -> int:
+def refresh_unstarted(
+    db: Session,
+    corpus: Corpus,
+    grammar_version: GrammarVersion,
+    k: int = 5,
+    batch: int = 200,
+    processes: int | None = None,
+) -> int:
     """Cache suggestions under ``grammar_version`` for every open (queued or in progress)
     sentence of ``corpus`` that nobody has started (no annotation with a saved revision) and
     that lacks one.
@@ -264,24 +285,33 @@ def refresh_unstarted(db: Session, corpus: Corpus, grammar_version: GrammarVersi
     ``processes=1`` keeps it in this process) and each batch is committed, so an interrupted
     refresh keeps what it finished. Returns the number of suggestions computed."""
     started = exists().where(Annotation.sentence_id == Sentence.id, Annotation.head > 0)
-    cached = exists().where(Suggestion.sentence_id == Sentence.id,
-                            Suggestion.grammar_version_id == grammar_version.id)
+    cached = exists().where(
+        Suggestion.sentence_id == Sentence.id, Suggestion.grammar_version_id == grammar_version.id
+    )
     # Gold and in-review sentences need no suggestion: nobody will open them on the Bench.
     open_states = (SENT_QUEUED, SENT_IN_PROGRESS)
-    todo = db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id, ~started,
-                                             ~cached, Sentence.state.in_(open_states))
-                      .order_by(Sentence.id)).all()
+    todo = db.scalars(
+        select(Sentence)
+        .where(Sentence.corpus_id == corpus.id, ~started, ~cached, Sentence.state.in_(open_states))
+        .order_by(Sentence.id)
+    ).all()
     if not todo:
         return 0
     grammar = grammar_for(db, grammar_version.id)
     done = 0
     for at in range(0, len(todo), batch):
-        part = todo[at:at + batch]
-        results = parse_many(grammar, [_sentence_words(s) for s in part], k=k,
-                             posteriors=True, processes=processes)
+        part = todo[at : at + batch]
+        results = parse_many(
+            grammar, [_sentence_words(s) for s in part], k=k, posteriors=True, processes=processes
+        )
         for sentence, result in zip(part, results, strict=True):
-            db.add(Suggestion(sentence_id=sentence.id, grammar_version_id=grammar_version.id,
-                              **suggestion_values(result)))
+            db.add(
+                Suggestion(
+                    sentence_id=sentence.id,
+                    grammar_version_id=grammar_version.id,
+                    **suggestion_values(result),
+                )
+            )
         db.commit()
         done += len(part)
     return done
@@ -296,22 +326,31 @@ def prune(db: Session, corpus: Corpus, keep_grammars: int) -> tuple[int, int]:
     active = corpus.active_grammar_id
     if active is None:
         return 0, 0
-    others = select(GrammarVersion.id).where(GrammarVersion.corpus_id == corpus.id,
-                                             GrammarVersion.id != active)
-    started = exists().where(Annotation.sentence_id == Suggestion.sentence_id,
-                             Annotation.head > 0)
-    deleted = db.execute(delete(Suggestion).where(Suggestion.grammar_version_id.in_(others),
-                                                  ~started)
-                         .execution_options(synchronize_session=False))
+    others = select(GrammarVersion.id).where(
+        GrammarVersion.corpus_id == corpus.id, GrammarVersion.id != active
+    )
+    started = exists().where(Annotation.sentence_id == Suggestion.sentence_id, Annotation.head > 0)
+    deleted = db.execute(
+        delete(Suggestion)
+        .where(Suggestion.grammar_version_id.in_(others), ~started)
+        .execution_options(synchronize_session=False)
+    )
     dropped = 0
     if keep_grammars > 0:
-        saved = db.scalars(others.where(GrammarVersion.data.is_not(None))
-                           .order_by(GrammarVersion.number.desc())).all()
+        saved = db.scalars(
+            others.where(GrammarVersion.data.is_not(None)).order_by(GrammarVersion.number.desc())
+        ).all()
         old = list(saved[keep_grammars:])
         if old:
-            dropped = cast(CursorResult[Any], db.execute(
-                update(GrammarVersion).where(GrammarVersion.id.in_(old)).values(data=None)
-                .execution_options(synchronize_session=False))).rowcount
+            dropped = cast(
+                CursorResult[Any],
+                db.execute(
+                    update(GrammarVersion)
+                    .where(GrammarVersion.id.in_(old))
+                    .values(data=None)
+                    .execution_options(synchronize_session=False)
+                ),
+            ).rowcount
     return cast(CursorResult[Any], deleted).rowcount, dropped
 
 
@@ -333,29 +372,47 @@ class StartTree:
     suggestion_id: int | None = None
 
 
-def start_tree(sentence: Sentence, suggestion: Suggestion | None,
-               version_number: int | None = None) -> StartTree:
+def start_tree(
+    sentence: Sentence, suggestion: Suggestion | None, version_number: int | None = None
+) -> StartTree:
     """The consensus tree when the suggestion has one, else its best reading, else flat."""
     of = f" (grammar version {version_number})" if version_number is not None else ""
     if suggestion is not None and suggestion.consensus:
-        return StartTree(suggestion.consensus, "suggestion",
-                         f"Consensus of the grammar{of}: the brackets most probable over "
-                         "all its readings.", START_CONSENSUS, suggestion.grammar_version_id,
-                         version_number, suggestion.id)
+        return StartTree(
+            suggestion.consensus,
+            "suggestion",
+            f"Consensus of the grammar{of}: the brackets most probable over all its readings.",
+            START_CONSENSUS,
+            suggestion.grammar_version_id,
+            version_number,
+            suggestion.id,
+        )
     if suggestion is not None and suggestion.trees:
         fallback = suggestion.fallback
-        note = (f"The grammar{of} found no full parse; this is its fallback tree."
-                if fallback else f"Best reading of the grammar{of}.")
-        return StartTree(suggestion.trees[0], "suggestion", note,
-                         START_FALLBACK if fallback else START_BEST,
-                         suggestion.grammar_version_id, version_number, suggestion.id)
+        note = (
+            f"The grammar{of} found no full parse; this is its fallback tree."
+            if fallback
+            else f"Best reading of the grammar{of}."
+        )
+        return StartTree(
+            suggestion.trees[0],
+            "suggestion",
+            note,
+            START_FALLBACK if fallback else START_BEST,
+            suggestion.grammar_version_id,
+            version_number,
+            suggestion.id,
+        )
     word_list = _sentence_words(sentence)
     tree = flat_tree(word_list)
     if too_long(word_list):
-        return StartTree(write_tree(tree), "flat",
-                         f"This sentence has {len(word_list)} words, more than the "
-                         f"{admission().max_words} the parser takes on request: it starts flat. "
-                         "Split it into shorter sentences to get suggestions.")
+        return StartTree(
+            write_tree(tree),
+            "flat",
+            f"This sentence has {len(word_list)} words, more than the "
+            f"{admission().max_words} the parser takes on request: it starts flat. "
+            "Split it into shorter sentences to get suggestions.",
+        )
     return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")
 
 
@@ -390,14 +447,20 @@ def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> Star
         start = start_tree(sentence, row, version.number)
         moved = db.execute(
             update(Sentence)
-            .where(Sentence.id == sentence.id,
-                   (Sentence.start_kind.is_(None))
-                   | ((Sentence.start_kind != START_FLAT)
-                      & (Sentence.start_grammar_version_id.is_(None)
-                         | (Sentence.start_grammar_version_id
-                            == sentence.start_grammar_version_id))))
+            .where(
+                Sentence.id == sentence.id,
+                (Sentence.start_kind.is_(None))
+                | (
+                    (Sentence.start_kind != START_FLAT)
+                    & (
+                        Sentence.start_grammar_version_id.is_(None)
+                        | (Sentence.start_grammar_version_id == sentence.start_grammar_version_id)
+                    )
+                ),
+            )
             .values(start_kind=start.kind, start_grammar_version_id=version.id)
-            .execution_options(synchronize_session=False))
+            .execution_options(synchronize_session=False)
+        )
         db.commit()
         db.refresh(sentence)
         if cast(CursorResult[Any], moved).rowcount == 1:
@@ -410,10 +473,12 @@ def record_start(db: Session, annotation: Annotation, sentence: Sentence) -> Non
     """Copy the sentence's fixed start onto a new annotation (no commit). A sentence nobody
     opened under a grammar gets the flat start fixed now."""
     if sentence.start_kind is None:
-        db.execute(update(Sentence)
-                   .where(Sentence.id == sentence.id, Sentence.start_kind.is_(None))
-                   .values(start_kind=START_FLAT)
-                   .execution_options(synchronize_session=False))
+        db.execute(
+            update(Sentence)
+            .where(Sentence.id == sentence.id, Sentence.start_kind.is_(None))
+            .values(start_kind=START_FLAT)
+            .execution_options(synchronize_session=False)
+        )
         db.refresh(sentence)
     annotation.start_kind = sentence.start_kind
     annotation.start_grammar_version_id = sentence.start_grammar_version_id
@@ -440,35 +505,41 @@ def said_from_pins(pins: dict[str, Any], n: int) -> Said:
         for item in pins.get(key) or []:
             s, e, label = int(item[0]), int(item[1]), str(item[2])
             if not 0 <= s < e <= n:
-                raise BadInput(f"pinned span ({s}, {e}) lies outside the sentence's {n} words",
-                               kind="pins")
+                raise BadInput(
+                    f"pinned span ({s}, {e}) lies outside the sentence's {n} words", kind="pins"
+                )
             required[(s, e, label)] = None
     forbidden: dict[tuple[int, int], None] = {}
     for item in pins.get("removed_spans") or []:
         s, e = int(item[0]), int(item[1])
         if not 0 <= s < e <= n:
-            raise BadInput(f"removed span ({s}, {e}) lies outside the sentence's {n} words",
-                           kind="pins")
+            raise BadInput(
+                f"removed span ({s}, {e}) lies outside the sentence's {n} words", kind="pins"
+            )
         forbidden[(s, e)] = None
     tags: dict[int, str] = {}
     for key in ("tags", "edited_tags"):
         for item in pins.get(key) or []:
             i, tag = int(item[0]), str(item[1])
             if not 0 <= i < n:
-                raise BadInput(f"pinned tag at word {i + 1} lies outside the sentence's {n} "
-                               "words", kind="pins")
+                raise BadInput(
+                    f"pinned tag at word {i + 1} lies outside the sentence's {n} words", kind="pins"
+                )
             if tags.get(i, tag) != tag:
-                raise BadInput(f"word {i + 1} is said to be both {tags[i]} and {tag}",
-                               kind="pins")
+                raise BadInput(f"word {i + 1} is said to be both {tags[i]} and {tag}", kind="pins")
             tags[i] = tag
-    return Said(required=tuple(required), forbidden=tuple(forbidden),
-                tags=tuple(sorted(tags.items())))
+    return Said(
+        required=tuple(required), forbidden=tuple(forbidden), tags=tuple(sorted(tags.items()))
+    )
 
 
 def _summary(version: int, said: Said, outcome: Outcome, diff: Changes | None) -> str:
     parts = []
-    for count, one in ((len(said.required), "bracket"), (len(said.forbidden), "removed bracket"),
-                       (len(said.tags), "tag")):
+    for count, one in (
+        (len(said.required), "bracket"),
+        (len(said.forbidden), "removed bracket"),
+        (len(said.tags), "tag"),
+    ):
         if count:
             parts.append(f"{count} {one}{'' if count == 1 else 's'}")
     around = (" around " + ", ".join(parts) + " you set") if parts else ""
@@ -480,11 +551,16 @@ def _summary(version: int, said: Said, outcome: Outcome, diff: Changes | None) -
     bits = []
     plain_added = len(diff.added) - len(diff.relabelled)
     plain_removed = len(diff.removed) - len(diff.relabelled)
-    for count, one in ((plain_added, "bracket added"), (plain_removed, "bracket removed"),
-                       (len(diff.relabelled), "relabelled"), (len(diff.retagged), "tag changed")):
+    for count, one in (
+        (plain_added, "bracket added"),
+        (plain_removed, "bracket removed"),
+        (len(diff.relabelled), "relabelled"),
+        (len(diff.retagged), "tag changed"),
+    ):
         if count:
-            word = one if count == 1 else one.replace("bracket ", "brackets ").replace(
-                "tag ", "tags ")
+            word = (
+                one if count == 1 else one.replace("bracket ", "brackets ").replace("tag ", "tags ")
+            )
             bits.append(f"{count} {word}")
     return head + ": " + ", ".join(bits) + "."
 
@@ -495,34 +571,55 @@ def too_long(word_list: list[str]) -> bool:
     return len(word_list) > admission().max_words
 
 
-def reparse(db: Session, sentence: Sentence, corpus: Corpus, pins: dict[str, Any],
-            k: int = 1, tree_text: str | None = None) -> Reparse:
+def reparse(
+    db: Session,
+    sentence: Sentence,
+    corpus: Corpus,
+    pins: dict[str, Any],
+    k: int = 1,
+    tree_text: str | None = None,
+) -> Reparse:
     """Re-parse around everything said in ``pins`` (:func:`parser.reparse.reparse`), favouring
     the tree sent (``tree_text``, checked against the sentence's words) and saying what the
     proposal would change in it."""
     version = active_version(db, corpus)
     if version is None:
-        raise Conflict("this corpus has no active grammar yet; re-parse needs one",
-                       kind="no_grammar")
+        raise Conflict(
+            "this corpus has no active grammar yet; re-parse needs one", kind="no_grammar"
+        )
     word_list = _sentence_words(sentence)
     n = len(word_list)
     if too_long(word_list):
-        raise Conflict(f"this sentence has {n} words, more than the {admission().max_words} "
-                       "the parser takes on request; split it first", kind="too_long")
+        raise Conflict(
+            f"this sentence has {n} words, more than the {admission().max_words} "
+            "the parser takes on request; split it first",
+            kind="too_long",
+        )
     grammar = grammar_for(db, version.id)
     said = said_from_pins(pins, n)
     previous = None
     if tree_text is not None:
         # labels outside the corpus's sets are the save's business, not the re-parse's
         previous = validate_tree_text(sentence, tree_text, corpus, confirm_labels=True)
-    key = ("reparse", str(db.get_bind().engine.url), version.id, tuple(word_list), k, said,
-           None if previous is None else write_tree(previous))
+    key = (
+        "reparse",
+        str(db.get_bind().engine.url),
+        version.id,
+        tuple(word_list),
+        k,
+        said,
+        None if previous is None else write_tree(previous),
+    )
     try:
         outcome = admission().run(
-            key, lambda: loop.reparse(grammar, word_list, said, previous, k=k))
+            key, lambda: loop.reparse(grammar, word_list, said, previous, k=k)
+        )
     except ConstraintError as exc:
         raise BadInput(f"what you said contradicts itself: {exc}", kind="pins") from exc
     diff = loop.changes(previous, outcome.tree) if previous is not None else None
-    return Reparse(outcome=outcome, changes=diff,
-                   summary=_summary(version.number, said, outcome, diff),
-                   grammar_version=version.number)
+    return Reparse(
+        outcome=outcome,
+        changes=diff,
+        summary=_summary(version.number, said, outcome, diff),
+        grammar_version=version.number,
+    )

@@ -65,36 +65,49 @@ class TokenChange:
         return cls(int(data["position"]), int(data["count"]), tuple(data["tokens"]))
 
     def apply(self, tokens: list[str]) -> list[str]:
-        return [*tokens[:self.position], *self.tokens, *tokens[self.position + self.count:]]
+        return [*tokens[: self.position], *self.tokens, *tokens[self.position + self.count :]]
 
     def inverse(self, old_tokens: list[str]) -> TokenChange:
         """The change that takes the new tokens back to ``old_tokens``."""
-        return TokenChange(self.position, len(self.tokens),
-                           tuple(old_tokens[self.position:self.position + self.count]))
+        return TokenChange(
+            self.position,
+            len(self.tokens),
+            tuple(old_tokens[self.position : self.position + self.count]),
+        )
 
 
 def check_change(tokens: list[str], change: TokenChange) -> None:
     """Refuse a change that is not a split, a join of two or a respelling, saying why."""
     n = len(tokens)
     if not 0 <= change.position < n:
-        raise BadInput(f"no token {change.position + 1}: the sentence has {n}",
-                       kind="tokens", position=change.position)
+        raise BadInput(
+            f"no token {change.position + 1}: the sentence has {n}",
+            kind="tokens",
+            position=change.position,
+        )
     if change.count not in (1, 2) or change.position + change.count > n:
-        raise BadInput("a fix replaces one token, or two neighbours (a join)", kind="tokens",
-                       position=change.position)
+        raise BadInput(
+            "a fix replaces one token, or two neighbours (a join)",
+            kind="tokens",
+            position=change.position,
+        )
     if not change.tokens or len(change.tokens) > MAX_PIECES:
-        raise BadInput(f"a token becomes one or {MAX_PIECES} tokens", kind="tokens",
-                       position=change.position)
+        raise BadInput(
+            f"a token becomes one or {MAX_PIECES} tokens", kind="tokens", position=change.position
+        )
     if change.count == 2 and len(change.tokens) != 1:
-        raise BadInput("two tokens can only be joined into one", kind="tokens",
-                       position=change.position)
+        raise BadInput(
+            "two tokens can only be joined into one", kind="tokens", position=change.position
+        )
     for piece in change.tokens:
         if not piece or any(ch.isspace() for ch in piece):
-            raise BadInput(f"'{piece}' cannot be a token: empty or with a space inside",
-                           kind="tokens", position=change.position)
-    if list(change.tokens) == tokens[change.position:change.position + change.count]:
-        raise BadInput("the tokens are the same as before", kind="tokens",
-                       position=change.position)
+            raise BadInput(
+                f"'{piece}' cannot be a token: empty or with a space inside",
+                kind="tokens",
+                position=change.position,
+            )
+    if list(change.tokens) == tokens[change.position : change.position + change.count]:
+        raise BadInput("the tokens are the same as before", kind="tokens", position=change.position)
 
 
 def _preterminals(tree: Tree) -> list[tuple[int, ...]]:
@@ -118,7 +131,7 @@ def carry_tree(tree: Tree, change: TokenChange) -> Tree:
         while up and len(out[up]) == 0:
             del out[up]
             up = up[:-1]
-    parent[index:index + 1] = [Tree(tag, [escape_word(t)]) for t in change.tokens]
+    parent[index : index + 1] = [Tree(tag, [escape_word(t)]) for t in change.tokens]
     return out
 
 
@@ -141,9 +154,11 @@ def carry_pins(pins: dict[str, Any], change: TokenChange) -> dict[str, Any]:
 def carry_through(db: Session, sentence: Sentence, tree_text: str, since: int) -> str:
     """A tree made on token version ``since`` carried over every change up to the current."""
     tree = read_tree(tree_text)
-    versions = db.scalars(select(TokenVersion).where(TokenVersion.sentence_id == sentence.id,
-                                                     TokenVersion.number >= since)
-                          .order_by(TokenVersion.number))
+    versions = db.scalars(
+        select(TokenVersion)
+        .where(TokenVersion.sentence_id == sentence.id, TokenVersion.number >= since)
+        .order_by(TokenVersion.number)
+    )
     for version in versions:
         tree = carry_tree(tree, TokenChange.from_json(version.change))
     return write_tree(tree)
@@ -156,55 +171,87 @@ class TokenFix:
     inverse: TokenChange
 
 
-def fix_tokens(db: Session, user: User, sentence: Sentence, *, base: int,
-               change: TokenChange) -> TokenFix:
+def fix_tokens(
+    db: Session, user: User, sentence: Sentence, *, base: int, change: TokenChange
+) -> TokenFix:
     """Apply ``change`` to the sentence's tokens as a new version and carry ``user``'s tree
     over as a new revision (``base`` must be their head). Commits."""
     if sentence.state in (SENT_IN_REVIEW, SENT_GOLD):
-        raise Conflict(f"this sentence is {sentence.state.replace('_', ' ')}: its tokens are "
-                       "settled", kind="state")
+        raise Conflict(
+            f"this sentence is {sentence.state.replace('_', ' ')}: its tokens are settled",
+            kind="state",
+        )
     old = [str(t) for t in sentence.tokens]
     check_change(old, change)
-    annotation = db.scalar(select(Annotation).where(Annotation.sentence_id == sentence.id,
-                                                    Annotation.user_id == user.id))
+    annotation = db.scalar(
+        select(Annotation).where(
+            Annotation.sentence_id == sentence.id, Annotation.user_id == user.id
+        )
+    )
     if annotation is None or annotation.head == 0:
         raise BadInput("save a tree first: the fix carries your tree over", kind="state")
     if annotation.state == ANN_SUBMITTED:
         raise Conflict("this annotation is handed in and takes no more changes", kind="state")
     if base != annotation.head:
-        raise Conflict(f"fix based on revision {base}, but the newest is revision "
-                       f"{annotation.head}", head=annotation.head)
+        raise Conflict(
+            f"fix based on revision {base}, but the newest is revision {annotation.head}",
+            head=annotation.head,
+        )
     head = current_revision(db, annotation)
     if head is None or head.token_version != sentence.token_version:
-        raise Conflict("your tree is on earlier tokens: open the sentence again",
-                       head=annotation.head)
+        raise Conflict(
+            "your tree is on earlier tokens: open the sentence again", head=annotation.head
+        )
     tree = carry_tree(read_tree(head.tree), change)
     pins = carry_pins(head.pins or {}, change)
     now = utcnow()
-    db.add(TokenVersion(sentence_id=sentence.id, number=sentence.token_version, tokens=old,
-                        text=sentence.text, change=change.as_json(), user_id=user.id,
-                        created_at=now))
+    db.add(
+        TokenVersion(
+            sentence_id=sentence.id,
+            number=sentence.token_version,
+            tokens=old,
+            text=sentence.text,
+            change=change.as_json(),
+            user_id=user.id,
+            created_at=now,
+        )
+    )
     new_tokens = change.apply(old)
     sentence.tokens = new_tokens
     sentence.text = " ".join(new_tokens)
     sentence.token_version += 1
     moved = db.execute(
-        update(Annotation).where(Annotation.id == annotation.id, Annotation.head == base)
-        .values(head=base + 1, updated_at=now).execution_options(synchronize_session=False))
+        update(Annotation)
+        .where(Annotation.id == annotation.id, Annotation.head == base)
+        .values(head=base + 1, updated_at=now)
+        .execution_options(synchronize_session=False)
+    )
     if cast(CursorResult[Any], moved).rowcount != 1:
         db.rollback()
         raise Conflict("another save of this annotation came first", head=annotation.head)
-    revision = Revision(annotation_id=annotation.id, number=base + 1, tree=write_tree(tree),
-                        pins=pins, source="tokens", user_id=user.id, created_at=now,
-                        token_version=sentence.token_version)
+    revision = Revision(
+        annotation_id=annotation.id,
+        number=base + 1,
+        tree=write_tree(tree),
+        pins=pins,
+        source="tokens",
+        user_id=user.id,
+        created_at=now,
+        token_version=sentence.token_version,
+    )
     db.add(revision)
     db.execute(delete(Suggestion).where(Suggestion.sentence_id == sentence.id))
     # handed-in trees on the old tokens no longer describe the sentence: back to draft
-    db.execute(update(Annotation).where(Annotation.sentence_id == sentence.id,
-                                        Annotation.id != annotation.id,
-                                        Annotation.state == ANN_SUBMITTED)
-               .values(state=ANN_DRAFT, submitted_at=None)
-               .execution_options(synchronize_session=False))
+    db.execute(
+        update(Annotation)
+        .where(
+            Annotation.sentence_id == sentence.id,
+            Annotation.id != annotation.id,
+            Annotation.state == ANN_SUBMITTED,
+        )
+        .values(state=ANN_DRAFT, submitted_at=None)
+        .execution_options(synchronize_session=False)
+    )
     db.commit()
     db.refresh(annotation)
     return TokenFix(annotation=annotation, revision=revision, inverse=change.inverse(old))

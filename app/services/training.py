@@ -134,21 +134,36 @@ RANKED_STATES = (SENT_QUEUED, SENT_IN_PROGRESS)
 
 
 def current_gold_count(db: Session, corpus_id: int) -> int:
-    return db.scalar(select(func.count(Gold.id)).join(Sentence, Sentence.id == Gold.sentence_id)
-                     .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))) or 0
+    return (
+        db.scalar(
+            select(func.count(Gold.id))
+            .join(Sentence, Sentence.id == Gold.sentence_id)
+            .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+        )
+        or 0
+    )
 
 
 def latest_version(db: Session, corpus_id: int) -> GrammarVersion | None:
-    return db.scalar(select(GrammarVersion).where(GrammarVersion.corpus_id == corpus_id)
-                     .order_by(GrammarVersion.number.desc()).limit(1))
+    return db.scalar(
+        select(GrammarVersion)
+        .where(GrammarVersion.corpus_id == corpus_id)
+        .order_by(GrammarVersion.number.desc())
+        .limit(1)
+    )
 
 
 def open_job(db: Session, corpus_id: int) -> GrammarVersion | None:
     """The corpus's queued or running job, if any."""
-    return db.scalar(select(GrammarVersion).where(
-        GrammarVersion.corpus_id == corpus_id,
-        GrammarVersion.status.in_((GV_QUEUED, GV_TRAINING))).order_by(GrammarVersion.number)
-        .limit(1))
+    return db.scalar(
+        select(GrammarVersion)
+        .where(
+            GrammarVersion.corpus_id == corpus_id,
+            GrammarVersion.status.in_((GV_QUEUED, GV_TRAINING)),
+        )
+        .order_by(GrammarVersion.number)
+        .limit(1)
+    )
 
 
 def new_gold_since_last(db: Session, corpus: Corpus) -> int:
@@ -160,18 +175,29 @@ def _queue(db: Session, corpus: Corpus, reason: str, user_id: int | None) -> Gra
     """Insert the next queued version (in a savepoint) or return None when another
     transaction took the number first."""
     last = latest_version(db, corpus.id)
-    version = GrammarVersion(corpus_id=corpus.id, number=(last.number + 1) if last else 1,
-                             status=GV_QUEUED, progress=0.0, message="waiting for the trainer",
-                             options={"reason": reason, "requested_by": user_id},
-                             gold_count_at_start=current_gold_count(db, corpus.id))
+    version = GrammarVersion(
+        corpus_id=corpus.id,
+        number=(last.number + 1) if last else 1,
+        status=GV_QUEUED,
+        progress=0.0,
+        message="waiting for the trainer",
+        options={"reason": reason, "requested_by": user_id},
+        gold_count_at_start=current_gold_count(db, corpus.id),
+    )
     try:
         with db.begin_nested():
             db.add(version)
             db.flush()
     except IntegrityError:
         return None
-    db.add(Event(user_id=user_id, kind="grammar.queued", corpus_id=corpus.id,
-                 detail={"version": version.number, "reason": reason}))
+    db.add(
+        Event(
+            user_id=user_id,
+            kind="grammar.queued",
+            corpus_id=corpus.id,
+            detail={"version": version.number, "reason": reason},
+        )
+    )
     db.info[KICK_FLAG] = True
     return version
 
@@ -198,8 +224,9 @@ def queue_if_due(db: Session, corpus: Corpus) -> GrammarVersion | None:
     return _queue(db, corpus, f"{every} new gold trees", None)
 
 
-def request_training(db: Session, corpus_id: int, *, reason: str,
-                     user_id: int | None = None) -> GrammarVersion:
+def request_training(
+    db: Session, corpus_id: int, *, reason: str, user_id: int | None = None
+) -> GrammarVersion:
     """Queue a version of the corpus now, or return the one already queued or training.
     Commits."""
     corpus = db.get(Corpus, corpus_id)
@@ -249,10 +276,12 @@ class GoldTree:
 
 def load_gold(db: Session, corpus_id: int) -> list[GoldTree]:
     """Current gold of the corpus in sentence-id order, empty elements removed, ROOT-rooted."""
-    rows = db.execute(select(Gold.sentence_id, Gold.tree, Gold.id)
-                      .join(Sentence, Sentence.id == Gold.sentence_id)
-                      .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
-                      .order_by(Gold.sentence_id, Gold.id)).all()
+    rows = db.execute(
+        select(Gold.sentence_id, Gold.tree, Gold.id)
+        .join(Sentence, Sentence.id == Gold.sentence_id)
+        .where(Sentence.corpus_id == corpus_id, Gold.retired_at.is_(None))
+        .order_by(Gold.sentence_id, Gold.id)
+    ).all()
     latest: dict[int, str] = {}
     for sid, text, _ in rows:
         latest[sid] = text  # the newest current row wins (there should be one)
@@ -295,14 +324,17 @@ class _Progress:
             return
         self.last = now
         with self.factory() as db:
-            db.execute(update(GrammarVersion).where(GrammarVersion.id == self.version_id)
-                       .values(progress=round(min(max(progress, 0.0), 1.0), 4),
-                               message=message))
+            db.execute(
+                update(GrammarVersion)
+                .where(GrammarVersion.id == self.version_id)
+                .values(progress=round(min(max(progress, 0.0), 1.0), 4), message=message)
+            )
             db.commit()
 
     def phase(self, lo: float, hi: float, what: str) -> Callable[[int, int], None]:
         def report(done: int, total: int) -> None:
             self(lo + (hi - lo) * done / max(total, 1), f"{what} ({done} of {total})")
+
         return report
 
 
@@ -313,12 +345,19 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
         if version_id is not None:
             query = query.where(GrammarVersion.id == version_id)
         for vid in db.scalars(query.order_by(GrammarVersion.created_at, GrammarVersion.id)):
-            moved = db.execute(update(GrammarVersion)
-                               .where(GrammarVersion.id == vid, GrammarVersion.status == GV_QUEUED)
-                               .values(status=GV_TRAINING, progress=0.0, message="starting",
-                                       owner_host=HOST, owner_pid=os.getpid(),
-                                       heartbeat_at=utcnow())
-                               .execution_options(synchronize_session=False))
+            moved = db.execute(
+                update(GrammarVersion)
+                .where(GrammarVersion.id == vid, GrammarVersion.status == GV_QUEUED)
+                .values(
+                    status=GV_TRAINING,
+                    progress=0.0,
+                    message="starting",
+                    owner_host=HOST,
+                    owner_pid=os.getpid(),
+                    heartbeat_at=utcnow(),
+                )
+                .execution_options(synchronize_session=False)
+            )
             db.commit()
             if cast(CursorResult[Any], moved).rowcount == 1:
                 return vid
@@ -329,23 +368,29 @@ class Heartbeat:
     """While a job runs, a thread of its process writes ``heartbeat_at`` every
     HEARTBEAT_SECONDS, so that other processes can tell a live job from an abandoned one."""
 
-    def __init__(self, factory: sessionmaker[Session], version_id: int,
-                 every: float = HEARTBEAT_SECONDS) -> None:
+    def __init__(
+        self, factory: sessionmaker[Session], version_id: int, every: float = HEARTBEAT_SECONDS
+    ) -> None:
         self.factory = factory
         self.version_id = version_id
         self.every = every
         self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._beat, daemon=True,
-                                        name=f"treewright-heartbeat-{version_id}")
+        self._thread = threading.Thread(
+            target=self._beat, daemon=True, name=f"treewright-heartbeat-{version_id}"
+        )
 
     def _beat(self) -> None:
         while not self._stop.wait(self.every):
             try:
                 with self.factory() as db:
-                    db.execute(update(GrammarVersion)
-                               .where(GrammarVersion.id == self.version_id,
-                                      GrammarVersion.status == GV_TRAINING)
-                               .values(heartbeat_at=utcnow()))
+                    db.execute(
+                        update(GrammarVersion)
+                        .where(
+                            GrammarVersion.id == self.version_id,
+                            GrammarVersion.status == GV_TRAINING,
+                        )
+                        .values(heartbeat_at=utcnow())
+                    )
                     db.commit()
             except Exception:  # noqa: BLE001 - a missed beat is retried at the next one
                 log.warning("heartbeat of grammar version %s failed", self.version_id)
@@ -368,9 +413,11 @@ def run_version(factory: sessionmaker[Session], version_id: int) -> None:
     except Exception as exc:  # noqa: BLE001 - every failure must reach the row, not vanish
         log.exception("training grammar version %s failed", version_id)
         with factory() as db:
-            db.execute(update(GrammarVersion).where(GrammarVersion.id == version_id)
-                       .values(status=GV_FAILED, message=f"failed: {exc}"[:2000],
-                               finished_at=utcnow()))
+            db.execute(
+                update(GrammarVersion)
+                .where(GrammarVersion.id == version_id)
+                .values(status=GV_FAILED, message=f"failed: {exc}"[:2000], finished_at=utcnow())
+            )
             db.commit()
 
 
@@ -391,8 +438,7 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         version.gold_count_at_start = current_gold_count(db, corpus_id)
         db.commit()
     reference = [t for _, trees in refs for t in trees]
-    progress(0.02, f"read {len(gold)} gold trees and {len(reference)} reference trees",
-             force=True)
+    progress(0.02, f"read {len(gold)} gold trees and {len(reference)} reference trees", force=True)
     if not gold and not reference:
         raise ValueError("the corpus has no gold trees and no reference trees to train on")
     train, held = split_heldout(gold, every)
@@ -408,30 +454,43 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         return details[-1][0]
 
     if reference and weight_setting == AUTO_WEIGHT:
-        choice = choose_weighting([g.tree for g in train], [g.tree for g in held], reference,
-                                  score=score)
+        choice = choose_weighting(
+            [g.tree for g in train], [g.tree for g in held], reference, score=score
+        )
         weighting = choice.weighting
         adaptation = {"setting": weight_setting, **choice.to_dict()}
         if choice.scores:
             best = [w for w, _ in choice.scores].index(weighting)
             heldout_f1, heldout_detail = details[best]
     else:
-        weighting = parse_weighting(weight_setting) if reference and \
-            weight_setting != AUTO_WEIGHT else Weighting()
-        adaptation = {"setting": weight_setting, "weighting": describe(weighting),
-                      "reason": "set on the corpus" if reference else "no reference trees"}
+        weighting = (
+            parse_weighting(weight_setting)
+            if reference and weight_setting != AUTO_WEIGHT
+            else Weighting()
+        )
+        adaptation = {
+            "setting": weight_setting,
+            "weighting": describe(weighting),
+            "reason": "set on the corpus" if reference else "no reference trees",
+        }
     if held and heldout_f1 is None:
-        g_slice = train_grammar([g.tree for g in train], reference=reference,
-                                weighting=weighting,
-                                progress=progress.phase(0.02, 0.2, "training on the slice"))
+        g_slice = train_grammar(
+            [g.tree for g in train],
+            reference=reference,
+            weighting=weighting,
+            progress=progress.phase(0.02, 0.2, "training on the slice"),
+        )
         heldout_f1, heldout_detail = _score_heldout(g_slice, held, progress)
     if reference and held:
         # the reference-only start on today's held-out gold (the learning curve's baseline)
-        adaptation["reference_only_f1"] = round(score(train_grammar([], reference=reference)),
-                                                5)
+        adaptation["reference_only_f1"] = round(score(train_grammar([], reference=reference)), 5)
     t_eval = time.perf_counter()
-    grammar = train_grammar([g.tree for g in gold], reference=reference, weighting=weighting,
-                            progress=progress.phase(0.85, 0.95, "training on all gold"))
+    grammar = train_grammar(
+        [g.tree for g in gold],
+        reference=reference,
+        weighting=weighting,
+        progress=progress.phase(0.85, 0.95, "training on all gold"),
+    )
     data = grammar_bytes(grammar)
     t_final = time.perf_counter()
 
@@ -439,29 +498,42 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         version = db.get(GrammarVersion, version_id)
         corpus = db.get(Corpus, corpus_id)
         assert version is not None and corpus is not None
-        active = db.get(GrammarVersion, corpus.active_grammar_id) if corpus.active_grammar_id \
-            else None
-        rejected = (active is not None and active.id != version.id
-                    and active.heldout_f1 is not None and heldout_f1 is not None
-                    and heldout_f1 < active.heldout_f1 - max_drop)
+        active = (
+            db.get(GrammarVersion, corpus.active_grammar_id) if corpus.active_grammar_id else None
+        )
+        rejected = (
+            active is not None
+            and active.id != version.id
+            and active.heldout_f1 is not None
+            and heldout_f1 is not None
+            and heldout_f1 < active.heldout_f1 - max_drop
+        )
         version.data = data
         version.training_size = len(gold)
         version.heldout_size = len(held)
         version.heldout_f1 = heldout_f1
         version.train_seconds = round(t_final - t0, 3)
-        version.options = {**(version.options or {}),
-                           "heldout_every": every, "max_f1_drop": max_drop,
-                           "markovization": {"horizontal": grammar.meta.get("horizontal"),
-                                             "vertical": grammar.meta.get("vertical"),
-                                             "min_context": grammar.meta.get("min_context")},
-                           "slice_size": len(train), "heldout": heldout_detail,
-                           "reference": [{"id": rid, "trees": len(trees)}
-                                         for rid, trees in refs],
-                           "reference_trees": len(reference), "adaptation": adaptation,
-                           "worker_pid": os.getpid(),
-                           "timing": {"load": round(t_load - t0, 3),
-                                      "slice_and_heldout": round(t_eval - t_load, 3),
-                                      "final": round(t_final - t_eval, 3)}}
+        version.options = {
+            **(version.options or {}),
+            "heldout_every": every,
+            "max_f1_drop": max_drop,
+            "markovization": {
+                "horizontal": grammar.meta.get("horizontal"),
+                "vertical": grammar.meta.get("vertical"),
+                "min_context": grammar.meta.get("min_context"),
+            },
+            "slice_size": len(train),
+            "heldout": heldout_detail,
+            "reference": [{"id": rid, "trees": len(trees)} for rid, trees in refs],
+            "reference_trees": len(reference),
+            "adaptation": adaptation,
+            "worker_pid": os.getpid(),
+            "timing": {
+                "load": round(t_load - t0, 3),
+                "slice_and_heldout": round(t_eval - t_load, 3),
+                "final": round(t_final - t_eval, 3),
+            },
+        }
         version.finished_at = utcnow()
         # an active version still refreshes suggestions (step 6): 1.0 once that is done
         version.progress = 1.0 if rejected else 0.97
@@ -469,17 +541,28 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         if rejected:
             assert active is not None and active.heldout_f1 is not None
             version.status = GV_REJECTED
-            version.message = (f"rejected: {f1_text} is more than {max_drop:g} below the active "
-                               f"version {active.number} ({active.heldout_f1:.4f})")
+            version.message = (
+                f"rejected: {f1_text} is more than {max_drop:g} below the active "
+                f"version {active.number} ({active.heldout_f1:.4f})"
+            )
         else:
             version.status = GV_READY
             version.message = f"active; {f1_text}; refreshing suggestions"
             corpus.active_grammar_id = version.id
         # the finder looks over the gold again with each new grammar (drained after the jobs)
         queue_findings(db, corpus_id, reason=f"after grammar version {version.number}")
-        db.add(Event(kind="grammar.trained", corpus_id=corpus_id,
-                     detail={"version": version.number, "status": version.status,
-                             "heldout_f1": heldout_f1, "training_size": len(gold)}))
+        db.add(
+            Event(
+                kind="grammar.trained",
+                corpus_id=corpus_id,
+                detail={
+                    "version": version.number,
+                    "status": version.status,
+                    "heldout_f1": heldout_f1,
+                    "training_size": len(gold),
+                },
+            )
+        )
         db.commit()
         if rejected:
             return
@@ -497,13 +580,17 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
                 log.exception("ranking the queue under grammar version %s failed", version_id)
                 db.rollback()
                 refreshed += f"; ranking the queue failed: {exc}"[:500]
-        db.execute(update(GrammarVersion).where(GrammarVersion.id == version_id)
-                   .values(message=f"active; {f1_text}; {refreshed}", progress=1.0))
+        db.execute(
+            update(GrammarVersion)
+            .where(GrammarVersion.id == version_id)
+            .values(message=f"active; {f1_text}; {refreshed}", progress=1.0)
+        )
         db.commit()
 
 
-def _score_heldout(grammar: Grammar, held: list[GoldTree],
-                   progress: _Progress) -> tuple[float, dict[str, Any]]:
+def _score_heldout(
+    grammar: Grammar, held: list[GoldTree], progress: _Progress
+) -> tuple[float, dict[str, Any]]:
     from parser.chart import parse
 
     pairs = []
@@ -516,9 +603,13 @@ def _score_heldout(grammar: Grammar, held: list[GoldTree],
         pairs.append((g.tree, rooted(result.consensus or result.trees[0])))
         report(i + 1, len(held))
     score = score_corpus(pairs)
-    return score.f1, {"precision": score.precision, "recall": score.recall,
-                      "exact": score.exact, "sentences": score.sentences,
-                      "fallbacks": fallbacks}
+    return score.f1, {
+        "precision": score.precision,
+        "recall": score.recall,
+        "exact": score.exact,
+        "sentences": score.sentences,
+        "fallbacks": fallbacks,
+    }
 
 
 def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
@@ -529,17 +620,23 @@ def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
     db.commit()
     deleted, dropped = prune(db, corpus, corpus.options.keep_grammars)
     db.commit()
-    return (f"new suggestions for {done} unstarted sentences; {deleted} older suggestions "
-            f"and {dropped} older saved grammars let go")
+    return (
+        f"new suggestions for {done} unstarted sentences; {deleted} older suggestions "
+        f"and {dropped} older saved grammars let go"
+    )
 
 
 def load_reference(db: Session, corpus_id: int) -> list[tuple[int, list[Tree]]]:
     """(set id, trees) of every reference set the corpus trains on, ROOT-rooted."""
-    rows = db.execute(select(ReferenceSet.id, ReferenceSet.trees)
-                      .where(ReferenceSet.corpus_id == corpus_id, ReferenceSet.in_use.is_(True))
-                      .order_by(ReferenceSet.id)).all()
-    return [(rid, [rooted(read_tree(line)) for line in text.splitlines() if line.strip()])
-            for rid, text in rows]
+    rows = db.execute(
+        select(ReferenceSet.id, ReferenceSet.trees)
+        .where(ReferenceSet.corpus_id == corpus_id, ReferenceSet.in_use.is_(True))
+        .order_by(ReferenceSet.id)
+    ).all()
+    return [
+        (rid, [rooted(read_tree(line)) for line in text.splitlines() if line.strip()])
+        for rid, text in rows
+    ]
 
 
 def rank_open_sentences(db: Session, corpus_id: int, version_id: int, grammar: Grammar) -> int:
@@ -548,16 +645,21 @@ def rank_open_sentences(db: Session, corpus_id: int, version_id: int, grammar: G
     batches (a background job); returns how many sentences were ranked."""
     from parser.chart import tree_entropy
 
-    rows = db.execute(select(Sentence.id, Sentence.tokens).where(
-        Sentence.corpus_id == corpus_id, Sentence.state.in_(RANKED_STATES))
-        .order_by(Sentence.id)).all()
+    rows = db.execute(
+        select(Sentence.id, Sentence.tokens)
+        .where(Sentence.corpus_id == corpus_id, Sentence.state.in_(RANKED_STATES))
+        .order_by(Sentence.id)
+    ).all()
     done = 0
     for start in range(0, len(rows), 50):
-        for sid, tokens in rows[start:start + 50]:
+        for sid, tokens in rows[start : start + 50]:
             entropy = tree_entropy(grammar, tokens) if tokens else math.nan
             per_word = None if math.isnan(entropy) else round(entropy / len(tokens), 6)
-            db.execute(update(Sentence).where(Sentence.id == sid)
-                       .values(entropy_per_word=per_word, entropy_grammar_id=version_id))
+            db.execute(
+                update(Sentence)
+                .where(Sentence.id == sid)
+                .values(entropy_per_word=per_word, entropy_grammar_id=version_id)
+            )
             done += 1
         db.commit()
     apply_order(db, corpus_id)
@@ -578,8 +680,9 @@ def drain(factory: sessionmaker[Session]) -> int:
         ran += 1
 
 
-def _finished(factory: sessionmaker[Session], version_id: int,
-              timeout: float = 1800.0) -> GrammarVersion:
+def _finished(
+    factory: sessionmaker[Session], version_id: int, timeout: float = 1800.0
+) -> GrammarVersion:
     """Wait for another trainer's run of a version (trained, and its suggestions refreshed
     when it became active) and return the finished row; Conflict after ``timeout`` s."""
     deadline = time.monotonic() + timeout
@@ -588,7 +691,8 @@ def _finished(factory: sessionmaker[Session], version_id: int,
             row = db.get(GrammarVersion, version_id)
             assert row is not None
             if row.status not in (GV_QUEUED, GV_TRAINING) and (
-                    row.status != GV_READY or row.progress >= 1.0):
+                row.status != GV_READY or row.progress >= 1.0
+            ):
                 db.expunge(row)
                 return row
         if time.monotonic() > deadline:
@@ -596,8 +700,9 @@ def _finished(factory: sessionmaker[Session], version_id: int,
         time.sleep(0.2)
 
 
-def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
-                 user_id: int | None = None) -> GrammarVersion:
+def run_training(
+    factory: sessionmaker[Session], corpus_id: int, *, reason: str, user_id: int | None = None
+) -> GrammarVersion:
     """Train the corpus's next version now, in this thread, and return its finished row.
 
     Uses the queued job of the corpus if there is one; raises Conflict if one is running.
@@ -606,8 +711,9 @@ def run_training(factory: sessionmaker[Session], corpus_id: int, *, reason: str,
         version = request_training(db, corpus_id, reason=reason, user_id=user_id)
         version_id = version.id
         if version.status == GV_TRAINING:
-            raise Conflict(f"grammar version {version.number} of corpus {corpus_id} is "
-                           "training already")
+            raise Conflict(
+                f"grammar version {version.number} of corpus {corpus_id} is training already"
+            )
     if claim(factory, version_id) is None:
         # the background runner claimed the job between queueing and here: it trains it, so
         # wait for that run instead of training the same version twice
@@ -650,18 +756,28 @@ def fail_interrupted(factory: sessionmaker[Session]) -> int:
     failed = 0
     with factory() as db:
         now = utcnow()
-        for version in db.scalars(select(GrammarVersion)
-                                  .where(GrammarVersion.status == GV_TRAINING)).all():
+        for version in db.scalars(
+            select(GrammarVersion).where(GrammarVersion.status == GV_TRAINING)
+        ).all():
             if not owner_gone(version, now):
                 continue
             # compare-and-set: the owner may have finished or beaten meanwhile
-            moved = db.execute(update(GrammarVersion).where(
-                GrammarVersion.id == version.id, GrammarVersion.status == GV_TRAINING,
-                GrammarVersion.heartbeat_at.is_(None) if version.heartbeat_at is None
-                else GrammarVersion.heartbeat_at == version.heartbeat_at)
-                .values(status=GV_FAILED, finished_at=now,
-                        message="interrupted: the process that trained it stopped")
-                .execution_options(synchronize_session=False))
+            moved = db.execute(
+                update(GrammarVersion)
+                .where(
+                    GrammarVersion.id == version.id,
+                    GrammarVersion.status == GV_TRAINING,
+                    GrammarVersion.heartbeat_at.is_(None)
+                    if version.heartbeat_at is None
+                    else GrammarVersion.heartbeat_at == version.heartbeat_at,
+                )
+                .values(
+                    status=GV_FAILED,
+                    finished_at=now,
+                    message="interrupted: the process that trained it stopped",
+                )
+                .execution_options(synchronize_session=False)
+            )
             failed += int(cast(CursorResult[Any], moved).rowcount or 0)
         db.commit()
     fail_interrupted_runs(factory)
@@ -681,8 +797,11 @@ def _drain_in_worker(url: str) -> int:
     if factory is None:
         parsed = make_url(url)
         # make_engine creates the data folder of a SQLite URL; point it at the file's own one
-        folder = Path(parsed.database).parent if parsed.get_backend_name() == "sqlite" \
-            and parsed.database else Path(tempfile.gettempdir())
+        folder = (
+            Path(parsed.database).parent
+            if parsed.get_backend_name() == "sqlite" and parsed.database
+            else Path(tempfile.gettempdir())
+        )
         factory = make_sessionmaker(make_engine(Settings(database_url=url, data_dir=folder)))
         _WORKER_FACTORIES[url] = factory
     return drain(factory)
@@ -700,6 +819,7 @@ def watch_parent(parent_pid: int, poll: float = PARENT_POLL_SECONDS) -> None:
     its parent dies, so a daemon thread compares ``os.getppid()`` with the parent's pid every
     ``poll`` seconds and ends the process at once (no clean-up: a job it was running is
     marked failed by the next server's start, ``fail_interrupted``)."""
+
     def watch() -> None:
         while os.getppid() == parent_pid:
             time.sleep(poll)
@@ -724,12 +844,16 @@ class TrainingRunner:
     def _ensure_executor(self) -> Executor:
         if self._executor is None:
             if self.in_process:
-                self._executor = ThreadPoolExecutor(max_workers=1,
-                                                    thread_name_prefix="treewright-train")
+                self._executor = ThreadPoolExecutor(
+                    max_workers=1, thread_name_prefix="treewright-train"
+                )
             else:
                 self._executor = ProcessPoolExecutor(
-                    max_workers=1, mp_context=multiprocessing.get_context("spawn"),
-                    initializer=watch_parent, initargs=(os.getpid(),))
+                    max_workers=1,
+                    mp_context=multiprocessing.get_context("spawn"),
+                    initializer=watch_parent,
+                    initargs=(os.getpid(),),
+                )
         return self._executor
 
     def kick(self) -> None:
@@ -747,8 +871,11 @@ class TrainingRunner:
             except RuntimeError:  # a broken or shut-down pool: start a fresh one
                 self._executor = None
                 executor = self._ensure_executor()
-                fut = (executor.submit(drain, self.factory) if self.in_process
-                       else executor.submit(_drain_in_worker, self.url))
+                fut = (
+                    executor.submit(drain, self.factory)
+                    if self.in_process
+                    else executor.submit(_drain_in_worker, self.url)
+                )
             self._pending = fut
             fut.add_done_callback(self._finished)
 
@@ -825,15 +952,17 @@ def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner
         fail_interrupted(factory)
     # jobs queued by another process (an import from the CLI, a test) start here too
     with factory() as db:
-        waiting = db.scalar(select(func.count(GrammarVersion.id))
-                            .where(GrammarVersion.status == GV_QUEUED))
+        waiting = db.scalar(
+            select(func.count(GrammarVersion.id)).where(GrammarVersion.status == GV_QUEUED)
+        )
     if waiting:
         runner.kick()
     return runner
 
 
-def schedule_training(target: Any, corpus_id: int, reason: str,
-                      user_id: int | None = None) -> GrammarVersion:
+def schedule_training(
+    target: Any, corpus_id: int, reason: str, user_id: int | None = None
+) -> GrammarVersion:
     """Queue a version of the corpus (or return its open job) and start the runner.
 
     ``target`` is ``app.state`` or a sessionmaker (see :func:`get_runner`).
@@ -867,8 +996,13 @@ def _forget_kick(session: Session) -> None:
 
 def versions(db: Session, corpus_id: int) -> list[GrammarVersion]:
     """Every grammar version of the corpus, newest first (the saved grammar is not loaded)."""
-    return list(db.scalars(select(GrammarVersion).where(GrammarVersion.corpus_id == corpus_id)
-                           .order_by(GrammarVersion.number.desc())))
+    return list(
+        db.scalars(
+            select(GrammarVersion)
+            .where(GrammarVersion.corpus_id == corpus_id)
+            .order_by(GrammarVersion.number.desc())
+        )
+    )
 
 
 def version_number(db: Session, version_id: int | None) -> int | None:
@@ -906,7 +1040,15 @@ def reference_only_f1(version: GrammarVersion) -> float | None:
 
 def scored_versions(db: Session, corpus_id: int) -> list[GrammarVersion]:
     """The corpus's versions with a held-out F1 (ready or rejected), oldest first."""
-    return [v for v in db.scalars(select(GrammarVersion).where(
-        GrammarVersion.corpus_id == corpus_id,
-        GrammarVersion.status.in_((GV_READY, GV_REJECTED)))
-        .order_by(GrammarVersion.number)) if v.heldout_f1 is not None]
+    return [
+        v
+        for v in db.scalars(
+            select(GrammarVersion)
+            .where(
+                GrammarVersion.corpus_id == corpus_id,
+                GrammarVersion.status.in_((GV_READY, GV_REJECTED)),
+            )
+            .order_by(GrammarVersion.number)
+        )
+        if v.heldout_f1 is not None
+    ]

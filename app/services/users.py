@@ -25,8 +25,10 @@ MIN_PASSWORD = 10
 def check_username(username: str) -> str:
     name = (username or "").strip()
     if not USERNAME_RE.match(name):
-        raise BadInput(f"user name {name!r}: 1 to 64 letters, digits, '.', '_' or '-', "
-                       "starting with a letter or digit")
+        raise BadInput(
+            f"user name {name!r}: 1 to 64 letters, digits, '.', '_' or '-', "
+            "starting with a letter or digit"
+        )
     return name
 
 
@@ -63,8 +65,15 @@ def list_users(db: Session) -> list[User]:
 
 
 @unit_of_work
-def create_user(db: Session, username: str, password: str, role: str, *,
-                display_name: str = "", by: User | None = None) -> User:
+def create_user(
+    db: Session,
+    username: str,
+    password: str,
+    role: str,
+    *,
+    display_name: str = "",
+    by: User | None = None,
+) -> User:
     """A new active account. Commits (``create_user.step`` does not)."""
     username = check_username(username)
     check_password(password)
@@ -74,32 +83,56 @@ def create_user(db: Session, username: str, password: str, role: str, *,
     display_name = (display_name or "").strip()[:128]
     if display_name:
         display_name = clean_name(display_name, "display", 128)
-    user = User(username=username, display_name=display_name,
-                password_hash=hash_password(password), role=role, active=True)
+    user = User(
+        username=username,
+        display_name=display_name,
+        password_hash=hash_password(password),
+        role=role,
+        active=True,
+    )
     db.add(user)
     db.flush()
-    db.add(Event(user_id=by.id if by else None, kind="user_created",
-                 detail={"username": username, "role": role}))
+    db.add(
+        Event(
+            user_id=by.id if by else None,
+            kind="user_created",
+            detail={"username": username, "role": role},
+        )
+    )
     return user
 
 
 def _other_active_admins(db: Session, user: User) -> int:
-    return db.scalar(select(func.count()).select_from(User).where(
-        User.role == ROLE_ADMIN, User.active.is_(True), User.id != user.id)) or 0
+    return (
+        db.scalar(
+            select(func.count())
+            .select_from(User)
+            .where(User.role == ROLE_ADMIN, User.active.is_(True), User.id != user.id)
+        )
+        or 0
+    )
 
 
 @unit_of_work
 def set_role(db: Session, user: User, role: str, *, by: User | None = None) -> User:
     """Change the account's role; the last active admin keeps theirs. Commits."""
     check_role(role)
-    if user.role == ROLE_ADMIN and role != ROLE_ADMIN and user.active \
-            and _other_active_admins(db, user) == 0:
-        raise Conflict(f"{user.username} is the last active admin; make someone else admin "
-                       "first")
+    if (
+        user.role == ROLE_ADMIN
+        and role != ROLE_ADMIN
+        and user.active
+        and _other_active_admins(db, user) == 0
+    ):
+        raise Conflict(f"{user.username} is the last active admin; make someone else admin first")
     old = user.role
     user.role = role
-    db.add(Event(user_id=by.id if by else None, kind="user_role",
-                 detail={"username": user.username, "from": old, "to": role}))
+    db.add(
+        Event(
+            user_id=by.id if by else None,
+            kind="user_role",
+            detail={"username": user.username, "from": old, "to": role},
+        )
+    )
     db.flush()
     return user
 
@@ -107,15 +140,23 @@ def set_role(db: Session, user: User, role: str, *, by: User | None = None) -> U
 @unit_of_work
 def set_active(db: Session, user: User, active: bool, *, by: User | None = None) -> User:
     """Disable (ending all their sessions) or enable a user. Commits."""
-    if not active and user.role == ROLE_ADMIN and user.active \
-            and _other_active_admins(db, user) == 0:
+    if (
+        not active
+        and user.role == ROLE_ADMIN
+        and user.active
+        and _other_active_admins(db, user) == 0
+    ):
         raise Conflict(f"{user.username} is the last active admin and cannot be disabled")
     user.active = active
     if not active:
         end_all_sessions(db, user.id)
-    db.add(Event(user_id=by.id if by else None,
-                 kind="user_enabled" if active else "user_disabled",
-                 detail={"username": user.username}))
+    db.add(
+        Event(
+            user_id=by.id if by else None,
+            kind="user_enabled" if active else "user_disabled",
+            detail={"username": user.username},
+        )
+    )
     db.flush()
     return user
 
@@ -126,15 +167,25 @@ def set_password(db: Session, user: User, password: str, *, by: User | None = No
     check_password(password)
     user.password_hash = hash_password(password)
     end_all_sessions(db, user.id)
-    db.add(Event(user_id=by.id if by else None, kind="user_password",
-                 detail={"username": user.username}))
+    db.add(
+        Event(
+            user_id=by.id if by else None, kind="user_password", detail={"username": user.username}
+        )
+    )
     db.flush()
     return user
 
 
 @unit_of_work
-def update_user(db: Session, user: User, *, role: str | None = None, active: bool | None = None,
-                password: str | None = None, by: User | None = None) -> User:
+def update_user(
+    db: Session,
+    user: User,
+    *,
+    role: str | None = None,
+    active: bool | None = None,
+    password: str | None = None,
+    by: User | None = None,
+) -> User:
     """Change role, active state and/or password together: all of them or none. Commits."""
     if role is not None:
         set_role.step(db, user, role, by=by)

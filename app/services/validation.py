@@ -57,8 +57,9 @@ def unknown_labels(tree: Tree, corpus: Corpus) -> list[str]:
     return sorted(found)
 
 
-def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
-                       confirm_labels: bool = False) -> Tree:
+def validate_tree_text(
+    sentence: Sentence, text: str, corpus: Corpus, confirm_labels: bool = False
+) -> Tree:
     """Read ``text`` as the tree of ``sentence`` or raise BadInput saying what and where.
 
     The error's extra fields (merged into the JSON answer) carry ``kind``: ``"brackets"`` with
@@ -67,18 +68,24 @@ def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
     request did not say ``confirm_labels``: resend with it to accept them).
     """
     if len(text) > MAX_TREE_CHARS:
-        raise BadInput(f"tree text is {len(text)} characters long; the limit is "
-                       f"{MAX_TREE_CHARS}", kind="shape")
+        raise BadInput(
+            f"tree text is {len(text)} characters long; the limit is {MAX_TREE_CHARS}", kind="shape"
+        )
     if not text.strip():
         raise BadInput("tree text is empty", kind="shape")
     try:
         tree = read_tree(text)
     except BracketSyntaxError as exc:
-        raise BadInput(f"line {exc.line}, column {exc.column}: {exc.message}",
-                       kind="brackets", line=exc.line, column=exc.column) from exc
+        raise BadInput(
+            f"line {exc.line}, column {exc.column}: {exc.message}",
+            kind="brackets",
+            line=exc.line,
+            column=exc.column,
+        ) from exc
     if is_preterminal(tree):
-        raise BadInput("the tree needs a constituent above the POS tags, e.g. (ROOT (NN word))",
-                       kind="shape")
+        raise BadInput(
+            "the tree needs a constituent above the POS tags, e.g. (ROOT (NN word))", kind="shape"
+        )
     expected = stored_words(sentence)
     found = words(tree)
     for i in range(max(len(expected), len(found))):
@@ -97,11 +104,19 @@ def validate_tree_text(sentence: Sentence, text: str, corpus: Corpus,
         policy = corpus.options.unknown_label_policy
         names = ", ".join(unknown)
         if policy == LabelPolicy.REFUSE:
-            raise BadInput(f"not in this corpus's label or tag set: {names}", kind="labels",
-                           labels=unknown, can_confirm=False)
+            raise BadInput(
+                f"not in this corpus's label or tag set: {names}",
+                kind="labels",
+                labels=unknown,
+                can_confirm=False,
+            )
         if not confirm_labels:
-            raise BadInput(f"not in this corpus's label or tag set: {names}; confirm to use "
-                           "them anyway", kind="labels", labels=unknown, can_confirm=True)
+            raise BadInput(
+                f"not in this corpus's label or tag set: {names}; confirm to use them anyway",
+                kind="labels",
+                labels=unknown,
+                can_confirm=True,
+            )
     return tree
 
 
@@ -120,8 +135,10 @@ def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
     for item in spans_in:
         s, e, label = int(item[0]), int(item[1]), str(item[2])
         if (s, e, label) not in have:
-            raise BadInput(f"pinned constituent {label} over words {s + 1}..{e} is not in the "
-                           "tree", kind="pins")
+            raise BadInput(
+                f"pinned constituent {label} over words {s + 1}..{e} is not in the tree",
+                kind="pins",
+            )
         spans_out.append([s, e, label])
     tags_out: list[list[Any]] = []
     for item in tags_in:
@@ -134,14 +151,25 @@ def validate_pins(tree: Tree, pins: dict[str, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {"spans": _unique(spans_out), "tags": _unique(tags_out)}
     bracketed = {(s, e) for s, e, _ in have}
     edited_items = [(int(a), int(b), str(c)) for a, b, c in pins.get("edited_spans") or []]
-    edited = [list(x) for x in sorted((x for x in edited_items if x in have),
-                                      key=lambda x: (x[0], -x[1], x[2]))]
-    retagged = sorted([int(i), str(t)] for i, t in pins.get("edited_tags") or []
-                      if 0 <= int(i) < len(tags) and tags[int(i)] == str(t))
-    removed = sorted([int(a), int(b)] for a, b in pins.get("removed_spans") or []
-                     if (int(a), int(b)) not in bracketed)
-    for key, items in (("edited_spans", edited), ("edited_tags", retagged),
-                       ("removed_spans", removed)):
+    edited = [
+        list(x)
+        for x in sorted((x for x in edited_items if x in have), key=lambda x: (x[0], -x[1], x[2]))
+    ]
+    retagged = sorted(
+        [int(i), str(t)]
+        for i, t in pins.get("edited_tags") or []
+        if 0 <= int(i) < len(tags) and tags[int(i)] == str(t)
+    )
+    removed = sorted(
+        [int(a), int(b)]
+        for a, b in pins.get("removed_spans") or []
+        if (int(a), int(b)) not in bracketed
+    )
+    for key, items in (
+        ("edited_spans", edited),
+        ("edited_tags", retagged),
+        ("removed_spans", removed),
+    ):
         if items:
             out[key] = _unique(items)
     return out

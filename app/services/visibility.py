@@ -28,12 +28,14 @@ T = TypeVar("T")
 
 def member_corpus_ids(db: Session, user: User) -> set[int]:
     """The corpora with a sentence assigned to ``user``."""
-    return set(db.scalars(select(Assignment.corpus_id).where(Assignment.user_id == user.id)
-                          .distinct()))
+    return set(
+        db.scalars(select(Assignment.corpus_id).where(Assignment.user_id == user.id).distinct())
+    )
 
 
-def can_read(db: Session, corpus: Corpus, user: User | None,
-             members: set[int] | None = None) -> bool:
+def can_read(
+    db: Session, corpus: Corpus, user: User | None, members: set[int] | None = None
+) -> bool:
     """True when ``user`` (None: the command line) may read ``corpus``."""
     if is_staging(corpus):
         return False  # an import still being staged: nobody sees it before it is published
@@ -48,8 +50,7 @@ def readable(db: Session, user: User | None, corpora: Iterable[T]) -> list[T]:
     """The items of ``corpora`` (corpora, or rows with a ``corpus`` attribute) that ``user``
     may read, in their order."""
     out: list[T] = []
-    members = member_corpus_ids(db, user) if user is not None and not user.can_adjudicate \
-        else set()
+    members = member_corpus_ids(db, user) if user is not None and not user.can_adjudicate else set()
     for item in corpora:
         corpus = item if isinstance(item, Corpus) else getattr(item, "corpus")  # noqa: B009
         if can_read(db, corpus, user, members):

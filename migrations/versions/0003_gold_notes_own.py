@@ -20,10 +20,12 @@ def upgrade() -> None:
     # Gold written before this revision: no notes were kept with it, and nobody knows whether
     # its adjudicator annotated the sentence; record the plain defaults.
     with op.batch_alter_table("gold", schema=None) as batch_op:
-        batch_op.add_column(sa.Column("annotator_notes", sa.JSON(), nullable=False,
-                                      server_default=sa.text("'[]'")))
-        batch_op.add_column(sa.Column("own_annotation", sa.Boolean(), nullable=False,
-                                      server_default=sa.false()))
+        batch_op.add_column(
+            sa.Column("annotator_notes", sa.JSON(), nullable=False, server_default=sa.text("'[]'"))
+        )
+        batch_op.add_column(
+            sa.Column("own_annotation", sa.Boolean(), nullable=False, server_default=sa.false())
+        )
 
 
 def downgrade() -> None:

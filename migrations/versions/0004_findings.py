@@ -70,8 +70,7 @@ def upgrade() -> None:
         sa.ForeignKeyConstraint(["user_id"], ["users.id"], ondelete="SET NULL"),
         sa.PrimaryKeyConstraint("id"),
     )
-    op.create_index("ix_finding_verdicts_corpus_key", "finding_verdicts",
-                    ["corpus_id", "key_hash"])
+    op.create_index("ix_finding_verdicts_corpus_key", "finding_verdicts", ["corpus_id", "key_hash"])
 
 
 def downgrade() -> None:

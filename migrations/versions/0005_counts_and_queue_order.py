@@ -29,16 +29,21 @@ def upgrade() -> None:
         sa.PrimaryKeyConstraint("document_id", "state"),
     )
     with op.batch_alter_table("sentence_counts", schema=None) as batch_op:
-        batch_op.create_index(batch_op.f("ix_sentence_counts_corpus_id"), ["corpus_id"],
-                              unique=False)
+        batch_op.create_index(
+            batch_op.f("ix_sentence_counts_corpus_id"), ["corpus_id"], unique=False
+        )
     # The rows are counted (and the triggers that keep them made) by app.counts at start.
 
     with op.batch_alter_table("sentences", schema=None) as batch_op:
         batch_op.drop_index("ix_sentences_corpus_state")
-        batch_op.create_index("ix_sentences_corpus_order", ["corpus_id", "document_id",
-                                                            "position"], unique=False)
-        batch_op.create_index("ix_sentences_corpus_state_order",
-                              ["corpus_id", "state", "document_id", "position"], unique=False)
+        batch_op.create_index(
+            "ix_sentences_corpus_order", ["corpus_id", "document_id", "position"], unique=False
+        )
+        batch_op.create_index(
+            "ix_sentences_corpus_state_order",
+            ["corpus_id", "state", "document_id", "position"],
+            unique=False,
+        )
 
     with op.batch_alter_table("annotations", schema=None) as batch_op:
         batch_op.create_index("ix_annotations_user_state", ["user_id", "state"], unique=False)
@@ -47,18 +52,22 @@ def upgrade() -> None:
         batch_op.add_column(sa.Column("corpus_id", sa.Integer(), nullable=True))
         batch_op.add_column(sa.Column("rank", sa.BigInteger(), nullable=True))
     # reading order: (document id << 32) + position, as app.models.reading_rank
-    op.execute("UPDATE assignments SET "
-               "corpus_id = (SELECT s.corpus_id FROM sentences s "
-               "WHERE s.id = assignments.sentence_id), "
-               "rank = (SELECT s.document_id * 4294967296 + s.position FROM sentences s "
-               "WHERE s.id = assignments.sentence_id)")
+    op.execute(
+        "UPDATE assignments SET "
+        "corpus_id = (SELECT s.corpus_id FROM sentences s "
+        "WHERE s.id = assignments.sentence_id), "
+        "rank = (SELECT s.document_id * 4294967296 + s.position FROM sentences s "
+        "WHERE s.id = assignments.sentence_id)"
+    )
     with op.batch_alter_table("assignments", schema=None) as batch_op:
         batch_op.alter_column("corpus_id", existing_type=sa.Integer(), nullable=False)
         batch_op.alter_column("rank", existing_type=sa.BigInteger(), nullable=False)
-        batch_op.create_foreign_key("fk_assignments_corpus_id", "corpora", ["corpus_id"],
-                                    ["id"], ondelete="CASCADE")
-        batch_op.create_index("ix_assignments_queue",
-                              ["user_id", "corpus_id", "rank", "sentence_id"], unique=False)
+        batch_op.create_foreign_key(
+            "fk_assignments_corpus_id", "corpora", ["corpus_id"], ["id"], ondelete="CASCADE"
+        )
+        batch_op.create_index(
+            "ix_assignments_queue", ["user_id", "corpus_id", "rank", "sentence_id"], unique=False
+        )
 
 
 def downgrade() -> None:

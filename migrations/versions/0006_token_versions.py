@@ -34,14 +34,17 @@ def upgrade() -> None:
         sa.UniqueConstraint("sentence_id", "number"),
     )
     with op.batch_alter_table("token_versions", schema=None) as batch_op:
-        batch_op.create_index(batch_op.f("ix_token_versions_sentence_id"), ["sentence_id"],
-                              unique=False)
+        batch_op.create_index(
+            batch_op.f("ix_token_versions_sentence_id"), ["sentence_id"], unique=False
+        )
     with op.batch_alter_table("sentences", schema=None) as batch_op:
-        batch_op.add_column(sa.Column("token_version", sa.Integer(), server_default="1",
-                                      nullable=False))
+        batch_op.add_column(
+            sa.Column("token_version", sa.Integer(), server_default="1", nullable=False)
+        )
     with op.batch_alter_table("revisions", schema=None) as batch_op:
-        batch_op.add_column(sa.Column("token_version", sa.Integer(), server_default="1",
-                                      nullable=False))
+        batch_op.add_column(
+            sa.Column("token_version", sa.Integer(), server_default="1", nullable=False)
+        )
 
 
 def downgrade() -> None:

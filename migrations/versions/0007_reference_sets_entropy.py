@@ -35,8 +35,9 @@ def upgrade() -> None:
         sa.PrimaryKeyConstraint("id"),
         sa.UniqueConstraint("corpus_id", "name"),
     )
-    op.create_index(op.f("ix_reference_sets_corpus_id"), "reference_sets", ["corpus_id"],
-                    unique=False)
+    op.create_index(
+        op.f("ix_reference_sets_corpus_id"), "reference_sets", ["corpus_id"], unique=False
+    )
     with op.batch_alter_table("sentences", schema=None) as batch_op:
         batch_op.add_column(sa.Column("entropy_per_word", sa.Float(), nullable=True))
         batch_op.add_column(sa.Column("entropy_grammar_id", sa.Integer(), nullable=True))

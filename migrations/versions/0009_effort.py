@@ -19,10 +19,12 @@ depends_on = None
 
 def upgrade() -> None:
     with op.batch_alter_table("revisions", schema=None) as batch_op:
-        batch_op.add_column(sa.Column("active_seconds", sa.Float(), server_default="0",
-                                      nullable=False))
-        batch_op.add_column(sa.Column("actions", sa.JSON(), server_default=sa.text("'{}'"),
-                                      nullable=False))
+        batch_op.add_column(
+            sa.Column("active_seconds", sa.Float(), server_default="0", nullable=False)
+        )
+        batch_op.add_column(
+            sa.Column("actions", sa.JSON(), server_default=sa.text("'{}'"), nullable=False)
+        )
     with op.batch_alter_table("annotations", schema=None) as batch_op:
         batch_op.add_column(sa.Column("start_tree", sa.Text(), nullable=True))
 

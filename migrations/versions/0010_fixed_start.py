@@ -22,25 +22,37 @@ def upgrade() -> None:
     with op.batch_alter_table("sentences", schema=None) as batch_op:
         batch_op.add_column(sa.Column("start_kind", sa.String(length=16), nullable=True))
         batch_op.add_column(sa.Column("start_grammar_version_id", sa.Integer(), nullable=True))
-        batch_op.create_foreign_key("fk_sentences_start_grammar_version_id",
-                                    "grammar_versions", ["start_grammar_version_id"], ["id"],
-                                    ondelete="SET NULL")
+        batch_op.create_foreign_key(
+            "fk_sentences_start_grammar_version_id",
+            "grammar_versions",
+            ["start_grammar_version_id"],
+            ["id"],
+            ondelete="SET NULL",
+        )
     with op.batch_alter_table("annotations", schema=None) as batch_op:
         batch_op.add_column(sa.Column("start_kind", sa.String(length=16), nullable=True))
         batch_op.add_column(sa.Column("start_grammar_version_id", sa.Integer(), nullable=True))
         batch_op.add_column(sa.Column("start_suggestion_id", sa.Integer(), nullable=True))
-        batch_op.create_foreign_key("fk_annotations_start_grammar_version_id",
-                                    "grammar_versions", ["start_grammar_version_id"], ["id"],
-                                    ondelete="SET NULL")
-        batch_op.create_foreign_key("fk_annotations_start_suggestion_id", "suggestions",
-                                    ["start_suggestion_id"], ["id"], ondelete="SET NULL")
+        batch_op.create_foreign_key(
+            "fk_annotations_start_grammar_version_id",
+            "grammar_versions",
+            ["start_grammar_version_id"],
+            ["id"],
+            ondelete="SET NULL",
+        )
+        batch_op.create_foreign_key(
+            "fk_annotations_start_suggestion_id",
+            "suggestions",
+            ["start_suggestion_id"],
+            ["id"],
+            ondelete="SET NULL",
+        )
 
 
 def downgrade() -> None:
     with op.batch_alter_table("annotations", schema=None) as batch_op:
         batch_op.drop_constraint("fk_annotations_start_suggestion_id", type_="foreignkey")
-        batch_op.drop_constraint("fk_annotations_start_grammar_version_id",
-                                 type_="foreignkey")
+        batch_op.drop_constraint("fk_annotations_start_grammar_version_id", type_="foreignkey")
         batch_op.drop_column("start_suggestion_id")
         batch_op.drop_column("start_grammar_version_id")
         batch_op.drop_column("start_kind")

@@ -30,22 +30,68 @@ FERRY_SENTENCES = [
     "Who signed off the ramp inspection ?",
 ]
 
-FERRY_LABELS = ["ROOT", "S", "SQ", "SBARQ", "NP", "NP-SBJ", "VP", "PP", "ADJP", "ADVP",
-                "SBAR", "WHNP", "PRT", "FRAG"]
-FERRY_TAGS = ["DT", "NN", "NNS", "NNP", "VBD", "VBN", "VBZ", "VB", "VBP", "IN", "JJ", "RB",
-              "RP", "WP", "CD", "MD", "PRP", "CC", "TO", ".", ",", "?", ":"]
+FERRY_LABELS = [
+    "ROOT",
+    "S",
+    "SQ",
+    "SBARQ",
+    "NP",
+    "NP-SBJ",
+    "VP",
+    "PP",
+    "ADJP",
+    "ADVP",
+    "SBAR",
+    "WHNP",
+    "PRT",
+    "FRAG",
+]
+FERRY_TAGS = [
+    "DT",
+    "NN",
+    "NNS",
+    "NNP",
+    "VBD",
+    "VBN",
+    "VBZ",
+    "VB",
+    "VBP",
+    "IN",
+    "JJ",
+    "RB",
+    "RP",
+    "WP",
+    "CD",
+    "MD",
+    "PRP",
+    "CC",
+    "TO",
+    ".",
+    ",",
+    "?",
+    ":",
+]
 
 #: GUM files (sorted by name) used to train the test grammar; the rest are for testing.
 TRAIN_FILES = 40
 
 
-def make_corpus(db: Session, texts: list[str] | None = None, *, name: str = "Ferry log",
-                policy: str = "confirm", labels: list[str] | None = None,
-                tags: list[str] | None = None) -> tuple[Corpus, list[Sentence]]:
+def make_corpus(
+    db: Session,
+    texts: list[str] | None = None,
+    *,
+    name: str = "Ferry log",
+    policy: str = "confirm",
+    labels: list[str] | None = None,
+    tags: list[str] | None = None,
+) -> tuple[Corpus, list[Sentence]]:
     """A corpus with one document holding ``texts`` (whitespace-tokenized)."""
-    corpus = Corpus(name=name, label_set=FERRY_LABELS if labels is None else labels,
-                    tag_set=FERRY_TAGS if tags is None else tags,
-                    settings={"unknown_label_policy": policy})
+    corpus = Corpus(
+        name=name,
+        label_set=FERRY_LABELS if labels is None else labels,
+        tag_set=FERRY_TAGS if tags is None else tags,
+        settings={"unknown_label_policy": policy},
+    )
     db.add(corpus)
     db.flush()
     doc = Document(corpus_id=corpus.id, name="workshop-log", position=0)
@@ -53,8 +99,9 @@ def make_corpus(db: Session, texts: list[str] | None = None, *, name: str = "Fer
     db.flush()
     sentences = []
     for i, text in enumerate(texts if texts is not None else FERRY_SENTENCES):
-        s = Sentence(corpus_id=corpus.id, document_id=doc.id, position=i, tokens=text.split(),
-                     text=text)
+        s = Sentence(
+            corpus_id=corpus.id, document_id=doc.id, position=i, tokens=text.split(), text=text
+        )
         db.add(s)
         sentences.append(s)
     db.commit()
@@ -106,8 +153,9 @@ def heldout_gum_trees(limit: int, min_words: int = 3, max_words: int = 40) -> li
 
 def install_grammar(db: Session, corpus: Corpus, data: bytes, number: int = 1) -> GrammarVersion:
     """Store ``data`` as a ready grammar version of ``corpus`` and make it active."""
-    version = GrammarVersion(corpus_id=corpus.id, number=number, status=GV_READY, data=data,
-                             training_size=0)
+    version = GrammarVersion(
+        corpus_id=corpus.id, number=number, status=GV_READY, data=data, training_size=0
+    )
     db.add(version)
     db.flush()
     corpus.active_grammar_id = version.id

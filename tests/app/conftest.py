@@ -37,8 +37,11 @@ def on_postgres() -> bool:
 
 def sqlite_only() -> pytest.MarkDecorator:
     """Mark a test that checks SQLite behaviour; it skips on the PostgreSQL pass."""
-    return pytest.mark.skipif(on_postgres(), reason="checks SQLite-specific behaviour; this "
-                              "run uses PostgreSQL (TREEWRIGHT_TEST_DATABASE_URL)")
+    return pytest.mark.skipif(
+        on_postgres(),
+        reason="checks SQLite-specific behaviour; this "
+        "run uses PostgreSQL (TREEWRIGHT_TEST_DATABASE_URL)",
+    )
 
 
 @pytest.fixture(scope="session")
@@ -57,15 +60,24 @@ def settings(tmp_path: Path, request: pytest.FixtureRequest) -> Iterator[Setting
         data = tmp_path / "data"
         data.mkdir()
         shutil.copyfile(request.getfixturevalue("_migrated_sqlite"), data / "treewright.db")
-        yield Settings(data_dir=data, secret_key="test-secret",
-                       login_delay_seconds=0.05, training_in_process=True,
-                       parse_wait_seconds=300)
+        yield Settings(
+            data_dir=data,
+            secret_key="test-secret",
+            login_delay_seconds=0.05,
+            training_in_process=True,
+            parse_wait_seconds=300,
+        )
         return
     url = request.getfixturevalue("_pg_worker_database")
     _empty_pg_database(url)
-    yield Settings(data_dir=tmp_path / "data", database_url=url,
-                   secret_key="test-secret", login_delay_seconds=0.05, parse_wait_seconds=300,
-                   training_in_process=True)
+    yield Settings(
+        data_dir=tmp_path / "data",
+        database_url=url,
+        secret_key="test-secret",
+        login_delay_seconds=0.05,
+        parse_wait_seconds=300,
+        training_in_process=True,
+    )
 
 
 @pytest.fixture(scope="session")
@@ -94,8 +106,12 @@ def _empty_pg_database(url: str) -> None:
     with engine.connect() as conn:
         # A server killed by a crash test, or an app engine a test left open, may still hold
         # a connection; end them so TRUNCATE's lock is not kept waiting.
-        conn.execute(text("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
-                          "WHERE datname = current_database() AND pid <> pg_backend_pid()"))
+        conn.execute(
+            text(
+                "SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
+                "WHERE datname = current_database() AND pid <> pg_backend_pid()"
+            )
+        )
         conn.execute(text(f"TRUNCATE {tables} RESTART IDENTITY CASCADE"))
     engine.dispose()
 
@@ -125,13 +141,18 @@ class People:
 @pytest.fixture
 def people(db: Session) -> People:
     def mk(name: str, role: str) -> User:
-        user = User(username=name, display_name=name.title(), role=role,
-                    password_hash=PASSWORD_HASH)
+        user = User(
+            username=name, display_name=name.title(), role=role, password_hash=PASSWORD_HASH
+        )
         db.add(user)
         return user
 
-    p = People(admin=mk("admin", ROLE_ADMIN), adjudicator=mk("adj", ROLE_ADJUDICATOR),
-               ann1=mk("ann1", ROLE_ANNOTATOR), ann2=mk("ann2", ROLE_ANNOTATOR))
+    p = People(
+        admin=mk("admin", ROLE_ADMIN),
+        adjudicator=mk("adj", ROLE_ADJUDICATOR),
+        ann1=mk("ann1", ROLE_ANNOTATOR),
+        ann2=mk("ann2", ROLE_ANNOTATOR),
+    )
     db.commit()
     return p
 
@@ -141,8 +162,9 @@ class LoggedIn:
 
     def __init__(self, app, username: str) -> None:  # type: ignore[no-untyped-def]
         self.client = TestClient(app)
-        resp = self.client.post("/login", data={"username": username, "password": PASSWORD},
-                                follow_redirects=False)
+        resp = self.client.post(
+            "/login", data={"username": username, "password": PASSWORD}, follow_redirects=False
+        )
         assert resp.status_code == 303, resp.text
         me = self.client.get("/api/session")
         assert me.status_code == 200, me.text

@@ -12,8 +12,10 @@ from app.models import Corpus, Document, Sentence
 from app.services.backup import database_path
 from app.settings import Settings
 
-_WORDS = ("the a ferry crew mate checked loaded painted hull rope deck engine winch gangway "
-          "before after noon dawn quietly slowly harbour pier tide cargo ramp").split()
+_WORDS = (
+    "the a ferry crew mate checked loaded painted hull rope deck engine winch gangway "
+    "before after noon dawn quietly slowly harbour pier tide cargo ramp"
+).split()
 
 
 def sentence_file(count: int, seed: int, tag: str) -> bytes:
@@ -46,12 +48,14 @@ def import_state(db: Session, corpus_name: str, expected: int) -> str:
     if corpus is None:
         return "absent"
     docs = db.scalars(select(Document).where(Document.corpus_id == corpus.id)).all()
-    stored = db.scalar(select(func.count()).select_from(Sentence)
-                       .where(Sentence.corpus_id == corpus.id))
+    stored = db.scalar(
+        select(func.count()).select_from(Sentence).where(Sentence.corpus_id == corpus.id)
+    )
     assert len(docs) == 1, f"corpus {corpus_name!r} has {len(docs)} documents"
     assert stored == expected, f"corpus {corpus_name!r} holds {stored} of {expected} sentences"
-    positions = db.scalars(select(Sentence.position).where(Sentence.corpus_id == corpus.id)
-                           .order_by(Sentence.position)).all()
+    positions = db.scalars(
+        select(Sentence.position).where(Sentence.corpus_id == corpus.id).order_by(Sentence.position)
+    ).all()
     assert list(positions) == list(range(expected)), "sentence positions have gaps"
     return "whole"
 
@@ -75,9 +79,12 @@ def write_in_progress(settings: Settings) -> bool:
     engine = create_engine(settings.resolved_database_url)
     try:
         with engine.connect() as conn:
-            writers = conn.execute(text(
-                "SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() "
-                "AND backend_xid IS NOT NULL AND pid <> pg_backend_pid()")).scalar()
+            writers = conn.execute(
+                text(
+                    "SELECT count(*) FROM pg_stat_activity WHERE datname = current_database() "
+                    "AND backend_xid IS NOT NULL AND pid <> pg_backend_pid()"
+                )
+            ).scalar()
         return bool(writers)
     finally:
         engine.dispose()

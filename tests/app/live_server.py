@@ -54,8 +54,15 @@ def server_env(settings: Settings, **extra: str) -> dict[str, str]:
 class LiveServer:
     """``with LiveServer(settings) as server:`` runs the app at ``server.url`` until the end."""
 
-    def __init__(self, settings: Settings, *, log: Path | None = None, workers: int = 1,
-                 start_timeout: float = 60.0, **env: str) -> None:
+    def __init__(
+        self,
+        settings: Settings,
+        *,
+        log: Path | None = None,
+        workers: int = 1,
+        start_timeout: float = 60.0,
+        **env: str,
+    ) -> None:
         self.settings = settings
         self.env = server_env(settings, **env)
         self.log = log
@@ -71,19 +78,38 @@ class LiveServer:
 
     def start(self) -> LiveServer:
         self.port = free_port()
-        cmd = [sys.executable, "-m", "uvicorn", "app.main:create_app", "--factory",
-               "--host", LOOPBACK, "--port", str(self.port), "--log-level", "warning",
-               "--workers", str(self.workers)]
+        cmd = [
+            sys.executable,
+            "-m",
+            "uvicorn",
+            "app.main:create_app",
+            "--factory",
+            "--host",
+            LOOPBACK,
+            "--port",
+            str(self.port),
+            "--log-level",
+            "warning",
+            "--workers",
+            str(self.workers),
+        ]
         if self.log is not None:
             self._log_fh = open(self.log, "ab")  # noqa: SIM115 - closed in _reap
         out = self._log_fh if self._log_fh is not None else subprocess.DEVNULL
-        self.proc = subprocess.Popen(cmd, cwd=PROJECT_ROOT, env=self.env, stdout=out,
-                                     stderr=subprocess.STDOUT, start_new_session=True)
+        self.proc = subprocess.Popen(
+            cmd,
+            cwd=PROJECT_ROOT,
+            env=self.env,
+            stdout=out,
+            stderr=subprocess.STDOUT,
+            start_new_session=True,
+        )
         deadline = time.monotonic() + self.start_timeout
         while time.monotonic() < deadline:
             if self.proc.poll() is not None:
-                raise RuntimeError(f"server exited with {self.proc.returncode} on start; "
-                                   f"log: {self.log}")
+                raise RuntimeError(
+                    f"server exited with {self.proc.returncode} on start; log: {self.log}"
+                )
             try:
                 if httpx.get(self.url + "/api/health", timeout=2).status_code == 200:
                     return self
@@ -125,8 +151,7 @@ class LiveServer:
 class Client:
     """An httpx client logged in to a live server as ``username``; ``csrf`` is its token."""
 
-    def __init__(self, base_url: str, username: str, password: str,
-                 timeout: float = 30.0) -> None:
+    def __init__(self, base_url: str, username: str, password: str, timeout: float = 30.0) -> None:
         self.http = httpx.Client(base_url=base_url, timeout=timeout)
         resp = self.http.post("/login", data={"username": username, "password": password})
         if resp.status_code != 303:
@@ -137,9 +162,11 @@ class Client:
         self.username = username
 
     def save(self, sentence_id: int, base: int, tree: str, **extra: Any) -> httpx.Response:
-        return self.http.post(f"/api/bench/{sentence_id}/revisions",
-                              headers={"X-CSRF-Token": self.csrf},
-                              json={"base": base, "tree": tree, **extra})
+        return self.http.post(
+            f"/api/bench/{sentence_id}/revisions",
+            headers={"X-CSRF-Token": self.csrf},
+            json={"base": base, "tree": tree, **extra},
+        )
 
     def close(self) -> None:
         self.http.close()
@@ -149,8 +176,15 @@ def add_annotators(db: Session, prefix: str, count: int) -> list[User]:
     """``count`` new annotators ``prefix0``, ``prefix1``... with the test password."""
     from tests.app.conftest import PASSWORD_HASH
 
-    users = [User(username=f"{prefix}{i}", display_name=f"{prefix.title()} {i}",
-                  role="annotator", password_hash=PASSWORD_HASH) for i in range(count)]
+    users = [
+        User(
+            username=f"{prefix}{i}",
+            display_name=f"{prefix.title()} {i}",
+            role="annotator",
+            password_hash=PASSWORD_HASH,
+        )
+        for i in range(count)
+    ]
     db.add_all(users)
     db.commit()
     return users

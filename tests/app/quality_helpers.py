@@ -23,12 +23,14 @@ GOLD = [
 OLD_PUMP = "the old pump"
 
 
-def import_gold(db: Session, name: str = "Ferry quality", trees: list[str] | None = None
-                ) -> tuple[Corpus, list[Sentence]]:
+def import_gold(
+    db: Session, name: str = "Ferry quality", trees: list[str] | None = None
+) -> tuple[Corpus, list[Sentence]]:
     data = ("\n".join(trees or GOLD) + "\n").encode()
     import_bytes(db, data, source="quality.ptb", corpus_name=name, kind="gold")
     corpus = db.scalar(select(Corpus).where(Corpus.name == name))
     assert corpus is not None
-    sentences = list(db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id)
-                                .order_by(Sentence.id)))
+    sentences = list(
+        db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id).order_by(Sentence.id))
+    )
     return corpus, sentences

@@ -22,24 +22,33 @@ def _client(app, address: str = "testclient") -> TestClient:  # type: ignore[no-
 
 
 def _login(client: TestClient, username: str, password: str = PASSWORD) -> int:
-    return client.post("/login", data={"username": username, "password": password},
-                       follow_redirects=False).status_code
+    return client.post(
+        "/login", data={"username": username, "password": password}, follow_redirects=False
+    ).status_code
 
 
 # --------------------------------------------------------------------------- administration
 def test_accounts_admin_manages_users_through_the_api(app, login, db) -> None:
     admin = login("admin")
-    made = admin.client.post("/api/users", headers=admin.headers(),
-                             json={"username": "bosun", "password": NEW_PASSWORD,
-                                   "role": "annotator", "display_name": "Bosun"})
+    made = admin.client.post(
+        "/api/users",
+        headers=admin.headers(),
+        json={
+            "username": "bosun",
+            "password": NEW_PASSWORD,
+            "role": "annotator",
+            "display_name": "Bosun",
+        },
+    )
     assert made.status_code == 201, made.text
     uid = made.json()["id"]
     bosun = _client(app, "10.1.0.1")
     assert _login(bosun, "bosun", NEW_PASSWORD) == 303
     assert bosun.get("/api/review").status_code == 403  # annotators do not review
 
-    up = admin.client.patch(f"/api/users/{uid}", headers=admin.headers(),
-                            json={"role": "adjudicator"})
+    up = admin.client.patch(
+        f"/api/users/{uid}", headers=admin.headers(), json={"role": "adjudicator"}
+    )
     assert up.status_code == 200 and up.json()["role"] == "adjudicator"
     assert bosun.get("/api/review").status_code == 200  # the same session, new role
 
@@ -60,23 +69,42 @@ def test_accounts_admin_manages_users_through_the_page(app, login, db) -> None:
     admin = login("admin")
     page = admin.client.get("/users")
     assert page.status_code == 200 and 'name="csrf_token"' in page.text
-    made = admin.client.post("/users", data={"csrf_token": admin.csrf, "username": "purser",
-                                             "display_name": "Purser", "role": "annotator",
-                                             "password": NEW_PASSWORD}, follow_redirects=False)
+    made = admin.client.post(
+        "/users",
+        data={
+            "csrf_token": admin.csrf,
+            "username": "purser",
+            "display_name": "Purser",
+            "role": "annotator",
+            "password": NEW_PASSWORD,
+        },
+        follow_redirects=False,
+    )
     assert made.status_code == 303, made.text
     user = db.scalar(select(User).where(User.username == "purser"))
     assert user is not None and user.role == "annotator" and user.active
-    assert admin.client.post(f"/users/{user.id}/role",
-                             data={"csrf_token": admin.csrf, "role": "adjudicator"},
-                             follow_redirects=False).status_code == 303
-    assert admin.client.post(f"/users/{user.id}/active",
-                             data={"csrf_token": admin.csrf, "active": "false"},
-                             follow_redirects=False).status_code == 303
+    assert (
+        admin.client.post(
+            f"/users/{user.id}/role",
+            data={"csrf_token": admin.csrf, "role": "adjudicator"},
+            follow_redirects=False,
+        ).status_code
+        == 303
+    )
+    assert (
+        admin.client.post(
+            f"/users/{user.id}/active",
+            data={"csrf_token": admin.csrf, "active": "false"},
+            follow_redirects=False,
+        ).status_code
+        == 303
+    )
     db.expire_all()
     assert user.role == "adjudicator" and user.active is False
     # a refused change says why on the page and changes nothing
-    bad = admin.client.post(f"/users/{user.id}/role",
-                            data={"csrf_token": admin.csrf, "role": "captain"})
+    bad = admin.client.post(
+        f"/users/{user.id}/role", data={"csrf_token": admin.csrf, "role": "captain"}
+    )
     assert bad.status_code == 422 and "unknown role" in bad.text
     db.expire_all()
     assert user.role == "adjudicator"
@@ -86,14 +114,27 @@ def test_accounts_only_admins_manage_users(login, people) -> None:
     for name in ("ann1", "adj"):
         me = login(name)
         assert me.client.get("/api/users").status_code == 403
-        assert me.client.post("/api/users", headers=me.headers(),
-                              json={"username": "stowaway", "password": NEW_PASSWORD,
-                                    "role": "admin"}).status_code == 403
-        assert me.client.patch(f"/api/users/{me.user_id}", headers=me.headers(),
-                               json={"role": "admin"}).status_code == 403
+        assert (
+            me.client.post(
+                "/api/users",
+                headers=me.headers(),
+                json={"username": "stowaway", "password": NEW_PASSWORD, "role": "admin"},
+            ).status_code
+            == 403
+        )
+        assert (
+            me.client.patch(
+                f"/api/users/{me.user_id}", headers=me.headers(), json={"role": "admin"}
+            ).status_code
+            == 403
+        )
         assert me.client.get("/users").status_code == 403
-        assert me.client.post(f"/users/{me.user_id}/role",
-                              data={"csrf_token": me.csrf, "role": "admin"}).status_code == 403
+        assert (
+            me.client.post(
+                f"/users/{me.user_id}/role", data={"csrf_token": me.csrf, "role": "admin"}
+            ).status_code
+            == 403
+        )
     ann1 = login("ann1")
     assert ann1.client.get("/api/session").json()["role"] == "annotator"
 
@@ -129,8 +170,7 @@ def test_accounts_delay_counts_per_address_across_accounts(app, people, settings
     assert login_delay(failure_counts(db, "admin", "10.4.0.8"), settings) == 0
 
 
-def test_accounts_own_login_does_not_clear_the_address_count(app, people, settings,
-                                                             db) -> None:
+def test_accounts_own_login_does_not_clear_the_address_count(app, people, settings, db) -> None:
     # guessing at ann1 from one address, logging in as yourself between guesses
     settings.login_delay_seconds = 0.01
     address = "10.4.1.1"
@@ -153,8 +193,7 @@ def test_accounts_address_threshold_spares_colleagues(app, people, settings, db)
 
 def test_accounts_old_failures_leave_the_window(app, people, settings, db) -> None:
     long_ago = utcnow() - timedelta(hours=1)
-    db.add_all([LoginFailure(username="ann1", address="10.5.0.1", at=long_ago)
-                for _ in range(10)])
+    db.add_all([LoginFailure(username="ann1", address="10.5.0.1", at=long_ago) for _ in range(10)])
     db.commit()
     assert failure_counts(db, "ann1", "10.5.0.1") == FailureCounts(0, 0)
 
@@ -201,20 +240,29 @@ def test_accounts_expired_session_is_refused(login, db) -> None:
 
 def test_accounts_secure_cookie_when_configured(app, people, settings) -> None:
     settings.cookie_secure = True
-    resp = _client(app).post("/login", data={"username": "ann1", "password": PASSWORD},
-                             follow_redirects=False)
+    resp = _client(app).post(
+        "/login", data={"username": "ann1", "password": PASSWORD}, follow_redirects=False
+    )
     cookie = resp.headers["set-cookie"].lower()
     assert "secure" in cookie and "httponly" in cookie and "samesite=strict" in cookie
 
 
 def test_accounts_login_posted_from_another_site_is_refused(app, people) -> None:
     client = _client(app, "10.8.0.1")
-    resp = client.post("/login", data={"username": "ann1", "password": PASSWORD},
-                       headers={"Sec-Fetch-Site": "cross-site"}, follow_redirects=False)
+    resp = client.post(
+        "/login",
+        data={"username": "ann1", "password": PASSWORD},
+        headers={"Sec-Fetch-Site": "cross-site"},
+        follow_redirects=False,
+    )
     assert resp.status_code == 403 and "another site" in resp.text
     assert SESSION_COOKIE not in resp.cookies
-    ok = client.post("/login", data={"username": "ann1", "password": PASSWORD},
-                     headers={"Sec-Fetch-Site": "same-origin"}, follow_redirects=False)
+    ok = client.post(
+        "/login",
+        data={"username": "ann1", "password": PASSWORD},
+        headers={"Sec-Fetch-Site": "same-origin"},
+        follow_redirects=False,
+    )
     assert ok.status_code == 303
 
 
@@ -232,7 +280,9 @@ def test_accounts_password_hash_cost_is_standard_unless_set(monkeypatch) -> None
     standard = extract_parameters(_HASHERS["standard"].hash("s3cret-word"))
     # argon2-cffi's default profile is RFC 9106's low-memory option (the library's docs)
     assert (standard.memory_cost, standard.time_cost, standard.parallelism) == (
-        RFC_9106_LOW_MEMORY.memory_cost, RFC_9106_LOW_MEMORY.time_cost,
-        RFC_9106_LOW_MEMORY.parallelism)
+        RFC_9106_LOW_MEMORY.memory_cost,
+        RFC_9106_LOW_MEMORY.time_cost,
+        RFC_9106_LOW_MEMORY.parallelism,
+    )
     cheap = extract_parameters(_HASHERS["test"].hash("s3cret-word"))
     assert cheap.memory_cost < standard.memory_cost and cheap.time_cost <= standard.time_cost

@@ -16,15 +16,22 @@ from parser.trees import read_tree
 from tests.app.bench_helpers import assign, flat_text, make_corpus
 
 SENTENCE = "Check the bilge pump before the first crossing ."
-START = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge)) (NN pump) (PP (IN before) "
-         "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
-FINAL = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
-         "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
+START = (
+    "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge)) (NN pump) (PP (IN before) "
+    "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+)
+FINAL = (
+    "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
+    "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+)
 
 
 def _save(me, sid, base, tree, **extra):
-    resp = me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          json={"base": base, "tree": tree, **extra})
+    resp = me.client.post(
+        f"/api/bench/{sid}/revisions",
+        headers=me.headers(),
+        json={"base": base, "tree": tree, **extra},
+    )
     assert resp.status_code == 201, resp.text
     return resp
 
@@ -34,24 +41,39 @@ def test_effort_is_stored_summed_and_shown(db, people, login) -> None:
     assign(db, sentences, people.ann1, people.ann2)
     ann1, ann2 = login("ann1"), login("ann2")
     s1, s2 = sentences
-    _save(ann1, s1.id, 0, START, source="suggestion", start=START, active_seconds=4.5,
-          actions={"reading": 1})
+    _save(
+        ann1,
+        s1.id,
+        0,
+        START,
+        source="suggestion",
+        start=START,
+        active_seconds=4.5,
+        actions={"reading": 1},
+    )
     _save(ann1, s1.id, 1, FINAL, active_seconds=30.0, actions={"edge": 1, "undo": 1, "add": 0})
     ann1.client.post(f"/api/bench/{s1.id}/submit", headers=ann1.headers(), json={"base": 2})
     flat2 = flat_text(s2.tokens)
-    _save(ann1, s2.id, 0, flat2, source="flat", start=flat2, active_seconds=60.0,
-          actions={"text": 1})
+    _save(
+        ann1, s2.id, 0, flat2, source="flat", start=flat2, active_seconds=60.0, actions={"text": 1}
+    )
     ann1.client.post(f"/api/bench/{s2.id}/submit", headers=ann1.headers(), json={"base": 1})
     _save(ann2, s1.id, 0, FINAL, source="text", active_seconds=10.0, actions={"text": 2})
     ann2.client.post(f"/api/bench/{s1.id}/submit", headers=ann2.headers(), json={"base": 1})
 
-    a = db.scalar(select(Annotation).where(Annotation.user_id == people.ann1.id,
-                                           Annotation.sentence_id == s1.id))
+    a = db.scalar(
+        select(Annotation).where(
+            Annotation.user_id == people.ann1.id, Annotation.sentence_id == s1.id
+        )
+    )
     assert a.start_tree == START
-    revs = db.scalars(select(Revision).where(Revision.annotation_id == a.id)
-                      .order_by(Revision.number)).all()
+    revs = db.scalars(
+        select(Revision).where(Revision.annotation_id == a.id).order_by(Revision.number)
+    ).all()
     assert [(r.active_seconds, r.actions) for r in revs] == [
-        (4.5, {"reading": 1}), (30.0, {"edge": 1, "undo": 1})]
+        (4.5, {"reading": 1}),
+        (30.0, {"edge": 1, "undo": 1}),
+    ]
 
     # the distance from the start: PARSEVAL F1 computed here separately, and the edit count by
     # hand: NP 1-3 and NN pump outside it became NP 1-4 (two brackets differ), tags unchanged
@@ -72,10 +94,16 @@ def test_effort_is_stored_summed_and_shown(db, people, login) -> None:
     assert one["edits_from_start_per_sentence"] == "1.00"
     two = rows["ann2"]
     assert (two["sentences"], two["compared_with_start"], two["mean_f1_to_start"]) == (
-        "1", "0", "")  # no start sent: not compared
+        "1",
+        "0",
+        "",
+    )  # no start sent: not compared
     everyone = rows["all annotators"]
     assert (everyone["sentences"], everyone["active_seconds"], everyone["actions"]) == (
-        "3", "104.5", "6")
+        "3",
+        "104.5",
+        "6",
+    )
 
     page = login("admin").client.get(f"/agreement?corpus={corpus.id}").text
     assert 'id="ag-effort"' in page and "1:34" in page and "1:44" in page
@@ -85,10 +113,16 @@ def test_effort_refuses_unknown_action_kinds(db, people, login) -> None:
     _corpus, sentences = make_corpus(db, [SENTENCE])
     assign(db, sentences, people.ann1)
     ann1 = login("ann1")
-    resp = ann1.client.post(f"/api/bench/{sentences[0].id}/revisions", headers=ann1.headers(),
-                            json={"base": 0, "tree": FINAL, "actions": {"juggle": 2}})
+    resp = ann1.client.post(
+        f"/api/bench/{sentences[0].id}/revisions",
+        headers=ann1.headers(),
+        json={"base": 0, "tree": FINAL, "actions": {"juggle": 2}},
+    )
     assert resp.status_code == 422 and "juggle" in resp.text
-    resp = ann1.client.post(f"/api/bench/{sentences[0].id}/revisions", headers=ann1.headers(),
-                            json={"base": 0, "tree": FINAL, "active_seconds": -1})
+    resp = ann1.client.post(
+        f"/api/bench/{sentences[0].id}/revisions",
+        headers=ann1.headers(),
+        json={"base": 0, "tree": FINAL, "active_seconds": -1},
+    )
     assert resp.status_code == 422
     assert db.scalars(select(Revision)).all() == []

@@ -93,8 +93,10 @@ def test_same_scores_but_different_brackets_are_not_identical(db, login, one_sen
     # Moving the final "." inside the VP changes no counted span (punctuation is removed
     # before counting), so F1 is 1.0, but the trees differ: a human must look.
     corpus, sentence = one_sentence
-    moved = ("(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (DT the) (NN quay)) "
-             "(PP (IN at) (NP (NN dawn))) (. .))))")
+    moved = (
+        "(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (NP (DT the) (NN quay)) "
+        "(PP (IN at) (NP (NN dawn))) (. .))))"
+    )
     _submit(login("ann1"), sentence.id, TREE_A)
     _submit(login("ann2"), sentence.id, moved)
     db.expire_all()
@@ -125,8 +127,7 @@ def test_three_annotators_give_three_pairs(db, login, people):
     _submit(login("adj"), sentence.id, TREE_A)
     db.expire_all()
     recs = db.scalars(select(AgreementRecord).order_by(AgreementRecord.id)).all()
-    assert [(r.matched, r.count_a, r.count_b) for r in recs] == [(5, 6, 7), (6, 6, 6),
-                                                                  (5, 7, 6)]
+    assert [(r.matched, r.count_a, r.count_b) for r in recs] == [(5, 6, 7), (6, 6, 6), (5, 7, 6)]
     assert db.get(Sentence, sentence.id).state == SENT_IN_REVIEW  # B differs from A and C
 
 
@@ -152,8 +153,9 @@ def test_without_assignments_the_corpus_setting_decides(db, people):
 
 
 def test_figures_sum_records_of_the_corpus(db, login, people):
-    corpus, sentences = make_corpus(db, [SENTENCE, SENTENCE.replace("dawn", "noon")],
-                                    labels=LABELS, tags=TAGS)
+    corpus, sentences = make_corpus(
+        db, [SENTENCE, SENTENCE.replace("dawn", "noon")], labels=LABELS, tags=TAGS
+    )
     assign(db, sentences, people.ann1, people.ann2)
     a1, a2 = login("ann1"), login("ann2")
     _submit(a1, sentences[0].id, TREE_A)

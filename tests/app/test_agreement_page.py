@@ -29,8 +29,9 @@ from tests.app.review_helpers import (
 
 
 def test_agreement_page_shows_figures_tables_and_charts(db, people, login):
-    corpus, sentences = make_corpus(db, [SENTENCE, SENTENCE.replace("dawn", "noon")],
-                                    labels=LABELS, tags=TAGS)
+    corpus, sentences = make_corpus(
+        db, [SENTENCE, SENTENCE.replace("dawn", "noon")], labels=LABELS, tags=TAGS
+    )
     assign(db, sentences, people.ann1, people.ann2)
     a1, a2 = login("ann1"), login("ann2")
     submit_tree(a1, sentences[0].id, TREE_A)
@@ -83,8 +84,7 @@ def test_timeline_switches_to_weeks_for_a_long_log():
 
 
 def test_line_chart_escapes_and_places_points():
-    svg = line_chart([Series("<x>", [Point(0, 0.0), Point(10, 1.0)])], title="t & u",
-                     x_title="n")
+    svg = line_chart([Series("<x>", [Point(0, 0.0), Point(10, 1.0)])], title="t & u", x_title="n")
     assert "&lt;x&gt;" in svg and "t &amp; u" in svg
     # y = 1.0 is drawn at the top of the plot (16), y = 0.0 at its bottom (260 - 40)
     assert re.search(r'cy="16\.0"', svg) and re.search(r'cy="220\.0"', svg)
@@ -99,9 +99,11 @@ def test_grammars_page_lists_versions_and_trains_on_demand(app, db, people, logi
     assert f'data-version="{first.id}" data-status="ready"' in html
     assert "active</span>" in html and f"{first.heldout_f1:.3f}" in html
     assert 'id="gv-train-now"' in html and "Automatic training is off" in html
-    resp = adj.client.post("/grammars/train", data={"corpus_id": corpus.id,
-                                                    "csrf_token": adj.csrf},
-                           follow_redirects=False)
+    resp = adj.client.post(
+        "/grammars/train",
+        data={"corpus_id": corpus.id, "csrf_token": adj.csrf},
+        follow_redirects=False,
+    )
     assert resp.status_code == 303 and "queued=2" in resp.headers["location"]
     second = db.scalar(select(GrammarVersion).where(GrammarVersion.number == 2))
     assert wait_for_version(db, second.id).status == GV_READY
@@ -116,7 +118,10 @@ def test_grammars_page_has_no_train_button_for_annotators(app, db, people, login
     ann = login("ann1")
     html = ann.client.get(f"/grammars?corpus={corpus.id}").text
     assert 'id="gv-train-now"' not in html
-    resp = ann.client.post("/grammars/train", data={"corpus_id": corpus.id,
-                                                    "csrf_token": ann.csrf},
-                           headers={"accept": "text/html"}, follow_redirects=False)
+    resp = ann.client.post(
+        "/grammars/train",
+        data={"corpus_id": corpus.id, "csrf_token": ann.csrf},
+        headers={"accept": "text/html"},
+        follow_redirects=False,
+    )
     assert resp.status_code == 403

@@ -38,8 +38,9 @@ def test_annotation_bench_page_embeds_its_data(db, people, login) -> None:
     me = login("ann1")
     resp = me.client.get(f"/bench/{sentences[1].id}")
     assert resp.status_code == 200
-    block = re.search(r'<script type="application/json" id="bench-data">(.*?)</script>',
-                      resp.text, re.S)
+    block = re.search(
+        r'<script type="application/json" id="bench-data">(.*?)</script>', resp.text, re.S
+    )
     data = json.loads(block.group(1))
     assert data["sentence"]["tokens"] == FERRY_SENTENCES[1].split()
     assert data["queue"]["index"] == 2 and data["source"] == "flat"
@@ -65,16 +66,26 @@ def test_annotation_queue_page_shows_order_and_progress(db, people, login) -> No
     sentences = _world(db, people)
     me = login("ann1")
     s0 = sentences[0]
-    me.client.post(f"/api/bench/{s0.id}/revisions", headers=me.headers(),
-                   json={"base": 0, "tree": flat_text(s0.tokens)})
+    me.client.post(
+        f"/api/bench/{s0.id}/revisions",
+        headers=me.headers(),
+        json={"base": 0, "tree": flat_text(s0.tokens)},
+    )
     me.client.post(f"/api/bench/{s0.id}/submit", headers=me.headers(), json={"base": 1})
     s1 = sentences[1]
-    me.client.post(f"/api/bench/{s1.id}/revisions", headers=me.headers(),
-                   json={"base": 0, "tree": flat_text(s1.tokens)})
+    me.client.post(
+        f"/api/bench/{s1.id}/revisions",
+        headers=me.headers(),
+        json={"base": 0, "tree": flat_text(s1.tokens)},
+    )
     html = me.client.get("/queue").text
     rows = re.findall(r'<tr class="queue-row ann-(\w+)" data-sentence-id="(\d+)">', html)
-    assert rows == [("submitted", str(sentences[0].id)), ("draft", str(sentences[1].id)),
-                    ("new", str(sentences[2].id)), ("new", str(sentences[3].id))]
+    assert rows == [
+        ("submitted", str(sentences[0].id)),
+        ("draft", str(sentences[1].id)),
+        ("new", str(sentences[2].id)),
+        ("new", str(sentences[3].id)),
+    ]
     assert '<progress max="4" value="1">' in html
     assert "<b>1</b> of 4 handed in" in html
     assert f'id="continue" href="/bench/{sentences[1].id}"' in html
@@ -84,8 +95,11 @@ def test_annotation_queue_page_shows_order_and_progress(db, people, login) -> No
 def test_annotation_bench_without_target_goes_to_next_open(db, people, login) -> None:
     sentences = _world(db, people)
     me = login("ann1")
-    me.client.patch(f"/api/bench/{sentences[0].id}/note", headers=me.headers(),
-                    json={"flag": "not one sentence"})
+    me.client.patch(
+        f"/api/bench/{sentences[0].id}/note",
+        headers=me.headers(),
+        json={"flag": "not one sentence"},
+    )
     resp = me.client.get("/bench", follow_redirects=False)
     assert resp.headers["location"] == f"/bench/{sentences[1].id}"
 

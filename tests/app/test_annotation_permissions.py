@@ -28,8 +28,11 @@ def world(db, people):
 @pytest.mark.parametrize("method,path,body", ROUTES)
 def test_annotation_unassigned_sentence_is_404(world, login, method, path, body) -> None:
     me = login("ann2")  # sentence 2 is ann1's only
-    resp = getattr(me.client, method)(path.format(sid=world[2].id), headers=me.headers(),
-                                      **({"json": body} if body is not None else {}))
+    resp = getattr(me.client, method)(
+        path.format(sid=world[2].id),
+        headers=me.headers(),
+        **({"json": body} if body is not None else {}),
+    )
     assert resp.status_code == 404
     assert resp.json()["detail"] == f"sentence {world[2].id} is not in your queue"
 
@@ -37,8 +40,11 @@ def test_annotation_unassigned_sentence_is_404(world, login, method, path, body)
 @pytest.mark.parametrize("method,path,body", ROUTES)
 def test_annotation_absent_sentence_is_the_same_404(world, login, method, path, body) -> None:
     me = login("ann2")
-    resp = getattr(me.client, method)(path.format(sid=999_999), headers=me.headers(),
-                                      **({"json": body} if body is not None else {}))
+    resp = getattr(me.client, method)(
+        path.format(sid=999_999),
+        headers=me.headers(),
+        **({"json": body} if body is not None else {}),
+    )
     assert resp.status_code == 404
     assert resp.json()["detail"] == "sentence 999999 is not in your queue"
 
@@ -46,8 +52,9 @@ def test_annotation_absent_sentence_is_the_same_404(world, login, method, path, 
 @pytest.mark.parametrize("method,path,body", ROUTES)
 def test_annotation_anonymous_gets_401(app, world, method, path, body) -> None:
     client = TestClient(app)
-    resp = getattr(client, method)(path.format(sid=world[0].id),
-                                   **({"json": body} if body is not None else {}))
+    resp = getattr(client, method)(
+        path.format(sid=world[0].id), **({"json": body} if body is not None else {})
+    )
     assert resp.status_code == 401
 
 
@@ -67,26 +74,43 @@ def test_annotation_each_annotator_sees_only_their_own_tree(world, login) -> Non
     s = world[0]
     one, two = login("ann1"), login("ann2")
     mine = flat_text(s.tokens, ["DT", "NN", "NN", "VBD", "VBN", "IN", "DT", "NN", "NN", "."])
-    resp = one.client.post(f"/api/bench/{s.id}/revisions", headers=one.headers(),
-                           json={"base": 0, "tree": mine})
+    resp = one.client.post(
+        f"/api/bench/{s.id}/revisions", headers=one.headers(), json={"base": 0, "tree": mine}
+    )
     assert resp.status_code == 201
-    one.client.patch(f"/api/bench/{s.id}/note", headers=one.headers(),
-                     json={"comment": "ann1's private doubt"})
+    one.client.patch(
+        f"/api/bench/{s.id}/note", headers=one.headers(), json={"comment": "ann1's private doubt"}
+    )
     theirs = two.client.get(f"/api/bench/{s.id}").json()
     assert theirs["tree"] != mine and theirs["source"] == "flat"
-    assert theirs["annotation"] == {"id": None, "state": "draft", "head": 0, "comment": "",
-                                    "flag": None, "submitted_at": None,
-                                    "start_kind": None, "start_grammar_version": None}
+    assert theirs["annotation"] == {
+        "id": None,
+        "state": "draft",
+        "head": 0,
+        "comment": "",
+        "flag": None,
+        "submitted_at": None,
+        "start_kind": None,
+        "start_grammar_version": None,
+    }
     # ann2's first save is based on 0: ann1's head does not leak into ann2's annotation
-    ok = two.client.post(f"/api/bench/{s.id}/revisions", headers=two.headers(),
-                         json={"base": 0, "tree": flat_text(s.tokens)})
+    ok = two.client.post(
+        f"/api/bench/{s.id}/revisions",
+        headers=two.headers(),
+        json={"base": 0, "tree": flat_text(s.tokens)},
+    )
     assert ok.status_code == 201 and ok.json()["revision"]["number"] == 1
     assert one.client.get(f"/api/bench/{s.id}").json()["tree"] == mine
 
 
 def test_annotation_queue_lists_only_own_assignments(world, login) -> None:
     one, two = login("ann1"), login("ann2")
-    assert [it["sentence_id"] for it in one.client.get("/api/queue").json()["items"]] == \
-        [world[0].id, world[1].id, world[2].id]
-    assert [it["sentence_id"] for it in two.client.get("/api/queue").json()["items"]] == \
-        [world[0].id, world[1].id]
+    assert [it["sentence_id"] for it in one.client.get("/api/queue").json()["items"]] == [
+        world[0].id,
+        world[1].id,
+        world[2].id,
+    ]
+    assert [it["sentence_id"] for it in two.client.get("/api/queue").json()["items"]] == [
+        world[0].id,
+        world[1].id,
+    ]

@@ -15,8 +15,11 @@ def _setup(db, people):
 
 
 def _save(me, sid, base, tree, **extra):
-    return me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          json={"base": base, "tree": tree, **extra})
+    return me.client.post(
+        f"/api/bench/{sid}/revisions",
+        headers=me.headers(),
+        json={"base": base, "tree": tree, **extra},
+    )
 
 
 def test_annotation_new_sentence_starts_flat_without_grammar(db, people, login) -> None:
@@ -31,8 +34,14 @@ def test_annotation_new_sentence_starts_flat_without_grammar(db, people, login) 
     assert body["suggestion"] is None
     assert body["tree"].startswith("(ROOT (S (XX The) (XX port)")
     assert body["editable"] is True
-    assert body["queue"] == {"index": 1, "total": 4, "submitted": 0, "prev_id": None,
-                             "next_id": sentences[1].id, "next_open_id": sentences[1].id}
+    assert body["queue"] == {
+        "index": 1,
+        "total": 4,
+        "submitted": 0,
+        "prev_id": None,
+        "next_id": sentences[1].id,
+        "next_open_id": sentences[1].id,
+    }
 
 
 def test_annotation_saves_append_revisions_and_reload_returns_newest(db, people, login) -> None:
@@ -41,8 +50,10 @@ def test_annotation_saves_append_revisions_and_reload_returns_newest(db, people,
     me = login("ann1")
     tokens = s.tokens
     first = flat_text(tokens)
-    second = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
-              "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
+    second = (
+        "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
+        "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+    )
     r1 = _save(me, s.id, 0, first, source="flat")
     assert r1.status_code == 201, r1.text
     assert r1.json()["revision"]["number"] == 1
@@ -53,18 +64,21 @@ def test_annotation_saves_append_revisions_and_reload_returns_newest(db, people,
     revs = db.scalars(select(Revision).order_by(Revision.number)).all()
     assert [r.number for r in revs] == [1, 2]
     assert revs[0].tree == first and revs[0].source == "flat"
-    assert revs[1].tree == second and revs[1].pins == {"spans": [[1, 4, "NP"]],
-                                                       "tags": [[0, "VB"]]}
+    assert revs[1].tree == second and revs[1].pins == {"spans": [[1, 4, "NP"]], "tags": [[0, "VB"]]}
     assert db.get(Sentence, s.id).state == "in_progress"
     back = me.client.get(f"/api/bench/{s.id}").json()
     assert back["tree"] == second and back["source"] == "edit"
-    assert back["pins"] == {"spans": [[1, 4, "NP"]], "tags": [[0, "VB"]], "edited_spans": [],
-                            "edited_tags": [], "removed_spans": []}
+    assert back["pins"] == {
+        "spans": [[1, 4, "NP"]],
+        "tags": [[0, "VB"]],
+        "edited_spans": [],
+        "edited_tags": [],
+        "removed_spans": [],
+    }
     assert back["annotation"]["head"] == 2 and back["start_note"] is None
 
 
-def test_annotation_stale_save_gets_409_with_current_and_writes_nothing(db, people,
-                                                                        login) -> None:
+def test_annotation_stale_save_gets_409_with_current_and_writes_nothing(db, people, login) -> None:
     _, sentences = _setup(db, people)
     s = sentences[0]
     me = login("ann1")
@@ -105,16 +119,25 @@ def test_annotation_race_on_same_number_loses_with_409(db, people, login) -> Non
     assert _save(me, s.id, 0, flat_text(s.tokens)).status_code == 201
     ann = db.scalar(select(Annotation))
     # Simulate the loser of a race: a revision 2 exists while head still says 1.
-    db.add(Revision(annotation_id=ann.id, number=2, tree=flat_text(s.tokens), pins={},
-                    source="edit", user_id=people.ann1.id))
+    db.add(
+        Revision(
+            annotation_id=ann.id,
+            number=2,
+            tree=flat_text(s.tokens),
+            pins={},
+            source="edit",
+            user_id=people.ann1.id,
+        )
+    )
     db.commit()
     import pytest
 
     from app.services.errors import Conflict
 
     with pytest.raises(Conflict) as err:
-        svc.save_revision(db, people.ann1, db.get(Sentence, s.id), base=1,
-                          tree_text=flat_text(s.tokens))
+        svc.save_revision(
+            db, people.ann1, db.get(Sentence, s.id), base=1, tree_text=flat_text(s.tokens)
+        )
     assert err.value.status_code == 409
     db.expire_all()
     assert db.get(Annotation, ann.id).head == 1
@@ -124,18 +147,21 @@ def test_annotation_saved_tree_is_canonical_one_line(db, people, login) -> None:
     _, sentences = _setup(db, people)
     s = sentences[3]
     me = login("ann1")
-    text = ("(ROOT\n  (SBARQ (WHNP (WP Who))\n    (SQ (VP (VBD signed) (PRT (RP off))\n"
-            "      (NP (DT the) (NN ramp) (NN inspection))))\n    (. ?)))")
+    text = (
+        "(ROOT\n  (SBARQ (WHNP (WP Who))\n    (SQ (VP (VBD signed) (PRT (RP off))\n"
+        "      (NP (DT the) (NN ramp) (NN inspection))))\n    (. ?)))"
+    )
     resp = _save(me, s.id, 0, text, source="text")
     assert resp.status_code == 201, resp.text
     stored = resp.json()["revision"]["tree"]
     assert "\n" not in stored
-    assert stored == ("(ROOT (SBARQ (WHNP (WP Who)) (SQ (VP (VBD signed) (PRT (RP off)) "
-                      "(NP (DT the) (NN ramp) (NN inspection)))) (. ?)))")
+    assert stored == (
+        "(ROOT (SBARQ (WHNP (WP Who)) (SQ (VP (VBD signed) (PRT (RP off)) "
+        "(NP (DT the) (NN ramp) (NN inspection)))) (. ?)))"
+    )
 
 
-def test_annotation_history_lists_only_ones_own_revisions_newest_first(db, people,
-                                                                        login) -> None:
+def test_annotation_history_lists_only_ones_own_revisions_newest_first(db, people, login) -> None:
     _, sentences = _setup(db, people)
     s = sentences[1]
     ann1, ann2 = login("ann1"), login("ann2")

@@ -17,8 +17,9 @@ def _world(db, people):
 
 
 def _save(me, sid, base, tree):
-    return me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          json={"base": base, "tree": tree})
+    return me.client.post(
+        f"/api/bench/{sid}/revisions", headers=me.headers(), json={"base": base, "tree": tree}
+    )
 
 
 def _submit(me, sid, base):
@@ -81,8 +82,10 @@ def test_annotation_differing_submissions_go_to_review(db, people, login) -> Non
     assert _submit(one, s.id, 1).status_code == 200
     db.expire_all()
     assert db.get(Sentence, s.id).state == "in_progress"  # waits for the second annotator
-    other = ("(ROOT (S (NP (DT The) (NN port) (NN engine)) (VP (VBD was) (VBN stopped) "
-             "(PP (IN for) (NP (DT an) (NN oil) (NN change)))) (. .)))")
+    other = (
+        "(ROOT (S (NP (DT The) (NN port) (NN engine)) (VP (VBD was) (VBN stopped) "
+        "(PP (IN for) (NP (DT an) (NN oil) (NN change)))) (. .)))"
+    )
     _save(two, s.id, 0, other)
     assert _submit(two, s.id, 1).status_code == 200
     db.expire_all()
@@ -93,9 +96,11 @@ def test_annotation_differing_submissions_go_to_review(db, people, login) -> Non
 def test_annotation_flag_holds_back_and_can_be_released(db, people, login) -> None:
     s = _world(db, people)[1]
     me = login("ann1")
-    resp = me.client.patch(f"/api/bench/{s.id}/note", headers=me.headers(),
-                           json={"flag": "tokenization wrong",
-                                 "comment": "'bilge pump' should be one token?"})
+    resp = me.client.patch(
+        f"/api/bench/{s.id}/note",
+        headers=me.headers(),
+        json={"flag": "tokenization wrong", "comment": "'bilge pump' should be one token?"},
+    )
     assert resp.status_code == 200, resp.text
     body = resp.json()
     assert body["state"] == "flagged" and body["flag"] == "tokenization wrong"
@@ -107,8 +112,9 @@ def test_annotation_flag_holds_back_and_can_be_released(db, people, login) -> No
     # saving still works on a flagged annotation and keeps the flag
     ok = _save(me, s.id, 0, flat_text(s.tokens))
     assert ok.status_code == 201 and ok.json()["annotation"]["state"] == "flagged"
-    released = me.client.patch(f"/api/bench/{s.id}/note", headers=me.headers(),
-                               json={"clear_flag": True})
+    released = me.client.patch(
+        f"/api/bench/{s.id}/note", headers=me.headers(), json={"clear_flag": True}
+    )
     assert released.json()["state"] == "draft" and released.json()["flag"] is None
     assert released.json()["comment"] == "'bilge pump' should be one token?"
 
@@ -118,10 +124,10 @@ def test_annotation_bad_notes_are_refused(db, people, login) -> None:
     me = login("ann1")
     url = f"/api/bench/{s.id}/note"
     assert me.client.patch(url, headers=me.headers(), json={"flag": "  "}).status_code == 422
-    assert me.client.patch(url, headers=me.headers(),
-                           json={"flag": "x" * 65}).status_code == 422
-    assert me.client.patch(url, headers=me.headers(),
-                           json={"comment": "x" * 4001}).status_code == 422
+    assert me.client.patch(url, headers=me.headers(), json={"flag": "x" * 65}).status_code == 422
+    assert (
+        me.client.patch(url, headers=me.headers(), json={"comment": "x" * 4001}).status_code == 422
+    )
 
 
 def test_annotation_queue_progress_and_neighbours(db, people, login) -> None:
@@ -129,15 +135,21 @@ def test_annotation_queue_progress_and_neighbours(db, people, login) -> None:
     me = login("ann1")
     _save(me, sentences[0].id, 0, flat_text(sentences[0].tokens, TAGS0))
     _submit(me, sentences[0].id, 1)
-    me.client.patch(f"/api/bench/{sentences[1].id}/note", headers=me.headers(),
-                    json={"flag": "not a sentence"})
+    me.client.patch(
+        f"/api/bench/{sentences[1].id}/note", headers=me.headers(), json={"flag": "not a sentence"}
+    )
     queue = me.client.get("/api/queue").json()
     assert (queue["submitted"], queue["total"]) == (1, 4)
-    assert [it["annotation_state"] for it in queue["items"]] == \
-        ["submitted", "flagged", None, None]
+    assert [it["annotation_state"] for it in queue["items"]] == ["submitted", "flagged", None, None]
     place = me.client.get(f"/api/bench/{sentences[1].id}").json()["queue"]
-    assert place == {"index": 2, "total": 4, "submitted": 1, "prev_id": sentences[0].id,
-                     "next_id": sentences[2].id, "next_open_id": sentences[2].id}
+    assert place == {
+        "index": 2,
+        "total": 4,
+        "submitted": 1,
+        "prev_id": sentences[0].id,
+        "next_id": sentences[2].id,
+        "next_open_id": sentences[2].id,
+    }
     last = me.client.get(f"/api/bench/{sentences[3].id}").json()["queue"]
     assert last["next_id"] is None and last["next_open_id"] == sentences[2].id
 
@@ -150,8 +162,9 @@ def test_annotation_sentence_in_review_or_gold_takes_no_more_saves(db, people, l
     for state in ("in_review", "gold"):
         db.get(Sentence, s.id).state = state
         db.commit()
-        resp = _save(me, s.id, 1, flat_text(s.tokens, ["DT", "JJ", "NN", "VBZ", "RB", "VBN",
-                                                       "VBN", "."]))
+        resp = _save(
+            me, s.id, 1, flat_text(s.tokens, ["DT", "JJ", "NN", "VBZ", "RB", "VBN", "VBN", "."])
+        )
         assert resp.status_code == 409 and state.replace("_", " ") in resp.json()["detail"]
         assert _submit(me, s.id, 1).status_code == 409
         assert me.client.get(f"/api/bench/{s.id}").json()["editable"] is False

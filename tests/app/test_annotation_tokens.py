@@ -9,12 +9,18 @@ from sqlalchemy import select
 from app.models import AgreementRecord, Annotation, Revision, Sentence, TokenVersion
 from tests.app.bench_helpers import assign, make_corpus
 
-TREE = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
-        "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
-JOINED = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilgepump)) (PP (IN before) "
-          "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
-SPLIT = ("(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN be) (IN fore) "
-         "(NP (DT the) (JJ first) (NN crossing)))) (. .)))")
+TREE = (
+    "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN before) "
+    "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+)
+JOINED = (
+    "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilgepump)) (PP (IN before) "
+    "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+)
+SPLIT = (
+    "(ROOT (S (VP (VB Check) (NP (DT the) (NN bilge) (NN pump)) (PP (IN be) (IN fore) "
+    "(NP (DT the) (JJ first) (NN crossing)))) (. .)))"
+)
 
 
 def _setup(db, people):
@@ -24,8 +30,9 @@ def _setup(db, people):
 
 
 def _save(me, sid, base, tree):
-    resp = me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          json={"base": base, "tree": tree})
+    resp = me.client.post(
+        f"/api/bench/{sid}/revisions", headers=me.headers(), json={"base": base, "tree": tree}
+    )
     assert resp.status_code == 201, resp.text
 
 
@@ -33,14 +40,19 @@ def _fix(me, sid, **body):
     return me.client.post(f"/api/bench/{sid}/tokens", headers=me.headers(), json=body)
 
 
-def test_tokens_join_carries_the_tree_and_keeps_the_other_annotators_work(db, people,
-                                                                           login) -> None:
+def test_tokens_join_carries_the_tree_and_keeps_the_other_annotators_work(
+    db, people, login
+) -> None:
     s = _setup(db, people)
     ann1, ann2 = login("ann1"), login("ann2")
     _save(ann1, s.id, 0, TREE)
     _save(ann2, s.id, 0, TREE)
-    assert ann2.client.post(f"/api/bench/{s.id}/submit", headers=ann2.headers(),
-                            json={"base": 1}).status_code == 200
+    assert (
+        ann2.client.post(
+            f"/api/bench/{s.id}/submit", headers=ann2.headers(), json={"base": 1}
+        ).status_code
+        == 200
+    )
     resp = _fix(ann1, s.id, base=1, position=2, count=2, tokens=["bilgepump"])
     assert resp.status_code == 201, resp.text
     body = resp.json()
@@ -52,7 +64,8 @@ def test_tokens_join_carries_the_tree_and_keeps_the_other_annotators_work(db, pe
     assert sentence.token_version == 2 and sentence.text.startswith("Check the bilgepump")
     old = db.scalars(select(TokenVersion)).all()
     assert [(v.number, v.tokens[2:4], v.change) for v in old] == [
-        (1, ["bilge", "pump"], {"position": 2, "count": 2, "tokens": ["bilgepump"]})]
+        (1, ["bilge", "pump"], {"position": 2, "count": 2, "tokens": ["bilgepump"]})
+    ]
     # ann2's handed-in tree is kept on the earlier tokens, and the annotation is open again
     a2 = db.scalar(select(Annotation).where(Annotation.user_id == people.ann2.id))
     assert a2.state == "draft"
@@ -63,18 +76,25 @@ def test_tokens_join_carries_the_tree_and_keeps_the_other_annotators_work(db, pe
     assert bench["carried_from"] == 1 and bench["token_version"] == 2
     assert bench["tree"] == JOINED and "earlier tokens" in bench["start_note"]
     # agreement: only once both trees are on the current tokens
-    assert ann1.client.post(f"/api/bench/{s.id}/submit", headers=ann1.headers(),
-                            json={"base": 2}).status_code == 200
+    assert (
+        ann1.client.post(
+            f"/api/bench/{s.id}/submit", headers=ann1.headers(), json={"base": 2}
+        ).status_code
+        == 200
+    )
     assert db.scalars(select(AgreementRecord)).all() == []
     _save(ann2, s.id, 1, JOINED)
-    assert ann2.client.post(f"/api/bench/{s.id}/submit", headers=ann2.headers(),
-                            json={"base": 2}).status_code == 200
+    assert (
+        ann2.client.post(
+            f"/api/bench/{s.id}/submit", headers=ann2.headers(), json={"base": 2}
+        ).status_code
+        == 200
+    )
     records = db.scalars(select(AgreementRecord)).all()
     assert len(records) == 1 and records[0].identical
 
 
-def test_tokens_split_gives_the_tag_to_both_halves_and_undo_joins_back(db, people,
-                                                                        login) -> None:
+def test_tokens_split_gives_the_tag_to_both_halves_and_undo_joins_back(db, people, login) -> None:
     s = _setup(db, people)
     ann1 = login("ann1")
     _save(ann1, s.id, 0, TREE)
@@ -96,11 +116,13 @@ def test_tokens_bad_fixes_are_refused_with_the_reason(db, people, login) -> None
     ann1 = login("ann1")
     assert _fix(ann1, s.id, base=1, position=0, count=1, tokens=["x"]).status_code == 422
     _save(ann1, s.id, 0, TREE)
-    cases = [({"position": 8, "count": 2, "tokens": ["x"]}, "one token, or two"),
-             ({"position": 2, "count": 1, "tokens": ["bilge"]}, "same as before"),
-             ({"position": 2, "count": 1, "tokens": ["bil ge"]}, "space"),
-             ({"position": 2, "count": 2, "tokens": ["a", "b"]}, "only be joined into one"),
-             ({"position": 12, "count": 1, "tokens": ["x"]}, "no token 13")]
+    cases = [
+        ({"position": 8, "count": 2, "tokens": ["x"]}, "one token, or two"),
+        ({"position": 2, "count": 1, "tokens": ["bilge"]}, "same as before"),
+        ({"position": 2, "count": 1, "tokens": ["bil ge"]}, "space"),
+        ({"position": 2, "count": 2, "tokens": ["a", "b"]}, "only be joined into one"),
+        ({"position": 12, "count": 1, "tokens": ["x"]}, "no token 13"),
+    ]
     for body, why in cases:
         resp = _fix(ann1, s.id, base=1, **body)
         assert resp.status_code == 422, (body, resp.text)

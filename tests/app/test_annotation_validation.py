@@ -17,16 +17,21 @@ def bench(db, people, login):
     s = sentences[3]  # Who signed off the ramp inspection ?
 
     def save(tree, base=0, **extra):
-        return me.client.post(f"/api/bench/{s.id}/revisions", headers=me.headers(),
-                              json={"base": base, "tree": tree, **extra})
+        return me.client.post(
+            f"/api/bench/{s.id}/revisions",
+            headers=me.headers(),
+            json={"base": base, "tree": tree, **extra},
+        )
 
     save.sentence = s
     save.me = me
     return save
 
 
-GOOD = ("(ROOT (SBARQ (WHNP (WP Who)) (SQ (VP (VBD signed) (PRT (RP off)) "
-        "(NP (DT the) (NN ramp) (NN inspection)))) (? ?)))")
+GOOD = (
+    "(ROOT (SBARQ (WHNP (WP Who)) (SQ (VP (VBD signed) (PRT (RP off)) "
+    "(NP (DT the) (NN ramp) (NN inspection)))) (? ?)))"
+)
 
 
 def _no_revisions(db) -> bool:
@@ -97,9 +102,15 @@ def test_annotation_unknown_label_refused_when_corpus_says_so(db, people, login)
     _, sentences = make_corpus(db, ["Engine hours ."], name="Strict", policy="refuse")
     assign(db, sentences, people.ann1)
     me = login("ann1")
-    resp = me.client.post(f"/api/bench/{sentences[0].id}/revisions", headers=me.headers(),
-                          json={"base": 0, "tree": "(ROOT (BLOB (NN Engine) (NNS hours) (. .)))",
-                                "confirm_labels": True})
+    resp = me.client.post(
+        f"/api/bench/{sentences[0].id}/revisions",
+        headers=me.headers(),
+        json={
+            "base": 0,
+            "tree": "(ROOT (BLOB (NN Engine) (NNS hours) (. .)))",
+            "confirm_labels": True,
+        },
+    )
     assert resp.status_code == 422
     assert resp.json()["kind"] == "labels" and resp.json()["can_confirm"] is False
     assert "BLOB" in resp.json()["detail"]
@@ -124,36 +135,44 @@ def test_annotation_pins_must_be_in_the_tree(bench, db) -> None:
     assert ok.json()["revision"]["pins"]["spans"] == [[0, 1, "WHNP"], [3, 6, "NP"]]
 
 
-@pytest.mark.parametrize("body", [
-    None,
-    {},
-    {"base": 0},
-    {"tree": GOOD},
-    {"base": "zero", "tree": GOOD},
-    {"base": -1, "tree": GOOD},
-    {"base": 0, "tree": GOOD, "source": "magic"},
-    {"base": 0, "tree": GOOD, "pins": {"spans": [[1, "x", "NP"]]}},
-    {"base": 0, "tree": 17},
-    {"base": 0, "tree": ""},
-    {"base": 0, "tree": "   \n "},
-    {"base": 0, "tree": "(ROOT"},
-    {"base": 0, "tree": "(ROOT (S (NN a)) (S (NN b)))"},
-    {"base": 0, "tree": "(ROOT (S (NN a))) (X (NN b))"},
-    {"base": 0, "tree": ")"},
-    {"base": 0, "tree": "(ROOT (S ( (NN a))))"},
-])
+@pytest.mark.parametrize(
+    "body",
+    [
+        None,
+        {},
+        {"base": 0},
+        {"tree": GOOD},
+        {"base": "zero", "tree": GOOD},
+        {"base": -1, "tree": GOOD},
+        {"base": 0, "tree": GOOD, "source": "magic"},
+        {"base": 0, "tree": GOOD, "pins": {"spans": [[1, "x", "NP"]]}},
+        {"base": 0, "tree": 17},
+        {"base": 0, "tree": ""},
+        {"base": 0, "tree": "   \n "},
+        {"base": 0, "tree": "(ROOT"},
+        {"base": 0, "tree": "(ROOT (S (NN a)) (S (NN b)))"},
+        {"base": 0, "tree": "(ROOT (S (NN a))) (X (NN b))"},
+        {"base": 0, "tree": ")"},
+        {"base": 0, "tree": "(ROOT (S ( (NN a))))"},
+    ],
+)
 def test_annotation_malformed_bodies_get_422_never_500(bench, body) -> None:
     me = bench.me
     url = f"/api/bench/{bench.sentence.id}/revisions"
-    resp = (me.client.post(url, headers=me.headers(), content=b"")
-            if body is None else me.client.post(url, headers=me.headers(), json=body))
+    resp = (
+        me.client.post(url, headers=me.headers(), content=b"")
+        if body is None
+        else me.client.post(url, headers=me.headers(), json=body)
+    )
     assert resp.status_code == 422, resp.text
     assert resp.json()["detail"]
 
 
 def test_annotation_non_utf8_body_gets_4xx(bench) -> None:
     me = bench.me
-    resp = me.client.post(f"/api/bench/{bench.sentence.id}/revisions",
-                          headers={**me.headers(), "content-type": "application/json"},
-                          content=b'{"base": 0, "tree": "(ROOT \xff\xfe)"}')
+    resp = me.client.post(
+        f"/api/bench/{bench.sentence.id}/revisions",
+        headers={**me.headers(), "content-type": "application/json"},
+        content=b'{"base": 0, "tree": "(ROOT \xff\xfe)"}',
+    )
     assert 400 <= resp.status_code < 500

@@ -22,8 +22,9 @@ def test_auth_api_needs_login(app) -> None:
 
 def test_auth_login_sets_httponly_samesite_cookie(app, people) -> None:
     client = TestClient(app)
-    resp = client.post("/login", data={"username": "ann1", "password": PASSWORD},
-                       follow_redirects=False)
+    resp = client.post(
+        "/login", data={"username": "ann1", "password": PASSWORD}, follow_redirects=False
+    )
     assert resp.status_code == 303
     cookie = resp.headers["set-cookie"].lower()
     assert "httponly" in cookie and "samesite=strict" in cookie
@@ -32,8 +33,9 @@ def test_auth_login_sets_httponly_samesite_cookie(app, people) -> None:
 
 def test_auth_wrong_password_is_refused(app, people) -> None:
     client = TestClient(app)
-    resp = client.post("/login", data={"username": "ann1", "password": "nope"},
-                       follow_redirects=False)
+    resp = client.post(
+        "/login", data={"username": "ann1", "password": "nope"}, follow_redirects=False
+    )
     assert resp.status_code == 401
     assert client.get("/api/session").status_code == 401
 
@@ -63,8 +65,9 @@ def test_auth_repeated_failures_are_delayed(app, people, settings, db) -> None:
     assert counts.account == counts.address == settings.login_delay_after + 1
     assert login_delay(counts, settings) > 0
     # a correct login still works (after the delay) and restarts the account's count only
-    ok = client.post("/login", data={"username": "ann1", "password": PASSWORD},
-                     follow_redirects=False)
+    ok = client.post(
+        "/login", data={"username": "ann1", "password": PASSWORD}, follow_redirects=False
+    )
     assert ok.status_code == 303
     after = failure_counts(db, "ann1", "testclient")
     assert after.account == 0 and after.address == settings.login_delay_after + 1
@@ -89,7 +92,9 @@ def test_auth_security_headers(app) -> None:
 
 
 def test_auth_login_redirect_stays_on_site(app, people) -> None:
-    resp = TestClient(app).post("/login", data={"username": "ann1", "password": PASSWORD,
-                                                "next": "//evil.example/x"},
-                                follow_redirects=False)
+    resp = TestClient(app).post(
+        "/login",
+        data={"username": "ann1", "password": PASSWORD, "next": "//evil.example/x"},
+        follow_redirects=False,
+    )
     assert resp.headers["location"] == "/"

@@ -89,8 +89,7 @@ def test_restore_brings_the_backup_back(app, db, settings, tmp_path) -> None:
     conn.close()
 
 
-def test_restore_refuses_a_file_that_is_not_a_treewright_database(settings, db,
-                                                                   tmp_path) -> None:
+def test_restore_refuses_a_file_that_is_not_a_treewright_database(settings, db, tmp_path) -> None:
     junk = tmp_path / "junk.db"
     junk.write_bytes(b"this is not sqlite at all" * 100)
     with pytest.raises(BackupError, match="not a SQLite database"):

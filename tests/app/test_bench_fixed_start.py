@@ -30,8 +30,9 @@ def _differing_sentences(db, people):
     first = install_grammar(db, corpus, gum_grammar_bytes())
     g1 = grammar_for(db, first.id)
     second_bytes = gum_grammar_bytes(20)
-    second = GrammarVersion(corpus_id=corpus.id, number=2, status=first.status,
-                            data=second_bytes, training_size=0)
+    second = GrammarVersion(
+        corpus_id=corpus.id, number=2, status=first.status, data=second_bytes, training_size=0
+    )
     db.add(second)
     db.commit()
     g2 = grammar_for(db, second.id)
@@ -53,7 +54,8 @@ def _activate(db, corpus, version) -> None:
 
 @pytest.mark.parametrize("first_user", ["ann1", "ann2"])
 def test_fixed_start_is_the_same_for_both_annotators_across_a_retraining(
-        db, people, login, first_user) -> None:
+    db, people, login, first_user
+) -> None:
     corpus, differing, v1, v2 = _differing_sentences(db, people)
     second_user = "ann2" if first_user == "ann1" else "ann1"
     s = differing[0]
@@ -76,25 +78,32 @@ def test_fixed_start_is_the_same_for_both_annotators_across_a_retraining(
     assert fresh["tree"] == fresh["suggestion"]["consensus"]
     # Both annotations record the start when they are created (first save).
     for who, opened in ((b, opened_second), (a, opened_first)):
-        saved = who.client.post(f"/api/bench/{s.id}/revisions", headers=who.headers(),
-                                json={"base": 0, "tree": opened["tree"]})
+        saved = who.client.post(
+            f"/api/bench/{s.id}/revisions",
+            headers=who.headers(),
+            json={"base": 0, "tree": opened["tree"]},
+        )
         assert saved.status_code == 201, saved.text
         assert saved.json()["annotation"]["start_kind"] == "consensus"
         assert saved.json()["annotation"]["start_grammar_version"] == 1
     db.expire_all()
     rows = db.query(Annotation).filter_by(sentence_id=s.id).all()
     assert len(rows) == 2
-    expected = db.query(Suggestion).filter_by(sentence_id=s.id,
-                                              grammar_version_id=v1.id).one()
+    expected = db.query(Suggestion).filter_by(sentence_id=s.id, grammar_version_id=v1.id).one()
     for row in rows:
         assert (row.start_kind, row.start_grammar_version_id, row.start_suggestion_id) == (
-            "consensus", v1.id, expected.id)
+            "consensus",
+            v1.id,
+            expected.id,
+        )
     assert expected.consensus == opened_first["tree"]
 
 
 def test_fixed_start_flat_is_fixed_only_when_an_annotation_begins(db, people, login) -> None:
-    texts = ["The port engine was stopped for an oil change .",
-             "Check the bilge pump before the first crossing ."]
+    texts = [
+        "The port engine was stopped for an oil change .",
+        "Check the bilge pump before the first crossing .",
+    ]
     corpus, sentences = make_corpus(db, texts, labels=[], tags=[])
     assign(db, sentences, people.ann1, people.ann2)
     ann1, ann2 = login("ann1"), login("ann2")
@@ -103,8 +112,11 @@ def test_fixed_start_flat_is_fixed_only_when_an_annotation_begins(db, people, lo
     assert ann1.client.get(f"/api/bench/{looked.id}").json()["source"] == "flat"
     # ...but fixed by the first save.
     flat = ann1.client.get(f"/api/bench/{worked.id}").json()
-    saved = ann1.client.post(f"/api/bench/{worked.id}/revisions", headers=ann1.headers(),
-                             json={"base": 0, "tree": flat["tree"]})
+    saved = ann1.client.post(
+        f"/api/bench/{worked.id}/revisions",
+        headers=ann1.headers(),
+        json={"base": 0, "tree": flat["tree"]},
+    )
     assert saved.json()["annotation"]["start_kind"] == "flat"
     install_grammar(db, corpus, gum_grammar_bytes())
     after = ann2.client.get(f"/api/bench/{looked.id}").json()

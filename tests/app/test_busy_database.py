@@ -26,8 +26,7 @@ def _mode(path: Path) -> int:
 
 
 @sqlite_only()
-def test_busy_database_save_answers_503_and_stores_nothing(login, db, people,
-                                                           settings) -> None:
+def test_busy_database_save_answers_503_and_stores_nothing(login, db, people, settings) -> None:
     corpus, (sentence,) = make_corpus(db, ["the tide turned ."], labels=[], tags=[])
     assign(db, [sentence], people.ann1)
     me = login("ann1")
@@ -35,8 +34,11 @@ def test_busy_database_save_answers_503_and_stores_nothing(login, db, people,
     holder = sqlite3.connect(sqlite_file(settings), timeout=5)
     holder.execute("BEGIN IMMEDIATE")  # another writer (a long import) holds the lock
     try:
-        busy = me.client.post(f"/api/bench/{sentence.id}/revisions", headers=me.headers(),
-                              json={"base": 0, "tree": tree})
+        busy = me.client.post(
+            f"/api/bench/{sentence.id}/revisions",
+            headers=me.headers(),
+            json={"base": 0, "tree": tree},
+        )
     finally:
         holder.rollback()
         holder.close()
@@ -44,8 +46,9 @@ def test_busy_database_save_answers_503_and_stores_nothing(login, db, people,
     assert busy.headers["retry-after"] == "1"
     assert busy.json()["kind"] == "busy" and "nothing was stored" in busy.json()["detail"]
     assert me.client.get(f"/api/bench/{sentence.id}").json()["annotation"]["head"] == 0
-    again = me.client.post(f"/api/bench/{sentence.id}/revisions", headers=me.headers(),
-                           json={"base": 0, "tree": tree})
+    again = me.client.post(
+        f"/api/bench/{sentence.id}/revisions", headers=me.headers(), json={"base": 0, "tree": tree}
+    )
     assert again.status_code == 201, again.text
 
 
@@ -70,8 +73,7 @@ def test_busy_database_existing_file_is_made_private(tmp_path) -> None:
 
 
 @sqlite_only()
-def test_busy_database_backup_partial_copy_is_private(app, settings, tmp_path,
-                                                      monkeypatch) -> None:
+def test_busy_database_backup_partial_copy_is_private(app, settings, tmp_path, monkeypatch) -> None:
     seen: dict[str, int] = {}
     check = backup._check
 

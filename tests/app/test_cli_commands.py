@@ -13,8 +13,7 @@ from app.models import Assignment, Sentence, User
 from tests.app.conftest import sqlite_only
 from tests.app.row_counts import count_rows
 
-TREES = "".join(f"(ROOT (S (NP-SBJ-1 (NNP Boat{i})) (VP (VBD sank)) (. .)))\n"
-                for i in range(10))
+TREES = "".join(f"(ROOT (S (NP-SBJ-1 (NNP Boat{i})) (VP (VBD sank)) (. .)))\n" for i in range(10))
 
 
 @pytest.fixture
@@ -36,8 +35,20 @@ def cli(settings, monkeypatch):
 
 def test_cli_every_command_has_help(cli) -> None:
     top = cli("--help").output
-    for name in ("serve", "demo", "import", "export", "user", "backup", "restore", "assign",
-                 "corpus", "train", "parse", "score"):
+    for name in (
+        "serve",
+        "demo",
+        "import",
+        "export",
+        "user",
+        "backup",
+        "restore",
+        "assign",
+        "corpus",
+        "train",
+        "parse",
+        "score",
+    ):
         assert name in top
         assert "Usage:" in cli(name, "--help").output
     for sub in ("add", "list", "set-role", "disable", "enable", "set-password"):
@@ -95,17 +106,47 @@ def test_cli_export_split_to_folder_and_zip(cli, tmp_path) -> None:
     gold.write_text(TREES)
     cli("import", str(gold), "--corpus", "Quay", "--as", "gold")
     out = tmp_path / "out"
-    cli("export", "--corpus", "Quay", "--split", "80/10/10", "--by", "sentence", "--seed",
-        "5", "--out", str(out))
+    cli(
+        "export",
+        "--corpus",
+        "Quay",
+        "--split",
+        "80/10/10",
+        "--by",
+        "sentence",
+        "--seed",
+        "5",
+        "--out",
+        str(out),
+    )
     counts = {p.name: len(p.read_text().splitlines()) for p in out.iterdir()}
     assert counts == {"quay-train.ptb": 8, "quay-dev.ptb": 1, "quay-test.ptb": 1}
     first = {p.name: p.read_text() for p in out.iterdir()}
     again = tmp_path / "again"
-    cli("export", "--corpus", "Quay", "--split", "80/10/10", "--by", "sentence", "--seed",
-        "5", "--out", str(again))
+    cli(
+        "export",
+        "--corpus",
+        "Quay",
+        "--split",
+        "80/10/10",
+        "--by",
+        "sentence",
+        "--seed",
+        "5",
+        "--out",
+        str(again),
+    )
     assert {p.name: p.read_text() for p in again.iterdir()} == first
-    cli("export", "--corpus", "Quay", "--split", "8/1/1", "--zip", "--out",
-        str(tmp_path / "gold.zip"))
+    cli(
+        "export",
+        "--corpus",
+        "Quay",
+        "--split",
+        "8/1/1",
+        "--zip",
+        "--out",
+        str(tmp_path / "gold.zip"),
+    )
     assert (tmp_path / "gold.zip").stat().st_size > 0
     bad = cli("export", "--corpus", "Quay", "--split", "80/20", ok=False)
     assert bad.exit_code == 1 and "three numbers" in bad.output
@@ -163,8 +204,11 @@ def test_cli_demo_loads_and_replaces_a_demo(cli, settings) -> None:
     first = cli("demo", "--no-serve", "--no-train").output
     assert "demo loaded: 75 gold trees" in first
     logins = [line.split() for line in first.splitlines() if line.startswith("  ")]
-    assert [row[:2] for row in logins] == [["purser", "admin"], ["netmender", "annotator"],
-                                           ["tidewatch", "adjudicator"]]
+    assert [row[:2] for row in logins] == [
+        ["purser", "admin"],
+        ["netmender", "annotator"],
+        ["tidewatch", "adjudicator"],
+    ]
     second = cli("demo", "--no-serve", "--no-train").output
     again = [line.split() for line in second.splitlines() if line.startswith("  ")]
     assert [row[2] for row in again] != [row[2] for row in logins]  # fresh passwords
@@ -194,8 +238,19 @@ def test_cli_reference_add_and_list(cli, db, tmp_path) -> None:
     older.write_text("(ROOT (S (NP (NNS Gulls)) (VP (VBD circled)) (. .)))\n" * 4)
     licence = tmp_path / "LICENCE.txt"
     licence.write_text("Invented trees; free to use.")
-    out = cli("reference", "add", str(older), "--corpus", "Quay", "--name", "older notes",
-              "--source", "the team's first season", "--licence-file", str(licence)).output
+    out = cli(
+        "reference",
+        "add",
+        str(older),
+        "--corpus",
+        "Quay",
+        "--name",
+        "older notes",
+        "--source",
+        "the team's first season",
+        "--licence-file",
+        str(licence),
+    ).output
     assert "reference set 'older notes' of corpus 'Quay': 4 trees, 12 words" in out
     listed = cli("reference", "list", "--corpus", "Quay").output
     assert "older notes  (4 trees; in use)  the team's first season" in listed

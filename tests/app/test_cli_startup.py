@@ -21,9 +21,9 @@ def _loaded_after(args: list[str]) -> dict[str, bool]:
         f"    main({args!r})\n"
         "except SystemExit:\n"
         "    pass\n"
-        f"print(json.dumps({{m: m in sys.modules for m in {HEAVY!r}}}))\n")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                         check=True)
+        f"print(json.dumps({{m: m in sys.modules for m in {HEAVY!r}}}))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     return dict(json.loads(out.stdout.strip().splitlines()[-1]))
 
 

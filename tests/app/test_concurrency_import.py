@@ -30,8 +30,12 @@ def test_concurrency_import_leaves_the_server_answering(settings, app, people, r
 
         def upload() -> None:
             form = {"corpus_name": "Quay log", "kind": "text", "csrf_token": admin.csrf}
-            resp = admin.http.post(route, headers={"X-CSRF-Token": admin.csrf}, data=form,
-                                   files={"upload": ("quay.txt", data, "text/plain")})
+            resp = admin.http.post(
+                route,
+                headers={"X-CSRF-Token": admin.csrf},
+                data=form,
+                files={"upload": ("quay.txt", data, "text/plain")},
+            )
             done["import"] = time.monotonic()
             done["import_status"] = resp.status_code
 
@@ -50,5 +54,6 @@ def test_concurrency_import_leaves_the_server_answering(settings, app, people, r
         admin.close()
         other.close()
     assert done.get("import_status") in (200, 201, 303), done  # the page redirects
-    assert "first_other" in done and done["first_other"] < done["import"], \
+    assert "first_other" in done and done["first_other"] < done["import"], (
         "no other request was answered while the import was being stored"
+    )

@@ -32,9 +32,11 @@ ROUNDS = 12  # saves per client: the loop is bounded by count...
 DEADLINE = 90.0  # ...and by time
 STALE_SHARE = 0.25
 
-TEXTS = ["The night ferry waited at the outer pier .",
-         "Two deckhands coiled the stern line .",
-         "Fog closed the harbour before noon ."]
+TEXTS = [
+    "The night ferry waited at the outer pier .",
+    "Two deckhands coiled the stern line .",
+    "Fog closed the harbour before noon .",
+]
 
 
 @dataclass
@@ -48,8 +50,17 @@ class Attempt:
     body: dict[str, Any]
 
 
-def _worker(index: int, client: Client, sentence_id: int, tokens: list[str], shared: bool,
-            seed: int, out: list[Attempt], lock: threading.Lock, stop_at: float) -> None:
+def _worker(
+    index: int,
+    client: Client,
+    sentence_id: int,
+    tokens: list[str],
+    shared: bool,
+    seed: int,
+    out: list[Attempt],
+    lock: threading.Lock,
+    stop_at: float,
+) -> None:
     rnd = random.Random(seed)
     head = 0
     for i in range(ROUNDS):
@@ -61,11 +72,23 @@ def _worker(index: int, client: Client, sentence_id: int, tokens: list[str], sha
         base = rnd.randrange(0, head) if stale else head
         marker = f"C{index}R{i}"
         resp = client.save(sentence_id, base, marked_tree(tokens, marker))
-        body = resp.json() if resp.headers.get("content-type", "").startswith(
-            "application/json") else {"raw": resp.text}
+        body = (
+            resp.json()
+            if resp.headers.get("content-type", "").startswith("application/json")
+            else {"raw": resp.text}
+        )
         with lock:
-            out.append(Attempt(index, (client.user_id, sentence_id), base, marker, stale,
-                               resp.status_code, body))
+            out.append(
+                Attempt(
+                    index,
+                    (client.user_id, sentence_id),
+                    base,
+                    marker,
+                    stale,
+                    resp.status_code,
+                    body,
+                )
+            )
         if resp.status_code == 201:
             head = body["revision"]["number"]
         elif resp.status_code == 409 and not shared:
@@ -78,7 +101,7 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
     # Empty label and tag sets accept any label, so each save can carry its own marker tag.
     _, sentences = make_corpus(db, TEXTS, labels=[], tags=[])
     assign(db, sentences[:1], people.ann1)
-    assign(db, sentences[1:1 + SOLO_SENTENCES], *solo)
+    assign(db, sentences[1 : 1 + SOLO_SENTENCES], *solo)
 
     attempts: list[Attempt] = []
     lock = threading.Lock()
@@ -87,14 +110,27 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
         for _ in range(HOT_CLIENTS):
             plan.append((Client(server.url, "ann1", PASSWORD), sentences[0], True))
         for user in solo:
-            for s in sentences[1:1 + SOLO_SENTENCES]:
+            for s in sentences[1 : 1 + SOLO_SENTENCES]:
                 plan.append((Client(server.url, user.username, PASSWORD), s, False))
         assert len(plan) == 20
         stop_at = time.monotonic() + DEADLINE
-        threads = [threading.Thread(target=_worker, args=(i, c, s.id, s.tokens, shared,
-                                                          rng.randrange(1 << 30), attempts,
-                                                          lock, stop_at))
-                   for i, (c, s, shared) in enumerate(plan)]
+        threads = [
+            threading.Thread(
+                target=_worker,
+                args=(
+                    i,
+                    c,
+                    s.id,
+                    s.tokens,
+                    shared,
+                    rng.randrange(1 << 30),
+                    attempts,
+                    lock,
+                    stop_at,
+                ),
+            )
+            for i, (c, s, shared) in enumerate(plan)
+        ]
         for t in threads:
             t.start()
         for t in threads:
@@ -105,8 +141,10 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
 
     assert len(attempts) == 20 * ROUNDS, "some clients stopped early (deadline reached)"
     raced = sum(1 for a in attempts if a.status == 409 and not a.on_purpose_stale)
-    print(f"{len(attempts)} saves: {sum(a.status == 201 for a in attempts)} stored, "
-          f"{sum(a.on_purpose_stale for a in attempts)} stale on purpose, {raced} lost a race")
+    print(
+        f"{len(attempts)} saves: {sum(a.status == 201 for a in attempts)} stored, "
+        f"{sum(a.on_purpose_stale for a in attempts)} stale on purpose, {raced} lost a race"
+    )
     odd = [(a.status, a.body) for a in attempts if a.status not in (201, 409)]
     assert not odd, f"answers other than 201/409: {odd[:5]}"
 
@@ -116,7 +154,8 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
             number = a.body["revision"]["number"]
             assert number == a.base + 1, f"save based on {a.base} stored as {number}"
             assert a.body["revision"]["tree"] == marked_tree(
-                next(s.tokens for s in sentences if s.id == a.annotation_key[1]), a.marker)
+                next(s.tokens for s in sentences if s.id == a.annotation_key[1]), a.marker
+            )
             key = (a.annotation_key, number)
             assert key not in acked, f"two saves acknowledged as revision {key}: overwrite"
             acked[key] = a
@@ -133,10 +172,12 @@ def test_concurrency_twenty_clients_lose_nothing(settings, db, people, rng) -> N
     db.expire_all()
     stored: dict[tuple[tuple[int, int], int], str] = {}
     for ann in db.scalars(select(Annotation)):
-        revs = db.scalars(select(Revision).where(Revision.annotation_id == ann.id)
-                          .order_by(Revision.number)).all()
-        assert [r.number for r in revs] == list(range(1, ann.head + 1)), \
+        revs = db.scalars(
+            select(Revision).where(Revision.annotation_id == ann.id).order_by(Revision.number)
+        ).all()
+        assert [r.number for r in revs] == list(range(1, ann.head + 1)), (
             f"annotation {ann.id}: revisions {[r.number for r in revs]} but head {ann.head}"
+        )
         for r in revs:
             stored[((ann.user_id, ann.sentence_id), r.number)] = r.tree
     # Every acknowledged save is stored under its number with its own marker, and nothing is

@@ -35,19 +35,28 @@ def test_corpora_create_and_refuse_duplicate_names(db) -> None:
 
 def test_corpora_settings_are_checked(db) -> None:
     corpus = create_corpus(db, "S")
-    update_corpus(db, corpus, settings={"annotators_per_sentence": "3", "retrain_every": 10,
-                                        "max_f1_drop": "0.05",
-                                        "unknown_label_policy": "refuse",
-                                        "auto_gold_when_identical": "no"})
+    update_corpus(
+        db,
+        corpus,
+        settings={
+            "annotators_per_sentence": "3",
+            "retrain_every": 10,
+            "max_f1_drop": "0.05",
+            "unknown_label_policy": "refuse",
+            "auto_gold_when_identical": "no",
+        },
+    )
     values = effective_settings(corpus)
     assert values["annotators_per_sentence"] == 3 and values["max_f1_drop"] == 0.05
     assert values["unknown_label_policy"] == "refuse"
     assert values["auto_gold_when_identical"] is False
-    for bad, message in [({"annotators_per_sentence": 0}, "outside"),
-                         ({"annotators_per_sentence": "two"}, "not an integer"),
-                         ({"max_f1_drop": 1.5}, "outside"),
-                         ({"unknown_label_policy": "maybe"}, "not one of"),
-                         ({"colour": "red"}, "unknown corpus setting")]:
+    for bad, message in [
+        ({"annotators_per_sentence": 0}, "outside"),
+        ({"annotators_per_sentence": "two"}, "not an integer"),
+        ({"max_f1_drop": 1.5}, "outside"),
+        ({"unknown_label_policy": "maybe"}, "not one of"),
+        ({"colour": "red"}, "unknown corpus setting"),
+    ]:
         with pytest.raises(BadInput, match=message):
             update_corpus(db, corpus, settings=bad)
     assert effective_settings(corpus)["annotators_per_sentence"] == 3
@@ -84,8 +93,14 @@ def test_corpora_sentence_pages(db) -> None:
 
 def test_corpora_delete_needs_the_exact_name(db, people) -> None:
     import_bytes(db, TREE.encode(), source="g.ptb", corpus_name="Doomed", kind="gold")
-    import_bytes(db, TREE.replace("Gulls", "Terns").encode(), source="a.ptb",
-                 corpus_name="Doomed", kind="annotation", annotator="ann1")
+    import_bytes(
+        db,
+        TREE.replace("Gulls", "Terns").encode(),
+        source="a.ptb",
+        corpus_name="Doomed",
+        kind="annotation",
+        annotator="ann1",
+    )
     import_bytes(db, b"Survivor line .\n", source="s.txt", corpus_name="Kept")
     doomed = db.scalar(select(Corpus).where(Corpus.name == "Doomed"))
     with pytest.raises(BadInput, match="type its name exactly"):
@@ -94,6 +109,5 @@ def test_corpora_delete_needs_the_exact_name(db, people) -> None:
     delete_corpus(db, doomed.id, "Doomed")
     db.commit()
     assert [c.name for c in db.scalars(select(Corpus))] == ["Kept"]
-    for model, left in ((Document, 1), (Sentence, 1), (Gold, 0), (Annotation, 0),
-                        (Revision, 0)):
+    for model, left in ((Document, 1), (Sentence, 1), (Gold, 0), (Annotation, 0), (Revision, 0)):
         assert db.scalar(select(func.count()).select_from(model)) == left, model

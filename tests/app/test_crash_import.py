@@ -40,11 +40,18 @@ def _check_sound(settings) -> None:  # type: ignore[no-untyped-def]
         assert sqlite_problems(settings) == []
 
 
-def _kill_when_writing(cmd: list[str], env: dict[str, str], timeout: float = 120.0
-                       ) -> tuple[int, bytes]:
+def _kill_when_writing(
+    cmd: list[str], env: dict[str, str], timeout: float = 120.0
+) -> tuple[int, bytes]:
     """Run ``cmd``; SIGKILL it as soon as its progress bar reports written rows."""
-    proc = subprocess.Popen(cmd, cwd=PROJECT_ROOT, env=env, stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, start_new_session=True)
+    proc = subprocess.Popen(
+        cmd,
+        cwd=PROJECT_ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        start_new_session=True,
+    )
     assert proc.stderr is not None and proc.stdout is not None
     seen = b""
     deadline = time.monotonic() + timeout
@@ -66,8 +73,9 @@ def _kill_when_writing(cmd: list[str], env: dict[str, str], timeout: float = 120
 
 
 @pytest.mark.slow
-def test_crash_cli_import_killed_while_writing_is_whole_or_absent(settings, app, db,
-                                                                  tmp_path: Path) -> None:
+def test_crash_cli_import_killed_while_writing_is_whole_or_absent(
+    settings, app, db, tmp_path: Path
+) -> None:
     source = tmp_path / "harbour-log.txt"
     source.write_bytes(sentence_file(SENTENCES, seed=7, tag="log"))
     env = server_env(settings)
@@ -89,18 +97,22 @@ def test_crash_cli_import_killed_while_writing_is_whole_or_absent(settings, app,
 
 def _post_import(client: Client, corpus: str, data: bytes, result: dict[str, object]) -> None:
     try:
-        resp = client.http.post("/api/corpora/import", headers={"X-CSRF-Token": client.csrf},
-                                data={"corpus_name": corpus, "kind": "text"},
-                                files={"upload": ("harbour-log.txt", data, "text/plain")},
-                                timeout=120)
+        resp = client.http.post(
+            "/api/corpora/import",
+            headers={"X-CSRF-Token": client.csrf},
+            data={"corpus_name": corpus, "kind": "text"},
+            files={"upload": ("harbour-log.txt", data, "text/plain")},
+            timeout=120,
+        )
         result["status"] = resp.status_code
     except httpx.HTTPError as err:
         result["error"] = type(err).__name__
 
 
 @pytest.mark.slow
-def test_crash_api_import_killed_midway_is_whole_or_absent(settings, app, people,
-                                                           tmp_path: Path) -> None:
+def test_crash_api_import_killed_midway_is_whole_or_absent(
+    settings, app, people, tmp_path: Path
+) -> None:
     db = app.state.sessionmaker()
     data = sentence_file(SENTENCES, seed=11, tag="pier")
     log = tmp_path / "server.log"
@@ -122,8 +134,7 @@ def test_crash_api_import_killed_midway_is_whole_or_absent(settings, app, people
             admin = Client(server.url, "admin", PASSWORD)
             name = f"Killed import {k}"
             outcomes[name] = {}
-            worker = threading.Thread(target=_post_import,
-                                      args=(admin, name, data, outcomes[name]))
+            worker = threading.Thread(target=_post_import, args=(admin, name, data, outcomes[name]))
             worker.start()
             seen = 0
             deadline = time.monotonic() + 120
@@ -138,8 +149,9 @@ def test_crash_api_import_killed_midway_is_whole_or_absent(settings, app, people
             outcomes[name]["state"] = import_state(db, name, SENTENCES)
             server = LiveServer(settings, log=log).start()
         print(f"full import {full:.2f} s; outcomes {outcomes}")
-        assert any("error" in o for o in outcomes.values()), \
+        assert any("error" in o for o in outcomes.values()), (
             f"no kill landed while an import was running: {outcomes}"
+        )
         for o in outcomes.values():
             if "status" in o:  # answered before the kill: then it must be stored whole
                 assert o["status"] == 201 and o["state"] == "whole", o

@@ -66,11 +66,15 @@ def test_crash_saves_acknowledged_survive_kill(settings, db, people, tmp_path) -
 
     server = LiveServer(settings, log=log).start()
     try:
-        streams = [Stream(Client(server.url, u.username, PASSWORD, timeout=20), s.id, s.tokens)
-                   for u in users for s in sentences]
+        streams = [
+            Stream(Client(server.url, u.username, PASSWORD, timeout=20), s.id, s.tokens)
+            for u in users
+            for s in sentences
+        ]
         stop_at = time.monotonic() + 60
-        threads = [threading.Thread(target=_burst, args=(st, i, stop_at))
-                   for i, st in enumerate(streams)]
+        threads = [
+            threading.Thread(target=_burst, args=(st, i, stop_at)) for i, st in enumerate(streams)
+        ]
         for t in threads:
             t.start()
         deadline = time.monotonic() + 45
@@ -88,8 +92,10 @@ def test_crash_saves_acknowledged_survive_kill(settings, db, people, tmp_path) -
         server.kill()
 
     acked = sum(len(st.acked) for st in streams)
-    print(f"{acked} saves acknowledged before the kill; "
-          f"{sum(st.unanswered for st in streams)} in flight")
+    print(
+        f"{acked} saves acknowledged before the kill; "
+        f"{sum(st.unanswered for st in streams)} in flight"
+    )
     assert all(not st.other for st in streams), [st.other for st in streams]
     assert acked >= len(streams), "too few saves before the kill to test anything"
     assert any(st.unanswered for st in streams), "the kill did not interrupt any save"
@@ -103,8 +109,10 @@ def test_crash_saves_acknowledged_survive_kill(settings, db, people, tmp_path) -
         assert ann is not None or not st.acked
         if ann is None:
             continue
-        revs = {r.number: r.tree for r in db.scalars(
-            select(Revision).where(Revision.annotation_id == ann.id))}
+        revs = {
+            r.number: r.tree
+            for r in db.scalars(select(Revision).where(Revision.annotation_id == ann.id))
+        }
         assert sorted(revs) == list(range(1, ann.head + 1)), "revision numbers have gaps"
         for number, marker in st.acked.items():
             assert number in revs, f"acknowledged revision {number} is missing"

@@ -24,8 +24,11 @@ NO_SESSION_YET = {("POST", "/login")}
 
 
 def changing_routes(application) -> list[tuple[str, str, APIRoute]]:  # type: ignore[no-untyped-def]
-    found = [(m, p, r) for m, p, r in app_routes(application)
-             if m in CHANGING and (m, p) not in NO_SESSION_YET]
+    found = [
+        (m, p, r)
+        for m, p, r in app_routes(application)
+        if m in CHANGING and (m, p) not in NO_SESSION_YET
+    ]
     # logging out (with the right token) ends the session the other requests need: last
     return sorted(found, key=lambda x: x[1] == "/logout")
 
@@ -85,8 +88,9 @@ def test_csrf_anonymous_changes_never_succeed(app) -> None:
         if path.startswith("/api/"):
             assert resp.status_code == 401, f"{method} {path}: {resp.status_code}"
         else:
-            assert resp.status_code == 303 and resp.headers["location"].startswith("/login"), \
+            assert resp.status_code == 303 and resp.headers["location"].startswith("/login"), (
                 f"{method} {path}: {resp.status_code}"
+            )
 
 
 FORM_RE = re.compile(r"<form\b[^>]*>.*?</form>", re.S | re.I)
@@ -97,7 +101,7 @@ def test_csrf_every_posting_template_form_carries_the_token() -> None:
     forms = 0
     for path in sorted(TEMPLATES_DIR.rglob("*.html")):
         for form in FORM_RE.findall(path.read_text(encoding="utf-8")):
-            start = form[:form.index(">") + 1]
+            start = form[: form.index(">") + 1]
             action = re.search(r'action\s*=\s*"([^"]*)"', start)
             if action and ("POST", action.group(1)) in NO_SESSION_YET:
                 continue  # the login form: no session yet (it has a same-origin check)

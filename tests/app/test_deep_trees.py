@@ -46,8 +46,11 @@ def one_word(db, people):  # type: ignore[no-untyped-def]
 @pytest.mark.parametrize("depth", DEPTHS)
 def test_deep_trees_save_is_refused(login, one_word, depth) -> None:
     me = login("ann1")
-    resp = me.client.post(f"/api/bench/{one_word.id}/revisions", headers=me.headers(),
-                          json={"base": 0, "tree": deep(depth)})
+    resp = me.client.post(
+        f"/api/bench/{one_word.id}/revisions",
+        headers=me.headers(),
+        json={"base": 0, "tree": deep(depth)},
+    )
     _refused(resp, depth)
     assert me.client.get(f"/api/bench/{one_word.id}").json()["annotation"]["head"] == 0
 
@@ -58,10 +61,18 @@ def test_deep_trees_review_check_and_settle_are_refused(login, one_word, db, dep
     db.refresh(one_word)
     assert one_word.state == "in_review"
     adj = login("adj")
-    _refused(adj.client.post(f"/api/review/{one_word.id}/check", headers=adj.headers(),
-                             json={"tree": deep(depth)}), depth)
-    _refused(adj.client.post(f"/api/review/{one_word.id}/settle", headers=adj.headers(),
-                             json={"tree": deep(depth)}), depth)
+    _refused(
+        adj.client.post(
+            f"/api/review/{one_word.id}/check", headers=adj.headers(), json={"tree": deep(depth)}
+        ),
+        depth,
+    )
+    _refused(
+        adj.client.post(
+            f"/api/review/{one_word.id}/settle", headers=adj.headers(), json={"tree": deep(depth)}
+        ),
+        depth,
+    )
     assert db.scalar(select(Gold.id).where(Gold.sentence_id == one_word.id)) is None
 
 
@@ -73,9 +84,12 @@ def _gold_file(depth: int) -> bytes:
 def test_deep_trees_import_api_is_refused_with_line(login, db, people, depth) -> None:
     admin = login("admin")
     before = count_rows(db)
-    resp = admin.client.post("/api/corpora/import", headers=admin.headers(),
-                             data={"corpus_name": "Soundings", "kind": "gold"},
-                             files={"upload": ("deep.ptb", _gold_file(depth))})
+    resp = admin.client.post(
+        "/api/corpora/import",
+        headers=admin.headers(),
+        data={"corpus_name": "Soundings", "kind": "gold"},
+        files={"upload": ("deep.ptb", _gold_file(depth))},
+    )
     _refused(resp, depth)
     assert "line 2" in resp.text
     assert count_rows(db) == before
@@ -85,10 +99,11 @@ def test_deep_trees_import_api_is_refused_with_line(login, db, people, depth) ->
 def test_deep_trees_import_page_is_refused_with_line(login, db, people, depth) -> None:
     admin = login("admin")
     before = count_rows(db)
-    resp = admin.client.post("/transfer/import",
-                             data={"csrf_token": admin.csrf, "new_corpus": "Soundings",
-                                   "kind": "gold"},
-                             files={"upload": ("deep.ptb", _gold_file(depth))})
+    resp = admin.client.post(
+        "/transfer/import",
+        data={"csrf_token": admin.csrf, "new_corpus": "Soundings", "kind": "gold"},
+        files={"upload": ("deep.ptb", _gold_file(depth))},
+    )
     _refused(resp, depth)
     assert "line 2" in resp.text
     assert count_rows(db) == before
@@ -97,18 +112,19 @@ def test_deep_trees_import_page_is_refused_with_line(login, db, people, depth) -
 def _stored_deep_gold(db, depth: int) -> Sentence:  # type: ignore[no-untyped-def]
     """A corpus with the demo gold plus one too-deep gold tree written past the door."""
     corpus = import_demo_gold(db, "Soundings")
-    import_bytes(db, b"(ROOT (UH ahoy))\n", source="extra.ptb", corpus_name="Soundings",
-                 kind="gold")
-    sentence = db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id)
-                          .order_by(Sentence.id.desc())).first()
+    import_bytes(
+        db, b"(ROOT (UH ahoy))\n", source="extra.ptb", corpus_name="Soundings", kind="gold"
+    )
+    sentence = db.scalars(
+        select(Sentence).where(Sentence.corpus_id == corpus.id).order_by(Sentence.id.desc())
+    ).first()
     gold = db.scalar(select(Gold).where(Gold.sentence_id == sentence.id))
     gold.tree = deep(1_000)
     db.commit()
     return sentence
 
 
-def test_deep_trees_stored_gold_export_answers_422_naming_the_sentence(login, db,
-                                                                       people) -> None:
+def test_deep_trees_stored_gold_export_answers_422_naming_the_sentence(login, db, people) -> None:
     sentence = _stored_deep_gold(db, 1_000)
     adj = login("adj")
     url = f"/api/corpora/{sentence.corpus_id}/export"

@@ -26,8 +26,9 @@ from app.services.imports import import_bytes
 
 
 def _lines(pattern: str) -> int:
-    return sum(len([ln for ln in p.read_text().splitlines() if ln.strip()])
-               for p in DEMO_DIR.glob(pattern))
+    return sum(
+        len([ln for ln in p.read_text().splitlines() if ln.strip()]) for p in DEMO_DIR.glob(pattern)
+    )
 
 
 def test_demo_loader_builds_the_corpus(db) -> None:

@@ -36,8 +36,11 @@ def test_an_empty_part_is_named_with_a_way_out_that_works(db) -> None:
 
 def test_the_advice_finds_a_seed_that_keeps_documents_whole(db) -> None:
     cid = _load(db, {f"doc{i}": n for i, n in enumerate((8, 1, 1, 1, 1))})
-    failing = next(seed for seed in range(100)
-                   if _empty_parts(db, cid, SplitSpec((8, 1, 1), seed=seed, by="document")))
+    failing = next(
+        seed
+        for seed in range(100)
+        if _empty_parts(db, cid, SplitSpec((8, 1, 1), seed=seed, by="document"))
+    )
     result = export_gold(db, cid, split=SplitSpec((8, 1, 1), seed=failing, by="document"))
     by_document = [a for a in result.advice if a.spec.by == "document"]
     assert by_document and by_document[0].spec.seed > failing
@@ -52,8 +55,7 @@ def test_the_transfer_page_warns_instead_of_downloading(db, login) -> None:
     assert "Nothing was downloaded: this split leaves a part empty" in resp.text
     assert "76 gold trees in 3 documents kept whole" in resp.text
     assert "keep nothing together (shuffle sentences)" in resp.text
-    assert db.scalar(select(func.count()).select_from(Event)
-                     .where(Event.kind == "export")) == 0
+    assert db.scalar(select(func.count()).select_from(Event).where(Event.kind == "export")) == 0
     advice = resp.text.split('class="tf-advice"', 1)[1].split('href="', 1)[1].split('"', 1)[0]
     taken = adj.client.get(advice.replace("&amp;", "&"))
     assert taken.headers["content-type"] == "application/zip"
@@ -68,6 +70,8 @@ def test_the_cli_warns_with_the_same_advice(db, cli, tmp_path) -> None:  # noqa:
     _load(db, UNEVEN)
     name = db.scalar(select(Corpus.name))
     result = cli("export", "--corpus", name, "--split", "80/10/10", "--out", str(tmp_path))
-    assert "warning: the test part is empty" in result.output or \
-        "warning: the dev and test parts are empty" in result.output
+    assert (
+        "warning: the test part is empty" in result.output
+        or "warning: the dev and test parts are empty" in result.output
+    )
     assert "keep nothing together (--by sentence): train" in result.output

@@ -20,8 +20,7 @@ def _load(db, docs: dict[str, int]) -> int:
     """Gold trees in several documents; returns the corpus id."""
     for d, (name, count) in enumerate(docs.items()):
         text = "\n".join(TEMPLATE.format(d=d, i=i) for i in range(count)) + "\n"
-        import_bytes(db, text.encode(), source=f"{name}.ptb", corpus_name="Split",
-                     kind="gold")
+        import_bytes(db, text.encode(), source=f"{name}.ptb", corpus_name="Split", kind="gold")
     return db.scalar(select(Corpus.id).where(Corpus.name == "Split"))
 
 
@@ -34,7 +33,10 @@ def test_exports_whole_corpus_keeps_order_and_function_tags(db) -> None:
     result = export_gold(db, cid)
     assert list(result.files) == ["split.ptb"]
     assert _trees(result.files["split.ptb"]) == [
-        TEMPLATE.format(d=0, i=0), TEMPLATE.format(d=0, i=1), TEMPLATE.format(d=1, i=0)]
+        TEMPLATE.format(d=0, i=0),
+        TEMPLATE.format(d=0, i=1),
+        TEMPLATE.format(d=1, i=0),
+    ]
 
 
 def test_exports_strip_function_tags(db) -> None:
@@ -103,8 +105,7 @@ def test_exports_split_by_document_keeps_documents_whole(db) -> None:
     assert sum(result.counts.values()) == total
     # A document goes to the part furthest below its share, so no part overshoots its share
     # by more than one document (at most 8 trees here).
-    for name, share in (("split-train.ptb", 0.8), ("split-dev.ptb", 0.1),
-                        ("split-test.ptb", 0.1)):
+    for name, share in (("split-train.ptb", 0.8), ("split-dev.ptb", 0.1), ("split-test.ptb", 0.1)):
         assert 0 < result.counts[name] <= share * total + 8, result.counts
 
 
@@ -123,8 +124,10 @@ def test_exports_empty_corpus_warns(db) -> None:
     assert result.files == {"split.ptb": ""} and result.warnings
 
 
-@pytest.mark.parametrize("text, expected", [
-    ("80/10/10", (80.0, 10.0, 10.0)), ("0.8,0.1,0.1", (0.8, 0.1, 0.1)), ("8:1:1", (8, 1, 1))])
+@pytest.mark.parametrize(
+    "text, expected",
+    [("80/10/10", (80.0, 10.0, 10.0)), ("0.8,0.1,0.1", (0.8, 0.1, 0.1)), ("8:1:1", (8, 1, 1))],
+)
 def test_exports_parse_ratios(text, expected) -> None:
     assert parse_ratios(text) == expected
 
@@ -150,8 +153,10 @@ def test_exports_are_noted_in_the_event_log(login, db) -> None:
     cid = _load(db, {"a": 3})
     adj = login("adj")
     # one document cannot fill two parts: "anyway" downloads the split as it is
-    assert adj.client.get(f"/transfer/export?corpus={cid}&split=2/1/0&seed=4&anyway=true"
-                          ).status_code == 200
+    assert (
+        adj.client.get(f"/transfer/export?corpus={cid}&split=2/1/0&seed=4&anyway=true").status_code
+        == 200
+    )
     event = db.scalar(select(Event).where(Event.kind == "export"))
     assert event.user_id == adj.user_id and event.corpus_id == cid
     assert event.detail["split"] == {"ratios": [2.0, 1.0, 0.0], "seed": 4, "by": "document"}

@@ -111,12 +111,19 @@ def test_findings_reopen_is_all_or_nothing(app, db, people, monkeypatch) -> None
 
 def test_findings_run_reads_submitted_annotations_when_asked(app, db, people) -> None:
     corpus, _ = import_gold(db)
-    import_bytes(db, b"(ROOT (S (ADJP (DT the) (JJ old) (NN pump)) (VP (VBD sank)) (. .)))\n",
-                 source="ann.ptb", corpus_name=corpus.name, kind="annotation",
-                 annotator="ann1")
+    import_bytes(
+        db,
+        b"(ROOT (S (ADJP (DT the) (JJ old) (NN pump)) (VP (VBD sank)) (. .)))\n",
+        source="ann.ptb",
+        corpus_name=corpus.name,
+        kind="annotation",
+        annotator="ann1",
+    )
     ann = db.scalar(select(Annotation).where(Annotation.user_id == people.ann1.id))
-    assert ann is not None and db.scalar(select(Revision).where(
-        Revision.annotation_id == ann.id)) is not None
+    assert (
+        ann is not None
+        and db.scalar(select(Revision).where(Revision.annotation_id == ann.id)) is not None
+    )
     _run(app, db, corpus.id)
     [plain] = _pump(db, corpus.id)
     assert {o["source"] for o in plain.row.occurrences} == {"gold"}
@@ -132,7 +139,8 @@ def test_findings_run_is_queued_after_a_retraining(app, db, people) -> None:
     version = run_training(app.state.sessionmaker, corpus.id, reason="test")
     runs = db.scalars(select(FindingRun).where(FindingRun.corpus_id == corpus.id)).all()
     assert [(r.status, r.reason) for r in runs] == [
-        (RUN_QUEUED, f"after grammar version {version.number}")]
+        (RUN_QUEUED, f"after grammar version {version.number}")
+    ]
     assert svc.drain_runs(app.state.sessionmaker) == 1
     assert len(_pump(db, corpus.id)) == 1
 
@@ -154,8 +162,9 @@ def test_findings_api_lists_and_takes_verdicts(app, db, people, login) -> None:
     adj = login("adj")
     empty = adj.client.get(f"/api/corpora/{corpus.id}/findings")
     assert empty.status_code == 200 and empty.json()["run"] is None
-    queued = adj.client.post(f"/api/corpora/{corpus.id}/findings/runs", json={},
-                             headers=adj.headers())
+    queued = adj.client.post(
+        f"/api/corpora/{corpus.id}/findings/runs", json={}, headers=adj.headers()
+    )
     assert queued.status_code == 202 and queued.json()["status"] in ("queued", "done")
     from app.services.training import get_runner
 
@@ -164,10 +173,19 @@ def test_findings_api_lists_and_takes_verdicts(app, db, people, login) -> None:
     body = listing.json()
     assert body["run"]["status"] == "done" and body["counts"]["open"] == body["total"] >= 1
     pump = next(f for f in body["findings"] if f["detail"]["words"] == OLD_PUMP)
-    assert pump["occurrences"][0] == {"sentence": sentences[2].id, "start": 0, "end": 3,
-                                      "analysis": "ADJP", "source": "gold", "by": "import"}
-    back = adj.client.post(f"/api/corpora/{corpus.id}/findings/{pump['id']}/reopen",
-                           json={"note": "look again"}, headers=adj.headers())
+    assert pump["occurrences"][0] == {
+        "sentence": sentences[2].id,
+        "start": 0,
+        "end": 3,
+        "analysis": "ADJP",
+        "source": "gold",
+        "by": "import",
+    }
+    back = adj.client.post(
+        f"/api/corpora/{corpus.id}/findings/{pump['id']}/reopen",
+        json={"note": "look again"},
+        headers=adj.headers(),
+    )
     assert back.status_code == 200
     assert back.json()["reopened"] == [s.id for s in sentences[:3]]
     bad = adj.client.get(f"/api/corpora/{corpus.id}/findings", params={"state": "closed"})

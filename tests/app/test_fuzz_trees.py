@@ -26,9 +26,12 @@ from tests.app.bench_helpers import assign, flat_text, make_corpus
 from tests.parser.test_trees_properties import trees_st
 
 EDIT_CHARS = "()  \n\t\r\x00\u00a0\u2028Xé-"
-FUZZ = settings(max_examples=150, deadline=None, database=None,
-                suppress_health_check=[HealthCheck.function_scoped_fixture,
-                                       HealthCheck.too_slow])
+FUZZ = settings(
+    max_examples=150,
+    deadline=None,
+    database=None,
+    suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow],
+)
 
 
 @st.composite
@@ -41,10 +44,13 @@ def broken(draw: st.DrawFn, base: st.SearchStrategy[str]) -> str:
         i = draw(st.integers(0, n))
         if kind == "delete" and n:
             i = min(i, n - 1)
-            text = text[:i] + text[i + 1:]
+            text = text[:i] + text[i + 1 :]
         elif kind == "insert":
-            text = text[:i] + draw(st.text(st.sampled_from(EDIT_CHARS), min_size=1,
-                                           max_size=3)) + text[i:]
+            text = (
+                text[:i]
+                + draw(st.text(st.sampled_from(EDIT_CHARS), min_size=1, max_size=3))
+                + text[i:]
+            )
         elif kind == "duplicate":
             j = draw(st.integers(i, n))
             text = text[:j] + text[i:j] + text[j:]
@@ -53,8 +59,11 @@ def broken(draw: st.DrawFn, base: st.SearchStrategy[str]) -> str:
     return text
 
 
-written = st.builds(lambda ts, indent: write_trees(ts, indent=indent),
-                    st.lists(trees_st, min_size=1, max_size=3), st.booleans())
+written = st.builds(
+    lambda ts, indent: write_trees(ts, indent=indent),
+    st.lists(trees_st, min_size=1, max_size=3),
+    st.booleans(),
+)
 reader_inputs = st.one_of(broken(written), st.text(), broken(st.just("(ROOT (S (NN a)))")))
 
 
@@ -109,17 +118,23 @@ SENTENCE = "The deck crew painted the winch before noon ."
 GOOD_TREE = flat_text(SENTENCE.split(), ["DT", "NN", "NN", "VBD", "DT", "NN", "IN", "NN", "."])
 
 json_values = st.recursive(
-    st.none() | st.booleans() | st.integers(-2**70, 2**70) | st.floats(allow_nan=False)
+    st.none()
+    | st.booleans()
+    | st.integers(-(2**70), 2**70)
+    | st.floats(allow_nan=False)
     | st.text(max_size=20),
-    lambda kids: st.lists(kids, max_size=4) | st.dictionaries(st.text(max_size=8), kids,
-                                                              max_size=4),
-    max_leaves=12)
+    lambda kids: (
+        st.lists(kids, max_size=4) | st.dictionaries(st.text(max_size=8), kids, max_size=4)
+    ),
+    max_leaves=12,
+)
 bodies = st.one_of(
     json_values,
     st.fixed_dictionaries({"base": json_values, "tree": json_values}),
-    st.fixed_dictionaries({"base": st.integers(-3, 3), "tree": broken(st.just(GOOD_TREE))},
-                          optional={"pins": json_values, "source": json_values,
-                                    "confirm_labels": json_values}),
+    st.fixed_dictionaries(
+        {"base": st.integers(-3, 3), "tree": broken(st.just(GOOD_TREE))},
+        optional={"pins": json_values, "source": json_values, "confirm_labels": json_values},
+    ),
 )
 
 
@@ -135,8 +150,9 @@ def bench(db, people, login) -> dict[str, Any]:
 def test_fuzz_save_answers_only_documented_codes(bench, body: Any) -> None:
     me, sid, db = bench["me"], bench["sid"], bench["db"]
     before = db.scalar(select(func.count()).select_from(Revision))
-    resp = me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          content=json.dumps(body))
+    resp = me.client.post(
+        f"/api/bench/{sid}/revisions", headers=me.headers(), content=json.dumps(body)
+    )
     assert resp.status_code in (201, 409, 422), (resp.status_code, resp.text[:300])
     db.expire_all()
     after = db.scalar(select(func.count()).select_from(Revision))
@@ -156,8 +172,9 @@ def test_fuzz_save_answers_only_documented_codes(bench, body: Any) -> None:
 def test_fuzz_save_tree_text_is_stored_only_when_it_fits(bench, text: str) -> None:
     me, sid = bench["me"], bench["sid"]
     head = me.client.get(f"/api/bench/{sid}").json()["annotation"]["head"]
-    resp = me.client.post(f"/api/bench/{sid}/revisions", headers=me.headers(),
-                          json={"base": head, "tree": text})
+    resp = me.client.post(
+        f"/api/bench/{sid}/revisions", headers=me.headers(), json={"base": head, "tree": text}
+    )
     assert resp.status_code in (201, 422), (resp.status_code, resp.text[:300])
     if resp.status_code == 201:
         assert words(read_tree(resp.json()["revision"]["tree"])) == SENTENCE.split()
@@ -171,21 +188,32 @@ def test_fuzz_review_check_answers_200_or_422(bench, login, text: str) -> None:
     if "adj" not in bench:
         bench["adj"] = login("adj")
     adj = bench["adj"]
-    resp = adj.client.post(f"/api/review/{bench['sid']}/check", headers=adj.headers(),
-                           json={"tree": text})
+    resp = adj.client.post(
+        f"/api/review/{bench['sid']}/check", headers=adj.headers(), json={"tree": text}
+    )
     assert resp.status_code in (200, 422), (resp.status_code, resp.text[:300])
 
 
-@settings(max_examples=40, deadline=None, database=None,
-          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(data=st.one_of(st.binary(max_size=300),
-                      broken(written).map(lambda t: t.encode("utf-8", "surrogatepass"))),
-       kind=st.sampled_from(["text", "gold", "annotation"]))
+@settings(
+    max_examples=40,
+    deadline=None,
+    database=None,
+    suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow],
+)
+@given(
+    data=st.one_of(
+        st.binary(max_size=300), broken(written).map(lambda t: t.encode("utf-8", "surrogatepass"))
+    ),
+    kind=st.sampled_from(["text", "gold", "annotation"]),
+)
 def test_fuzz_import_answers_201_or_4xx(bench, login, data: bytes, kind: str) -> None:
     if "admin" not in bench:
         bench["admin"] = login("admin")
     admin = bench["admin"]
-    resp = admin.client.post("/api/corpora/import", headers=admin.headers(),
-                             data={"corpus_name": "Fuzzed", "kind": kind, "annotator": "ann1"},
-                             files={"upload": ("fuzz.txt", data, "text/plain")})
+    resp = admin.client.post(
+        "/api/corpora/import",
+        headers=admin.headers(),
+        data={"corpus_name": "Fuzzed", "kind": kind, "annotator": "ann1"},
+        files={"upload": ("fuzz.txt", data, "text/plain")},
+    )
     assert resp.status_code in (201, 404, 409, 413, 422), (resp.status_code, resp.text[:300])

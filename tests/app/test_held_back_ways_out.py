@@ -25,10 +25,17 @@ from tests.app.bench_helpers import assign, flat_text, make_corpus
 NOTE = "'oilchange' should be two words"
 
 
-def _hold(who, sentence_id: int, reason: str = "tokenization wrong",  # type: ignore[no-untyped-def]
-          note: str = NOTE) -> None:
-    resp = who.client.patch(f"/api/bench/{sentence_id}/note",
-                            json={"comment": note, "flag": reason}, headers=who.headers())
+def _hold(
+    who,
+    sentence_id: int,
+    reason: str = "tokenization wrong",  # type: ignore[no-untyped-def]
+    note: str = NOTE,
+) -> None:
+    resp = who.client.patch(
+        f"/api/bench/{sentence_id}/note",
+        json={"comment": note, "flag": reason},
+        headers=who.headers(),
+    )
     assert resp.status_code == 200, resp.text
 
 
@@ -88,8 +95,9 @@ def test_an_annotator_of_it_gets_the_token_fixer_link(db, people, login):
 def test_release_sends_it_back_to_annotation(db, people, login):
     corpus, sentences, held = _setup(db, people, login)
     adj = login("adj")
-    resp = adj.client.post(f"/review/held/{held.id}/release",
-                           data={"csrf_token": adj.csrf}, follow_redirects=False)
+    resp = adj.client.post(
+        f"/review/held/{held.id}/release", data={"csrf_token": adj.csrf}, follow_redirects=False
+    )
     assert resp.status_code == 303 and "done=released" in resp.headers["location"]
     db.expire_all()
     assert db.get(Sentence, held.id).state == SENT_QUEUED  # nobody had saved a tree
@@ -108,14 +116,17 @@ def test_release_after_a_saved_tree_goes_back_in_progress(db, people, login):
     corpus, sentences, _ = _setup(db, people, login)
     s = sentences[1]
     ann2 = login("ann2")
-    saved = ann2.client.post(f"/api/bench/{s.id}/revisions",
-                             json={"base": 0, "tree": flat_text(s.tokens)},
-                             headers=ann2.headers())
+    saved = ann2.client.post(
+        f"/api/bench/{s.id}/revisions",
+        json={"base": 0, "tree": flat_text(s.tokens)},
+        headers=ann2.headers(),
+    )
     assert saved.status_code == 201
     _hold(ann2, s.id, "needs a linguist", "")
     adj = login("adj")
-    done = adj.client.post(f"/api/review/{s.id}/release", json={"note": "ask Ilsa"},
-                           headers=adj.headers())
+    done = adj.client.post(
+        f"/api/review/{s.id}/release", json={"note": "ask Ilsa"}, headers=adj.headers()
+    )
     assert done.status_code == 200, done.text
     assert done.json()["state"] == SENT_IN_PROGRESS
 
@@ -123,8 +134,9 @@ def test_release_after_a_saved_tree_goes_back_in_progress(db, people, login):
 def test_the_annotator_lifting_their_own_hold_reopens_the_sentence(db, people, login):
     corpus, sentences, held = _setup(db, people, login)
     ann1 = login("ann1")
-    resp = ann1.client.patch(f"/api/bench/{held.id}/note", json={"clear_flag": True},
-                             headers=ann1.headers())
+    resp = ann1.client.patch(
+        f"/api/bench/{held.id}/note", json={"clear_flag": True}, headers=ann1.headers()
+    )
     assert resp.status_code == 200
     db.expire_all()
     assert db.get(Sentence, held.id).state == SENT_QUEUED
@@ -134,8 +146,9 @@ def test_a_second_hold_keeps_it_held_until_both_are_lifted(db, people, login):
     corpus, sentences, held = _setup(db, people, login)
     ann1, ann2 = login("ann1"), login("ann2")
     _hold(ann2, held.id, "not one sentence", "")
-    ann1.client.patch(f"/api/bench/{held.id}/note", json={"clear_flag": True},
-                      headers=ann1.headers())
+    ann1.client.patch(
+        f"/api/bench/{held.id}/note", json={"clear_flag": True}, headers=ann1.headers()
+    )
     db.expire_all()
     assert db.get(Sentence, held.id).state == SENT_HELD_BACK
     rows = login("adj").client.get(f"/review?corpus={corpus.id}").text
@@ -145,9 +158,11 @@ def test_a_second_hold_keeps_it_held_until_both_are_lifted(db, people, login):
 def test_drop_keeps_the_sentence_but_takes_it_out_of_the_work(db, people, login):
     corpus, sentences, held = _setup(db, people, login)
     adj = login("adj")
-    resp = adj.client.post(f"/review/held/{held.id}/drop",
-                           data={"csrf_token": adj.csrf, "note": "a heading, not a sentence"},
-                           follow_redirects=False)
+    resp = adj.client.post(
+        f"/review/held/{held.id}/drop",
+        data={"csrf_token": adj.csrf, "note": "a heading, not a sentence"},
+        follow_redirects=False,
+    )
     assert resp.status_code == 303
     db.expire_all()
     assert db.get(Sentence, held.id).state == SENT_DROPPED
@@ -159,9 +174,11 @@ def test_drop_keeps_the_sentence_but_takes_it_out_of_the_work(db, people, login)
         assert held.id not in [it["sentence_id"] for it in queue["items"]]
         assert held.text not in who.client.get("/queue").text
     ann2 = login("ann2")
-    save = ann2.client.post(f"/api/bench/{held.id}/revisions",
-                            json={"base": 0, "tree": flat_text(held.tokens)},
-                            headers=ann2.headers())
+    save = ann2.client.post(
+        f"/api/bench/{held.id}/revisions",
+        json={"base": 0, "tree": flat_text(held.tokens)},
+        headers=ann2.headers(),
+    )
     assert save.status_code == 409
     with pytest.raises(BadInput, match="not open"):
         assign_sentences(db, corpus.id, per_sentence=3, sentence_ids=[held.id])
@@ -170,13 +187,16 @@ def test_drop_keeps_the_sentence_but_takes_it_out_of_the_work(db, people, login)
     dropped = page.split('id="dropped"', 1)[1]
     assert held.text in dropped and f'action="/review/held/{held.id}/restore"' in dropped
     # bring it back: the hold is still on it, so it is held back again
-    back = adj.client.post(f"/review/held/{held.id}/restore", data={"csrf_token": adj.csrf},
-                           follow_redirects=False)
+    back = adj.client.post(
+        f"/review/held/{held.id}/restore", data={"csrf_token": adj.csrf}, follow_redirects=False
+    )
     assert back.status_code == 303
     db.expire_all()
     assert db.get(Sentence, held.id).state == SENT_HELD_BACK
-    kinds = [e.kind for e in db.scalars(select(Event).where(Event.sentence_id == held.id)
-                                        .order_by(Event.id))]
+    kinds = [
+        e.kind
+        for e in db.scalars(select(Event).where(Event.sentence_id == held.id).order_by(Event.id))
+    ]
     assert kinds[-2:] == ["sentence.dropped", "sentence.restored"]
 
 

@@ -7,14 +7,16 @@ from sqlalchemy import select
 from app.models import Corpus
 from tests.app.row_counts import count_rows
 
-TREES = "".join(f"(ROOT (S (NP-SBJ (NNP Buoy{i})) (VP (VBD bobbed)) (. .)))\n"
-                for i in range(10))
+TREES = "".join(f"(ROOT (S (NP-SBJ (NNP Buoy{i})) (VP (VBD bobbed)) (. .)))\n" for i in range(10))
 
 
 def _import(me, data: bytes, name: str = "t.ptb", **form):
-    return me.client.post("/api/corpora/import", headers=me.headers(),
-                          data={"corpus_name": "Moorings", "kind": "gold", **form},
-                          files={"upload": (name, data)})
+    return me.client.post(
+        "/api/corpora/import",
+        headers=me.headers(),
+        data={"corpus_name": "Moorings", "kind": "gold", **form},
+        files={"upload": (name, data)},
+    )
 
 
 def test_imports_api_upload_and_read_back(login, db, people) -> None:
@@ -59,30 +61,43 @@ def test_imports_api_export_assign_remove(login, db, people) -> None:
     adj = login("adj")
     exp = adj.client.get(f"/api/corpora/{cid}/export?train=6&dev=2&test=2&by=sentence&seed=1")
     assert exp.status_code == 200
-    assert exp.json()["counts"] == {"moorings-train.ptb": 6, "moorings-dev.ptb": 2,
-                                    "moorings-test.ptb": 2}
+    assert exp.json()["counts"] == {
+        "moorings-train.ptb": 6,
+        "moorings-dev.ptb": 2,
+        "moorings-test.ptb": 2,
+    }
     assert login("ann1").client.get(f"/api/corpora/{cid}/export").status_code == 403
-    assigned = admin.client.post(f"/api/corpora/{cid}/assign", headers=admin.headers(),
-                                 json={})
+    assigned = admin.client.post(f"/api/corpora/{cid}/assign", headers=admin.headers(), json={})
     assert assigned.json()["created"] == 4
-    wrong = admin.client.post(f"/api/corpora/{cid}/remove", headers=admin.headers(),
-                              json={"confirm_name": "moorings"})
+    wrong = admin.client.post(
+        f"/api/corpora/{cid}/remove", headers=admin.headers(), json={"confirm_name": "moorings"}
+    )
     assert wrong.status_code == 422
-    ok = admin.client.post(f"/api/corpora/{cid}/remove", headers=admin.headers(),
-                           json={"confirm_name": "Moorings"})
+    ok = admin.client.post(
+        f"/api/corpora/{cid}/remove", headers=admin.headers(), json={"confirm_name": "Moorings"}
+    )
     assert ok.json() == {"removed": "Moorings"}
     assert admin.client.get(f"/api/corpora/{cid}").status_code == 404
 
 
 def test_imports_api_settings_patch(login, db, people) -> None:
     admin = login("admin")
-    made = admin.client.post("/api/corpora", headers=admin.headers(),
-                             json={"name": "Slipway", "settings": {"retrain_every": 5}})
+    made = admin.client.post(
+        "/api/corpora",
+        headers=admin.headers(),
+        json={"name": "Slipway", "settings": {"retrain_every": 5}},
+    )
     assert made.status_code == 201 and made.json()["settings"]["retrain_every"] == 5
     cid = made.json()["id"]
-    patched = admin.client.patch(f"/api/corpora/{cid}", headers=admin.headers(),
-                                 json={"settings": {"annotators_per_sentence": 3}})
+    patched = admin.client.patch(
+        f"/api/corpora/{cid}",
+        headers=admin.headers(),
+        json={"settings": {"annotators_per_sentence": 3}},
+    )
     assert patched.json()["settings"]["annotators_per_sentence"] == 3
-    bad = admin.client.patch(f"/api/corpora/{cid}", headers=admin.headers(),
-                             json={"settings": {"annotators_per_sentence": 99}})
+    bad = admin.client.patch(
+        f"/api/corpora/{cid}",
+        headers=admin.headers(),
+        json={"settings": {"annotators_per_sentence": 99}},
+    )
     assert bad.status_code == 422

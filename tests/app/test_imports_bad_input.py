@@ -54,20 +54,22 @@ def test_imports_bad_non_utf8_names_byte_offset_and_line(db, seeded) -> None:
     _assert_nothing_stored(db, seeded)
 
 
-@pytest.mark.parametrize("bad, column, words", [
-    # one ')' too many: the reader stops at the stray bracket
-    (GOOD_TREE.format(n=40) + ")", len(GOOD_TREE.format(n=40)) + 1, "unbalanced"),
-    # a word beside a subtree
-    ("(ROOT (S (NP-SBJ (DT The) ferry (NN boat)) (. .)))", 27, "beside a subtree"),
-    # a node without children
-    ("(ROOT (S (NP-SBJ ) (. .)))", 18, "no children"),
-    # an opening bracket that is never closed: the error points at where that tree begins
-    ("(ROOT (S (NP-SBJ (DT The) (NN ferry)) (. .))", 1, "never closed"),
-])
+@pytest.mark.parametrize(
+    "bad, column, words",
+    [
+        # one ')' too many: the reader stops at the stray bracket
+        (GOOD_TREE.format(n=40) + ")", len(GOOD_TREE.format(n=40)) + 1, "unbalanced"),
+        # a word beside a subtree
+        ("(ROOT (S (NP-SBJ (DT The) ferry (NN boat)) (. .)))", 27, "beside a subtree"),
+        # a node without children
+        ("(ROOT (S (NP-SBJ ) (. .)))", 18, "no children"),
+        # an opening bracket that is never closed: the error points at where that tree begins
+        ("(ROOT (S (NP-SBJ (DT The) (NN ferry)) (. .))", 1, "never closed"),
+    ],
+)
 def test_imports_bad_malformed_tree_in_line_40(db, seeded, bad, column, words) -> None:
     with pytest.raises(ImportFailed) as err:
-        import_bytes(db, _gold_file(bad), source="seed.ptb", corpus_name="Harbour",
-                     kind="gold")
+        import_bytes(db, _gold_file(bad), source="seed.ptb", corpus_name="Harbour", kind="gold")
     assert err.value.line == 40, err.value.detail
     assert err.value.column == column, err.value.detail
     assert f"seed.ptb, line 40, column {column}:" in err.value.detail
@@ -78,8 +80,13 @@ def test_imports_bad_malformed_tree_in_line_40(db, seeded, bad, column, words) -
 def test_imports_bad_tree_into_new_corpus_leaves_no_corpus(db) -> None:
     before = count_rows(db)
     with pytest.raises(ImportFailed):
-        import_bytes(db, _gold_file("(ROOT (S (NN x)", at=3, total=5), source="x.ptb",
-                     corpus_name="Brand new", kind="gold")
+        import_bytes(
+            db,
+            _gold_file("(ROOT (S (NN x)", at=3, total=5),
+            source="x.ptb",
+            corpus_name="Brand new",
+            kind="gold",
+        )
     _assert_nothing_stored(db, before)
 
 
@@ -93,15 +100,22 @@ def test_imports_bad_overlong_sentence_names_its_line(db, seeded) -> None:
 
 def test_imports_bad_single_preterminal_is_not_a_sentence_tree(db, seeded) -> None:
     with pytest.raises(ImportFailed, match=r"p.ptb, line 2: .*single POS bracket"):
-        import_bytes(db, b"(ROOT (S (NN a)))\n(NN b)\n", source="p.ptb",
-                     corpus_name="Harbour", kind="gold")
+        import_bytes(
+            db, b"(ROOT (S (NN a)))\n(NN b)\n", source="p.ptb", corpus_name="Harbour", kind="gold"
+        )
     _assert_nothing_stored(db, seeded)
 
 
 def test_imports_bad_unknown_annotator(db, seeded) -> None:
     with pytest.raises(NotFound, match="no user named 'nobody'"):
-        import_bytes(db, b"(ROOT (S (NN a)))\n", source="a.ptb", corpus_name="Harbour",
-                     kind="annotation", annotator="nobody")
+        import_bytes(
+            db,
+            b"(ROOT (S (NN a)))\n",
+            source="a.ptb",
+            corpus_name="Harbour",
+            kind="annotation",
+            annotator="nobody",
+        )
     _assert_nothing_stored(db, seeded)
 
 

@@ -10,8 +10,13 @@ from app.services.imports import import_bytes
 
 def _sentences(db, corpus_name: str) -> list[Sentence]:
     corpus = db.scalar(select(Corpus).where(Corpus.name == corpus_name))
-    return list(db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id)
-                           .order_by(Sentence.document_id, Sentence.position)))
+    return list(
+        db.scalars(
+            select(Sentence)
+            .where(Sentence.corpus_id == corpus.id)
+            .order_by(Sentence.document_id, Sentence.position)
+        )
+    )
 
 
 def test_imports_text_one_sentence_per_line_split_on_whitespace(db) -> None:
@@ -29,8 +34,7 @@ def test_imports_text_one_sentence_per_line_split_on_whitespace(db) -> None:
 
 
 def test_imports_text_brackets_are_stored_in_treebank_form(db) -> None:
-    import_bytes(db, b"The fee ( two crowns ) is due .\n", source="fees.txt",
-                 corpus_name="Fees")
+    import_bytes(db, b"The fee ( two crowns ) is due .\n", source="fees.txt", corpus_name="Fees")
     (row,) = _sentences(db, "Fees")
     assert row.tokens == ["The", "fee", "-LRB-", "two", "crowns", "-RRB-", "is", "due", "."]
 
@@ -38,18 +42,38 @@ def test_imports_text_brackets_are_stored_in_treebank_form(db) -> None:
 def test_imports_text_treebank_tokenizer_splits_clitics_and_punctuation(db) -> None:
     # Expected tokens follow NLTK's TreebankWordTokenizer (reference library): "don't" ->
     # "do n't", the final period split off, double quotes as `` and ''.
-    import_bytes(db, b'The skipper said "don\'t load it yet."\n', source="a.txt",
-                 corpus_name="Quotes", tokenizer="treebank")
+    import_bytes(
+        db,
+        b'The skipper said "don\'t load it yet."\n',
+        source="a.txt",
+        corpus_name="Quotes",
+        tokenizer="treebank",
+    )
     (row,) = _sentences(db, "Quotes")
-    assert row.tokens == ["The", "skipper", "said", "``", "do", "n't", "load", "it", "yet",
-                          ".", "''"]
+    assert row.tokens == [
+        "The",
+        "skipper",
+        "said",
+        "``",
+        "do",
+        "n't",
+        "load",
+        "it",
+        "yet",
+        ".",
+        "''",
+    ]
 
 
 def test_imports_text_second_file_appends_to_a_named_document(db) -> None:
-    import_bytes(db, b"One line here .\n", source="a.txt", corpus_name="C",
-                 document_name="log")
-    result = import_bytes(db, b"Another line here .\nAnd a third .\n", source="b.txt",
-                          corpus_name="C", document_name="log")
+    import_bytes(db, b"One line here .\n", source="a.txt", corpus_name="C", document_name="log")
+    result = import_bytes(
+        db,
+        b"Another line here .\nAnd a third .\n",
+        source="b.txt",
+        corpus_name="C",
+        document_name="log",
+    )
     assert not result.document_created and not result.corpus_created
     rows = _sentences(db, "C")
     assert [r.position for r in rows] == [0, 1, 2]
@@ -83,8 +107,9 @@ def test_imports_text_byte_order_mark_is_dropped(db) -> None:
 def test_imports_text_lines_end_at_newlines_only(db) -> None:
     # Common practice, no source: a form feed or U+2028 inside a line does not split it (one
     # sentence per newline-ended line); a CRLF ending is a line end.
-    data = ("The ferry left at dawn .\r\nTwo crates\x0cstayed .\nThe ramp\u2028was wet .\n"
-            ).encode("utf-8")
+    data = ("The ferry left at dawn .\r\nTwo crates\x0cstayed .\nThe ramp\u2028was wet .\n").encode(
+        "utf-8"
+    )
     result = import_bytes(db, data, source="lines.txt", corpus_name="Line ends")
     assert result.imported == 3 and result.blank_lines == 0
     rows = _sentences(db, "Line ends")

@@ -35,8 +35,7 @@ def _corpus(db, name: str) -> Corpus:
 
 
 def test_imports_trees_as_gold(db) -> None:
-    result = import_bytes(db, TREES.encode(), source="seed.ptb", corpus_name="Seed",
-                          kind="gold")
+    result = import_bytes(db, TREES.encode(), source="seed.ptb", corpus_name="Seed", kind="gold")
     assert result.imported == 2
     sentences = list(db.scalars(select(Sentence).order_by(Sentence.position)))
     assert [s.state for s in sentences] == [SENT_GOLD, SENT_GOLD]
@@ -63,9 +62,11 @@ def test_imports_trees_explicit_label_set_is_kept(db) -> None:
 
 
 def test_imports_trees_multiline_wrapper_and_empty_elements(db) -> None:
-    text = ("( (S\n    (NP-SBJ-1 (NNS Crews))\n    (VP (VBD tried)\n"
-            "      (S (NP-SBJ (-NONE- *-1)) (VP (TO to) (VP (VB leave)))))\n    (. .)))\n"
-            "\n(ROOT (FRAG (NP (NN Fog)) (. .)))\n")
+    text = (
+        "( (S\n    (NP-SBJ-1 (NNS Crews))\n    (VP (VBD tried)\n"
+        "      (S (NP-SBJ (-NONE- *-1)) (VP (TO to) (VP (VB leave)))))\n    (. .)))\n"
+        "\n(ROOT (FRAG (NP (NN Fog)) (. .)))\n"
+    )
     result = import_bytes(db, text.encode(), source="m.ptb", corpus_name="M", kind="gold")
     assert result.imported == 2 and result.empty_elements_dropped == 1
     first, second = db.scalars(select(Sentence).order_by(Sentence.position))
@@ -76,8 +77,15 @@ def test_imports_trees_multiline_wrapper_and_empty_elements(db) -> None:
 
 
 def test_imports_trees_as_annotations(db, people) -> None:
-    result = import_bytes(db, TREES.encode(), source="ann1.ptb", corpus_name="Pairs",
-                          document_name="log", kind="annotation", annotator="ann1")
+    result = import_bytes(
+        db,
+        TREES.encode(),
+        source="ann1.ptb",
+        corpus_name="Pairs",
+        document_name="log",
+        kind="annotation",
+        annotator="ann1",
+    )
     assert result.imported == 2
     anns = list(db.scalars(select(Annotation).order_by(Annotation.id)))
     assert [(a.user_id, a.state, a.head) for a in anns] == [(people.ann1.id, ANN_SUBMITTED, 1)] * 2
@@ -89,10 +97,24 @@ def test_imports_trees_as_annotations(db, people) -> None:
 
 
 def test_imports_trees_second_annotator_attaches_and_is_routed(db, people) -> None:
-    import_bytes(db, TREES.encode(), source="ann1.ptb", corpus_name="Pairs",
-                 document_name="log", kind="annotation", annotator="ann1")
-    result = import_bytes(db, TREES_OTHER.encode(), source="ann2.ptb", corpus_name="Pairs",
-                          document_name="log", kind="annotation", annotator="ann2")
+    import_bytes(
+        db,
+        TREES.encode(),
+        source="ann1.ptb",
+        corpus_name="Pairs",
+        document_name="log",
+        kind="annotation",
+        annotator="ann1",
+    )
+    result = import_bytes(
+        db,
+        TREES_OTHER.encode(),
+        source="ann2.ptb",
+        corpus_name="Pairs",
+        document_name="log",
+        kind="annotation",
+        annotator="ann2",
+    )
     assert result.attached == 2 and result.imported == 0
     assert db.scalar(select(func.count()).select_from(Sentence)) == 2
     first, second = db.scalars(select(Sentence).order_by(Sentence.position))

@@ -31,9 +31,13 @@ def _takes_session(dependant) -> bool:  # type: ignore[no-untyped-def]
 def test_login_storm_no_async_handler_takes_a_database_session(app) -> None:
     # An async handler runs on the event loop: a session it holds would be used there, and a
     # pool that is used up would block the loop itself. Plain defs run in worker threads.
-    offenders = [route.path for route in app.routes
-                 if isinstance(route, APIRoute) and asyncio.iscoroutinefunction(route.endpoint)
-                 and _takes_session(route.dependant)]
+    offenders = [
+        route.path
+        for route in app.routes
+        if isinstance(route, APIRoute)
+        and asyncio.iscoroutinefunction(route.endpoint)
+        and _takes_session(route.dependant)
+    ]
     assert offenders == []
 
 
@@ -73,8 +77,11 @@ def test_login_storm_health_stays_quick(settings, db) -> None:
             with httpx.Client(base_url=server.url, timeout=60) as http:
                 barrier.wait()
                 try:
-                    answers.append(http.post("/login", data={"username": f"crowd{i}",
-                                                             "password": password}).status_code)
+                    answers.append(
+                        http.post(
+                            "/login", data={"username": f"crowd{i}", "password": password}
+                        ).status_code
+                    )
                 except httpx.HTTPError:
                     answers.append(599)
 

@@ -14,8 +14,13 @@ TREES = "".join(f"(ROOT (S (NP-SBJ (NNP Boat{i})) (VP (VBD sank)) (. .)))\n" for
 
 
 def _upload(client, csrf, data: bytes, name: str = "file.ptb", **fields):
-    form = {"csrf_token": csrf, "corpus_name": "", "new_corpus": "Harbour", "kind": "gold",
-            **fields}
+    form = {
+        "csrf_token": csrf,
+        "corpus_name": "",
+        "new_corpus": "Harbour",
+        "kind": "gold",
+        **fields,
+    }
     return client.post("/transfer/import", data=form, files={"upload": (name, data)})
 
 
@@ -29,14 +34,12 @@ def test_pages_transfer_import_and_export(login, db) -> None:
     assert plain.status_code == 200
     assert plain.headers["content-disposition"] == 'attachment; filename="harbour.ptb"'
     assert plain.text.splitlines()[0] == "(ROOT (S (NP (NNP Boat0)) (VP (VBD sank)) (. .)))"
-    split = admin.client.get(f"/transfer/export?corpus={cid}&split=50/25/25&by=sentence"
-                             "&seed=9")
+    split = admin.client.get(f"/transfer/export?corpus={cid}&split=50/25/25&by=sentence&seed=9")
     assert split.headers["content-type"] == "application/zip"
     archive = zipfile.ZipFile(io.BytesIO(split.content))
     sizes = {n: len(archive.read(n).decode().splitlines()) for n in archive.namelist()}
     assert sizes == {"harbour-train.ptb": 10, "harbour-dev.ptb": 5, "harbour-test.ptb": 5}
-    again = admin.client.get(f"/transfer/export?corpus={cid}&split=50/25/25&by=sentence"
-                             "&seed=9")
+    again = admin.client.get(f"/transfer/export?corpus={cid}&split=50/25/25&by=sentence&seed=9")
     assert again.content == split.content
 
 
@@ -82,11 +85,13 @@ def test_pages_transfer_oversize_upload_is_413(app, login, settings) -> None:
 
 def test_pages_transfer_import_redirects_so_a_reload_imports_nothing(login, db) -> None:
     admin = login("admin")
-    form = {"csrf_token": admin.csrf, "corpus_name": "", "new_corpus": "Harbour",
-            "kind": "gold"}
-    resp = admin.client.post("/transfer/import", data=form,
-                             files={"upload": ("boats.ptb", TREES.encode())},
-                             follow_redirects=False)
+    form = {"csrf_token": admin.csrf, "corpus_name": "", "new_corpus": "Harbour", "kind": "gold"}
+    resp = admin.client.post(
+        "/transfer/import",
+        data=form,
+        files={"upload": ("boats.ptb", TREES.encode())},
+        follow_redirects=False,
+    )
     assert resp.status_code == 303
     target = resp.headers["location"]
     assert target.startswith("/transfer?") and "imported=" in target

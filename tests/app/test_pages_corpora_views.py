@@ -46,17 +46,20 @@ def test_pages_corpora_list_needs_login(app) -> None:
 
 def test_pages_corpora_admin_creates_corpus(login, db) -> None:
     admin = login("admin")
-    resp = admin.client.post("/corpora", data={"name": "Net loft", "csrf_token": admin.csrf,
-                                                "label_set": "S NP VP", "tag_set": ""},
-                             follow_redirects=False)
+    resp = admin.client.post(
+        "/corpora",
+        data={"name": "Net loft", "csrf_token": admin.csrf, "label_set": "S NP VP", "tag_set": ""},
+        follow_redirects=False,
+    )
     assert resp.status_code == 303
     corpus = db.scalar(select(Corpus).where(Corpus.name == "Net loft"))
     assert corpus.label_set == ["S", "NP", "VP"]
     again = admin.client.post("/corpora", data={"name": "Net loft", "csrf_token": admin.csrf})
     assert again.status_code == 409 and "exists already" in again.text
     ann = login("ann1")
-    assert ann.client.post("/corpora", data={"name": "X", "csrf_token": ann.csrf}
-                           ).status_code == 403
+    assert (
+        ann.client.post("/corpora", data={"name": "X", "csrf_token": ann.csrf}).status_code == 403
+    )
 
 
 def _link(html: str, rel: str) -> str:
@@ -76,8 +79,7 @@ def test_pages_corpora_corpus_page_paginates(login, db) -> None:
     assert 'rel="next"' not in last.text
     middle = me.client.get(_link(last.text, "prev"))
     assert "Crate 60 waits" in middle.text and "Crate 119 waits" not in middle.text
-    assert me.client.get(_link(middle.text, "next")).text.count("waits") == \
-        last.text.count("waits")
+    assert me.client.get(_link(middle.text, "next")).text.count("waits") == last.text.count("waits")
     assert me.client.get(f"/corpora/{cid}?after=nonsense").status_code == 422
     gold_only = me.client.get(f"/corpora/{cid}?state=gold")
     assert "Gulls circled" in gold_only.text and "Crate 1 waits" not in gold_only.text
@@ -85,8 +87,9 @@ def test_pages_corpora_corpus_page_paginates(login, db) -> None:
 
 
 def test_pages_corpora_words_are_escaped(login, db) -> None:
-    import_bytes(db, b"A <img src=x onerror=alert(1)> word .\n", source="x.txt",
-                 corpus_name="Hostile")
+    import_bytes(
+        db, b"A <img src=x onerror=alert(1)> word .\n", source="x.txt", corpus_name="Hostile"
+    )
     cid = _open_to_everyone(db)
     html = login("ann1").client.get(f"/corpora/{cid}").text
     assert "<img src=x" not in html and "&lt;img" in html
@@ -95,32 +98,45 @@ def test_pages_corpora_words_are_escaped(login, db) -> None:
 def test_pages_corpora_assign_from_page(login, db, people) -> None:
     cid = _seed(db, raw=4)
     admin = login("admin")
-    resp = admin.client.post(f"/corpora/{cid}/assign", data={"csrf_token": admin.csrf},
-                             follow_redirects=True)
+    resp = admin.client.post(
+        f"/corpora/{cid}/assign", data={"csrf_token": admin.csrf}, follow_redirects=True
+    )
     assert resp.status_code == 200 and "8 assignments made." in resp.text
     assert db.scalar(select(func.count()).select_from(Assignment)) == 8
     mine = login("ann1").client.get(f"/corpora/{cid}").text
     assert "/bench/" in mine  # an assigned annotator gets links to the Bench
     ann = login("ann2")
-    assert ann.client.post(f"/corpora/{cid}/assign", data={"csrf_token": ann.csrf}
-                           ).status_code == 403
+    assert (
+        ann.client.post(f"/corpora/{cid}/assign", data={"csrf_token": ann.csrf}).status_code == 403
+    )
 
 
 def test_pages_corpora_settings_saved_and_checked(login, db) -> None:
     cid = _seed(db)
     admin = login("admin")
-    form = {"csrf_token": admin.csrf, "annotators_per_sentence": "3", "retrain_every": "40",
-            "max_f1_drop": "0.02", "heldout_every": "10", "unknown_label_policy": "refuse",
-            "label_set": "NP NP-SBJ ROOT S VP", "tag_set": ". NNS VBD", "description": "d"}
-    assert admin.client.post(f"/corpora/{cid}/settings", data=form,
-                             follow_redirects=False).status_code == 303
+    form = {
+        "csrf_token": admin.csrf,
+        "annotators_per_sentence": "3",
+        "retrain_every": "40",
+        "max_f1_drop": "0.02",
+        "heldout_every": "10",
+        "unknown_label_policy": "refuse",
+        "label_set": "NP NP-SBJ ROOT S VP",
+        "tag_set": ". NNS VBD",
+        "description": "d",
+    }
+    assert (
+        admin.client.post(f"/corpora/{cid}/settings", data=form, follow_redirects=False).status_code
+        == 303
+    )
     db.expire_all()
     corpus = db.get(Corpus, cid)
     assert corpus.options.annotators_per_sentence == 3
     assert corpus.options.auto_gold_when_identical is False  # unchecked box
     assert corpus.options.unknown_label_policy == "refuse"
-    bad = admin.client.post(f"/corpora/{cid}/settings",
-                            data={**form, "annotators_per_sentence": "0"})
+    bad = admin.client.post(
+        f"/corpora/{cid}/settings", data={**form, "annotators_per_sentence": "0"}
+    )
     assert bad.status_code == 422 and "outside" in bad.text
     db.expire_all()
     assert db.get(Corpus, cid).options.annotators_per_sentence == 3
@@ -129,12 +145,15 @@ def test_pages_corpora_settings_saved_and_checked(login, db) -> None:
 def test_pages_corpora_remove_needs_typed_name(login, db) -> None:
     cid = _seed(db)
     admin = login("admin")
-    wrong = admin.client.post(f"/corpora/{cid}/remove",
-                              data={"csrf_token": admin.csrf, "confirm_name": "quayside"})
+    wrong = admin.client.post(
+        f"/corpora/{cid}/remove", data={"csrf_token": admin.csrf, "confirm_name": "quayside"}
+    )
     assert wrong.status_code == 422 and "type its name exactly" in wrong.text
     assert db.scalar(select(func.count()).select_from(Sentence)) == 4
-    ok = admin.client.post(f"/corpora/{cid}/remove",
-                           data={"csrf_token": admin.csrf, "confirm_name": "Quayside"},
-                           follow_redirects=False)
+    ok = admin.client.post(
+        f"/corpora/{cid}/remove",
+        data={"csrf_token": admin.csrf, "confirm_name": "Quayside"},
+        follow_redirects=False,
+    )
     assert ok.status_code == 303
     assert db.scalar(select(func.count()).select_from(Sentence)) == 0

@@ -32,28 +32,49 @@ TREE = "(ROOT (S (NP (NNS Gulls)) (VP (VBD circled)) (. .)))"
 
 
 def _recount(db: Session) -> dict[tuple[int, str], int]:
-    return {(d, s): n for d, s, n in db.execute(
-        select(Sentence.document_id, Sentence.state, func.count())
-        .group_by(Sentence.document_id, Sentence.state))}
+    return {
+        (d, s): n
+        for d, s, n in db.execute(
+            select(Sentence.document_id, Sentence.state, func.count()).group_by(
+                Sentence.document_id, Sentence.state
+            )
+        )
+    }
 
 
 def _counts(db: Session) -> dict[tuple[int, str], int]:
-    return {(d, s): n for d, s, n in db.execute(
-        select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n)) if n}
+    return {
+        (d, s): n
+        for d, s, n in db.execute(
+            select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n)
+        )
+        if n
+    }
 
 
 def test_counts_stay_equal_to_a_recount(db, people, rng: random.Random) -> None:
     import_bytes(db, ((TREE + "\n") * 3).encode(), source="g.ptb", corpus_name="Quay", kind="gold")
-    import_bytes(db, "".join(f"Crate {i} waits .\n" for i in range(40)).encode(),
-                 source="a.txt", corpus_name="Quay")
-    import_bytes(db, "".join(f"Rope {i} frays .\n" for i in range(25)).encode(),
-                 source="b.txt", corpus_name="Other")
+    import_bytes(
+        db,
+        "".join(f"Crate {i} waits .\n" for i in range(40)).encode(),
+        source="a.txt",
+        corpus_name="Quay",
+    )
+    import_bytes(
+        db,
+        "".join(f"Rope {i} frays .\n" for i in range(25)).encode(),
+        source="b.txt",
+        corpus_name="Other",
+    )
     assert _counts(db) == _recount(db) and sum(_counts(db).values()) == 68
     ids = list(db.scalars(select(Sentence.id)))
     for _ in range(60):  # state changes one by one, in bulk, and moves between documents
         chosen = rng.sample(ids, rng.randint(1, 6))
-        db.execute(update(Sentence).where(Sentence.id.in_(chosen))
-                   .values(state=rng.choice(SENTENCE_STATES)))
+        db.execute(
+            update(Sentence)
+            .where(Sentence.id.in_(chosen))
+            .values(state=rng.choice(SENTENCE_STATES))
+        )
         db.commit()
     docs = list(db.scalars(select(Document).order_by(Document.id)))
     moved = db.scalar(select(Sentence).where(Sentence.document_id == docs[1].id))
@@ -66,8 +87,9 @@ def test_counts_stay_equal_to_a_recount(db, people, rng: random.Random) -> None:
     delete_corpus(db, other.id, "Other", user=people.admin)
     db.commit()
     assert _counts(db) == _recount(db)
-    assert not db.scalar(select(func.count()).select_from(SentenceCount)
-                         .where(SentenceCount.corpus_id == other.id))
+    assert not db.scalar(
+        select(func.count()).select_from(SentenceCount).where(SentenceCount.corpus_id == other.id)
+    )
 
 
 def test_counts_triggers_come_back_with_a_recount_when_missing(app, db) -> None:
@@ -86,8 +108,9 @@ def test_counts_triggers_come_back_with_a_recount_when_missing(app, db) -> None:
     assert _counts(db) == _recount(db)
 
 
-def _walk_corpus(db: Session, corpus: Corpus, per_page: int, *, state: str | None = None,
-                 between: object = None) -> list[int]:
+def _walk_corpus(
+    db: Session, corpus: Corpus, per_page: int, *, state: str | None = None, between: object = None
+) -> list[int]:
     seen: list[int] = []
     after = None
     while True:
@@ -109,8 +132,13 @@ def test_corpus_pages_return_every_row_once_under_concurrent_inserts(db, rng) ->
 
     def insert_some() -> None:  # another request adds sentences while the walk goes on
         for _ in range(rng.randint(0, 3)):
-            s = Sentence(corpus_id=corpus.id, document_id=doc.id, position=next(counter),
-                         tokens=["new"], text="new")
+            s = Sentence(
+                corpus_id=corpus.id,
+                document_id=doc.id,
+                position=next(counter),
+                tokens=["new"],
+                text="new",
+            )
             db.add(s)
             db.flush()
             added.append(s.id)
@@ -127,12 +155,14 @@ def test_corpus_pages_return_every_row_once_under_concurrent_inserts(db, rng) ->
         if page.prev_cursor is None:
             break
         page = sentence_page(db, corpus, per_page=8, before=page.prev_cursor)
-    assert backwards == sorted(backwards, key=seen.index) and set(backwards) == \
-        set(original) | set(added)
+    assert backwards == sorted(backwards, key=seen.index) and set(backwards) == set(original) | set(
+        added
+    )
 
 
-def _queue_ids(db: Session, user: User, limit: int, between: object = None,
-               corpus_id: int | None = None) -> list[int]:
+def _queue_ids(
+    db: Session, user: User, limit: int, between: object = None, corpus_id: int | None = None
+) -> list[int]:
     seen: list[int] = []
     after = None
     while True:
@@ -175,16 +205,27 @@ def _brute_place(db: Session, user: User, sentence_id: int) -> tuple:
     rows = db.execute(
         select(Assignment.sentence_id, Annotation.state)
         .join(Sentence, Sentence.id == Assignment.sentence_id)
-        .outerjoin(Annotation, (Annotation.sentence_id == Assignment.sentence_id)
-                   & (Annotation.user_id == user.id))
+        .outerjoin(
+            Annotation,
+            (Annotation.sentence_id == Assignment.sentence_id) & (Annotation.user_id == user.id),
+        )
         .where(Assignment.user_id == user.id)
-        .order_by(Sentence.corpus_id, Sentence.document_id, Sentence.position)).all()
+        .order_by(Sentence.corpus_id, Sentence.document_id, Sentence.position)
+    ).all()
     ids = [r[0] for r in rows]
     i = ids.index(sentence_id)
-    nxt = next((sid for sid, st in [*rows[i + 1:], *rows[:i]]
-                if st not in (ANN_SUBMITTED, ANN_FLAGGED)), None)
-    return (i + 1, len(ids), sum(1 for r in rows if r[1] == ANN_SUBMITTED),
-            ids[i - 1] if i else None, ids[i + 1] if i + 1 < len(ids) else None, nxt)
+    nxt = next(
+        (sid for sid, st in [*rows[i + 1 :], *rows[:i]] if st not in (ANN_SUBMITTED, ANN_FLAGGED)),
+        None,
+    )
+    return (
+        i + 1,
+        len(ids),
+        sum(1 for r in rows if r[1] == ANN_SUBMITTED),
+        ids[i - 1] if i else None,
+        ids[i + 1] if i + 1 < len(ids) else None,
+        nxt,
+    )
 
 
 def test_queue_place_equals_a_walk_of_the_whole_queue(db, people, rng) -> None:
@@ -199,13 +240,20 @@ def test_queue_place_equals_a_walk_of_the_whole_queue(db, people, rng) -> None:
     db.commit()
     for s in every:
         place = svc.queue_place(db, people.ann1, s.id)
-        assert (place.index, place.total, place.submitted, place.prev_id, place.next_id,
-                place.next_open_id) == _brute_place(db, people.ann1, s.id)
+        assert (
+            place.index,
+            place.total,
+            place.submitted,
+            place.prev_id,
+            place.next_id,
+            place.next_open_id,
+        ) == _brute_place(db, people.ann1, s.id)
     opened = svc.next_open(db, people.ann1)
     ordered = [s.id for s in every]
     states = dict(db.execute(select(Annotation.sentence_id, Annotation.state)).all())
-    assert opened == next((sid for sid in ordered
-                           if states.get(sid) not in (ANN_SUBMITTED, ANN_FLAGGED)), None)
+    assert opened == next(
+        (sid for sid in ordered if states.get(sid) not in (ANN_SUBMITTED, ANN_FLAGGED)), None
+    )
 
 
 def test_queue_api_pages_with_a_cursor(db, people, login) -> None:
@@ -224,22 +272,40 @@ def test_queue_api_pages_with_a_cursor(db, people, login) -> None:
     assert bad.status_code == 422 and "CORPUS-RANK-SENTENCE" in bad.json()["detail"]
 
 
-def _record(db: Session, corpus: Corpus, sentence: Sentence, a: User, b: User,
-            rng: random.Random) -> None:
-    anns = [Annotation(sentence_id=sentence.id, user_id=u.id, state="submitted", head=1)
-            for u in (a, b)]
+def _record(
+    db: Session, corpus: Corpus, sentence: Sentence, a: User, b: User, rng: random.Random
+) -> None:
+    anns = [
+        Annotation(sentence_id=sentence.id, user_id=u.id, state="submitted", head=1) for u in (a, b)
+    ]
     db.add_all(anns)
     db.flush()
     m, ca, cb = rng.randint(1, 9), rng.randint(9, 12), rng.randint(9, 12)
-    db.add(AgreementRecord(
-        corpus_id=corpus.id, sentence_id=sentence.id, annotation_a_id=anns[0].id,
-        annotation_b_id=anns[1].id, user_a_id=a.id, user_b_id=b.id, matched=m, count_a=ca,
-        count_b=cb, labelled_precision=m / cb, labelled_recall=m / ca,
-        labelled_f1=2 * m / (ca + cb), unlabelled_f1=1.0, pos_agreement=1.0,
-        identical=rng.random() < .2,
-        detail={"per_label": {rng.choice("ABC"): [1, 2, rng.randint(1, 3)]},
-                "unlabelled": [m, ca, cb], "pos": [rng.randint(3, 5), 5],
-                "confusions": [[rng.choice("AB"), "C", 1]]}))
+    db.add(
+        AgreementRecord(
+            corpus_id=corpus.id,
+            sentence_id=sentence.id,
+            annotation_a_id=anns[0].id,
+            annotation_b_id=anns[1].id,
+            user_a_id=a.id,
+            user_b_id=b.id,
+            matched=m,
+            count_a=ca,
+            count_b=cb,
+            labelled_precision=m / cb,
+            labelled_recall=m / ca,
+            labelled_f1=2 * m / (ca + cb),
+            unlabelled_f1=1.0,
+            pos_agreement=1.0,
+            identical=rng.random() < 0.2,
+            detail={
+                "per_label": {rng.choice("ABC"): [1, 2, rng.randint(1, 3)]},
+                "unlabelled": [m, ca, cb],
+                "pos": [rng.randint(3, 5), 5],
+                "confusions": [[rng.choice("AB"), "C", 1]],
+            },
+        )
+    )
     db.commit()
 
 
@@ -256,8 +322,7 @@ def test_agreement_sums_kept_between_views_equal_a_fresh_sum(db, people, rng) ->
     first = agreement.corpus_figures(db, corpus.id)
     assert first.records == 10
     for s in sentences[10:25]:
-        _record(db, corpus, s, people.ann1 if s.id % 2 else people.ann2, people.adjudicator,
-                rng)
+        _record(db, corpus, s, people.ann1 if s.id % 2 else people.ann2, people.adjudicator, rng)
     kept = agreement.corpus_figures(db, corpus.id)
     assert kept == _fresh(db, corpus.id) and kept.records == 25
     db.execute(delete(Sentence).where(Sentence.id == sentences[3].id))  # records go with it

@@ -36,8 +36,9 @@ def test_queue_corpus_and_bench_show_words_as_written(db, people, login) -> None
 def test_assign_notice_counts_in_words(db, people, login) -> None:
     corpus, sentences = make_corpus(db, ["one line only ."])
     admin = login("admin")
-    resp = admin.client.post(f"/corpora/{corpus.id}/assign",
-                             data={"csrf_token": admin.csrf, "per_sentence": "1"})
+    resp = admin.client.post(
+        f"/corpora/{corpus.id}/assign", data={"csrf_token": admin.csrf, "per_sentence": "1"}
+    )
     assert "1 assignment made." in resp.text
 
 

@@ -21,6 +21,7 @@ def _blocked(gate: threading.Event, log: list[str], name: str, result: object = 
         assert gate.wait(10), "the test never released the parse"
         log.append(f"end {name}")
         return result if result is not None else name
+
     return parse
 
 
@@ -30,6 +31,7 @@ def _ask(pool: ParseAdmission, key: str, parse, out: dict[str, object]) -> threa
             out[key] = pool.run(key, parse, wait=10)
         except Exception as exc:  # noqa: BLE001 - the test looks at what came back
             out[key] = exc
+
     thread = threading.Thread(target=go)
     thread.start()
     return thread
@@ -56,8 +58,7 @@ def test_admission_bounds_parses_and_serves_first_come_first(rng) -> None:
     for t in threads:
         t.join(10)
     assert out == {k: k for k in "abcd"}
-    assert [e for e in log if e.startswith("start")] == ["start a", "start b", "start c",
-                                                           "start d"]
+    assert [e for e in log if e.startswith("start")] == ["start a", "start b", "start c", "start d"]
     assert pool.peak_running == 1
     pool.close()
 
@@ -74,8 +75,12 @@ def test_admission_runs_one_parse_for_the_same_question() -> None:
 
     first = _ask(pool, "same", counted, out)
     _until(lambda: pool.running == 1, "the first ask to start")
-    seconds = [threading.Thread(target=lambda i=i: out.setdefault(
-        f"again{i}", pool.run("same", counted, wait=10))) for i in range(3)]
+    seconds = [
+        threading.Thread(
+            target=lambda i=i: out.setdefault(f"again{i}", pool.run("same", counted, wait=10))
+        )
+        for i in range(3)
+    ]
     for t in seconds:
         t.start()
     time.sleep(0.3)  # let the three reach the parse in flight (order only, nothing timed)
@@ -129,8 +134,9 @@ def small_pool():
     adm.configure()
 
 
-def test_long_sentence_is_shown_unparsed_with_a_split_offered(db, people, login,
-                                                              small_pool) -> None:
+def test_long_sentence_is_shown_unparsed_with_a_split_offered(
+    db, people, login, small_pool
+) -> None:
     from tests.app.bench_helpers import gum_grammar_bytes, install_grammar
 
     corpus, sentences = make_corpus(db, ["the crew ate", " ".join(["rope"] * 250)])
@@ -142,8 +148,11 @@ def test_long_sentence_is_shown_unparsed_with_a_split_offered(db, people, login,
     assert long_one["split_offered"] is True and long_one["source"] == "flat"
     assert "250 words" in long_one["start_note"] and "Split" in long_one["start_note"]
     assert me.client.get(f"/api/bench/{sentences[1].id}/suggestion").json() is None
-    reparse = me.client.post(f"/api/bench/{sentences[1].id}/reparse", headers=me.headers(),
-                             json={"pins": {"spans": [], "tags": []}, "k": 1})
+    reparse = me.client.post(
+        f"/api/bench/{sentences[1].id}/reparse",
+        headers=me.headers(),
+        json={"pins": {"spans": [], "tags": []}, "k": 1},
+    )
     assert reparse.status_code == 409 and reparse.json()["kind"] == "too_long"
     assert small_pool.parses == before  # nothing was parsed for it
     short = me.client.get(f"/api/bench/{sentences[0].id}").json()
@@ -172,13 +181,22 @@ def test_a_save_does_not_wait_for_busy_parsers(db, people, login, small_pool) ->
     holder = _ask(small_pool, "someone's long parse", long_parse, out)
     queued = _ask(small_pool, "another parse", _blocked(gate, log, "next"), out)
     try:
-        _until(lambda: small_pool.running == 1 and small_pool.waiting == 1,
-               "every parse slot to be taken")
+        _until(
+            lambda: small_pool.running == 1 and small_pool.waiting == 1,
+            "every parse slot to be taken",
+        )
         other = login("ann2")
         saved = other.client.post(
-            f"/api/bench/{sentences[1].id}/revisions", headers=other.headers(),
-            json={"base": 0, "tree": flat_text(["the", "gulls", "circled"]), "pins": {},
-                  "source": "edit", "confirm_labels": True})
+            f"/api/bench/{sentences[1].id}/revisions",
+            headers=other.headers(),
+            json={
+                "base": 0,
+                "tree": flat_text(["the", "gulls", "circled"]),
+                "pins": {},
+                "source": "edit",
+                "confirm_labels": True,
+            },
+        )
         # answered while the long parse still runs and another parse still waits
         assert saved.status_code == 201, saved.text
         assert small_pool.running == 1 and small_pool.waiting == 1 and "end long" not in log

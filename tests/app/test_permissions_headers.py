@@ -21,8 +21,12 @@ EXTERNAL = re.compile(r"""(?:src|href)\s*=\s*["']?(?:https?:)?//""", re.I)
 def _check(resp, where: str) -> list[str]:  # type: ignore[no-untyped-def]
     out = []
     csp = resp.headers.get("content-security-policy", "")
-    for part in ("default-src 'self'", "script-src 'self'", "frame-ancestors 'none'",
-                 "object-src 'none'"):
+    for part in (
+        "default-src 'self'",
+        "script-src 'self'",
+        "frame-ancestors 'none'",
+        "object-src 'none'",
+    ):
         if part not in csp:
             out.append(f"{where}: CSP lacks {part!r}: {csp!r}")
     if "unsafe-inline" in csp or "unsafe-eval" in csp or "http" in csp:
@@ -38,10 +42,16 @@ def test_permissions_headers_on_every_answer(app, db, people, login) -> None:
     corpus, sentences = make_corpus(db)
     assign(db, sentences[:1], people.admin)
     admin = login("admin")
-    ids = {"{sentence_id}": str(sentences[0].id), "{corpus_id}": str(corpus.id),
-           "{version_id}": "1", "{user_id}": str(admin.user_id)}
-    queries = {"/agreement/log.csv": "?corpus=" + str(corpus.id),
-               "/api/grammars": "?corpus_id=" + str(corpus.id)}
+    ids = {
+        "{sentence_id}": str(sentences[0].id),
+        "{corpus_id}": str(corpus.id),
+        "{version_id}": "1",
+        "{user_id}": str(admin.user_id),
+    }
+    queries = {
+        "/agreement/log.csv": "?corpus=" + str(corpus.id),
+        "/api/grammars": "?corpus_id=" + str(corpus.id),
+    }
     problems: list[str] = []
     fetched = 0
     for method, path, _ in app_routes(app):

@@ -16,13 +16,18 @@ def test_a_stale_save_is_409_or_quiet(db, people, login) -> None:
     assign(db, [s], people.ann1)
     ann1 = login("ann1")
     tree = flat_text(s.tokens)
-    first = ann1.client.post(f"/api/bench/{s.id}/revisions", json={"base": 0, "tree": tree},
-                             headers=ann1.headers())
+    first = ann1.client.post(
+        f"/api/bench/{s.id}/revisions", json={"base": 0, "tree": tree}, headers=ann1.headers()
+    )
     assert first.status_code == 201
-    plain = ann1.client.post(f"/api/bench/{s.id}/revisions", json={"base": 0, "tree": tree},
-                             headers=ann1.headers())
-    quiet = ann1.client.post(f"/api/bench/{s.id}/revisions", json={"base": 0, "tree": tree},
-                             headers={**ann1.headers(), **QUIET})
+    plain = ann1.client.post(
+        f"/api/bench/{s.id}/revisions", json={"base": 0, "tree": tree}, headers=ann1.headers()
+    )
+    quiet = ann1.client.post(
+        f"/api/bench/{s.id}/revisions",
+        json={"base": 0, "tree": tree},
+        headers={**ann1.headers(), **QUIET},
+    )
     assert plain.status_code == 409 and "X-Treewright-Status" not in plain.headers
     assert quiet.status_code == 200 and quiet.headers["X-Treewright-Status"] == "409"
     assert quiet.json() == plain.json() and quiet.json()["current"]["number"] == 1
@@ -35,8 +40,9 @@ def test_a_tree_that_does_not_fit_is_422_or_quiet(db, people, login) -> None:
     ann1 = login("ann1")
     bad = {"base": 0, "tree": "(ROOT (S (NN oops))"}
     plain = ann1.client.post(f"/api/bench/{s.id}/revisions", json=bad, headers=ann1.headers())
-    quiet = ann1.client.post(f"/api/bench/{s.id}/revisions", json=bad,
-                             headers={**ann1.headers(), **QUIET})
+    quiet = ann1.client.post(
+        f"/api/bench/{s.id}/revisions", json=bad, headers={**ann1.headers(), **QUIET}
+    )
     assert plain.status_code == 422
     assert quiet.status_code == 200 and quiet.headers["X-Treewright-Status"] == "422"
     assert quiet.json() == plain.json() and quiet.json()["kind"] == "brackets"
@@ -45,7 +51,9 @@ def test_a_tree_that_does_not_fit_is_422_or_quiet(db, people, login) -> None:
 def test_other_errors_keep_their_status(db, people, login) -> None:
     corpus, sentences = make_corpus(db)
     ann1 = login("ann1")  # not assigned: 404 stays 404, asked quietly or not
-    resp = ann1.client.post(f"/api/bench/{sentences[0].id}/revisions",
-                            json={"base": 0, "tree": flat_text(sentences[0].tokens)},
-                            headers={**ann1.headers(), **QUIET})
+    resp = ann1.client.post(
+        f"/api/bench/{sentences[0].id}/revisions",
+        json={"base": 0, "tree": flat_text(sentences[0].tokens)},
+        headers={**ann1.headers(), **QUIET},
+    )
     assert resp.status_code == 404 and "X-Treewright-Status" not in resp.headers

@@ -42,8 +42,15 @@ LICENCE = "Invented for these tests; free to use."
 
 
 def _add(db, corpus_id: int, data: bytes = OLDER, name: str = "harbour notes"):
-    return reference.add_reference(db, corpus_id, data, name=name, source="older team notes",
-                                   licence=LICENCE, filename="older.ptb")
+    return reference.add_reference(
+        db,
+        corpus_id,
+        data,
+        name=name,
+        source="older team notes",
+        licence=LICENCE,
+        filename="older.ptb",
+    )
 
 
 def test_reference_set_is_stored_with_source_and_licence(db):
@@ -63,8 +70,9 @@ def test_reference_import_refuses_a_bad_file_and_stores_nothing(db):
     with pytest.raises(BadInput, match=r"older.ptb, line 2"):
         _add(db, corpus.id, data=b"(ROOT (S (NP (NN a)) (VP (VB b))))\n(ROOT (S (NP (NN c))\n")
     with pytest.raises(BadInput, match="licence"):
-        reference.add_reference(db, corpus.id, OLDER, name="x", source="", licence=" ",
-                                filename="older.ptb")
+        reference.add_reference(
+            db, corpus.id, OLDER, name="x", source="", licence=" ", filename="older.ptb"
+        )
     assert db.scalar(select(func.count(ReferenceSet.id))) == 0
     _add(db, corpus.id)
     with pytest.raises(Conflict, match="already has a reference set"):
@@ -106,8 +114,9 @@ def test_training_with_reference_records_weight_and_sets(app, db):
 
 
 def test_training_with_a_fixed_weight_and_a_set_not_in_use(app, db):
-    corpus = import_demo_gold(db, settings={"retrain_every": 0,
-                                            "reference_weight": "rules=3,lexicon=6"})
+    corpus = import_demo_gold(
+        db, settings={"retrain_every": 0, "reference_weight": "rules=3,lexicon=6"}
+    )
     added = _add(db, corpus.id)
     v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
     assert v.options["adaptation"]["weighting"] == "rules=3,lexicon=6"
@@ -118,8 +127,9 @@ def test_training_with_a_fixed_weight_and_a_set_not_in_use(app, db):
 
 
 def test_reference_alone_trains_a_first_grammar(app, db):
-    corpus = import_bytes(db, b"the gulls circled\n", source="fresh.txt",
-                          corpus_name="Harbour", kind="text")
+    corpus = import_bytes(
+        db, b"the gulls circled\n", source="fresh.txt", corpus_name="Harbour", kind="text"
+    )
     _add(db, corpus.corpus_id)
     v = training.run_training(app.state.sessionmaker, corpus.corpus_id, reason="test")
     assert v.status == GV_READY and v.training_size == 0 and v.heldout_f1 is None
@@ -139,13 +149,13 @@ def test_retrain_interval_keeps_off_and_smaller_settings():
 
 # "fish eat people": one tree (entropy 0); "... with fish": two (0.655 nats); "... with fish
 # with people": five, the largest per word. The grammar is the parser tests' hand-checked one.
-LINES = ["fish eat people", "fish eat people with fish with people",
-         "fish eat people with fish"]
+LINES = ["fish eat people", "fish eat people with fish with people", "fish eat people with fish"]
 
 
 def test_queue_informative_first_follows_the_entropy(db, people):
-    made = import_bytes(db, ("\n".join(LINES) + "\n").encode(), source="fish.txt",
-                        corpus_name="Fish", kind="text")
+    made = import_bytes(
+        db, ("\n".join(LINES) + "\n").encode(), source="fish.txt", corpus_name="Fish", kind="text"
+    )
     corpus_id = made.corpus_id
     assign_sentences(db, corpus_id, per_sentence=2, usernames=["ann1", "ann2"])
     db.commit()
@@ -173,8 +183,9 @@ def test_queue_informative_first_follows_the_entropy(db, people):
 
 
 def test_queue_informative_orders_new_assignments_too(db, people):
-    made = import_bytes(db, ("\n".join(LINES) + "\n").encode(), source="fish.txt",
-                        corpus_name="Fish", kind="text")
+    made = import_bytes(
+        db, ("\n".join(LINES) + "\n").encode(), source="fish.txt", corpus_name="Fish", kind="text"
+    )
     update_corpus(db, db.get(Corpus, made.corpus_id), settings={"queue_order": "informative"})
     training.rank_open_sentences(db, made.corpus_id, 0, SMALL)
     assign_sentences(db, made.corpus_id, per_sentence=2, usernames=["ann1", "ann2"])
@@ -187,16 +198,30 @@ def test_queue_informative_orders_new_assignments_too(db, people):
 def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
     corpus = import_demo_gold(db, settings={"retrain_every": 0})
     admin = login("admin")
-    resp = admin.client.post("/grammars/reference", data={
-        "corpus_id": corpus.id, "csrf_token": admin.csrf, "name": "harbour notes",
-        "source": "older team notes", "licence": LICENCE},
-        files={"upload": ("older.ptb", OLDER, "text/plain")})
+    resp = admin.client.post(
+        "/grammars/reference",
+        data={
+            "corpus_id": corpus.id,
+            "csrf_token": admin.csrf,
+            "name": "harbour notes",
+            "source": "older team notes",
+            "licence": LICENCE,
+        },
+        files={"upload": ("older.ptb", OLDER, "text/plain")},
+    )
     assert resp.status_code == 200, resp.text
     assert "Reference set harbour notes added: 3 trees" in resp.text
     assert LICENCE in resp.text and "older team notes" in resp.text
-    bad = admin.client.post("/grammars/reference", data={
-        "corpus_id": corpus.id, "csrf_token": admin.csrf, "name": "broken",
-        "licence": LICENCE}, files={"upload": ("bad.ptb", b"(ROOT (S (NN a)\n", "text/plain")})
+    bad = admin.client.post(
+        "/grammars/reference",
+        data={
+            "corpus_id": corpus.id,
+            "csrf_token": admin.csrf,
+            "name": "broken",
+            "licence": LICENCE,
+        },
+        files={"upload": ("bad.ptb", b"(ROOT (S (NN a)\n", "text/plain")},
+    )
     assert bad.status_code == 422 and "Nothing was added" in bad.text and "bad.ptb" in bad.text
     for queued in db.scalars(select(GrammarVersion.id)).all():  # the seed import's version
         wait_for_version(db, queued)
@@ -206,8 +231,11 @@ def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
     assert f'data-version="{v.id}"' in html and "harbour notes (3)" in html
     assert describe(DEFAULT) in html and 'action="/grammars/reference"' not in html
     # the learning curve has the reference-only start beside the version's point
-    scored = [x for x in training.scored_versions(db, corpus.id)
-              if training.reference_only_f1(x) is not None]
+    scored = [
+        x
+        for x in training.scored_versions(db, corpus.id)
+        if training.reference_only_f1(x) is not None
+    ]
     assert v.id in [x.id for x in scored]
     assert html.count('class="chart-dot chart-s1"') == len(scored)
 
@@ -215,10 +243,9 @@ def test_grammars_page_adds_and_lists_reference_sets(app, db, people, login):
 def test_twelve_seed_gold_trees_queue_a_version_while_gold_is_scarce(db):
     # 12 gold trees: past retrain_every_early (10) while below early_gold_limit (200), though
     # short of retrain_every (25)
-    trees = "".join(f"(ROOT (S (NP (NNS Gulls{i})) (VP (VBD circled)) (. .)))\n"
-                    for i in range(12))
-    made = import_bytes(db, trees.encode(), source="seed.ptb", corpus_name="Harbour",
-                        kind="gold")
-    queued = db.scalars(select(GrammarVersion).where(
-        GrammarVersion.corpus_id == made.corpus_id)).all()
+    trees = "".join(f"(ROOT (S (NP (NNS Gulls{i})) (VP (VBD circled)) (. .)))\n" for i in range(12))
+    made = import_bytes(db, trees.encode(), source="seed.ptb", corpus_name="Harbour", kind="gold")
+    queued = db.scalars(
+        select(GrammarVersion).where(GrammarVersion.corpus_id == made.corpus_id)
+    ).all()
     assert len(queued) == 1 and queued[0].options["reason"] == "10 new gold trees"

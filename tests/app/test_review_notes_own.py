@@ -19,8 +19,9 @@ NOTE_2 = "took <at dawn> as an ADVP inside the object NP"
 
 
 def _note(who, sentence_id: int, text: str) -> None:  # type: ignore[no-untyped-def]
-    resp = who.client.patch(f"/api/bench/{sentence_id}/note", json={"comment": text},
-                            headers=who.headers())
+    resp = who.client.patch(
+        f"/api/bench/{sentence_id}/note", json={"comment": text}, headers=who.headers()
+    )
     assert resp.status_code == 200, resp.text
 
 
@@ -57,27 +58,29 @@ def test_gold_history_keeps_the_notes_the_decision_was_made_with(db, people, log
     submit_tree(ann1, s.id, TREE_A)
     submit_tree(ann2, s.id, TREE_B)
     adj = login("adj")
-    settled = adj.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_A},
-                              headers=adj.headers())
+    settled = adj.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_A}, headers=adj.headers()
+    )
     assert settled.status_code == 200, settled.text
     _note(ann1, s.id, "changed my mind later")
     history = adj.client.get(f"/api/review/{s.id}").json()["history"]
     assert [(n["annotator"], n["note"]) for n in history[0]["annotator_notes"]] == [
-        ("Ann1", NOTE_1)]
+        ("Ann1", NOTE_1)
+    ]
     html = adj.client.get(f"/review/{s.id}").text
     section = html.split('id="rv-history-h"', 1)[1]
     assert "Ann1’s note:" in section and NOTE_1.replace("'", "&#39;") in section
     assert "changed my mind later" not in section
 
 
-def test_own_annotation_is_refused_by_default_when_another_adjudicator_exists(
-        db, people, login):
+def test_own_annotation_is_refused_by_default_when_another_adjudicator_exists(db, people, login):
     corpus, s = _disagreement(db, people, login, "adj", "ann1")
     submit_tree(login("adj"), s.id, TREE_A)
     submit_tree(login("ann1"), s.id, TREE_B)
     adj = login("adj")
-    refused = adj.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_A},
-                              headers=adj.headers())
+    refused = adj.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_A}, headers=adj.headers()
+    )
     assert refused.status_code == 403
     assert refused.json()["kind"] == "own_annotation"
     assert "you annotated this sentence" in refused.json()["detail"]
@@ -86,8 +89,9 @@ def test_own_annotation_is_refused_by_default_when_another_adjudicator_exists(
     assert db.scalars(select(Gold).where(Gold.sentence_id == s.id)).all() == []
     # the admin is the other adjudicator and may settle it
     admin = login("admin")
-    done = admin.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_A},
-                             headers=admin.headers())
+    done = admin.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_A}, headers=admin.headers()
+    )
     assert done.status_code == 200, done.text
     assert done.json()["history"][0]["own_annotation"] is False
 
@@ -99,8 +103,9 @@ def test_own_annotation_allowed_when_alone_and_recorded(db, people, login):
     adj = login("adj")
     people.admin.active = False  # now nobody else can adjudicate
     db.commit()
-    done = adj.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_A},
-                           headers=adj.headers())
+    done = adj.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_A}, headers=adj.headers()
+    )
     assert done.status_code == 200, done.text
     assert done.json()["history"][0]["own_annotation"] is True
     db.expire_all()
@@ -118,14 +123,16 @@ def test_own_annotation_setting_always_and_never(db, people, login):
     people.admin.active = False
     update_corpus(db, corpus, settings={"settle_own_annotation": "never"})
     db.commit()
-    never = adj.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_A},
-                            headers=adj.headers())
+    never = adj.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_A}, headers=adj.headers()
+    )
     assert never.status_code == 403 and "lets nobody settle" in never.json()["detail"]
     people.admin.active = True
     update_corpus(db, corpus, settings={"settle_own_annotation": "always"})
     db.commit()
-    always = adj.client.post(f"/api/review/{s.id}/settle", json={"tree": TREE_B},
-                             headers=adj.headers())
+    always = adj.client.post(
+        f"/api/review/{s.id}/settle", json={"tree": TREE_B}, headers=adj.headers()
+    )
     assert always.status_code == 200, always.text
     assert always.json()["history"][0]["own_annotation"] is True
 
@@ -133,9 +140,10 @@ def test_own_annotation_setting_always_and_never(db, people, login):
 def test_own_annotation_setting_takes_only_its_choices(db, people, login):
     corpus, _ = _disagreement(db, people, login)
     admin = login("admin")
-    resp = admin.client.post(f"/corpora/{corpus.id}/settings",
-                             data={"csrf_token": admin.csrf,
-                                   "settle_own_annotation": "sometimes"})
+    resp = admin.client.post(
+        f"/corpora/{corpus.id}/settings",
+        data={"csrf_token": admin.csrf, "settle_own_annotation": "sometimes"},
+    )
     assert resp.status_code == 422
     assert "settle_own_annotation" in resp.text and "if_alone" in resp.text
     page = admin.client.get(f"/corpora/{corpus.id}").text

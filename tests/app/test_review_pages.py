@@ -42,9 +42,11 @@ def test_review_page_shows_both_trees_and_the_combined_view(db, people, login):
 def test_settled_page_shows_history_and_reopen(db, people, login):
     corpus, s = _disagreement(db, people, login)
     adj = login("adj")
-    adj.client.post(f"/api/review/{s.id}/settle",
-                    json={"tree": TREE_A, "note": "time adjunct <b>on the VP</b>"},
-                    headers=adj.headers())
+    adj.client.post(
+        f"/api/review/{s.id}/settle",
+        json={"tree": TREE_A, "note": "time adjunct <b>on the VP</b>"},
+        headers=adj.headers(),
+    )
     page = adj.client.get(f"/review/{s.id}").text
     assert 'id="rv-reopen"' in page and 'id="rv-settle"' not in page
     assert "adjudication by Adj" in page
@@ -76,10 +78,12 @@ class _Span:
 
 
 def test_ladder_puts_parents_above_children_and_crossing_spans_apart():
-    spans = [_Span(0, 4, "all", [_Label("S", ["A", "B"])]),
-             _Span(0, 2, "some", [_Label("NP", ["A"])]),
-             _Span(1, 3, "some", [_Label("NP", ["B"])]),  # crosses (0, 2)
-             _Span(2, 4, "all", [_Label("VP", ["A", "B"])])]
+    spans = [
+        _Span(0, 4, "all", [_Label("S", ["A", "B"])]),
+        _Span(0, 2, "some", [_Label("NP", ["A"])]),
+        _Span(1, 3, "some", [_Label("NP", ["B"])]),  # crosses (0, 2)
+        _Span(2, 4, "all", [_Label("VP", ["A", "B"])]),
+    ]
     rows = ladder_rows(spans)
     assert rows[1] == 1 and rows[3] == 1  # (0,2) and (2,4) touch but do not overlap
     assert rows[2] == 2  # overlaps (0,2) and (2,4) on row 1

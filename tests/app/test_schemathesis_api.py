@@ -45,24 +45,37 @@ SKIP = {("POST", "/api/grammars")}  # would start training jobs; the matrix cove
 def world(db, people) -> dict[str, Any]:
     corpus, sentences = make_corpus(db)
     assign(db, sentences[:2], people.ann1, people.ann2)
-    spare = User(username="spare", display_name="Spare", role="annotator",
-                 password_hash=PASSWORD_HASH)
+    spare = User(
+        username="spare", display_name="Spare", role="annotator", password_hash=PASSWORD_HASH
+    )
     db.add_all([spare, GrammarVersion(corpus_id=corpus.id, number=1, status="failed")])
     db.commit()
-    return {"spare": spare.id, "roles": {people.admin.id, people.adjudicator.id,
-                                         people.ann1.id, people.ann2.id}}
+    return {
+        "spare": spare.id,
+        "roles": {people.admin.id, people.adjudicator.id, people.ann1.id, people.ann2.id},
+    }
 
 
-def _run_operation(operation: Any, mode: GenerationMode, auth: dict[str, Any],
-                   world: dict[str, Any], examples: int) -> None:
-    checks = [not_a_server_error, status_code_conformance, content_type_conformance,
-              response_schema_conformance]
+def _run_operation(
+    operation: Any, mode: GenerationMode, auth: dict[str, Any], world: dict[str, Any], examples: int
+) -> None:
+    checks = [
+        not_a_server_error,
+        status_code_conformance,
+        content_type_conformance,
+        response_schema_conformance,
+    ]
     if mode == GenerationMode.NEGATIVE:
         checks.append(negative_data_rejection)
 
-    @hsettings(max_examples=examples, deadline=None, database=None, derandomize=True,
-               phases=[Phase.explicit, Phase.generate],
-               suppress_health_check=list(HealthCheck))
+    @hsettings(
+        max_examples=examples,
+        deadline=None,
+        database=None,
+        derandomize=True,
+        phases=[Phase.explicit, Phase.generate],
+        suppress_health_check=list(HealthCheck),
+    )
     @given(case=operation.as_strategy(generation_mode=mode))
     def run(case: Any) -> None:
         params = case.path_parameters or {}
@@ -80,8 +93,10 @@ def test_schemathesis_every_operation_as(role, app, login, world) -> None:
     auth: dict[str, Any] = {"headers": {}, "cookies": {}}
     if role != "anonymous":
         me = login(role)
-        auth = {"headers": {"X-CSRF-Token": me.csrf},
-                "cookies": {SESSION_COOKIE: me.client.cookies.get(SESSION_COOKIE)}}
+        auth = {
+            "headers": {"X-CSRF-Token": me.csrf},
+            "cookies": {SESSION_COOKIE: me.client.cookies.get(SESSION_COOKIE)},
+        }
     schema = schemathesis.openapi.from_asgi("/openapi.json", app)
     failures: list[str] = []
     count = 0
@@ -93,13 +108,20 @@ def test_schemathesis_every_operation_as(role, app, login, world) -> None:
             count += 1
             for mode in (GenerationMode.POSITIVE, GenerationMode.NEGATIVE):
                 try:
-                    _run_operation(operation, mode, auth, world, ANONYMOUS_EXAMPLES
-                                   if role == "anonymous" else EXAMPLES[mode])
+                    _run_operation(
+                        operation,
+                        mode,
+                        auth,
+                        world,
+                        ANONYMOUS_EXAMPLES if role == "anonymous" else EXAMPLES[mode],
+                    )
                 except Unsatisfiable:
                     continue  # nothing to break: the operation has no parameters or body
                 except (Exception, BaseExceptionGroup) as exc:  # collect them all, then report
-                    failures.append(f"{operation.method.upper()} {operation.path} "
-                                    f"[{mode.value}] as {role}: {str(exc)[:1500]}")
+                    failures.append(
+                        f"{operation.method.upper()} {operation.path} "
+                        f"[{mode.value}] as {role}: {str(exc)[:1500]}"
+                    )
     finally:
         shutdown_lifespans()
     assert count >= 20, f"only {count} operations in the schema"

@@ -12,10 +12,14 @@ from app.services.errors import BadInput, Forbidden
 from tests.app.quality_helpers import GOLD, import_gold
 
 NOTE_TEXT = "the mate rang the bell twice ."
-ANN1_TREE = ("(ROOT (S (NP (DT the) (NN mate)) (VP (VBD rang) (NP (DT the) (NN bell)) "
-             "(ADVP (RB twice))) (. .)))")
-ANN2_TREE = ("(ROOT (S (NP (DT the) (NN mate)) (VP (VBD rang) (ADJP (DT the) (NN bell)) "
-             "(ADVP (RB twice))) (. .)))")
+ANN1_TREE = (
+    "(ROOT (S (NP (DT the) (NN mate)) (VP (VBD rang) (NP (DT the) (NN bell)) "
+    "(ADVP (RB twice))) (. .)))"
+)
+ANN2_TREE = (
+    "(ROOT (S (NP (DT the) (NN mate)) (VP (VBD rang) (ADJP (DT the) (NN bell)) "
+    "(ADVP (RB twice))) (. .)))"
+)
 
 
 def _draft(db: Session, sentence: Sentence, user: User, tree: str) -> Annotation:
@@ -34,11 +38,13 @@ def world(db: Session, people) -> tuple[Corpus, list[Sentence]]:  # type: ignore
     from app.services.imports import import_bytes
 
     corpus, sentences = import_gold(db)
-    import_bytes(db, (NOTE_TEXT + "\n").encode(), source="raw.txt", corpus_name=corpus.name,
-                 kind="text")
+    import_bytes(
+        db, (NOTE_TEXT + "\n").encode(), source="raw.txt", corpus_name=corpus.name, kind="text"
+    )
     db.refresh(corpus)
-    raw = db.query(Sentence).filter(Sentence.corpus_id == corpus.id,
-                                    Sentence.text == NOTE_TEXT).one()
+    raw = (
+        db.query(Sentence).filter(Sentence.corpus_id == corpus.id, Sentence.text == NOTE_TEXT).one()
+    )
     _draft(db, raw, people.ann1, ANN1_TREE)
     _draft(db, raw, people.ann2, ANN2_TREE)
     return corpus, sentences + [raw]
@@ -77,14 +83,13 @@ def test_search_gold_for_annotators_follows_the_corpus_setting(db, people, world
 
 def test_search_word_string_state_filter_and_pages(db, people, world) -> None:
     corpus, sentences = world
-    everything = svc.search(db, corpus, people.adjudicator, "the *", scope="sentences",
-                            per_page=3)
+    everything = svc.search(db, corpus, people.adjudicator, "the *", scope="sentences", per_page=3)
     assert everything.total == len(sentences) and everything.pages == 3
-    second = svc.search(db, corpus, people.adjudicator, "the *", scope="sentences",
-                        per_page=3, page=2)
+    second = svc.search(
+        db, corpus, people.adjudicator, "the *", scope="sentences", per_page=3, page=2
+    )
     assert [h.sentence_id for h in second.hits] == [s.id for s in sentences[3:6]]
-    queued = svc.search(db, corpus, people.adjudicator, "the *", scope="sentences",
-                        state="queued")
+    queued = svc.search(db, corpus, people.adjudicator, "the *", scope="sentences", state="queued")
     assert [h.sentence_id for h in queued.hits] == [sentences[-1].id]
     hit = queued.hits[0]
     assert hit.spans == [(0, 2), (3, 5)] and hit.tree is None
@@ -103,11 +108,14 @@ def test_search_export_gives_matching_trees_one_per_line(db, people, world) -> N
     assert text.splitlines() == GOLD[:2]
 
 
-@pytest.mark.parametrize(("pattern", "scope", "words"), [
-    ("(NP (DT", "gold", "column"),
-    ("(NP)", "sentences", "searches trees"),
-    ("the", "everywhere", "unknown scope"),
-])
+@pytest.mark.parametrize(
+    ("pattern", "scope", "words"),
+    [
+        ("(NP (DT", "gold", "column"),
+        ("(NP)", "sentences", "searches trees"),
+        ("the", "everywhere", "unknown scope"),
+    ],
+)
 def test_search_bad_request_says_what(db, people, world, pattern, scope, words) -> None:
     corpus, _ = world
     with pytest.raises(BadInput) as err:
@@ -118,18 +126,20 @@ def test_search_bad_request_says_what(db, people, world, pattern, scope, words) 
 def test_search_api_answers_and_refuses(login, db, people, world) -> None:
     corpus, _ = world
     ann1 = login("ann1")
-    ok = ann1.client.get(f"/api/corpora/{corpus.id}/search",
-                         params={"pattern": "(ADJP)", "scope": "annotations"})
+    ok = ann1.client.get(
+        f"/api/corpora/{corpus.id}/search", params={"pattern": "(ADJP)", "scope": "annotations"}
+    )
     assert ok.status_code == 200 and ok.json()["total"] == 0
     bad = ann1.client.get(f"/api/corpora/{corpus.id}/search", params={"pattern": "(NP"})
     assert bad.status_code == 422 and bad.json()["column"] == 4
     corpus.settings = {**corpus.settings, "gold_visible_to_annotators": False}
     db.commit()
-    assert ann1.client.get(f"/api/corpora/{corpus.id}/search",
-                           params={"pattern": "(NP)"}).status_code == 403
+    assert (
+        ann1.client.get(f"/api/corpora/{corpus.id}/search", params={"pattern": "(NP)"}).status_code
+        == 403
+    )
     adj = login("adj")
-    api = adj.client.get(f"/api/corpora/{corpus.id}/search/export",
-                         params={"pattern": "(ADJP)"})
+    api = adj.client.get(f"/api/corpora/{corpus.id}/search/export", params={"pattern": "(ADJP)"})
     assert api.status_code == 200
     assert (api.json()["count"], api.json()["text"]) == (1, GOLD[2] + "\n")
     page = adj.client.get("/search/export", params={"corpus": corpus.id, "pattern": "(ADJP)"})
@@ -140,8 +150,10 @@ def test_search_api_answers_and_refuses(login, db, people, world) -> None:
 def test_search_page_marks_the_match_and_hides_others_work(login, world) -> None:
     corpus, _ = world
     ann1 = login("ann1")
-    page = ann1.client.get("/search", params={"corpus": corpus.id, "pattern": "(NP (DT the) _)",
-                                              "scope": "annotations"})
+    page = ann1.client.get(
+        "/search",
+        params={"corpus": corpus.id, "pattern": "(NP (DT the) _)", "scope": "annotations"},
+    )
     assert page.status_code == 200
     assert "<mark>the mate</mark>" in page.text and "ann1's annotation" in page.text
     assert "ADJP" not in page.text  # ann2's tree is nowhere on the page

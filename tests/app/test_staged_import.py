@@ -35,13 +35,20 @@ def test_staged_import_is_invisible_until_published(app, db, people, monkeypatch
     def look(done: int, total: int) -> None:  # runs between staging chunks
         with factory() as other:
             visible = [c.name for c in corpus_list(other)]
-            in_target = other.scalar(select(Sentence.id).join(Corpus).where(
-                Corpus.name == "Quay")) is not None
+            in_target = (
+                other.scalar(select(Sentence.id).join(Corpus).where(Corpus.name == "Quay"))
+                is not None
+            )
             seen.append((done, visible + (["rows in target"] if in_target else [])))
 
     result = staged_import.import_stream(
-        db, _lines(_text(45)), source="quay.txt", corpus_name="Quay", document_name="quay",
-        progress=look)
+        db,
+        _lines(_text(45)),
+        source="quay.txt",
+        corpus_name="Quay",
+        document_name="quay",
+        progress=look,
+    )
     assert result.imported == 45
     assert [done for done, _ in seen[:4]] == [10, 20, 30, 40]
     assert all(names == [] for _, names in seen[:-1])  # nothing, not even the staging corpus
@@ -60,23 +67,28 @@ def test_staged_import_failure_at_publish_leaves_nothing(db, people, monkeypatch
 
     monkeypatch.setattr(staged_import, "_publish", broken)
     with pytest.raises(RuntimeError):
-        staged_import.import_stream(db, _lines(_text(35)), source="q.txt",
-                                    corpus_name="Quay", document_name="q")
+        staged_import.import_stream(
+            db, _lines(_text(35)), source="q.txt", corpus_name="Quay", document_name="q"
+        )
     assert count_rows(db) == before
     assert db.query(Corpus).count() == 0
 
 
 def test_staged_import_gold_keeps_trees_and_appends_to_a_document(db, people) -> None:
-    gold = (b"(ROOT (S (NP (NN tide)) (VP (VBD turned))))\n"
-            b"(ROOT (S (NP (NN lock)) (VP (VBD filled))))\n")
-    staged_import.import_stream(db, _lines(gold), source="g.ptb", corpus_name="Quay",
-                                document_name="log", kind="gold")
-    staged_import.import_stream(db, _lines(_text(2)), source="t.txt", corpus_name="Quay",
-                                document_name="log")
-    rows = db.execute(select(Sentence.position, Sentence.state, Sentence.text)
-                      .order_by(Sentence.position)).all()
-    assert [(p, s) for p, s, _ in rows] == [(0, "gold"), (1, "gold"), (2, "queued"),
-                                            (3, "queued")]
+    gold = (
+        b"(ROOT (S (NP (NN tide)) (VP (VBD turned))))\n"
+        b"(ROOT (S (NP (NN lock)) (VP (VBD filled))))\n"
+    )
+    staged_import.import_stream(
+        db, _lines(gold), source="g.ptb", corpus_name="Quay", document_name="log", kind="gold"
+    )
+    staged_import.import_stream(
+        db, _lines(_text(2)), source="t.txt", corpus_name="Quay", document_name="log"
+    )
+    rows = db.execute(
+        select(Sentence.position, Sentence.state, Sentence.text).order_by(Sentence.position)
+    ).all()
+    assert [(p, s) for p, s, _ in rows] == [(0, "gold"), (1, "gold"), (2, "queued"), (3, "queued")]
     assert db.query(Gold).count() == 2
     corpus = db.scalar(select(Corpus))
     assert {"NP", "VP", "S"} <= set(corpus.label_set)
@@ -85,8 +97,12 @@ def test_staged_import_gold_keeps_trees_and_appends_to_a_document(db, people) ->
 def test_staged_import_abandoned_staging_is_dropped(db, people) -> None:
     from datetime import timedelta
 
-    staging = Corpus(name="import in progress x", label_set=[], tag_set=[],
-                     settings={"staging_import": "lost.txt"})
+    staging = Corpus(
+        name="import in progress x",
+        label_set=[],
+        tag_set=[],
+        settings={"staging_import": "lost.txt"},
+    )
     db.add(staging)
     db.commit()
     assert corpus_list(db) == []
@@ -107,10 +123,13 @@ def test_staged_import_saves_go_on_meanwhile(settings, db, people) -> None:
 
         def big_import() -> None:
             try:
-                resp = admin.http.post("/api/corpora/import", headers={"X-CSRF-Token": admin.csrf},
-                                       data={"corpus_name": "Quay", "kind": "text"},
-                                       files={"upload": ("big.txt", _text(20_000))},
-                                       timeout=600)
+                resp = admin.http.post(
+                    "/api/corpora/import",
+                    headers={"X-CSRF-Token": admin.csrf},
+                    data={"corpus_name": "Quay", "kind": "text"},
+                    files={"upload": ("big.txt", _text(20_000))},
+                    timeout=600,
+                )
                 answers.append(resp.status_code)
             finally:
                 done.set()

@@ -32,8 +32,9 @@ def _count(db) -> int:
     return db.scalar(select(func.count()).select_from(Suggestion))
 
 
-def test_suggestions_new_annotation_starts_from_consensus_and_is_cached(db, people, login,
-                                                                        settings) -> None:
+def test_suggestions_new_annotation_starts_from_consensus_and_is_cached(
+    db, people, login, settings
+) -> None:
     _, sentences, _ = _world(db, people)
     me = login("ann1")
     s = sentences[0]
@@ -84,13 +85,15 @@ def test_suggestions_without_grammar_is_null(db, people, login) -> None:
 
 
 def test_suggestions_returning_annotator_gets_their_revision_not_the_suggestion(
-        db, people, login) -> None:
+    db, people, login
+) -> None:
     _, sentences, _ = _world(db, people)
     me = login("ann1")
     s = sentences[2]
     mine = flat_text(s.tokens, ["DT", "JJ", "NN", "VBZ", "RB", "VBN", "VBN", "."])
-    me.client.post(f"/api/bench/{s.id}/revisions", headers=me.headers(),
-                   json={"base": 0, "tree": mine})
+    me.client.post(
+        f"/api/bench/{s.id}/revisions", headers=me.headers(), json={"base": 0, "tree": mine}
+    )
     body = me.client.get(f"/api/bench/{s.id}").json()
     assert body["tree"] == mine and body["source"] == "edit"
     assert body["suggestion"] is not None  # still offered as alternatives
@@ -100,8 +103,11 @@ def test_suggestions_refresh_unstarted_skips_started_sentences(db, people, login
     corpus, sentences, _ = _world(db, people)
     me = login("ann1")
     started = sentences[0]
-    me.client.post(f"/api/bench/{started.id}/revisions", headers=me.headers(),
-                   json={"base": 0, "tree": flat_text(started.tokens)})
+    me.client.post(
+        f"/api/bench/{started.id}/revisions",
+        headers=me.headers(),
+        json={"base": 0, "tree": flat_text(started.tokens)},
+    )
     newer = install_grammar(db, corpus, gum_grammar_bytes(), number=2)
     done = suggestions.refresh_unstarted(db, corpus, newer, k=3, processes=1)
     assert done == len(sentences) - 1

@@ -44,9 +44,11 @@ def test_run_training_scores_a_heldout_slice_and_activates(app, db):
     assert 0.0 < v.heldout_f1 <= 1.0
     assert v.options["heldout"]["sentences"] == v.heldout_size
     # the library's default markovization, recorded with the version
-    assert v.options["markovization"] == {"horizontal": DEFAULT_HORIZONTAL,
-                                          "vertical": DEFAULT_VERTICAL,
-                                          "min_context": DEFAULT_MIN_CONTEXT}
+    assert v.options["markovization"] == {
+        "horizontal": DEFAULT_HORIZONTAL,
+        "vertical": DEFAULT_VERTICAL,
+        "min_context": DEFAULT_MIN_CONTEXT,
+    }
     assert v.train_seconds is not None and v.finished_at is not None and v.progress == 1.0
     db.expire_all()
     assert db.get(Corpus, corpus.id).active_grammar_id == v.id
@@ -54,8 +56,9 @@ def test_run_training_scores_a_heldout_slice_and_activates(app, db):
     stored = db.scalar(select(GrammarVersion).where(GrammarVersion.id == v.id))
     grammar = grammar_from_bytes(stored.data)
     held = db.scalar(select(Gold).where(Gold.sentence_id == gold_ids[0]))
-    assert words(parse(grammar, words(read_tree(held.tree))).trees[0]) == \
-        words(read_tree(held.tree))
+    assert words(parse(grammar, words(read_tree(held.tree))).trees[0]) == words(
+        read_tree(held.tree)
+    )
 
 
 def test_heldout_slice_is_keyed_on_sentence_ids():
@@ -66,8 +69,7 @@ def test_heldout_slice_is_keyed_on_sentence_ids():
     assert [g.sentence_id for g in held] == [10, 20, 30]
     assert len(train) == 27
     # growing the gold keeps the earlier held-out sentences held out
-    _, held_more = training.split_heldout(
-        gold + [training.GoldTree(40, gold[0].tree)], 10)
+    _, held_more = training.split_heldout(gold + [training.GoldTree(40, gold[0].tree)], 10)
     assert [g.sentence_id for g in held_more] == [10, 20, 30, 40]
     assert training.split_heldout(gold[:5], 10) == (gold[:5], [])  # ids 1..5: nothing to hold
 
@@ -118,24 +120,26 @@ def test_gold_import_queues_a_version_once_retrain_every_is_reached(app, db):
 
 def test_refresh_after_training_fills_suggestions_of_unstarted_sentences(app, db):
     corpus = import_demo_gold(db, raw="Grease the winch .\nCheck the ramp .\n")
-    raw_ids = db.scalars(select(Sentence.id).where(Sentence.corpus_id == corpus.id,
-                                                   Sentence.state == "queued")).all()
+    raw_ids = db.scalars(
+        select(Sentence.id).where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
+    ).all()
     v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
-    cached = set(db.scalars(select(Suggestion.sentence_id)
-                            .where(Suggestion.grammar_version_id == v.id)).all())
+    cached = set(
+        db.scalars(
+            select(Suggestion.sentence_id).where(Suggestion.grammar_version_id == v.id)
+        ).all()
+    )
     assert raw_ids and set(raw_ids) <= cached
 
 
 def test_api_train_now_runs_in_the_background_and_reports_progress(app, db, login):
     corpus = import_demo_gold(db, settings={"retrain_every": 0})
     adj = login("adj")
-    resp = adj.client.post("/api/grammars", json={"corpus_id": corpus.id},
-                           headers=adj.headers())
+    resp = adj.client.post("/api/grammars", json={"corpus_id": corpus.id}, headers=adj.headers())
     assert resp.status_code == 202, resp.text
     body = resp.json()
     assert body["number"] == 1 and body["status"] in ("queued", "training", "ready")
-    again = adj.client.post("/api/grammars", json={"corpus_id": corpus.id},
-                            headers=adj.headers())
+    again = adj.client.post("/api/grammars", json={"corpus_id": corpus.id}, headers=adj.headers())
     # one job per corpus: asking again while it is open gives the same job
     if again.json()["status"] in ("queued", "training"):
         assert again.json()["id"] == body["id"]
@@ -151,8 +155,7 @@ def test_api_train_now_runs_in_the_background_and_reports_progress(app, db, logi
 def test_annotators_cannot_start_training(app, db, login):
     corpus = import_demo_gold(db)
     ann = login("ann1")
-    resp = ann.client.post("/api/grammars", json={"corpus_id": corpus.id},
-                           headers=ann.headers())
+    resp = ann.client.post("/api/grammars", json={"corpus_id": corpus.id}, headers=ann.headers())
     assert resp.status_code == 403
 
 

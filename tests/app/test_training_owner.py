@@ -34,22 +34,33 @@ factory = make_sessionmaker(make_engine(Settings(database_url=sys.argv[1],
                                                  data_dir=sys.argv[2])))
 """
 # worker A: claims the queued job and keeps it alive (heartbeat) until its stdin closes
-OWNER = SETUP + """
+OWNER = (
+    SETUP
+    + """
 vid = training.claim(factory)
 print(vid, flush=True)
 with training.Heartbeat(factory, vid, every=0.2):
     sys.stdin.read()
 """
+)
 # worker B: starts as a restarted worker does (its runner fails interrupted jobs first)
-RESTARTED = SETUP + """
+RESTARTED = (
+    SETUP
+    + """
 runner = training.get_runner(factory, in_process=True)
 runner.shutdown()
 """
+)
 
 
 def _python(code: str, settings: Settings, **kw: object) -> subprocess.Popen[str]:
-    args = [sys.executable, "-c", textwrap.dedent(code), settings.resolved_database_url,
-            str(settings.data_dir)]
+    args = [
+        sys.executable,
+        "-c",
+        textwrap.dedent(code),
+        settings.resolved_database_url,
+        str(settings.data_dir),
+    ]
     return subprocess.Popen(args, cwd=PROJECT_ROOT, text=True, **kw)  # type: ignore[call-overload]
 
 
@@ -72,7 +83,8 @@ def _queued_job(db: Session) -> int:
 
 
 def test_training_owner_restarted_worker_spares_a_live_job_and_fails_a_dead_one(
-        settings: Settings, db: Session) -> None:
+    settings: Settings, db: Session
+) -> None:
     version_id = _queued_job(db)
     owner = _python(OWNER, settings, stdin=subprocess.PIPE, stdout=subprocess.PIPE)
     try:
@@ -80,8 +92,11 @@ def test_training_owner_restarted_worker_spares_a_live_job_and_fails_a_dead_one(
         claimed = owner.stdout.readline().strip()
         assert claimed == str(version_id)
         row = _row(db, version_id)
-        assert (row.status, row.owner_pid, row.owner_host) == (GV_TRAINING, owner.pid,
-                                                              training.HOST)
+        assert (row.status, row.owner_pid, row.owner_host) == (
+            GV_TRAINING,
+            owner.pid,
+            training.HOST,
+        )
         first_beat = row.heartbeat_at
         deadline = time.monotonic() + 60
         while _row(db, version_id).heartbeat_at == first_beat:  # the owner beats
@@ -116,16 +131,23 @@ def _training_row(db: Session, *, host: str, pid: int | None, beat_age: float | 
 
 # "self" stands for this test process's pid, filled in at run time: a pid in the parameters
 # would give each pytest-xdist worker a different test id, and xdist refuses that
-@pytest.mark.parametrize(("host", "pid", "beat_age", "gone"), [
-    ("another-host", 4242, 1.0, False),  # elsewhere and beating: alive
-    ("another-host", 4242, training.STALE_AFTER + 30, True),  # elsewhere, silent: gone
-    ("this-host", "self", 1.0, False),  # this process: alive
-    ("this-host", None, None, True),  # claimed before owners were recorded
-])
-def test_training_owner_decides_by_heartbeat_and_process(app, db: Session,  # type: ignore[no-untyped-def]
-                                                         host: str, pid: int | str | None,
-                                                         beat_age: float | None,
-                                                         gone: bool) -> None:
+@pytest.mark.parametrize(
+    ("host", "pid", "beat_age", "gone"),
+    [
+        ("another-host", 4242, 1.0, False),  # elsewhere and beating: alive
+        ("another-host", 4242, training.STALE_AFTER + 30, True),  # elsewhere, silent: gone
+        ("this-host", "self", 1.0, False),  # this process: alive
+        ("this-host", None, None, True),  # claimed before owners were recorded
+    ],
+)
+def test_training_owner_decides_by_heartbeat_and_process(
+    app,
+    db: Session,  # type: ignore[no-untyped-def]
+    host: str,
+    pid: int | str | None,
+    beat_age: float | None,
+    gone: bool,
+) -> None:
     host = training.HOST if host == "this-host" else host
     pid = os.getpid() if pid == "self" else pid
     version_id = _training_row(db, host=host, pid=pid, beat_age=beat_age)
@@ -135,8 +157,12 @@ def test_training_owner_decides_by_heartbeat_and_process(app, db: Session,  # ty
 
 
 def test_training_owner_dead_process_on_this_host_is_gone_at_once(app, db: Session) -> None:  # type: ignore[no-untyped-def]
-    ended = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                           capture_output=True, text=True, check=True)
+    ended = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     dead_pid = int(ended.stdout)  # that process has exited
     version_id = _training_row(db, host=training.HOST, pid=dead_pid, beat_age=0.5)
     assert training.fail_interrupted(app.state.sessionmaker) == 1

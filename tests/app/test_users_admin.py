@@ -12,20 +12,24 @@ from app.services.users import create_user, set_active, set_password, set_role
 
 
 def test_users_create_and_log_in(db) -> None:
-    user = create_user(db, "deckhand.two", "long enough pw", ROLE_ANNOTATOR,
-                       display_name="Deck Two")
+    user = create_user(
+        db, "deckhand.two", "long enough pw", ROLE_ANNOTATOR, display_name="Deck Two"
+    )
     db.commit()
     assert authenticate(db, "deckhand.two", "long enough pw").id == user.id
     assert authenticate(db, "deckhand.two", "wrong password!") is None
     assert user.password_hash != "long enough pw"
 
 
-@pytest.mark.parametrize("name, password, role, message", [
-    ("", "long enough pw", ROLE_ANNOTATOR, "user name"),
-    ("has space", "long enough pw", ROLE_ANNOTATOR, "user name"),
-    ("ok", "short", ROLE_ANNOTATOR, "at least 10"),
-    ("ok", "long enough pw", "captain", "unknown role"),
-])
+@pytest.mark.parametrize(
+    "name, password, role, message",
+    [
+        ("", "long enough pw", ROLE_ANNOTATOR, "user name"),
+        ("has space", "long enough pw", ROLE_ANNOTATOR, "user name"),
+        ("ok", "short", ROLE_ANNOTATOR, "at least 10"),
+        ("ok", "long enough pw", "captain", "unknown role"),
+    ],
+)
 def test_users_create_rejects_bad_values(db, name, password, role, message) -> None:
     with pytest.raises(BadInput, match=message):
         create_user(db, name, password, role)
@@ -41,8 +45,14 @@ def test_users_disable_ends_sessions(login, db, people) -> None:
     assert me.client.get("/api/session").status_code == 200
     set_active(db, people.ann1, False)
     db.commit()
-    assert db.scalar(select(func.count()).select_from(UserSession)
-                     .where(UserSession.user_id == people.ann1.id)) == 0
+    assert (
+        db.scalar(
+            select(func.count())
+            .select_from(UserSession)
+            .where(UserSession.user_id == people.ann1.id)
+        )
+        == 0
+    )
     assert me.client.get("/api/session").status_code == 401
     set_active(db, people.ann1, True)
     db.commit()

@@ -17,11 +17,17 @@ MISSING = 987_654
 
 
 def _routes(cid: int) -> list[str]:
-    return [f"/api/corpora/{cid}", f"/api/corpora/{cid}/sentences",
-            f"/corpora/{cid}", f"/agreement?corpus={cid}", f"/agreement/log.csv?corpus={cid}",
-            f"/api/corpora/{cid}/search?pattern=tide&scope=sentences",
-            f"/search?corpus={cid}&pattern=tide&scope=sentences",
-            f"/api/grammars?corpus_id={cid}", f"/grammars?corpus={cid}"]
+    return [
+        f"/api/corpora/{cid}",
+        f"/api/corpora/{cid}/sentences",
+        f"/corpora/{cid}",
+        f"/agreement?corpus={cid}",
+        f"/agreement/log.csv?corpus={cid}",
+        f"/api/corpora/{cid}/search?pattern=tide&scope=sentences",
+        f"/search?corpus={cid}&pattern=tide&scope=sentences",
+        f"/api/grammars?corpus_id={cid}",
+        f"/grammars?corpus={cid}",
+    ]
 
 
 @pytest.fixture
@@ -48,11 +54,13 @@ def test_visibility_annotator_reads_only_corpora_they_are_assigned_in(login, two
         for url in _routes(cid):
             resp = who.client.get(url, headers={"Accept": "application/json"})
             assert resp.status_code == 404, url
-            absent = who.client.get(url.replace(str(cid), str(MISSING)),
-                                    headers={"Accept": "application/json"})
+            absent = who.client.get(
+                url.replace(str(cid), str(MISSING)), headers={"Accept": "application/json"}
+            )
             # the same answer as for a corpus that does not exist: nothing leaks
-            assert resp.json()["detail"].replace(str(cid), "N") == \
-                absent.json()["detail"].replace(str(MISSING), "N"), url
+            assert resp.json()["detail"].replace(str(cid), "N") == absent.json()["detail"].replace(
+                str(MISSING), "N"
+            ), url
     home = ann2.client.get("/").text
     assert "Tides" not in home and "Locks" not in home
 
@@ -71,8 +79,11 @@ def test_visibility_setting_opens_a_corpus_to_everyone(login, db, two) -> None:
     ann2 = login("ann2")
     assert ann2.client.get(f"/api/corpora/{locks.id}").status_code == 404
     admin = login("admin")
-    resp = admin.client.patch(f"/api/corpora/{locks.id}", headers=admin.headers(),
-                              json={"settings": {"visible_to_everyone": True}})
+    resp = admin.client.patch(
+        f"/api/corpora/{locks.id}",
+        headers=admin.headers(),
+        json={"settings": {"visible_to_everyone": True}},
+    )
     assert resp.status_code == 200, resp.text
     db.expire_all()
     assert db.get(Corpus, locks.id).options.visible_to_everyone is True

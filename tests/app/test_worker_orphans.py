@@ -45,8 +45,9 @@ def test_worker_orphans_exit_when_the_server_is_killed(settings, db, people) -> 
     server = LiveServer(settings, TREEWRIGHT_TRAINING_IN_PROCESS="false").start()
     try:
         adj = Client(server.url, "adj", PASSWORD)
-        resp = adj.http.post("/api/grammars", headers={"X-CSRF-Token": adj.csrf},
-                             json={"corpus_id": corpus.id})
+        resp = adj.http.post(
+            "/api/grammars", headers={"X-CSRF-Token": adj.csrf}, json={"corpus_id": corpus.id}
+        )
         assert resp.status_code == 202, resp.text
         assert server.proc is not None
         deadline = time.monotonic() + 120

@@ -48,9 +48,14 @@ from tests.app.conftest import (  # noqa: F401  (fixtures re-exported for browse
 from tests.app.live_server import LiveServer
 
 CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu",
-                 "--disable-background-networking", "--disable-component-update",
-                 "--no-first-run"]
+CHROMIUM_ARGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--no-first-run",
+]
 
 
 def _require_chromium() -> None:
@@ -77,8 +82,13 @@ def live_server(app, people, tmp_path: Path) -> Iterator[Live]:  # noqa: F811
     log = tmp_path / "server.log"
     server = LiveServer(app.state.settings, log=log).start()
     try:
-        yield Live(base_url=server.url, settings=app.state.settings,
-                   sessionmaker=app.state.sessionmaker, log=log, server=server)
+        yield Live(
+            base_url=server.url,
+            settings=app.state.settings,
+            sessionmaker=app.state.sessionmaker,
+            log=log,
+            server=server,
+        )
     finally:
         server.stop()
 
@@ -111,8 +121,9 @@ def browser() -> Iterator[Any]:
     from playwright.sync_api import sync_playwright
 
     with sync_playwright() as pw:
-        chromium = pw.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS,
-                                      headless=True)
+        chromium = pw.chromium.launch(
+            executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True
+        )
         yield chromium
         chromium.close()
 
@@ -123,8 +134,14 @@ def browser_page(browser) -> Iterator[Any]:
     page = context.new_page()
     page.set_default_timeout(15_000)
     errors: list[str] = []
-    page.on("console", lambda msg: errors.append(f"{msg.text} at {msg.location.get('url', '')}")
-            if msg.type == "error" else None)
+    page.on(
+        "console",
+        lambda msg: (
+            errors.append(f"{msg.text} at {msg.location.get('url', '')}")
+            if msg.type == "error"
+            else None
+        ),
+    )
     page.on("pageerror", lambda exc: errors.append(str(exc)))
     page.console_errors = errors
     yield page
@@ -139,8 +156,9 @@ def output_dir(request: pytest.FixtureRequest) -> Path:
     return folder
 
 
-def login_as(page: Any, base_url: str, username: str, password: str = PASSWORD,
-             next_path: str = "/") -> None:
+def login_as(
+    page: Any, base_url: str, username: str, password: str = PASSWORD, next_path: str = "/"
+) -> None:
     """Log in through the form; ends on ``next_path``."""
     page.goto(f"{base_url}/login?next={next_path}")
     page.fill("input[name=username]", username)

@@ -18,12 +18,16 @@ from tests.app.live_server import Client
 from tests.browser.conftest import login_as
 
 SENTENCE = "The port engine was stopped for an oil change ."
-START = ("(ROOT (S (NP (DT The) (NN port) (NN engine)) (VP (VBD was) (VP (VBN stopped) "
-         "(PP (IN for) (NP (DT an) (NN oil) (NN change))))) (. .)))")
+START = (
+    "(ROOT (S (NP (DT The) (NN port) (NN engine)) (VP (VBD was) (VP (VBN stopped) "
+    "(PP (IN for) (NP (DT an) (NN oil) (NN change))))) (. .)))"
+)
 AFTER_ADD = START.replace("(NN oil) (NN change)", "(NML (NN oil) (NN change))")
 AFTER_RELABEL = AFTER_ADD.replace("(S (NP (DT The)", "(S (NP-SBJ (DT The)")
-AFTER_DISSOLVE = ("(ROOT (S (NP-SBJ (DT The) (NN port) (NN engine)) (VP (VBD was) (VBN stopped) "
-                  "(PP (IN for) (NP (DT an) (NML (NN oil) (NN change))))) (. .)))")
+AFTER_DISSOLVE = (
+    "(ROOT (S (NP-SBJ (DT The) (NN port) (NN engine)) (VP (VBD was) (VBN stopped) "
+    "(PP (IN for) (NP (DT an) (NML (NN oil) (NN change))))) (. .)))"
+)
 PINNED = ("PP", 5, 9)
 
 LABELS = [*PTB_LABELS, "NP-SBJ", "NP-TMP", "PP-TMP"]
@@ -34,13 +38,13 @@ TAGS = [*PTB_TAGS, "ADD", "AFX", "GW", "XX", "-LSB-", "-RSB-"]
 @pytest.fixture
 def ferry(live_server) -> dict[str, Any]:
     with live_server.sessionmaker() as db:
-        corpus, sentences = make_corpus(db, [SENTENCE, "Check the bilge pump ."],
-                                        labels=LABELS, tags=TAGS)
+        corpus, sentences = make_corpus(
+            db, [SENTENCE, "Check the bilge pump ."], labels=LABELS, tags=TAGS
+        )
         ann1 = db.scalar(select(User).where(User.username == "ann1"))
         assign(db, sentences, ann1)
         install_grammar(db, corpus, gum_grammar_bytes())
-        return {"sentence_id": sentences[0].id, "next_id": sentences[1].id,
-                "user_id": ann1.id}
+        return {"sentence_id": sentences[0].id, "next_id": sentences[1].id, "user_id": ann1.id}
 
 
 def _open(page, live_server, ferry) -> None:
@@ -56,7 +60,8 @@ def shown_tree(page) -> str:
 
 def wait_tree(page, text: str) -> None:
     page.wait_for_function(
-        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree === t", arg=text)
+        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree === t", arg=text
+    )
 
 
 def wait_saved(page) -> None:
@@ -93,25 +98,31 @@ def answer_prompt(page, label: str) -> None:
 
 def stored(live_server, user_id: int, sentence_id: int) -> tuple[Annotation, list[Revision]]:
     with live_server.sessionmaker() as db:
-        ann = db.scalar(select(Annotation).where(Annotation.user_id == user_id,
-                                                 Annotation.sentence_id == sentence_id))
-        revs = db.scalars(select(Revision).where(Revision.annotation_id == ann.id)
-                          .order_by(Revision.number)).all()
+        ann = db.scalar(
+            select(Annotation).where(
+                Annotation.user_id == user_id, Annotation.sentence_id == sentence_id
+            )
+        )
+        revs = db.scalars(
+            select(Revision).where(Revision.annotation_id == ann.id).order_by(Revision.number)
+        ).all()
         return ann, list(revs)
 
 
 def _full_suggestion(page, sentence_id: int) -> dict:
     """The complete suggestion, fetched by the page's own session."""
-    return page.evaluate("async id => (await fetch(`/api/bench/${id}/suggestion`)).json()",
-                         sentence_id)
+    return page.evaluate(
+        "async id => (await fetch(`/api/bench/${id}/suggestion`)).json()", sentence_id
+    )
 
 
 def check_reading_differences(page, current: str) -> None:
     """Each reading tells how many brackets and tags differ from the tree on screen."""
     data = page.evaluate("() => JSON.parse(document.getElementById('bench-data').textContent)")
     data["suggestion"] = _full_suggestion(page, data["sentence"]["id"])
-    texts = page.eval_on_selector_all("#readings button.reading",
-                                      "els => els.map(e => e.textContent)")
+    texts = page.eval_on_selector_all(
+        "#readings button.reading", "els => els.map(e => e.textContent)"
+    )
     mine = read_tree(current)
     trees = [alt["tree"] for alt in data["suggestion"]["alternatives"]]
     if data["suggestion"]["consensus"]:
@@ -120,7 +131,8 @@ def check_reading_differences(page, current: str) -> None:
     for tree, text in zip(trees, texts, strict=True):
         theirs = read_tree(tree)
         d = len(set(constituents(theirs)) ^ set(constituents(mine))) + sum(
-            x != y for x, y in zip(pos_tags(theirs), pos_tags(mine), strict=True))
+            x != y for x, y in zip(pos_tags(theirs), pos_tags(mine), strict=True)
+        )
         want = "same as yours" if d == 0 else f"{d} difference"
         assert want in text, (text, d)
 
@@ -199,13 +211,15 @@ def test_bench_mouse_cycle(browser_page, live_server, ferry, output_dir) -> None
     page.click("[data-cmd='regrow']")
     page.wait_for_function(
         "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t",
-        arg=AFTER_DISSOLVE)
+        arg=AFTER_DISSOLVE,
+    )
     regrown = read_tree(shown_tree(page))
     assert words(regrown) == SENTENCE.split()
     assert PINNED in constituents(regrown)
     pinned_idx = constituents(regrown).index(PINNED)
     assert "tw-pinned" in page.get_attribute(
-        f"#tree-pane g.tw-phrase[data-index='{pinned_idx}']", "class")
+        f"#tree-pane g.tw-phrase[data-index='{pinned_idx}']", "class"
+    )
     wait_saved(page)
     _, revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])
     assert revs[-1].source == "reparse" and read_tree(revs[-1].tree) == regrown
@@ -297,13 +311,16 @@ def test_bench_keyboard_only_cycle(browser_page, live_server, ferry) -> None:
     kb.press("g")
     page.wait_for_function(
         "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t"
-        " || !document.getElementById('regrow-offer').hidden", arg=AFTER_DISSOLVE,
-        timeout=60_000)
+        " || !document.getElementById('regrow-offer').hidden",
+        arg=AFTER_DISSOLVE,
+        timeout=60_000,
+    )
     if shown_tree(page) == AFTER_DISSOLVE:  # offered (implausible): g takes it
         kb.press("g")
         page.wait_for_function(
             "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t",
-            arg=AFTER_DISSOLVE)
+            arg=AFTER_DISSOLVE,
+        )
     assert PINNED in constituents(read_tree(shown_tree(page)))
 
     kb.press("u")
@@ -311,7 +328,8 @@ def test_bench_keyboard_only_cycle(browser_page, live_server, ferry) -> None:
     kb.press("U")  # redo, then undo again: both directions work from the keyboard
     page.wait_for_function(
         "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t",
-        arg=AFTER_DISSOLVE)
+        arg=AFTER_DISSOLVE,
+    )
     kb.press("Control+z")
     wait_tree(page, AFTER_DISSOLVE)
 
@@ -334,8 +352,16 @@ def test_bench_help_overlay_lists_the_keys(browser_page, live_server, ferry) -> 
     page.keyboard.press("?")
     page.wait_for_selector("#help:not([hidden])")
     text = page.inner_text("#help")
-    for needle in ("add a bracket", "dissolve", "pin / unpin", "regrow", "undo", "redo",
-                   "hand in", "next unfinished"):
+    for needle in (
+        "add a bracket",
+        "dissolve",
+        "pin / unpin",
+        "regrow",
+        "undo",
+        "redo",
+        "hand in",
+        "next unfinished",
+    ):
         assert needle in text
     page.keyboard.press("Escape")
     page.wait_for_selector("#help", state="hidden")

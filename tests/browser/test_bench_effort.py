@@ -29,19 +29,19 @@ def test_bench_counts_actions_and_active_time(browser_page, live_server, deck) -
     page = browser_page
     page.add_init_script(SHIFTABLE_CLOCK)
     kb = page.keyboard
-    _open_at(page, live_server, deck, START)          # one "text" action
+    _open_at(page, live_server, deck, START)  # one "text" action
     page.focus("#tree-pane")
     _walk_to(page, START, "PP", 5, 8)
     kb.press("m")
     _walk_to(page, START, "NP", 3, 5)
-    kb.press("m")                                      # one "move"
+    kb.press("m")  # one "move"
     wait_tree(page, MOVED)
     wait_saved(page)
     page.evaluate("() => { window.__clockShift += 120000; }")  # two minutes away
-    kb.press("u")                                      # one "undo"
+    kb.press("u")  # one "undo"
     wait_tree(page, START)
     wait_saved(page)
-    kb.press("r")                                      # relabel the chosen node: one "relabel"
+    kb.press("r")  # relabel the chosen node: one "relabel"
     page.wait_for_selector("#prompt:not([hidden])")
     page.fill("#prompt-input", "NP-SBJ")
     page.press("#prompt-input", "Enter")

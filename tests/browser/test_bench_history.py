@@ -9,14 +9,17 @@ from tests.browser.test_bench_cycle import shown_tree, stored, wait_saved, wait_
 from tests.browser.test_bench_moves import MOVED, START, _open_at, _walk_to, deck  # noqa: F401
 
 # the PP taken away from MOVED (dissolved: its words move up into the object NP)
-DISSOLVED = ("(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
-             "(IN with) (NP (DT a) (NN torch)))) (. .)))")
+DISSOLVED = (
+    "(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
+    "(IN with) (NP (DT a) (NN torch)))) (. .)))"
+)
 
 
 def _history_items(page) -> list[list[str]]:
     return page.eval_on_selector_all(
-        "#history-list li", "els => els.map(e => [e.dataset.number, "
-        "e.querySelector('.what').textContent])")
+        "#history-list li",
+        "els => els.map(e => [e.dataset.number, e.querySelector('.what').textContent])",
+    )
 
 
 def _marked_in_history(page) -> int:
@@ -45,11 +48,11 @@ def _start_and_move(page, live_server, deck) -> None:  # noqa: F811
 def test_bench_history_lists_diffs_and_restores(browser_page, live_server, deck) -> None:  # noqa: F811
     page = browser_page
     kb = page.keyboard
-    _start_and_move(page, live_server, deck)                      # revisions 1 and 2
+    _start_and_move(page, live_server, deck)  # revisions 1 and 2
     _walk_to(page, MOVED, "PP", 5, 8)
     kb.press("x")
     wait_tree(page, DISSOLVED)
-    wait_saved(page)                                              # revision 3
+    wait_saved(page)  # revision 3
 
     # keyboard: v opens the list, newest first, each with what it changed
     kb.press("v")
@@ -62,7 +65,7 @@ def test_bench_history_lists_diffs_and_restores(browser_page, live_server, deck)
     assert "same as your current tree" in page.text_content("#history-diff")
     assert _marked_in_history(page) == 0
     kb.press("ArrowDown")
-    kb.press("ArrowDown")                                         # revision 1
+    kb.press("ArrowDown")  # revision 1
     assert "Revision 1 against your current tree" in page.text_content("#history-diff")
     assert _marked_in_history(page) == _expected_marks(START, DISSOLVED) == 2  # NP 4-5, PP
     kb.press("Enter")
@@ -70,8 +73,9 @@ def test_bench_history_lists_diffs_and_restores(browser_page, live_server, deck)
     wait_saved(page)
     _ann, revs = stored(live_server, deck["user_id"], deck["sentence_id"])
     assert [r.number for r in revs] == [1, 2, 3, 4]  # appended, nothing overwritten
-    assert [read_tree(r.tree) for r in revs] == [read_tree(t) for t in
-                                                  (START, MOVED, DISSOLVED, START)]
+    assert [read_tree(r.tree) for r in revs] == [
+        read_tree(t) for t in (START, MOVED, DISSOLVED, START)
+    ]
     assert revs[-1].source == "restore"
 
     # mouse: the History button, a click on revision 2, the Restore button
@@ -96,10 +100,10 @@ def test_bench_undo_survives_a_reload(browser_page, live_server, deck) -> None: 
     assert shown_tree(page) == MOVED
     assert page.is_enabled("[data-cmd='undo']")
     page.focus("#tree-pane")
-    kb.press("u")                       # the move, made before the reload, is undone
+    kb.press("u")  # the move, made before the reload, is undone
     wait_tree(page, START)
     wait_saved(page)
-    kb.press("U")                       # and redone
+    kb.press("U")  # and redone
     wait_tree(page, MOVED)
     wait_saved(page)
     _ann, revs = stored(live_server, deck["user_id"], deck["sentence_id"])

@@ -29,9 +29,17 @@ SENTENCES = [
     "Wrennick noticed a smell near the alternator .",
 ]
 # Playwright names of the keys the help draws
-KEY_NAMES = {"↑": "ArrowUp", "↓": "ArrowDown", "←": "ArrowLeft", "→": "ArrowRight",
-             "Esc": "Escape", "Del": "Delete", "⏎": "Enter", "Ctrl": "Control",
-             "1…9": "1"}
+KEY_NAMES = {
+    "↑": "ArrowUp",
+    "↓": "ArrowDown",
+    "←": "ArrowLeft",
+    "→": "ArrowRight",
+    "Esc": "Escape",
+    "Del": "Delete",
+    "⏎": "Enter",
+    "Ctrl": "Control",
+    "1…9": "1",
+}
 
 
 def _grammar_bytes(tmp_path: Path) -> bytes:
@@ -61,9 +69,12 @@ def _open(page, bench, index: int = 1) -> None:
     if page.locator("#save-state").count():
         page.wait_for_selector(SETTLED)
     page.goto(f"{bench['base']}/bench/{bench['ids'][index]}")
-    page.wait_for_function("() => document.getElementById('bench').dataset.ready === '1' && "
-                           "!document.getElementById('doubt-state').textContent"
-                           ".includes('being computed')", timeout=60_000)
+    page.wait_for_function(
+        "() => document.getElementById('bench').dataset.ready === '1' && "
+        "!document.getElementById('doubt-state').textContent"
+        ".includes('being computed')",
+        timeout=60_000,
+    )
     page.wait_for_selector(SETTLED)
     page.locator("#tree-pane").focus()
 
@@ -135,8 +146,10 @@ def message(page) -> str:
 
 
 def focused(page) -> str:
-    return page.evaluate("() => document.activeElement && (document.activeElement.id || "
-                         "document.activeElement.closest('[id]').id)")
+    return page.evaluate(
+        "() => document.activeElement && (document.activeElement.id || "
+        "document.activeElement.closest('[id]').id)"
+    )
 
 
 def inner_phrase(page) -> int:
@@ -249,8 +262,9 @@ def dissolve(page, keys, bench) -> None:
     before = tree(page)
     choose(page, "phrase", inner_phrase(page))
     page.keyboard.press(keys[0])
-    page.wait_for_function("t => document.querySelector('#tree-pane svg.tw-tree')"
-                           ".dataset.tree !== t", arg=before)
+    page.wait_for_function(
+        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t", arg=before
+    )
     assert tree(page).count("(") == before.count("(") - 1
 
 
@@ -278,8 +292,10 @@ def _edge(page, keys, bench, side: str) -> None:
         page.keyboard.press(key)
         after = info(page)
         # the chosen constituent now covers one word more or less on that side
-        nums = [list(map(int, re.findall(r"\d+", re.search(r"words? [\d–]+", t).group(0))))
-                for t in (before, after)]
+        nums = [
+            list(map(int, re.findall(r"\d+", re.search(r"words? [\d–]+", t).group(0))))
+            for t in (before, after)
+        ]
         b, a = nums[0], nums[1]
         b = b if len(b) == 2 else b * 2
         a = a if len(a) == 2 else a * 2
@@ -307,16 +323,20 @@ def pin(page, keys, bench) -> None:
     page.keyboard.press(keys[0])
     after = pins(page)
     assert after != before and {before.split(",")[0], after.split(",")[0]} == {
-        "Pinned: 0 constituents", "Pinned: 1 constituent"}
+        "Pinned: 0 constituents",
+        "Pinned: 1 constituent",
+    }
     page.keyboard.press(keys[0])
     assert pins(page) == before
 
 
 def regrow(page, keys, bench) -> None:
     page.keyboard.press(keys[0])
-    page.wait_for_function("() => /^Re-?pars/.test(document.getElementById('bench-message')"
-                           ".textContent) && !/…$/.test(document.getElementById("
-                           "'bench-message').textContent)")
+    page.wait_for_function(
+        "() => /^Re-?pars/.test(document.getElementById('bench-message')"
+        ".textContent) && !/…$/.test(document.getElementById("
+        "'bench-message').textContent)"
+    )
 
 
 def readings(page, keys, bench) -> None:
@@ -326,8 +346,9 @@ def readings(page, keys, bench) -> None:
 
 def reading_n(page, keys, bench) -> None:
     page.keyboard.press(keys[0])  # "1": the grammar's best tree
-    page.wait_for_function("() => document.getElementById('bench-message')"
-                           ".textContent.startsWith('Started from')")
+    page.wait_for_function(
+        "() => document.getElementById('bench-message').textContent.startsWith('Started from')"
+    )
     assert message(page).startswith("Started from reading 1")
 
 
@@ -368,6 +389,7 @@ def focus_on(element_id: str) -> Callable[..., None]:
         assert focused(page) == element_id
         page.keyboard.press("Escape")
         page.locator("#tree-pane").focus()
+
     return check
 
 
@@ -383,6 +405,7 @@ def goes_to(index_of: Callable[[dict[str, Any]], int]) -> Callable[..., None]:
         page.wait_for_selector(SETTLED)
         page.keyboard.press(keys[0])
         page.wait_for_url(f"**/bench/{index_of(bench)}")
+
     return check
 
 

@@ -29,7 +29,8 @@ def _sixty_word_tree():
 
 def _in_view(page, selector: str) -> dict:
     """Where the element is against the tree pane's visible box, and its font's drawn size."""
-    return page.evaluate("""sel => {
+    return page.evaluate(
+        """sel => {
         const pane = document.querySelector('#tree-pane').getBoundingClientRect();
         const el = document.querySelector(sel);
         if (!el) return {found: false};
@@ -39,11 +40,12 @@ def _in_view(page, selector: str) -> dict:
         const px = parseFloat(getComputedStyle(el).fontSize) * scale;
         return {found: true, px, inside: r.left >= pane.left - 0.5 && r.right <= pane.right + 0.5
                 && r.top >= pane.top - 0.5 && r.bottom <= pane.bottom + 0.5};
-    }""", selector)
+    }""",
+        selector,
+    )
 
 
-def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server,
-                                                   output_dir) -> None:
+def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server, output_dir) -> None:
     tree = _sixty_word_tree()
     text = write_tree(tree)
     tokens = words(tree)
@@ -78,8 +80,9 @@ def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server,
     page.keyboard.press("Home")
     seen_phrases, seen_words = set(), set()
     for _ in range(len(spans) + len(tokens)):
-        sel = page.eval_on_selector("#tree-pane g.tw-selected",
-                                    "e => [e.dataset.kind, Number(e.dataset.index)]")
+        sel = page.eval_on_selector(
+            "#tree-pane g.tw-selected", "e => [e.dataset.kind, Number(e.dataset.index)]"
+        )
         kind, index = sel
         label = _in_view(page, "#tree-pane g.tw-selected text.tw-label")
         assert label["inside"] and label["px"] >= LEGIBLE_PX, (kind, index, label)
@@ -97,26 +100,33 @@ def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server,
     box = page.locator("#overview svg").bounding_box()
     page.evaluate("() => { document.querySelector('#tree-pane').scrollLeft = 0; }")
     page.mouse.click(box["x"] + box["width"] - 3, box["y"] + box["height"] / 2)
-    assert page.evaluate("() => { const p = document.querySelector('#tree-pane');"
-                         " return p.scrollLeft + p.clientWidth >= p.scrollWidth - 2; }")
+    assert page.evaluate(
+        "() => { const p = document.querySelector('#tree-pane');"
+        " return p.scrollLeft + p.clientWidth >= p.scrollWidth - 2; }"
+    )
 
     # fit to width, and back to full size
     page.keyboard.press("w")
-    assert page.evaluate("() => { const p = document.querySelector('#tree-pane');"
-                         " return p.scrollWidth <= p.clientWidth; }")
+    assert page.evaluate(
+        "() => { const p = document.querySelector('#tree-pane');"
+        " return p.scrollWidth <= p.clientWidth; }"
+    )
     assert page.is_hidden("#overview")
     page.keyboard.press("0")
 
     # fold the widest phrase below the root: its words go into one line, the tree is unchanged
-    widest = max(range(1, len(spans)),
-                 key=lambda k: (spans[k][2] - spans[k][1] < 60, spans[k][2] - spans[k][1], -k))
+    widest = max(
+        range(1, len(spans)),
+        key=lambda k: (spans[k][2] - spans[k][1] < 60, spans[k][2] - spans[k][1], -k),
+    )
     first, last = spans[widest][1], spans[widest][2] - 1
     page.click(f"#tree-pane g.tw-phrase[data-index='{widest}']")
     page.keyboard.press("z")
     page.wait_for_selector("#tree-pane g.tw-collapsed")
     assert page.locator(f"#tree-pane g.tw-word[data-index='{first}']").count() == 0
     assert page.text_content("#tree-pane text.tw-summary") == (
-        f"{tokens[first]} … {tokens[last]} ({last - first + 1} words)")
+        f"{tokens[first]} … {tokens[last]} ({last - first + 1} words)"
+    )
     assert shown_tree(page) == text
     page.screenshot(path=str(output_dir / "bench-60-folded.png"))
     page.keyboard.press("z")
@@ -127,8 +137,11 @@ def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server,
     last_phrase = max(range(1, len(spans)), key=lambda k: (spans[k][1], k))
     page.evaluate("() => { document.querySelector('#tree-pane').scrollLeft = 0; }")
     label, a, b = spans[last_phrase]
-    page.evaluate("i => document.querySelector(`#tree-pane g.tw-phrase[data-index='${i}']`)"
-                  ".dispatchEvent(new MouseEvent('click', {bubbles: true}))", last_phrase)
+    page.evaluate(
+        "i => document.querySelector(`#tree-pane g.tw-phrase[data-index='${i}']`)"
+        ".dispatchEvent(new MouseEvent('click', {bubbles: true}))",
+        last_phrase,
+    )
     assert _in_view(page, "#tree-pane g.tw-selected text.tw-label")["inside"]
     page.keyboard.press("r")
     answer_prompt(page, "FRAG")
@@ -138,4 +151,4 @@ def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server,
     wait_saved(page)
     _ann, revs = stored(live_server, uid, sid)
     saved = constituents(read_tree(revs[-1].tree))
-    assert saved == [*spans[:last_phrase], ("FRAG", a, b), *spans[last_phrase + 1:]]
+    assert saved == [*spans[:last_phrase], ("FRAG", a, b), *spans[last_phrase + 1 :]]

@@ -42,29 +42,38 @@ def _open(page, base_url: str, user: str, sentence_id: int) -> str:
 
 
 @pytest.mark.parametrize("first_user", ["ann1", "ann2"])
-def test_bench_two_annotators_start_equal_across_a_retraining(browser, live_server,
-                                                              first_user) -> None:
+def test_bench_two_annotators_start_equal_across_a_retraining(
+    browser, live_server, first_user
+) -> None:
     with live_server.sessionmaker() as db:
-        texts = [" ".join(words(t)) for t in heldout_gum_trees(12, min_words=12,
-                                                                max_words=25)]
+        texts = [" ".join(words(t)) for t in heldout_gum_trees(12, min_words=12, max_words=25)]
         corpus, sentences = make_corpus(db, texts, labels=[], tags=[])
         users = {u: db.scalar(select(User).where(User.username == u)) for u in ("ann1", "ann2")}
         assign(db, sentences, *users.values())
         v1 = install_grammar(db, corpus, gum_grammar_bytes())
-        v2 = GrammarVersion(corpus_id=corpus.id, number=2, status=v1.status,
-                            data=gum_grammar_bytes(20), training_size=0)
+        v2 = GrammarVersion(
+            corpus_id=corpus.id,
+            number=2,
+            status=v1.status,
+            data=gum_grammar_bytes(20),
+            training_size=0,
+        )
         db.add(v2)
         db.commit()
         g1, g2 = grammar_for(db, v1.id), grammar_for(db, v2.id)
         # a sentence the two grammars bracket differently, so a start from the wrong one shows
-        target = next(s for s in sentences
-                      if write_tree(parse(g1, s.tokens, posteriors=True).consensus)
-                      != write_tree(parse(g2, s.tokens, posteriors=True).consensus))
+        target = next(
+            s
+            for s in sentences
+            if write_tree(parse(g1, s.tokens, posteriors=True).consensus)
+            != write_tree(parse(g2, s.tokens, posteriors=True).consensus)
+        )
         sid, v1_id, v2_id, corpus_id = target.id, v1.id, v2.id, corpus.id
         second_user = "ann2" if first_user == "ann1" else "ann1"
         first_id, second_id = users[first_user].id, users[second_user].id
-    pages = [browser.new_context(viewport={"width": 1400, "height": 900}).new_page()
-             for _ in range(2)]
+    pages = [
+        browser.new_context(viewport={"width": 1400, "height": 900}).new_page() for _ in range(2)
+    ]
     try:
         first_tree = _open(pages[0], live_server.base_url, first_user, sid)
         with live_server.sessionmaker() as db:  # a retraining made version 2 active
@@ -90,8 +99,7 @@ def _say(page) -> str:
     return page.text_content("#bench-message") or ""
 
 
-def test_bench_pin_relabel_regrow_keeps_everything_said(browser_page, live_server,
-                                                       ferry) -> None:  # noqa: F811
+def test_bench_pin_relabel_regrow_keeps_everything_said(browser_page, live_server, ferry) -> None:  # noqa: F811
     page = browser_page
     _open(page, live_server.base_url, "ann1", ferry["sentence_id"])
     page.fill("#tree-text", START)
@@ -115,14 +123,18 @@ def test_bench_pin_relabel_regrow_keeps_everything_said(browser_page, live_serve
     wait_saved(page)
     before = shown_tree(page)
     page.keyboard.press("g")
-    page.wait_for_function("() => /Re-parsed/.test("
-                           "document.getElementById('bench-message').textContent) || "
-                           "!document.getElementById('regrow-offer').hidden", timeout=60_000)
+    page.wait_for_function(
+        "() => /Re-parsed/.test("
+        "document.getElementById('bench-message').textContent) || "
+        "!document.getElementById('regrow-offer').hidden",
+        timeout=60_000,
+    )
     if page.is_visible("#regrow-offer"):  # offered: it says what it would do; g takes it
         assert "Re-parsed with grammar version 1 around" in page.text_content("#regrow-offer")
         page.keyboard.press("g")
-        page.wait_for_function("() => /Taken/.test("
-                               "document.getElementById('bench-message').textContent)")
+        page.wait_for_function(
+            "() => /Taken/.test(document.getElementById('bench-message').textContent)"
+        )
     message = _say(page)
     # the page says what the re-parse did: around what, and what changed (or nothing)
     assert message.startswith("Re-parsed with grammar version 1 around 1 bracket, "), message
@@ -157,13 +169,17 @@ def test_bench_doubt_marks_leave_the_annotators_own_work(browser_page, live_serv
     start = _open(page, live_server.base_url, "ann1", ferry["sentence_id"])
     # relabel a multi-word NP to ADJP: the grammar gives that almost nothing, but it is the
     # annotator's now, so it carries no doubt mark
-    target = next((lab, a, b) for lab, a, b in constituents(read_tree(start))
-                  if strip_label(lab) == "NP" and b - a > 1)
+    target = next(
+        (lab, a, b)
+        for lab, a, b in constituents(read_tree(start))
+        if strip_label(lab) == "NP" and b - a > 1
+    )
     click_phrase(page, start, *target)
     page.keyboard.press("r")
     answer_prompt(page, "ADJP")
-    page.wait_for_function("t => document.querySelector('#tree-pane svg.tw-tree')"
-                           ".dataset.tree !== t", arg=start)
+    page.wait_for_function(
+        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t", arg=start
+    )
     mine = shown_tree(page)
     wait_saved(page)
     page.wait_for_timeout(1500)  # the grammar is asked again after the edit
@@ -177,12 +193,16 @@ def test_bench_doubt_marks_leave_the_annotators_own_work(browser_page, live_serv
             headers: {"Content-Type": "application/json", "X-CSRF-Token": csrf},
             body: JSON.stringify({pins, tree, k: 3})});
           return r.json();
-        }""", [ferry["sentence_id"], pins, mine])
+        }""",
+        [ferry["sentence_id"], pins, mine],
+    )
     post = {(lab, a, b): p for lab, a, b, p in body["posteriors"]}
     spans = constituents(read_tree(mine))
     drawn = page.eval_on_selector_all(
-        "#tree-pane g.tw-node", "els => els.map(e => [e.dataset.kind, Number(e.dataset.index),"
-        " e.querySelectorAll('circle.tw-dot').length, e.getAttribute('class')])")
+        "#tree-pane g.tw-node",
+        "els => els.map(e => [e.dataset.kind, Number(e.dataset.index),"
+        " e.querySelectorAll('circle.tw-dot').length, e.getAttribute('class')])",
+    )
     yours = {tuple(x) for x in pins["edited_spans"]} | {tuple(x) for x in pins["spans"]}
     tag_marks = 0
     tags = pos_tags(read_tree(mine))
@@ -203,7 +223,8 @@ def test_bench_doubt_marks_leave_the_annotators_own_work(browser_page, live_serv
     at = next(i for kind, i, _, _ in drawn if kind == "phrase" and spans[i] == adjp)
     assert next(d for kind, i, d, _ in drawn if kind == "phrase" and i == at) == 0
     # before, the marks came from the grammar's posteriors without what was said: two dots
-    free = page.evaluate("async id => (await fetch(`/api/bench/${id}/suggestion`)).json()",
-                         ferry["sentence_id"])
+    free = page.evaluate(
+        "async id => (await fetch(`/api/bench/${id}/suggestion`)).json()", ferry["sentence_id"]
+    )
     assert {(lab, a, b): p for lab, a, b, p in free["posteriors"]}.get(adjp, 0.0) < 0.2
     assert tag_marks > 0

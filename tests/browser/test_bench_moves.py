@@ -16,14 +16,20 @@ from tests.browser.conftest import login_as
 from tests.browser.test_bench_cycle import LABELS, TAGS, shown_tree, stored, wait_saved, wait_tree
 
 SENTENCE = "The mate checked the winch with a torch ."
-START = ("(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch)) "
-         "(PP (IN with) (NP (DT a) (NN torch)))) (. .)))")
+START = (
+    "(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch)) "
+    "(PP (IN with) (NP (DT a) (NN torch)))) (. .)))"
+)
 # the PP goes under the object NP
-MOVED = ("(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
-         "(PP (IN with) (NP (DT a) (NN torch))))) (. .)))")
+MOVED = (
+    "(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
+    "(PP (IN with) (NP (DT a) (NN torch))))) (. .)))"
+)
 # and the full stop out of S, up to ROOT
-STOP_UP = ("(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
-           "(PP (IN with) (NP (DT a) (NN torch)))))) (. .))")
+STOP_UP = (
+    "(ROOT (S (NP (DT The) (NN mate)) (VP (VBD checked) (NP (DT the) (NN winch) "
+    "(PP (IN with) (NP (DT a) (NN torch)))))) (. .))"
+)
 
 
 @pytest.fixture
@@ -71,8 +77,9 @@ def test_bench_move_by_dragging_a_label(browser_page, live_server, deck) -> None
     page.mouse.down()
     page.mouse.move(pp[0] + 30, pp[1] - 30, steps=4)
     # while dragging, only the order-keeping targets are marked: S and the object NP
-    offered = page.eval_on_selector_all("#tree-pane g.tw-drop-ok",
-                                        "els => els.map(e => Number(e.dataset.index))")
+    offered = page.eval_on_selector_all(
+        "#tree-pane g.tw-drop-ok", "els => els.map(e => Number(e.dataset.index))"
+    )
     spans = constituents(read_tree(START))
     assert sorted(spans[i] for i in offered) == [("NP", 3, 5), ("S", 0, 9)]
     page.mouse.move(*_label_centre(page, START, "NP", 3, 5), steps=6)

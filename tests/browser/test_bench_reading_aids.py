@@ -14,8 +14,17 @@ from tests.browser.conftest import login_as
 from tests.browser.test_bench_cycle import LABELS, TAGS, shown_tree
 
 SENTENCE = "The mate greased the capstan with zorblefat before the crossing ."
-FAMILY = {"NP": "noun", "VP": "verb", "S": "clause", "PP": "modifier", "SBAR": "clause",
-          "ADVP": "modifier", "ADJP": "modifier", "ROOT": "other", "FRAG": "other"}
+FAMILY = {
+    "NP": "noun",
+    "VP": "verb",
+    "S": "clause",
+    "PP": "modifier",
+    "SBAR": "clause",
+    "ADVP": "modifier",
+    "ADJP": "modifier",
+    "ROOT": "other",
+    "FRAG": "other",
+}
 
 
 def test_bench_families_and_unseen_words(browser_page, live_server, output_dir) -> None:
@@ -33,7 +42,8 @@ def test_bench_families_and_unseen_words(browser_page, live_server, output_dir) 
     # every phrase carries its family's class
     drawn = page.eval_on_selector_all(
         "#tree-pane g.tw-phrase",
-        "els => els.map(e => [Number(e.dataset.index), e.getAttribute('class')])")
+        "els => els.map(e => [Number(e.dataset.index), e.getAttribute('class')])",
+    )
     spans = constituents(read_tree(shown_tree(page)))
     families = set()
     for index, classes in drawn:
@@ -44,9 +54,12 @@ def test_bench_families_and_unseen_words(browser_page, live_server, output_dir) 
     assert {"noun", "verb", "clause"} <= families
 
     def fill_and_corner(index: int) -> list[str]:
-        return page.evaluate("""i => { const r = document.querySelector(
+        return page.evaluate(
+            """i => { const r = document.querySelector(
             `#tree-pane g.tw-phrase[data-index="${i}"] rect.tw-box`);
-            const cs = getComputedStyle(r); return [cs.fill, cs.rx]; }""", index)
+            const cs = getComputedStyle(r); return [cs.fill, cs.rx]; }""",
+            index,
+        )
 
     np_index = next(i for i, (lab, _a, _b) in enumerate(spans) if strip_label(lab) == "NP")
     vp_index = next(i for i, (lab, _a, _b) in enumerate(spans) if strip_label(lab) == "VP")
@@ -66,7 +79,8 @@ def test_bench_families_and_unseen_words(browser_page, live_server, output_dir) 
     # the unseen words: exactly those outside the grammar's training vocabulary
     vocab = set(grammar_from_bytes(grammar_bytes).vocab)
     want = [i for i, w in enumerate(SENTENCE.split()) if w not in vocab]
-    marked = page.eval_on_selector_all("#tree-pane g.tw-word.tw-unseen",
-                                       "els => els.map(e => Number(e.dataset.index))")
+    marked = page.eval_on_selector_all(
+        "#tree-pane g.tw-word.tw-unseen", "els => els.map(e => Number(e.dataset.index))"
+    )
     assert marked == want
     assert 6 in want and 0 not in want  # the invented word is unseen, "The" is not

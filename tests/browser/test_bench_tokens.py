@@ -33,8 +33,9 @@ def _head(live_server, username: str) -> Revision:
     with live_server.sessionmaker() as db:
         user = db.scalar(select(User).where(User.username == username))
         ann = db.scalar(select(Annotation).where(Annotation.user_id == user.id))
-        return db.scalar(select(Revision).where(Revision.annotation_id == ann.id,
-                                                Revision.number == ann.head))
+        return db.scalar(
+            select(Revision).where(Revision.annotation_id == ann.id, Revision.number == ann.head)
+        )
 
 
 def _sentence(live_server) -> tuple[list[str], int, list[list[str]]]:
@@ -117,8 +118,9 @@ def test_bench_fix_tokens_by_keyboard_and_mouse(browser, browser_page, live_serv
     head2 = _head(live_server, "ann2")
     assert (head2.tree, head2.source, head2.token_version) == (SPLIT, "tokens", 4)
     with live_server.sessionmaker() as db:
-        first = db.scalars(select(Revision).where(Revision.number == 1,
-                                                  Revision.user_id == head2.user_id)).one()
+        first = db.scalars(
+            select(Revision).where(Revision.number == 1, Revision.user_id == head2.user_id)
+        ).one()
         assert (first.tree, first.token_version) == (TREE, 1)  # kept as made
     other.close()
 

@@ -59,10 +59,13 @@ def test_bench_js_writer_matches_server_on_gum_trees(js) -> None:
 
 
 def test_bench_js_reader_locates_errors_like_the_server(js) -> None:
-    got = js.evaluate("""texts => texts.map(t => {
+    got = js.evaluate(
+        """texts => texts.map(t => {
         try { T.readTree(t); return null; }
         catch (e) { return e instanceof T.BracketError ? [e.line, e.column] : String(e); }
-    })""", MALFORMED)
+    })""",
+        MALFORMED,
+    )
     for text, where in zip(MALFORMED, got, strict=True):
         with pytest.raises(BracketSyntaxError) as err:
             read_tree(text)
@@ -70,24 +73,35 @@ def test_bench_js_reader_locates_errors_like_the_server(js) -> None:
 
 
 def test_bench_js_edits_equal_the_python_rebuild(js, rng) -> None:
-    trees = [t for t in read_trees(gum_files()[7].read_text("utf-8"))
-             if len(constituents(t)) > 3][:60]
+    trees = [t for t in read_trees(gum_files()[7].read_text("utf-8")) if len(constituents(t)) > 3][
+        :60
+    ]
     cases = []
     for tree in trees:
         spans = constituents(tree)
         k = rng.randrange(1, len(spans))
-        kept = spans[:k] + spans[k + 1:]
+        kept = spans[:k] + spans[k + 1 :]
         removed = tree_from_spans(words(tree), pos_tags(tree), kept, root=None)
         label, s, e = spans[k]
-        relabelled = tree_from_spans(words(tree), pos_tags(tree),
-                                     spans[:k] + [("ZZ", s, e)] + spans[k + 1:], root=None)
-        cases.append({"text": write_tree(tree), "k": k, "removed": write_tree(removed),
-                      "relabelled": write_tree(relabelled)})
-    results = js.evaluate("""cases => cases.map(c => {
+        relabelled = tree_from_spans(
+            words(tree), pos_tags(tree), spans[:k] + [("ZZ", s, e)] + spans[k + 1 :], root=None
+        )
+        cases.append(
+            {
+                "text": write_tree(tree),
+                "k": k,
+                "removed": write_tree(removed),
+                "relabelled": write_tree(relabelled),
+            }
+        )
+    results = js.evaluate(
+        """cases => cases.map(c => {
         const t = T.readTree(c.text);
         return [T.writeTree(T.removeConstituent(t, c.k)), T.writeTree(T.relabel(t, c.k, "ZZ")),
                 T.writeTree(t)];
-    })""", cases)
+    })""",
+        cases,
+    )
     for case, (removed, relabelled, untouched) in zip(cases, results, strict=True):
         assert removed == case["removed"]
         assert relabelled == case["relabelled"]
@@ -96,7 +110,8 @@ def test_bench_js_edits_equal_the_python_rebuild(js, rng) -> None:
 
 def test_bench_js_add_and_move_edges(js) -> None:
     text = "(ROOT (S (NP (DT the) (NN dog)) (VP (VBD saw) (NP (DT a) (NN cat))) (. .)))"
-    out = js.evaluate("""text => {
+    out = js.evaluate(
+        """text => {
         const t = T.readTree(text);
         const attempt = (f) => { try { return T.writeTree(f().tree || f()); }
                                  catch (e) { return e.name + ": " + e.message; } };
@@ -114,24 +129,32 @@ def test_bench_js_add_and_move_edges(js) -> None:
             tag: attempt(() => T.setTag(t, 1, "NNS")),
             badLabel: attempt(() => T.relabel(t, 2, "N P")),
         };
-    }""", text)
+    }""",
+        text,
+    )
     assert out["addInner"].startswith("Edit") and "already NP" in out["addInner"]
     assert out["addSame"].startswith("EditError") and "already VP" in out["addSame"]
-    assert out["addAbove"] == ("(ROOT (S (NP (DT the) (NN dog)) (S (VP (VBD saw) (NP (DT a) "
-                               "(NN cat)))) (. .)))")
+    assert out["addAbove"] == (
+        "(ROOT (S (NP (DT the) (NN dog)) (S (VP (VBD saw) (NP (DT a) (NN cat)))) (. .)))"
+    )
     assert out["addCross"].startswith("EditError") and "cross" in out["addCross"]
-    assert out["addWhole"] == ("(ROOT (FRAG (S (NP (DT the) (NN dog)) (VP (VBD saw) (NP (DT a) "
-                               "(NN cat))) (. .))))")
-    assert out["addWord"] == ("(ROOT (S (NP (DT the) (NN dog)) (VP (VP (VBD saw)) (NP (DT a) "
-                              "(NN cat))) (. .)))")
-    assert out["growRight"] == ("(ROOT (S (NP (DT the) (NN dog)) (VP (VBD saw) (NP (DT a) "
-                                "(NN cat)) (. .))))")
-    assert out["shrinkLeft"] == ("(ROOT (S (NP (DT the) (NN dog)) (VBD saw) (VP (NP (DT a) "
-                                 "(NN cat))) (. .)))")
+    assert out["addWhole"] == (
+        "(ROOT (FRAG (S (NP (DT the) (NN dog)) (VP (VBD saw) (NP (DT a) (NN cat))) (. .))))"
+    )
+    assert out["addWord"] == (
+        "(ROOT (S (NP (DT the) (NN dog)) (VP (VP (VBD saw)) (NP (DT a) (NN cat))) (. .)))"
+    )
+    assert out["growRight"] == (
+        "(ROOT (S (NP (DT the) (NN dog)) (VP (VBD saw) (NP (DT a) (NN cat)) (. .))))"
+    )
+    assert out["shrinkLeft"] == (
+        "(ROOT (S (NP (DT the) (NN dog)) (VBD saw) (VP (NP (DT a) (NN cat))) (. .)))"
+    )
     assert out["growPastParent"].startswith("EditError") and "cross" in out["growPastParent"]
     assert out["crossSibling"].startswith("EditError") and "VP" in out["crossSibling"]
-    assert out["tag"] == ("(ROOT (S (NP (DT the) (NNS dog)) (VP (VBD saw) (NP (DT a) "
-                          "(NN cat))) (. .)))")
+    assert out["tag"] == (
+        "(ROOT (S (NP (DT the) (NNS dog)) (VP (VBD saw) (NP (DT a) (NN cat))) (. .)))"
+    )
     assert out["badLabel"].startswith("EditError")
 
 
@@ -212,14 +235,21 @@ def phrases_in(node):
 def test_bench_js_reattach_offers_exactly_the_order_keeping_moves(js, rng) -> None:
     """On GUM trees, the moves the Bench offers for a phrase are exactly those an exhaustive
     search finds, and each gives the same tree."""
-    trees = [t for t in read_trees(gum_files()[3].read_text("utf-8"))
-             if 4 < len(constituents(t)) < 40][:40]
+    trees = [
+        t for t in read_trees(gum_files()[3].read_text("utf-8")) if 4 < len(constituents(t)) < 40
+    ][:40]
     cases = []
     for tree in trees:
         k = rng.randrange(1, len(constituents(tree)))
-        cases.append({"text": write_tree(tree), "k": k,
-                      "want": {str(t): v for t, v in _brute_force_moves(tree, k).items()}})
-    got = js.evaluate("""cases => cases.map(c => {
+        cases.append(
+            {
+                "text": write_tree(tree),
+                "k": k,
+                "want": {str(t): v for t, v in _brute_force_moves(tree, k).items()},
+            }
+        )
+    got = js.evaluate(
+        """cases => cases.map(c => {
         const t = T.readTree(c.text);
         const ref = {kind: "phrase", index: c.k};
         const out = {};
@@ -231,7 +261,9 @@ def test_bench_js_reattach_offers_exactly_the_order_keeping_moves(js, rng) -> No
             out[String(target)] = T.writeTree(r.tree);
         }
         return out;
-    })""", cases)
+    })""",
+        cases,
+    )
     offered = 0
     for case, moves in zip(cases, got, strict=True):
         assert moves == case["want"], case["text"]
@@ -240,9 +272,12 @@ def test_bench_js_reattach_offers_exactly_the_order_keeping_moves(js, rng) -> No
 
 
 def test_bench_js_reattach_refusals_say_why(js) -> None:
-    text = ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN with) "
-            "(NP (DT a) (NN scope)))) (. .)))")
-    out = js.evaluate("""text => {
+    text = (
+        "(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN with) "
+        "(NP (DT a) (NN scope)))) (. .)))"
+    )
+    out = js.evaluate(
+        """text => {
         const t = T.readTree(text);
         const pp = T.spansOf(t).findIndex(s => s.label === "PP");
         const np = T.spansOf(t).findIndex(s => s.label === "NP" && s.start === 2);
@@ -258,11 +293,17 @@ def test_bench_js_reattach_refusals_say_why(js) -> None:
             ok: tryIt({kind: "phrase", index: pp}, np),
             word: tryIt({kind: "tag", index: 7}, 0),
         };
-    }""", text)
+    }""",
+        text,
+    )
     assert out["middle"].startswith("EditError") and "order of the words" in out["middle"]
     assert out["far"].startswith("EditError") and "does not reach" in out["far"]
     assert out["pinned"].startswith("EditError") and "pinned" in out["pinned"]
-    assert out["ok"] == ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man) (PP (IN with) "
-                         "(NP (DT a) (NN scope))))) (. .)))")
-    assert out["word"] == ("(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN "
-                           "with) (NP (DT a) (NN scope))))) (. .))")
+    assert out["ok"] == (
+        "(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man) (PP (IN with) "
+        "(NP (DT a) (NN scope))))) (. .)))"
+    )
+    assert out["word"] == (
+        "(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN "
+        "with) (NP (DT a) (NN scope))))) (. .))"
+    )

@@ -20,22 +20,23 @@ from tests.app.review_helpers import (
 from tests.browser.conftest import login_as
 
 
-def test_train_now_runs_in_the_background_and_the_page_follows(live_server, browser_page, db,
-                                                               people, output_dir):
+def test_train_now_runs_in_the_background_and_the_page_follows(
+    live_server, browser_page, db, people, output_dir
+):
     corpus = import_demo_gold(db, settings={"retrain_every": 0})
     # the import queued version 1 before the setting changed; the server's runner trains it
     page = browser_page
     login_as(page, live_server.base_url, "adj", next_path=f"/grammars?corpus={corpus.id}")
-    page.wait_for_selector("tr[data-version] [data-field=status]:text('ready')",
-                           timeout=120_000)
+    page.wait_for_selector("tr[data-version] [data-field=status]:text('ready')", timeout=120_000)
     page.wait_for_selector("#gv-train-now:not([disabled])", timeout=120_000)
     page.click("#gv-train-now")
     page.wait_for_selector(".notice:has-text('Version 2 is queued')")
     second = db.scalar(select(GrammarVersion.id).where(GrammarVersion.number == 2))
     # the polling script reloads the page once version 2 is done: the server then draws it
     # as the active version, finished
-    page.wait_for_selector(f"tr.gv-is-active[data-version='{second}'][data-progress='1.0']",
-                           timeout=120_000)
+    page.wait_for_selector(
+        f"tr.gv-is-active[data-version='{second}'][data-progress='1.0']", timeout=120_000
+    )
     page.screenshot(path=str(output_dir / "grammars.png"), full_page=True)
     db.expire_all()
     versions = db.scalars(select(GrammarVersion).order_by(GrammarVersion.number)).all()
@@ -46,16 +47,19 @@ def test_train_now_runs_in_the_background_and_the_page_follows(live_server, brow
     assert [e for e in page.console_errors if "favicon.ico" not in e] == []
 
 
-def test_agreement_page_draws_its_charts(live_server, browser_page, db, people, login,
-                                         output_dir):
-    corpus, sentences = make_corpus(db, [SENTENCE, SENTENCE.replace("dawn", "noon")],
-                                    labels=LABELS, tags=TAGS)
+def test_agreement_page_draws_its_charts(live_server, browser_page, db, people, login, output_dir):
+    corpus, sentences = make_corpus(
+        db, [SENTENCE, SENTENCE.replace("dawn", "noon")], labels=LABELS, tags=TAGS
+    )
     assign(db, sentences, people.ann1, people.ann2)
     a1, a2 = login("ann1"), login("ann2")
     for s, word in zip(sentences, ("dawn", "noon"), strict=True):
         submit_tree(a1, s.id, TREE_A.replace("dawn", word))
-        submit_tree(a2, s.id, TREE_B.replace("dawn", word) if word == "dawn"
-                    else TREE_A.replace("dawn", word))
+        submit_tree(
+            a2,
+            s.id,
+            TREE_B.replace("dawn", word) if word == "dawn" else TREE_A.replace("dawn", word),
+        )
     page = browser_page
     login_as(page, live_server.base_url, "ann1", next_path=f"/agreement?corpus={corpus.id}")
     assert page.inner_text("#ag-f1") == "0.880"

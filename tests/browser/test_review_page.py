@@ -32,12 +32,16 @@ def _errors(page) -> list[str]:  # type: ignore[no-untyped-def]
 
 
 def _annotation_of(db, sentence_id: int, user_id: int) -> int:  # type: ignore[no-untyped-def]
-    return db.scalar(select(Annotation.id).where(Annotation.sentence_id == sentence_id,
-                                                 Annotation.user_id == user_id))
+    return db.scalar(
+        select(Annotation.id).where(
+            Annotation.sentence_id == sentence_id, Annotation.user_id == user_id
+        )
+    )
 
 
-def test_review_page_shows_trees_and_settles_by_mouse(live_server, browser_page, db, people,
-                                                      login, output_dir):
+def test_review_page_shows_trees_and_settles_by_mouse(
+    live_server, browser_page, db, people, login, output_dir
+):
     first, _ = _two_disagreements(db, people, login)
     page = browser_page
     login_as(page, live_server.base_url, "adj", next_path=f"/review/{first.id}")
@@ -113,8 +117,7 @@ def test_settle_and_reopen_by_keyboard(live_server, browser_page, db, people, lo
     page.keyboard.press("Control+Enter")
     page.wait_for_selector("#rv-reopen")
     db.expire_all()
-    golds = db.scalars(select(Gold).where(Gold.sentence_id == second.id)
-                       .order_by(Gold.id)).all()
+    golds = db.scalars(select(Gold).where(Gold.sentence_id == second.id).order_by(Gold.id)).all()
     assert len(golds) == 2 and golds[0].retired_at is not None and golds[1].retired_at is None
     assert golds[1].tree == write_tree(read_tree(edited))
     assert page.locator(".rv-history-list li").count() == 2

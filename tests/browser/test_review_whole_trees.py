@@ -14,9 +14,11 @@ from tests.app.bench_helpers import assign, make_corpus
 from tests.app.review_helpers import submit_tree
 from tests.browser.conftest import login_as
 
-WORDS = ("the mate checked the winch and the capstan while the deckhand coiled the ropes "
-         "near the bow and the engineer drained the gearbox before the evening crossing "
-         "to the island harbour beyond the old breakwater").split()
+WORDS = (
+    "the mate checked the winch and the capstan while the deckhand coiled the ropes "
+    "near the bow and the engineer drained the gearbox before the evening crossing "
+    "to the island harbour beyond the old breakwater"
+).split()
 
 
 def _pairs(words: list[str]) -> list[str]:
@@ -44,8 +46,9 @@ def long_review(live_server, db, people, login):  # type: ignore[no-untyped-def]
 
 
 @pytest.mark.browser
-def test_long_trees_show_whole_with_the_difference_marked(live_server, browser_page,
-                                                          long_review, output_dir):
+def test_long_trees_show_whole_with_the_difference_marked(
+    live_server, browser_page, long_review, output_dir
+):
     s, a, b = long_review
     page = browser_page
     page.set_viewport_size({"width": 1440, "height": 900})
@@ -69,11 +72,15 @@ def test_long_trees_show_whole_with_the_difference_marked(live_server, browser_p
     assert len(set(round(w) for w in geometry["widths"])) == 1  # one zoom: words line up
     if geometry["scrollWidth"] > geometry["boxWidth"]:
         assert zoom == pytest.approx(11 / 13, abs=1e-3)
-        before = page.evaluate("() => [...document.querySelectorAll('.rv-tree svg')]"
-                               ".map(s => s.getBoundingClientRect().left)")
+        before = page.evaluate(
+            "() => [...document.querySelectorAll('.rv-tree svg')]"
+            ".map(s => s.getBoundingClientRect().left)"
+        )
         page.evaluate("() => { document.querySelector('.rv-trees').scrollLeft = 300; }")
-        after = page.evaluate("() => [...document.querySelectorAll('.rv-tree svg')]"
-                              ".map(s => s.getBoundingClientRect().left)")
+        after = page.evaluate(
+            "() => [...document.querySelectorAll('.rv-tree svg')]"
+            ".map(s => s.getBoundingClientRect().left)"
+        )
         assert [x - y for x, y in zip(before, after, strict=True)] == [300, 300]
     else:
         assert max(geometry["widths"]) <= geometry["boxWidth"]
@@ -90,16 +97,16 @@ def test_long_trees_show_whole_with_the_difference_marked(live_server, browser_p
 
 
 @pytest.mark.browser
-def test_the_result_is_edited_as_a_tree_and_settled(live_server, browser_page, long_review,
-                                                    db):
+def test_the_result_is_edited_as_a_tree_and_settled(live_server, browser_page, long_review, db):
     s, a, b = long_review
     page = browser_page
     login_as(page, live_server.base_url, "adj", next_path=f"/review/{s.id}")
     page.click("button[data-take='B']")
     page.wait_for_selector("#rv-check.rv-ok")
     # choose B's big last NP in the result's drawing and dissolve it: the result becomes A
-    spans = [(lab, st, en) for lab, st, en in
-             [(t.label(), *span) for t, span in _spans(read_tree(b))]]
+    spans = [
+        (lab, st, en) for lab, st, en in [(t.label(), *span) for t, span in _spans(read_tree(b))]
+    ]
     big = next(i for i, (lab, st, en) in enumerate(spans) if en - st == 4)
     page.click(f"#rv-preview g.tw-phrase[data-index='{big}'] text")
     page.wait_for_selector(f"#rv-preview g.tw-phrase.tw-selected[data-index='{big}']")

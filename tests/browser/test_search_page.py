@@ -10,8 +10,9 @@ from tests.app.quality_helpers import import_gold
 from tests.browser.conftest import login_as
 
 
-def test_search_page_draws_the_tree_with_the_match_marked(live_server, browser_page, db,
-                                                          people, output_dir):
+def test_search_page_draws_the_tree_with_the_match_marked(
+    live_server, browser_page, db, people, output_dir
+):
     corpus, _ = import_gold(db)
     # corpora are read by their members only; ann1 has no sentence of this one assigned
     corpus.settings = {**corpus.settings, "visible_to_everyone": True}
@@ -31,8 +32,9 @@ def test_search_page_draws_the_tree_with_the_match_marked(live_server, browser_p
     assert [e for e in page.console_errors if "favicon.ico" not in e] == []
 
 
-def test_findings_page_lists_the_finding_and_keeps_it_fine(live_server, browser_page, db,
-                                                           people, output_dir):
+def test_findings_page_lists_the_finding_and_keeps_it_fine(
+    live_server, browser_page, db, people, output_dir
+):
     corpus, _ = import_gold(db)
     finding_svc.run_now(db, corpus.id, reason="test")
     page = browser_page

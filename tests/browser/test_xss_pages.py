@@ -27,7 +27,7 @@ PAYLOAD = "<img src=x onerror=alert(1)>"
 SENTENCES = [
     f"The mate wrote {PAYLOAD} in the log .",
     "Then <script>window.__pwned=2</script> appeared on the chart .",
-    "A \"><svg/onload=window.__pwned=3> and {{7*7}} stayed .",
+    'A "><svg/onload=window.__pwned=3> and {{7*7}} stayed .',
 ]
 DISPLAY_NAME = "<img src=y onerror=window.__pwned=4>"
 FLAG = "<b onmouseover=window.__pwned=5>odd</b>"
@@ -43,18 +43,29 @@ def _seed(live: Any) -> dict[str, int]:
     db = live.sessionmaker()
     try:
         text = ("\n".join(SENTENCES) + "\n").encode()
-        result = import_bytes(db, text, source="log.txt", corpus_name="Harbour log",
-                              document_name="<i>night</i> watch", kind="text")
+        result = import_bytes(
+            db,
+            text,
+            source="log.txt",
+            corpus_name="Harbour log",
+            document_name="<i>night</i> watch",
+            kind="text",
+        )
         corpus = db.get(Corpus, result.corpus_id)
-        sentences = db.scalars(select(Sentence).where(Sentence.corpus_id == corpus.id)
-                               .order_by(Sentence.position)).all()
+        sentences = db.scalars(
+            select(Sentence).where(Sentence.corpus_id == corpus.id).order_by(Sentence.position)
+        ).all()
         ann1 = db.scalar(select(User).where(User.username == "ann1"))
         ann2 = db.scalar(select(User).where(User.username == "ann2"))
         ann2.display_name = DISPLAY_NAME
         db.commit()
         assign(db, sentences, ann1, ann2)
-        return {"corpus": corpus.id, "first": sentences[0].id, "second": sentences[1].id,
-                "third": sentences[2].id}
+        return {
+            "corpus": corpus.id,
+            "first": sentences[0].id,
+            "second": sentences[1].id,
+            "third": sentences[2].id,
+        }
     finally:
         db.close()
 
@@ -65,12 +76,16 @@ def _submit(live: Any, username: str, sentence_id: int, tags_first: str) -> None
         bench = client.http.get(f"/api/bench/{sentence_id}").json()
         tokens = bench["sentence"]["tokens"]
         tags = [tags_first] + ["NN"] * (len(tokens) - 2) + ["."]
-        tree = "(ROOT (S " + " ".join(f"({t} {w})" for t, w in zip(tags, tokens, strict=True)) \
-            + "))"
+        tree = (
+            "(ROOT (S " + " ".join(f"({t} {w})" for t, w in zip(tags, tokens, strict=True)) + "))"
+        )
         saved = client.save(sentence_id, 0, tree)
         assert saved.status_code == 201, saved.text
-        done = client.http.post(f"/api/bench/{sentence_id}/submit",
-                                headers={"X-CSRF-Token": client.csrf}, json={"base": 1})
+        done = client.http.post(
+            f"/api/bench/{sentence_id}/submit",
+            headers={"X-CSRF-Token": client.csrf},
+            json={"base": 1},
+        )
         assert done.status_code == 200, done.text
     finally:
         client.close()
@@ -79,9 +94,11 @@ def _submit(live: Any, username: str, sentence_id: int, tags_first: str) -> None
 def _flag(live: Any, sentence_id: int) -> None:
     client = Client(live.base_url, "ann1", PASSWORD)
     try:
-        resp = client.http.patch(f"/api/bench/{sentence_id}/note",
-                                 headers={"X-CSRF-Token": client.csrf},
-                                 json={"flag": FLAG, "comment": PAYLOAD})
+        resp = client.http.patch(
+            f"/api/bench/{sentence_id}/note",
+            headers={"X-CSRF-Token": client.csrf},
+            json={"flag": FLAG, "comment": PAYLOAD},
+        )
         assert resp.status_code == 200, resp.text
     finally:
         client.close()
@@ -163,8 +180,11 @@ def test_xss_hostile_text_is_inert_on_every_page(browser_page, live_server) -> N
         found = _inspect(page, base + path, dialogs)
         content = page.locator("body").text_content() or ""
         shown = content + " ".join(page.locator("svg text").all_text_contents())
-        found += [f"text {t!r} not shown" for t in texts
-                  if t not in shown and t.replace(" ", "") not in shown.replace(" ", "")]
+        found += [
+            f"text {t!r} not shown"
+            for t in texts
+            if t not in shown and t.replace(" ", "") not in shown.replace(" ", "")
+        ]
         if found:
             problems[path] = found
     assert "49" not in (page.locator("body").text_content() or "")  # {{7*7}} not evaluated

@@ -26,19 +26,22 @@ def _labels(features: list[str]) -> set[str]:
     return {st.label() for st in b.subtrees() if not st.label().startswith("@")}
 
 
-@pytest.mark.parametrize("feature,marked", [
-    ("split-vp", "VP~fin"),
-    ("unary-dt", "DT~u"),
-    ("in-grandparent", "IN~VP"),
-    ("split-aux", "VBZ~be"),
-    ("split-cc", "CC~but"),
-    ("split-percent", "NN~pct"),
-    ("tmp-np", "NP~tmp"),
-    ("possessive-np", "NP~poss"),
-    ("base-np", "NP~b"),
-    ("right-rec-np", "NP~r"),
-    ("function-tags", "ADJP~prd"),
-])
+@pytest.mark.parametrize(
+    "feature,marked",
+    [
+        ("split-vp", "VP~fin"),
+        ("unary-dt", "DT~u"),
+        ("in-grandparent", "IN~VP"),
+        ("split-aux", "VBZ~be"),
+        ("split-cc", "CC~but"),
+        ("split-percent", "NN~pct"),
+        ("tmp-np", "NP~tmp"),
+        ("possessive-np", "NP~poss"),
+        ("base-np", "NP~b"),
+        ("right-rec-np", "NP~r"),
+        ("function-tags", "ADJP~prd"),
+    ],
+)
 def test_feature_marks(feature: str, marked: str) -> None:
     assert marked in _labels([feature])
 

@@ -17,10 +17,10 @@ def _max_children(t: Tree) -> int:
 
 
 def test_binarize_clean_strips_function_tags_and_empty_elements() -> None:
-    t = Tree.fromstring("(ROOT (S (NP-SBJ-1 (-NONE- *T*)) (NP=2 (PRP it)) (VP (VBZ is)) "
-                        "(-LRB- -LRB-)))")
-    assert clean_tree(t) == Tree.fromstring(
-        "(ROOT (S (NP (PRP it)) (VP (VBZ is)) (-LRB- -LRB-)))")
+    t = Tree.fromstring(
+        "(ROOT (S (NP-SBJ-1 (-NONE- *T*)) (NP=2 (PRP it)) (VP (VBZ is)) (-LRB- -LRB-)))"
+    )
+    assert clean_tree(t) == Tree.fromstring("(ROOT (S (NP (PRP it)) (VP (VBZ is)) (-LRB- -LRB-)))")
 
 
 def test_binarize_parent_annotation_and_markovization_shapes() -> None:
@@ -48,8 +48,14 @@ def test_binarize_rare_labels_fall_back_one_order() -> None:
     # and the undo is still exact.
     t = Tree.fromstring("(ROOT (S (NP (DT a) (JJ b) (JJ c) (NN d)) (VP (VB e))))")
     rare = {"NP^S", "@NP|DT,JJ", "VB^VP"}
-    b = binarize(t, horizontal=2, vertical=2, tag_ancestors=1, plain_intermediates=True,
-                 rare=rare.__contains__)
+    b = binarize(
+        t,
+        horizontal=2,
+        vertical=2,
+        tag_ancestors=1,
+        plain_intermediates=True,
+        rare=rare.__contains__,
+    )
     assert b[0].label() == "S^ROOT"
     np_node = b[0][0]
     assert np_node.label() == "NP"
@@ -63,8 +69,10 @@ def test_binarize_rare_labels_fall_back_one_order() -> None:
 
 
 def test_binarize_rare_labels_counts_every_node() -> None:
-    trees = [Tree.fromstring("(S (NP (NN a)) (VP (VB b)))"),
-             Tree.fromstring("(S (NP (NN c)) (NP (NN d)))")]
+    trees = [
+        Tree.fromstring("(S (NP (NN a)) (VP (VB b)))"),
+        Tree.fromstring("(S (NP (NN c)) (NP (NN d)))"),
+    ]
     rare = rare_labels(trees, 3)
     assert rare("VP") and rare("S") and rare("unseen")
     assert not rare("NP") and not rare("NN")
@@ -81,11 +89,18 @@ def test_binarize_base_label() -> None:
 
 
 @pytest.mark.external
-@pytest.mark.parametrize("h,v,ta,heads", [(1, 2, 0, False), (0, 1, 0, False),
-                                           (2, 3, 1, False), (None, 2, 0, False),
-                                           (1, 2, 1, True), (None, 1, 0, True)])
-def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int,
-                                               heads: bool) -> None:
+@pytest.mark.parametrize(
+    "h,v,ta,heads",
+    [
+        (1, 2, 0, False),
+        (0, 1, 0, False),
+        (2, 3, 1, False),
+        (None, 2, 0, False),
+        (1, 2, 1, True),
+        (None, 1, 0, True),
+    ],
+)
+def test_binarize_undo_exact_on_every_gum_tree(h: int | None, v: int, ta: int, heads: bool) -> None:
     # Open data set: GUM (Zeldes 2017), every shared tree.
     trees = gum_trees()
     assert len(trees) > 3500
@@ -102,8 +117,13 @@ def test_binarize_undo_exact_with_rare_labels_backed_off(heads: bool) -> None:
     # Open data set: GUM (Zeldes 2017), every shared tree, with the labels seen fewer than
     # five times backed off one order.
     cleaned = [clean_tree(t) for t in gum_trees()]
-    settings = {"horizontal": 2, "vertical": 3, "tag_ancestors": 1, "head_outward": heads,
-                "plain_intermediates": True}
+    settings = {
+        "horizontal": 2,
+        "vertical": 3,
+        "tag_ancestors": 1,
+        "head_outward": heads,
+        "plain_intermediates": True,
+    }
     rare = rare_labels((binarize(c, **settings) for c in cleaned), 5)
     changed = 0
     for c in cleaned:
@@ -121,7 +141,8 @@ def test_head_outward_factoring_of_one_phrase() -> None:
     b = binarize(t, horizontal=1, vertical=1, head_outward=True)
     assert b == Tree.fromstring(
         "(NP (DT the) (@NP|NN:JJ (JJ big) (@NP|NN:JJ (JJ red) (@NP|NN:PP (NN dog)"
-        " (PP (IN of) (NP (NN x)))))))")
+        " (PP (IN of) (NP (NN x)))))))"
+    )
     assert unbinarize(b) == t
 
 
@@ -131,8 +152,14 @@ def test_plain_intermediates_undo_exact_on_every_gum_tree(heads: bool) -> None:
     # Open data set: GUM (Zeldes 2017), every shared tree.
     for t in gum_trees():
         cleaned = clean_tree(t)
-        b = binarize(cleaned, horizontal=2, vertical=2, tag_ancestors=1, head_outward=heads,
-                     plain_intermediates=True)
+        b = binarize(
+            cleaned,
+            horizontal=2,
+            vertical=2,
+            tag_ancestors=1,
+            head_outward=heads,
+            plain_intermediates=True,
+        )
         assert _max_children(b) <= 2
         assert unbinarize(b) == cleaned
 

@@ -25,12 +25,13 @@ def test_chart_astronomers_two_best_and_inside(grammar: Grammar) -> None:
     # Manning and Schuetze 1999, Foundations of Statistical NLP, ch. 11 (from memory):
     # t1 (PP attached to the noun) 0.0009072, t2 (to the verb) 0.0006804, P(w) = 0.0015876.
     r = parse(grammar, WORDS, k=2, posteriors=True)
-    assert [math.exp(x) for x in r.logprobs] == pytest.approx([0.0009072, 0.0006804],
-                                                              rel=1e-12)
+    assert [math.exp(x) for x in r.logprobs] == pytest.approx([0.0009072, 0.0006804], rel=1e-12)
     assert r.trees[0] == Tree.fromstring(
-        "(S (NP astronomers) (VP (V saw) (NP (NP stars) (PP (P with) (NP ears)))))")
+        "(S (NP astronomers) (VP (V saw) (NP (NP stars) (PP (P with) (NP ears)))))"
+    )
     assert r.trees[1] == Tree.fromstring(
-        "(S (NP astronomers) (VP (VP (V saw) (NP stars)) (PP (P with) (NP ears))))")
+        "(S (NP astronomers) (VP (VP (V saw) (NP stars)) (PP (P with) (NP ears))))"
+    )
     assert r.inside_logprob is not None
     assert math.exp(r.inside_logprob) == pytest.approx(0.0015876, rel=1e-12)
     assert math.exp(inside_logprob(grammar, WORDS)) == pytest.approx(0.0015876, rel=1e-12)

@@ -28,17 +28,25 @@ def grammars(draw: st.DrawFn) -> dict:
     binaries = [(y, z) for y in NONTERMINALS for z in NONTERMINALS]
     for x, lhs in enumerate(NONTERMINALS):
         chosen: list[tuple[tuple[str, ...], bool]] = []
-        chosen += [(rhs, False) for rhs in draw(
-            st.lists(st.sampled_from(binaries), min_size=1 if x == 0 else 0, max_size=4,
-                     unique=True))]
+        chosen += [
+            (rhs, False)
+            for rhs in draw(
+                st.lists(
+                    st.sampled_from(binaries), min_size=1 if x == 0 else 0, max_size=4, unique=True
+                )
+            )
+        ]
         if x + 1 < len(NONTERMINALS):
-            chosen += [((y,), False) for y in draw(
-                st.lists(st.sampled_from(NONTERMINALS[x + 1:]), max_size=2, unique=True))]
+            chosen += [
+                ((y,), False)
+                for y in draw(
+                    st.lists(st.sampled_from(NONTERMINALS[x + 1 :]), max_size=2, unique=True)
+                )
+            ]
         chosen += [((t,), True) for t in TERMINALS if draw(st.integers(0, 9)) < 7]
         if not chosen:
             chosen = [((TERMINALS[0],), True)]
-        weights = draw(st.lists(st.floats(0.05, 1.0), min_size=len(chosen),
-                                max_size=len(chosen)))
+        weights = draw(st.lists(st.floats(0.05, 1.0), min_size=len(chosen), max_size=len(chosen)))
         total = sum(weights)
         for (rhs, term), w in zip(chosen, weights, strict=True):
             table.append((lhs, rhs, term, w / total))
@@ -53,8 +61,9 @@ def _text(table: list) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _enumerate(table: list, sym: str, words: list[str], i: int, k: int
-               ) -> Iterator[tuple[Tree, float]]:
+def _enumerate(
+    table: list, sym: str, words: list[str], i: int, k: int
+) -> Iterator[tuple[Tree, float]]:
     for lhs, rhs, term, p in table:
         if lhs != sym:
             continue
@@ -116,8 +125,11 @@ def problems(draw: st.DrawFn) -> tuple[dict, list[str], Constraints]:
     forbidden: list[tuple[int, int]] = []
     if draw(st.booleans()):
         taken = {(a, b) for a, b, _ in required}
-        forbidden = [s for s in draw(st.lists(st.sampled_from(spans), max_size=2, unique=True))
-                     if s != (0, n) and s not in taken]
+        forbidden = [
+            s
+            for s in draw(st.lists(st.sampled_from(spans), max_size=2, unique=True))
+            if s != (0, n) and s not in taken
+        ]
     tags: list[str | None] = []
     if draw(st.booleans()):
         tags = draw(st.lists(st.sampled_from(NONTERMINALS + [None]), min_size=n, max_size=n))

@@ -37,7 +37,8 @@ def test_tree_entropy_of_an_unambiguous_sentence_is_zero() -> None:
 def test_tree_entropy_of_two_readings_matches_the_hand_value() -> None:
     # By hand: H = -(7/11 ln 7/11 + 4/11 ln 4/11) = 0.65548 nats.
     assert tree_entropy(SMALL, "fish eat people with fish".split()) == pytest.approx(
-        _hand(0.7, 0.4), abs=1e-6)
+        _hand(0.7, 0.4), abs=1e-6
+    )
 
 
 def test_tree_entropy_of_five_readings_matches_the_kbest_enumeration() -> None:

@@ -49,8 +49,11 @@ def test_chart_gum_best_tree_is_clean_and_kbest_is_ordered(grammar: Grammar) -> 
 
 def test_chart_gum_required_forbidden_and_tags_are_kept(grammar: Grammar) -> None:
     base = parse(grammar, SENTENCE).trees[0]
-    c = Constraints(required=[(3, 9, "NP"), (1, 2, None)], forbidden=[(4, 6)],
-                    tags=[None, "NN", None, None, None, None, None, None, None, "NNP", None, None])
+    c = Constraints(
+        required=[(3, 9, "NP"), (1, 2, None)],
+        forbidden=[(4, 6)],
+        tags=[None, "NN", None, None, None, None, None, None, None, "NNP", None, None],
+    )
     r = parse(grammar, SENTENCE, k=5, posteriors=True, constraints=c)
     assert not r.fallback
     for t in r.trees:
@@ -80,15 +83,19 @@ def test_chart_gum_unsatisfiable_constraints_fall_back(grammar: Grammar) -> None
     assert r.fallback and r.trees[0].pos() == [("glorp", "NOTATAG")]
 
 
-@pytest.mark.parametrize("c,message", [
-    (Constraints(required=[(0, 3, None), (2, 5, None)]), "cross"),
-    (Constraints(required=[(0, 30, None)]), "outside"),
-    (Constraints(forbidden=[(0, 12)]), "whole sentence"),
-    (Constraints(required=[(2, 4, "NP")], forbidden=[(2, 4)]), "both"),
-    (Constraints(tags=["NN"]), "tags"),
-])
-def test_chart_gum_malformed_constraints_raise(grammar: Grammar, c: Constraints,
-                                               message: str) -> None:
+@pytest.mark.parametrize(
+    "c,message",
+    [
+        (Constraints(required=[(0, 3, None), (2, 5, None)]), "cross"),
+        (Constraints(required=[(0, 30, None)]), "outside"),
+        (Constraints(forbidden=[(0, 12)]), "whole sentence"),
+        (Constraints(required=[(2, 4, "NP")], forbidden=[(2, 4)]), "both"),
+        (Constraints(tags=["NN"]), "tags"),
+    ],
+)
+def test_chart_gum_malformed_constraints_raise(
+    grammar: Grammar, c: Constraints, message: str
+) -> None:
     with pytest.raises(ConstraintError, match=message):
         parse(grammar, SENTENCE, constraints=c)
 
@@ -106,8 +113,14 @@ def test_chart_gum_odd_words_never_raise(grammar: Grammar) -> None:
 def test_chart_gum_batch_equals_one_by_one(grammar: Grammar) -> None:
     sentences = [SENTENCE, SENTENCE[:5], "It works .".split()] * 12
     seen: list[int] = []
-    batch = parse_many(grammar, sentences, k=2, processes=2, chunk=8,
-                       progress=lambda done, total: seen.append(done))
+    batch = parse_many(
+        grammar,
+        sentences,
+        k=2,
+        processes=2,
+        chunk=8,
+        progress=lambda done, total: seen.append(done),
+    )
     assert seen[-1] == len(sentences)
     for words, r in zip(sentences, batch, strict=True):
         one = parse(grammar, words, k=2)

@@ -37,5 +37,6 @@ def test_chart_viterbi_equals_nltk_on_gum_sentences() -> None:
         assert ref, words
         assert not ours.fallback
         # NLTK reports base-2 log-probabilities.
-        assert math.isclose(ref[0].logprob() * math.log(2), ours.logprobs[0],
-                            rel_tol=1e-12, abs_tol=1e-9), words
+        assert math.isclose(
+            ref[0].logprob() * math.log(2), ours.logprobs[0], rel_tol=1e-12, abs_tol=1e-9
+        ), words

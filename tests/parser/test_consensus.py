@@ -50,13 +50,20 @@ def test_consensus_maximizes_the_objective_over_every_bracketing(problem) -> Non
     # labelled-recall one of Goodman 1996 with a per-bracket cost).
     n, post, cost = problem
     words = [f"w{i}" for i in range(n)]
-    tree = consensus_tree(words, ["T"] * n, [(lab, a, b, p) for (lab, a, b), p in post.items()],
-                          root="ROOT", cost=cost)
+    tree = consensus_tree(
+        words,
+        ["T"] * n,
+        [(lab, a, b, p) for (lab, a, b), p in post.items()],
+        root="ROOT",
+        cost=cost,
+    )
     assert tree.leaves() == words and tree.label() == "ROOT"
     assert [t for _, t in tree.pos()] == ["T"] * n
     got = {c for c in constituents(tree) if c != ("ROOT", 0, n)}
-    best = max(sum(max(0.0, p - cost) for (lab, a, b), p in post.items() if (a, b) in sk)
-               for sk in _skeletons(0, n))
+    best = max(
+        sum(max(0.0, p - cost) for (lab, a, b), p in post.items() if (a, b) in sk)
+        for sk in _skeletons(0, n)
+    )
     assert _objective(got, post, cost) == pytest.approx(best, abs=1e-12)
     # Nothing below the cost is proposed.
     assert all(post.get(c, 0.0) > cost for c in got)
@@ -72,15 +79,21 @@ def test_consensus_keeps_required_spans(problem, data) -> None:
     a, b = data.draw(st.sampled_from(spans))
     label = data.draw(st.sampled_from(LABELS + [None]))
     # Posteriors under a constraint are zero for spans crossing it.
-    post = {(lab, x, y): p for (lab, x, y), p in post.items()
-            if not (x < a < y < b or a < x < b < y)}
+    post = {
+        (lab, x, y): p for (lab, x, y), p in post.items() if not (x < a < y < b or a < x < b < y)
+    }
     if label is None and not any((x, y) == (a, b) for _, x, y in post):
         # Under a required span the chart always gives the span some labelled posterior
         # (its node is a constituent, never a binarization node).
         post[(data.draw(st.sampled_from(LABELS)), a, b)] = data.draw(st.floats(0.01, 1.0))
-    tree = consensus_tree([f"w{i}" for i in range(n)], ["T"] * n,
-                          [(lab, x, y, p) for (lab, x, y), p in post.items()], root="ROOT",
-                          required=[(a, b, label)], cost=cost)
+    tree = consensus_tree(
+        [f"w{i}" for i in range(n)],
+        ["T"] * n,
+        [(lab, x, y, p) for (lab, x, y), p in post.items()],
+        root="ROOT",
+        required=[(a, b, label)],
+        cost=cost,
+    )
     found = [lab for lab, x, y in constituents(tree) if (x, y) == (a, b)]
     if label is not None:
         assert label in found
@@ -124,7 +137,8 @@ def test_consensus_on_the_pp_attachment_example() -> None:
     # grammar has, and every bracket of probability 1 stays.
     tree = consensus_tree(words, [t for _, t in r.trees[0].pos()], r.posteriors, "S", cost=0.6)
     assert tree == Tree.fromstring(
-        "(S (NP astronomers) (VP (V saw) (NP stars) (PP (P with) (NP ears))))")
+        "(S (NP astronomers) (VP (V saw) (NP stars) (PP (P with) (NP ears))))"
+    )
 
 
 def test_consensus_honours_constraints() -> None:

@@ -38,17 +38,23 @@ def _assert_normalized(g: Grammar) -> None:
 
 
 def test_grammar_small_trained_is_normalized_and_counts_are_relative_frequencies() -> None:
-    trees = [Tree.fromstring(s) for s in (
-        "(ROOT (S (NP (DT the) (NN dog)) (VP (VBD barked))))",
-        "(ROOT (S (NP (PRP it)) (VP (VBD ran) (ADVP (RB far)))))",
-        "(ROOT (S (NP (DT the) (NN cat)) (VP (VBD sat))))",
-    )]
+    trees = [
+        Tree.fromstring(s)
+        for s in (
+            "(ROOT (S (NP (DT the) (NN dog)) (VP (VBD barked))))",
+            "(ROOT (S (NP (PRP it)) (VP (VBD ran) (ADVP (RB far)))))",
+            "(ROOT (S (NP (DT the) (NN cat)) (VP (VBD sat))))",
+        )
+    ]
     g = train_grammar(trees, horizontal=1, vertical=1, tag_ancestors=0, features=())
     _assert_normalized(g)
     sym = {s: i for i, s in enumerate(g.symbols)}
     # NP is a branching NP in 2 of 3 cases, a unary chain NP -> PRP in 1.
-    np_edges = {g.chains[c]: float(np.exp(lp)) for a, c, lp in
-                zip(g.un_parent, g.un_chain, g.un_logp, strict=True) if a == sym["NP"]}
+    np_edges = {
+        g.chains[c]: float(np.exp(lp))
+        for a, c, lp in zip(g.un_parent, g.un_chain, g.un_logp, strict=True)
+        if a == sym["NP"]
+    }
     assert np_edges == pytest.approx({("NP",): 2 / 3, ("NP", "PRP"): 1 / 3})
 
 
@@ -66,8 +72,7 @@ def test_grammar_gum_normalized_tight_and_sized() -> None:
 
 
 @pytest.mark.external
-@pytest.mark.parametrize("p,tight,z", [(0.6, False, 2 / 3), (0.4, True, 1.0),
-                                       (0.75, False, 1 / 3)])
+@pytest.mark.parametrize("p,tight,z", [(0.6, False, 2 / 3), (0.4, True, 1.0), (0.75, False, 1 / 3)])
 def test_grammar_tightness_of_the_runaway_grammar(p: float, tight: bool, z: float) -> None:
     # S -> S S (p), S -> a (1 - p): Z = (1 - p) / p for p > 1/2, else 1 (Booth and Thompson
     # 1973, consistency condition; from memory).
@@ -92,8 +97,18 @@ def test_grammar_save_load_roundtrip(tmp_path: Path) -> None:
     g.save(path)
     h = Grammar.load(path)
     assert h.symbols == g.symbols and h.vocab == g.vocab and h.chains == g.chains
-    for name in ("bin_parent", "bin_left", "bin_right", "bin_logp", "un_parent", "un_child",
-                 "un_chain", "un_logp", "lex_symbols", "lex_logp"):
+    for name in (
+        "bin_parent",
+        "bin_left",
+        "bin_right",
+        "bin_logp",
+        "un_parent",
+        "un_child",
+        "un_chain",
+        "un_logp",
+        "lex_symbols",
+        "lex_logp",
+    ):
         assert np.array_equal(getattr(h, name), getattr(g, name)), name
     assert h.meta == g.meta
     with pytest.raises(ValueError):
@@ -110,6 +125,7 @@ def test_grammar_load_refuses_other_files_and_versions(tmp_path: Path) -> None:
     g.save(path)
     data = dict(np.load(path))
     import json
+
     meta = json.loads(data["meta"].tobytes())
     meta["format_version"] = 999
     data["meta"] = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
@@ -118,13 +134,16 @@ def test_grammar_load_refuses_other_files_and_versions(tmp_path: Path) -> None:
         Grammar.load(tmp_path / "future.npz")
 
 
-@pytest.mark.parametrize("text,message", [
-    ("1.0 S -> A B C\n", "one or two symbols"),
-    ("1.5 S -> 'a'\n", "not in"),
-    ("S -> 'a'\n", "line 1"),
-    ("0.5 S -> A\n0.5 A -> S\n1.0 A -> 'a'\n", "cycle"),
-    ("", "no rules"),
-])
+@pytest.mark.parametrize(
+    "text,message",
+    [
+        ("1.0 S -> A B C\n", "one or two symbols"),
+        ("1.5 S -> 'a'\n", "not in"),
+        ("S -> 'a'\n", "line 1"),
+        ("0.5 S -> A\n0.5 A -> S\n1.0 A -> 'a'\n", "cycle"),
+        ("", "no rules"),
+    ],
+)
 def test_grammar_rule_text_errors(text: str, message: str) -> None:
     with pytest.raises(GrammarError, match=message):
         Grammar.from_text(text)

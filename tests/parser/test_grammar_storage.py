@@ -10,14 +10,30 @@ from nltk import Tree
 
 from parser.grammar import Grammar, train_grammar
 
-ARRAYS = ("bin_parent", "bin_left", "bin_right", "bin_logp", "un_parent", "un_child",
-          "un_chain", "un_logp", "lex_symbols", "lex_logp")
+ARRAYS = (
+    "bin_parent",
+    "bin_left",
+    "bin_right",
+    "bin_logp",
+    "un_parent",
+    "un_child",
+    "un_chain",
+    "un_logp",
+    "lex_symbols",
+    "lex_logp",
+)
 
 
 def _grammar() -> Grammar:
-    return train_grammar([Tree.fromstring(t) for t in (
-        "(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (PP (IN at) (NN dawn))) (. .)))",
-        "(ROOT (S (NP (DT the) (NN crew)) (VP (VBD ate)) (. .)))")])
+    return train_grammar(
+        [
+            Tree.fromstring(t)
+            for t in (
+                "(ROOT (S (NP (DT the) (NN ferry)) (VP (VBD left) (PP (IN at) (NN dawn))) (. .)))",
+                "(ROOT (S (NP (DT the) (NN crew)) (VP (VBD ate)) (. .)))",
+            )
+        ]
+    )
 
 
 def test_grammar_file_is_deflated_and_loads_identically(tmp_path: Path) -> None:

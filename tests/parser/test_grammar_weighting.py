@@ -20,22 +20,31 @@ from parser.errors import GrammarError
 from parser.grammar import Grammar, Weighting, train_grammar, train_weighted
 from parser.lexicon import estimate_lexicon
 
-PLAIN: dict[str, Any] = {"horizontal": 1, "vertical": 1, "tag_ancestors": 0, "features": (),
-                         "min_context": 0}
+PLAIN: dict[str, Any] = {
+    "horizontal": 1,
+    "vertical": 1,
+    "tag_ancestors": 0,
+    "features": (),
+    "min_context": 0,
+}
 IN_DOMAIN = [Tree.fromstring("(ROOT (S (NP (PRP it)) (VP (VBD ran))))")]
 REFERENCE = [Tree.fromstring("(ROOT (S (NP (DT the) (NN dog)) (VP (VBD ran))))")]
 
 
 def _np_edges(g: Grammar) -> dict[tuple[str, ...], float]:
     sym = {s: i for i, s in enumerate(g.symbols)}
-    return {g.chains[c]: float(np.exp(lp)) for a, c, lp in
-            zip(g.un_parent, g.un_chain, g.un_logp, strict=True) if a == sym["NP"]}
+    return {
+        g.chains[c]: float(np.exp(lp))
+        for a, c, lp in zip(g.un_parent, g.un_chain, g.un_logp, strict=True)
+        if a == sym["NP"]
+    }
 
 
 def _rules(g: Grammar) -> dict[tuple[str, ...], float]:
     out: dict[tuple[str, ...], float] = {
-        (g.symbols[a], g.symbols[b], g.symbols[c]): float(lp) for a, b, c, lp in
-           zip(g.bin_parent, g.bin_left, g.bin_right, g.bin_logp, strict=True)}
+        (g.symbols[a], g.symbols[b], g.symbols[c]): float(lp)
+        for a, b, c, lp in zip(g.bin_parent, g.bin_left, g.bin_right, g.bin_logp, strict=True)
+    }
     out.update({g.chains[c]: float(lp) for c, lp in zip(g.un_chain, g.un_logp, strict=True)})
     return out
 
@@ -50,8 +59,7 @@ def test_weighting_rules_multiply_the_in_domain_rule_counts() -> None:
 
 def test_weighting_rules_equal_repeating_the_in_domain_trees() -> None:
     more_in = IN_DOMAIN + [Tree.fromstring("(ROOT (S (NP (DT a) (NN cat)) (VP (VBD sat))))")]
-    weighted = train_grammar(more_in, reference=REFERENCE, weighting=Weighting(rules=3.0),
-                             **PLAIN)
+    weighted = train_grammar(more_in, reference=REFERENCE, weighting=Weighting(rules=3.0), **PLAIN)
     repeated = train_grammar(more_in * 3 + REFERENCE, **PLAIN)
     assert _rules(weighted) == pytest.approx(_rules(repeated))
 
@@ -62,8 +70,9 @@ def test_weighting_prior_is_the_map_estimate() -> None:
     g = train_grammar(IN_DOMAIN, reference=REFERENCE, weighting=Weighting(prior=2.0), **PLAIN)
     assert _np_edges(g) == pytest.approx({("NP",): 2 / 3, ("NP", "PRP"): 1 / 3})
     # the prior's strength does not depend on the reference's size
-    g10 = train_grammar(IN_DOMAIN, reference=REFERENCE * 10, weighting=Weighting(prior=2.0),
-                        **PLAIN)
+    g10 = train_grammar(
+        IN_DOMAIN, reference=REFERENCE * 10, weighting=Weighting(prior=2.0), **PLAIN
+    )
     assert _np_edges(g10) == pytest.approx(_np_edges(g))
 
 
@@ -82,8 +91,12 @@ def test_weighting_lexicon_is_separate_from_rules() -> None:
     # "ran" is VBD in both domains, "walked" only in-domain: its share of VBD grows with the
     # lexicon weight, while the rule probabilities do not move.
     ind = [Tree.fromstring("(ROOT (S (NP (PRP it)) (VP (VBD walked))))")]
-    light, heavy = train_weighted(ind, reference=REFERENCE * 4, weightings=(
-        Weighting(rules=2.0, lexicon=1.0), Weighting(rules=2.0, lexicon=8.0)), **PLAIN)
+    light, heavy = train_weighted(
+        ind,
+        reference=REFERENCE * 4,
+        weightings=(Weighting(rules=2.0, lexicon=1.0), Weighting(rules=2.0, lexicon=8.0)),
+        **PLAIN,
+    )
     assert _rules(light) == pytest.approx(_rules(heavy))
 
     def walked(g: Grammar) -> float:
@@ -102,14 +115,20 @@ def test_train_weighted_gives_one_grammar_per_weighting_from_one_count() -> None
 
 
 def test_parse_weighting_reads_what_describe_writes() -> None:
-    for w in (Weighting(), Weighting(rules=2.0, lexicon=8.0), Weighting(prior=50.0,
-                                                                           lexicon=4.0)):
+    for w in (Weighting(), Weighting(rules=2.0, lexicon=8.0), Weighting(prior=50.0, lexicon=4.0)):
         assert parse_weighting(describe(w)) == w
     assert parse_weighting("5") == Weighting(rules=5.0, lexicon=5.0)
 
 
-@pytest.mark.parametrize("text, part", [("rules=x", "'rules=x'"), ("weight=2", "'weight=2'"),
-                                        ("rules=2,rules=3", "given twice"), ("", "empty")])
+@pytest.mark.parametrize(
+    "text, part",
+    [
+        ("rules=x", "'rules=x'"),
+        ("weight=2", "'weight=2'"),
+        ("rules=2,rules=3", "given twice"),
+        ("", "empty"),
+    ],
+)
 def test_parse_weighting_names_the_bad_part(text: str, part: str) -> None:
     with pytest.raises(GrammarError, match=part):
         parse_weighting(text)
@@ -146,14 +165,20 @@ def test_choose_weighting_takes_the_first_of_equal_scores_and_the_default_when_f
     grid = (Weighting(rules=2.0), Weighting(rules=4.0), Weighting(rules=8.0))
     scores = iter([0.5, 0.7, 0.7])
     tree = "(ROOT (S (NP (PRP it)) (VP (VBD ran))))"
-    choice = choose_weighting(_trees(3, tree), _trees(MIN_HELDOUT, tree), REFERENCE, grid=grid,
-                              score=lambda g: next(scores), **PLAIN)
+    choice = choose_weighting(
+        _trees(3, tree),
+        _trees(MIN_HELDOUT, tree),
+        REFERENCE,
+        grid=grid,
+        score=lambda g: next(scores),
+        **PLAIN,
+    )
     assert choice.weighting == grid[1]
-    few = choose_weighting(_trees(3, tree), _trees(MIN_HELDOUT - 1, tree), REFERENCE,
-                           grid=grid, **PLAIN)
+    few = choose_weighting(
+        _trees(3, tree), _trees(MIN_HELDOUT - 1, tree), REFERENCE, grid=grid, **PLAIN
+    )
     assert few.weighting == DEFAULT and few.scores == []
-    assert choose_weighting(_trees(3, tree), _trees(30, tree), [], **PLAIN).weighting \
-        == Weighting()
+    assert choose_weighting(_trees(3, tree), _trees(30, tree), [], **PLAIN).weighting == Weighting()
 
 
 def test_heldout_split_holds_out_every_tenth() -> None:

@@ -14,11 +14,17 @@ from nltk import Tree
 from parser.chart import MAX_WORDS, parse
 from parser.grammar import Grammar
 
-RULES = {("S", ("S", "S")): 0.6, ("S", ("NP", "VP")): 0.4, ("NP", ("a",)): 1.0,
-         ("VP", ("a",)): 0.5, ("VP", ("VP", "NP")): 0.5}
+RULES = {
+    ("S", ("S", "S")): 0.6,
+    ("S", ("NP", "VP")): 0.4,
+    ("NP", ("a",)): 1.0,
+    ("VP", ("a",)): 0.5,
+    ("VP", ("VP", "NP")): 0.5,
+}
 GRAMMAR_TEXT = "\n".join(
     f"{p} {lhs} -> " + (" ".join(rhs) if len(rhs) == 2 else f"'{rhs[0]}'")
-    for (lhs, rhs), p in RULES.items())
+    for (lhs, rhs), p in RULES.items()
+)
 
 
 def _logprob(tree: Tree) -> float:

@@ -24,8 +24,7 @@ from parser.grammar import Grammar, train_grammar
 from parser.trees import read_trees
 
 DATA = Path(__file__).resolve().parent.parent / "data" / "latent_small.ptb"
-EXACT = latent.RefineOptions(smoothing=0.0, word_smoothing=None, em_iterations=6,
-                             em_after_merge=3)
+EXACT = latent.RefineOptions(smoothing=0.0, word_smoothing=None, em_iterations=6, em_after_merge=3)
 
 
 @pytest.fixture(scope="module")
@@ -66,36 +65,46 @@ def test_split_keeps_every_tree_probability(base: Grammar, bank: latent.Treebank
     split = lg.split(np.random.default_rng(3), noise=0.05)
     assert split.n_subsymbols == 2 * base.n_symbols - 1
     assert not np.allclose(split.bw[:8], np.repeat(split.bw[:1], 8))
-    np.testing.assert_allclose(latent.tree_logprobs(split, bank),
-                               latent.tree_logprobs(lg, bank), rtol=0, atol=1e-9)
+    np.testing.assert_allclose(
+        latent.tree_logprobs(split, bank), latent.tree_logprobs(lg, bank), rtol=0, atol=1e-9
+    )
 
 
-def test_split_then_merge_back_gives_the_base_grammar(base: Grammar,
-                                                       bank: latent.Treebank) -> None:
+def test_split_then_merge_back_gives_the_base_grammar(base: Grammar, bank: latent.Treebank) -> None:
     lg = latent.LatentGrammar.from_grammar(base)
     back = _merge_all(lg.split(np.random.default_rng(5), noise=0.05), bank)
     _same(back, lg)
     g = back.to_grammar()
     assert g.symbols == base.symbols
-    for name in ("bin_parent", "bin_left", "bin_right", "un_parent", "un_child", "un_chain",
-                 "lex_symbols"):
+    for name in (
+        "bin_parent",
+        "bin_left",
+        "bin_right",
+        "un_parent",
+        "un_child",
+        "un_chain",
+        "lex_symbols",
+    ):
         assert np.array_equal(getattr(g, name), getattr(base, name)), name
     for name in ("bin_logp", "un_logp"):
-        np.testing.assert_allclose(np.exp(getattr(g, name)), np.exp(getattr(base, name)),
-                                   rtol=0, atol=1e-9)
+        np.testing.assert_allclose(
+            np.exp(getattr(g, name)), np.exp(getattr(base, name)), rtol=0, atol=1e-9
+        )
     np.testing.assert_allclose(np.exp(g.lex_logp), np.exp(base.lex_logp), rtol=0, atol=1e-9)
 
 
-def test_split_then_merge_back_after_a_cycle(refined: latent.LatentGrammar,
-                                             bank: latent.Treebank) -> None:
+def test_split_then_merge_back_after_a_cycle(
+    refined: latent.LatentGrammar, bank: latent.Treebank
+) -> None:
     assert refined.ks.max() == 2  # a refined grammar with some symbols split
     _same(_merge_all(refined.split(np.random.default_rng(7), noise=0.05), bank), refined)
 
 
 def test_em_never_lowers_the_training_likelihood(trees: list[Tree], base: Grammar) -> None:
     seen: list[tuple[int, int, float]] = []
-    opts = latent.RefineOptions(cycles=2, smoothing=0.0, word_smoothing=None,
-                                em_iterations=6, em_after_merge=3, seed=11)
+    opts = latent.RefineOptions(
+        cycles=2, smoothing=0.0, word_smoothing=None, em_iterations=6, em_after_merge=3, seed=11
+    )
     latent.refine(base, trees, opts, progress=lambda c, i, ll: seen.append((c, i, ll)))
     runs: dict[tuple[int, bool], list[float]] = defaultdict(list)
     for cycle, it, ll in seen:
@@ -132,16 +141,22 @@ def _derivations(g: Grammar, words: list[str]) -> list[Tree]:
             bottoms: list[Tree] = []
             if width == 1:
                 col = g.word_column(words[i], i == 0)
-                bottoms = [Tree(g.symbols[s], [words[i]]) for row, s in enumerate(g.lex_symbols)
-                           if col >= 0 and g.lex_logp[row, col] > -math.inf]
+                bottoms = [
+                    Tree(g.symbols[s], [words[i]])
+                    for row, s in enumerate(g.lex_symbols)
+                    if col >= 0 and g.lex_logp[row, col] > -math.inf
+                ]
             for r in range(len(g.bin_parent)):
                 left, right = g.symbols[g.bin_left[r]], g.symbols[g.bin_right[r]]
                 for j in range(i + 1, k):
                     for a in tops[(i, j)]:
                         if a.label() != left:
                             continue
-                        bottoms.extend(Tree(g.symbols[g.bin_parent[r]], [a, b])
-                                       for b in tops[(j, k)] if b.label() == right)
+                        bottoms.extend(
+                            Tree(g.symbols[g.bin_parent[r]], [a, b])
+                            for b in tops[(j, k)]
+                            if b.label() == right
+                        )
             found = []
             for e in range(len(g.un_parent)):
                 chain = g.chains[g.un_chain[e]]
@@ -168,8 +183,9 @@ def _spans(tree: Tree, start: int = 0) -> Iterator[tuple[str, int, int]]:
         yield latent.bz.base_label(tree.label()), start, end
 
 
-def test_projected_posteriors_match_brute_force(base: Grammar, refined: latent.LatentGrammar
-                                                ) -> None:
+def test_projected_posteriors_match_brute_force(
+    base: Grammar, refined: latent.LatentGrammar
+) -> None:
     words = "the owner of the mill slept .".split()
     trees = _derivations(base, words)
     assert len(trees) > 3
@@ -180,10 +196,16 @@ def test_projected_posteriors_match_brute_force(base: Grammar, refined: latent.L
         for span in set(_spans(tree)):
             brute[span] += p
     result = parse(refined.to_grammar(), words, posteriors=True, posterior_threshold=0.0)
-    chart = {(lab, i, k): p for lab, i, k, p in result.posteriors
-             if not (k - i == 1 and lab in refined.base.tags)}
-    phrases = {key: p for key, p in brute.items()
-               if not (key[2] - key[1] == 1 and key[0] in refined.base.tags)}
+    chart = {
+        (lab, i, k): p
+        for lab, i, k, p in result.posteriors
+        if not (k - i == 1 and lab in refined.base.tags)
+    }
+    phrases = {
+        key: p
+        for key, p in brute.items()
+        if not (key[2] - key[1] == 1 and key[0] in refined.base.tags)
+    }
     assert chart.keys() == {key for key, p in phrases.items() if p > 0}
     for key, p in phrases.items():
         assert chart[key] == pytest.approx(p, abs=1e-9), key
@@ -191,8 +213,11 @@ def test_projected_posteriors_match_brute_force(base: Grammar, refined: latent.L
     # exactly one tag per word, so each word's tag posteriors sum to one.
     assert chart[(base.root_label, 0, len(words))] == pytest.approx(1.0, abs=1e-9)
     for i in range(len(words)):
-        tags = sum(p for (lab, s, e), p in brute.items() if (s, e) == (i, i + 1)
-                   and lab in refined.base.tags)
+        tags = sum(
+            p
+            for (lab, s, e), p in brute.items()
+            if (s, e) == (i, i + 1) and lab in refined.base.tags
+        )
         assert tags == pytest.approx(1.0, abs=1e-9)
     total = math.log(np.exp(logp).sum())
     assert result.inside_logprob == pytest.approx(total, abs=1e-9)

@@ -40,13 +40,13 @@ def _accuracy(tags: list[str], gold: list[str], where: list[int]) -> float:
 
 
 def test_reparse_gum_one_gold_pin_is_kept_and_tags_outside_do_not_get_worse(
-        grammar: Grammar, rng) -> None:
+    grammar: Grammar, rng
+) -> None:
     free_acc: list[float] = []
     pinned_acc: list[float] = []
     for gold in _test_sentences(30):
         w, gold_tags = words(gold), pos_tags(gold)
-        s, e, label = rng.choice([(s, e, lab) for lab, s, e in constituents(gold)[1:]
-                                  if e - s > 1])
+        s, e, label = rng.choice([(s, e, lab) for lab, s, e in constituents(gold)[1:] if e - s > 1])
         free = parse(grammar, w, posteriors=True)
         out = reparse(grammar, w, Said(required=((s, e, label),)), previous=free.consensus)
         assert (label, s, e) in constituents(out.tree), (w, (s, e, label))
@@ -58,14 +58,17 @@ def test_reparse_gum_one_gold_pin_is_kept_and_tags_outside_do_not_get_worse(
             pinned_acc.append(_accuracy(pos_tags(out.tree), gold_tags, outside))
     free_mean = sum(free_acc) / len(free_acc)
     pinned_mean = sum(pinned_acc) / len(pinned_acc)
-    print(f"tag accuracy outside the pin over {len(free_acc)} sentences: "
-          f"free {free_mean:.4f}, after the re-parse {pinned_mean:.4f}")
+    print(
+        f"tag accuracy outside the pin over {len(free_acc)} sentences: "
+        f"free {free_mean:.4f}, after the re-parse {pinned_mean:.4f}"
+    )
     assert pinned_mean >= free_mean
     assert pinned_mean >= TAG_FLOOR
 
 
 def test_reparse_gum_any_label_over_any_span_keeps_the_sentence_parsable(
-        grammar: Grammar, rng) -> None:
+    grammar: Grammar, rng
+) -> None:
     # The relabel back-off: a pinned label the grammar cannot build over those words used to
     # empty the chart ("no full parse"); now a stand-in takes the label.
     labels = [lab for lab in grammar.labels if lab != grammar.root_label]
@@ -88,5 +91,7 @@ def test_reparse_gum_any_label_over_any_span_keeps_the_sentence_parsable(
         assert pos_tags(out.tree)[tag_at] == pos_tags(gold)[tag_at]
         if strict.fallback:
             assert out.stand_ins == [(s, e, label)] and out.reasons
-    print(f"random label over a random span: {strict_failures} of {trials} had no parse "
-          "without the back-off, none with it")
+    print(
+        f"random label over a random span: {strict_failures} of {trials} had no parse "
+        "without the back-off, none with it"
+    )

@@ -45,8 +45,14 @@ def test_score_table_is_readable(runner):
 def test_score_equivalent_labels_option(runner):
     result = runner.invoke(score, [GOLD, TEST, "--json", "--equivalent", "PP,ADVP"])
     data = json.loads(result.stdout)
-    assert data["per_label"]["ADVP/PP"] == {"precision": 1.0, "recall": 1.0, "f1": 1.0,
-                                            "matched": 1, "gold": 1, "test": 1}
+    assert data["per_label"]["ADVP/PP"] == {
+        "precision": 1.0,
+        "recall": 1.0,
+        "f1": 1.0,
+        "matched": 1,
+        "gold": 1,
+        "test": 1,
+    }
 
 
 def test_score_keep_punctuation_option(runner):
@@ -56,8 +62,10 @@ def test_score_keep_punctuation_option(runner):
 
 def test_score_stops_on_word_mismatch_naming_the_tree(runner, tmp_path):
     other = tmp_path / "other.ptb"
-    other.write_text("(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw)) (. .)))\n"
-                     "(ROOT (S (NP (PRP You)) (VP (VBD ran))))\n")
+    other.write_text(
+        "(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw)) (. .)))\n"
+        "(ROOT (S (NP (PRP You)) (VP (VBD ran))))\n"
+    )
     result = runner.invoke(score, [GOLD, str(other)])
     assert result.exit_code != 0
     assert "tree 1: the words differ at word 5" in result.stderr

@@ -20,21 +20,25 @@ from parser.scoring import (
 from parser.trees import read_tree
 
 # words: the0 old1 man2 saw3 a4 dog5 in6 the7 park8
-GOLD = read_tree("(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw) (NP (NP (DT a) "
-                 "(NN dog)) (PP (IN in) (NP (DT the) (NN park)))))))")
+GOLD = read_tree(
+    "(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw) (NP (NP (DT a) "
+    "(NN dog)) (PP (IN in) (NP (DT the) (NN park)))))))"
+)
 # gold: S(0,9) NP(0,3) VP(3,9) NP(4,9) NP(4,6) PP(6,9) NP(7,9)                  = 7
 # test: the PP attached to the VP and labelled ADVP:
 #       S(0,9) NP(0,3) VP(3,9) NP(4,6) ADVP(6,9) NP(7,9)                         = 6
 # shared labelled: S NP(0,3) VP NP(4,6) NP(7,9)                                  = 5
-TEST = read_tree("(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw) (NP (DT a) (NN dog)) "
-                 "(ADVP (IN in) (NP (DT the) (NN park))))))")
+TEST = read_tree(
+    "(ROOT (S (NP (DT the) (JJ old) (NN man)) (VP (VBD saw) (NP (DT a) (NN dog)) "
+    "(ADVP (IN in) (NP (DT the) (NN park))))))"
+)
 
 
 def test_score_pair_seven_gold_six_test_five_shared():
     s = score_pair(GOLD, TEST)
     assert (s.matched, s.gold_count, s.test_count) == (5, 7, 6)
-    assert s.precision == pytest.approx(5 / 6)       # 5 / 6 test
-    assert s.recall == pytest.approx(5 / 7)          # 5 / 7 gold
+    assert s.precision == pytest.approx(5 / 6)  # 5 / 6 test
+    assert s.recall == pytest.approx(5 / 7)  # 5 / 7 gold
     # F1 = 2PR / (P + R) = 2 * 5 / (7 + 6) = 10/13
     assert Fraction(s.f1).limit_denominator(100) == Fraction(10, 13)
     assert not s.exact
@@ -187,10 +191,15 @@ def test_score_corpus_micro_averages():
     # unlabelled: 6 + 3 = 9 matched of gold 10, test 9
     assert (c.unlabelled.matched, c.unlabelled.gold, c.unlabelled.test) == (9, 10, 9)
     d = c.to_dict()
-    assert {"precision", "recall", "f1", "exact", "sentences", "per_label",
-            "unlabelled"} <= set(d)
-    assert d["per_label"]["PP"] == {"precision": 0.0, "recall": 0.0, "f1": 0.0,
-                                    "matched": 0, "gold": 1, "test": 0}
+    assert {"precision", "recall", "f1", "exact", "sentences", "per_label", "unlabelled"} <= set(d)
+    assert d["per_label"]["PP"] == {
+        "precision": 0.0,
+        "recall": 0.0,
+        "f1": 0.0,
+        "matched": 0,
+        "gold": 1,
+        "test": 0,
+    }
 
 
 def test_score_corpus_names_the_pair_whose_words_differ():

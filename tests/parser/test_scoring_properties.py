@@ -8,12 +8,14 @@ from hypothesis import strategies as st
 from parser.scoring import ScoringOptions, score_pair
 from tests.parser.test_trees_properties import bracketings
 
-OPTIONS = st.sampled_from([
-    ScoringOptions(),
-    ScoringOptions(delete_pos=frozenset(), root_labels=frozenset()),
-    ScoringOptions(multiset=False, count_preterminals=True),
-    ScoringOptions(equivalences=({"ADVP", "PRT"}, {"S", "SBAR"})),
-])
+OPTIONS = st.sampled_from(
+    [
+        ScoringOptions(),
+        ScoringOptions(delete_pos=frozenset(), root_labels=frozenset()),
+        ScoringOptions(multiset=False, count_preterminals=True),
+        ScoringOptions(equivalences=({"ADVP", "PRT"}, {"S", "SBAR"})),
+    ]
+)
 
 
 @st.composite

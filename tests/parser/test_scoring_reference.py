@@ -34,7 +34,7 @@ def reference_brackets(tree: Tree, gold_tags: list[str], delete: set[str]) -> li
             continue
         if pos == () and node.label() in ("", "ROOT", "TOP"):
             continue
-        covered = [i for i, leaf in enumerate(leaves) if leaf[:len(pos)] == pos]
+        covered = [i for i, leaf in enumerate(leaves) if leaf[: len(pos)] == pos]
         new_index = [sum(keep[:i]) for i in covered if keep[i]]
         if new_index:
             out.append((plain_label(node.label()), new_index[0], new_index[-1] + 1))
@@ -51,9 +51,7 @@ def reference_score(gold: Tree, test: Tree, delete: set[str]) -> tuple[int, int,
         if bracket in remaining:
             remaining.remove(bracket)
             matched += 1
-    crossing = sum(
-        1 for _, a, b in t
-        if any(c < a < d < b or a < c < b < d for _, c, d in g))
+    crossing = sum(1 for _, a, b in t if any(c < a < d < b or a < c < b < d for _, c, d in g))
     return matched, len(g), len(t), crossing
 
 
@@ -70,7 +68,7 @@ def perturb(tree: Tree, rng: random.Random, top: bool = True) -> Tree:
             kids.append(new)
     if len(kids) > 2 and rng.random() < 0.2:
         i = rng.randrange(len(kids) - 1)
-        kids[i:i + 2] = [Tree(rng.choice(LABELS), kids[i:i + 2])]
+        kids[i : i + 2] = [Tree(rng.choice(LABELS), kids[i : i + 2])]
     label = tree.label()
     if not top and rng.random() < 0.15:
         label = rng.choice(LABELS)
@@ -97,7 +95,11 @@ def test_gum_perturbed_scores_equal_plain_recomputation(gum_sample, delete):
         s = score_pair(gold, test, options)
         matched, n_gold, n_test, crossing = reference_score(gold, test, delete)
         assert (s.matched, s.gold_count, s.test_count, s.crossing) == (
-            matched, n_gold, n_test, crossing)
+            matched,
+            n_gold,
+            n_test,
+            crossing,
+        )
         totals = [totals[0] + matched, totals[1] + n_gold, totals[2] + n_test]
         imperfect += not s.exact
     assert imperfect > len(gum_sample) // 4  # the perturbation did change many trees

@@ -17,62 +17,72 @@ from parser.treequery import (
 )
 from parser.trees import read_tree
 
-TREE = read_tree("(ROOT (S (NP-SBJ (DT The) (NN valve)) (VP (VBD stuck) (PP (IN on) "
-                 "(NP (NNP Monday)))) (. .)))")
+TREE = read_tree(
+    "(ROOT (S (NP-SBJ (DT The) (NN valve)) (VP (VBD stuck) (PP (IN on) (NP (NNP Monday)))) (. .)))"
+)
 
 
-@pytest.mark.parametrize(("pattern", "spans"), [
-    ("(NP)", [(0, 2), (4, 5)]),
-    ("(NP-SBJ)", [(0, 2)]),
-    ("(NP-TMP)", []),
-    ("(NN)", [(1, 2)]),
-    ("(NN valve)", [(1, 2)]),
-    ("(NN VALV*)", [(1, 2)]),
-    ("(PP on (NP ...))", [(3, 5)]),
-    ("(PP on)", []),
-    ("(VP ... (PP) ...)", [(2, 5)]),
-    ("(VP (PP) ...)", []),
-    ("(S (NP) _ (.))", [(0, 6)]),
-    ("(S (NP) _)", []),
-    ("(S ... ~monday ...)", [(0, 6)]),
-    ("(S ... monday ...)", []),
-    ("(S ~(NNP) ...)", []),
-    ("(S ... ~(NNP) ...)", [(0, 6)]),
-    ("(* (DT the) ...)", [(0, 2)]),
-    ("(VP|NP ...)", [(0, 2), (2, 5), (4, 5)]),
-    ("(ROOT (S ...))", [(0, 6)]),
-])
+@pytest.mark.parametrize(
+    ("pattern", "spans"),
+    [
+        ("(NP)", [(0, 2), (4, 5)]),
+        ("(NP-SBJ)", [(0, 2)]),
+        ("(NP-TMP)", []),
+        ("(NN)", [(1, 2)]),
+        ("(NN valve)", [(1, 2)]),
+        ("(NN VALV*)", [(1, 2)]),
+        ("(PP on (NP ...))", [(3, 5)]),
+        ("(PP on)", []),
+        ("(VP ... (PP) ...)", [(2, 5)]),
+        ("(VP (PP) ...)", []),
+        ("(S (NP) _ (.))", [(0, 6)]),
+        ("(S (NP) _)", []),
+        ("(S ... ~monday ...)", [(0, 6)]),
+        ("(S ... monday ...)", []),
+        ("(S ~(NNP) ...)", []),
+        ("(S ... ~(NNP) ...)", [(0, 6)]),
+        ("(* (DT the) ...)", [(0, 2)]),
+        ("(VP|NP ...)", [(0, 2), (2, 5), (4, 5)]),
+        ("(ROOT (S ...))", [(0, 6)]),
+    ],
+)
 def test_fragment_matches_expected_spans(pattern: str, spans: list[tuple[int, int]]) -> None:
     assert match_tree(parse_pattern(pattern), TREE) == spans
 
 
-@pytest.mark.parametrize(("pattern", "spans"), [
-    ("the valve", [(0, 2)]),
-    ("valve *", [(1, 3)]),
-    ("* *", [(0, 2), (1, 3), (2, 4), (3, 5), (4, 6)]),
-    ("st*", [(2, 3)]),
-    ("*day", [(4, 5)]),
-    ("valve on", []),
-])
+@pytest.mark.parametrize(
+    ("pattern", "spans"),
+    [
+        ("the valve", [(0, 2)]),
+        ("valve *", [(1, 3)]),
+        ("* *", [(0, 2), (1, 3), (2, 4), (3, 5), (4, 6)]),
+        ("st*", [(2, 3)]),
+        ("*day", [(4, 5)]),
+        ("valve on", []),
+    ],
+)
 def test_word_string_matches_expected_spans(pattern: str, spans: list[tuple[int, int]]) -> None:
     p = parse_pattern(pattern)
     assert isinstance(p, WordString)
     assert match_tree(p, TREE) == spans
 
 
-@pytest.mark.parametrize(("pattern", "column", "words"), [
-    ("(NP", 4, "never closed"),
-    (")", 1, "without a '('"),
-    ("(NP))", 5, "after the fragment"),
-    ("the (NP)", 5, "cannot hold brackets"),
-    ("( )", 3, "label must follow"),
-    ("(NP ~)", 5, "'~' needs"),
-    ("a _ b", 3, "belongs in a bracketed fragment"),
-    ("", 1, "empty"),
-    ("(N*P)", 2, "not a label"),
-    ("(NP|)", 2, "not a label"),
-    ("va**e", 1, "one '*'"),
-])
+@pytest.mark.parametrize(
+    ("pattern", "column", "words"),
+    [
+        ("(NP", 4, "never closed"),
+        (")", 1, "without a '('"),
+        ("(NP))", 5, "after the fragment"),
+        ("the (NP)", 5, "cannot hold brackets"),
+        ("( )", 3, "label must follow"),
+        ("(NP ~)", 5, "'~' needs"),
+        ("a _ b", 3, "belongs in a bracketed fragment"),
+        ("", 1, "empty"),
+        ("(N*P)", 2, "not a label"),
+        ("(NP|)", 2, "not a label"),
+        ("va**e", 1, "one '*'"),
+    ],
+)
 def test_bad_pattern_error_names_column(pattern: str, column: int, words: str) -> None:
     with pytest.raises(QuerySyntaxError) as err:
         parse_pattern(pattern)
@@ -100,10 +110,23 @@ def _random_tree(rng: random.Random) -> str:
     return rng.choice(TREEBANK)
 
 
-@pytest.mark.parametrize("pattern", [
-    "the pump", "the * pump", "pu*", "* *", "*e", "(NP (DT the) ...)", "(PP ... (NP ~the ...))",
-    "(S ... (VP ...))", "(NN pump)", "(VP|PP ... ~(NN) ...)", "(X)", "(NP the pump)",
-])
+@pytest.mark.parametrize(
+    "pattern",
+    [
+        "the pump",
+        "the * pump",
+        "pu*",
+        "* *",
+        "*e",
+        "(NP (DT the) ...)",
+        "(PP ... (NP ~the ...))",
+        "(S ... (VP ...))",
+        "(NN pump)",
+        "(VP|PP ... ~(NN) ...)",
+        "(X)",
+        "(NP the pump)",
+    ],
+)
 def test_index_agrees_with_scanning_every_tree(pattern: str, rng: random.Random) -> None:
     trees = [read_tree(_random_tree(rng)) for _ in range(40)]
     index = SearchIndex()

@@ -21,8 +21,10 @@ from parser.trees import (
     write_tree,
 )
 
-PTB = ("( (S (NP-SBJ-1 (DT The) (NN dog)) (VP (VBD was) (VP (VBN seen) (NP (-NONE- *-1)) "
-       "(PP-LOC=2 (IN in) (NP (DT the) (NN park))))) (. .)) )")
+PTB = (
+    "( (S (NP-SBJ-1 (DT The) (NN dog)) (VP (VBD was) (VP (VBN seen) (NP (-NONE- *-1)) "
+    "(PP-LOC=2 (IN in) (NP (DT the) (NN park))))) (. .)) )"
+)
 
 
 def test_words_and_pos_tags_in_order():
@@ -37,10 +39,20 @@ def test_is_preterminal():
     assert not is_preterminal("dog")
 
 
-@pytest.mark.parametrize("label, stripped", [
-    ("NP-SBJ-1", "NP"), ("NP=2", "NP"), ("PP-LOC-PRD", "PP"), ("S", "S"), ("PRP$", "PRP$"),
-    ("-NONE-", "-NONE-"), ("-LRB-", "-LRB-"), ("", ""), ("NP-", "NP"),
-])
+@pytest.mark.parametrize(
+    "label, stripped",
+    [
+        ("NP-SBJ-1", "NP"),
+        ("NP=2", "NP"),
+        ("PP-LOC-PRD", "PP"),
+        ("S", "S"),
+        ("PRP$", "PRP$"),
+        ("-NONE-", "-NONE-"),
+        ("-LRB-", "-LRB-"),
+        ("", ""),
+        ("NP-", "NP"),
+    ],
+)
 def test_strip_label(label, stripped):
     assert strip_label(label) == stripped
 
@@ -51,7 +63,8 @@ def test_strip_function_tags_returns_a_new_tree():
     stripped = strip_function_tags(tree)
     assert write_tree(stripped) == (
         "( (S (NP (DT The) (NN dog)) (VP (VBD was) (VP (VBN seen) (NP (-NONE- *-1)) "
-        "(PP (IN in) (NP (DT the) (NN park))))) (. .)))")
+        "(PP (IN in) (NP (DT the) (NN park))))) (. .)))"
+    )
     assert write_tree(tree) == before
 
 
@@ -60,7 +73,8 @@ def test_drop_empty_elements_removes_traces_and_emptied_nodes():
     dropped = drop_empty_elements(tree)
     assert write_tree(dropped) == (
         "( (S (NP-SBJ-1 (DT The) (NN dog)) (VP (VBD was) (VP (VBN seen) "
-        "(PP-LOC=2 (IN in) (NP (DT the) (NN park))))) (. .)))")
+        "(PP-LOC=2 (IN in) (NP (DT the) (NN park))))) (. .)))"
+    )
     assert "*-1" in words(tree)  # the input is untouched
     assert drop_empty_elements(read_tree("(S (NP (-NONE- *)) (VP (-NONE- *T*)))")) is None
 
@@ -83,8 +97,11 @@ def test_flat_tree_defaults():
 
 
 def test_tree_from_spans_builds_nested_tree():
-    tree = tree_from_spans(["the", "dog", "barked", "."], ["DT", "NN", "VBD", "."],
-                           [("VP", 2, 3), ("S", 0, 4), ("NP", 0, 2)])
+    tree = tree_from_spans(
+        ["the", "dog", "barked", "."],
+        ["DT", "NN", "VBD", "."],
+        [("VP", 2, 3), ("S", 0, 4), ("NP", 0, 2)],
+    )
     assert write_tree(tree) == "(ROOT (S (NP (DT the) (NN dog)) (VP (VBD barked)) (. .)))"
 
 

@@ -24,8 +24,9 @@ from parser.trees import (
 
 # Anything but whitespace (categories Z*, and the control characters, some of which Python
 # counts as whitespace) and round brackets; plus the bracket words themselves.
-_WORD_CHARS = st.characters(exclude_categories=("Zs", "Zl", "Zp", "Cc", "Cs"),
-                            exclude_characters="()")
+_WORD_CHARS = st.characters(
+    exclude_categories=("Zs", "Zl", "Zp", "Cc", "Cs"), exclude_characters="()"
+)
 words_st = st.one_of(
     st.sampled_from(["(", ")", "[", "]", "{", "}", "-LRB-", "-RRB-", "f(x)", ".", ","]),
     st.text(_WORD_CHARS, min_size=1, max_size=6),
@@ -38,8 +39,11 @@ labels_st = st.one_of(
 preterminals_st = st.builds(lambda tag, word: Tree(tag, [word]), labels_st, words_st)
 trees_st = st.recursive(
     preterminals_st,
-    lambda kids: st.builds(lambda label, children: Tree(label, children),
-                           labels_st, st.lists(kids, min_size=1, max_size=4)),
+    lambda kids: st.builds(
+        lambda label, children: Tree(label, children),
+        labels_st,
+        st.lists(kids, min_size=1, max_size=4),
+    ),
     max_leaves=20,
 )
 phrase_labels_st = st.sampled_from(["S", "NP", "VP", "PP", "ADVP", "PRT", "SBAR", "X"])
@@ -56,15 +60,20 @@ def stored_form(tree: Tree) -> Tree:
 def bracketings(draw, word_list: list[str], tags: list[str]) -> Tree:
     """A random tree over exactly ``word_list``: random spans, kept when they nest."""
     n = len(word_list)
-    raw = draw(st.lists(st.tuples(phrase_labels_st, st.integers(0, n - 1),
-                                  st.integers(1, n)), max_size=3 * n))
+    raw = draw(
+        st.lists(
+            st.tuples(phrase_labels_st, st.integers(0, n - 1), st.integers(1, n)), max_size=3 * n
+        )
+    )
     kept: list[tuple[str, int, int]] = []
     for label, a, b in raw:
         start, end = min(a, b), max(a, b)
         if start == end:
             continue
-        if all(end <= s or e <= start or (s <= start and end <= e) or (start <= s and e <= end)
-               for _, s, e in kept):
+        if all(
+            end <= s or e <= start or (s <= start and end <= e) or (start <= s and e <= end)
+            for _, s, e in kept
+        ):
             kept.append((label, start, end))
     return tree_from_spans(word_list, tags, kept, root=draw(st.sampled_from(["ROOT", "", "S"])))
 

@@ -15,8 +15,13 @@ SIMPLE = "(S (NP (DT the) (NN dog)) (VP (VBD barked)))"
 
 def test_read_trees_one_line_gives_nltk_trees():
     (tree,) = read_trees(SIMPLE)
-    assert tree == Tree("S", [Tree("NP", [Tree("DT", ["the"]), Tree("NN", ["dog"])]),
-                              Tree("VP", [Tree("VBD", ["barked"])])])
+    assert tree == Tree(
+        "S",
+        [
+            Tree("NP", [Tree("DT", ["the"]), Tree("NN", ["dog"])]),
+            Tree("VP", [Tree("VBD", ["barked"])]),
+        ],
+    )
     assert type(tree) is Tree
 
 

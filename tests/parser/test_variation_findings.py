@@ -27,8 +27,12 @@ def test_bracket_relabelled_string_is_found_with_its_occurrences() -> None:
     f = top[0]
     assert f.detail["analyses"] == {"NP": 2, "ADJP": 1}
     # the odd one out comes first, with its span
-    assert (f.occurrences[0].key, f.occurrences[0].start, f.occurrences[0].end,
-            f.occurrences[0].analysis) == ("t2", 0, 3, "ADJP")
+    assert (
+        f.occurrences[0].key,
+        f.occurrences[0].start,
+        f.occurrences[0].end,
+        f.occurrences[0].analysis,
+    ) == ("t2", 0, 3, "ADJP")
     assert {o.key for o in f.occurrences} == {"t0", "t1", "t2"}
 
 
@@ -49,11 +53,15 @@ def test_bracket_two_trees_of_one_sentence_do_not_make_a_finding() -> None:
 
 def test_bracket_shared_context_ranks_above_none() -> None:
     # "the valve" varies twice: once in identical surroundings, once in different ones
-    shared = ["(ROOT (S (VP (VB check) (NP (DT the) (NN valve))) (ADVP (RB daily))))",
-              "(ROOT (S (VP (VB check) (DT the) (NN valve)) (ADVP (RB daily))))"]
-    apart = ["(ROOT (S (NP (DT a) (NN seal)) (VP (VBD leaked))))",
-             "(ROOT (S (ADVP (RB yesterday)) (VP (VBD replaced) (NP (DT a) (NN seal)))))",
-             "(ROOT (S (VP (VB fit) (DT a) (NN seal) (PP (IN at) (NP (NN noon))))))"]
+    shared = [
+        "(ROOT (S (VP (VB check) (NP (DT the) (NN valve))) (ADVP (RB daily))))",
+        "(ROOT (S (VP (VB check) (DT the) (NN valve)) (ADVP (RB daily))))",
+    ]
+    apart = [
+        "(ROOT (S (NP (DT a) (NN seal)) (VP (VBD leaked))))",
+        "(ROOT (S (ADVP (RB yesterday)) (VP (VBD replaced) (NP (DT a) (NN seal)))))",
+        "(ROOT (S (VP (VB fit) (DT a) (NN seal) (PP (IN at) (NP (NN noon))))))",
+    ]
     found = kinds(find_inconsistencies(sources(*shared, *apart)), "bracket")
     by_words = {f.detail["words"]: f for f in found}
     assert by_words["the valve"].detail["context_both"] >= 2
@@ -98,8 +106,9 @@ def test_tag_variation_in_different_context_is_not_a_finding() -> None:
 def test_rule_rare_beside_frequent_twin_is_found() -> None:
     frequent = "(ROOT (S (NP (DT a) (NN gasket)) (VP (VBD split))))"
     rare = "(ROOT (S (NP (DT a) (NN gasket) (NN gasket)) (VP (VBD split))))"
-    found = kinds(find_inconsistencies(sources(*[frequent] * 3, rare),
-                                       FinderOptions(frequent_min=3)), "rule")
+    found = kinds(
+        find_inconsistencies(sources(*[frequent] * 3, rare), FinderOptions(frequent_min=3)), "rule"
+    )
     texts = [f.detail["rule"] for f in found]
     assert texts == ["NP -> DT NN NN"]
     assert found[0].detail["near"][0] == {"rule": "NP -> DT NN", "count": 3}
@@ -110,8 +119,9 @@ def test_rule_rare_beside_frequent_twin_is_found() -> None:
 def test_rule_rare_without_frequent_twin_is_not_a_finding() -> None:
     frequent = "(ROOT (S (NP (DT a) (NN gasket)) (VP (VBD split))))"
     rare = "(ROOT (S (NP (DT a) (NN gasket)) (VP (VBD split) (PRT (RP off)) (ADVP (RB x)))))"
-    found = kinds(find_inconsistencies(sources(*[frequent] * 3, rare),
-                                       FinderOptions(frequent_min=3)), "rule")
+    found = kinds(
+        find_inconsistencies(sources(*[frequent] * 3, rare), FinderOptions(frequent_min=3)), "rule"
+    )
     # VP -> VBD PRT ADVP is two edits away from VP -> VBD
     assert found == []
 
@@ -128,16 +138,22 @@ def test_bracket_odd_one_under_a_rare_rule_is_corroborated_and_ranks_first() -> 
     # "the red valve" lost its NP in one tree, which leaves a VP rule seen only there;
     # "the blue hose" is no constituent in one tree either, but inside an NP of a shape the
     # treebank uses often: no rare rule backs that one up
-    frequent = ["(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
-                "(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
-                "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
-                "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
-                "(ROOT (S (VP (VB fit) (NP (DT a) (JJ green) (NN pipe) (NN seal)))))",
-                "(ROOT (S (VP (VB fit) (NP (DT a) (JJ grey) (NN tank) (NN lid)))))"]
+    frequent = [
+        "(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
+        "(ROOT (S (VP (VB check) (NP (DT the) (JJ red) (NN valve)))))",
+        "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
+        "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose)))))",
+        "(ROOT (S (VP (VB fit) (NP (DT a) (JJ green) (NN pipe) (NN seal)))))",
+        "(ROOT (S (VP (VB fit) (NP (DT a) (JJ grey) (NN tank) (NN lid)))))",
+    ]
     odd_rare = "(ROOT (S (VP (VB check) (DT the) (JJ red) (NN valve))))"
     odd_plain = "(ROOT (S (VP (VB check) (NP (DT the) (JJ blue) (NN hose) (NN clamp)))))"
-    found = kinds(find_inconsistencies(sources(*frequent, odd_rare, odd_plain),
-                                       FinderOptions(frequent_min=2)), "bracket")
+    found = kinds(
+        find_inconsistencies(
+            sources(*frequent, odd_rare, odd_plain), FinderOptions(frequent_min=2)
+        ),
+        "bracket",
+    )
     by_words = {f.detail["words"]: f for f in found}
     red, blue = by_words["the red valve"], by_words["the blue hose"]
     assert red.detail["rare_rule_here"] is True
