@@ -287,7 +287,7 @@ def import_file(
     """Import one file (all or nothing); the corpus is made when it does not exist."""
     # A plain def: FastAPI runs it in a worker thread, so reading and storing a big file
     # (seconds) never holds up the event loop.
-    # Text and gold are read line by line and staged in short transactions (saves go on
+    # Every kind is read line by line and staged in short transactions (saves go on
     # meanwhile); the import still appears whole or not at all.
     result = import_handle(
         db,

@@ -1,6 +1,6 @@
 """The Transfer page: import a file (admins) and download gold (adjudicators and admins).
 
-An import is read whole, checked, and stored in one transaction; a refused file shows the
+An import is checked, staged in short transactions and published at once; a refused file shows the
 reason with its line and column and nothing of it is stored; a stored one redirects to the
 page with its report (read back from the import's event, so a reload imports nothing). An
 export is a download: one ``.ptb`` file, or with a split a ``.zip`` holding the train, dev and

@@ -17,7 +17,7 @@ Three kinds (:data:`KINDS`):
 
 All or nothing per file: the whole file is decoded and parsed before anything is written, and
 the rows are then written in one transaction, so a bad line anywhere aborts the file and
-nothing of it is stored. (The CLI, the API and the Transfer page import text and gold through
+nothing of it is stored. (The CLI, the API and the Transfer page import every kind through
 :mod:`app.services.staged_import` instead, which streams the file and stages it in short
 transactions; this module's readers and checks are shared by both.) Errors
 (:class:`ImportFailed`) name the file, the line, and for bracket errors the column; non-UTF-8
@@ -681,39 +681,74 @@ def import_report(db: Session, event_id: int) -> ImportReport:
     )
 
 
+class AttachCheck:
+    """Where an annotator's imported trees attach: a tree whose words equal a sentence of the
+    document (not gold) that this annotator has not annotated yet goes on that sentence, the
+    first free one in reading order. ``key`` turns tokens into what is compared (the tokens,
+    or a digest when a streamed file must not hold every sentence). Call it once per item, in
+    file order: it answers the id of the sentence the item attaches to, or None."""
+
+    def __init__(
+        self,
+        db: Session,
+        doc: Document | None,
+        ann_user: User,
+        key: Callable[[list[str]], Hashable],
+    ) -> None:
+        self.key = key
+        self.free: dict[Hashable, list[int]] = {}
+        if doc is None or doc.id is None:
+            return
+        taken = set(
+            db.scalars(
+                select(Annotation.sentence_id)
+                .join(Sentence)
+                .where(Sentence.document_id == doc.id, Annotation.user_id == ann_user.id)
+            )
+        )
+        rows = db.execute(
+            select(Sentence.id, Sentence.tokens)
+            .where(Sentence.document_id == doc.id, Sentence.state != SENT_GOLD)
+            .order_by(Sentence.position)
+        )
+        for sid, tokens in rows:
+            if sid not in taken:
+                self.free.setdefault(key(list(tokens)), []).append(sid)
+        for queue in self.free.values():
+            queue.reverse()  # pop() from the end gives the first in reading order
+
+    def __call__(self, item: _Item) -> int | None:
+        queue = self.free.get(self.key(item.tokens))
+        return queue.pop() if queue else None
+
+
 def _attachable(
     db: Session, doc: Document, ann_user: User, items: list[_Item]
 ) -> dict[int, Sentence]:
     """Items whose words equal a sentence of ``doc`` this annotator has not annotated yet."""
-    taken = set(
-        db.scalars(
-            select(Annotation.sentence_id)
-            .join(Sentence)
-            .where(Sentence.document_id == doc.id, Annotation.user_id == ann_user.id)
-        )
-    )
-    free: dict[tuple[str, ...], list[Sentence]] = {}
-    for sentence in db.scalars(
-        select(Sentence)
-        .where(Sentence.document_id == doc.id, Sentence.state != SENT_GOLD)
-        .order_by(Sentence.position)
-    ):
-        if sentence.id not in taken:
-            free.setdefault(tuple(sentence.tokens), []).append(sentence)
-    out: dict[int, Sentence] = {}
-    for index, item in enumerate(items):
-        queue = free.get(tuple(item.tokens))
-        if queue:
-            out[index] = queue.pop(0)
-    return out
+    check = AttachCheck(db, doc, ann_user, tuple)
+    ids = {index: sid for index, item in enumerate(items) if (sid := check(item)) is not None}
+    wanted = list(ids.values())
+    loaded: dict[int, Sentence] = {}
+    for start in range(0, len(wanted), BATCH):
+        chunk = wanted[start : start + BATCH]
+        loaded.update((s.id, s) for s in db.scalars(select(Sentence).where(Sentence.id.in_(chunk))))
+    return {index: loaded[sid] for index, sid in ids.items()}
 
 
 def _add_annotations(
-    db: Session, rows: list[tuple[_Item, Sentence]], ann_user: User, now: Any
-) -> None:
-    """A submitted annotation with one ``import`` revision per sentence, and the assignment."""
+    db: Session,
+    rows: list[tuple[_Item, Sentence]],
+    ann_user: User,
+    now: Any,
+    *,
+    assign: bool = True,
+) -> list[Any]:
+    """A submitted annotation with one ``import`` revision per sentence, and the assignment
+    (unless ``assign`` is false: a staged import assigns when it publishes). Answers the rows
+    added."""
     assigned: set[int] = set()
-    ids = [sentence.id for _, sentence in rows]
+    ids = [sentence.id for _, sentence in rows] if assign else []
     for start in range(0, len(ids), BATCH):
         assigned |= set(
             db.scalars(
@@ -725,7 +760,7 @@ def _add_annotations(
         )
     annotations = []
     for _, sentence in rows:
-        if sentence.id not in assigned:
+        if assign and sentence.id not in assigned:
             db.add(
                 Assignment(
                     sentence_id=sentence.id,
@@ -751,7 +786,7 @@ def _add_annotations(
             sentence.state = SENT_IN_PROGRESS
     db.add_all(annotations)
     db.flush()
-    db.add_all(
+    revisions = [
         Revision(
             annotation_id=annotation.id,
             number=1,
@@ -762,7 +797,9 @@ def _add_annotations(
             pins={},
         )
         for (item, _), annotation in zip(rows, annotations, strict=True)
-    )
+    ]
+    db.add_all(revisions)
+    return [*annotations, *revisions]
 
 
 def _route_complete(db: Session, corpus: Corpus, sentences: list[Sentence]) -> None:

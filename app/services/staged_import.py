@@ -1,7 +1,8 @@
 """Big imports without a long write lock and without the file in memory: staged, streamed.
 
 What it does
-    :func:`import_stream` imports a plain-text or bracketed gold file read line by line
+    :func:`import_stream` imports a plain-text file, or bracketed trees as gold or as one
+    annotator's annotations, read line by line
     (``open_lines`` is called twice, once per pass, and yields the file's lines as text):
 
     1. **Check** (no writes): every line or tree is read and checked as
@@ -22,11 +23,23 @@ What it does
     one left behind by a killed process (and older than :data:`ABANDONED_AFTER`) is removed
     when a server starts (:func:`drop_abandoned_staging`).
 
-Annotation imports (which attach trees to existing sentences) keep the one-transaction path
-of :func:`app.services.imports.import_bytes`.
+Annotation imports (``kind="annotation"``: one annotator's trees) take the same three steps.
+The check also decides where each tree goes (:class:`app.services.imports.AttachCheck`: onto
+a free sentence of the document with the same words, or a new sentence). Staging writes the
+annotation and its ``import`` revision on a staged sentence: a new sentence for a new one, a
+*placeholder* (in a second staging document, its ``position`` holding the target sentence's
+id) for a tree that attaches. Publishing, in its one transaction, checks that the annotator
+has not started any of the target sentences meanwhile and that they are still there (an
+annotator's own save is never overwritten: the import fails whole and says so), assigns the
+sentences to the annotator, moves the new sentences into the document and the placeholders'
+annotations onto their targets (two UPDATEs), and hands the sentences that now have every
+annotation they wait for to :func:`app.services.agreement.on_submitted`, as the Bench's
+submit does.
 
-Cost: two reads of the file, O(lines); memory O(sentences) digests plus one chunk of rows;
-the publish step is one UPDATE over the staged rows.
+Cost: two reads of the file, O(lines); memory O(sentences) digests plus one chunk of rows
+(for annotations also the digests of the document's free sentences); the publish step is one
+UPDATE over the staged rows (annotations: a few set-wise statements, plus the agreement
+scoring of the sentences the file completes, as many as a submit of each would do).
 """
 
 from __future__ import annotations
@@ -39,10 +52,26 @@ from datetime import timedelta
 from pathlib import Path
 from typing import Any, BinaryIO
 
-from sqlalchemy import delete, func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy import BigInteger, cast, delete, func, insert, literal, select, update
+from sqlalchemy.orm import Session, aliased
 
-from app.models import SENT_GOLD, SENT_QUEUED, Corpus, Document, Event, Gold, Sentence, User, utcnow
+from app.models import (
+    ANN_SUBMITTED,
+    SENT_GOLD,
+    SENT_IN_PROGRESS,
+    SENT_QUEUED,
+    Annotation,
+    Assignment,
+    Corpus,
+    Document,
+    Event,
+    Gold,
+    Revision,
+    Sentence,
+    User,
+    utcnow,
+)
+from app.services import agreement
 from app.services.corpora import (
     STAGING_KEY,
     absorb_tree_inventory,
@@ -57,16 +86,18 @@ from app.services.imports import (
     KINDS,
     MAX_DOCUMENT_NAME,
     REPORT_DUPLICATES,
+    AttachCheck,
     Duplicate,
     DuplicateCheck,
     ImportFailed,
     ImportResult,
     Progress,
+    _add_annotations,
+    _annotator,
     _document,
     _Item,
     _tokenizer,
     chunk_lines,
-    import_bytes,
     text_item,
     tree_chunk_items,
 )
@@ -129,16 +160,28 @@ def _items(
 
 
 def _check(
-    db: Session, corpus: Corpus | None, lines: Iterable[str], kind: str, source: str, tokenizer: str
-) -> tuple[int, list[Duplicate], set[int], _Pass]:
-    """Pass 1: count, duplicates (and the ordinals of the duplicate items), statistics."""
+    db: Session,
+    corpus: Corpus | None,
+    lines: Iterable[str],
+    kind: str,
+    source: str,
+    tokenizer: str,
+    attach: AttachCheck | None = None,
+) -> tuple[int, list[Duplicate], set[int], dict[int, int], _Pass]:
+    """Pass 1: count, duplicates (and the ordinals of the duplicate items), the sentences
+    items attach to (ordinal to sentence id, annotations only), statistics. Items that attach
+    are not duplicates: they are the second annotator's tree of the same sentence."""
     check = DuplicateCheck(db, corpus, _digest)
     dups: list[Duplicate] = []
     dup_ordinals: set[int] = set()
+    targets: dict[int, int] = {}
     stats = _Pass()
     count = 0
     for ordinal, item in enumerate(_items(lines, kind, source, tokenizer, stats)):
         count += 1
+        if attach is not None and (target := attach(item)) is not None:
+            targets[ordinal] = target
+            continue
         if (dup := check(item)) is not None:
             dups.append(dup)
             dup_ordinals.add(ordinal)
@@ -146,16 +189,16 @@ def _check(
         raise ImportFailed(
             "the file is blank (only whitespace): there is nothing to import", source=source
         )
-    return count, dups, dup_ordinals, stats
+    return count, dups, dup_ordinals, targets, stats
 
 
 def _drop_staging(db: Session, staging_id: int) -> None:
     db.rollback()
-    db.execute(
-        delete(Gold).where(
-            Gold.sentence_id.in_(select(Sentence.id).where(Sentence.corpus_id == staging_id))
-        )
-    )
+    staged = select(Sentence.id).where(Sentence.corpus_id == staging_id)
+    staged_annotations = select(Annotation.id).where(Annotation.sentence_id.in_(staged))
+    db.execute(delete(Revision).where(Revision.annotation_id.in_(staged_annotations)))
+    db.execute(delete(Annotation).where(Annotation.sentence_id.in_(staged)))
+    db.execute(delete(Gold).where(Gold.sentence_id.in_(staged)))
     db.execute(delete(Sentence).where(Sentence.corpus_id == staging_id))
     db.execute(delete(Document).where(Document.corpus_id == staging_id))
     db.execute(delete(Corpus).where(Corpus.id == staging_id))
@@ -187,20 +230,36 @@ def import_stream(
     document_name: str,
     kind: str = "text",
     tokenizer: str = "whitespace",
+    annotator: str | None = None,
     skip_duplicates: bool = False,
     create_corpus_if_missing: bool = True,
     user: User | None = None,
     progress: Progress | None = None,
 ) -> ImportResult:
-    """Import a text or gold file in three steps (check, stage, publish). Commits."""
-    if kind not in ("text", "gold"):
-        raise BadInput(f"a streamed import takes text or gold, not {kind!r}")
+    """Import a text, gold or annotation file in three steps (check, stage, publish).
+    Commits."""
+    if kind not in KINDS:
+        raise BadInput(f"unknown import kind {kind!r}; one of {', '.join(KINDS)}")
     document_name = clean_name(document_name, "document", MAX_DOCUMENT_NAME)
     corpus_name = clean_name(corpus_name)
+    ann_user = _annotator(db, annotator) if kind == "annotation" else None
     corpus = corpus_by_name(db, corpus_name)
     if corpus is None and not create_corpus_if_missing:
         raise NotFound(f"no corpus named {corpus_name!r}")
-    count, dups, dup_ordinals, stats = _check(db, corpus, open_lines(), kind, source, tokenizer)
+    attach = None
+    if ann_user is not None:
+        doc = None
+        if corpus is not None:
+            doc = db.scalar(
+                select(Document).where(
+                    Document.corpus_id == corpus.id, Document.name == document_name
+                )
+            )
+        attach = AttachCheck(db, doc, ann_user, _digest)
+    count, dups, dup_ordinals, targets, stats = _check(
+        db, corpus, open_lines(), kind, source, tokenizer, attach
+    )
+    del attach  # its map of free sentences is not needed any more
     db.rollback()  # the check read only; start the staging with a fresh transaction
 
     staging = Corpus(
@@ -212,10 +271,11 @@ def import_stream(
     db.add(staging)
     db.flush()
     stage_doc = Document(corpus_id=staging.id, name="staged", position=0)
-    db.add(stage_doc)
+    attach_doc = Document(corpus_id=staging.id, name="attached", position=1)
+    db.add_all([stage_doc, attach_doc])
     db.commit()
-    staging_id, stage_doc_id = staging.id, stage_doc.id
-    state = SENT_GOLD if kind == "gold" else SENT_QUEUED
+    staging_id, stage_doc_id, attach_doc_id = staging.id, stage_doc.id, attach_doc.id
+    state = {"text": SENT_QUEUED, "gold": SENT_GOLD, "annotation": SENT_IN_PROGRESS}[kind]
     now = utcnow()
     imported = skipped = 0
     try:
@@ -238,24 +298,31 @@ def import_stream(
                 ]
                 db.add_all(golds)
                 rows += golds
+            elif ann_user is not None:
+                rows += _add_annotations(db, batch, ann_user, now, assign=False)
             db.commit()
             for row in rows:  # written: let them go, so memory holds one chunk at a time
                 db.expunge(row)
             batch.clear()
             if progress:
-                progress(imported + skipped, count)
+                progress(imported + skipped + len(targets), count)
 
         for ordinal, item in enumerate(_items(open_lines(), kind, source, tokenizer, _Pass())):
-            if ordinal in dup_ordinals and skip_duplicates:
+            if ordinal in targets:  # a placeholder: its position holds the target's id
+                place, doc_id = targets[ordinal], attach_doc_id
+            elif ordinal in dup_ordinals and skip_duplicates:
                 skipped += 1
                 continue
+            else:
+                place, doc_id = imported, stage_doc_id
+                imported += 1
             batch.append(
                 (
                     item,
                     Sentence(
                         corpus_id=staging_id,
-                        document_id=stage_doc_id,
-                        position=imported,
+                        document_id=doc_id,
+                        position=place,
                         tokens=item.tokens,
                         text=item.text,
                         state=state,
@@ -263,7 +330,6 @@ def import_stream(
                     ),
                 )
             )
-            imported += 1
             if len(batch) >= STAGE_CHUNK:
                 write()
         if batch:
@@ -272,20 +338,24 @@ def import_stream(
             db,
             staging_id,
             stage_doc_id,
+            attach_doc_id,
             source=source,
             corpus_name=corpus_name,
             document_name=document_name,
             kind=kind,
+            ann_user=ann_user,
             user=user,
             stats=stats,
             imported=imported,
+            attached=len(targets),
             skipped=skipped,
             dups=dups,
+            now=now,
         )
     except BaseException:
         _drop_staging(db, staging_id)
         raise
-    _drop_staging(db, staging_id)  # empty now
+    _drop_staging(db, staging_id)  # only the placeholders are left
     if progress:
         progress(count, count)
     return result
@@ -295,16 +365,20 @@ def _publish(
     db: Session,
     staging_id: int,
     stage_doc_id: int,
+    attach_doc_id: int,
     *,
     source: str,
     corpus_name: str,
     document_name: str,
     kind: str,
+    ann_user: User | None,
     user: User | None,
     stats: _Pass,
     imported: int,
+    attached: int,
     skipped: int,
     dups: list[Duplicate],
+    now: Any,
 ) -> ImportResult:
     """The staged sentences become the document's, in one short transaction. Commits."""
     corpus = corpus_by_name(db, corpus_name)
@@ -316,6 +390,11 @@ def _publish(
         select(func.coalesce(func.max(Sentence.position), -1)).where(Sentence.document_id == doc.id)
     )
     offset = (last if last is not None else -1) + 1
+    ready: list[int] = []
+    if ann_user is not None:
+        ready = _publish_annotations(
+            db, corpus, doc, stage_doc_id, attach_doc_id, ann_user, attached, offset, now, source
+        )
     db.execute(
         update(Sentence)
         .where(Sentence.document_id == stage_doc_id)
@@ -330,6 +409,7 @@ def _publish(
         kind=kind,
         source=source,
         imported=imported,
+        attached=attached,
         skipped_duplicates=skipped,
         blank_lines=stats.blank,
         empty_elements_dropped=stats.dropped,
@@ -337,18 +417,22 @@ def _publish(
         corpus_created=corpus_created,
         document_created=doc_created,
     )
-    if kind == "gold":
+    if kind != "text":
         absorb_tree_inventory(corpus, stats.labels, stats.tags)
-        if imported:
-            gold_added(db, corpus)
+    if kind == "gold" and imported:
+        gold_added(db, corpus)
+    if ready:
+        db.expire_all()  # the UPDATEs above went around the session
+        for sentence_id in ready:
+            agreement.on_submitted(db, db.get_one(Sentence, sentence_id))
     detail: dict[str, Any] = {
         "source": source,
         "document": doc.name,
         "kind": kind,
         "imported": imported,
-        "attached": 0,
+        "attached": attached,
         "duplicates": len(dups),
-        "annotator": None,
+        "annotator": ann_user.username if ann_user else None,
         "summary": result.summary(),
         "skipped_duplicates": skipped,
         "duplicate_lines": [d.describe() for d in dups[:REPORT_DUPLICATES]],
@@ -364,6 +448,116 @@ def _publish(
     return result
 
 
+def _publish_annotations(
+    db: Session,
+    corpus: Corpus,
+    doc: Document,
+    stage_doc_id: int,
+    attach_doc_id: int,
+    ann_user: User,
+    attached: int,
+    offset: int,
+    now: Any,
+    source: str,
+) -> list[int]:
+    """The annotation part of publishing, before the new sentences move: check the targets,
+    assign, move the placeholders' annotations onto their targets. Answers the ids of the
+    sentences that now have every annotation they wait for. Does not commit."""
+    placeholder = aliased(Sentence)
+    targets = select(placeholder.position).where(placeholder.document_id == attach_doc_id)
+    if attached:
+        still = db.scalar(
+            select(func.count())
+            .select_from(Sentence)
+            .where(
+                Sentence.id.in_(targets),
+                Sentence.document_id == doc.id,
+                Sentence.state != SENT_GOLD,
+            )
+        )
+        if still != attached:
+            raise ImportFailed(
+                f"{attached - int(still or 0)} of the sentences this file's trees go on were "
+                "removed or made gold while it was imported; nothing was imported, import the "
+                "file again",
+                source=source,
+            )
+        started = db.scalar(
+            select(func.count())
+            .select_from(Annotation)
+            .where(Annotation.user_id == ann_user.id, Annotation.sentence_id.in_(targets))
+        )
+        if started:
+            raise ImportFailed(
+                f"{ann_user.username} started {started} of the sentences this file's trees go "
+                "on while it was imported; their own work is kept and nothing was imported: "
+                "import the file again (those trees then become new sentences or attach "
+                "elsewhere)",
+                source=source,
+            )
+    # assignments: the targets (unless already assigned) and the new sentences, in reading
+    # order (the rank of app.models.reading_rank, computed in SQL)
+    target = aliased(Sentence)
+    already = select(Assignment.sentence_id).where(Assignment.user_id == ann_user.id)
+    shift = 1 << 32
+    for sentence_id, corpus_id, rank, where in (
+        (
+            target.id,
+            target.corpus_id,
+            cast(target.document_id, BigInteger) * shift + target.position,
+            (target.id.in_(targets), target.id.not_in(already)),
+        ),
+        (
+            Sentence.id,
+            literal(corpus.id),
+            literal(doc.id * shift + offset, BigInteger) + Sentence.position,
+            (Sentence.document_id == stage_doc_id,),
+        ),
+    ):
+        db.execute(
+            insert(Assignment).from_select(
+                ["sentence_id", "user_id", "created_at", "corpus_id", "rank"],
+                select(sentence_id, literal(ann_user.id), literal(now), corpus_id, rank).where(
+                    *where
+                ),
+            )
+        )
+    needed = corpus.options.annotators_per_sentence
+    ready = (
+        list(db.scalars(select(Sentence.id).where(Sentence.document_id == stage_doc_id)))
+        if needed <= 1
+        else []
+    )
+    if attached:
+        db.execute(
+            update(Annotation)
+            .where(
+                Annotation.sentence_id.in_(
+                    select(placeholder.id).where(placeholder.document_id == attach_doc_id)
+                )
+            )
+            .values(
+                sentence_id=select(placeholder.position)
+                .where(placeholder.id == Annotation.sentence_id)
+                .scalar_subquery()
+            ),
+            execution_options={"synchronize_session": False},
+        )
+        db.execute(
+            update(Sentence)
+            .where(Sentence.id.in_(targets), Sentence.state == SENT_QUEUED)
+            .values(state=SENT_IN_PROGRESS),
+            execution_options={"synchronize_session": False},
+        )
+        ready += db.scalars(
+            select(Annotation.sentence_id)
+            .where(Annotation.sentence_id.in_(targets), Annotation.state == ANN_SUBMITTED)
+            .group_by(Annotation.sentence_id)
+            .having(func.count() >= needed)
+        )
+    return ready
+
+
 def import_handle(
     db: Session,
     handle: BinaryIO,
@@ -375,26 +569,13 @@ def import_handle(
     annotator: str | None = None,
     **options: Any,
 ) -> ImportResult:
-    """Import an open binary file: text and gold streamed and staged (:func:`import_stream`),
-    annotations through :func:`app.services.imports.import_bytes` (one transaction)."""
+    """Import an open binary file, streamed and staged (:func:`import_stream`)."""
     if kind not in KINDS:
         raise BadInput(f"unknown import kind {kind!r}; one of {', '.join(KINDS)}")
     document_name = document_name or Path(source).stem
     handle.seek(0, 2)
     if handle.tell() == 0:
         raise ImportFailed("the file is empty: there is nothing to import", source=source)
-    if kind == "annotation":
-        handle.seek(0)
-        return import_bytes(
-            db,
-            handle.read(),
-            source=source,
-            corpus_name=corpus_name,
-            kind=kind,
-            document_name=document_name,
-            annotator=annotator,
-            **options,
-        )
     return import_stream(
         db,
         lambda: binary_lines(handle, source),
@@ -402,6 +583,7 @@ def import_handle(
         corpus_name=corpus_name,
         document_name=document_name,
         kind=kind,
+        annotator=annotator,
         **options,
     )
 

@@ -1,4 +1,4 @@
-"""Text and gold imports are checked, staged in short transactions and published at once:
+"""Imports of every kind are checked, staged in short transactions and published at once:
 nobody sees a half-done import, a failure leaves nothing, and saves meanwhile answer 201 or a
 retryable 503, never 500."""
 
@@ -111,8 +111,23 @@ def test_staged_import_abandoned_staging_is_dropped(db, people) -> None:
     assert db.query(Corpus).count() == 0
 
 
+def _trees(count: int) -> bytes:
+    return "".join(
+        f"(ROOT (S (NP (NN crate) (CD {i})) (VP (VBZ waits) (PP (IN on) (NP (DT the) "
+        "(NN quay)))) (. .)))\n"
+        for i in range(count)
+    ).encode()
+
+
 @pytest.mark.slow
-def test_staged_import_saves_go_on_meanwhile(settings, db, people) -> None:
+@pytest.mark.parametrize(
+    "kind, make, fields",
+    [
+        ("text", _text, {}),
+        ("annotation", _trees, {"annotator": "ann2"}),  # trees as ann2's annotations
+    ],
+)
+def test_staged_import_saves_go_on_meanwhile(settings, db, people, kind, make, fields) -> None:
     corpus, (sentence,) = make_corpus(db, ["the tide turned ."], labels=[], tags=[])
     assign(db, [sentence], people.ann1)
     tree = flat_text(sentence.tokens)
@@ -126,8 +141,8 @@ def test_staged_import_saves_go_on_meanwhile(settings, db, people) -> None:
                 resp = admin.http.post(
                     "/api/corpora/import",
                     headers={"X-CSRF-Token": admin.csrf},
-                    data={"corpus_name": "Quay", "kind": "text"},
-                    files={"upload": ("big.txt", _text(20_000))},
+                    data={"corpus_name": "Quay", "kind": kind, **fields},
+                    files={"upload": ("big.txt", make(20_000))},
                     timeout=600,
                 )
                 answers.append(resp.status_code)
