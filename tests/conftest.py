@@ -38,3 +38,18 @@ def _warm_numba_cache() -> None:
 
     tiny = Grammar.from_text("1.0 S -> A B\n1.0 A -> 'a'\n1.0 B -> 'b'")
     parse(tiny, ["a", "b"], k=2, posteriors=True)
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    """Run the long tests first. pytest-xdist deals tests out in collection order, so a long
+    test collected last keeps one worker busy while the other has nothing left to do; started
+    first, the short tests fill in around it (longest-first scheduling, common practice, no
+    source). The order within each group is the collection order."""
+
+    def weight(item: pytest.Item) -> int:
+        if item.get_closest_marker("slow") is None:
+            return 3 if item.get_closest_marker("browser") is None else 2
+        # Among the long ones, the parser's accuracy and reference checks run longest.
+        return 0 if "tests/parser/" in item.nodeid else 1
+
+    items.sort(key=weight)

@@ -52,6 +52,7 @@ def _activate(db, corpus, version) -> None:
     db.commit()
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("first_user", ["ann1", "ann2"])
 def test_fixed_start_is_the_same_for_both_annotators_across_a_retraining(
     db, people, login, first_user

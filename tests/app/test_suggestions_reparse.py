@@ -37,6 +37,7 @@ def gum_bench(db, people, login):
     return login("ann1"), list(zip(sentences, trees, strict=True))
 
 
+@pytest.mark.slow
 def test_suggestions_reparse_keeps_every_pin_on_50_gum_sentences(gum_bench, rng) -> None:
     me, pairs = gum_bench
     assert len(pairs) == 50

@@ -513,6 +513,7 @@ def _effect_of(text: str) -> Callable[..., None] | None:
     return EFFECTS[max(matches, key=len)] if matches else None
 
 
+@pytest.mark.slow
 @pytest.mark.browser
 def test_every_key_in_the_help_does_what_it_says(browser_page, live_server, bench) -> None:
     page = browser_page

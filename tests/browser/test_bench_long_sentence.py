@@ -45,6 +45,7 @@ def _in_view(page, selector: str) -> dict:
     )
 
 
+@pytest.mark.slow
 def test_bench_sixty_word_gum_sentence_is_workable(browser_page, live_server, output_dir) -> None:
     tree = _sixty_word_tree()
     text = write_tree(tree)

@@ -41,6 +41,7 @@ def _open(page, base_url: str, user: str, sentence_id: int) -> str:
     return shown_tree(page)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("first_user", ["ann1", "ann2"])
 def test_bench_two_annotators_start_equal_across_a_retraining(
     browser, live_server, first_user

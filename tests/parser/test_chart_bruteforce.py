@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterator
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from nltk import Tree
@@ -196,6 +197,7 @@ def test_chart_bruteforce_unconstrained(g: dict, words: list[str]) -> None:
     _check(g["rules"], words, None)
 
 
+@pytest.mark.slow
 @settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(problems())
 def test_chart_bruteforce_constrained(problem: tuple[dict, list[str], Constraints]) -> None:

@@ -39,6 +39,7 @@ def _accuracy(tags: list[str], gold: list[str], where: list[int]) -> float:
     return sum(tags[i] == gold[i] for i in where) / len(where)
 
 
+@pytest.mark.slow
 def test_reparse_gum_one_gold_pin_is_kept_and_tags_outside_do_not_get_worse(
     grammar: Grammar, rng
 ) -> None:
@@ -66,6 +67,7 @@ def test_reparse_gum_one_gold_pin_is_kept_and_tags_outside_do_not_get_worse(
     assert pinned_mean >= TAG_FLOOR
 
 
+@pytest.mark.slow
 def test_reparse_gum_any_label_over_any_span_keeps_the_sentence_parsable(
     grammar: Grammar, rng
 ) -> None:
