@@ -182,6 +182,42 @@ def serve(host: str | None, port: int | None, workers: int, data_dir: Path | Non
     _serve(settings, settings.host, settings.port, workers)
 
 
+@main.command()
+@click.option(
+    "--name", default=None, help="Name in the queue's records and logs [default: host:pid]."
+)
+@data_dir_option
+def worker(name: str | None, data_dir: Path | None) -> None:
+    """Run background jobs (grammar training, findings runs) from the PostgreSQL queue.
+
+    For servers with TREEWRIGHT_JOB_RUNNER=workers: start one or more on any machine that
+    reaches the database (one job at a time each; more processes run more at once). Ctrl-C
+    or SIGTERM stops it after its running job. Needs the `postgres` extra.
+    """
+    import logging
+
+    settings = make_settings(data_dir)
+    if settings.is_sqlite:
+        raise click.ClickException(
+            "treewright worker needs PostgreSQL: set TREEWRIGHT_DATABASE_URL to "
+            "postgresql+psycopg://user@host/dbname (on SQLite each server runs its jobs itself)"
+        )
+    try:
+        from app import jobs
+    except ImportError as exc:
+        raise click.ClickException(
+            f"treewright worker needs the postgres extra ({exc}): "
+            "pip install 'treewright[postgres]'"
+        ) from None
+    from app.db import upgrade_to_head
+
+    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(name)s %(message)s")
+    upgrade_to_head(settings)
+    label = name or jobs.describe()
+    click.echo(f"Treewright worker {label} takes jobs from the queue (Ctrl-C stops it)")
+    jobs.run_worker(settings, name=label)
+
+
 def _wipe(settings: Settings, keep_copy: bool) -> Path | None:
     """Remove the database (SQLite: the file, after a copy when asked; PostgreSQL: every
     table)."""

@@ -195,6 +195,11 @@ async def _startup_hooks(application: FastAPI) -> AsyncIterator[None]:
 def create_app(settings: Settings | None = None, *, migrate: bool = True) -> FastAPI:
     """Build the service for ``settings`` (default: from the environment)."""
     settings = settings or get_settings()
+    if settings.job_runner == "workers" and settings.is_sqlite:
+        raise ValueError(
+            "TREEWRIGHT_JOB_RUNNER=workers needs PostgreSQL (TREEWRIGHT_DATABASE_URL="
+            "postgresql+psycopg://user@host/dbname); on SQLite leave it at in_process"
+        )
     if migrate:
         upgrade_to_head(settings)
     settings.resolved_secret_key()  # create the key file on first run

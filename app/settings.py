@@ -97,6 +97,20 @@ class Settings(BaseSettings):
         default=False,
         description="Train grammars in a thread instead of a separate process (tests use this).",
     )
+    job_runner: Literal["in_process", "workers"] = Field(
+        default="in_process",
+        description="Where grammar training and findings runs go: 'in_process' (a process "
+        "started by each server, the only choice on SQLite) or 'workers' (PostgreSQL only: "
+        "jobs are queued in the database and run by `treewright worker` processes).",
+    )
+    worker_stalled_seconds: float = Field(
+        default=30.0,
+        ge=1,
+        le=3600,
+        allow_inf_nan=False,
+        description="With job_runner 'workers': a worker silent this long is taken for dead "
+        "and its job is run again by another worker.",
+    )
     parse_threads: int = Field(
         default=1, ge=1, le=64, description="numba threads each parse runs on."
     )

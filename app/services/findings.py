@@ -115,16 +115,15 @@ def queue_run(
     return run
 
 
-def claim_run(factory: sessionmaker[Session]) -> int | None:
-    """Take the oldest queued run (queued -> running); None when none waits."""
+def claim_run(factory: sessionmaker[Session], only: int | None = None) -> int | None:
+    """Take the oldest queued run, or the run ``only`` if it is queued (queued -> running);
+    None when none waits."""
     with factory() as db:
         while True:
-            run_id = db.scalar(
-                select(FindingRun.id)
-                .where(FindingRun.status == RUN_QUEUED)
-                .order_by(FindingRun.id)
-                .limit(1)
-            )
+            query = select(FindingRun.id).where(FindingRun.status == RUN_QUEUED)
+            if only is not None:
+                query = query.where(FindingRun.id == only)
+            run_id = db.scalar(query.order_by(FindingRun.id).limit(1))
             if run_id is None:
                 return None
             taken = db.execute(

@@ -74,7 +74,7 @@ from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPool
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
-from typing import Any, cast
+from typing import Any, Protocol, cast
 
 from nltk import Tree
 from sqlalchemy import CursorResult, Engine, event, func, select, update
@@ -338,6 +338,17 @@ class _Progress:
         return report
 
 
+def _owned_here(message: str) -> dict[str, Any]:
+    """The values that make this process the owner of a job that starts now."""
+    return {
+        "progress": 0.0,
+        "message": message,
+        "owner_host": HOST,
+        "owner_pid": os.getpid(),
+        "heartbeat_at": utcnow(),
+    }
+
+
 def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int | None:
     """Take the oldest queued job (or the given one) for this worker; None if none left."""
     with factory() as db:
@@ -348,20 +359,51 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
             moved = db.execute(
                 update(GrammarVersion)
                 .where(GrammarVersion.id == vid, GrammarVersion.status == GV_QUEUED)
-                .values(
-                    status=GV_TRAINING,
-                    progress=0.0,
-                    message="starting",
-                    owner_host=HOST,
-                    owner_pid=os.getpid(),
-                    heartbeat_at=utcnow(),
-                )
+                .values(status=GV_TRAINING, **_owned_here("starting"))
                 .execution_options(synchronize_session=False)
             )
             db.commit()
             if cast(CursorResult[Any], moved).rowcount == 1:
                 return vid
         return None
+
+
+def _same(column: Any, value: Any) -> Any:
+    """``column = value``, or ``column IS NULL`` for None (compare-and-set conditions)."""
+    return column.is_(None) if value is None else column == value
+
+
+def _owner_seen(version: GrammarVersion) -> tuple[Any, ...]:
+    """The conditions that the row still has the owner and heartbeat read in ``version``."""
+    return (
+        GrammarVersion.id == version.id,
+        GrammarVersion.status == GV_TRAINING,
+        _same(GrammarVersion.owner_host, version.owner_host),
+        _same(GrammarVersion.owner_pid, version.owner_pid),
+        _same(GrammarVersion.heartbeat_at, version.heartbeat_at),
+    )
+
+
+def take(factory: sessionmaker[Session], version_id: int) -> bool:
+    """Make this process the owner of a job, as a queued job's runner does: from ``queued``
+    (:func:`claim`), or from ``training`` when the owner is gone (:func:`owner_gone`: a worker
+    killed mid-job). The take-over is a compare-and-set on the owner and heartbeat that were
+    read, so of two processes that find the same abandoned job only one runs it again. False
+    when the job is finished or a live process trains it: there is nothing to do."""
+    if claim(factory, version_id) is not None:
+        return True
+    with factory() as db:
+        version = db.get(GrammarVersion, version_id)
+        if version is None or version.status != GV_TRAINING or not owner_gone(version, utcnow()):
+            return False
+        moved = db.execute(
+            update(GrammarVersion)
+            .where(*_owner_seen(version))
+            .values(**_owned_here("started again: the process that trained it stopped"))
+            .execution_options(synchronize_session=False)
+        )
+        db.commit()
+        return cast(CursorResult[Any], moved).rowcount == 1
 
 
 class Heartbeat:
@@ -749,10 +791,14 @@ def owner_gone(version: GrammarVersion, now: datetime) -> bool:
     return version.owner_host == HOST and not process_alive(version.owner_pid)
 
 
-def fail_interrupted(factory: sessionmaker[Session]) -> int:
+def fail_interrupted(factory: sessionmaker[Session], *, requeue: bool = False) -> int:
     """Mark the jobs in ``training`` whose owner is gone (see :func:`owner_gone`) as failed;
     a job another live process trains is left alone. Findings runs left ``running`` are
-    failed too. How many jobs were failed. Commits."""
+    failed too. How many jobs were failed. Commits.
+
+    ``requeue`` (the worker queue, app.jobs): put such jobs back to ``queued`` instead, to be
+    run again from the start under the same version row and number; findings runs are left
+    to the queue's own recovery there, since they record no owner."""
     failed = 0
     with factory() as db:
         now = utcnow()
@@ -761,26 +807,33 @@ def fail_interrupted(factory: sessionmaker[Session]) -> int:
         ).all():
             if not owner_gone(version, now):
                 continue
+            values: dict[str, Any] = (
+                {
+                    "status": GV_QUEUED,
+                    "progress": 0.0,
+                    "message": "queued again: the process that trained it stopped",
+                    "owner_host": None,
+                    "owner_pid": None,
+                    "heartbeat_at": None,
+                }
+                if requeue
+                else {
+                    "status": GV_FAILED,
+                    "finished_at": now,
+                    "message": "interrupted: the process that trained it stopped",
+                }
+            )
             # compare-and-set: the owner may have finished or beaten meanwhile
             moved = db.execute(
                 update(GrammarVersion)
-                .where(
-                    GrammarVersion.id == version.id,
-                    GrammarVersion.status == GV_TRAINING,
-                    GrammarVersion.heartbeat_at.is_(None)
-                    if version.heartbeat_at is None
-                    else GrammarVersion.heartbeat_at == version.heartbeat_at,
-                )
-                .values(
-                    status=GV_FAILED,
-                    finished_at=now,
-                    message="interrupted: the process that trained it stopped",
-                )
+                .where(*_owner_seen(version))
+                .values(**values)
                 .execution_options(synchronize_session=False)
             )
             failed += int(cast(CursorResult[Any], moved).rowcount or 0)
         db.commit()
-    fail_interrupted_runs(factory)
+    if not requeue:
+        fail_interrupted_runs(factory)
     return failed
 
 
@@ -828,6 +881,23 @@ def watch_parent(parent_pid: int, poll: float = PARENT_POLL_SECONDS) -> None:
     threading.Thread(target=watch, name="parent-watch", daemon=True).start()
 
 
+class Runner(Protocol):
+    """What runs the queued jobs of one database: this module's :class:`TrainingRunner`, or
+    app.jobs.QueueRunner (``job_runner = "workers"``: jobs go to ``treewright worker``
+    processes through the database)."""
+
+    factory: sessionmaker[Session]
+    last_error: BaseException | None
+
+    def recover(self) -> None: ...
+
+    def kick(self) -> None: ...
+
+    def wait_idle(self, timeout: float = 600.0) -> None: ...
+
+    def shutdown(self, wait: bool = True) -> None: ...
+
+
 class TrainingRunner:
     """One worker (process or thread) that drains the job queue whenever it is kicked."""
 
@@ -855,6 +925,10 @@ class TrainingRunner:
                     initargs=(os.getpid(),),
                 )
         return self._executor
+
+    def recover(self) -> None:
+        """On first use: fail the jobs that a stopped process left (:func:`fail_interrupted`)."""
+        fail_interrupted(self.factory)
 
     def kick(self) -> None:
         """Make sure a drain runs after this call (cheap; never blocks on training)."""
@@ -923,16 +997,17 @@ class TrainingRunner:
                 proc.terminate()
 
 
-_RUNNERS: weakref.WeakKeyDictionary[Engine, TrainingRunner] = weakref.WeakKeyDictionary()
+_RUNNERS: weakref.WeakKeyDictionary[Engine, Runner] = weakref.WeakKeyDictionary()
 _RUNNERS_LOCK = threading.Lock()
 
 
-def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner:
+def get_runner(target: Any, *, in_process: bool | None = None) -> Runner:
     """The runner of an app (pass ``app.state``) or of a sessionmaker, created on first use;
     kicked when queued jobs wait (one COUNT query).
 
-    With app state the setting ``training_in_process`` decides thread or process; with a bare
-    sessionmaker ``in_process`` does (default: a process).
+    With app state the setting ``job_runner`` decides between this process's runner and the
+    worker queue (app.jobs), and ``training_in_process`` between thread and process; with a
+    bare sessionmaker ``in_process`` does (default: a process).
     """
     factory: sessionmaker[Session] = getattr(target, "sessionmaker", target)
     engine = factory.kw["bind"]
@@ -944,12 +1019,17 @@ def get_runner(target: Any, *, in_process: bool | None = None) -> TrainingRunner
         created = runner is None
         if runner is None:
             url = engine.url.render_as_string(hide_password=False)
-            runner = TrainingRunner(factory, url=url, in_process=in_process)
+            if settings is not None and settings.job_runner == "workers":
+                from app.jobs import QueueRunner  # PostgreSQL and procrastinate only
+
+                runner = QueueRunner(factory, settings)
+            else:
+                runner = TrainingRunner(factory, url=url, in_process=in_process)
             _RUNNERS[engine] = runner
             if settings is not None:
                 target.training_runner = runner
     if created:
-        fail_interrupted(factory)
+        runner.recover()
     # jobs queued by another process (an import from the CLI, a test) start here too
     with factory() as db:
         waiting = db.scalar(
