@@ -23,7 +23,8 @@ from sqlalchemy.orm import Session
 
 from app.main import create_app
 from app.models import GV_READY, GV_TRAINING, Event, GrammarVersion
-from app.services import training
+from app.services import findings, training
+from app.services.corpora import create_corpus
 from app.settings import PROJECT_ROOT, Settings
 from tests.app.conftest import on_postgres
 from tests.app.review_helpers import import_demo_gold, wait_for_version
@@ -218,3 +219,50 @@ def test_workers_refuse_sqlite(tmp_path: Any) -> None:
     )
     assert out.returncode == 1
     assert "treewright worker needs PostgreSQL" in out.stderr
+
+
+def _queue_jobs(db: Session) -> list[Any]:
+    rows = db.execute(
+        text(
+            "SELECT task_name, lock, status::text AS status, priority, args "
+            "FROM procrastinate_jobs ORDER BY id"
+        )
+    ).all()
+    db.rollback()
+    return list(rows)
+
+
+@needs_postgres
+def test_queue_runner_puts_one_queue_job_per_row(queue_app: Any) -> None:
+    factory = queue_app.state.sessionmaker
+    db: Session = factory()
+    try:
+        corpus = create_corpus(db, "Pier notes")
+        runner = training.get_runner(queue_app.state)
+        first = training.schedule_training(queue_app.state, corpus.id, "queue test")
+        again = training.schedule_training(queue_app.state, corpus.id, "asked twice")
+        runner.kick()
+        assert again.id == first.id
+        lock = f"treewright.train_version:{first.id}"
+        jobs = _queue_jobs(db)
+        assert [(j.task_name, j.lock, j.status, j.args) for j in jobs] == [
+            ("treewright.train_version", lock, "todo", {"version_id": first.id})
+        ]
+        # a worker has taken the job (as the queue sees it): no second job for the row
+        db.execute(text("UPDATE procrastinate_jobs SET status = 'doing'"))
+        db.commit()
+        runner.kick()
+        assert [j.status for j in _queue_jobs(db)] == ["doing"]
+
+        # a findings run gets a job of its own, after grammars in the queue's order
+        run = findings.queue_run(db, corpus.id, reason="queue test")
+        db.commit()
+        runner.kick()
+        jobs = _queue_jobs(db)
+        assert [(j.task_name, j.args) for j in jobs] == [
+            ("treewright.train_version", {"version_id": first.id}),
+            ("treewright.find_inconsistencies", {"run_id": run.id}),
+        ]
+        assert jobs[0].priority > jobs[1].priority
+    finally:
+        db.close()

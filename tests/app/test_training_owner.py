@@ -20,7 +20,7 @@ from datetime import timedelta
 import pytest
 from sqlalchemy.orm import Session
 
-from app.models import GV_FAILED, GV_TRAINING, GrammarVersion, utcnow
+from app.models import GV_FAILED, GV_QUEUED, GV_READY, GV_TRAINING, GrammarVersion, utcnow
 from app.services import training
 from app.services.corpora import create_corpus
 from app.settings import PROJECT_ROOT, Settings
@@ -77,8 +77,8 @@ def _row(db: Session, version_id: int) -> GrammarVersion:
     return row
 
 
-def _queued_job(db: Session) -> int:
-    corpus = create_corpus(db, "Tide tables")
+def _queued_job(db: Session, name: str = "Tide tables") -> int:
+    corpus = create_corpus(db, name)
     return training.request_training(db, corpus.id, reason="test").id
 
 
@@ -118,8 +118,10 @@ def test_training_owner_restarted_worker_spares_a_live_job_and_fails_a_dead_one(
             owner.wait(timeout=60)
 
 
-def _training_row(db: Session, *, host: str, pid: int | None, beat_age: float | None) -> int:
-    version_id = _queued_job(db)
+def _training_row(
+    db: Session, *, host: str, pid: int | None, beat_age: float | None, name: str = "Tide tables"
+) -> int:
+    version_id = _queued_job(db, name)
     row = _row(db, version_id)
     row.status = GV_TRAINING
     row.owner_host = host
@@ -167,3 +169,44 @@ def test_training_owner_dead_process_on_this_host_is_gone_at_once(app, db: Sessi
     version_id = _training_row(db, host=training.HOST, pid=dead_pid, beat_age=0.5)
     assert training.fail_interrupted(app.state.sessionmaker) == 1
     assert _row(db, version_id).status == GV_FAILED
+
+
+def test_training_owner_take_runs_a_job_once_and_takes_over_only_from_a_gone_owner(
+    app,
+    db: Session,  # type: ignore[no-untyped-def]
+) -> None:
+    factory = app.state.sessionmaker
+    version_id = _queued_job(db)
+    assert training.take(factory, version_id)  # queued -> training, owned here
+    row = _row(db, version_id)
+    assert (row.status, row.owner_pid) == (GV_TRAINING, os.getpid())
+    assert not training.take(factory, version_id)  # a live owner (this process) trains it
+
+    ended = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    row.owner_pid = int(ended.stdout)  # as if a worker that has exited had claimed it
+    db.commit()
+    assert training.take(factory, version_id)  # taken over: same row, same number
+    row = _row(db, version_id)
+    assert (row.status, row.owner_pid, row.number) == (GV_TRAINING, os.getpid(), 1)
+    assert "started again" in row.message
+
+    row.status = GV_READY
+    db.commit()
+    assert not training.take(factory, version_id)  # finished: nothing to do
+
+
+def test_training_owner_requeue_puts_a_gone_owners_job_back_in_the_queue(
+    app,
+    db: Session,  # type: ignore[no-untyped-def]
+) -> None:
+    gone = _training_row(db, host="another-host", pid=4242, beat_age=training.STALE_AFTER + 30)
+    alive = _training_row(db, host="another-host", pid=4343, beat_age=1.0, name="Harbour log")
+    assert training.fail_interrupted(app.state.sessionmaker, requeue=True) == 1
+    row = _row(db, gone)
+    assert (row.status, row.owner_pid, row.owner_host, row.number) == (GV_QUEUED, None, None, 1)
+    assert _row(db, alive).status == GV_TRAINING
