@@ -673,6 +673,35 @@ def reference_list(corpus_name: str, data_dir: Path | None) -> None:
         )
 
 
+@main.command("members")
+@click.option("--corpus", "corpus_name", required=True, help="Corpus whose members to show.")
+@click.option("--add", "add", multiple=True, metavar="USER", help="Add USER to the list.")
+@click.option("--remove", "remove", multiple=True, metavar="USER", help="Take USER off the list.")
+@data_dir_option
+def members_command(
+    corpus_name: str, add: tuple[str, ...], remove: tuple[str, ...], data_dir: Path | None
+) -> None:
+    """Show a corpus's members (its list, and those with work of it assigned); --add and
+    --remove change the list. Annotators read a corpus they are a member of."""
+    from app.services import visibility as svc
+
+    with open_db(make_settings(data_dir)) as db, friendly_errors():
+        corpus = corpus_named(db, corpus_name)
+        for name in add:
+            added = svc.add_member(db, corpus, name)
+            click.echo(f"{name}: {'added' if added else 'already on the list'}")
+        for name in remove:
+            left = svc.remove_member(db, corpus, name)
+            still = f" (still reads it: {plural(left, 'sentence')} assigned)" if left else ""
+            click.echo(f"{name}: taken off the list{still}")
+        rows = svc.members(db, corpus)
+    if not rows:
+        click.echo("no members")
+    for m in rows:
+        how = "on the list" if m.explicit else "by assignment"
+        click.echo(f"{m.username}  {m.role}  {how}  {plural(m.assigned, 'sentence')} assigned")
+
+
 @main.command("findings")
 @click.option("--corpus", "corpus_name", required=True, help="Corpus whose findings to show.")
 @click.option(

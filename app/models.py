@@ -334,6 +334,24 @@ class Assignment(Base):
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
 
 
+class CorpusMember(Base):
+    """A user named a member of a corpus by an admin (annotators and adjudicators alike).
+    An annotator reads a corpus they are a member of, or one with work assigned to them
+    (:mod:`app.services.visibility`)."""
+
+    __tablename__ = "corpus_members"
+    corpus_id: Mapped[int] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"), primary_key=True
+    )
+    user_id: Mapped[int] = mapped_column(
+        ForeignKey("users.id", ondelete="CASCADE"), primary_key=True, index=True
+    )
+    added_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
+    added_by_id: Mapped[int | None] = mapped_column(
+        ForeignKey("users.id", ondelete="SET NULL"), nullable=True, default=None
+    )
+
+
 class SentenceCount(Base):
     """How many sentences of a document are in each state, kept by database triggers on
     ``sentences`` (:mod:`app.counts`), so that the corpus pages read a few rows instead of

@@ -1,5 +1,6 @@
 """JSON API for corpora: list, detail, sentences, create, settings, remove, import, export,
-assign. Reading needs a login; changes need an admin; exports need an adjudicator."""
+assign, members. Reading needs a login; changes need an admin; exports and the member list
+need an adjudicator."""
 
 from __future__ import annotations
 
@@ -15,7 +16,13 @@ from app.services import corpora as svc
 from app.services.assignment import assign_sentences
 from app.services.exports import SplitSpec, export_gold, record_export
 from app.services.staged_import import import_handle
-from app.services.visibility import readable, readable_corpus
+from app.services.visibility import (
+    add_member,
+    members,
+    readable,
+    readable_corpus,
+    remove_member,
+)
 
 router = APIRouter(tags=["corpora"])
 
@@ -228,6 +235,65 @@ def remove_corpus(
     """Remove the corpus and everything in it; ``confirm_name`` must be its exact name."""
     name = svc.delete_corpus(db, corpus_id, body.confirm_name, user=login.user)
     return RemovedPublic(removed=name)
+
+
+class MemberPublic(BaseModel):
+    user_id: int
+    username: str
+    display_name: str
+    role: str
+    explicit: bool = Field(description="on the member list an admin keeps")
+    added_at: UtcDateTime | None
+    assigned: int = Field(description="sentences of the corpus assigned to them")
+
+
+class MembersPublic(BaseModel):
+    corpus_id: int
+    members: list[MemberPublic]
+    changed: bool = Field(False, description="whether the call changed the list")
+    still_assigned: int = Field(
+        0, description="after a removal: sentences still assigned to them (they read it still)"
+    )
+
+
+class MemberChange(RequestModel):
+    username: str = Field(min_length=1, max_length=64)
+
+
+def _members(db: Any, corpus: Corpus, **extra: Any) -> MembersPublic:
+    return MembersPublic(
+        corpus_id=corpus.id,
+        members=[MemberPublic(**vars(m)) for m in members(db, corpus)],
+        **extra,
+    )
+
+
+@router.get("/api/corpora/{corpus_id}/members", response_model=MembersPublic, responses=ERRORS)
+def corpus_members(corpus_id: int, login: ApiAdjudicator, db: SessionDep) -> MembersPublic:
+    """Who reads the corpus as a member: the explicit list and those with work assigned."""
+    return _members(db, readable_corpus(db, corpus_id, login.user))
+
+
+@router.post("/api/corpora/{corpus_id}/members", response_model=MembersPublic, responses=ERRORS)
+def corpus_member_add(
+    corpus_id: int, body: MemberChange, login: ApiAdmin, db: SessionDep
+) -> MembersPublic:
+    """Add a user to the corpus's member list (nothing changes if they are on it)."""
+    corpus = svc.get_corpus(db, corpus_id)
+    changed = add_member(db, corpus, body.username, by=login.user)
+    return _members(db, corpus, changed=changed)
+
+
+@router.post(
+    "/api/corpora/{corpus_id}/members/remove", response_model=MembersPublic, responses=ERRORS
+)
+def corpus_member_remove(
+    corpus_id: int, body: MemberChange, login: ApiAdmin, db: SessionDep
+) -> MembersPublic:
+    """Take a user off the member list (someone with work assigned still reads the corpus)."""
+    corpus = svc.get_corpus(db, corpus_id)
+    left = remove_member(db, corpus, body.username, by=login.user)
+    return _members(db, corpus, changed=True, still_assigned=left)
 
 
 @router.get(

@@ -18,7 +18,13 @@ from app.models import SENTENCE_STATES, Corpus, Sentence
 from app.services import corpora as svc
 from app.services.assignment import assign_sentences, assigned_to
 from app.services.errors import BadInput, ServiceError
-from app.services.visibility import readable, readable_corpus
+from app.services.visibility import (
+    add_member,
+    members,
+    readable,
+    readable_corpus,
+    remove_member,
+)
 from app.web import render
 from app.wording import plural
 
@@ -28,6 +34,8 @@ PER_PAGE = 50
 DONE_MESSAGES = {
     "created": "The corpus was created. Import sentences or trees on the Transfer page.",
     "settings": "The settings were saved.",
+    "member_added": "The member list was updated.",
+    "member_removed": "The member list was updated.",
 }
 
 
@@ -83,6 +91,7 @@ def _corpus_page(
         document=document,
         states=SENTENCE_STATES,
         settings=svc.effective_settings(corpus),
+        members=members(db, corpus) if login.user.can_adjudicate else [],
         specs=svc.SETTING_SPECS,
         policies=svc.LABEL_POLICIES,
         own_policies=svc.SETTLE_OWN_POLICIES,
@@ -233,6 +242,44 @@ def corpus_settings(
             request, login, db, corpus, status_code=err.status_code, error=str(err.detail)
         )
     return RedirectResponse(f"/corpora/{corpus.id}?done=settings", status_code=303)
+
+
+@router.post("/corpora/{corpus_id}/members", response_class=HTMLResponse)
+def corpus_member_add(
+    request: Request, corpus_id: int, login: PageAdmin, db: SessionDep, username: str = Form("")
+) -> Response:
+    return _member_change(request, login, db, corpus_id, username, remove=False)
+
+
+@router.post("/corpora/{corpus_id}/members/remove", response_class=HTMLResponse)
+def corpus_member_remove(
+    request: Request, corpus_id: int, login: PageAdmin, db: SessionDep, username: str = Form("")
+) -> Response:
+    return _member_change(request, login, db, corpus_id, username, remove=True)
+
+
+def _member_change(
+    request: Request, login: Login, db: SessionDep, corpus_id: int, username: str, *, remove: bool
+) -> Response:
+    corpus = svc.get_corpus(db, corpus_id)
+    left = 0
+    try:
+        if remove:
+            left = remove_member(db, corpus, username, by=login.user)
+        else:
+            add_member(db, corpus, username, by=login.user)
+    except ServiceError as err:
+        return _corpus_page(
+            request, login, db, corpus, status_code=err.status_code, error=str(err.detail)
+        )
+    if left:  # say why they still read the corpus
+        notice = (
+            f"{username.strip()} is off the member list, but still reads this corpus while "
+            f"{plural(left, 'sentence')} of it {'is' if left == 1 else 'are'} assigned to them."
+        )
+        return _corpus_page(request, login, db, corpus, notice=notice)
+    done = "member_removed" if remove else "member_added"
+    return RedirectResponse(f"/corpora/{corpus.id}?done={done}#members", status_code=303)
 
 
 @router.post("/corpora/{corpus_id}/remove", response_class=HTMLResponse)

@@ -256,3 +256,25 @@ def test_cli_reference_add_and_list(cli, db, tmp_path) -> None:
     assert "older notes  (4 trees; in use)  the team's first season" in listed
     # the reference trees are not sentences of the corpus
     assert db.scalar(select(func.count(Sentence.id))) == 10
+
+
+def test_cli_members_add_list_and_remove(cli, db, people) -> None:
+    from app.services.visibility import member_corpus_ids
+    from tests.app.bench_helpers import assign, make_corpus
+
+    corpus, (sentence,) = make_corpus(db, ["the tide turned ."], name="Harbour")
+    assign(db, [sentence], people.ann1)
+    out = cli("members", "--corpus", "Harbour", "--add", "ann2", "--add", "ann1").output
+    assert "ann2: added" in out and "ann1: added" in out
+    assert "ann1  annotator  on the list  1 sentence assigned" in out
+    assert "ann2  annotator  on the list  0 sentences assigned" in out
+    db.expire_all()
+    assert corpus.id in member_corpus_ids(db, people.ann2)
+    out = cli("members", "--corpus", "Harbour", "--remove", "ann2", "--remove", "ann1").output
+    assert "ann2: taken off the list\n" in out
+    assert "ann1: taken off the list (still reads it: 1 sentence assigned)" in out
+    assert "ann1  annotator  by assignment" in out and "ann2" not in out.split("\n", 2)[2]
+    db.expire_all()
+    assert corpus.id not in member_corpus_ids(db, people.ann2)
+    wrong = cli("members", "--corpus", "Harbour", "--remove", "ann2", ok=False)
+    assert wrong.exit_code == 1 and "ann2 is not on the member list of Harbour" in wrong.output

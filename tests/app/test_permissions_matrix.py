@@ -98,6 +98,15 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     ("GET", "/api/corpora/{corpus_id}/export"): Spec(ADJ, 200),
     # one annotator per sentence is already met: nobody gains an assignment mid-test
     ("POST", "/api/corpora/{corpus_id}/assign"): Spec(ADMIN, 200, json={"per_sentence": 1}),
+    # the member list: adjudicators read it, admins change it (removing someone who is not
+    # on it gets past the role check and changes nothing)
+    ("GET", "/api/corpora/{corpus_id}/members"): Spec(ADJ, 200),
+    ("POST", "/api/corpora/{corpus_id}/members"): Spec(ADMIN, 200, json={"username": "spare"}),
+    ("POST", "/api/corpora/{corpus_id}/members/remove"): Spec(
+        ADMIN, 404, json={"username": "nobody"}
+    ),
+    ("POST", "/corpora/{corpus_id}/members"): Spec(ADMIN, 303, form={"username": "spare"}),
+    ("POST", "/corpora/{corpus_id}/members/remove"): Spec(ADMIN, 404, form={"username": "nobody"}),
     ("GET", "/"): Spec(USER, 200),
     ("POST", "/corpora"): Spec(ADMIN, 303, form={"name": "Matrix page corpus"}),
     ("GET", "/corpora/{corpus_id}"): Spec(USER, 200),
