@@ -87,7 +87,7 @@ def agreement_page(
             c=None,
         )
     c = readable_corpus(db, corpus, login.user)
-    fig = agreement.corpus_figures(db, c.id)
+    fig = agreement.corpus_figures(db, c.id, viewer=login.user)
     fmt = "%Y-%m-%d"
     labels = [p.start.strftime(fmt) for p in fig.periods]
     over_time = line_chart(
@@ -141,4 +141,4 @@ def effort_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
 @router.get("/agreement/log.csv")
 def agreement_csv(login: PageUser, db: SessionDep, corpus: int) -> Response:
     c = readable_corpus(db, corpus, login.user)
-    return _csv_download(agreement.agreement_csv(db, c.id), c.name, "agreement")
+    return _csv_download(agreement.agreement_csv(db, c.id, viewer=login.user), c.name, "agreement")

@@ -61,6 +61,7 @@ from app.models import (
     Sentence,
     User,
 )
+from app.services import blind
 from app.services.gold import current_revision, gold_added, make_gold
 from parser.scoring import Counts, label_confusions, score_pair
 from parser.trees import read_tree, write_tree
@@ -392,9 +393,51 @@ _tallies: dict[tuple[str, int, datetime | None], _Tally] = {}
 _tally_lock = threading.Lock()
 
 
-def corpus_figures(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
+def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
+    """The sentences of the corpus with agreement records that ``viewer`` still annotates
+    (the blind rule of :mod:`app.services.blind`): their records are left out of everything
+    the viewer sees of the log, rows and sums alike. None (the command line) sees all.
+    Cost: one index walk over the viewer's assignments and annotations."""
+    if viewer is None:
+        return set()
+    return set(
+        db.scalars(
+            select(AgreementRecord.sentence_id)
+            .where(
+                AgreementRecord.corpus_id == corpus_id,
+                AgreementRecord.sentence_id.in_(blind.unfinished_query(viewer.id)),
+            )
+            .distinct()
+        )
+    )
+
+
+def corpus_figures(
+    db: Session, corpus_id: int, *, top_confusions: int = 15, viewer: User | None = None
+) -> CorpusAgreement:
     """The Agreement page's figures: sums over every agreement record of the corpus, kept
-    between views so that a view reads only the records logged since the last one."""
+    between views so that a view reads only the records logged since the last one.
+
+    Blind rule: for a ``viewer`` who still annotates a sentence with records, the figures
+    are summed afresh without that sentence's records (not kept: such viewers are few, a
+    dual-role adjudicator or someone assigned a sentence again), so no sum (a pair seen on
+    one sentence, a day with one record, a label met once) can give that sentence away."""
+    hidden = hidden_from(db, corpus_id, viewer)
+    if hidden:
+        fresh = _Tally()
+        for r in db.scalars(
+            select(AgreementRecord)
+            .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+            .where(
+                AgreementRecord.corpus_id == corpus_id,
+                Sentence.state != SENT_DROPPED,
+                AgreementRecord.sentence_id.not_in(hidden),
+            )
+            .order_by(AgreementRecord.id)
+        ):
+            fresh.add(r)
+        names = _user_names(db, {u for pair in fresh.pairs for u in pair})
+        return fresh.figures(names, top_confusions)
     # the corpus's creation time is in the key: ids can come back (a corpus removed and
     # another made in its place, a database emptied), and old sums must never be reused
     key = (
@@ -466,13 +509,19 @@ CSV_COLUMNS = (
 )
 
 
-def agreement_csv(db: Session, corpus_id: int) -> str:
-    """The corpus's agreement log as CSV (one row per record, oldest first)."""
+def agreement_csv(db: Session, corpus_id: int, viewer: User | None = None) -> str:
+    """The corpus's agreement log as CSV (one row per record, oldest first), without the
+    rows of sentences ``viewer`` still annotates (:func:`hidden_from`)."""
+    hidden = hidden_from(db, corpus_id, viewer)
     rows = db.execute(
         select(AgreementRecord, Sentence.position, Document.name)
         .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
         .join(Document, Document.id == Sentence.document_id)
-        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
+        .where(
+            AgreementRecord.corpus_id == corpus_id,
+            Sentence.state != SENT_DROPPED,
+            AgreementRecord.sentence_id.not_in(hidden),
+        )
         .order_by(AgreementRecord.created_at, AgreementRecord.id)
     ).all()
     names = _user_names(db, {r.user_a_id for r, _, _ in rows} | {r.user_b_id for r, _, _ in rows})

@@ -37,6 +37,12 @@ def _unfinished(user_id: int, sentence_ids: Iterable[int] | None) -> Select[tupl
     return query
 
 
+def unfinished_query(user_id: int) -> Select[tuple[int]]:
+    """The ids of every sentence ``user_id`` still annotates, as a query to nest in another
+    (``sentence_id.in_(...)``)."""
+    return _unfinished(user_id, None)
+
+
 def unfinished_sentences(
     db: Session, user: User, sentence_ids: Iterable[int] | None = None
 ) -> set[int]:

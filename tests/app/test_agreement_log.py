@@ -10,7 +10,7 @@ S(0,7) NP(0,2) VP(2,7) NP(3,7) NP(3,5) ADVP(5,7) NP(6,7), 7 constituents.
 from __future__ import annotations
 
 import pytest
-from sqlalchemy import select
+from sqlalchemy import delete, select
 
 from app.models import (
     SENT_GOLD,
@@ -18,6 +18,7 @@ from app.models import (
     SENT_IN_REVIEW,
     AgreementRecord,
     Annotation,
+    Assignment,
     Corpus,
     Event,
     Gold,
@@ -179,3 +180,54 @@ def test_figures_sum_records_of_the_corpus(db, login, people):
     lines = csv_text.strip().split("\n")
     assert lines[0].split(",") == list(agreement.CSV_COLUMNS)
     assert len(lines) == 3 and ",0.7692," in lines[1]  # 10/13 rounded to 4 places
+
+
+# --- the blind rule on the log ---------------------------------------------------------------
+
+
+def _csv_sentences(client, corpus_id: int) -> list[int]:  # type: ignore[no-untyped-def]
+    resp = client.get(f"/agreement/log.csv?corpus={corpus_id}")
+    assert resp.status_code == 200, resp.text
+    lines = resp.text.strip().splitlines()
+    assert lines[0].startswith("record_id,")
+    return [int(line.split(",")[2]) for line in lines[1:]]
+
+
+def test_log_hides_a_sentence_from_its_unfinished_annotator(db, login, people) -> None:
+    # two sentences compared by ann1 and ann2 (different trees on the first, the same on the
+    # second); then the adjudicator is assigned the first as a third annotator
+    corpus, (first, second) = make_corpus(db, [SENTENCE, SENTENCE], labels=LABELS, tags=TAGS)
+    assign(db, [first, second], people.ann1, people.ann2)
+    ann1, ann2 = login("ann1"), login("ann2")
+    for sentence, tree in ((first, TREE_B), (second, TREE_A)):
+        _submit(ann1, sentence.id, TREE_A)
+        _submit(ann2, sentence.id, tree)
+    assign(db, [db.get(Sentence, first.id)], people.adjudicator)
+    adj = login("adj")
+    # the finished annotators and an admin see both rows; the adjudicator only the second
+    for who in (ann1, login("admin")):
+        assert sorted(_csv_sentences(who.client, corpus.id)) == [first.id, second.id]
+    assert _csv_sentences(adj.client, corpus.id) == [second.id]
+    # the sums leave the first sentence out for them too: one sentence, F1 1.0 (the
+    # identical pair), no PP/ADVP confusion of the first sentence
+    mine = agreement.corpus_figures(db, corpus.id, viewer=people.adjudicator)
+    assert (mine.records, mine.sentences, mine.identical) == (1, 1, 1)
+    assert mine.counts.f1 == 1.0 and mine.confusions == []
+    assert [(p.sentences, p.counts.f1) for p in mine.pairs] == [(1, 1.0)]
+    everyone = agreement.corpus_figures(db, corpus.id, viewer=people.ann1)
+    assert (everyone.records, everyone.sentences) == (2, 2)
+    assert everyone.confusions == [("ADVP", "PP", 1)]
+    page = adj.client.get(f"/agreement?corpus={corpus.id}").text
+    assert "ADVP" not in page  # the confusion of the sentence still being annotated
+    assert "ADVP" in ann1.client.get(f"/agreement?corpus={corpus.id}").text
+    # once the adjudicator is no annotator of it any more (the assignment taken back: the
+    # sentence is in review and takes no further annotation), the row and its sums come back
+    db.execute(
+        delete(Assignment).where(
+            Assignment.sentence_id == first.id, Assignment.user_id == people.adjudicator.id
+        )
+    )
+    db.commit()
+    assert sorted(_csv_sentences(adj.client, corpus.id)) == [first.id, second.id]
+    after = agreement.corpus_figures(db, corpus.id, viewer=people.adjudicator)
+    assert after.sentences == 2 and ("ADVP", "PP", 1) in after.confusions
