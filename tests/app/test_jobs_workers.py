@@ -28,6 +28,7 @@ from app.services.corpora import create_corpus
 from app.settings import PROJECT_ROOT, Settings
 from tests.app.conftest import on_postgres
 from tests.app.review_helpers import import_demo_gold, wait_for_version
+from tests.app.worker_helpers import start_worker
 
 needs_postgres = pytest.mark.skipif(
     not on_postgres(),
@@ -56,16 +57,11 @@ def _clear_queue(url: str) -> None:
 
 
 def _start_worker(settings: Settings, name: str) -> subprocess.Popen[str]:
-    env = {
-        **os.environ,
-        "TREEWRIGHT_DATABASE_URL": settings.resolved_database_url,
-        "TREEWRIGHT_DATA_DIR": str(settings.data_dir),
-        "TREEWRIGHT_WORKER_STALLED_SECONDS": str(STALLED),
-    }
-    return subprocess.Popen(
-        [sys.executable, "-c", "from app.entry import run; run()", "worker", "--name", name],
-        cwd=PROJECT_ROOT,
-        env=env,
+    return start_worker(
+        settings.resolved_database_url,
+        str(settings.data_dir),
+        STALLED,
+        name,
         text=True,
         stdout=subprocess.DEVNULL,
         stderr=subprocess.PIPE,
