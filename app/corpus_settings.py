@@ -71,7 +71,7 @@ class CorpusSettings(BaseModel):
         ge=0.0,
         le=1.0,
         description="A new grammar becomes active unless its held-out F1 is lower by more "
-        "than this.",
+        "than this, beyond the sampling noise (the 95% interval of the drop lies above it).",
     )
     heldout_every: int = Field(
         10, ge=2, le=1000, description="Every n-th gold tree is held out to score a new grammar."
@@ -128,6 +128,21 @@ class CorpusSettings(BaseModel):
         description="Saved grammars kept besides the active one (the newest); older versions "
         "keep their record and scores but not the grammar itself (0: keep all).",
     )
+    refresh_lookahead: int = Field(
+        10,
+        ge=0,
+        le=10_000,
+        description="After a new grammar becomes active, the next this many sentences of each "
+        "annotator's queue get its suggestion at once; the rest are parsed when opened "
+        "(0: all when opened).",
+    )
+    heldout_sample: int = Field(
+        200,
+        ge=20,
+        le=100_000,
+        description="At most this many held-out gold trees, drawn at random, score a new "
+        "grammar; the score carries its 95% interval.",
+    )
     # not on the form: set when a corpus is created without label and tag sets
     derive_inventory: bool = Field(
         False, description="The label and tag sets grow with every bracketed import."
@@ -143,6 +158,17 @@ class CorpusSettings(BaseModel):
             return describe(parse_weighting(value))
         except GrammarError as exc:
             raise ValueError(f"not 'auto' or a weighting: {exc}") from None
+
+
+def retrain_interval(options: CorpusSettings, gold: int) -> int:
+    """New gold trees between two automatic versions: ``retrain_every``, or the smaller
+    ``retrain_every_early`` while the corpus has fewer than ``early_gold_limit`` gold trees
+    (early suggestions improve within a day); 0: automatic training is off."""
+    every = options.retrain_every
+    early = options.retrain_every_early
+    if every > 0 and early > 0 and gold < options.early_gold_limit:
+        return min(every, early)
+    return every
 
 
 #: The settings an admin edits on the corpus page, in the form's order.

@@ -26,8 +26,13 @@ from parser.grammar import Grammar
 _WORKER_GRAMMAR: Grammar | None = None
 
 
-def _init_worker(path: str) -> None:
+def _init_worker(path: str, threads: int | None = None) -> None:
     global _WORKER_GRAMMAR
+    if threads is not None:
+        import numba
+
+        most: int = numba.config.NUMBA_NUM_THREADS  # type: ignore[attr-defined]
+        numba.set_num_threads(max(1, min(threads, most)))
     _WORKER_GRAMMAR = Grammar.load(path)
 
 
@@ -51,8 +56,11 @@ def parse_many(
     processes: int | None = None,
     progress: Callable[[int, int], None] | None = None,
     chunk: int = 16,
+    threads: int | None = None,
 ) -> list[ParseResult]:
-    """Parse ``sentences`` (token lists) with ``grammar`` (an object or a saved file)."""
+    """Parse ``sentences`` (token lists) with ``grammar`` (an object or a saved file).
+    ``threads``: numba threads per worker process (default numba's, i.e. the cores), so
+    that ``processes * threads`` can be kept to the cores."""
     total = len(sentences)
     cons = list(constraints) if constraints is not None else [None] * total
     if len(cons) != total:
@@ -79,7 +87,7 @@ def parse_many(
             max_workers=workers,
             mp_context=get_context("spawn"),
             initializer=_init_worker,
-            initargs=(path,),
+            initargs=(path, threads),
         ) as pool:
             futures = [pool.submit(_parse_chunk, c, k, posteriors) for c in chunks]
             for fut in futures:

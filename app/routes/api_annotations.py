@@ -161,9 +161,12 @@ def _suggestion_public(
 ) -> SuggestionPublic | None:
     if row is None:
         return None
-    version = suggestions.active_version(db, corpus)
+    # the row's own version, and whether it is still the active one: a row of an older
+    # version is never passed off as the active grammar's
+    number = training.version_number(db, row.grammar_version_id)
     return SuggestionPublic(
-        grammar_version=version.number if version else 0,
+        grammar_version=number or 0,
+        stale=row.grammar_version_id != corpus.active_grammar_id,
         alternatives=[
             AlternativePublic(tree=t, probability=_prob(lp))
             for t, lp in zip(row.trees, row.logprobs, strict=False)

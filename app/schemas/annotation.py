@@ -108,6 +108,10 @@ class SuggestionPublic(BaseModel):
         description="posteriors and probabilities are in; when false, "
         "GET /api/bench/{id}/suggestion computes them"
     )
+    stale: bool = Field(
+        default=False,
+        description="parsed by a grammar version that is no longer the corpus's active one",
+    )
 
 
 class BenchPublic(BaseModel):

@@ -204,6 +204,14 @@ def configure(
     return _current
 
 
+def parallel_parses() -> int:
+    """Parses a background job (a suggestion refresh, held-out scoring) may run at once in
+    worker processes of one numba thread each: the pool's ``slots * threads``, which the
+    settings keep to the cores."""
+    pool = admission()
+    return max(1, pool.slots * pool.threads)
+
+
 def admission() -> ParseAdmission:
     """This process's pool (made with the defaults when nobody configured one)."""
     global _current

@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 from datetime import UTC
 from typing import Any, cast
 
-from sqlalchemy import CursorResult, func, or_, select, tuple_, update
+from sqlalchemy import CursorResult, func, select, tuple_, update
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -57,6 +57,7 @@ from app.services import agreement
 from app.services.errors import BadInput, Conflict, NotFound
 from app.services.gold import current_revision
 from app.services.held import open_state, still_held
+from app.services.queue_order import unfinished
 from app.services.suggestions import record_start
 from app.services.validation import (
     MAX_TREE_CHARS,
@@ -578,18 +579,10 @@ def _first_open(
     annotation is neither submitted nor flagged."""
     key = tuple_(*_QUEUE_KEY)
     stmt = (
-        select(Assignment.sentence_id)
-        .join(Sentence, Sentence.id == Assignment.sentence_id)
-        .outerjoin(
-            Annotation,
-            (Annotation.sentence_id == Assignment.sentence_id)
-            & (Annotation.user_id == Assignment.user_id),
+        unfinished(
+            select(Assignment.sentence_id).join(Sentence, Sentence.id == Assignment.sentence_id)
         )
-        .where(
-            *_mine(user, corpus_id),
-            Sentence.state != SENT_DROPPED,
-            or_(Annotation.state.is_(None), Annotation.state.not_in(_DONE)),
-        )
+        .where(*_mine(user, corpus_id), Sentence.state != SENT_DROPPED)
         .order_by(*_QUEUE_KEY)
         .limit(1)
     )

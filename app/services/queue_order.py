@@ -14,17 +14,32 @@ Only the order changes: every sentence stays in its document (export by document
 documents together as before), and a sentence's rank is the same on every one of its
 Assignment rows, so all its annotators (given at once by app.services.assignment) meet it at
 the same place in their queues.
+
+:func:`unfinished` is the filter "this annotator's work on it is not finished" that the queue
+(app.services.annotation) and the refresh look-ahead (app.services.refresh) share.
 """
 
 from __future__ import annotations
 
-from typing import Any, cast
+from typing import Any, TypeVar, cast
 
-from sqlalchemy import Table, bindparam, func, select, update
+from sqlalchemy import Select, Table, bindparam, func, or_, select, update
 from sqlalchemy.orm import Session
 
 from app.corpus_settings import QueueOrder
-from app.models import Assignment, Corpus, Document, Sentence, reading_rank
+from app.models import (
+    ANN_FLAGGED,
+    ANN_SUBMITTED,
+    Annotation,
+    Assignment,
+    Corpus,
+    Document,
+    Sentence,
+    reading_rank,
+)
+
+#: Annotation states that take a sentence off its annotator's open work.
+DONE_STATES = (ANN_SUBMITTED, ANN_FLAGGED)
 
 
 def informative(corpus: Corpus) -> bool:
@@ -84,3 +99,16 @@ def apply_order(db: Session, corpus_id: int) -> int:
             changes,
         )
     return len(changes)
+
+
+_Row = TypeVar("_Row")
+
+
+def unfinished(stmt: Select[_Row]) -> Select[_Row]:
+    """``stmt`` (a select over Assignment) narrowed to assignments whose own annotation is
+    neither submitted nor flagged (none yet counts as unfinished)."""
+    return stmt.outerjoin(
+        Annotation,
+        (Annotation.sentence_id == Assignment.sentence_id)
+        & (Annotation.user_id == Assignment.user_id),
+    ).where(or_(Annotation.state.is_(None), Annotation.state.not_in(DONE_STATES)))

@@ -5,8 +5,11 @@ re-parse around the annotator's pins.
   most recently used grammars in memory (an LRU of :data:`GRAMMAR_CACHE_SIZE`), so a request
   never pays for loading a grammar twice.
 * :func:`suggestion_for` returns the Suggestion row of (sentence, active grammar), parsing only
-  when the row does not exist yet (k-best with span posteriors); :func:`refresh_unstarted`
-  fills those rows for every sentence nobody has started, after a new grammar becomes active.
+  when the row does not exist yet (k-best with span posteriors). After a new grammar becomes
+  active, :mod:`app.services.refresh` fills those rows for the next sentences of each
+  annotator's queue (bounded); every other sentence is parsed here when opened.
+  :func:`refresh_unstarted` fills them for every sentence nobody has started (the former
+  eager refresh; kept for scripts and for measuring against).
 * :func:`warm_up` runs when a server starts, so that the first annotator after a restart
   does not wait for the compiled chart loops or the grammar to load.
 * :func:`reparse` re-parses around everything the annotator has said (pins, edited and
@@ -319,7 +322,8 @@ def refresh_unstarted(
 
 def prune(db: Session, corpus: Corpus, keep_grammars: int) -> tuple[int, int]:
     """After a new grammar becomes active: delete the suggestions of other versions for
-    sentences nobody has started (a started sentence keeps what it was started from), and
+    sentences nobody has started (a started sentence keeps what it was started from, and so
+    does a sentence whose start is fixed to that version), and
     drop the saved grammar of versions older than the ``keep_grammars`` newest ones besides
     the active one (0: keep all); their records and scores stay. Does not commit. Returns
     (suggestions deleted, grammars dropped)."""
@@ -330,9 +334,15 @@ def prune(db: Session, corpus: Corpus, keep_grammars: int) -> tuple[int, int]:
         GrammarVersion.corpus_id == corpus.id, GrammarVersion.id != active
     )
     started = exists().where(Annotation.sentence_id == Suggestion.sentence_id, Annotation.head > 0)
+    # a start fixed on the sentence (its first opening) keeps the row every annotator of the
+    # sentence starts from, so the next opener is not parsed again under the old version
+    fixed = exists().where(
+        Sentence.id == Suggestion.sentence_id,
+        Sentence.start_grammar_version_id == Suggestion.grammar_version_id,
+    )
     deleted = db.execute(
         delete(Suggestion)
-        .where(Suggestion.grammar_version_id.in_(others), ~started)
+        .where(Suggestion.grammar_version_id.in_(others), ~started, ~fixed)
         .execution_options(synchronize_session=False)
     )
     dropped = 0

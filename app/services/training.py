@@ -15,18 +15,25 @@ What it computes
        Keyed on the sentence id, not on the position in the list, so a sentence held out once
        stays held out while gold grows, and versions are scored on nested slices;
     3. train a grammar on the rest (parser.grammar.train_grammar, default markovization),
-       parse the words of each held-out tree with it (parser.chart.parse; its consensus tree,
-       which new annotations start from) and score the parses against the held-out gold
-       with PARSEVAL (parser.scoring.score_corpus, default conventions): ``heldout_f1``;
+       parse the words of a bounded random sample of the held-out trees with it (at most
+       ``heldout_sample``, corpus setting; app.services.heldout_gate), in parallel worker
+       processes (parser.batch.parse_many, up to the parse admission's bound), taking the
+       consensus tree new annotations start from, and score the parses against the held-out
+       gold with PARSEVAL (parser.scoring.score_corpus, default conventions):
+       ``heldout_f1``, with its 95% bootstrap interval over sentences
+       (parser.interval.f1_interval) and the per-sentence counts in
+       ``options["heldout"]``;
     4. train the grammar that is stored and used on *all* gold, held-out slice included. The
        held-out F1 is then an estimate for a grammar trained on slightly less data (a
        ``1/heldout_every`` share less); we accept that small pessimism because every version is
        measured the same way and the suggestions get all the gold there is;
-    5. make the version active unless the active version's held-out F1 exceeds the new one's
-       by more than ``max_f1_drop`` (corpus setting): then its status is ``rejected`` (the
-       grammar is still stored; nothing is thrown away);
-    6. refresh the suggestions of sentences nobody has started
-       (app.services.suggestions.refresh_unstarted).
+    5. make the version active unless its held-out F1 is lower than the active version's by
+       more than ``max_f1_drop`` (corpus setting) beyond the sampling noise (the rule is in
+       app.services.heldout_gate; ``options["gate"]`` records it): then its status is
+       ``rejected`` (the grammar is still stored; nothing is thrown away);
+    6. let go of older suggestions (app.services.suggestions.prune) and parse the next
+       sentences of each annotator's queue under the new version, a bounded look-ahead
+       (app.services.refresh.refresh_step); every other sentence is parsed when opened.
     A finished version (ready or rejected) also queues a run of the inconsistency finder
     (app.services.findings), which the same worker drains after the grammar jobs.
 
@@ -54,7 +61,8 @@ Where jobs run
     workers' running jobs alone.
 
 Complexity: training is linear in the gold tree nodes; held-out scoring costs one CKY parse
-per held-out tree (O(n^3) each), which dominates on large corpora.
+per sampled held-out tree (O(n^3) each, at most ``heldout_sample`` of them, spread over the
+cores the parse admission allows), which dominates on large corpora.
 Limits: one process trains at a time; a job cannot be cancelled once it runs.
 """
 
@@ -82,7 +90,8 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
-from app.corpus_settings import AUTO_WEIGHT, CorpusSettings, QueueOrder
+from app.corpus_settings import AUTO_WEIGHT, QueueOrder
+from app.corpus_settings import retrain_interval as retrain_interval  # re-exported
 from app.db import make_engine, make_sessionmaker
 from app.models import (
     GV_FAILED,
@@ -100,17 +109,23 @@ from app.models import (
     Sentence,
     utcnow,
 )
+from app.services.admission import configure as configure_admission
+from app.services.admission import parallel_parses
 from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
 from app.services.findings import fail_interrupted_runs, run_finder
 from app.services.findings import queue_run as queue_findings
+from app.services.heldout_gate import METHOD, decide, sample_ids
 from app.services.queue_order import apply_order
-from app.services.suggestions import prune, refresh_unstarted
+from app.services.refresh import refresh_step
+from app.services.suggestions import prune
 from app.settings import Settings
 from parser.adapt import choose_weighting, describe, parse_weighting
+from parser.batch import parse_many
 from parser.errors import ParserError
 from parser.grammar import Grammar, Weighting, train_grammar
-from parser.scoring import score_corpus
+from parser.interval import f1_interval
+from parser.scoring import score_corpus, score_pair
 from parser.trees import drop_empty_elements, read_tree, words
 
 log = logging.getLogger(__name__)
@@ -200,17 +215,6 @@ def _queue(db: Session, corpus: Corpus, reason: str, user_id: int | None) -> Gra
     )
     db.info[KICK_FLAG] = True
     return version
-
-
-def retrain_interval(options: CorpusSettings, gold: int) -> int:
-    """New gold trees between two automatic versions: ``retrain_every``, or the smaller
-    ``retrain_every_early`` while the corpus has fewer than ``early_gold_limit`` gold trees
-    (early suggestions improve within a day); 0: automatic training is off."""
-    every = options.retrain_every
-    early = options.retrain_every_early
-    if every > 0 and early > 0 and gold < options.early_gold_limit:
-        return min(every, early)
-    return every
 
 
 def queue_if_due(db: Session, corpus: Corpus) -> GrammarVersion | None:
@@ -474,6 +478,7 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         corpus_id = corpus.id
         every = corpus.options.heldout_every
         max_drop = corpus.options.max_f1_drop
+        sample_limit = corpus.options.heldout_sample
         weight_setting = corpus.options.reference_weight
         gold = load_gold(db, corpus_id)
         refs = load_reference(db, corpus_id)
@@ -483,7 +488,10 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
     progress(0.02, f"read {len(gold)} gold trees and {len(reference)} reference trees", force=True)
     if not gold and not reference:
         raise ValueError("the corpus has no gold trees and no reference trees to train on")
-    train, held = split_heldout(gold, every)
+    train, held_all = split_heldout(gold, every)
+    # a bounded random sample of the held-out gold is parsed (app.services.heldout_gate)
+    sampled = sample_ids(corpus_id, [g.sentence_id for g in held_all], sample_limit)
+    held = [g for g in held_all if g.sentence_id in sampled]
     t_load = time.perf_counter()
 
     heldout_f1: float | None = None
@@ -543,16 +551,21 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         active = (
             db.get(GrammarVersion, corpus.active_grammar_id) if corpus.active_grammar_id else None
         )
-        rejected = (
-            active is not None
-            and active.id != version.id
-            and active.heldout_f1 is not None
-            and heldout_f1 is not None
-            and heldout_f1 < active.heldout_f1 - max_drop
+        decision = (
+            decide(
+                heldout_f1,
+                heldout_detail,
+                active.heldout_f1,
+                (active.options or {}).get("heldout"),
+                max_drop,
+            )
+            if active is not None and active.id != version.id
+            else None
         )
+        rejected = decision is not None and decision.rejected
         version.data = data
         version.training_size = len(gold)
-        version.heldout_size = len(held)
+        version.heldout_size = len(held_all)
         version.heldout_f1 = heldout_f1
         version.train_seconds = round(t_final - t0, 3)
         version.options = {
@@ -566,6 +579,8 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
             },
             "slice_size": len(train),
             "heldout": heldout_detail,
+            "heldout_sampled": len(held),
+            "gate": decision.detail if decision is not None else None,
             "reference": [{"id": rid, "trees": len(trees)} for rid, trees in refs],
             "reference_trees": len(reference),
             "adaptation": adaptation,
@@ -579,13 +594,21 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         version.finished_at = utcnow()
         # an active version still refreshes suggestions (step 6): 1.0 once that is done
         version.progress = 1.0 if rejected else 0.97
-        f1_text = "no held-out gold" if heldout_f1 is None else f"held-out F1 {heldout_f1:.4f}"
+        f1_text = (
+            "no held-out gold"
+            if heldout_f1 is None
+            else f"held-out F1 {heldout_f1:.4f} (95% interval "
+            f"{heldout_detail.get('ci_low', heldout_f1):.4f} to "
+            f"{heldout_detail.get('ci_high', heldout_f1):.4f}, {len(held)} of "
+            f"{len(held_all)} held-out sentences)"
+        )
         if rejected:
             assert active is not None and active.heldout_f1 is not None
             version.status = GV_REJECTED
+            assert decision is not None
             version.message = (
-                f"rejected: {f1_text} is more than {max_drop:g} below the active "
-                f"version {active.number} ({active.heldout_f1:.4f})"
+                f"rejected: {f1_text} against the active version {active.number} "
+                f"({active.heldout_f1:.4f}): {decision.reason(max_drop)}"
             )
         else:
             version.status = GV_READY
@@ -633,38 +656,55 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
 def _score_heldout(
     grammar: Grammar, held: list[GoldTree], progress: _Progress
 ) -> tuple[float, dict[str, Any]]:
-    from parser.chart import parse
-
-    pairs = []
-    fallbacks = 0
+    """PARSEVAL F1 of ``grammar`` on the held-out sample, parsed in parallel (up to the parse
+    admission's bound, :func:`app.services.admission.parallel_parses`), with its bootstrap
+    interval and the per-sentence counts the next version's gate compares against
+    (:mod:`app.services.heldout_gate`)."""
     report = progress.phase(0.2, 0.85, "parsing the held-out gold")
-    for i, g in enumerate(held):
-        # Scored as annotators see it: the consensus tree a new annotation starts from.
-        result = parse(grammar, words(g.tree), posteriors=True)
-        fallbacks += bool(result.fallback)
-        pairs.append((g.tree, rooted(result.consensus or result.trees[0])))
-        report(i + 1, len(held))
+    workers = parallel_parses()
+    # Scored as annotators see it: the consensus tree a new annotation starts from.
+    results = parse_many(
+        grammar,
+        [words(g.tree) for g in held],
+        posteriors=True,
+        processes=workers,
+        chunk=max(8, math.ceil(len(held) / (2 * workers))),
+        threads=1,
+        progress=report,
+    )
+    pairs = [
+        (g.tree, rooted(r.consensus or r.trees[0])) for g, r in zip(held, results, strict=True)
+    ]
+    fallbacks = sum(bool(r.fallback) for r in results)
     score = score_corpus(pairs)
+    counts = [score_pair(gold, test).labelled for gold, test in pairs]
+    interval = f1_interval([(c.matched, c.gold, c.test) for c in counts])
     return score.f1, {
         "precision": score.precision,
         "recall": score.recall,
         "exact": score.exact,
         "sentences": score.sentences,
         "fallbacks": fallbacks,
+        "ci_low": round(interval.low, 6),
+        "ci_high": round(interval.high, 6),
+        "se": round(interval.se, 6),
+        "ci_method": METHOD,
+        "per_sentence": {
+            str(g.sentence_id): [c.matched, c.gold, c.test]
+            for g, c in zip(held, counts, strict=True)
+        },
     }
 
 
 def _refresh(db: Session, corpus: Corpus, version: GrammarVersion) -> str:
-    """Re-suggest the sentences nobody has started, then let go of what the older versions
-    left (:func:`app.services.suggestions.prune`); a short summary for the row's message."""
-    # one process: the web service keeps the other core
-    done = refresh_unstarted(db, corpus, version, processes=1)
-    db.commit()
+    """Let go of what the older versions left (:func:`app.services.suggestions.prune`), then
+    parse the sentences the annotators open next (:func:`app.services.refresh.refresh_step`,
+    bounded; the rest are parsed when opened); a short summary for the row's message."""
     deleted, dropped = prune(db, corpus, corpus.options.keep_grammars)
     db.commit()
+    report = refresh_step(db, corpus)
     return (
-        f"new suggestions for {done} unstarted sentences; {deleted} older suggestions "
-        f"and {dropped} older saved grammars let go"
+        f"{report.summary()}; {deleted} older suggestions and {dropped} older saved grammars let go"
     )
 
 
@@ -855,8 +895,16 @@ def _drain_in_worker(url: str) -> int:
             if parsed.get_backend_name() == "sqlite" and parsed.database
             else Path(tempfile.gettempdir())
         )
-        factory = make_sessionmaker(make_engine(Settings(database_url=url, data_dir=folder)))
+        settings = Settings(database_url=url, data_dir=folder)
+        factory = make_sessionmaker(make_engine(settings))
         _WORKER_FACTORIES[url] = factory
+        # the same parse bounds as the web process (background parses: parallel_parses)
+        configure_admission(
+            slots=settings.parse_slots,
+            threads=settings.parse_threads,
+            wait=settings.parse_wait_seconds,
+            max_words=settings.parse_max_words,
+        )
     return drain(factory)
 
 

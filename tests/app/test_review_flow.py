@@ -57,8 +57,6 @@ def flow(app, db, people, login):  # type: ignore[no-untyped-def]
     corpus = import_demo_gold(
         db, "Saltmarrow review", raw=raw, settings={"retrain_every": 3, "max_f1_drop": 1.0}
     )
-    v1 = training.run_training(app.state.sessionmaker, corpus.id, reason="seed")
-    assert v1.status == GV_READY and v1.training_size == 75
     sentences = {
         s.text: s
         for s in db.scalars(
@@ -73,7 +71,12 @@ def flow(app, db, people, login):  # type: ignore[no-untyped-def]
                     user_id=user.id,
                 )
             )
+    # the fresh sentence comes last in ann1's queue: the refresh after each version parses
+    # the annotators' next sentences (app.services.refresh), so it gets each version's
+    db.add(Assignment(sentence_id=sentences[FRESH].id, user_id=people.ann1.id))
     db.commit()
+    v1 = training.run_training(app.state.sessionmaker, corpus.id, reason="seed")
+    assert v1.status == GV_READY and v1.training_size == 75
     return corpus, sentences, v1
 
 
@@ -86,7 +89,7 @@ def test_disagree_settle_export_retrain(app, db, login, flow):
             Suggestion.sentence_id == fresh.id, Suggestion.grammar_version_id == v1.id
         )
     )
-    assert before is not None  # the v1 refresh cached it: nobody had started the sentence
+    assert before is not None  # the v1 refresh cached it: next in ann1's queue, unstarted
     # kept as text: once v2 is active, v1's suggestions of unstarted sentences are pruned
     before_best = before.trees[0]
 

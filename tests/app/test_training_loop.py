@@ -18,6 +18,7 @@ from app.models import (
     GV_QUEUED,
     GV_READY,
     GV_REJECTED,
+    Assignment,
     Corpus,
     Gold,
     GrammarVersion,
@@ -118,18 +119,29 @@ def test_gold_import_queues_a_version_once_retrain_every_is_reached(app, db):
     assert len(db.scalars(select(GrammarVersion)).all()) == 1
 
 
-def test_refresh_after_training_fills_suggestions_of_unstarted_sentences(app, db):
-    corpus = import_demo_gold(db, raw="Grease the winch .\nCheck the ramp .\n")
+def test_refresh_after_training_fills_the_annotators_next_sentences_only(app, db, people):
+    corpus = import_demo_gold(
+        db,
+        raw="Grease the winch .\nCheck the ramp .\nPaint the rail .\n",
+        settings={"refresh_lookahead": 2},
+    )
     raw_ids = db.scalars(
-        select(Sentence.id).where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
+        select(Sentence.id)
+        .where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
+        .order_by(Sentence.id)
     ).all()
+    for sid in raw_ids:
+        db.add(Assignment(sentence_id=sid, user_id=people.ann1.id))
+    db.commit()
     v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
     cached = set(
         db.scalars(
             select(Suggestion.sentence_id).where(Suggestion.grammar_version_id == v.id)
         ).all()
     )
-    assert raw_ids and set(raw_ids) <= cached
+    # the look-ahead of the one annotator's queue; the third is parsed when opened
+    assert cached == set(raw_ids[:2])
+    assert v.options["refresh"]["parsed"] == 2 and v.options["refresh"]["budget"] >= 2
 
 
 def test_api_train_now_runs_in_the_background_and_reports_progress(app, db, login):

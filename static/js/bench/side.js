@@ -65,6 +65,12 @@ export function renderReadings() {
     list.appendChild(li);
     return;
   }
+  if (sugg.stale) {
+    const li = document.createElement("li");
+    li.className = "muted readings-stale";
+    li.textContent = `From grammar version ${sugg.grammar_version}, no longer the active one.`;
+    list.appendChild(li);
+  }
   if (sugg.consensus) {
     addReading(list, sugg.consensus, "Consensus", "reading consensus",
       "The brackets most probable over all the grammar's readings.\n" + sugg.consensus,
