@@ -31,6 +31,16 @@ class GrammarVersionPublic(BaseModel):
     training_size: int
     heldout_size: int
     heldout_f1: float | None
+    heldout_scored: int | None = Field(
+        default=None, description="held-out trees parsed to score it (a random sample)"
+    )
+    heldout_f1_low: float | None = Field(
+        default=None, description="low end of the held-out F1's 95% interval"
+    )
+    heldout_f1_high: float | None = Field(
+        default=None, description="high end of the held-out F1's 95% interval"
+    )
+    interval_method: str | None = None
     train_seconds: float | None
     gold_count_at_start: int
     created_at: UtcDateTime
@@ -42,6 +52,7 @@ class TrainCreate(RequestModel):
 
 
 def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPublic:
+    held = (v.options or {}).get("heldout") or {}
     return GrammarVersionPublic(
         id=v.id,
         corpus_id=v.corpus_id,
@@ -54,6 +65,10 @@ def version_public(v: GrammarVersion, active_id: int | None) -> GrammarVersionPu
         training_size=v.training_size,
         heldout_size=v.heldout_size,
         heldout_f1=v.heldout_f1,
+        heldout_scored=held.get("sentences"),
+        heldout_f1_low=held.get("ci_low"),
+        heldout_f1_high=held.get("ci_high"),
+        interval_method=held.get("ci_method"),
         train_seconds=v.train_seconds,
         gold_count_at_start=v.gold_count_at_start,
         created_at=v.created_at,

@@ -98,6 +98,9 @@ def test_grammars_page_lists_versions_and_trains_on_demand(app, db, people, logi
     html = adj.client.get(f"/grammars?corpus={corpus.id}").text
     assert f'data-version="{first.id}" data-status="ready"' in html
     assert "active</span>" in html and f"{first.heldout_f1:.3f}" in html
+    # with its 95% interval (app.services.heldout_gate)
+    held = first.options["heldout"]
+    assert f"{held['ci_low']:.3f}–{held['ci_high']:.3f}" in html
     assert 'id="gv-train-now"' in html and "Automatic training is off" in html
     resp = adj.client.post(
         "/grammars/train",

@@ -44,6 +44,11 @@ def test_run_training_scores_a_heldout_slice_and_activates(app, db):
     assert v.options["slice_size"] == v.training_size - v.heldout_size
     assert 0.0 < v.heldout_f1 <= 1.0
     assert v.options["heldout"]["sentences"] == v.heldout_size
+    # the F1 carries its bootstrap interval and the per-sentence counts of the sample
+    held = v.options["heldout"]
+    assert held["ci_low"] <= v.heldout_f1 <= held["ci_high"]
+    assert len(held["per_sentence"]) == v.heldout_size
+    assert "bootstrap" in held["ci_method"]
     # the library's default markovization, recorded with the version
     assert v.options["markovization"] == {
         "horizontal": DEFAULT_HORIZONTAL,
@@ -160,6 +165,8 @@ def test_api_train_now_runs_in_the_background_and_reports_progress(app, db, logi
     polled = adj.client.get(f"/api/grammars/{body['id']}").json()
     assert polled["status"] == "ready" and polled["active"] is True
     assert polled["progress"] == 1.0 and polled["heldout_f1"] == pytest.approx(v.heldout_f1)
+    assert polled["heldout_f1_low"] <= polled["heldout_f1"] <= polled["heldout_f1_high"]
+    assert polled["heldout_scored"] == v.heldout_size  # fewer than the sample's bound
     listed = adj.client.get(f"/api/grammars?corpus_id={corpus.id}").json()
     assert [x["number"] for x in listed][0] == polled["number"]
 
