@@ -61,6 +61,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from app.models import GV_QUEUED, GV_TRAINING, RUN_QUEUED, RUN_RUNNING, FindingRun, GrammarVersion
 from app.services import findings, training
+from app.services.admission import configure_from
 from app.settings import Settings
 
 log = logging.getLogger(__name__)
@@ -350,6 +351,7 @@ def describe() -> str:
 
 def run_worker(settings: Settings, *, name: str | None = None) -> None:
     """Run a worker until SIGINT or SIGTERM (which let the running job finish first)."""
+    configure_from(settings)  # its background parses keep to the same bounds as a server's
     ensure_schema(settings)
     stalled = settings.worker_stalled_seconds
     app = make_worker_app(settings)

@@ -215,12 +215,7 @@ def create_app(settings: Settings | None = None, *, migrate: bool = True) -> Fas
         "the session's CSRF token in the X-CSRF-Token header.",
     )
     application.state.settings = settings
-    admission.configure(  # this process's parse pool (app.services.admission)
-        slots=settings.parse_slots,
-        threads=settings.parse_threads,
-        wait=settings.parse_wait_seconds,
-        max_words=settings.parse_max_words,
-    )
+    admission.configure_from(settings)  # this process's parse pool (app.services.admission)
     application.state.engine = engine
     application.state.sessionmaker = make_sessionmaker(engine)
     application.mount("/static", StaticFiles(directory=str(STATIC_DIR)), name="static")

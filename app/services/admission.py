@@ -204,6 +204,18 @@ def configure(
     return _current
 
 
+def configure_from(settings: Any) -> ParseAdmission:
+    """:func:`configure` from a service's settings (``parse_slots``, ``parse_threads``,
+    ``parse_wait_seconds``, ``parse_max_words``): the web process, the training process and
+    a queue worker bound their parses alike."""
+    return configure(
+        slots=settings.parse_slots,
+        threads=settings.parse_threads,
+        wait=settings.parse_wait_seconds,
+        max_words=settings.parse_max_words,
+    )
+
+
 def parallel_parses() -> int:
     """Parses a background job (a suggestion refresh, held-out scoring) may run at once in
     worker processes of one numba thread each: the pool's ``slots * threads``, which the

@@ -109,7 +109,7 @@ from app.models import (
     Sentence,
     utcnow,
 )
-from app.services.admission import configure as configure_admission
+from app.services.admission import configure_from as configure_admission
 from app.services.admission import parallel_parses
 from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
@@ -899,12 +899,7 @@ def _drain_in_worker(url: str) -> int:
         factory = make_sessionmaker(make_engine(settings))
         _WORKER_FACTORIES[url] = factory
         # the same parse bounds as the web process (background parses: parallel_parses)
-        configure_admission(
-            slots=settings.parse_slots,
-            threads=settings.parse_threads,
-            wait=settings.parse_wait_seconds,
-            max_words=settings.parse_max_words,
-        )
+        configure_admission(settings)
     return drain(factory)
 
 
