@@ -31,6 +31,9 @@ from app.wording import plural
 router = APIRouter(tags=["pages"], include_in_schema=False)
 
 PER_PAGE = 50
+#: Documents a page of the corpus page lists (a corpus may have thousands).
+DOCUMENTS_PER_PAGE = 50
+
 DONE_MESSAGES = {
     "created": "The corpus was created. Import sentences or trees on the Transfer page.",
     "settings": "The settings were saved.",
@@ -50,6 +53,8 @@ def _corpus_page(
     last: bool = False,
     state: str | None = None,
     document: int | None = None,
+    docs_after: str | None = None,
+    docs_before: str | None = None,
     error: str | None = None,
     notice: str | None = None,
     form: dict[str, Any] | None = None,
@@ -74,6 +79,17 @@ def _corpus_page(
         listing = svc.sentence_page(
             db, corpus, per_page=PER_PAGE, state=state, document_id=document
         )
+    try:
+        documents = svc.document_page(
+            db, corpus, per_page=DOCUMENTS_PER_PAGE, after=docs_after, before=docs_before
+        )
+    except BadInput as err:  # a mangled cursor: the first page of documents
+        error = error or str(err.detail)
+        status_code = 422
+        documents = svc.document_page(db, corpus, per_page=DOCUMENTS_PER_PAGE)
+    chosen = None
+    if document is not None and all(r.document.id != document for r in documents.rows):
+        chosen = svc.find_document(db, corpus, document)
     ids = [row.sentence.id for row in listing.rows]
     mine = assigned_to(db, login.user, ids)
     return render(
@@ -84,7 +100,8 @@ def _corpus_page(
         nav="corpora",
         corpus=corpus,
         counts=svc.corpus_counts(db, corpus),
-        documents=svc.document_rows(db, corpus),
+        documents=documents,
+        chosen_document=chosen,
         listing=listing,
         mine=mine,
         state=state,
@@ -166,6 +183,8 @@ def corpus_view(
     document: int | None = None,
     done: str | None = None,
     assigned: int | None = None,
+    docs_after: str | None = None,
+    docs_before: str | None = None,
 ) -> HTMLResponse:
     corpus = readable_corpus(db, corpus_id, login.user)
     notice = DONE_MESSAGES.get(done or "")
@@ -181,6 +200,8 @@ def corpus_view(
         last=last,
         state=state or None,
         document=document,
+        docs_after=docs_after or None,
+        docs_before=docs_before or None,
         notice=notice,
     )
 

@@ -405,19 +405,26 @@ class DocumentRow:
 
 
 def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
-    rows = db.execute(
-        select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n).where(
-            SentenceCount.corpus_id == corpus.id
-        )
-    )
-    per_doc: dict[int, dict[str, int]] = {}
-    for doc_id, state, n in rows:
-        per_doc.setdefault(doc_id, dict.fromkeys(SENTENCE_STATES, 0))[state] = n
+    """Every document of the corpus with its counts (the JSON API's detail; the corpus page
+    shows them a page at a time: :func:`document_page`)."""
     docs = db.scalars(
         select(Document)
         .where(Document.corpus_id == corpus.id)
         .order_by(Document.position, Document.id)
     ).all()
+    return _with_counts(db, corpus, list(docs))
+
+
+def _with_counts(db: Session, corpus: Corpus, docs: list[Document]) -> list[DocumentRow]:
+    where = [SentenceCount.corpus_id == corpus.id]
+    if len(docs) <= DOCUMENTS_PER_PAGE_MAX:  # one page: only its documents' count rows
+        where.append(SentenceCount.document_id.in_([d.id for d in docs]))
+    rows = db.execute(
+        select(SentenceCount.document_id, SentenceCount.state, SentenceCount.n).where(*where)
+    )
+    per_doc: dict[int, dict[str, int]] = {}
+    for doc_id, state, n in rows:
+        per_doc.setdefault(doc_id, dict.fromkeys(SENTENCE_STATES, 0))[state] = n
     return [
         DocumentRow(
             document=d,
@@ -426,6 +433,85 @@ def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
         )
         for d in docs
     ]
+
+
+#: The most documents one page of the corpus page shows.
+DOCUMENTS_PER_PAGE_MAX = 500
+
+
+@dataclass
+class DocumentPage:
+    """One page of a corpus's documents in their order, with cursors (``POSITION-ID``) to the
+    pages before (``prev_cursor``, pass as ``before``) and after (``next_cursor``, ``after``)."""
+
+    rows: list[DocumentRow]
+    total: int
+    per_page: int
+    prev_cursor: str | None = None
+    next_cursor: str | None = None
+
+
+def _document_cursor(doc: Document) -> str:
+    return f"{doc.position}-{doc.id}"
+
+
+def document_page(
+    db: Session,
+    corpus: Corpus,
+    *,
+    per_page: int = 50,
+    after: str | None = None,
+    before: str | None = None,
+) -> DocumentPage:
+    """One page of the corpus's documents (keyset on position, then id): the first, or the
+    one ``after`` / ``before`` a cursor. Cost: one page of documents and their count rows,
+    plus a count of the corpus's documents (an index range)."""
+    per_page = min(max(per_page, 1), DOCUMENTS_PER_PAGE_MAX)
+    key = tuple_(Document.position, Document.id)
+    stmt = select(Document).where(Document.corpus_id == corpus.id)
+    if before is not None:
+        docs = list(
+            db.scalars(
+                stmt.where(key < tuple_(*parse_document_cursor(before)))
+                .order_by(Document.position.desc(), Document.id.desc())
+                .limit(per_page + 1)
+            )
+        )
+        has_prev, has_next = len(docs) > per_page, True
+        docs = docs[:per_page][::-1]
+    else:
+        if after is not None:
+            stmt = stmt.where(key > tuple_(*parse_document_cursor(after)))
+        docs = list(db.scalars(stmt.order_by(Document.position, Document.id).limit(per_page + 1)))
+        has_prev, has_next = after is not None, len(docs) > per_page
+        docs = docs[:per_page]
+    total = db.scalar(
+        select(func.count()).select_from(Document).where(Document.corpus_id == corpus.id)
+    )
+    return DocumentPage(
+        rows=_with_counts(db, corpus, docs),
+        total=int(total or 0),
+        per_page=per_page,
+        prev_cursor=_document_cursor(docs[0]) if docs and has_prev else None,
+        next_cursor=_document_cursor(docs[-1]) if docs and has_next else None,
+    )
+
+
+def find_document(db: Session, corpus: Corpus, document_id: int) -> Document | None:
+    """The corpus's document with this id, or None."""
+    return db.scalar(
+        select(Document).where(Document.id == document_id, Document.corpus_id == corpus.id)
+    )
+
+
+def parse_document_cursor(cursor: str) -> tuple[int, int]:
+    """The (position, id) of a document cursor, or BadInput."""
+    parts = cursor.split("-")
+    if len(parts) != 2 or not all(p.isdigit() and len(p) < 19 for p in parts):
+        raise BadInput(
+            f"document cursor {cursor[:40]!r} is not of the form POSITION-ID (two whole numbers)"
+        )
+    return int(parts[0]), int(parts[1])
 
 
 @dataclass
