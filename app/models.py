@@ -352,6 +352,24 @@ class CorpusMember(Base):
     )
 
 
+class QueueCount(Base):
+    """How many sentences of a corpus are assigned to a user, how many of those the user has
+    submitted, and how many of them are dropped: kept by database triggers on assignments,
+    annotations and sentences (:mod:`app.counts`), so that the Queue's totals read a row per
+    corpus instead of counting the user's queue."""
+
+    __tablename__ = "queue_counts"
+    user_id: Mapped[int] = mapped_column(
+        ForeignKey("users.id", ondelete="CASCADE"), primary_key=True
+    )
+    corpus_id: Mapped[int] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"), primary_key=True, index=True
+    )
+    assigned: Mapped[int] = mapped_column(Integer, default=0)
+    submitted: Mapped[int] = mapped_column(Integer, default=0)
+    dropped: Mapped[int] = mapped_column(Integer, default=0)
+
+
 class SentenceCount(Base):
     """How many sentences of a document are in each state, kept by database triggers on
     ``sentences`` (:mod:`app.counts`), so that the corpus pages read a few rows instead of

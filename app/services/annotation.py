@@ -48,6 +48,7 @@ from app.models import (
     Corpus,
     Document,
     Event,
+    QueueCount,
     Revision,
     Sentence,
     User,
@@ -463,28 +464,38 @@ def _dropped(db: Session, user: User, corpus_id: int | None, *extra: Any) -> int
     )
 
 
+def _maintained(db: Session, user: User, corpus_id: int | None) -> tuple[int, int, int]:
+    """(assigned, submitted, dropped) of the user's queue (or its part in one corpus), read
+    from the rows :mod:`app.counts` keeps: one row per corpus of the user."""
+    where: list[Any] = [QueueCount.user_id == user.id]
+    if corpus_id is not None:
+        where.append(QueueCount.corpus_id == corpus_id)
+    row = db.execute(
+        select(
+            func.coalesce(func.sum(QueueCount.assigned), 0),
+            func.coalesce(func.sum(QueueCount.submitted), 0),
+            func.coalesce(func.sum(QueueCount.dropped), 0),
+        ).where(*where)
+    ).one()
+    return int(row[0]), int(row[1]), int(row[2])
+
+
 def queue_counts(db: Session, user: User, corpus_id: int | None = None) -> tuple[int, int]:
     """(assigned, submitted) of the user's queue, or of its part in one corpus; dropped
-    sentences are not in a queue."""
+    sentences are not in a queue. From the maintained counts: O(corpora of the user)."""
+    assigned, submitted, dropped = _maintained(db, user, corpus_id)
+    return assigned - dropped, submitted
+
+
+def _earlier(db: Session, user: User, corpus_id: int | None, earlier: Any) -> int:
+    """How many sentences of the user's queue come before a key: an index range over the
+    user's assignments (``ix_assignments_queue``), O(place in the queue) index entries;
+    dropped ones are subtracted only when the user has any (the maintained counts say)."""
     where = _mine(user, corpus_id)
-    total = db.scalar(select(func.count()).select_from(Assignment).where(*where)) or 0
-    total -= _dropped(db, user, corpus_id)
-    # from the user's submitted annotations (index on user and state), each checked against
-    # the queue: O(work handed in), not O(queue)
-    submitted = (
-        db.scalar(
-            select(func.count())
-            .select_from(Annotation)
-            .join(
-                Assignment,
-                (Assignment.sentence_id == Annotation.sentence_id)
-                & (Assignment.user_id == Annotation.user_id),
-            )
-            .where(Annotation.user_id == user.id, Annotation.state == ANN_SUBMITTED, *where)
-        )
-        or 0
-    )
-    return int(total), int(submitted)
+    count = db.scalar(select(func.count()).select_from(Assignment).where(*where, earlier)) or 0
+    if _maintained(db, user, corpus_id)[2]:
+        count -= _dropped(db, user, corpus_id, earlier)
+    return int(count)
 
 
 def queue_page(
@@ -543,10 +554,7 @@ def queue_page(
     total, submitted = queue_counts(db, user, corpus_id)
     first_index = 1
     if rows and has_prev:
-        earlier = key < tuple_(*_key_of(rows[0]))
-        first_index += (
-            db.scalar(select(func.count()).select_from(Assignment).where(*where, earlier)) or 0
-        ) - _dropped(db, user, corpus_id, earlier)
+        first_index += _earlier(db, user, corpus_id, key < tuple_(*_key_of(rows[0])))
     items = [
         QueueItem(
             sentence_id=r[2],
@@ -626,9 +634,7 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
     key = tuple_(*_QUEUE_KEY)
     earlier, later = key < tuple_(*here), key > tuple_(*here)
     mine = _mine(user, None)
-    before = (
-        db.scalar(select(func.count()).select_from(Assignment).where(*mine, earlier)) or 0
-    ) - _dropped(db, user, None, earlier)
+    before = _earlier(db, user, None, earlier)
     in_queue = (
         select(Assignment.sentence_id)
         .join(Sentence, Sentence.id == Assignment.sentence_id)

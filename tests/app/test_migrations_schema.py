@@ -30,12 +30,12 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0010")
+    command.downgrade(cfg, "0011")
     engine = create_engine(settings.resolved_database_url)
     try:
         tables = set(inspect(engine).get_table_names())
     finally:
         engine.dispose()
-    assert "corpus_members" not in tables and "corpora" in tables
+    assert "queue_counts" not in tables and "corpus_members" in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []
