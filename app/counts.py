@@ -123,17 +123,24 @@ _SQLITE = [
     f"WHEN OLD.state = 'dropped' BEGIN {_Q_DROP.format(r='OLD', delta='-1')}; END",
 ]
 
-_POSTGRES = [
-    f"""CREATE OR REPLACE FUNCTION tw_sentence_counts() RETURNS trigger AS $$
+
+def _row_function(name: str, on_old: str, on_new: str) -> str:
+    """A PostgreSQL row trigger function: ``on_old`` for a deleted or changed row's old
+    version, ``on_new`` for an inserted or changed row's new one."""
+    return f"""CREATE OR REPLACE FUNCTION {name}() RETURNS trigger AS $$
 BEGIN
   IF TG_OP = 'DELETE' OR TG_OP = 'UPDATE' THEN
-    {_REMOVE.format(r="OLD")};
+    {on_old};
   END IF;
   IF TG_OP = 'INSERT' OR TG_OP = 'UPDATE' THEN
-    {_ADD.format(r="NEW")};
+    {on_new};
   END IF;
   RETURN NULL;
-END $$ LANGUAGE plpgsql""",
+END $$ LANGUAGE plpgsql"""
+
+
+_POSTGRES = [
+    _row_function("tw_sentence_counts", _REMOVE.format(r="OLD"), _ADD.format(r="NEW")),
     "DROP TRIGGER IF EXISTS tw_sentence_counts_insert ON sentences",
     "CREATE TRIGGER tw_sentence_counts_insert AFTER INSERT OR DELETE ON sentences "
     "FOR EACH ROW EXECUTE FUNCTION tw_sentence_counts()",
@@ -142,26 +149,10 @@ END $$ LANGUAGE plpgsql""",
     "ON sentences FOR EACH ROW WHEN (OLD.state IS DISTINCT FROM NEW.state "
     "OR OLD.document_id IS DISTINCT FROM NEW.document_id "
     "OR OLD.corpus_id IS DISTINCT FROM NEW.corpus_id) EXECUTE FUNCTION tw_sentence_counts()",
-    f"""CREATE OR REPLACE FUNCTION tw_queue_counts_assign() RETURNS trigger AS $$
-BEGIN
-  IF TG_OP = 'DELETE' OR TG_OP = 'UPDATE' THEN
-    {_Q_REMOVE.format(r="OLD")};
-  END IF;
-  IF TG_OP = 'INSERT' OR TG_OP = 'UPDATE' THEN
-    {_Q_ADD.format(r="NEW")};
-  END IF;
-  RETURN NULL;
-END $$ LANGUAGE plpgsql""",
-    f"""CREATE OR REPLACE FUNCTION tw_queue_counts_ann() RETURNS trigger AS $$
-BEGIN
-  IF TG_OP = 'DELETE' OR TG_OP = 'UPDATE' THEN
-    {_Q_ANN.format(r="OLD", sign="-")};
-  END IF;
-  IF TG_OP = 'INSERT' OR TG_OP = 'UPDATE' THEN
-    {_Q_ANN.format(r="NEW", sign="+")};
-  END IF;
-  RETURN NULL;
-END $$ LANGUAGE plpgsql""",
+    _row_function("tw_queue_counts_assign", _Q_REMOVE.format(r="OLD"), _Q_ADD.format(r="NEW")),
+    _row_function(
+        "tw_queue_counts_ann", _Q_ANN.format(r="OLD", sign="-"), _Q_ANN.format(r="NEW", sign="+")
+    ),
     f"""CREATE OR REPLACE FUNCTION tw_queue_counts_sentence() RETURNS trigger AS $$
 BEGIN
   IF TG_OP = 'DELETE' THEN
