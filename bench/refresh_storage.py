@@ -41,6 +41,7 @@ import argparse
 import io
 import os
 import random
+import shutil
 import sys
 import tempfile
 import time
@@ -267,10 +268,12 @@ def main() -> None:
     print(head)
     table: dict[str, list[str]] = {}
     last: tuple[Any, int] | None = None
+    folders: list[Path] = []
     for size in sizes:
         sents = raw_sentences(trees, size)
         for mode, blob in (("before", before_blob), ("after", after_blob)):
             folder = Path(tempfile.mkdtemp(prefix="tw-refresh-"))
+            folders.append(folder)
             factory, corpus_id = build(folder, sents, args.annotators)
             work = retrain_many(factory, corpus_id, mode, blob, args.retrainings, values)
             size_mb = (folder / "tw.db").stat().st_size / 1e6
@@ -332,6 +335,8 @@ def main() -> None:
         f"({serial_cpu:.1f} s CPU); a sample of {len(picked)} on {workers} workers "
         f"{par_wall:.1f} s wall ({par_cpu:.1f} s CPU); wall ratio {serial_wall / par_wall:.2f}"
     )
+    for folder in folders:  # the databases (hundreds of MB before) are not kept
+        shutil.rmtree(folder, ignore_errors=True)
     print(f"load: {os.getloadavg()[0]:.2f} {os.getloadavg()[1]:.2f} {os.getloadavg()[2]:.2f}")
 
 
