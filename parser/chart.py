@@ -45,6 +45,12 @@ from parser.kbest import TOP, LazyKBest, open_chain, tree_key
 from parser.trees import tree_from_spans
 
 POSTERIOR_THRESHOLD = 1e-3
+#: Coarse-to-fine pruning of a refined grammar's chart (Petrov and Klein 2007, "Improved
+#: inference for unlexicalized parsing", NAACL; they prune at posteriors of about 1e-4, from
+#: memory): a sub-symbol of a span is left out when its base symbol's posterior under the
+#: projected grammar (:func:`parser.latent.coarse_grammar`) is at most this. Required spans are
+#: never pruned, and a pruned chart without a tree is parsed again unpruned.
+REFINED_PRUNE = 1e-4
 #: The longest sentence the library is tested at (the Viterbi tree, k-best, posteriors and the
 #: consensus tree; none of them recurses, so nothing here depends on Python's recursion limit).
 #: Imports refuse longer sentences. Time grows as n^3: see DEVELOPERS.md, "Sentence length".
@@ -303,12 +309,15 @@ def parse(
     constraints: Constraints | None = None,
     posterior_threshold: float = POSTERIOR_THRESHOLD,
     consensus_cost: float = DEFAULT_COST,
+    prune: float | None = REFINED_PRUNE,
 ) -> ParseResult:
     """Parse ``words``; see the module docstring. Raises ConstraintError for malformed
     constraints and ParserError for an empty sentence; never for ordinary words.
 
     With ``posteriors`` the result also holds the consensus tree (:mod:`parser.consensus`,
-    bracket cost ``consensus_cost``); ``posterior_threshold`` must stay below that cost."""
+    bracket cost ``consensus_cost``); ``posterior_threshold`` must stay below that cost.
+    A refined grammar (:mod:`parser.latent`) is parsed coarse-to-fine with the pruning
+    threshold ``prune`` (None: its full chart, exact)."""
     t0 = time.perf_counter()
     words = [str(w) for w in words]
     if not words:
@@ -322,7 +331,7 @@ def parse(
         )
     tab = tables(g)
     prob = _prepare(g, tab, words, constraints)
-    chart = _Chart(g, tab, prob) if prob.satisfiable else None
+    chart = _fine_chart(g, tab, prob, words, constraints, prune) if prob.satisfiable else None
     if chart is None or not chart.ok:
         tree = fallback_tree(g, words, prob)
         return ParseResult(
@@ -386,7 +395,7 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
         raise ParserError("cannot parse an empty sentence")
     tab = tables(g)
     prob = _prepare(g, tab, words, None)
-    chart = _Chart(g, tab, prob)
+    chart = _fine_chart(g, tab, prob, words, None, REFINED_PRUNE)
     if not chart.ok:
         return math.nan
     live = np.maximum(chart.vt, kernels.NEG)
@@ -413,6 +422,8 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
             tab.nonempty,
             tab.haslab,
             prob.backoff,
+            chart.allow,
+            chart.use_allow,
         )
         return float(np.log(it[chart.full, g.start]) + sigma[chart.full])
 
@@ -420,9 +431,62 @@ def tree_entropy(g: Grammar, words: Sequence[str], step: float = 1e-3) -> float:
     return max(0.0, log_z(1.0) - expected_logp)
 
 
+def pruning_mask(
+    g: Grammar,
+    words: Sequence[str],
+    constraints: Constraints | None,
+    threshold: float,
+) -> np.ndarray | None:
+    """bool[S, N]: the (span, symbol) cells of refined grammar ``g`` kept by coarse-to-fine
+    pruning (see :data:`REFINED_PRUNE`): those whose base symbol has a posterior above
+    ``threshold`` under the projected grammar with the same constraints; every cell of a
+    required span is kept. None when the projected grammar has no tree."""
+    from parser.latent import coarse_grammar
+
+    coarse, to_coarse = coarse_grammar(g)
+    ctab = tables(coarse)
+    cprob = _prepare(coarse, ctab, words, constraints)
+    if not cprob.satisfiable:
+        return None
+    cchart = _Chart(coarse, ctab, cprob)
+    if not cchart.ok:
+        return None
+    spost = cchart.symbol_posteriors()
+    allow: np.ndarray = spost[:, to_coarse] > threshold
+    for a, b, _ in cprob.required:
+        allow[cprob.sid[a, b], :] = True
+    return allow
+
+
+def _fine_chart(
+    g: Grammar,
+    tab: _Tables,
+    prob: _Problem,
+    words: Sequence[str],
+    constraints: Constraints | None,
+    prune: float | None,
+) -> _Chart:
+    """The chart of ``g``; coarse-to-fine for a refined grammar when ``prune`` is set, and
+    again unpruned if pruning left no tree."""
+    if prune is not None and "latent" in g.meta:
+        allow = pruning_mask(g, words, constraints, prune)
+        if allow is not None:
+            chart = _Chart(g, tab, prob, allow)
+            if chart.ok:
+                return chart
+    return _Chart(g, tab, prob)
+
+
+_NO_MASK = np.ones((1, 1), dtype=np.bool_)
+
+
 class _Chart:
-    def __init__(self, g: Grammar, tab: _Tables, p: _Problem) -> None:
+    def __init__(
+        self, g: Grammar, tab: _Tables, p: _Problem, allow: np.ndarray | None = None
+    ) -> None:
         self.g, self.tab, self.p = g, tab, p
+        self.allow = _NO_MASK if allow is None else allow
+        self.use_allow = allow is not None
         (self.vt, self.vb, self.bp_rule, self.bp_edge, self.VL, self.VR) = kernels.viterbi(
             p.n,
             g.n_symbols,
@@ -443,6 +507,8 @@ class _Chart:
             tab.nonempty,
             tab.haslab,
             p.backoff,
+            self.allow,
+            self.use_allow,
         )
         for arr in (self.vt, self.vb):
             arr[arr <= kernels.LOW] = -np.inf
@@ -501,6 +567,8 @@ class _Chart:
                 tab.nonempty,
                 tab.haslab,
                 p.backoff,
+                self.allow,
+                self.use_allow,
             )
         return self._inside
 
@@ -508,10 +576,10 @@ class _Chart:
         it, _, sigma, _, _ = self._inside_chart()
         return float(np.log(it[self.full, self.g.start]) + sigma[self.full])
 
-    def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
+    def _outside(self, want_symbols: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         it, ib, sigma, il, ir = self._inside_chart()
         p, tab = self.p, self.tab
-        post, tpost = kernels.outside(
+        out: tuple[np.ndarray, np.ndarray, np.ndarray] = kernels.outside(
             p.n,
             self.g.n_symbols,
             self.g.start,
@@ -539,7 +607,18 @@ class _Chart:
             tab.lab_ids,
             len(tab.labels),
             p.backoff,
+            want_symbols,
         )
+        return out
+
+    def symbol_posteriors(self) -> np.ndarray:
+        """float64[S, N]: per span and symbol, the larger of its top and bottom node's
+        posterior."""
+        return self._outside(True)[2]
+
+    def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
+        post, tpost, _ = self._outside(False)
+        p, tab = self.p, self.tab
         self.tag_posteriors = []
         for i in range(p.n):
             per: dict[str, float] = {}

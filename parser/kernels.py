@@ -113,6 +113,8 @@ def viterbi(
     nonempty,
     haslab,
     backoff,
+    allow,
+    use_allow,
 ):
     """Max-product chart over finite scores: "impossible" is :data:`NEG` (so the loops may be
     compiled with fast-math), ``lex`` must use NEG too. Returns vt, vb (float64[S, N] top/bottom
@@ -165,12 +167,18 @@ def viterbi(
                         if sc > bot[a]:
                             bot[a] = sc
                             brule[a] = r
+            if use_allow:
+                for a in range(n_sym):
+                    if not allow[s, a]:
+                        bot[a] = NEG
             kind = 0 if length == 1 else 1
             top = vt[s]
             bedge = bp_edge[s]
             for e in range(n_edge):
                 bv = bot[uc[e]]
                 if bv <= LOW:
+                    continue
+                if use_allow and not allow[s, up[e]]:
                     continue
                 pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
                 if pen <= LOW:
@@ -208,6 +216,8 @@ def inside(
     nonempty,
     haslab,
     backoff,
+    allow,
+    use_allow,
 ):
     """Scaled inside chart. Returns it, ib (float64[S, N]), sigma (float64[S]) and the views
     IL, IR (float64[N, n + 1, n + 1]) of ``it``.
@@ -273,11 +283,17 @@ def inside(
                     for r in range(p_off[q], p_off[q + 1]):
                         bot[r_parent[r]] += acc * r_w[r]
                 sigma[s] = big
+            if use_allow:
+                for a in range(n_sym):
+                    if not allow[s, a]:
+                        bot[a] = 0.0
             kind = 0 if length == 1 else 1
             top = it[s]
             for e in range(n_edge):
                 bv = bot[uc[e]]
                 if bv == 0.0:
+                    continue
+                if use_allow and not allow[s, up[e]]:
                     continue
                 pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
                 if pen <= LOW:
@@ -328,6 +344,7 @@ def outside(
     lab_ids,
     n_labels,
     backoff,
+    want_symbols,
 ):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
     span (for edge e and kind k, the labels of its nodes are
@@ -341,13 +358,14 @@ def outside(
     n_span = n * (n + 1) // 2
     post = np.zeros((n_span, n_labels))
     tpost = np.zeros((n, n_sym))
+    spost = np.zeros((n_span if want_symbols else 1, n_sym if want_symbols else 1))
     OL = np.zeros((n + 1, n_sym, n + 1))
     OR = np.zeros((n + 1, n_sym, n + 1))
     n_edge = up.shape[0]
     n_pair = p_left.shape[0]
     full = sid[0, n]
     if it[full, start] == 0.0:
-        return post, tpost
+        return post, tpost, spost
     OL[0, start, n] = 1.0 / it[full, start]
     for length in range(n, 0, -1):
         for i in prange(n - length + 1):
@@ -382,6 +400,10 @@ def outside(
                 pe = oa * w * bv
                 for q in range(lab_off[2 * e + kind], lab_off[2 * e + kind + 1]):
                     post[s, lab_ids[q]] += pe
+            if want_symbols:
+                itop = it[s]
+                for a in range(n_sym):
+                    spost[s, a] = max(otop[a] * itop[a], obot[a] * ibot[a])
             if length == 1:
                 for b in range(n_sym):
                     tpost[i, b] = obot[b] * ibot[b]
@@ -407,4 +429,4 @@ def outside(
                 for j in range(i + 1, k):
                     OL[i, b, j] += g * IR[k, c, j] * f[j]
                     OR[k, c, j] += g * IL[i, b, j] * f[j]
-    return post, tpost
+    return post, tpost, spost

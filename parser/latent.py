@@ -50,8 +50,10 @@ exported grammar has up to k^3 times the binary rules (``prune`` drops the tiny 
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 from nltk import Tree
@@ -996,8 +998,11 @@ def refine(
     trees: Iterable[Tree],
     options: RefineOptions | None = None,
     progress: LatentProgress | None = None,
+    after_cycle: Callable[[int, LatentGrammar], None] | None = None,
 ) -> LatentGrammar:
-    """Split-merge cycles from ``g`` over the trees it was trained on."""
+    """Split-merge cycles from ``g`` over the trees it was trained on; ``after_cycle(cycle,
+    grammar)`` sees the grammar at the end of each cycle (to score every number of cycles in
+    one run)."""
     opts = options or RefineOptions()
     tb = treebank(g, binarized_training_trees(trees, g))
     rng = np.random.default_rng(opts.seed)
@@ -1016,4 +1021,108 @@ def refine(
             report(opts.em_iterations + 1 + it, ll, cycle)
 
         lg, _ = em(lg, tb, opts.em_after_merge, opts, report_after)
+        if after_cycle is not None:
+            after_cycle(cycle, lg)
     return lg
+
+
+# --------------------------------------------------------------------------- projection
+_SUFFIX = re.compile(re.escape(SUBSYMBOL) + r"\d+$")
+
+
+def is_refined(g: Grammar) -> bool:
+    """True for a grammar written by :meth:`LatentGrammar.to_grammar`."""
+    return "latent" in g.meta
+
+
+def expected_counts(g: Grammar, tol: float = 1e-10, max_iter: int = 5000) -> tuple[np.ndarray, ...]:
+    """Expected number of top and bottom nodes of each symbol in a tree drawn from ``g``
+    (the fixed point c_top = [start] + sum over binary rules of the parent bottom's count
+    times the rule's probability, per child; c_bot = sum over unary edges), by iteration from
+    zero; exact to ``tol`` relative for a consistent grammar."""
+    n = g.n_symbols
+    wb = np.exp(g.bin_logp)
+    wu = np.exp(g.un_logp)
+
+    def bottoms(c_top: np.ndarray) -> np.ndarray:
+        out: np.ndarray = np.bincount(g.un_child, c_top[g.un_parent] * wu, minlength=n)
+        return out
+
+    c_top: np.ndarray = np.zeros(n)
+    for _ in range(max_iter):
+        flow = bottoms(c_top)[g.bin_parent] * wb
+        new = np.bincount(g.bin_left, flow, minlength=n) + np.bincount(
+            g.bin_right, flow, minlength=n
+        )
+        new[g.start] += 1.0
+        done = np.max(np.abs(new - c_top)) <= tol * max(1.0, float(new.max()))
+        c_top = new
+        if done:
+            break
+    return c_top, bottoms(c_top)
+
+
+def coarse_grammar(g: Grammar) -> tuple[Grammar, np.ndarray]:
+    """The projection of a refined grammar onto its base symbols (Petrov and Klein 2007,
+    "Improved inference for unlexicalized parsing", NAACL: each rule of the base symbols gets
+    the refined rules' probabilities averaged over the parent's sub-symbols, weighted by their
+    expected counts under the refined grammar itself), and the base symbol of each refined
+    symbol. Cached on ``g``. The coarse-to-fine parse prunes the refined chart with this
+    grammar's posteriors."""
+    cached = g.__dict__.get("_coarse")
+    if cached is not None:
+        return cast(tuple[Grammar, np.ndarray], cached)
+    names: dict[str, int] = {}
+    to_coarse = np.array(
+        [names.setdefault(_SUFFIX.sub("", s), len(names)) for s in g.symbols], dtype=np.int64
+    )
+    n = len(names)
+    c_top, c_bot = expected_counts(g)
+    tot_top = np.bincount(to_coarse, c_top, minlength=n)
+    tot_bot = np.bincount(to_coarse, c_bot, minlength=n)
+
+    def project(
+        keys: np.ndarray, w: np.ndarray, weight: np.ndarray, total: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        uniq, inv = np.unique(keys, axis=0, return_inverse=True)
+        mass = np.bincount(inv.ravel(), w * weight, minlength=len(uniq))
+        with np.errstate(divide="ignore"):
+            logp = np.log(mass) - np.log(np.maximum(total[uniq[:, 0]], 1e-300))
+        keep = mass > 0
+        return uniq[keep], logp[keep]
+
+    bkeys = np.stack(
+        [to_coarse[g.bin_parent], to_coarse[g.bin_left], to_coarse[g.bin_right]], axis=1
+    )
+    bins, blogp = project(bkeys, np.exp(g.bin_logp), c_bot[g.bin_parent], tot_bot)
+    ukeys = np.stack([to_coarse[g.un_parent], to_coarse[g.un_child], g.un_chain], axis=1)
+    edges, ulogp = project(ukeys, np.exp(g.un_logp), c_top[g.un_parent], tot_top)
+    lex_c = to_coarse[g.lex_symbols]
+    lex_ids = np.unique(lex_c)
+    row = np.searchsorted(lex_ids, lex_c)
+    with np.errstate(under="ignore"):
+        lex = np.zeros((len(lex_ids), g.lex_logp.shape[1]))
+        np.add.at(lex, row, np.exp(g.lex_logp) * c_bot[g.lex_symbols][:, None])
+    with np.errstate(divide="ignore"):
+        lex_logp = np.log(lex) - np.log(np.maximum(tot_bot[lex_ids], 1e-300))[:, None]
+    meta = {k: v for k, v in g.meta.items() if k != "latent"}
+    coarse = Grammar(
+        symbols=sorted(names, key=names.__getitem__),
+        start=int(to_coarse[g.start]),
+        bin_parent=bins[:, 0],
+        bin_left=bins[:, 1],
+        bin_right=bins[:, 2],
+        bin_logp=blogp,
+        un_parent=edges[:, 0],
+        un_child=edges[:, 1],
+        un_chain=edges[:, 2],
+        un_logp=ulogp,
+        chains=g.chains,
+        lex_symbols=lex_ids,
+        lex_logp=lex_logp,
+        vocab=g.vocab,
+        signatures=g.signatures,
+        meta=meta,
+    )
+    g.__dict__["_coarse"] = (coarse, to_coarse)
+    return coarse, to_coarse

@@ -195,7 +195,9 @@ def test_projected_posteriors_match_brute_force(
     for tree, p in zip(trees, prob / prob.sum(), strict=True):
         for span in set(_spans(tree)):
             brute[span] += p
-    result = parse(refined.to_grammar(), words, posteriors=True, posterior_threshold=0.0)
+    result = parse(
+        refined.to_grammar(), words, posteriors=True, posterior_threshold=0.0, prune=None
+    )
     chart = {
         (lab, i, k): p
         for lab, i, k, p in result.posteriors
@@ -221,3 +223,98 @@ def test_projected_posteriors_match_brute_force(
         assert tags == pytest.approx(1.0, abs=1e-9)
     total = math.log(np.exp(logp).sum())
     assert result.inside_logprob == pytest.approx(total, abs=1e-9)
+
+
+# ------------------------------------------------------------------ coarse-to-fine parsing
+SENTENCES = [
+    "the owner of the mill slept .".split(),
+    "the miller saw the owner of the mill .".split(),
+]
+
+
+def _posterior_map(result: object) -> dict[tuple[str, int, int], float]:
+    return {(lab, i, k): p for lab, i, k, p in result.posteriors}  # type: ignore[attr-defined]
+
+
+@pytest.mark.parametrize("prune", [None, 1e-4])
+def test_refined_chart_split_one_way_equals_the_base_chart(
+    base: Grammar, prune: float | None
+) -> None:
+    # Every symbol with one sub-symbol is the base grammar itself: the refined chart must give
+    # the base chart's inside probability, posteriors and trees (an exact identity, common
+    # practice, no source); pruned at 1e-4, it loses only cells of posterior below that.
+    tol = 1e-9 if prune is None else 1e-3
+    one_way = latent.LatentGrammar.from_grammar(base).to_grammar()
+    assert latent.is_refined(one_way) and not latent.is_refined(base)
+    for words in SENTENCES:
+        plain = parse(base, words, k=3, posteriors=True, posterior_threshold=0.0)
+        fine = parse(one_way, words, k=3, posteriors=True, posterior_threshold=0.0, prune=prune)
+        assert fine.inside_logprob == pytest.approx(plain.inside_logprob, abs=tol)
+        a, b = _posterior_map(plain), _posterior_map(fine)
+        assert {key for key, p in a.items() if p > tol} <= b.keys() <= a.keys()
+        for key, p in a.items():
+            assert b.get(key, 0.0) == pytest.approx(p, abs=tol), key
+        assert [str(t) for t in fine.trees] == [str(t) for t in plain.trees]
+        assert str(fine.consensus) == str(plain.consensus)
+
+
+def test_projection_of_a_split_grammar_is_the_base_grammar(
+    base: Grammar, bank: latent.Treebank
+) -> None:
+    # Splitting shares each rule's probability between the halves, so the projection of a
+    # freshly split grammar (weighted by its own expected counts) is the base grammar again.
+    split = latent.LatentGrammar.from_grammar(base).split(np.random.default_rng(2), noise=0.05)
+    coarse, to_coarse = latent.coarse_grammar(split.to_grammar())
+    assert coarse.symbols == base.symbols
+    fine_names = split.to_grammar().symbols
+    assert len(to_coarse) == len(fine_names) == 2 * base.n_symbols - 1
+    for name, c in zip(fine_names, to_coarse, strict=True):
+        assert name.split(latent.SUBSYMBOL)[0] == base.symbols[c]
+    for words in SENTENCES:
+        assert parse(coarse, words).logprobs[0] == pytest.approx(
+            parse(base, words).logprobs[0], abs=1e-9
+        )
+
+
+def test_pruning_keeps_the_fine_posteriors(refined: latent.LatentGrammar) -> None:
+    # Coarse-to-fine with a tiny threshold prunes only cells with (nearly) no mass: the
+    # posteriors stay those of the full refined chart.
+    g = refined.to_grammar()
+    for words in SENTENCES:
+        full = _posterior_map(
+            parse(g, words, posteriors=True, posterior_threshold=1e-6, prune=None)
+        )
+        pruned = _posterior_map(
+            parse(g, words, posteriors=True, posterior_threshold=1e-6, prune=1e-12)
+        )
+        assert full.keys() == pruned.keys()
+        for key, p in full.items():
+            assert pruned[key] == pytest.approx(p, abs=1e-6), key
+
+
+def test_pruning_never_removes_a_pinned_span(refined: latent.LatentGrammar) -> None:
+    from parser.chart import Constraints, pruning_mask, span_ids
+
+    g = refined.to_grammar()
+    words = SENTENCES[1]
+    free = parse(g, words, posteriors=True, posterior_threshold=0.0, prune=None)
+    post = _posterior_map(free)
+    # the least likely two-word span the grammar can build at all, pinned as a constituent
+    pairs = [(p, i, k, lab) for (lab, i, k), p in post.items() if k - i == 2 and p > 0]
+    p_low, i, k, lab = min(pairs)
+    assert p_low < 0.5
+    pins = Constraints(required=[(i, k, lab)])
+    # A threshold above that span's free posterior would prune it without the rule.
+    threshold = 0.9
+    mask = pruning_mask(g, words, pins, threshold)
+    assert mask is not None
+    sid = span_ids(len(words))
+    assert mask[sid[i, k]].all()
+    assert not mask.all()  # the threshold does prune elsewhere
+    result = parse(g, words, posteriors=True, constraints=pins, prune=threshold)
+    assert not result.fallback
+    exact = parse(g, words, posteriors=True, constraints=pins, prune=None)
+    for tree in (result.trees[0], result.consensus):
+        assert tree is not None
+        assert (lab, i, k) in set(_spans(tree))
+    assert (lab, i, k) in set(_spans(exact.trees[0]))
