@@ -108,6 +108,21 @@ class CorpusSettings(BaseModel):
         "held out, a measured default before), a number (e.g. 5) or "
         "'rules=N,lexicon=N'.",
     )
+    refine_cycles: int = Field(
+        4,
+        ge=0,
+        le=6,
+        description="Split-merge cycles tried at each retraining once the corpus has "
+        "refine_min_gold gold trees: a refined grammar of 1 to this many cycles is used "
+        "when its held-out F1 beats the plain grammar's (0: never refine).",
+    )
+    refine_min_gold: int = Field(
+        500,
+        ge=1,
+        le=1_000_000,
+        description="Gold trees a corpus needs before refined grammars are tried (with few "
+        "trees the learnt splits overfit and the plain grammar wins).",
+    )
     queue_order: QueueOrder = Field(
         QueueOrder.DOCUMENT,
         description="'document': sentences in document order; 'informative': the sentences "

@@ -51,6 +51,10 @@ POSTERIOR_THRESHOLD = 1e-3
 #: projected grammar (:func:`parser.latent.coarse_grammar`) is at most this. Required spans are
 #: never pruned, and a pruned chart without a tree is parsed again unpruned.
 REFINED_PRUNE = 1e-4
+#: A refined grammar's k-best search looks at this many times more derivations (each tree has
+#: one per choice of sub-symbols; with 4 times, 10 distinct trees are found for most 30-word
+#: GUM sentences; measured in bench/parse_speed.py).
+REFINED_KBEST_FACTOR = 4
 #: The longest sentence the library is tested at (the Viterbi tree, k-best, posteriors and the
 #: consensus tree; none of them recurses, so nothing here depends on Python's recursion limit).
 #: Imports refuse longer sentences. Time grows as n^3: see DEVELOPERS.md, "Sentence length".
@@ -642,7 +646,9 @@ class _Chart:
 
     # ------------------------------------------------------------- k-best
     def kbest(self, words: Sequence[str], k: int) -> tuple[list[Tree], list[float]]:
-        cap = 3 * k + 20
+        # A refined grammar has many derivations per tree (one per choice of sub-symbols):
+        # more of them are needed for k distinct trees.
+        cap = (3 * k + 20) * (REFINED_KBEST_FACTOR if "latent" in self.g.meta else 1)
         kb = LazyKBest(self, cap)
         root = (TOP, self.full, self.g.start)
         trees: list[Tree] = []

@@ -111,6 +111,7 @@ from app.models import (
 )
 from app.services.admission import configure_from as configure_admission
 from app.services.admission import parallel_parses
+from app.services import refinement as refinement_choice
 from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
 from app.services.findings import fail_interrupted_runs, run_finder
@@ -480,6 +481,8 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         max_drop = corpus.options.max_f1_drop
         sample_limit = corpus.options.heldout_sample
         weight_setting = corpus.options.reference_weight
+        refine_cycles = corpus.options.refine_cycles
+        refine_min_gold = corpus.options.refine_min_gold
         gold = load_gold(db, corpus_id)
         refs = load_reference(db, corpus_id)
         version.gold_count_at_start = current_gold_count(db, corpus_id)
@@ -534,13 +537,33 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
     if reference and held:
         # the reference-only start on today's held-out gold (the learning curve's baseline)
         adaptation["reference_only_f1"] = round(score(train_grammar([], reference=reference)), 5)
-    t_eval = time.perf_counter()
-    grammar = train_grammar(
-        [g.tree for g in gold],
-        reference=reference,
-        weighting=weighting,
-        progress=progress.phase(0.85, 0.95, "training on all gold"),
+    cycles, refinement, refined_detail = refinement_choice.choose(
+        [g.tree for g in train],
+        len(gold),
+        len(held),
+        reference,
+        weighting,
+        heldout_f1,
+        refine_cycles,
+        refine_min_gold,
+        score=lambda g: _score_heldout(g, held, progress),
+        progress=lambda message: progress(0.85, message),
     )
+    if refined_detail is not None:
+        heldout_f1 = refined_detail.pop("f1")
+        heldout_detail = refined_detail
+    t_eval = time.perf_counter()
+    if cycles:
+        grammar = refinement_choice.train_final(
+            [g.tree for g in gold], reference, cycles, lambda message: progress(0.9, message)
+        )
+    else:
+        grammar = train_grammar(
+            [g.tree for g in gold],
+            reference=reference,
+            weighting=weighting,
+            progress=progress.phase(0.85, 0.95, "training on all gold"),
+        )
     data = grammar_bytes(grammar)
     t_final = time.perf_counter()
 
@@ -584,6 +607,7 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
             "reference": [{"id": rid, "trees": len(trees)} for rid, trees in refs],
             "reference_trees": len(reference),
             "adaptation": adaptation,
+            "refinement": refinement,
             "worker_pid": os.getpid(),
             "timing": {
                 "load": round(t_load - t0, 3),
