@@ -109,9 +109,9 @@ from app.models import (
     Sentence,
     utcnow,
 )
+from app.services import refinement as refinement_choice
 from app.services.admission import configure_from as configure_admission
 from app.services.admission import parallel_parses
-from app.services import refinement as refinement_choice
 from app.services.errors import Conflict, NotFound
 from app.services.findings import claim_run as claim_findings
 from app.services.findings import fail_interrupted_runs, run_finder
