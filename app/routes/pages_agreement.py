@@ -120,7 +120,8 @@ def agreement_page(
         curve=curve,
         scored=scored,
         bar=score_bar,
-        effort=effort.effort_figures(db, c.id),
+        effort_columns=effort.EFFORT_COLUMNS,
+        effort_rows=effort.effort_rows(*effort.effort_figures(db, c.id)),
     )
 
 

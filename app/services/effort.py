@@ -10,7 +10,8 @@ What it computes
     of the handed-in tree scored against the start (PARSEVAL, :func:`parser.scoring.score_pair`
     with its default conventions), and the edit count: brackets (label, start, end) in one and
     not the other, plus words whose POS tag differs. A start on other tokens (a token fix since)
-    is left out of those two figures. :func:`effort_csv` writes the same rows.
+    is left out of those two figures. :func:`effort_rows` formats the figures once, for the
+    Agreement page and for :func:`effort_csv` alike.
 
 Complexity: one pass over the revisions of the corpus's handed-in annotations, and one
 PARSEVAL comparison per annotation, O(n) each for n words.
@@ -139,19 +140,21 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     return sorted(people.values(), key=lambda e: e.name), total
 
 
+#: The effort table's columns: (CSV header, heading on the Agreement page). The page and the
+#: CSV show the same rows (:func:`effort_rows`), so their figures cannot disagree.
 EFFORT_COLUMNS = [
-    "annotator",
-    "sentences",
-    "words",
-    "active_seconds",
-    "sentences_per_hour",
-    "seconds_per_word",
-    "actions",
-    "actions_per_sentence",
-    "compared_with_start",
-    "mean_f1_to_start",
-    "edits_from_start_per_sentence",
-    "actions_by_kind",
+    ("annotator", "Annotator"),
+    ("sentences", "Sentences"),
+    ("words", "Words"),
+    ("active_seconds", "Active seconds"),
+    ("sentences_per_hour", "Sentences per hour"),
+    ("seconds_per_word", "Seconds per word"),
+    ("actions", "Actions"),
+    ("actions_per_sentence", "Actions per sentence"),
+    ("compared_with_start", "Compared with the start"),
+    ("mean_f1_to_start", "F1 from the start"),
+    ("edits_from_start_per_sentence", "Edits from the start per sentence"),
+    ("actions_by_kind", "Actions by kind"),
 ]
 
 
@@ -159,28 +162,37 @@ def _num(value: float | None, digits: int) -> str:
     return "" if value is None else f"{value:.{digits}f}"
 
 
+def effort_rows(people: list[Effort], total: Effort) -> list[list[str]]:
+    """One row of formatted figures per annotator, then the corpus (annotator "all
+    annotators"), in the order of :data:`EFFORT_COLUMNS`."""
+    return [
+        [
+            e.name,
+            str(e.sentences),
+            str(e.words),
+            f"{e.seconds:.1f}",
+            _num(e.sentences_per_hour, 2),
+            _num(e.seconds_per_word, 2),
+            str(e.actions),
+            _num(e.actions_per_sentence, 2),
+            str(e.compared),
+            _num(e.start_f1, 4),
+            _num(e.edits_per_sentence, 2),
+            " ".join(f"{k}={n}" for k, n in sorted(e.by_kind.items())),
+        ]
+        for e in [*people, total]
+    ]
+
+
 def effort_csv(db: Session, corpus_id: int) -> str:
-    """One row per annotator, then the corpus (annotator "all annotators")."""
+    """The rows of :func:`effort_rows` as CSV, headed by the keys of :data:`EFFORT_COLUMNS`."""
     people, total = effort_figures(db, corpus_id)
     out = io.StringIO()
     w = csv.writer(out, lineterminator="\n")
-    w.writerow(EFFORT_COLUMNS)
-    for e in [*people, total]:
-        name = "'" + e.name if e.name[:1] and e.name[0] in "=+-@" else e.name  # spreadsheet
-        w.writerow(
-            [
-                name,
-                e.sentences,
-                e.words,
-                f"{e.seconds:.1f}",
-                _num(e.sentences_per_hour, 2),
-                _num(e.seconds_per_word, 2),
-                e.actions,
-                _num(e.actions_per_sentence, 2),
-                e.compared,
-                _num(e.start_f1, 4),
-                _num(e.edits_per_sentence, 2),
-                " ".join(f"{k}={n}" for k, n in sorted(e.by_kind.items())),
-            ]
-        )
+    w.writerow([key for key, _ in EFFORT_COLUMNS])
+    for row in effort_rows(people, total):
+        name = row[0]
+        if name[:1] and name[0] in "=+-@":  # kept as text by a spreadsheet
+            row = ["'" + name, *row[1:]]
+        w.writerow(row)
     return out.getvalue()

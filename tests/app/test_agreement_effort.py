@@ -5,7 +5,9 @@ each handed-in tree from the tree it started from."""
 from __future__ import annotations
 
 import csv
+import html
 import io
+import re
 
 from sqlalchemy import select
 
@@ -105,8 +107,21 @@ def test_effort_is_stored_summed_and_shown(db, people, login) -> None:
         "6",
     )
 
+    # the Agreement page shows the same figures as the CSV, cell for cell
     page = login("admin").client.get(f"/agreement?corpus={corpus.id}").text
-    assert 'id="ag-effort"' in page and "1:34" in page and "1:44" in page
+    table = page[
+        page.index('id="ag-effort"') : page.index("</table>", page.index('id="ag-effort"'))
+    ]
+    shown = [
+        [html.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", tr)]
+        for tr in re.findall(r"<tr[^>]*>(.*?)</tr>", table, re.S)
+        if "<td" in tr
+    ]
+    in_csv = [
+        [c if c != "" else "–" for c in row] for row in list(csv.reader(io.StringIO(body)))[1:]
+    ]
+    assert shown == in_csv and len(shown) == 3
+    assert ["ann1", "2", "18", "94.5"] == shown[0][:4]
 
 
 def test_effort_refuses_unknown_action_kinds(db, people, login) -> None:
