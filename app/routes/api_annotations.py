@@ -43,6 +43,7 @@ from app.schemas.annotation import (
     SentencePublic,
     SubmitRequest,
     SuggestionPublic,
+    TokenChangeRequest,
     TokenFixPublic,
     TokenFixRequest,
 )
@@ -326,6 +327,8 @@ def fix_tokens(
         sentence,
         base=body.base,
         change=tokens.TokenChange(body.position, body.count, tuple(body.tokens)),
+        active_seconds=body.active_seconds,
+        actions=body.actions,
     )
     r = out.revision
     inv = out.inverse
@@ -340,7 +343,7 @@ def fix_tokens(
         ),
         tokens=[str(t) for t in sentence.tokens],
         token_version=sentence.token_version,
-        undo=TokenFixRequest(
+        undo=TokenChangeRequest(
             base=r.number,
             position=inv.position,
             count=2 if inv.count == 2 else 1,

@@ -161,7 +161,7 @@ class BenchPublic(BaseModel):
     )
 
 
-class TokenFixRequest(RequestModel):
+class TokenChangeRequest(RequestModel):
     base: int = Field(ge=1, description="your head revision (the tree the fix carries over)")
     position: int = Field(ge=0, description="the first token replaced (0-based)")
     count: Literal[1, 2] = Field(
@@ -172,12 +172,31 @@ class TokenFixRequest(RequestModel):
     )
 
 
+class TokenFixRequest(TokenChangeRequest):
+    """A token change with the page's effort since its last save."""
+
+    active_seconds: float = Field(
+        default=0.0,
+        ge=0,
+        le=86_400,
+        description="active editing time since the previous save, measured by the page",
+    )
+    actions: dict[str, int] = Field(
+        default_factory=dict,
+        max_length=20,
+        description=(
+            "edit actions since the previous save by kind (the fix itself is counted as one "
+            "'tokens' action by the service): " + ", ".join(ACTION_KINDS)
+        ),
+    )
+
+
 class TokenFixPublic(BaseModel):
     annotation: AnnotationPublic
     revision: RevisionPublic
     tokens: list[str]
     token_version: int
-    undo: TokenFixRequest = Field(
+    undo: TokenChangeRequest = Field(
         description="the fix that takes this one back (base to be filled with the head then)"
     )
 
@@ -231,7 +250,7 @@ class NoteUpdate(RequestModel):
 
 class ReparseRequest(RequestModel):
     pins: Pins = Field(default_factory=Pins)
-    k: int = Field(default=1, ge=1, le=20)
+    k: int = Field(default=1, ge=1, le=50, description="readings under the constraints")
     tree: str | None = Field(
         default=None,
         max_length=200_000,

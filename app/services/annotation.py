@@ -32,7 +32,6 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from app.models import (
-    ACTION_KINDS,
     ANN_DRAFT,
     ANN_FLAGGED,
     ANN_SUBMITTED,
@@ -64,6 +63,7 @@ from app.services.validation import (
     MAX_TREE_CHARS,
     stored_words,
     unknown_labels,
+    validate_actions,
     validate_pins,
     validate_tree_text,
 )
@@ -239,7 +239,7 @@ def save_revision(
         created_at=now,
         token_version=sentence.token_version,
         active_seconds=float(active_seconds),
-        actions=_clean_actions(actions),
+        actions=validate_actions(actions),
     )
     if start_tree is not None and annotation.start_tree is None:
         annotation.start_tree = _clean_start(start_tree)
@@ -252,20 +252,6 @@ def save_revision(
         raise _conflict(db, user, sentence, "another save of this annotation came first") from None
     db.refresh(annotation)
     return SaveResult(annotation=annotation, revision=revision)
-
-
-def _clean_actions(actions: dict[str, int] | None) -> dict[str, int]:
-    out: dict[str, int] = {}
-    for kind, n in (actions or {}).items():
-        if kind not in ACTION_KINDS or not isinstance(n, int) or not 0 <= n <= 100_000:
-            raise BadInput(
-                f"action count {kind!r}: {n!r} is not a known kind with a count "
-                f"(kinds: {', '.join(ACTION_KINDS)})",
-                kind="shape",
-            )
-        if n:
-            out[kind] = n
-    return out
 
 
 def _clean_start(text: str) -> str:

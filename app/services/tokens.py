@@ -44,6 +44,7 @@ from app.models import (
 )
 from app.services.errors import BadInput, Conflict
 from app.services.gold import current_revision
+from app.services.validation import validate_actions
 from parser.trees import escape_word, read_tree, write_tree
 
 MAX_PIECES = 2  # a split makes two tokens (split again for more), so a join undoes it
@@ -172,10 +173,22 @@ class TokenFix:
 
 
 def fix_tokens(
-    db: Session, user: User, sentence: Sentence, *, base: int, change: TokenChange
+    db: Session,
+    user: User,
+    sentence: Sentence,
+    *,
+    base: int,
+    change: TokenChange,
+    active_seconds: float = 0.0,
+    actions: dict[str, int] | None = None,
 ) -> TokenFix:
     """Apply ``change`` to the sentence's tokens as a new version and carry ``user``'s tree
-    over as a new revision (``base`` must be their head). Commits."""
+    over as a new revision (``base`` must be their head). The revision records the page's
+    active seconds and edit actions since its last save (``actions``) with the fix itself
+    counted as one ``tokens`` action, so the effort figures see the fix when it is made.
+    Commits."""
+    counted = validate_actions(actions)
+    counted["tokens"] = counted.get("tokens", 0) + 1
     if sentence.state in (SENT_IN_REVIEW, SENT_GOLD):
         raise Conflict(
             f"this sentence is {sentence.state.replace('_', ' ')}: its tokens are settled",
@@ -238,6 +251,8 @@ def fix_tokens(
         user_id=user.id,
         created_at=now,
         token_version=sentence.token_version,
+        active_seconds=float(active_seconds),
+        actions=counted,
     )
     db.add(revision)
     db.execute(delete(Suggestion).where(Suggestion.sentence_id == sentence.id))

@@ -18,7 +18,7 @@ from typing import Any
 from nltk import Tree
 
 from app.corpus_settings import LabelPolicy
-from app.models import Corpus, Sentence
+from app.models import ACTION_KINDS, Corpus, Sentence
 from app.services.errors import BadInput
 from parser.errors import BracketSyntaxError
 from parser.trees import (
@@ -180,4 +180,20 @@ def _unique(items: list[list[Any]]) -> list[list[Any]]:
     for x in items:
         if not out or out[-1] != x:
             out.append(x)
+    return out
+
+
+def validate_actions(actions: dict[str, int] | None) -> dict[str, int]:
+    """The Bench's edit counts by kind, checked (known kinds, counts 0..100,000), zeros left
+    out."""
+    out: dict[str, int] = {}
+    for kind, n in (actions or {}).items():
+        if kind not in ACTION_KINDS or not isinstance(n, int) or not 0 <= n <= 100_000:
+            raise BadInput(
+                f"action count {kind!r}: {n!r} is not a known kind with a count "
+                f"(kinds: {', '.join(ACTION_KINDS)})",
+                kind="shape",
+            )
+        if n:
+            out[kind] = n
     return out

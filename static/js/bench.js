@@ -15,7 +15,7 @@ import {familiesShown, markViewport, overviewJump, readFamiliesChoice, render, s
 import {openHistory, wireHistory} from "./bench/history.js";
 import {onKey, onReadingsKey} from "./bench/keys.js";
 import {renderHelp} from "./bench/keytable.js";
-import {openTokens, takePendingEffort, wireTokens} from "./bench/tokens.js";
+import {openTokens, wireTokens} from "./bench/tokens.js";
 import {loadUndo, markDirty, noteActivity, resolveConflict, restoreDraft, setTree, storeDraft, unknownIn} from "./bench/saving.js";
 import {ask, loadSaid} from "./bench/loop.js";
 import {renderSide, renderText} from "./bench/side.js";
@@ -96,7 +96,6 @@ async function start() {
     setStatus(S.head ? "saved" : "fresh");
     restoreDraft();
     loadUndo();
-    takePendingEffort();
     if (data.carried_from) markDirty("tokens");  // the tree carried over to the new tokens
     renderSide();
     // the entry point from elsewhere (a sentence held back for its tokens): /bench/ID?tokens

@@ -98,9 +98,21 @@ def test_tokens_split_gives_the_tag_to_both_halves_and_undo_joins_back(db, peopl
     s = _setup(db, people)
     ann1 = login("ann1")
     _save(ann1, s.id, 0, TREE)
-    split = _fix(ann1, s.id, base=1, position=4, count=1, tokens=["be", "fore"])
+    split = _fix(
+        ann1,
+        s.id,
+        base=1,
+        position=4,
+        count=1,
+        tokens=["be", "fore"],
+        active_seconds=12.5,
+        actions={"retag": 2},
+    )
     assert split.status_code == 201, split.text
     assert split.json()["revision"]["tree"] == SPLIT
+    # the page's effort since its last save and the fix itself are counted with the fix
+    fixed = db.scalar(select(Revision).where(Revision.number == 2))
+    assert (fixed.active_seconds, fixed.actions) == (12.5, {"retag": 2, "tokens": 1})
     undo = split.json()["undo"]
     assert undo == {"base": 2, "position": 4, "count": 2, "tokens": ["before"]}
     back = _fix(ann1, s.id, **undo)
@@ -127,6 +139,8 @@ def test_tokens_bad_fixes_are_refused_with_the_reason(db, people, login) -> None
         resp = _fix(ann1, s.id, base=1, **body)
         assert resp.status_code == 422, (body, resp.text)
         assert why in resp.json()["detail"], (body, resp.json())
+    bad = _fix(ann1, s.id, base=1, position=2, count=1, tokens=["bilges"], actions={"x": 1})
+    assert bad.status_code == 422 and "action count 'x'" in bad.json()["detail"], bad.text
     stale = _fix(ann1, s.id, base=5, position=2, count=1, tokens=["bilges"])
     assert stale.status_code == 409
     db.expire_all()

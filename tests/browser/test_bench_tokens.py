@@ -1,4 +1,5 @@
-"""Fixing tokens on the Bench by keyboard and by mouse: join, undo (the fix taken back), split;
+"""Fixing tokens on the Bench by keyboard and by mouse: join, undo (the fix taken back), redo
+(made again), split; each fix's revision counts it as a ``tokens`` action when it is made;
 the database holds the new token versions with the old ones kept and the carried trees; the
 other annotator's tree, made on the earlier tokens, is carried over and saved when they come
 back; /bench/ID?tokens opens the fixer (the way in from a sentence held back for its tokens)."""
@@ -36,6 +37,16 @@ def _head(live_server, username: str) -> Revision:
         return db.scalar(
             select(Revision).where(Revision.annotation_id == ann.id, Revision.number == ann.head)
         )
+
+
+def _key_then_reload(page, key: str, tree: str) -> None:
+    """Press ``key`` on the tree (a token fix or its undo or redo) and wait for the page to open
+    again on ``tree``."""
+    page.focus("#tree-pane")
+    page.keyboard.press(key)
+    page.wait_for_load_state("load")
+    _ready(page)
+    wait_tree(page, tree)
 
 
 def _sentence(live_server) -> tuple[list[str], int, list[list[str]]]:
@@ -85,18 +96,24 @@ def test_bench_fix_tokens_by_keyboard_and_mouse(browser, browser_page, live_serv
     assert page.text_content("#sentence-text") == "Check the bilgepump before the first crossing ."
     head = _head(live_server, "ann1")
     assert (head.tree, head.source, head.token_version) == (JOINED, "tokens", 2)
+    assert head.actions == {"tokens": 1}  # counted with the fix, not at a later save
     tokens, version, old = _sentence(live_server)
     assert version == 2 and tokens[2] == "bilgepump" and old == [SENTENCE.split()]
 
     # undo takes the fix back: a third version, equal to the first
-    page.focus("#tree-pane")
-    kb.press("u")
-    page.wait_for_load_state("load")
-    _ready(page)
-    wait_tree(page, TREE)
+    _key_then_reload(page, "u", TREE)
     tokens, version, old = _sentence(live_server)
     assert tokens == SENTENCE.split() and version == 3 and len(old) == 2
     assert _head(live_server, "ann1").tree == TREE
+
+    # redo makes the join again (a fourth version); undo takes it back once more (a fifth)
+    _key_then_reload(page, "U", JOINED)
+    head = _head(live_server, "ann1")
+    assert (head.tree, head.token_version, head.actions) == (JOINED, 4, {"tokens": 1})
+    assert _sentence(live_server)[0][2] == "bilgepump"
+    _key_then_reload(page, "Control+z", TREE)
+    tokens, version, old = _sentence(live_server)
+    assert tokens == SENTENCE.split() and version == 5 and len(old) == 4
 
     # mouse: click the tag of "before", the Tokens button, type "be fore", Apply
     page.click("#tree-pane g.tw-tag[data-index='4']")
@@ -107,16 +124,16 @@ def test_bench_fix_tokens_by_keyboard_and_mouse(browser, browser_page, live_serv
     _ready(page)
     wait_tree(page, SPLIT)
     head = _head(live_server, "ann1")
-    assert (head.tree, head.token_version) == (SPLIT, 4)
+    assert (head.tree, head.token_version) == (SPLIT, 6)
 
-    # ann2 comes back: their tree from the first tokens is carried through all three fixes
+    # ann2 comes back: their tree from the first tokens is carried through all five fixes
     page2.reload()
     _ready(page2)
     assert "earlier tokens" in page2.text_content("#start-note")
     wait_tree(page2, SPLIT)
     wait_saved(page2)
     head2 = _head(live_server, "ann2")
-    assert (head2.tree, head2.source, head2.token_version) == (SPLIT, "tokens", 4)
+    assert (head2.tree, head2.source, head2.token_version) == (SPLIT, "tokens", 6)
     with live_server.sessionmaker() as db:
         first = db.scalars(
             select(Revision).where(Revision.number == 1, Revision.user_id == head2.user_id)

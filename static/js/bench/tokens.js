@@ -1,7 +1,9 @@
 // bench/tokens.js: fixing the tokens. The chosen word is respelt, split in two (a space in
 // what is typed) or joined with the next word; the server keeps the old tokens as a version,
-// carries the tree over and saves it; the page then opens again on the new tokens, with the
-// fix that takes this one back on the undo stack.
+// carries the tree over and saves it, with the page's active time and edit counts since its
+// last save (the fix itself is counted there, when it is made); the page then opens again on
+// the new tokens, with the fix that takes this one back on the undo stack (and, after an undo,
+// the fix that makes it again on the redo stack).
 
 import {api, errorText} from "./api.js";
 import {flush, markDirty} from "./saving.js";
@@ -9,16 +11,6 @@ import {$, S, sentenceId, undoKey} from "./state.js";
 import {say} from "./status.js";
 
 let at = 0;
-const PENDING_KEY = `treewright-effort-${sentenceId}`;
-
-// The active time and actions not yet saved when the page reloaded after a fix.
-export function takePendingEffort() {
-  try {
-    const p = JSON.parse(sessionStorage.getItem(PENDING_KEY) || "null");
-    sessionStorage.removeItem(PENDING_KEY);
-    if (p) { S.activeMs += p.activeMs || 0; Object.assign(S.actions, p.actions || {}); }
-  } catch { /* nothing kept */ }
-}
 
 function chosenWord() {
   if (S.range) return S.range[0];
@@ -69,27 +61,28 @@ export function openTokens(word = chosenWord()) {
   $("tokens-input").select();
 }
 
-// Send a fix; on success the page opens again on the new tokens. `undoing`: the fix takes an
-// earlier one back, so nothing new goes on the undo stack.
-export async function applyTokenFix(change, undoing = false) {
+// Send a fix; on success the page opens again on the new tokens. `mode`: "new" (a fix the
+// annotator asked for: its inverse goes on the undo stack and the redo stack empties), "undo"
+// (the fix takes an earlier one back: the fix that makes it again goes on the redo stack) or
+// "redo" (it makes an undone fix again: its inverse goes back on the undo stack).
+export async function applyTokenFix(change, mode = "new") {
   if (!S.head && !S.dirty) markDirty(S.data.source === "flat" ? "flat" : "suggestion");
   if (!(await flush())) { say("The tree is not saved yet, so the tokens were not fixed.", "warn"); return false; }
-  const r = await api("POST", `/api/bench/${sentenceId}/tokens`, {...change, base: S.head});
+  const r = await api("POST", `/api/bench/${sentenceId}/tokens`, {...change, base: S.head,
+    active_seconds: Math.min(86_400, S.activeMs / 1000), actions: S.actions});
   if (r.status !== 201) {
     const msg = `Tokens not fixed: ${errorText(r.body)}`;
     if (!$("tokens").hidden) $("tokens-msg").textContent = msg;
     say(msg, "warn");
     return false;
   }
+  S.activeMs = 0;
+  S.actions = {};
   const {base: _base, ...back} = r.body.undo;
-  const actions = {...S.actions};
-  actions.tokens = (actions.tokens || 0) + 1;
+  const stacks = mode === "undo" ? {undo: [], redo: [{fix: back}]}
+    : {undo: [{fix: back}], redo: []};
   try {
-    sessionStorage.setItem(PENDING_KEY, JSON.stringify({activeMs: S.activeMs, actions}));
-  } catch { /* the counts of this page are lost, the fix stands */ }
-  try {
-    localStorage.setItem(undoKey, JSON.stringify({tree: r.body.revision.tree,
-      undo: undoing ? [] : [{fix: back}], redo: []}));
+    localStorage.setItem(undoKey, JSON.stringify({tree: r.body.revision.tree, ...stacks}));
   } catch { /* the fix stands; only its undo is not kept */ }
   window.location.reload();
   return true;
