@@ -339,6 +339,22 @@ def regrow(page, keys, bench) -> None:
     )
 
 
+def offered_readings(page, keys, bench) -> None:
+    # with an offer shown (the sentence carries edits from the rows before) the next reading is
+    # shown; with none, the page says so (an offer is stepped through in test_bench_loop.py)
+    if page.is_visible("#regrow-offer"):
+        n = max(1, page.locator("#regrow-readings button").count())
+        at = int(page.get_attribute("#regrow-offer", "data-at"))
+        page.keyboard.press(keys[0])
+        assert page.get_attribute("#regrow-offer", "data-at") == str((at + 1) % n)
+        return
+    page.keyboard.press(keys[0])
+    page.wait_for_function(
+        "() => document.getElementById('bench-message').textContent"
+        ".includes('no re-parse is offered now')"
+    )
+
+
 def readings(page, keys, bench) -> None:
     page.keyboard.press(keys[0])
     assert page.evaluate("() => document.activeElement.closest('#readings') !== null")
@@ -488,6 +504,7 @@ EFFECTS: dict[str, Callable[..., None]] = {
     "right edge one word out / in": right_edge,
     "pin / unpin": pin,
     "regrow": regrow,
+    "next offered reading": offered_readings,
     "go to the readings": readings,
     "start from the grammar's n-th best tree": reading_n,
     "undo": undo,

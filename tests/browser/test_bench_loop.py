@@ -229,3 +229,77 @@ def test_bench_doubt_marks_leave_the_annotators_own_work(browser_page, live_serv
     )
     assert {(lab, a, b): p for lab, a, b, p in free["posteriors"]}.get(adjp, 0.0) < 0.2
     assert tag_marks > 0
+
+
+def _asked(page) -> int:
+    return int(page.get_attribute("#bench", "data-answered") or 0)
+
+
+def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, ferry) -> None:  # noqa: F811
+    """After an edit the page offers the re-parse's proposal and the k best readings under what
+    was said; G and the reading buttons step through them, g takes the one shown as one
+    action, saved as a revision; undo and redo work on it."""
+    page = browser_page
+    _open(page, live_server.base_url, "ann1", ferry["sentence_id"])
+    page.fill("#tree-text", START)
+    page.click("[data-cmd='apply-text']")
+    wait_tree(page, START)
+    wait_saved(page)
+    # dissolve phrases one at a time (undoing the ones that bring no choice) until the offer
+    # holds at least three readings that differ from the tree
+    choices, edited = 0, None
+    for k in range(1, len(constituents(read_tree(START)))):
+        asked = _asked(page)
+        page.click(f"#tree-pane g.tw-phrase[data-index='{k}']")
+        page.wait_for_selector(f"#tree-pane g.tw-phrase.tw-selected[data-index='{k}']")
+        page.keyboard.press("x")
+        page.wait_for_function(
+            "n => Number(document.getElementById('bench').dataset.answered || 0) > n",
+            arg=asked,
+            timeout=60_000,
+        )
+        choices = page.locator("#regrow-readings button").count()
+        if choices >= 3:
+            edited = shown_tree(page)
+            break
+        page.keyboard.press("u")
+        wait_tree(page, START)
+    assert edited is not None, "no dissolve brought three offered readings"
+    first = page.get_attribute("#regrow-offer", "data-tree")
+    assert page.get_attribute("#regrow-offer", "data-at") == "0" and first != edited
+    assert f"1 of {choices}:" in page.text_content("#regrow-offer-text")
+    # keyboard: G shows the next one
+    page.focus("#tree-pane")
+    page.keyboard.press("G")
+    assert page.get_attribute("#regrow-offer", "data-at") == "1"
+    second = page.get_attribute("#regrow-offer", "data-tree")
+    assert second not in (first, edited)
+    assert f"2 of {choices}:" in page.text_content("#regrow-offer-text")
+    # mouse: the third button shows the third, the second button back to the second
+    page.click("#regrow-readings button:nth-child(3)")
+    assert page.get_attribute("#regrow-offer", "data-at") == "2"
+    assert page.get_attribute("#regrow-offer", "data-tree") not in (first, second)
+    page.click("#regrow-readings button:nth-child(2)")
+    assert page.get_attribute("#regrow-offer", "data-tree") == second
+    # g takes the one shown: one action, saved as a revision of its own
+    page.focus("#tree-pane")
+    page.keyboard.press("g")
+    wait_tree(page, second)
+    assert page.is_hidden("#regrow-offer")
+    wait_saved(page)
+    _ann, revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])
+    assert revs[-1].tree == second and revs[-1].source == "reparse"
+    assert revs[-1].actions.get("reparse") == 1
+    assert write_tree(read_tree(revs[-2].tree)) == edited  # the dissolve before it
+    # undo goes back to the edited tree, redo takes the reading again (both saved)
+    page.keyboard.press("Control+z")
+    wait_tree(page, edited)
+    wait_saved(page)
+    assert stored(live_server, ferry["user_id"], ferry["sentence_id"])[1][-1].tree == edited
+    page.keyboard.press("U")
+    wait_tree(page, second)
+    wait_saved(page)
+    assert stored(live_server, ferry["user_id"], ferry["sentence_id"])[1][-1].tree == second
+    # with nothing offered, G says so
+    page.keyboard.press("G")
+    assert "no re-parse is offered now" in page.text_content("#bench-message")

@@ -6,7 +6,7 @@ import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
 import {moveTargets, render, spanWords, wordsLabel} from "./draw.js";
 import {commit, flush, tally, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
-import {ask, take} from "./loop.js";
+import {ask, showOffer, showReading, take} from "./loop.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
 import {say, setStatus} from "./status.js";
@@ -32,14 +32,17 @@ export function guard(fn) {
 export function travel(from, to, what) {
   if (!from.length) throw new T.EditError(`nothing to ${what}`);
   if (from[from.length - 1].fix) {
-    const {fix} = from.pop();
-    applyTokenFix(fix, true);
+    const entry = from.pop();
+    // a refused fix (say a conflict) leaves the step where it was
+    applyTokenFix(entry.fix, what).then((done) => { if (!done) from.push(entry); });
     return;
   }
   to.push(snapshot());
   tally(what);
   const state = from.pop();
   setTree(state.tree, state.pins);
+  S.offer = null;  // an offer was made for the tree left behind
+  showOffer(false);
   S.sel = state.sel;
   S.range = null;
   markDirty("edit");
@@ -159,6 +162,9 @@ export const cmd = {
     } finally {
       btn.classList.remove("busy");
     }
+  }),
+  nextOffered: guard(async () => {
+    if (!showReading()) throw new T.EditError("no re-parse is offered now: edit, or ask with g");
   }),
   reading: guard(async (i) => {
     const alt = S.data.suggestion && S.data.suggestion.alternatives[i];
@@ -287,10 +293,38 @@ export function setZoom(z) {
   render();
 }
 
-// w: the whole width of the tree in the pane (never below the smallest zoom).
+// The smallest drawn size of a label or word the fit keeps (px on screen).
+export const LEGIBLE_PX = 11;
+
+// The zoom below which some label or word of the drawn tree would be smaller than LEGIBLE_PX.
+function legibleZoom() {
+  let smallest = Infinity;
+  for (const sel of ["text.tw-label", "text.tw-word-text"]) {
+    const el = $("tree-pane").querySelector(sel);
+    if (el) smallest = Math.min(smallest, parseFloat(getComputedStyle(el).fontSize));
+  }
+  // rounded up to the whole percent the zoom shows, so the drawn size is never under
+  return Number.isFinite(smallest) && smallest > 0
+    ? Math.ceil((LEGIBLE_PX / smallest) * 100) / 100 : 0;
+}
+
+// w: the whole width of the tree in the pane, as far as the labels stay legible (LEGIBLE_PX);
+// a tree wider than that is fitted at the smallest legible zoom and the rest scrolls (the
+// overview shows where).
 export function fitWidth() {
   const pane = $("tree-pane");
-  if (S.view) setZoom((pane.clientWidth - 8) / S.view.width);
+  if (!S.view) return;
+  const whole = (pane.clientWidth - 8) / S.view.width;
+  const floor = legibleZoom();
+  if (whole >= floor) {
+    setZoom(whole);
+    return;
+  }
+  setZoom(floor);
+  const shown = Math.round(Math.min(1, (pane.clientWidth - 8) / (S.view.width * S.zoom)) * 100);
+  say(`The whole width would need ${Math.round(whole * 100)}%, too small to read; ` +
+    `at ${Math.round(S.zoom * 100)}% the labels stay legible and ${shown}% of the width ` +
+    "fits: scroll or click the overview for the rest.");
 }
 
 // A deep tree starts zoomed out so that its words are on screen (never below 55%).

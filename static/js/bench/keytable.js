@@ -97,8 +97,12 @@ export const KEYS = [
     match: is("p"), run: () => cmd.pin()},
   {id: "regrow", group: "change", keys: [["g"]],
     text: "regrow: re-parse around everything you said (pins, your edits, removed brackets, " +
-      "corrected tags); takes the offered re-parse when one is shown",
+      "corrected tags); takes the offered reading when one is shown",
     match: is("g"), run: () => cmd.regrow()},
+  {id: "offered-readings", group: "change", keys: [["G"]],
+    text: "next offered reading: step through the re-parse's proposal and the k best " +
+      "readings under what you said (g takes the one shown)",
+    match: is("G"), run: () => cmd.nextOffered()},
   {id: "readings", group: "change", keys: [["o"]],
     text: "go to the readings (the consensus first; ↑ ↓ choose, ⏎ starts from one)",
     match: is("o"),
@@ -140,7 +144,8 @@ export const KEYS = [
     match: is("+", "=", "-", "0"),
     run: (ev) => setZoom(ev.key === "0" ? 1 : ev.key === "-" ? S.zoom / 1.2 : S.zoom * 1.2)},
   {id: "fit-width", group: "finish", keys: [["w"]],
-    text: "fit the tree's width on screen (0 back to full size)",
+    text: "fit the tree's width on screen, labels kept legible (a wider tree scrolls; " +
+      "0 back to full size)",
     match: is("w"), run: () => fitWidth()},
   {id: "fold", group: "finish", keys: [["z"]],
     text: "fold / unfold the chosen constituent (choosing a node inside unfolds it)",

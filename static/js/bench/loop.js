@@ -2,7 +2,10 @@
 // brackets they added or relabelled (edited_spans), tags they corrected (edited_tags) and
 // brackets they removed (removed_spans). The grammar is asked again after each edit, around all
 // of that: its answer updates the doubt marks (its belief about what nobody has touched yet)
-// and, when it would change the tree, is offered with what it would change; g takes it.
+// and, when it would change the tree, is offered with what it would change: the proposal (the
+// consensus under what was said) and the k best readings under the same constraints, one shown
+// at a time. G (or a reading's button) shows the next one, g (or Take it) takes the one shown,
+// as one action (bench/simulate_annotator.py measures what that choice saves).
 
 import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
@@ -12,6 +15,9 @@ import {$, S, sentenceId} from "./state.js";
 import {say} from "./status.js";
 
 const ASK_DELAY_MS = 400;
+// Readings asked for beside the proposal: bench/simulate_annotator.py measured the loop
+// against plain editing offering 0, 5, 10 and 30 (fewest actions with 30).
+export const OFFER_K = 30;
 const key = (s) => `${s.start} ${s.end} ${s.label}`;
 
 // Pins with the said lists brought in line with a change the annotator made from `before`
@@ -80,17 +86,21 @@ export function askSoon() {
 export async function ask(apply) {
   const mine = ++asked;
   const text = T.writeTree(S.tree);
-  const r = await api("POST", `/api/bench/${sentenceId}/reparse`, {pins: S.pins, k: 3, tree: text});
+  const r = await api("POST", `/api/bench/${sentenceId}/reparse`,
+    {pins: S.pins, k: OFFER_K, tree: text});
   if (mine !== asked || T.writeTree(S.tree) !== text) return null;  // the tree moved on
   if (r.status !== 200) {
     if (apply) say(`Re-parse refused: ${errorText(r.body)}`, "warn");
     return null;
   }
   const body = r.body;
+  $("bench").dataset.answered = String(mine);  // answers so far (tests wait on it)
   S.posteriors = new Map(body.posteriors.map(([l, a, b, p]) => [`${l} ${a} ${b}`, p]));
   S.tagPosteriors = body.tag_posteriors;
-  S.offer = body.changes && body.changes.count > 0 ? body : null;
-  if (apply && S.offer && body.plausible) {
+  // readings are offered once something has been said; before that they are the start's own
+  // (the readings list and keys 1-9), and only a proposal that changes the tree is offered
+  S.offer = offerOf(body, text, saidCount() > 0);
+  if (apply && S.offer && S.offer.choices[0].proposal && body.plausible) {
     take();
     return body;
   }
@@ -99,34 +109,108 @@ export async function ask(apply) {
   return body;
 }
 
-// Take the offered re-parse (g when one is offered).
-export function take() {
-  const body = S.offer;
-  if (!body) return false;
-  S.offer = null;
-  const tree = T.readTree(body.trees[0]);
-  commit(tree, keepSaid(S.pins, tree), "reparse", {kind: "phrase", index: 0});
-  say(`${body.summary} Taken${body.plausible ? "" : " although implausible"}.`);
+// The offer of a re-parse answer: the proposal and (`withReadings`) the readings that differ
+// from the tree (`text`), each with its probability under the constraints and what it would change.
+function offerOf(body, text, withReadings) {
+  const probability = new Map(body.readings.map((r) => [r.tree, r.probability]));
+  const now = T.readTree(text);
+  const choices = body.trees.slice(0, withReadings ? undefined : 1)
+    .map((t, i) => ({tree: t, proposal: i === 0, probability: probability.get(t)}))
+    .filter((c) => c.tree !== text);
+  if (!choices.length) return null;
+  for (const c of choices) c.changes = describeChanges(now, T.readTree(c.tree));
+  return {body, choices, at: 0};
+}
+
+// What `after` changes in `before`, in a few words (words numbered from 1).
+export function describeChanges(before, after) {
+  const key = (s) => `${s.label} ${s.start} ${s.end}`;
+  const a = T.spansOf(before).slice(1);
+  const b = T.spansOf(after).slice(1);
+  const inA = new Set(a.map(key));
+  const inB = new Set(b.map(key));
+  const gone = a.filter((s) => !inB.has(key(s)));
+  const made = b.filter((s) => !inA.has(key(s)));
+  const words = (s) => (s.end - s.start === 1 ? `word ${s.start + 1}` : `words ${s.start + 1}-${s.end}`);
+  const out = [];
+  for (const s of made) {
+    const old = gone.findIndex((g) => g.start === s.start && g.end === s.end);
+    if (old >= 0) out.push(`${gone.splice(old, 1)[0].label}→${s.label} over ${words(s)}`);
+    else out.push(`+${s.label} over ${words(s)}`);
+  }
+  for (const s of gone) out.push(`−${s.label} over ${words(s)}`);
+  const ta = T.tagsOf(before);
+  T.tagsOf(after).forEach((t, i) => { if (t !== ta[i]) out.push(`tag of word ${i + 1} ${ta[i]}→${t}`); });
+  return out;
+}
+
+// Show the offer's next reading (G), or reading `i` (its button).
+export function showReading(i = null) {
+  if (!S.offer) return false;
+  const n = S.offer.choices.length;
+  S.offer.at = i === null ? (S.offer.at + 1) % n : Math.max(0, Math.min(n - 1, i));
   showOffer(false);
   return true;
+}
+
+// Take the reading of the offered re-parse that is shown (g when one is offered).
+export function take() {
+  const offer = S.offer;
+  if (!offer) return false;
+  const choice = offer.choices[offer.at];
+  S.offer = null;
+  const tree = T.readTree(choice.tree);
+  commit(tree, keepSaid(S.pins, tree), "reparse", {kind: "phrase", index: 0});
+  say(`${choice.proposal ? offer.body.summary : `Reading ${offer.at + 1} of the offer:`} ` +
+    `Taken${offer.body.plausible ? "" : " although implausible"}.`);
+  showOffer(false);
+  return true;
+}
+
+function readingName(c, i) {
+  const p = c.probability === null || c.probability === undefined ? ""
+    : `, P = ${c.probability < 0.001 ? c.probability.toExponential(1) : c.probability.toFixed(3)}`;
+  return c.proposal ? `the proposal (consensus under what you said${p})`
+    : `reading ${i + 1}, one of the grammar's best under what you said${p}`;
 }
 
 export function showOffer(asked) {
   const box = $("regrow-offer");
   if (!box) return;
-  const body = S.offer;
-  if (!body) {
+  const offer = S.offer;
+  if (!offer) {
     box.hidden = true;
     if (asked) say(`Re-parsed around ${saidCount()} things you said: nothing would change.`);
     return;
   }
+  const {body, choices, at} = offer;
+  const c = choices[at];
   box.hidden = false;
   box.dataset.plausible = body.plausible ? "1" : "0";
+  box.dataset.tree = c.tree;
+  box.dataset.at = String(at);
   if (asked) say("Re-parsed: the result is implausible, so your tree stays as it is; what it " +
     "would change is shown above (g takes it anyway).", "warn");
-  $("regrow-offer-text").textContent = body.summary +
+  const shown = c.changes.slice(0, 6).join(", ") +
+    (c.changes.length > 6 ? `, and ${c.changes.length - 6} more` : "");
+  $("regrow-offer-text").textContent = (c.proposal ? body.summary + " " : "") +
+    `${choices.length > 1 ? `${at + 1} of ${choices.length}: ` : ""}${readingName(c, at)}` +
+    ` would change ${c.changes.length}: ${shown}.` +
     (body.plausible ? "" : " Not applied: " + body.reasons.join(" ")) +
     (body.plausible && body.reasons.length ? " " + body.reasons.join(" ") : "");
+  const list = $("regrow-readings");
+  list.replaceChildren();
+  if (choices.length > 1) {
+    choices.forEach((ch, i) => {
+      const b = document.createElement("button");
+      b.type = "button";
+      b.textContent = String(i + 1);
+      b.title = `Show ${readingName(ch, i)} (${ch.changes.length} changes; G steps through them)`;
+      b.setAttribute("aria-pressed", i === at ? "true" : "false");
+      b.addEventListener("click", () => showReading(i));
+      list.append(b);
+    });
+  }
 }
 
 // Bring the said lists of the pins a page opened with (or a draft) to the tree's agreement.
