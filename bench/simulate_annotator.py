@@ -6,26 +6,47 @@ only, sentences of at most 40 words from the last 10 files (by name). Two gramma
 (the first 89 files: the test genre, voyage, is seen in training) and an unseen genre (every
 file except the voyage ones, so the same test sentences are a genre the grammar never saw).
 
-Both annotators start from the consensus tree (as the Bench does) and know the gold tree (labels
-without function tags; the root does not count). One action is one edit on the Bench:
+Every annotator starts from the consensus tree (as the Bench does) and knows the gold tree
+(labels without function tags; the root does not count). It is done at gold's brackets and tags
+(PARSEVAL does not see the order inside a unary chain).
 
-* plain editing: relabel a bracket whose span is right (1), remove a wrong bracket (1), add a
-  missing one (1), retag a word (1); the count is the minimum, from the differing brackets.
-* the loop: the same edits, one at a time, each saying something to the parser (an added
-  bracket is added and pinned in one action, a relabel or retag is fixed, a removal forbidden);
-  after each edit the page asks the grammar again around everything said
-  (:func:`parser.reparse.reparse`, which favours the tree as it is) and offers its proposal when
-  it would change something. ``loop`` counts taking an offer as one more action and takes it
-  only when it brings the tree closer to gold (the annotator sees what it would change);
-  ``loop, auto`` applies every plausible offer at no cost (the page's rule alone, no gold), and
-  fixes whatever it breaks by hand.
+The cost model: one action is one edit on the Bench, whatever keys or drags it takes.
 
-The edit order: missing gold brackets that cross nothing (widest first), then wrong brackets,
-then wrong labels, then wrong tags (a missing bracket that crosses wrong ones waits until they
-are removed).
+* Hand edits, the same set for every annotator (the Bench's edits): add a bracket (a, or A to
+  add and pin it), dissolve one (x), relabel one or retag a word (r), move a node with its
+  subtree to another parent (m ... m, or a drag; only moves that keep the words in order, the
+  rule of ``static/js/treemodel.js``'s reattach, ported here), move one edge of a bracket by one
+  word ([ ] { }). Choosing words or walking to a node costs nothing.
+* The distance to gold is the fewest single-bracket edits left (relabels, removals, additions,
+  retags: :func:`distance`). The hand editor takes the move or edge step that lowers it most
+  when that is by 2 or more (a reattachment: one move where two or more bracket edits would
+  do); otherwise the next single edit in this order: missing gold brackets that cross nothing
+  (widest first: the pin that tells the parser most), then wrong brackets, then wrong labels,
+  then wrong tags (a missing bracket that crosses wrong ones waits until they are removed).
+  Plain editing is that editor alone from start to gold.
+* The loop: the same hand editor; each edit says something to the parser exactly as the page
+  records it (``static/js/bench/loop.js``, withSaid: a bracket the annotator made, grew or
+  relabelled is required, a span they emptied is forbidden, a tag they set is fixed). After
+  each edit the page asks the grammar again around everything said
+  (:func:`parser.reparse.reparse`, which favours the tree as it is) and shows its answer: the
+  constrained consensus (the proposal) and the k best readings under the same constraints.
+  Choosing one of them (the proposal with g, another with the keys that step through them) is
+  **one action**; the simulated annotator, who sees what each would change, takes the one
+  closest to gold when it is at least 2 edits closer than the tree (one edit closer would only
+  pay for its own key). Stepping through the offer (G) is free, like reading it. Before the first edit the same choice is offered among the start's own
+  readings (the Bench's 1-9 keys). Reading and rejecting an offer costs nothing here (a real
+  annotator spends time on it, which the action count does not see).
 
-Usage: ``python bench/simulate_annotator.py [--limit N]`` (N test sentences, default 40).
-Prints per condition the mean actions per sentence of each annotator and the ratio loop/plain.
+Conditions (``--conditions``, side by side in one run): ``plain``; ``proposal`` (the
+constrained consensus alone is offered: the Bench before the readings were offered); ``kN``
+(the proposal and the N best readings under the constraints). ``k30`` is what the Bench offers
+(``OFFER_K`` in ``static/js/bench/loop.js``). An offer applied without the annotator's choice
+made the tree worse in most sentences when measured before, so no condition applies one unasked.
+
+Usage: ``python bench/simulate_annotator.py [--limit N] [--skip M] [--conditions plain,k30]
+[--only in|unseen] [--cache DIR]`` (N test sentences, default 40; ``--cache`` keeps the two
+trained grammars between runs). Prints per condition the mean and median actions per sentence,
+the hand edits and choices taken, and the ratio loop/plain.
 """
 
 from __future__ import annotations
@@ -34,6 +55,8 @@ import argparse
 import sys
 import time
 from collections import Counter
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
@@ -41,6 +64,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 from nltk import Tree  # noqa: E402
 
 from parser.chart import parse  # noqa: E402
+from parser.errors import ConstraintError  # noqa: E402
 from parser.grammar import Grammar, train_grammar  # noqa: E402
 from parser.reparse import Said, reparse  # noqa: E402
 from parser.trees import (  # noqa: E402
@@ -66,8 +90,9 @@ def brackets(tree: Tree) -> Counter[Bracket]:
     return Counter(constituents(tree)[1:])
 
 
-def plain_actions(tree: Tree, gold: Tree) -> int:
-    """Fewest Bench edits from ``tree`` to ``gold``: relabels, removals, additions, retags."""
+def distance(tree: Tree, gold: Tree) -> int:
+    """Fewest single-bracket edits from ``tree`` to ``gold``: relabels, removals, additions,
+    retags (no moves)."""
     have, want = brackets(tree), brackets(gold)
     extra = list((have - want).elements())
     missing = list((want - have).elements())
@@ -89,11 +114,13 @@ def _rebuild(tree: Tree, items: list[Bracket], tags: list[str]) -> Tree:
     return tree_from_spans(words(tree), tags, items, root=tree.label())
 
 
-def next_edit(tree: Tree, gold: Tree) -> tuple[str, object] | None:
-    """The simulated annotator's next edit (see the module docstring), or None at gold."""
+def single_edit(tree: Tree, gold: Tree) -> Tree | None:
+    """The next single-bracket edit's result (see the module docstring), or None at gold."""
     have, want = brackets(tree), brackets(gold)
     missing = list((want - have).elements())
     extra = list((have - want).elements())
+    items = constituents(tree)[1:]
+    tags = pos_tags(tree)
     spans_have = {(s, e) for _, s, e in have}
     addable = [
         b
@@ -102,7 +129,7 @@ def next_edit(tree: Tree, gold: Tree) -> tuple[str, object] | None:
         and not any(_crosses((b[1], b[2]), (s, e)) for _, s, e in have)
     ]
     if addable:
-        return "add", max(addable, key=lambda b: (b[2] - b[1], -b[1]))
+        return _rebuild(tree, items + [max(addable, key=lambda b: (b[2] - b[1], -b[1]))], tags)
     spare = Counter((s, e) for _, s, e in missing)
     relabels: list[tuple[Bracket, str]] = []
     wrong: list[Bracket] = []
@@ -114,111 +141,287 @@ def next_edit(tree: Tree, gold: Tree) -> tuple[str, object] | None:
         else:
             wrong.append(b)
     if wrong:
-        return "remove", wrong[0]
+        items.remove(wrong[0])
+        return _rebuild(tree, items, tags)
     if relabels:
-        return "relabel", relabels[0]
+        (lab, s, e), new = relabels[0]
+        items[items.index((lab, s, e))] = (new, s, e)
+        return _rebuild(tree, items, tags)
     if missing:  # a span present twice in gold (a unary chain) and once here
-        return "add", missing[0]
-    for i, (a, b) in enumerate(zip(pos_tags(tree), pos_tags(gold), strict=True)):
+        return _rebuild(tree, items + [missing[0]], tags)
+    gold_tags = pos_tags(gold)
+    for i, (a, b) in enumerate(zip(tags, gold_tags, strict=True)):
         if a != b:
-            return "retag", (i, b)
+            tags[i] = b
+            return _rebuild(tree, items, tags)
     return None
 
 
-def apply_edit(tree: Tree, edit: tuple[str, object], said: dict) -> Tree:
-    """``tree`` after the edit, with ``said`` (required, forbidden, tags) updated."""
-    kind, what = edit
+def _parents(spans: list[Bracket]) -> list[int]:
+    """Parent index of each node of a pre-order span list (the root's is -1)."""
+    out = [-1] * len(spans)
+    stack: list[int] = []
+    for k, (_, s, e) in enumerate(spans):
+        while stack and not (spans[stack[-1]][1] <= s and e <= spans[stack[-1]][2]):
+            stack.pop()
+        out[k] = stack[-1] if stack else -1
+        stack.append(k)
+    return out
+
+
+def moves(tree: Tree) -> list[Tree]:
+    """Every tree one move away (a phrase or a word under another phrase, words kept in order:
+    the rule of treemodel.js's reattach, which the Bench offers)."""
+    spans = constituents(tree)
+    parent = _parents(spans)
+    n = len(words(tree))
+    tags = pos_tags(tree)
+
+    def up_from(k: int) -> list[int]:
+        out = []
+        while k >= 0:
+            out.append(k)
+            k = parent[k]
+        return out
+
+    refs: list[tuple[int, int, int]] = []  # (self index or -1, start, end)
+    refs += [(k, s, e) for k, (_, s, e) in enumerate(spans) if k > 0]
+    for i in range(n):
+        owner = max(k for k, (_, s, e) in enumerate(spans) if s <= i < e)
+        refs.append((-1 - owner, i, i + 1))
+    out = []
+    for self, a, b in refs:
+        own_parent = parent[self] if self >= 0 else -1 - self
+        up = up_from(own_parent)
+        inside = set()
+        if self >= 0:
+            inside = {k for k in range(len(spans)) if self in up_from(parent[k])}
+        for target, goal in enumerate(spans):
+            if target in (own_parent, self) or target in inside:
+                continue
+            changed: dict[int, tuple[int, int]] = {}
+            ok = True
+            if target in up:
+                for k in up[: up.index(target)]:
+                    _, s, e = spans[k]
+                    if (s, e) == (a, b) or (s != a and e != b):
+                        ok = False
+                        break
+                    changed[k] = (b, e) if s == a else (s, a)
+            else:
+                if goal[2] != a and goal[1] != b:
+                    continue
+                over = up_from(target)
+                common = next(k for k in over if k in up)
+                for k in up[: up.index(common)]:
+                    _, s, e = spans[k]
+                    if (s, e) == (a, b):
+                        ok = False
+                        break
+                    changed[k] = (b, e) if s == a else (s, a)
+                for k in over[: over.index(common)]:
+                    _, s, e = spans[k]
+                    changed[k] = (min(s, a), max(e, b))
+            if not ok:
+                continue
+            items = [(lab, *changed.get(k, (s, e))) for k, (lab, s, e) in enumerate(spans) if k > 0]
+            out.append(_rebuild(tree, items, tags))
+    return out
+
+
+def edge_steps(tree: Tree) -> list[Tree]:
+    """Every tree one edge step away (one edge of a bracket one word out or in: [ ] { })."""
     items = constituents(tree)[1:]
     tags = pos_tags(tree)
-    if kind == "add":
-        lab, s, e = what  # type: ignore[misc]
-        items.append((lab, s, e))
-        said["required"][(s, e, lab)] = None
-    elif kind == "remove":
-        lab, s, e = what  # type: ignore[misc]
-        items.remove((lab, s, e))
-        if not any((a, b) == (s, e) for _, a, b in items):
-            said["forbidden"][(s, e)] = None
-        said["required"] = {k: None for k in said["required"] if k != (s, e, lab)}
-    elif kind == "relabel":
-        (lab, s, e), new = what  # type: ignore[misc]
-        items[items.index((lab, s, e))] = (new, s, e)
-        said["required"] = {k: None for k in said["required"] if k != (s, e, lab)}
-        said["required"][(s, e, new)] = None
-    else:
-        i, tag = what  # type: ignore[misc]
-        tags[i] = tag
-        said["tags"][i] = tag
-    return _rebuild(tree, items, tags)
+    n = len(tags)
+    out = []
+    for k, (lab, s, e) in enumerate(items):
+        for ns, ne in ((s - 1, e), (s + 1, e), (s, e - 1), (s, e + 1)):
+            if ns < 0 or ne > n or ns >= ne or (lab, ns, ne) in items:
+                continue
+            others = items[:k] + items[k + 1 :]
+            if any(_crosses((ns, ne), (a, b)) for _, a, b in others):
+                continue
+            out.append(_rebuild(tree, others[:k] + [(lab, ns, ne)] + others[k:], tags))
+    return out
 
 
-def loop_actions(g: Grammar, start: Tree, gold: Tree, auto: bool) -> tuple[int, int, int]:
-    """(actions, offers taken, offers that made the tree worse) of the loop annotator."""
-    tree = start
-    said: dict = {"required": {}, "forbidden": {}, "tags": {}}
-    actions = taken = worse = 0
-    for _ in range(4 * len(words(gold)) + 20):
-        edit = next_edit(tree, gold)
-        if edit is None:  # gold's brackets and tags (a unary chain's order is not counted)
-            if plain_actions(tree, gold):
-                raise RuntimeError(f"no edit left but not at gold: {tree} / {gold}")
-            break
-        tree = apply_edit(tree, edit, said)
-        actions += 1
-        out = reparse(
-            g,
-            words(gold),
-            Said(
-                required=tuple(said["required"]),
-                forbidden=tuple(said["forbidden"]),
-                tags=tuple(sorted(said["tags"].items())),
-            ),
-            previous=tree,
-            k=1,
+def hand_edit(tree: Tree, gold: Tree) -> Tree | None:
+    """The hand editor's next tree (see the module docstring), or None at gold."""
+    d = distance(tree, gold)
+    if d == 0:
+        return None
+    best, gain = None, 1
+    for t in moves(tree) + edge_steps(tree):
+        g = d - distance(t, gold)
+        if g > gain:
+            best, gain = t, g
+    return best if best is not None else single_edit(tree, gold)
+
+
+@dataclass
+class Said_:
+    """What the annotator has said, kept as the page keeps it (loop.js withSaid)."""
+
+    required: list[tuple[int, int, str]] = field(default_factory=list)
+    forbidden: list[tuple[int, int]] = field(default_factory=list)
+    tags: dict[int, str] = field(default_factory=dict)
+
+    def after(self, before: Tree, now: Tree) -> Said_:
+        old = set(constituents(before)[1:])
+        new = constituents(now)[1:]
+        new_keys = set(new)
+        new_spans = {(s, e) for _, s, e in new}
+        req = [r for r in self.required if (r[2], r[0], r[1]) in new_keys]
+        for lab, s, e in new:
+            if (lab, s, e) not in old and (s, e, lab) not in req:
+                req.append((s, e, lab))
+        forb = [f for f in self.forbidden if f not in new_spans]
+        for _, s, e in constituents(before)[1:]:
+            if (s, e) not in new_spans and (s, e) not in forb:
+                forb.append((s, e))
+        tb, ta = pos_tags(before), pos_tags(now)
+        tags = {i: t for i, t in self.tags.items() if ta[i] == t}
+        for i, (a, b) in enumerate(zip(tb, ta, strict=True)):
+            if a != b:
+                tags[i] = b
+        return Said_(req, forb, tags)
+
+    def frozen(self) -> Said:
+        return Said(
+            required=tuple(self.required),
+            forbidden=tuple(self.forbidden),
+            tags=tuple(sorted(self.tags.items())),
         )
-        if out.tree == tree:
+
+
+@dataclass
+class Tally:
+    actions: int = 0
+    hand: int = 0
+    choices: int = 0
+    choices_beyond_proposal: int = 0
+    reparses: int = 0
+    seconds: float = 0.0
+
+
+def offered(g: Grammar, word_list: list[str], said: Said_, tree: Tree, k: int) -> list[Tree]:
+    """What the page shows after an edit: the proposal, then the k best readings under the
+    constraints (k = 0: the proposal alone)."""
+    try:
+        out = reparse(g, word_list, said.frozen(), previous=tree, k=max(k, 1))
+    except ConstraintError:
+        return []
+    return [out.tree] + ([t for t, _ in out.readings[:k]] if k else [])
+
+
+def choose(trees: list[Tree], tree: Tree, gold: Tree) -> tuple[Tree, int] | None:
+    """The offered tree the annotator takes (closest to gold, at least 2 edits closer), with
+    its place in the offer, or None."""
+    d = distance(tree, gold)
+    scored = [(distance(t, gold), i, t) for i, t in enumerate(trees)]
+    if not scored:
+        return None
+    best_d, i, best = min(scored, key=lambda x: (x[0], x[1]))
+    return (best, i) if best_d <= d - 2 else None
+
+
+def annotate(
+    start: Tree, gold: Tree, ask: Callable[[Said_, Tree], list[Tree]] | None, tally: Tally
+) -> None:
+    """Edit ``start`` to gold; with ``ask`` (the loop) an offer follows every edit."""
+    tree = start
+    said = Said_()
+    if ask is not None:
+        got = choose(ask(said, tree), tree, gold)
+        tally.reparses += 1
+        if got is not None:
+            tree = got[0]
+            tally.actions += 1
+            tally.choices += 1
+            tally.choices_beyond_proposal += got[1] > 0
+    for _ in range(4 * len(words(gold)) + 20):
+        nxt = hand_edit(tree, gold)
+        if nxt is None:
+            return
+        said = said.after(tree, nxt)
+        tree = nxt
+        tally.actions += 1
+        tally.hand += 1
+        if ask is None or distance(tree, gold) < 2:
             continue
-        before, after = plain_actions(tree, gold), plain_actions(out.tree, gold)
-        if auto:
-            if out.plausible:
-                tree = out.tree
-                taken += 1
-                worse += after > before
-        elif after < before - 1:  # worth the key that takes it
-            tree = out.tree
-            actions += 1
-            taken += 1
-    return actions, taken, worse
+        tally.reparses += 1
+        got = choose(ask(said, tree), tree, gold)
+        if got is not None:
+            tree = got[0]
+            said = said.after(tree, tree)
+            tally.actions += 1
+            tally.choices += 1
+            tally.choices_beyond_proposal += got[1] > 0
+    raise RuntimeError(f"did not reach gold: {tree} / {gold}")
 
 
-def run(name: str, g: Grammar, tests: list[Tree]) -> None:
+def run(name: str, g: Grammar, tests: list[Tree], conds_spec: list[str]) -> None:
+    """``conds_spec``: ``plain``, ``proposal`` (the proposal alone), ``kN`` (the proposal and
+    the N best readings under the constraints)."""
     t0 = time.process_time()
-    plain = loop = auto = 0
-    taken = auto_taken = auto_worse = 0
+    conds = {c: Tally() for c in conds_spec}
+    per_sentence: dict[str, list[int]] = {c: [] for c in conds}
     for gold in tests:
-        start = parse(g, words(gold), posteriors=True).consensus
+        wl = [str(w) for w in words(gold)]
+        start = parse(g, wl, posteriors=True).consensus
         assert start is not None
-        plain += plain_actions(start, gold)
-        a, t, _ = loop_actions(g, start, gold, auto=False)
-        loop += a
-        taken += t
-        a, t, w = loop_actions(g, start, gold, auto=True)
-        auto += a
-        auto_taken += t
-        auto_worse += w
+        for cname, tally in conds.items():
+            before = tally.actions
+            c0 = time.process_time()
+            ask = None
+            if cname != "plain":
+                kk = 0 if cname == "proposal" else int(cname[1:])
+                ask = lambda said, tree, kk=kk, wl=wl: offered(g, wl, said, tree, kk)  # noqa: E731
+            annotate(start, gold, ask, tally)
+            tally.seconds += time.process_time() - c0
+            per_sentence[cname].append(tally.actions - before)
     n = len(tests)
-    print(f"{name}: {n} sentences, CPU {time.process_time() - t0:.0f} s")
-    print(
-        f"  actions per sentence: plain {plain / n:.2f}, loop {loop / n:.2f} "
-        f"(offers taken {taken / n:.2f}), loop auto {auto / n:.2f} "
-        f"(applied {auto_taken / n:.2f}, of which made it worse {auto_worse / n:.2f})"
-    )
-    print(f"  ratio loop/plain {loop / plain:.3f}, loop auto/plain {auto / plain:.3f}")
+    plain = conds["plain"].actions
+    print(f"{name}: n = {n} sentences, CPU {time.process_time() - t0:.0f} s")
+    for cname, t in conds.items():
+        ps = sorted(per_sentence[cname])
+        line = (
+            f"  {cname:22s} actions per sentence {t.actions / n:.2f} (median {ps[n // 2]}; "
+            f"hand edits {t.hand / n:.2f}, choices {t.choices / n:.2f}"
+        )
+        if cname != "plain":
+            line += (
+                f" of which beyond the proposal {t.choices_beyond_proposal / n:.2f};"
+                f" re-parses {t.reparses / n:.1f}, CPU {t.seconds / max(t.reparses, 1):.2f}"
+                f" s each) ratio loop/plain {t.actions / plain:.3f}"
+            )
+        else:
+            line += ")"
+        print(line, flush=True)
+
+
+def grammar(name: str, trees: Callable[[], list[Tree]], cache: Path | None) -> Grammar:
+    if cache is not None and (cache / f"{name}.npz").exists():
+        return Grammar.load(cache / f"{name}.npz")
+    g = train_grammar(trees())
+    if cache is not None:
+        cache.mkdir(parents=True, exist_ok=True)
+        g.save(cache / f"{name}.npz")
+    return g
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--limit", type=int, default=40, help="test sentences (default 40)")
+    ap.add_argument("--skip", type=int, default=0, help="test sentences to skip first")
+    ap.add_argument(
+        "--conditions",
+        default="plain,k30",
+        help="comma-separated: plain, proposal, kN (default plain,k30: the Bench's offer)",
+    )
+    ap.add_argument("--cache", type=Path, help="directory keeping the trained grammars")
+    ap.add_argument("--only", choices=["in", "unseen"], help="one condition only")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
     if not files:
@@ -229,12 +432,19 @@ def main() -> None:
             t = strip_function_tags(t)
             if len(words(t)) <= MAX_WORDS:
                 tests.append(t)
-    tests = tests[: args.limit]
-    split = train_grammar([t for f in files[:89] for t in read(f)])
-    run("in genre (GUM split: 89 files train, last 10 test)", split, tests)
-    genre = "GUM_" + files[-1].name.split("_")[1]
-    unseen = train_grammar([t for f in files if not f.name.startswith(genre) for t in read(f)])
-    run(f"unseen genre (trained without {genre}_*)", unseen, tests)
+    tests = tests[args.skip : args.skip + args.limit]
+    conds = args.conditions.split(",")
+    if args.only != "unseen":
+        split = grammar("gum-split", lambda: [t for f in files[:89] for t in read(f)], args.cache)
+        run("in genre (GUM split: 89 files train, last 10 test)", split, tests, conds)
+    if args.only != "in":
+        genre = "GUM_" + files[-1].name.split("_")[1]
+        unseen = grammar(
+            f"without-{genre}",
+            lambda: [t for f in files if not f.name.startswith(genre) for t in read(f)],
+            args.cache,
+        )
+        run(f"unseen genre (trained without {genre}_*)", unseen, tests, conds)
 
 
 if __name__ == "__main__":
