@@ -33,9 +33,10 @@ The cost model: one action is one edit on the Bench, whatever keys or drags it t
   Choosing one of them (the proposal with g, another with the keys that step through them) is
   **one action**; the simulated annotator, who sees what each would change, takes the one
   closest to gold when it is at least 2 edits closer than the tree (one edit closer would only
-  pay for its own key). Stepping through the offer (G) is free, like reading it. Before the first edit the same choice is offered among the start's own
-  readings (the Bench's 1-9 keys). Reading and rejecting an offer costs nothing here (a real
-  annotator spends time on it, which the action count does not see).
+  pay for its own key). Before the first edit the same choice is offered among the start's
+  own readings (the Bench's readings list and 1-9 keys). Stepping through an offer (G),
+  reading it and rejecting it cost nothing here (a real annotator spends time on them, which
+  the action count does not see: with 30 readings that time is not small).
 
 Conditions (``--conditions``, side by side in one run): ``plain``; ``proposal`` (the
 constrained consensus alone is offered: the Bench before the readings were offered); ``kN``
