@@ -43,6 +43,8 @@ def _differing_sentences(db, people):
         c2 = write_tree(parse(g2, w, posteriors=True).consensus)
         if c1 != c2:
             differing.append(s)
+            if len(differing) == 2:  # the tests use two; parsing the rest only costs time
+                break
     assert len(differing) >= 2, "the two grammars agree on every sentence: no test"
     return corpus, differing, first, second
 

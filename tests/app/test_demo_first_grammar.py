@@ -7,7 +7,9 @@ from __future__ import annotations
 import json
 import re
 
-from app.models import GV_TRAINING, GrammarVersion
+from sqlalchemy import select
+
+from app.models import GV_TRAINING, Corpus, GrammarVersion
 from tests.app.bench_helpers import assign, make_corpus
 from tests.app.test_cli_commands import cli  # noqa: F401  (the fixture)
 
@@ -21,8 +23,15 @@ def test_demo_logins_say_who_adjudicates(cli) -> None:  # noqa: F811
     assert "Training the first grammar" not in out
 
 
-def test_demo_tells_the_training_progress(cli) -> None:  # noqa: F811
+def test_demo_tells_the_training_progress_and_trains_the_first_grammar(db, cli) -> None:  # noqa: F811
+    # One demo load with training serves both checks: what the command says, and what the
+    # loader left in the database (training the first grammar is the slow part).
     out = cli("demo", "--no-serve").output
+    db.expire_all()
+    version = db.scalar(select(GrammarVersion))
+    assert version is not None and version.status == "ready" and version.number == 1
+    assert version.training_size > 0
+    assert db.scalar(select(Corpus.active_grammar_id)) == version.id
     assert re.search(r"Training the first grammar on the 75 gold trees: about \d", out)
     steps = [line for line in out.splitlines() if line.startswith("first grammar: ")]
     assert steps, out  # at least the first state is told before the end

@@ -17,7 +17,6 @@ from app.models import (
     Corpus,
     Document,
     Gold,
-    GrammarVersion,
     Sentence,
     User,
 )
@@ -67,14 +66,6 @@ def test_demo_loader_passwords_differ_each_time(db, tmp_path) -> None:
     db.commit()
     second = load_demo(db, train=False)
     assert [p for *_, p in first.logins] != [p for *_, p in second.logins]
-
-
-def test_demo_loader_trains_the_first_grammar(db) -> None:
-    summary = load_demo(db, train=True)
-    version = db.scalar(select(GrammarVersion))
-    assert version is not None and version.status == "ready"
-    assert version.training_size > 0 and summary.grammar[0] == version.number
-    assert db.scalar(select(Corpus.active_grammar_id)) == version.id
 
 
 def test_demo_database_detection(db) -> None:
