@@ -645,14 +645,12 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
 
 
 def queue_corpora(db: Session, user: User) -> list[tuple[int, str]]:
-    """(id, name) of every corpus with a sentence assigned to ``user``, by name."""
+    """(id, name) of every corpus with a sentence assigned to ``user``, by name: from the
+    maintained queue counts (a row per corpus of the user), not the user's assignments."""
     rows = db.execute(
         select(Corpus.id, Corpus.name)
-        .where(
-            Corpus.id.in_(
-                select(Assignment.corpus_id).where(Assignment.user_id == user.id).distinct()
-            )
-        )
+        .join(QueueCount, QueueCount.corpus_id == Corpus.id)
+        .where(QueueCount.user_id == user.id, QueueCount.assigned > 0)
         .order_by(Corpus.name)
     ).all()
     return [(int(i), str(n)) for i, n in rows]

@@ -31,15 +31,18 @@ annotation and its ``import`` revision on a staged sentence: a new sentence for 
 id) for a tree that attaches. Publishing, in its one transaction, checks that the annotator
 has not started any of the target sentences meanwhile and that they are still there (an
 annotator's own save is never overwritten: the import fails whole and says so), assigns the
-sentences to the annotator, moves the new sentences into the document and the placeholders'
-annotations onto their targets (two UPDATEs), and hands the sentences that now have every
-annotation they wait for to :func:`app.services.agreement.on_submitted`, as the Bench's
-submit does.
+sentences to the annotator, and moves the new sentences into the document and the
+placeholders' annotations onto their targets (two UPDATEs). Then the sentences that now have
+every annotation they wait for go to :func:`app.services.agreement.on_submitted` (as the
+Bench's submit does), :data:`ROUTE_CHUNK` per transaction, each placeholder removed with its
+target's routing: scoring runs to milliseconds per sentence, so done inside the publish it
+held the write lock for minutes on a large second annotator's file. A process killed in
+between leaves the placeholders; the next start routes them, then drops the staging corpus.
 
 Cost: two reads of the file, O(lines); memory O(sentences) digests plus one chunk of rows
 (for annotations also the digests of the document's free sentences); the publish step is one
-UPDATE over the staged rows (annotations: a few set-wise statements, plus the agreement
-scoring of the sentences the file completes, as many as a submit of each would do).
+UPDATE over the staged rows (annotations: a few set-wise statements; the agreement scoring
+of the sentences the file completes follows in short transactions).
 """
 
 from __future__ import annotations
@@ -52,7 +55,7 @@ from datetime import timedelta
 from pathlib import Path
 from typing import Any, BinaryIO
 
-from sqlalchemy import BigInteger, cast, delete, func, insert, literal, select, update
+from sqlalchemy import BigInteger, Select, cast, delete, func, insert, literal, select, update
 from sqlalchemy.orm import Session, aliased
 
 from app.models import (
@@ -211,14 +214,79 @@ ABANDONED_AFTER = timedelta(hours=6)
 
 
 def drop_abandoned_staging(db: Session, older_than: timedelta = ABANDONED_AFTER) -> int:
-    """Delete the staging corpora a killed import left behind (called at start). Commits."""
+    """Delete the staging corpora a killed import left behind (called at start); an
+    annotation import killed after publishing first has its completed sentences routed.
+    Commits."""
     before = utcnow() - older_than
     ids = [
         c.id for c in db.scalars(select(Corpus).where(Corpus.created_at <= before)) if is_staging(c)
     ]
     for staging_id in ids:
+        placeholders = select(Sentence.id).where(
+            Sentence.corpus_id == staging_id, Sentence.document_id.in_(_attach_docs(staging_id))
+        )
+        published = db.scalar(select(func.count()).select_from(placeholders.subquery())) and (
+            not db.scalar(
+                select(func.count())
+                .select_from(Annotation)
+                .where(Annotation.sentence_id.in_(placeholders))
+            )
+        )
+        if published:
+            for doc_id in db.scalars(_attach_docs(staging_id)):
+                _route(db, doc_id, [])
         _drop_staging(db, staging_id)
     return len(ids)
+
+
+def _attach_docs(staging_id: int) -> Select[int]:
+    return select(Document.id).where(
+        Document.corpus_id == staging_id, Document.name == ATTACH_DOCUMENT
+    )
+
+
+#: Sentences routed to the agreement service per transaction after an annotation import.
+ROUTE_CHUNK = 25
+#: The staging document of an annotation import's placeholders.
+ATTACH_DOCUMENT = "attached"
+
+
+def _route(db: Session, attach_doc_id: int, new_ids: list[int]) -> None:
+    """Hand each sentence an annotation import completed (the placeholders' targets, and
+    ``new_ids``) to :func:`app.services.agreement.on_submitted`, :data:`ROUTE_CHUNK` per
+    transaction; a placeholder goes in the transaction that routes its target. Commits."""
+    db.expire_all()  # the publishing UPDATEs went around the session
+    while True:
+        rows = db.execute(
+            select(Sentence.id, Sentence.position)
+            .where(Sentence.document_id == attach_doc_id)
+            .order_by(Sentence.id)
+            .limit(ROUTE_CHUNK)
+        ).all()
+        if not rows:
+            break
+        for target in (position for _, position in rows):
+            _route_one(db, target)
+        db.execute(delete(Sentence).where(Sentence.id.in_([pid for pid, _ in rows])))
+        db.commit()
+    for start in range(0, len(new_ids), ROUTE_CHUNK):
+        for sentence_id in new_ids[start : start + ROUTE_CHUNK]:
+            _route_one(db, sentence_id)
+        db.commit()
+
+
+def _route_one(db: Session, sentence_id: int) -> None:
+    sentence = db.get(Sentence, sentence_id)
+    if sentence is None:
+        return
+    corpus = db.get(Corpus, sentence.corpus_id)
+    submitted = db.scalar(
+        select(func.count())
+        .select_from(Annotation)
+        .where(Annotation.sentence_id == sentence_id, Annotation.state == ANN_SUBMITTED)
+    )
+    if corpus is not None and (submitted or 0) >= corpus.options.annotators_per_sentence:
+        agreement.on_submitted(db, sentence)
 
 
 def import_stream(
@@ -271,7 +339,7 @@ def import_stream(
     db.add(staging)
     db.flush()
     stage_doc = Document(corpus_id=staging.id, name="staged", position=0)
-    attach_doc = Document(corpus_id=staging.id, name="attached", position=1)
+    attach_doc = Document(corpus_id=staging.id, name=ATTACH_DOCUMENT, position=1)
     db.add_all([stage_doc, attach_doc])
     db.commit()
     staging_id, stage_doc_id, attach_doc_id = staging.id, stage_doc.id, attach_doc.id
@@ -334,7 +402,7 @@ def import_stream(
                 write()
         if batch:
             write()
-        result = _publish(
+        result, new_to_route = _publish(
             db,
             staging_id,
             stage_doc_id,
@@ -355,7 +423,12 @@ def import_stream(
     except BaseException:
         _drop_staging(db, staging_id)
         raise
-    _drop_staging(db, staging_id)  # only the placeholders are left
+    # published: now the sentences the file completes go to the agreement service, a few per
+    # transaction (scoring is slow next to a write: done in the publish transaction it held
+    # the write lock for minutes); a process killed meanwhile leaves the placeholders, and the
+    # next start routes them (:func:`drop_abandoned_staging`)
+    _route(db, attach_doc_id, new_to_route)
+    _drop_staging(db, staging_id)  # only emptied staging documents are left
     if progress:
         progress(count, count)
     return result
@@ -379,8 +452,10 @@ def _publish(
     skipped: int,
     dups: list[Duplicate],
     now: Any,
-) -> ImportResult:
-    """The staged sentences become the document's, in one short transaction. Commits."""
+) -> tuple[ImportResult, list[int]]:
+    """The staged sentences become the document's, in one short transaction; answers the
+    result and the new sentences already complete (one annotator per sentence) for
+    :func:`_route`. Commits."""
     corpus = corpus_by_name(db, corpus_name)
     corpus_created = corpus is None
     if corpus is None:
@@ -421,10 +496,6 @@ def _publish(
         absorb_tree_inventory(corpus, stats.labels, stats.tags)
     if kind == "gold" and imported:
         gold_added(db, corpus)
-    if ready:
-        db.expire_all()  # the UPDATEs above went around the session
-        for sentence_id in ready:
-            agreement.on_submitted(db, db.get_one(Sentence, sentence_id))
     detail: dict[str, Any] = {
         "source": source,
         "document": doc.name,
@@ -445,7 +516,7 @@ def _publish(
     db.flush()
     result.event_id = event.id
     db.commit()
-    return result
+    return result, ready
 
 
 def _publish_annotations(
@@ -549,12 +620,7 @@ def _publish_annotations(
             .values(state=SENT_IN_PROGRESS),
             execution_options={"synchronize_session": False},
         )
-        ready += db.scalars(
-            select(Annotation.sentence_id)
-            .where(Annotation.sentence_id.in_(targets), Annotation.state == ANN_SUBMITTED)
-            .group_by(Annotation.sentence_id)
-            .having(func.count() >= needed)
-        )
+    # the targets are routed after publishing, from the placeholders (:func:`_route`)
     return ready
 
 

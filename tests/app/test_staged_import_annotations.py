@@ -6,6 +6,7 @@ meanwhile is never overwritten (the import fails whole)."""
 from __future__ import annotations
 
 import io
+from datetime import timedelta
 
 import pytest
 from sqlalchemy import func, select
@@ -150,10 +151,42 @@ def test_staged_annotations_failure_at_publish_leaves_nothing(db, people, monkey
     def broken(*args, **kwargs):  # type: ignore[no-untyped-def]
         raise RuntimeError("the disk filled up")
 
-    monkeypatch.setattr(staged_import.agreement, "on_submitted", broken)
+    monkeypatch.setattr(staged_import, "absorb_tree_inventory", broken)  # inside the publish
     with pytest.raises(RuntimeError):
         _import(db, SECOND, "ann2")
     assert count_rows(db) == before
+
+
+def test_staged_annotations_routed_in_chunks_and_after_a_crash_at_the_next_start(
+    db, people, monkeypatch
+) -> None:
+    """The sentences a file completes go to the agreement service after publishing, a few
+    per transaction; killed in between, the next start routes the rest."""
+    monkeypatch.setattr(staged_import, "ROUTE_CHUNK", 1)
+    _import(db, FIRST, "ann1")
+    real = staged_import.agreement.on_submitted
+    calls: list[int] = []
+
+    def dies_on_the_third(db_, sentence):  # type: ignore[no-untyped-def]
+        calls.append(sentence.id)
+        if len(calls) == 3:
+            raise KeyboardInterrupt  # the process stops here
+        real(db_, sentence)
+
+    monkeypatch.setattr(staged_import.agreement, "on_submitted", dies_on_the_third)
+    with pytest.raises(KeyboardInterrupt):
+        _import(db, SECOND, "ann2")
+    db.rollback()
+    in_pairs = select(Sentence.state).join(Corpus).where(Corpus.name == "Pairs")
+    states = db.scalars(in_pairs.order_by(Sentence.position)).all()
+    # the import is in (every tree of ann2 submitted); two sentences were routed before it stopped
+    assert states == [SENT_GOLD, SENT_GOLD, SENT_IN_PROGRESS, SENT_IN_PROGRESS]
+    assert db.query(Annotation).filter(Annotation.user_id == people.ann2.id).count() == 4
+    monkeypatch.setattr(staged_import.agreement, "on_submitted", real)
+    assert staged_import.drop_abandoned_staging(db, older_than=timedelta(0)) == 1
+    states = db.scalars(select(Sentence.state).order_by(Sentence.position)).all()
+    assert states == [SENT_GOLD, SENT_GOLD, SENT_GOLD, SENT_IN_REVIEW]
+    assert db.query(Corpus).count() == 1
 
 
 def test_staged_annotations_bad_tree_writes_nothing(db, people) -> None:
