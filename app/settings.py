@@ -129,6 +129,15 @@ class Settings(BaseSettings):
         description="Longest a request waits for its parse "
         "before answering 503 (the parse goes on and is kept).",
     )
+    parse_page_wait_seconds: float = Field(
+        default=2.0,
+        ge=0,
+        le=600,
+        allow_inf_nan=False,
+        description="Longest the Bench page waits for its parse; "
+        "then it is drawn with its place in the parse line, kept up to date, and shows the "
+        "tree when the parse is done.",
+    )
     parse_max_words: int = Field(
         default=100,
         ge=1,

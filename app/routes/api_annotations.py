@@ -33,6 +33,7 @@ from app.schemas.annotation import (
     BenchPublic,
     ChangesPublic,
     NoteUpdate,
+    ParsePlacePublic,
     Pins,
     QueuePublic,
     ReparsePublic,
@@ -49,6 +50,7 @@ from app.schemas.annotation import (
 )
 from app.services import annotation as svc
 from app.services import suggestions, tokens, training
+from app.services.admission import ParserBusy
 from app.services.corpora import get_corpus
 from parser.trees import write_tree
 
@@ -92,9 +94,36 @@ def open_bench(sentence_id: int, login: ApiUser, db: SessionDep, request: Reques
     return bench_payload(db, login.user, sentence, request.app.state.settings.suggestion_k)
 
 
-def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchPublic:
+@router.get("/api/bench/{sentence_id}/place", response_model=ParsePlacePublic, responses=ERRORS)
+def parse_place(
+    sentence_id: int, login: ApiUser, db: SessionDep, request: Request
+) -> ParsePlacePublic:
+    """Whether the parses opening this sentence needs are done, else its place in the parse
+    pool's line. Never waits: it asks the pool for the answer and reads the line (the Bench's
+    waiting page asks every second until ``ready``). Asking starts the parse if nobody has."""
+    sentence = svc.assigned_sentence(db, login.user, sentence_id)
+    try:
+        _opening_parses(db, login.user, sentence, request.app.state.settings.suggestion_k, 0.0)
+    except ParserBusy as busy:
+        return ParsePlacePublic(ready=False, ahead=int(busy.extra.get("ahead", 0)))
+    return ParsePlacePublic(ready=True)
+
+
+def _opening_parses(db: Session, user: User, sentence: Sentence, k: int, wait: float) -> None:
+    """The parses :func:`bench_payload` asks for, in its order, waiting at most ``wait``
+    seconds for each (ParserBusy if one is not done by then)."""
+    corpus = _corpus(db, sentence.corpus_id)
+    if svc.current_revision(db, svc.own_annotation(db, user, sentence)) is None:
+        suggestions.fixed_start(db, sentence, corpus, k, wait=wait)
+    suggestions.suggestion_for(db, sentence, corpus, k, complete=False, wait=wait)
+
+
+def bench_payload(
+    db: Session, user: User, sentence: Sentence, k: int, wait: float | None = None
+) -> BenchPublic:
     """The Bench's data for ``user``'s own annotation of ``sentence`` (assigned to them);
-    the page embeds it so the first drawing needs no second request."""
+    the page embeds it so the first drawing needs no second request. ``wait`` bounds the
+    wait for each parse it needs (default the pool's); past it, ParserBusy with the place."""
     corpus = _corpus(db, sentence.corpus_id)
     annotation = svc.own_annotation(db, user, sentence)
     head = svc.current_revision(db, annotation)
@@ -111,9 +140,9 @@ def bench_payload(db: Session, user: User, sentence: Sentence, k: int) -> BenchP
     elif head is not None:
         tree, pins, source, note = head.tree, head.pins or {}, head.source, None
     else:  # before the suggestion below: a first opening parses completely once, not twice
-        start = suggestions.fixed_start(db, sentence, corpus, k)
+        start = suggestions.fixed_start(db, sentence, corpus, k, wait=wait)
         tree, pins, source, note = start.tree, {}, start.source, start.note
-    suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False)
+    suggestion = suggestions.suggestion_for(db, sentence, corpus, k, complete=False, wait=wait)
     if head is None and suggestion is None and training.open_job(db, corpus.id) is not None:
         note = (
             "The grammar is being trained: suggestions arrive when the grammar is "

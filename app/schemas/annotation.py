@@ -344,3 +344,11 @@ class QueuePublic(BaseModel):
     first_index: int = 1
     next_cursor: str | None = None
     items: list[QueueItem]
+
+
+class ParsePlacePublic(BaseModel):
+    """Where the parse that opening a sentence needs stands: ``ready`` when the Bench can be
+    drawn now; otherwise ``ahead`` parses run or wait before it (0: it is running)."""
+
+    ready: bool
+    ahead: int = 0

@@ -202,22 +202,35 @@ def _sentence_words(sentence: Sentence) -> list[str]:
 
 
 def suggestion_for(
-    db: Session, sentence: Sentence, corpus: Corpus, k: int, complete: bool = True
+    db: Session,
+    sentence: Sentence,
+    corpus: Corpus,
+    k: int,
+    complete: bool = True,
+    wait: float | None = None,
 ) -> Suggestion | None:
     """The cached suggestion under the active grammar, parsed now if missing; None when the
     corpus has no active grammar. Commits when it adds or completes a row.
 
     ``complete=False`` is the fast path for drawing a page: a missing row is filled with the
     k best trees only (span posteriors roughly quadruple the parse time); a later call with
-    ``complete=True`` adds posteriors and probabilities to the same row."""
+    ``complete=True`` adds posteriors and probabilities to the same row. ``wait`` bounds the
+    wait for a parse (default the admission pool's; 0 only asks and raises
+    :class:`~app.services.admission.ParserBusy` with the place in line if the answer is not
+    there yet)."""
     version = active_version(db, corpus)
     if version is None:
         return None
-    return _suggestion_under(db, sentence, version, k, complete)
+    return _suggestion_under(db, sentence, version, k, complete, wait)
 
 
 def _suggestion_under(
-    db: Session, sentence: Sentence, version: GrammarVersion, k: int, complete: bool
+    db: Session,
+    sentence: Sentence,
+    version: GrammarVersion,
+    k: int,
+    complete: bool,
+    wait: float | None = None,
 ) -> Suggestion | None:
     """The cached suggestion of ``sentence`` under ``version``, parsed now if missing."""
     row = _cached(db, sentence.id, version.id)
@@ -229,7 +242,7 @@ def _suggestion_under(
     grammar = grammar_for(db, version.id)
     key = ("suggestion", str(db.get_bind().engine.url), version.id, tuple(word_list), k, complete)
     values = admission().run(
-        key, lambda: parse_suggestion(grammar, word_list, k, complete=complete)
+        key, lambda: parse_suggestion(grammar, word_list, k, complete=complete), wait=wait
     )
     if row is not None:  # complete the fast row in place; the parse is deterministic
         for key, value in values.items():
@@ -426,7 +439,9 @@ def start_tree(
     return StartTree(write_tree(tree), "flat", "No grammar yet: starting from a flat tree.")
 
 
-def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> StartTree:
+def fixed_start(
+    db: Session, sentence: Sentence, corpus: Corpus, k: int, wait: float | None = None
+) -> StartTree:
     """The start every annotator of ``sentence`` gets, fixing it on the sentence if nobody has.
 
     The first opening under a grammar fixes the sentence's start to that grammar version's
@@ -435,7 +450,7 @@ def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> Star
     tree whatever grammar is active by then. Without any grammar the start is a flat tree,
     fixed only when the first annotation is created (:func:`record_start`), so a sentence
     merely looked at before the first grammar still gets that grammar's suggestion.
-    Commits when it fixes a start."""
+    Commits when it fixes a start. ``wait`` as in :func:`suggestion_for`."""
     for _ in range(2):
         if sentence.start_kind == START_FLAT:
             return start_tree(sentence, None)
@@ -445,7 +460,7 @@ def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> Star
                 # parsed again under the same version when the row is gone (a token fix
                 # removes a sentence's suggestions): every annotator still gets one grammar
                 try:
-                    row = _suggestion_under(db, sentence, fixed, k, complete=True)
+                    row = _suggestion_under(db, sentence, fixed, k, complete=True, wait=wait)
                 except (NotFound, Conflict):  # its saved grammar is gone: fix a new start
                     row = None
                 if row is not None:
@@ -453,7 +468,7 @@ def fixed_start(db: Session, sentence: Sentence, corpus: Corpus, k: int) -> Star
         version = active_version(db, corpus)
         if version is None:
             return start_tree(sentence, None)
-        row = suggestion_for(db, sentence, corpus, k, complete=True)
+        row = suggestion_for(db, sentence, corpus, k, complete=True, wait=wait)
         start = start_tree(sentence, row, version.number)
         moved = db.execute(
             update(Sentence)

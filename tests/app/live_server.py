@@ -1,10 +1,10 @@
 """A real Treewright server in a subprocess on a loopback port, for concurrency, crash and load
 checks, plus logged-in httpx clients for it.
 
-The server is ``uvicorn app.main:create_app --factory`` with its settings in the environment
-(``TREEWRIGHT_DATA_DIR``, ``TREEWRIGHT_DATABASE_URL``...), so it reads the same database as the
-test's own session. It binds 127.0.0.1 only. ``kill()`` sends SIGKILL (no clean shutdown), which
-is what the crash tests want; ``stop()`` terminates politely.
+The server is ``uvicorn app.main:create_app --factory`` (or another ``factory``) with its
+settings in the environment (``TREEWRIGHT_DATA_DIR``, ``TREEWRIGHT_DATABASE_URL``...), so it
+reads the same database as the test's own session. It binds 127.0.0.1 only. ``kill()`` sends
+SIGKILL (no clean shutdown), which is what the crash tests want; ``stop()`` terminates politely.
 
 Limits: one server per instance; start-up waits at most ``start_timeout`` seconds for
 ``/api/health``.
@@ -61,9 +61,11 @@ class LiveServer:
         log: Path | None = None,
         workers: int = 1,
         start_timeout: float = 60.0,
+        factory: str = "app.main:create_app",
         **env: str,
     ) -> None:
         self.settings = settings
+        self.factory = factory
         self.env = server_env(settings, **env)
         self.log = log
         self.workers = workers
@@ -82,7 +84,7 @@ class LiveServer:
             sys.executable,
             "-m",
             "uvicorn",
-            "app.main:create_app",
+            self.factory,
             "--factory",
             "--host",
             LOOPBACK,

@@ -69,6 +69,7 @@ EXPECTED: dict[tuple[str, str], Spec] = {
     # --- Bench and Queue (own annotations of assigned sentences only)
     ("GET", "/api/bench/{sentence_id}"): Spec(ASSIGNED, 200),
     ("GET", "/api/bench/{sentence_id}/suggestion"): Spec(ASSIGNED, 200),  # null: no grammar
+    ("GET", "/api/bench/{sentence_id}/place"): Spec(ASSIGNED, 200),  # ready: no grammar
     ("GET", "/api/bench/{sentence_id}/revisions"): Spec(ASSIGNED, 200),
     ("POST", "/api/bench/{sentence_id}/tokens"): Spec(
         ASSIGNED, 422, json={"base": 1, "position": 0, "count": 1, "tokens": ["a b"]}
