@@ -7,7 +7,6 @@ The demo sentences are invented (a ferry workshop's log); no real person is name
 from __future__ import annotations
 
 from functools import lru_cache
-from pathlib import Path
 
 from sqlalchemy.orm import Session
 
@@ -20,7 +19,6 @@ from app.models import (
     Sentence,
     User,
 )
-from parser.grammar import train_grammar
 from parser.trees import read_trees, words
 
 FERRY_SENTENCES = [
@@ -120,21 +118,20 @@ def flat_text(tokens: list[str], tags: list[str] | None = None) -> str:
     return "(ROOT (S " + " ".join(f"({t} {w})" for t, w in zip(tags, tokens, strict=True)) + "))"
 
 
-@lru_cache(maxsize=1)
+@lru_cache(maxsize=4)
 def gum_grammar_bytes(train_files: int = TRAIN_FILES) -> bytes:
-    """A grammar trained on the first ``train_files`` GUM files, saved form (cached)."""
-    import tempfile
-
+    """A grammar trained on the first ``train_files`` GUM files, saved form. Trained once per
+    test run: the file is shared by the pytest-xdist workers (tests.parser.gum_grammar)."""
+    from tests.parser.gum_grammar import trained_path
     from tests.shared_data import gum_files
 
-    trees = []
-    for path in gum_files()[:train_files]:
-        trees.extend(read_trees(path.read_text(encoding="utf-8"), source=path.name))
-    grammar = train_grammar(trees)
-    with tempfile.TemporaryDirectory() as tmp:
-        out = Path(tmp) / "g.npz"
-        grammar.save(out)
-        return out.read_bytes()
+    def trees() -> list:
+        out = []
+        for path in gum_files()[:train_files]:
+            out.extend(read_trees(path.read_text(encoding="utf-8"), source=path.name))
+        return out
+
+    return trained_path(f"gum-first-{train_files}", trees).read_bytes()
 
 
 def heldout_gum_trees(limit: int, min_words: int = 3, max_words: int = 40) -> list:

@@ -55,7 +55,7 @@ def split_trees() -> tuple[tuple[Tree, ...], tuple[Tree, ...]]:
     return train, test
 
 
-def _trained(name: str, trees: Callable[[], Sequence[Tree]]) -> Path:
+def trained_path(name: str, trees: Callable[[], Sequence[Tree]]) -> Path:
     """The path of the default grammar trained on ``trees()``, trained by the first process
     of the run that asks for it."""
     path = _CACHE / f"{name}.npz"
@@ -71,7 +71,7 @@ def _trained(name: str, trees: Callable[[], Sequence[Tree]]) -> Path:
 @functools.cache
 def full_grammar_path() -> Path:
     """The default grammar trained on all shared trees, saved under a temporary folder."""
-    return _trained("gum-all", gum_trees)
+    return trained_path("gum-all", gum_trees)
 
 
 @functools.cache
@@ -82,7 +82,7 @@ def full_grammar() -> Grammar:
 @functools.cache
 def split_grammar_path() -> Path:
     """The default grammar trained on the training part of the split."""
-    return _trained("gum-split", lambda: split_trees()[0])
+    return trained_path("gum-split", lambda: split_trees()[0])
 
 
 @functools.cache
