@@ -26,8 +26,10 @@ Never lost, never twice in effect
       per worker; every worker sweeps every ``worker_stalled_seconds / 3`` seconds and puts
       the jobs of workers silent for ``worker_stalled_seconds`` back on the queue
       (procrastinate's ``get_stalled_jobs`` and ``retry_job``). The next worker takes the row
-      over: its owner (app.services.training.owner_gone: our own heartbeat, or a dead process
-      on the same host) is gone, so it trains the version again from the start.
+      over: its owner (app.services.owners.owner_gone: our own heartbeat, or a dead process
+      on the same host) is gone, so it trains the version (or finds the run) again from the
+      start. A retry that finds the owner alive (a slow worker) does nothing, and a process
+      whose run was taken over writes nothing (findings.take_run, findings._run).
     * The sweep also queues again a training row whose owner is gone (``fail_interrupted``
       with ``requeue``) and puts a job on the queue for every queued row that has none, so a
       row is picked up even if its queue job was lost or was never made (queued while the
@@ -267,18 +269,12 @@ def train_version(version_id: int) -> str:
 
 
 def find_inconsistencies(context: procrastinate.JobContext, run_id: int) -> str:
-    """The queue job of one findings run. A findings run records no owner: a delivery that
-    finds its run ``running`` again is a retry after its worker stopped (the queue runs one
-    job per row at a time and retries a running job only when its worker is silent), and
-    runs it again; the run's findings are written in one transaction at its end."""
+    """The queue job of one findings run: it runs only when it can take the run
+    (:func:`app.services.findings.take_run`: queued, or running under an owner that is gone),
+    so a retry of a run a live-but-slow worker still runs does nothing."""
     state = _worker()
-    taken = findings.claim_run(state.factory, run_id) is not None
-    if not taken:
-        with state.factory() as db:
-            run = db.get(FindingRun, run_id)
-            retried = context.job.attempts > 0
-            if run is None or run.status != RUN_RUNNING or not retried:
-                return "nothing to do: the run is finished or not queued"
+    if not findings.take_run(state.factory, run_id):
+        return "nothing to do: the run is finished or a live process runs it"
     findings.run_finder(state.factory, run_id)
     return "found"
 

@@ -640,6 +640,10 @@ class FindingRun(Base):
     message: Mapped[str] = mapped_column(Text, default="")
     created_at: Mapped[datetime] = mapped_column(DateTime, default=utcnow)
     finished_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
+    # the process running it (app.services.owners): a retry takes it over only when it is gone
+    owner_host: Mapped[str | None] = mapped_column(String(255), nullable=True)
+    owner_pid: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    heartbeat_at: Mapped[datetime | None] = mapped_column(DateTime, nullable=True)
 
 
 class FindingRow(Base):

@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import hashlib
 import logging
+import os
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -55,6 +56,7 @@ from app.models import (
     User,
     utcnow,
 )
+from app.services import owners
 from app.services.blind import unfinished_sentences
 from app.services.errors import BadInput, NotFound
 from app.services.paging import PageWindow
@@ -129,12 +131,35 @@ def claim_run(factory: sessionmaker[Session], only: int | None = None) -> int | 
             taken = db.execute(
                 update(FindingRun)
                 .where(FindingRun.id == run_id, FindingRun.status == RUN_QUEUED)
-                .values(status=RUN_RUNNING, message="finding")
+                .values(status=RUN_RUNNING, message="finding", **owners.owned_here())
                 .execution_options(synchronize_session=False)
             )
             db.commit()
             if getattr(taken, "rowcount", 0) == 1:
                 return int(run_id)
+
+
+def take_run(factory: sessionmaker[Session], run_id: int) -> bool:
+    """Make this process the owner of a run, as a queued run's job does: from ``queued``
+    (:func:`claim_run`), or from ``running`` when its owner is gone
+    (:func:`app.services.owners.owner_gone`: a worker killed mid-run). The take-over is a
+    compare-and-set on the owner and heartbeat read, so of two processes that find the same
+    abandoned run only one runs it again. False when the run is finished or a live process
+    runs it: a retry of a live-but-slow run does nothing."""
+    if claim_run(factory, run_id) is not None:
+        return True
+    with factory() as db:
+        run = db.get(FindingRun, run_id)
+        if run is None or run.status != RUN_RUNNING or not owners.owner_gone(run, utcnow()):
+            return False
+        moved = db.execute(
+            update(FindingRun)
+            .where(*owners.owner_seen(FindingRun, run, RUN_RUNNING))
+            .values(message="found again: the process that ran it stopped", **owners.owned_here())
+            .execution_options(synchronize_session=False)
+        )
+        db.commit()
+        return getattr(moved, "rowcount", 0) == 1
 
 
 def run_now(
@@ -154,6 +179,7 @@ def run_now(
         with_annotations=with_annotations,
         message="finding",
         created_at=utcnow(),
+        **owners.owned_here(),
     )
     db.add(run)
     db.commit()
@@ -163,20 +189,28 @@ def run_now(
 
 
 def fail_interrupted_runs(factory: sessionmaker[Session]) -> int:
-    """Mark runs left ``running`` by a process that died as failed. Commits."""
+    """Mark runs left ``running`` by a process that stopped (their owner is gone, see
+    :func:`app.services.owners.owner_gone`) as failed; a run a live process runs is left
+    alone. How many were failed. Commits."""
+    failed = 0
     with factory() as db:
-        result = db.execute(
-            update(FindingRun)
-            .where(FindingRun.status == RUN_RUNNING)
-            .values(
-                status=RUN_FAILED,
-                finished_at=utcnow(),
-                message="interrupted: the service stopped while it ran",
+        now = utcnow()
+        for run in db.scalars(select(FindingRun).where(FindingRun.status == RUN_RUNNING)).all():
+            if not owners.owner_gone(run, now):
+                continue
+            result = db.execute(
+                update(FindingRun)
+                .where(*owners.owner_seen(FindingRun, run, RUN_RUNNING))
+                .values(
+                    status=RUN_FAILED,
+                    finished_at=now,
+                    message="interrupted: the service stopped while it ran",
+                )
+                .execution_options(synchronize_session=False)
             )
-            .execution_options(synchronize_session=False)
-        )
+            failed += int(getattr(result, "rowcount", 0) or 0)
         db.commit()
-        return int(getattr(result, "rowcount", 0) or 0)
+        return failed
 
 
 def drain_runs(factory: sessionmaker[Session]) -> int:
@@ -245,25 +279,37 @@ def load_sources(
 def run_finder(
     factory: sessionmaker[Session], run_id: int, options: FinderOptions | None = None
 ) -> None:
-    """Run one claimed run to its end; a failure lands in the row, not in the caller."""
+    """Run one claimed run to its end, beating its heartbeat meanwhile; a failure lands in
+    the row, not in the caller."""
     try:
-        _run(factory, run_id, options)
+        with owners.Heartbeat(factory, FindingRun, run_id, RUN_RUNNING):
+            _run(factory, run_id, options)
     except Exception as exc:  # noqa: BLE001 - every failure must reach the row
         log.exception("findings run %s failed", run_id)
         with factory() as db:
             db.execute(
                 update(FindingRun)
-                .where(FindingRun.id == run_id)
+                .where(
+                    FindingRun.id == run_id,
+                    FindingRun.status == RUN_RUNNING,
+                    FindingRun.owner_host == owners.HOST,
+                    FindingRun.owner_pid == os.getpid(),
+                )
                 .values(status=RUN_FAILED, message=f"failed: {exc}"[:2000], finished_at=utcnow())
             )
             db.commit()
+
+
+def _still_mine(run: FindingRun) -> bool:
+    """Whether this process still owns the running ``run``."""
+    return run.status == RUN_RUNNING and owners.owned_by_me(run)
 
 
 def _run(factory: sessionmaker[Session], run_id: int, options: FinderOptions | None) -> None:
     t0 = time.perf_counter()
     with factory() as db:
         run = db.get(FindingRun, run_id)
-        if run is None:
+        if run is None or not _still_mine(run):
             return
         sources, info = load_sources(db, run.corpus_id, with_annotations=run.with_annotations)
         found = find_inconsistencies(sources, options)
@@ -296,6 +342,14 @@ def _run(factory: sessionmaker[Session], run_id: int, options: FinderOptions | N
                     detail=f.detail,
                 )
             )
+        db.flush()
+        # only the run's owner writes its findings: a process that took it over meanwhile (this
+        # one was silent too long) writes its own; the row lock taken here orders the two
+        db.refresh(run, with_for_update=True)
+        if not _still_mine(run):
+            db.rollback()
+            log.warning("findings run %s was taken over by another process; not written", run_id)
+            return
         # older runs' findings are superseded; their runs stay as a record
         db.execute(
             delete(FindingRow).where(

@@ -72,7 +72,6 @@ import logging
 import math
 import multiprocessing
 import os
-import socket
 import tempfile
 import threading
 import time
@@ -109,6 +108,7 @@ from app.models import (
     Sentence,
     utcnow,
 )
+from app.services import owners
 from app.services import refinement as refinement_choice
 from app.services.admission import configure_from as configure_admission
 from app.services.admission import parallel_parses
@@ -130,14 +130,12 @@ from parser.scoring import score_corpus, score_pair
 from parser.trees import drop_empty_elements, read_tree, words
 
 log = logging.getLogger(__name__)
+#: This machine's name, recorded as the owner of the jobs its processes claim.
+HOST = owners.HOST
+HEARTBEAT_SECONDS = owners.HEARTBEAT_SECONDS
+STALE_AFTER = owners.STALE_AFTER
 
 ROOT_LABEL = "ROOT"
-#: This machine's name, recorded as the owner of the jobs its processes claim.
-HOST = socket.gethostname()[:255]
-#: Seconds between two heartbeats of a running job.
-HEARTBEAT_SECONDS = 10.0
-#: A job whose heartbeat is older than this (seconds) has lost its owner.
-STALE_AFTER = 6 * HEARTBEAT_SECONDS
 KICK_FLAG = "treewright_training_kick"
 #: Seconds between two progress writes to the database (a job writes far less often than this
 #: in its slow phases; the cap keeps the fast ones from hammering the row).
@@ -345,13 +343,7 @@ class _Progress:
 
 def _owned_here(message: str) -> dict[str, Any]:
     """The values that make this process the owner of a job that starts now."""
-    return {
-        "progress": 0.0,
-        "message": message,
-        "owner_host": HOST,
-        "owner_pid": os.getpid(),
-        "heartbeat_at": utcnow(),
-    }
+    return {"progress": 0.0, "message": message, **owners.owned_here()}
 
 
 def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int | None:
@@ -373,20 +365,9 @@ def claim(factory: sessionmaker[Session], version_id: int | None = None) -> int 
         return None
 
 
-def _same(column: Any, value: Any) -> Any:
-    """``column = value``, or ``column IS NULL`` for None (compare-and-set conditions)."""
-    return column.is_(None) if value is None else column == value
-
-
 def _owner_seen(version: GrammarVersion) -> tuple[Any, ...]:
     """The conditions that the row still has the owner and heartbeat read in ``version``."""
-    return (
-        GrammarVersion.id == version.id,
-        GrammarVersion.status == GV_TRAINING,
-        _same(GrammarVersion.owner_host, version.owner_host),
-        _same(GrammarVersion.owner_pid, version.owner_pid),
-        _same(GrammarVersion.heartbeat_at, version.heartbeat_at),
-    )
+    return owners.owner_seen(GrammarVersion, version, GV_TRAINING)
 
 
 def take(factory: sessionmaker[Session], version_id: int) -> bool:
@@ -411,44 +392,14 @@ def take(factory: sessionmaker[Session], version_id: int) -> bool:
         return cast(CursorResult[Any], moved).rowcount == 1
 
 
-class Heartbeat:
+class Heartbeat(owners.Heartbeat):
     """While a job runs, a thread of its process writes ``heartbeat_at`` every
     HEARTBEAT_SECONDS, so that other processes can tell a live job from an abandoned one."""
 
     def __init__(
         self, factory: sessionmaker[Session], version_id: int, every: float = HEARTBEAT_SECONDS
     ) -> None:
-        self.factory = factory
-        self.version_id = version_id
-        self.every = every
-        self._stop = threading.Event()
-        self._thread = threading.Thread(
-            target=self._beat, daemon=True, name=f"treewright-heartbeat-{version_id}"
-        )
-
-    def _beat(self) -> None:
-        while not self._stop.wait(self.every):
-            try:
-                with self.factory() as db:
-                    db.execute(
-                        update(GrammarVersion)
-                        .where(
-                            GrammarVersion.id == self.version_id,
-                            GrammarVersion.status == GV_TRAINING,
-                        )
-                        .values(heartbeat_at=utcnow())
-                    )
-                    db.commit()
-            except Exception:  # noqa: BLE001 - a missed beat is retried at the next one
-                log.warning("heartbeat of grammar version %s failed", self.version_id)
-
-    def __enter__(self) -> Heartbeat:
-        self._thread.start()
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._stop.set()
-        self._thread.join(timeout=self.every + 5)
+        super().__init__(factory, GrammarVersion, version_id, GV_TRAINING, every)
 
 
 def run_version(factory: sessionmaker[Session], version_id: int) -> None:
@@ -832,37 +783,22 @@ def run_training(
         return row
 
 
-def process_alive(pid: int) -> bool:
-    """Whether a process with this id runs on this host (signal 0 checks without sending)."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # it exists, under another user
-        return True
-    return True
-
-
 def owner_gone(version: GrammarVersion, now: datetime) -> bool:
     """Whether the process that claimed a ``training`` job no longer runs it: its heartbeat is
     older than STALE_AFTER seconds, or it ran on this host and its process has ended. A job
     claimed before owners were recorded has none and counts as abandoned."""
-    beat = version.heartbeat_at
-    if version.owner_pid is None or beat is None:
-        return True
-    if (now - beat).total_seconds() > STALE_AFTER:
-        return True
-    return version.owner_host == HOST and not process_alive(version.owner_pid)
+    return owners.owner_gone(version, now)
 
 
 def fail_interrupted(factory: sessionmaker[Session], *, requeue: bool = False) -> int:
     """Mark the jobs in ``training`` whose owner is gone (see :func:`owner_gone`) as failed;
     a job another live process trains is left alone. Findings runs left ``running`` are
-    failed too. How many jobs were failed. Commits.
+    failed too (those whose owner is gone). How many jobs were failed. Commits.
 
     ``requeue`` (the worker queue, app.jobs): put such jobs back to ``queued`` instead, to be
     run again from the start under the same version row and number; findings runs are left
-    to the queue's own recovery there, since they record no owner."""
+    to the queue's own retry there, which takes a run over only when its owner is gone
+    (:func:`app.services.findings.take_run`)."""
     failed = 0
     with factory() as db:
         now = utcnow()

@@ -30,12 +30,14 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0011")
+    command.downgrade(cfg, "0012")
     engine = create_engine(settings.resolved_database_url)
     try:
-        tables = set(inspect(engine).get_table_names())
+        inspector = inspect(engine)
+        tables = set(inspector.get_table_names())
+        run_columns = {c["name"] for c in inspector.get_columns("finding_runs")}
     finally:
         engine.dispose()
-    assert "queue_counts" not in tables and "corpus_members" in tables
+    assert "queue_counts" in tables and "heartbeat_at" not in run_columns
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []
