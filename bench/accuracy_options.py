@@ -12,8 +12,12 @@ are the feature annotations of parser.annotate (Klein and Manning 2003), markovi
 the variable-order threshold min_context) and the factoring, and the lexicon smoothing
 parameters of parser.lexicon, and split-merge refinement (parser.latent; ``refine=N``: N
 cycles from the default grammar, parsed with the exported refined grammar, whose posteriors
-the chart projects onto ordinary labels); whatever an option does not name is the library's
-default. ``--limit N`` parses only the first N test sentences (every row the same ones).
+the chart projects onto ordinary labels; ``refined=N``: N cycles from the coarse base grammar
+parser.latent.COARSE_BASE, as the service trains them, parsed coarse-to-fine); whatever an
+option does not name is the library's default. ``--limit N`` parses only the first N test
+sentences (every row the same ones). ``--split last|first|middle`` holds out the last 10
+files (default), the first 10, or the 46th to 55th, and trains on the other 89.
+``--gold-tags`` parses with the gold POS tags fixed instead of words only.
 """
 
 from __future__ import annotations
@@ -27,9 +31,9 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from parser.binarize import clean_tree  # noqa: E402
-from parser.chart import parse  # noqa: E402
+from parser.chart import Constraints, parse  # noqa: E402
 from parser.grammar import DEFAULT_FEATURES, train_grammar  # noqa: E402
-from parser.latent import DEFAULT_PRUNE, RefineOptions, refine  # noqa: E402
+from parser.latent import DEFAULT_PRUNE, RefineOptions, refine, train_refined  # noqa: E402
 from parser.scoring import score_corpus  # noqa: E402
 from parser.trees import read_trees  # noqa: E402
 
@@ -63,7 +67,10 @@ OPTIONS: dict[str, dict] = {
     "default,v=3,min-context=0": {"vertical": 3, "min_context": 0},
     "refine=1": {"refine": 1},
     "refine=2": {"refine": 2},
+    "refined=3": {"refined": 3},
+    "refined=4": {"refined": 4},
 }
+SPLITS = {"last": range(89, 99), "first": range(0, 10), "middle": range(45, 55)}
 
 
 def _read(path: Path) -> list:
@@ -82,26 +89,43 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--only", nargs="*", choices=sorted(OPTIONS))
     ap.add_argument("--limit", type=int, default=None, help="parse only the first N test sentences")
+    ap.add_argument("--split", choices=sorted(SPLITS), default="last")
+    ap.add_argument("--gold-tags", action="store_true", help="fix the gold POS tags")
     args = ap.parse_args()
-    files = sorted(GUM.glob("*.ptb"))
+    files = sorted(GUM.glob("*.ptb"))[:99]
     if len(files) < 99:
         sys.exit(f"expected the shared GUM trees at {GUM}")
-    train = [t for f in files[:89] for t in _read(f)]
-    gold = [c for f in files[89:] for t in _read(f) if len((c := clean_tree(t)).leaves()) <= 40][
+    held = SPLITS[args.split]
+    train = [t for i, f in enumerate(files) if i not in held for t in _read(f)]
+    gold = [c for i in held for t in _read(files[i]) if len((c := clean_tree(t)).leaves()) <= 40][
         : args.limit
     ]
-    print(f"train {len(train)} trees, test {len(gold)} sentences (<= 40 words)", flush=True)
+    print(
+        f"split {args.split}: train {len(train)} trees, test {len(gold)} sentences (<= 40 words)"
+        + (", gold tags" if args.gold_tags else ", words only"),
+        flush=True,
+    )
     for name in args.only or list(OPTIONS):
         t0 = time.process_time()
         options = dict(OPTIONS[name])
         cycles = options.pop("refine", 0)
-        g = train_grammar(train, **options)
+        refined = options.pop("refined", 0)
+        g = train_refined(train, refined, progress=_progress) if refined else None
+        g = g or train_grammar(train, **options)
         if cycles:
             g = refine(g, train, RefineOptions(cycles=cycles), progress=_progress).to_grammar(
                 prune=DEFAULT_PRUNE
             )
         t1 = time.process_time()
-        results = [parse(g, t.leaves(), posteriors=True) for t in gold]
+        results = [
+            parse(
+                g,
+                t.leaves(),
+                posteriors=True,
+                constraints=Constraints(tags=[p for _, p in t.pos()]) if args.gold_tags else None,
+            )
+            for t in gold
+        ]
         t2 = time.process_time()
         viterbi = score_corpus(zip(gold, [r.trees[0] for r in results], strict=True))
         score = score_corpus(zip(gold, [r.consensus or r.trees[0] for r in results], strict=True))

@@ -1,7 +1,7 @@
 """Parser speed, side by side in one run: our Viterbi against NLTK's ViterbiParser (reference
 library) on the same grammar and sentences, then our own times by sentence length.
 
-Usage: python bench/parse_speed.py [--quick]
+Usage: python bench/parse_speed.py [--quick] [--refine N]
 
 Prints: training time on all shared GUM trees (Zeldes 2017), grammar load time, per-sentence
 NLTK/ours ratios on five held-out sentences of 11-20 words (CPU time, both on one thread: NLTK
@@ -14,6 +14,12 @@ The comparison grammar is trained with the service's own defaults (the same mark
 annotation as a corpus's grammar): on every GUM tree but the test sentences' files for the
 full run, on the first 1,500 trees with ``--quick`` (a grammar of several hundred symbols; its
 size is printed). The test sentences are never in its training trees.
+
+With ``--refine N`` it also trains the refined grammar of N split-merge cycles
+(parser.latent.train_refined) on all GUM trees (CPU seconds and peak memory of the training,
+its file size and load time) and prints the length table for it beside the plain grammar's,
+all single-threaded CPU time, with one more column: a constrained re-parse with two pinned
+gold constituents (k = 10 and posteriors, as the Bench's re-parse asks).
 """
 
 from __future__ import annotations
@@ -33,10 +39,11 @@ sys.path.insert(0, str(ROOT))
 import numba  # noqa: E402
 from nltk.parse import ViterbiParser  # noqa: E402
 
-from parser.chart import parse  # noqa: E402
+from parser.chart import Constraints, parse  # noqa: E402
 from parser.grammar import Grammar, train_grammar  # noqa: E402
+from parser.latent import train_refined  # noqa: E402
 from parser.nltk_bridge import to_nltk  # noqa: E402
-from parser.trees import read_trees  # noqa: E402
+from parser.trees import constituents, read_trees  # noqa: E402
 
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
 
@@ -67,6 +74,7 @@ def _cpu(fn, repeats: int = 1) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true")
+    ap.add_argument("--refine", type=int, default=0, help="also time a refined grammar")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
     if not files:
@@ -138,10 +146,57 @@ def main() -> None:
         print(f"len {n:2d}: " + " | ".join(f"{1000 * c:8.1f}" for c in cols))
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"peak memory: {peak:.0f} MB")
+    if args.refine:
+        _refined_rows(trees, g, args.refine, n_sent, repeats)
     print(
         f"speedup_vs_nltk_len11_20={statistics.median(ratios):.0f} (median of {len(ratios)} "
         "sentences, CPU time, one thread each)"
     )
+
+
+def _refined_rows(trees: list, plain: Grammar, cycles: int, n_sent: int, repeats: int) -> None:
+    t0 = time.process_time()
+    g = train_refined(trees, cycles)
+    train_s = time.process_time() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "g.npz"
+        g.save(path)
+        size = path.stat().st_size
+        load_s = _median_time(lambda: Grammar.load(path), 5)
+        g = Grammar.load(path)
+    print(
+        f"refined, {cycles} cycles: training {train_s:.1f} s CPU, peak memory {peak:.0f} MB, "
+        f"file {size / 1e6:.1f} MB, load {1000 * load_s:.0f} ms ({g!r})"
+    )
+    numba.set_num_threads(1)
+    by_len: dict[int, list] = {}
+    for t in trees:
+        by_len.setdefault(len(t.leaves()), []).append(t)
+    print(
+        "single thread, median CPU ms: viterbi | k=10 | posteriors | best+k=10+posteriors | "
+        "pins+k=10+posteriors"
+    )
+    for name, grammar in (("plain", plain), ("refined", g)):
+        parse(grammar, ["warm", "up", "."], k=2, posteriors=True)
+        for n in (10, 20, 30, 40):
+            group = by_len.get(n, [])[:n_sent]
+            cols = []
+            for kw in ({}, {"k": 10}, {"posteriors": True}, {"k": 10, "posteriors": True}, None):
+                runs = []
+                for t in group:
+                    if kw is None:
+                        pins = [(s, e, lab) for lab, s, e in constituents(t)[1:3]]
+                        kw2: dict = {"k": 10, "posteriors": True}
+                        kw2["constraints"] = Constraints(required=pins)
+                    else:
+                        kw2 = kw
+                    runs.append(
+                        _cpu(lambda t=t, kw2=kw2, gr=grammar: parse(gr, t.leaves(), **kw2), repeats)
+                    )
+                cols.append(statistics.median(runs))
+            print(f"{name:8s} len {n:2d}: " + " | ".join(f"{1000 * c:8.1f}" for c in cols))
+    numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
 
 
 if __name__ == "__main__":
