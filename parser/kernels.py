@@ -29,6 +29,12 @@ the constraint strict; a small probability (the *relabel back-off*) lets any nod
 stand in for the required label at that price, so a required labelled span never empties the
 chart (the caller puts the label on the node afterwards).
 
+Coarse-to-fine pruning enters as ``allow[s, a]`` (with ``use_allow``; otherwise a dummy
+array): a cell not allowed gets no bottom and no top score, so nothing is built from it; the
+outside pass needs no mask (a pruned cell has inside score 0). With ``want_symbols`` the
+outside pass also returns the posterior of each (span, symbol), the larger of its top and
+bottom node's, which a coarser grammar's pass hands to the finer one as its mask.
+
 Binary rules come grouped by their right-hand side (``p_left[q] p_right[q]`` for the rules
 ``p_off[q]:p_off[q + 1]``, each with its parent and weight), so that the loop over split points
 runs once per distinct pair of children rather than once per rule (a GUM grammar has about

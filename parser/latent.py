@@ -41,6 +41,14 @@ accurate, compact, and interpretable tree annotation", ACL; details from memory)
     sub-symbols of each label, so its span posteriors are the refined grammar's posteriors
     projected onto ordinary labels, and the consensus tree decodes them.
 
+    Parsing: the exported grammar is parsed coarse-to-fine by :func:`parser.chart.parse`
+    (Petrov and Klein 2007): :func:`coarse_grammar` projects it onto its base symbols, that
+    grammar's posteriors under the same constraints prune the refined chart
+    (:data:`parser.chart.REFINED_PRUNE`), and the consensus tree decodes the refined
+    posteriors projected onto ordinary labels. :func:`train_refined` starts from
+    :data:`COARSE_BASE`, not from the annotated default: split from the annotated grammar the
+    sub-symbols overfit (see the figures there).
+
 Complexity: an EM pass is O(sum over nodes of k_parent k_left k_right); memory O(nodes x k)
 plus the lexicon, O(tag sub-symbols x lexicon columns). Limits: the trees must be exactly
 those the base grammar was trained on (same options), or at least use no rule it lacks; the
