@@ -1,6 +1,6 @@
 """How long an annotator waits on the Bench: page to drawn suggestion, save, re-parse.
 
-Usage: python bench/bench_page.py [--loads 20] [--saves 50]
+Usage: python bench/bench_page.py [--loads 20] [--saves 50] [--scale 20000]
 
 Trains a grammar on the shared GUM trees (Zeldes 2017, CC BY; ../shared/data/gum-trees), all
 of them but the held-out 30-word test sentences (the first ones in file order). A fresh
@@ -8,11 +8,16 @@ SQLite database gets one annotator, a corpus of those sentences and the grammar;
 (uvicorn subprocess on loopback) and headless Chromium (/usr/bin/chromium) do the rest:
 
 * page to suggestion: the time from the start of navigation to the moment bench.js has drawn
-  the tree (its ``bench-drawn`` performance mark), for ``--loads`` different 30-word sentences,
-  once with their suggestions parsed on the request (nothing cached yet: the page's fast path
-  parses the k best trees; the span posteriors follow in a second request, timed too) and
-  once with them cached in the Suggestion table beforehand (what ``refresh_unstarted`` does
-  after a grammar becomes active);
+  the tree (its ``bench-drawn`` performance mark), for ``--loads`` different 30-word sentences:
+  opened cold (nothing cached: the first opening parses completely and fixes the sentence's
+  start), the same sentences opened again (the same start, read from the Suggestion table),
+  and ``--loads`` other sentences whose suggestions were cached beforehand (what the
+  look-ahead refresh does after a grammar becomes active);
+
+``--scale N`` uses instead the N-sentence corpus of bench/scale.py's generator (GUM words cut
+into sentences of 5-40, GUM gold, pairs; its annotator ``reader`` has all N sentences in the
+queue), with the grammar trained on every GUM tree; the 30-word sentences are picked from the
+reader's queue, and the re-parse pins come from the tree the page drew (no gold for them).
 * save round trip: ``fetch`` of POST /api/bench/{id}/revisions from the page, ``--saves``
   times, each based on the previous head;
 * constrained re-parse: POST /api/bench/{id}/reparse from the page with two or three gold
@@ -33,16 +38,17 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
 
 from sqlalchemy import select  # noqa: E402
 
 from app.main import create_app  # noqa: E402
-from app.models import ROLE_ANNOTATOR, GrammarVersion, Sentence, User  # noqa: E402
+from app.models import ROLE_ANNOTATOR, Corpus, GrammarVersion, Sentence, User  # noqa: E402
 from app.security import hash_password  # noqa: E402
 from app.services import suggestions  # noqa: E402
 from app.settings import Settings  # noqa: E402
 from parser.grammar import train_grammar  # noqa: E402
-from parser.trees import constituents, pos_tags, read_trees, words  # noqa: E402
+from parser.trees import constituents, pos_tags, read_tree, read_trees, words  # noqa: E402
 from tests.app.bench_helpers import assign, install_grammar, make_corpus  # noqa: E402
 from tests.app.live_server import LiveServer  # noqa: E402
 
@@ -74,6 +80,7 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--loads", type=int, default=20)
     ap.add_argument("--saves", type=int, default=50)
+    ap.add_argument("--scale", type=int, default=0, help="the scale generator's corpus size")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
     if not files:
@@ -94,22 +101,51 @@ def main() -> None:
     )
     rng = random.Random(7)
 
+    username, password = "bench", PASSWORD
     with tempfile.TemporaryDirectory(prefix="tw-bench-page-") as tmp:
         settings = Settings(data_dir=Path(tmp), secret_key="bench", login_delay_seconds=0.05)
+        if args.scale:
+            import scale
+
+            t0 = time.perf_counter()
+            built = scale.build(settings, args.scale, everything)
+            print(
+                f"scale corpus of {args.scale} raw sentences built in "
+                f"{time.perf_counter() - t0:.0f} s"
+            )
+            username, password = "reader", scale.PASSWORD
         app = create_app(settings)
         with app.state.sessionmaker() as db:
-            user = User(
-                username="bench",
-                display_name="Bench Annotator",
-                role=ROLE_ANNOTATOR,
-                password_hash=hash_password(PASSWORD),
-            )
-            db.add(user)
-            db.commit()
-            corpus, sentences = make_corpus(
-                db, [" ".join(words(t)) for t in gold], name="GUM test slice", labels=[], tags=[]
-            )
-            assign(db, sentences, user)
+            if args.scale:
+                corpus = db.get(Corpus, built["corpus"])
+                sentences = [
+                    s
+                    for s in db.scalars(
+                        select(Sentence)
+                        .where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
+                        .order_by(Sentence.id)
+                    )
+                    if len(s.tokens) == LENGTH
+                ][:need]
+                if len(sentences) < need:
+                    sys.exit(f"only {len(sentences)} {LENGTH}-word sentences; need {need}")
+            else:
+                user = User(
+                    username=username,
+                    display_name="Bench Annotator",
+                    role=ROLE_ANNOTATOR,
+                    password_hash=hash_password(PASSWORD),
+                )
+                db.add(user)
+                db.commit()
+                corpus, sentences = make_corpus(
+                    db,
+                    [" ".join(words(t)) for t in gold],
+                    name="GUM test slice",
+                    labels=[],
+                    tags=[],
+                )
+                assign(db, sentences, user)
             grammar_file = Path(tmp) / "g.npz"
             grammar.save(grammar_file)
             version = install_grammar(db, corpus, grammar_file.read_bytes())
@@ -143,8 +179,8 @@ def main() -> None:
             )
             page = browser.new_page(viewport={"width": 1400, "height": 900})
             page.goto(f"{server.url}/login")
-            page.fill("input[name=username]", "bench")
-            page.fill("input[name=password]", PASSWORD)
+            page.fill("input[name=username]", username)
+            page.fill("input[name=password]", password)
             page.click("button[type=submit]")
             page.wait_for_load_state("load")
 
@@ -164,7 +200,13 @@ def main() -> None:
             first = load(warm_id, wait_doubts=True)
             print(f"first load after server start (loads the grammar): {first:.0f} ms")
             doubts.clear()
-            cold = [load(sid, wait_doubts=True) for sid in cold_ids]
+            cold, drawn_trees = [], []
+            for sid in cold_ids:
+                cold.append(load(sid, wait_doubts=True))
+                drawn_trees.append(
+                    read_tree(page.get_attribute("#tree-pane svg.tw-tree", "data-tree"))
+                )
+            again = [load(sid) for sid in cold_ids]  # the same starts, now cached
             cached = [load(sid) for sid in cached_ids]
 
             # saves from the page, each on top of the previous head
@@ -199,7 +241,8 @@ def main() -> None:
             )
 
             reparse_ms = []
-            for sid, tree in zip(cold_ids, gold[1 : args.loads + 1], strict=True):
+            pin_from = drawn_trees if args.scale else gold[1 : args.loads + 1]
+            for sid, tree in zip(cold_ids, pin_from, strict=True):
                 spans = constituents(tree)[1:]
                 pins = {
                     "spans": [
@@ -236,7 +279,8 @@ def main() -> None:
     line("server-side full parse (k best + posteriors)", parse_s, None)
     line(f"page to drawn suggestion, {LENGTH} words, parsed", cold, 1000)
     line(f"page to doubt marks (posteriors), {LENGTH} words", doubts, None)
-    line(f"page to drawn suggestion, {LENGTH} words, cached", cached, 1000)
+    line("same sentences opened again (same start, cached)", again, 1000)
+    line(f"page to drawn suggestion, {LENGTH} words, cached ahead", cached, 1000)
     line("save round trip", save_ms, 50)
     line(f"constrained re-parse, {LENGTH} words", reparse_ms, 500)
 

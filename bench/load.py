@@ -26,6 +26,12 @@ errors (any non-2xx answer or failed connection), beside the target p95 save < 1
 ``--compare-with`` it runs the same load on SQLite and on that PostgreSQL server and prints
 the two side by side. Clients and server share this machine's cores, so the figures include
 the clients' own cost.
+
+``--scale N`` replaces the demo corpus (whose few raw sentences are soon all parsed, so most
+``suggest`` figures are cached reads) by the N-sentence corpus of bench/scale.py's generator
+with a grammar trained on every GUM tree (Zeldes 2017, CC BY; ../shared/data/gum-trees); each
+client is assigned ``--per-client`` of its raw sentences (two annotators per sentence), so a
+``suggest`` mostly parses a sentence nobody asked for before, as on a large corpus.
 """
 
 from __future__ import annotations
@@ -43,6 +49,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
 
 import httpx  # noqa: E402
 from sqlalchemy import create_engine, select, text  # noqa: E402
@@ -100,23 +107,59 @@ def drop_database(database_url: str, name: str) -> None:
     admin.dispose()
 
 
-def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[int, list[str]]]:
-    """Demo corpus, a grammar on its gold, one annotator per client; returns each
-    annotator's sentence ids and each sentence's words as a tree spells them."""
+def _scale_corpus(settings: Settings, size: int) -> int:
+    """bench/scale.py's corpus of ``size`` raw sentences with a grammar trained on every GUM
+    tree, active; its id."""
+
+    import scale
+
+    from parser.grammar import train_grammar
+    from tests.app.bench_helpers import install_grammar
+
+    trees = scale.gum_trees()
+    t0 = time.perf_counter()
+    ids = scale.build(settings, size, trees)
+    grammar = train_grammar(trees)
+    engine = make_engine(settings)
+    try:
+        with make_sessionmaker(engine)() as db, tempfile.TemporaryDirectory() as tmp:
+            grammar.save(Path(tmp) / "g.npz")
+            corpus = db.get(Corpus, ids["corpus"])
+            install_grammar(db, corpus, (Path(tmp) / "g.npz").read_bytes())
+    finally:
+        engine.dispose()
+    print(f"scale corpus of {size} sentences and its grammar in {time.perf_counter() - t0:.0f} s")
+    return ids["corpus"]
+
+
+def seed(
+    settings: Settings, clients: int, scale_size: int = 0, per_client: int = 200
+) -> tuple[dict[str, list[int]], dict[int, list[str]], int]:
+    """Demo corpus (or the scale corpus), a grammar, one annotator per client; returns each
+    annotator's sentence ids, each sentence's words as a tree spells them and the corpus."""
     upgrade_to_head(settings)
+    scale_corpus = _scale_corpus(settings, scale_size) if scale_size else None
     engine = make_engine(settings)
     db = make_sessionmaker(engine)()
     try:
-        for path in sorted(DEMO_DIR.glob("gold_*.ptb")):
-            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="gold")
-        for path in sorted(DEMO_DIR.glob("raw_*.txt")):
-            import_bytes(db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="text")
-        corpus = db.scalar(select(Corpus).where(Corpus.name == CORPUS))
-        assert corpus is not None
-        # the gold import queued the first version; train it here, as the demo does
-        version = run_training(make_sessionmaker(engine), corpus.id, reason="load test")
-        if version.status != "ready":
-            sys.exit(f"the grammar did not train: {version.status} {version.message}")
+        if scale_corpus is None:
+            for path in sorted(DEMO_DIR.glob("gold_*.ptb")):
+                import_bytes(
+                    db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="gold"
+                )
+            for path in sorted(DEMO_DIR.glob("raw_*.txt")):
+                import_bytes(
+                    db, path.read_bytes(), source=path.name, corpus_name=CORPUS, kind="text"
+                )
+            corpus = db.scalar(select(Corpus).where(Corpus.name == CORPUS))
+            assert corpus is not None
+            # the gold import queued the first version; train it here, as the demo does
+            version = run_training(make_sessionmaker(engine), corpus.id, reason="load test")
+            if version.status != "ready":
+                sys.exit(f"the grammar did not train: {version.status} {version.message}")
+        else:
+            corpus = db.get(Corpus, scale_corpus)
+            assert corpus is not None
         password_hash = hash_password(PASSWORD)
         users = [
             User(
@@ -129,11 +172,15 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
         ]
         db.add_all(users)
         db.flush()
-        rows = db.execute(
+        query = (
             select(Sentence.id, Sentence.tokens)
             .where(Sentence.corpus_id == corpus.id, Sentence.state == "queued")
             .order_by(Sentence.id)
-        ).all()
+        )
+        if scale_corpus is not None:  # the last ones: the first carry the pairs' annotations
+            last = clients * per_client // 2
+            query = query.order_by(None).order_by(Sentence.id.desc()).limit(last)
+        rows = db.execute(query).all()
         raw = [sid for sid, _ in rows]
         words = {sid: [escape_word(str(w)) for w in tokens] for sid, tokens in rows}
         mine: dict[str, list[int]] = {u.username: [] for u in users}
@@ -143,7 +190,7 @@ def seed(settings: Settings, clients: int) -> tuple[dict[str, list[int]], dict[i
                     db.add(Assignment(sentence_id=sid, user_id=u.id))
                     mine[u.username].append(sid)
         db.commit()
-        return mine, words
+        return mine, words, corpus.id
     finally:
         db.close()
         engine.dispose()
@@ -215,11 +262,7 @@ def run(database_url: str | None, args: argparse.Namespace) -> Tally:
     folder = Path(tempfile.mkdtemp(prefix="tw-load-"))
     settings, pg_name = fresh_settings(folder / "data", database_url)
     try:
-        mine, words = seed(settings, args.clients)
-        engine = make_engine(settings)
-        with engine.connect() as conn:
-            corpus_id = conn.execute(select(Corpus.id).where(Corpus.name == CORPUS)).scalar()
-        engine.dispose()
+        mine, words, corpus_id = seed(settings, args.clients, args.scale, args.per_client)
         tally = Tally()
         lock = threading.Lock()
         with LiveServer(settings, workers=args.workers, log=folder / "server.log") as server:
@@ -302,6 +345,8 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=30.0)
     ap.add_argument("--warmup", type=float, default=5.0)
     ap.add_argument("--workers", type=int, default=1)
+    ap.add_argument("--scale", type=int, default=0, help="the scale generator's corpus size")
+    ap.add_argument("--per-client", type=int, default=200)
     ap.add_argument(
         "--think",
         type=float,
