@@ -39,6 +39,7 @@ sys.path.insert(0, str(ROOT))
 import numba  # noqa: E402
 from nltk.parse import ViterbiParser  # noqa: E402
 
+from parser.binarize import clean_tree  # noqa: E402
 from parser.chart import Constraints, parse  # noqa: E402
 from parser.grammar import Grammar, train_grammar  # noqa: E402
 from parser.latent import train_refined  # noqa: E402
@@ -186,7 +187,7 @@ def _refined_rows(trees: list, plain: Grammar, cycles: int, n_sent: int, repeats
                 runs = []
                 for t in group:
                     if kw is None:
-                        pins = [(s, e, lab) for lab, s, e in constituents(t)[1:3]]
+                        pins = [(s, e, lab) for lab, s, e in constituents(clean_tree(t))[1:3]]
                         kw2: dict = {"k": 10, "posteriors": True}
                         kw2["constraints"] = Constraints(required=pins)
                     else:
