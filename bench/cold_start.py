@@ -1,29 +1,41 @@
 """Cold start: labelled F1 on a new domain from its first in-domain gold trees, side by side.
 
-Usage: python bench/cold_start.py [--genre interview] [--test 60] [--candidates 120]
-                                  [--rows 0,25,50,100,200,300] [--no-table] [--no-job]
+Usage: python bench/cold_start.py [--genres interview,voyage] [--test 130] [--draws 3]
+                                  [--rows 0,100,300] [--columns plain,auto]
+                                  [--extra "3;prior=200"] [--candidates 120] [--no-job]
 
-Open data set: GUM (Zeldes 2017), ../shared/data/gum-trees. One GUM genre plays the new
-domain: its documents sorted by name, the last four are the test set (whole documents,
-sentences of at most 40 words, parsed from words only; every second sentence, at most
-``--test`` of them: a subsample, to keep the run short on a shared machine), the others the
-in-domain pool; the other genres are the reference trees. Labelled bracket F1 by
-parser.scoring (its defaults) of the consensus tree, the tree annotators start from.
+Open data set: GUM (Zeldes 2017), ../shared/data/gum-trees. Each GUM genre named plays the new
+domain in turn: its documents sorted by name, the last four are the test set (whole
+documents, sentences of at most 40 words, parsed from words only; ``--test`` of them spread
+evenly over the four documents), the others the in-domain pool; the other genres are the
+reference trees. The in-domain trees therefore never come from a test document. Labelled
+bracket F1 by parser.scoring (its defaults) of the consensus tree, the tree annotators start
+from.
 
-Rows: in-domain gold trees used. Columns:
-  in-domain only      the first N pool trees in document order, no reference;
-  ref+in plain        reference + the same N trees, plain counts;
-  ref+in auto         reference + the same N trees, the weighting chosen as the service does
-                      (parser.adapt: every 10th in-domain tree held out, a grid scored on them
-                      once there are 20, the default before; the final grammar on all N);
-  auto, informative   the same, with the N trees picked most informative first: at each row the
-                      pool is ranked by the previous row's grammar (tree entropy per word,
-                      Hwa 2004) and the most uncertain trees are added, as the service's queue
-                      does. Only ``--candidates`` randomly drawn (seeded) unpicked pool
-                      sentences are ranked per row, to keep the run short.
-Then the weight chosen per row and, last, the time to train with every other genre as
-reference + 300 in-domain trees and the auto grid (CPU seconds and wall seconds; the machine's
-load shows beside them).
+Draws: the in-domain trees of a row are the first N trees of the pool with its documents in
+a random order (one order per draw, seeded), whole documents first as a team would annotate
+them. Each cell is the mean over ``--draws`` draws with the standard deviation over the
+draws beside it; the reference-alone row has no draw. With 130 test sentences one point of
+F1 is about the size of the differences between two draws of the in-domain trees, so a
+difference smaller than the spread is noise.
+
+Columns (``--columns``, any of):
+  only         the N in-domain trees alone, no reference;
+  plain        reference + the N trees, plain counts;
+  auto         reference + the N trees, the weighting chosen as the service does
+               (parser.adapt: every 10th in-domain tree held out, a grid scored on them once
+               there are 20, the default before; the final grammar on all N);
+  informative  the same as auto, with the N trees picked most informative first: at each row
+               the pool is ranked by the previous row's grammar (tree entropy per word, Hwa
+               2004) and the most uncertain trees are added, as the service's queue does. Only
+               ``--candidates`` randomly drawn (seeded) unpicked pool sentences are ranked per
+               row, to keep the run short.
+A row of N at least the pool's size uses the whole pool (one draw: every draw is the same).
+``--extra`` adds one column per fixed weighting (parser.adapt.parse_weighting text, separated
+by ``;``), counted with plain counts in one pass.
+After the first genre's table, the time to train with every other genre as reference + 300
+in-domain trees and the auto grid (CPU seconds and wall seconds; the machine's load shows
+beside them).
 """
 
 from __future__ import annotations
@@ -31,9 +43,9 @@ from __future__ import annotations
 import argparse
 import os
 import random
+import statistics
 import sys
 import time
-from collections.abc import Callable
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -41,13 +53,20 @@ sys.path.insert(0, str(ROOT))
 
 from nltk import Tree  # noqa: E402
 
-from parser.adapt import choose_weighting, describe, heldout_f1, heldout_split  # noqa: E402
+from parser.adapt import (  # noqa: E402
+    choose_weighting,
+    describe,
+    heldout_f1,
+    heldout_split,
+    parse_weighting,
+)
 from parser.binarize import clean_tree  # noqa: E402
 from parser.chart import tree_entropy  # noqa: E402
-from parser.grammar import Grammar, Weighting, train_grammar  # noqa: E402
+from parser.grammar import Grammar, Weighting, train_grammar, train_weighted  # noqa: E402
 from parser.trees import read_trees  # noqa: E402
 
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
+COLUMNS = ("only", "plain", "auto", "informative")
 
 
 def _rooted(tree: Tree) -> Tree:
@@ -62,11 +81,15 @@ def _read(path: Path) -> list[Tree]:
     return [_rooted(t) for t in read_trees(path.read_text(encoding="utf-8"), source=str(path))]
 
 
+def _load() -> str:
+    return "load " + " ".join(f"{x:.1f}" for x in os.getloadavg())
+
+
 def _auto(
     trees: list[Tree], reference: list[Tree], plain: Grammar | None = None
 ) -> tuple[Grammar, Weighting]:
-    """The grammar the service would train; ``plain`` (already trained with plain counts on
-    the same trees) is reused when the choice is plain counts."""
+    """The grammar the service would train, and its weighting; ``plain`` (already trained
+    with plain counts on the same trees) is reused when the choice is plain counts."""
     train, held = heldout_split(trees)
     choice = choose_weighting(train, held, reference)
     if plain is not None and choice.weighting == Weighting():
@@ -94,95 +117,145 @@ def _informative(
     return [i for _, i in scored[:want]]
 
 
+def _cell(values: list[float]) -> str:
+    if not values:
+        return "-"
+    if len(values) == 1:
+        return f"{values[0]:.2f}"
+    return f"{statistics.mean(values):.2f} ± {statistics.stdev(values):.2f}"
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--genre", default="interview")
-    ap.add_argument("--test", type=int, default=60)
+    ap.add_argument("--genres", default="interview,voyage")
+    ap.add_argument("--test", type=int, default=130)
+    ap.add_argument("--draws", type=int, default=3)
+    ap.add_argument("--rows", default="0,100,300")
+    ap.add_argument("--columns", default="plain,auto")
+    ap.add_argument("--extra", default="", help="fixed weightings to compare, ';'-separated")
     ap.add_argument("--candidates", type=int, default=120)
-    ap.add_argument("--rows", default="0,25,50,100,200,300")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--no-table", action="store_true", help="only the job's time")
     ap.add_argument("--no-job", action="store_true", help="only the table")
-    ap.add_argument(
-        "--no-informative",
-        action="store_true",
-        help="leave out the most-informative-first column (its rows depend on "
-        "each other; the others can run row by row in separate processes)",
-    )
     args = ap.parse_args()
     rows = [int(x) for x in args.rows.split(",")]
+    columns = [c for c in args.columns.split(",") if c]
+    bad = [c for c in columns if c not in COLUMNS]
+    if bad:
+        sys.exit(f"unknown column(s) {', '.join(bad)}; choose from {', '.join(COLUMNS)}")
+    extras = [parse_weighting(x) for x in args.extra.split(";") if x.strip()]
     files = sorted(GUM.glob("*.ptb"))
-    mine = [f for f in files if f.name.startswith(f"GUM_{args.genre}_")]
-    if len(mine) < 6:
-        sys.exit(f"expected the shared GUM trees of genre {args.genre!r} at {GUM}")
-    reference = [t for f in files if f not in mine for t in _read(f)]
-    pool = [t for f in mine[:-4] for t in _read(f)]
-    test = [c for f in mine[-4:] for t in _read(f) if len((c := clean_tree(t)).leaves()) <= 40][
-        ::2
-    ][: args.test]
-    print(
-        f"genre {args.genre}: reference {len(reference)} trees (other genres), in-domain pool "
-        f"{len(pool)}, test {len(test)} sentences (every second of <= 40 words, last 4 "
-        f"documents); load {os.getloadavg()[0]:.1f}",
-        flush=True,
-    )
-    rng = random.Random(args.seed)
-
-    def f1(g: Grammar) -> float:
-        return 100 * heldout_f1(g, test)
-
-    if not args.no_table:
-        _table(args, rows, reference, pool, test, rng, f1)
-    if not args.no_job:
-        _job(reference, pool)
+    print(f"cold start, consensus F1, words only; {_load()}", flush=True)
+    for genre in args.genres.split(","):
+        mine = [f for f in files if f.name.startswith(f"GUM_{genre}_")]
+        if len(mine) < 6:
+            sys.exit(f"expected the shared GUM trees of genre {genre!r} at {GUM}")
+        reference = [t for f in files if f not in mine for t in _read(f)]
+        docs = [_read(f) for f in mine[:-4]]
+        every = [c for f in mine[-4:] for t in _read(f) if len((c := clean_tree(t)).leaves()) <= 40]
+        test = every[:: max(1, len(every) // args.test)][: args.test]
+        print(
+            f"\ngenre {genre}: reference {len(reference)} trees (other genres), in-domain pool "
+            f"{sum(map(len, docs))} trees in {len(docs)} documents, test {len(test)} of the "
+            f"{len(every)} sentences of <= 40 words of the last 4 documents; {args.draws} "
+            f"draw(s) of the in-domain trees; {_load()}",
+            flush=True,
+        )
+        if not args.no_table:
+            _table(args, rows, columns, extras, reference, docs, test)
+        if not args.no_job and genre == args.genres.split(",")[0]:
+            _job(reference, [t for d in docs for t in d])
 
 
 def _table(
     args: argparse.Namespace,
     rows: list[int],
+    columns: list[str],
+    extras: list[Weighting],
     reference: list[Tree],
-    pool: list[Tree],
+    docs: list[list[Tree]],
     test: list[Tree],
-    rng: random.Random,
-    f1: Callable[[Grammar], float],
 ) -> None:
-    print(
-        f"{'trees':>5}  {'in-domain only':>14}  {'ref+in plain':>12}  {'ref+in auto':>11}  "
-        f"{'auto, informative':>17}  weights (doc order / informative)",
-        flush=True,
-    )
-    picked: list[int] = []
-    prev: Grammar | None = None
-    for n in rows:
+    def f1(g: Grammar) -> float:
+        return 100 * heldout_f1(g, test)
+
+    names = columns + [describe(w) for w in extras]
+    print(f"{'trees':>5}  " + "  ".join(f"{n:>16}" for n in names) + "  weights", flush=True)
+    # results[(column, n)] = one value per draw
+    results: dict[tuple[str, int], list[float]] = {}
+    chosen: dict[int, list[str]] = {}
+    base_grammar: Grammar | None = None
+    if 0 in rows or "informative" in columns:
         t0 = time.process_time()
-        if n == 0:
-            g = train_grammar([], reference=reference)
-            base = f1(g)
-            prev = g
-            print(
-                f"{0:>5}  {'-':>14}  {base:>12.2f}  {base:>11.2f}  {base:>17.2f}  "
-                f"reference only  ({time.process_time() - t0:.0f} s CPU)",
-                flush=True,
-            )
-            continue
-        doc = pool[:n]
-        only = f1(train_grammar(doc)) if n <= 200 else float("nan")
-        g_plain = train_grammar(doc, reference=reference)
-        plain = f1(g_plain)
-        g_auto, w_auto = _auto(doc, reference, g_plain)
-        auto = plain if g_auto is g_plain else f1(g_auto)
-        inf, w_inf = float("nan"), "-"
-        if not args.no_informative:
-            assert prev is not None
-            need = n - len(picked)
-            picked += _informative(pool, set(picked), prev, need, max(args.candidates, need), rng)
-            g_inf, weighting = _auto([pool[i] for i in picked], reference)
-            prev, inf, w_inf = g_inf, f1(g_inf), describe(weighting)
+        base_grammar = train_grammar([], reference=reference)
+        base = f1(base_grammar)
+        cells = [f"{base:>16.2f}" if n != "only" else f"{'-':>16}" for n in names]
         print(
-            f"{n:>5}  {only:>14.2f}  {plain:>12.2f}  {auto:>11.2f}  {inf:>17.2f}  "
-            f"{describe(w_auto)} / {w_inf}  ({time.process_time() - t0:.0f} s CPU)",
+            f"{0:>5}  "
+            + "  ".join(cells)
+            + f"  reference alone ({time.process_time() - t0:.0f} s CPU, {_load()})",
             flush=True,
         )
+        for n in names:
+            results[(n, 0)] = [base]
+    pools = []
+    for d in range(args.draws):
+        order = list(docs)
+        random.Random(args.seed * 1000 + d).shuffle(order)
+        pools.append([t for doc in order for t in doc])
+    informative_state = [
+        ([], base_grammar, random.Random(args.seed * 1000 + d)) for d in range(args.draws)
+    ]
+    for n in rows:
+        if n == 0:
+            continue
+        t0 = time.process_time()
+        for d, pool in enumerate(pools):
+            if n >= len(pool) and d > 0:
+                break  # the whole pool: the same trees in every draw
+            trees = pool[:n]
+            if "only" in columns:
+                results.setdefault(("only", n), []).append(f1(train_grammar(trees)))
+            fixed = [Weighting()] + extras
+            grammars = train_weighted(trees, reference=reference, weightings=fixed)
+            if "plain" in columns:
+                results.setdefault(("plain", n), []).append(f1(grammars[0]))
+            for w, g in zip(extras, grammars[1:], strict=True):
+                results.setdefault((describe(w), n), []).append(f1(g))
+            if "auto" in columns:
+                g_auto, w_auto = _auto(trees, reference, grammars[0])
+                same = g_auto is grammars[0] and "plain" in columns
+                value = results[("plain", n)][-1] if same else f1(g_auto)
+                results.setdefault(("auto", n), []).append(value)
+                chosen.setdefault(n, []).append(describe(w_auto))
+            if "informative" in columns and n < len(pool):
+                picked, prev, rng = informative_state[d]
+                assert prev is not None
+                need = n - len(picked)
+                picked += _informative(
+                    pool, set(picked), prev, need, max(args.candidates, need), rng
+                )
+                g_inf, _ = _auto([pool[i] for i in picked], reference)
+                informative_state[d] = (picked, g_inf, rng)
+                results.setdefault(("informative", n), []).append(f1(g_inf))
+        print(
+            f"{n:>5}  "
+            + "  ".join(f"{_cell(results.get((c, n), [])):>16}" for c in names)
+            + f"  auto: {', '.join(chosen.get(n, [])) or '-'} "
+            f"({time.process_time() - t0:.0f} s CPU, {_load()})",
+            flush=True,
+        )
+    if (names[0], 0) in results:
+        base = results[(names[0], 0)][0]
+        for c in names:
+            if c == "only":
+                continue
+            gains = [
+                f"{n}: {statistics.mean(results[(c, n)]) - base:+.2f}"
+                for n in rows
+                if n and (c, n) in results
+            ]
+            print(f"gain over the reference alone, {c}: " + ", ".join(gains), flush=True)
 
 
 def _job(reference: list[Tree], pool: list[Tree]) -> None:
@@ -196,9 +269,8 @@ def _job(reference: list[Tree], pool: list[Tree]) -> None:
     c2, w2 = time.process_time(), time.perf_counter()
     print(
         f"job with {len(reference)} reference + {len(trees)} in-domain trees: weight choice "
-        f"(grid of 5 on {len(held)} held-out) {c1 - c0:.1f} s CPU / {w1 - w0:.1f} s wall, "
-        f"final grammar {c2 - c1:.1f} s CPU / {w2 - w1:.1f} s wall; load "
-        f"{os.getloadavg()[0]:.1f}",
+        f"(grid on {len(held)} held-out) {c1 - c0:.1f} s CPU / {w1 - w0:.1f} s wall, "
+        f"final grammar {c2 - c1:.1f} s CPU / {w2 - w1:.1f} s wall; {_load()}",
         flush=True,
     )
 
