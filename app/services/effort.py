@@ -13,21 +13,23 @@ What it computes
     is left out of those two figures. :func:`effort_rows` formats the figures once, for the
     Agreement page and for :func:`effort_csv` alike.
 
-Complexity: one pass over the revisions of the corpus's handed-in annotations, and one
-PARSEVAL comparison per annotation, O(n) each for n words.
+Complexity: each handed-in annotation's share (its revisions summed, one PARSEVAL comparison,
+O(n) for n words) is kept per process under a fingerprint of the annotation; a view reads one
+short row per handed-in annotation and recomputes only the shares whose fingerprint changed.
 """
 
 from __future__ import annotations
 
 import csv
 import io
+import threading
 from collections import defaultdict
 from dataclasses import dataclass, field
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from app.models import ANN_SUBMITTED, SENT_DROPPED, Annotation, Revision, Sentence, User
+from app.models import ANN_SUBMITTED, SENT_DROPPED, Annotation, Corpus, Revision, Sentence, User
 from parser.errors import ParserError
 from parser.scoring import score_pair
 from parser.trees import constituents, pos_tags, read_tree, words
@@ -104,10 +106,70 @@ def start_distance(start_text: str | None, final_text: str) -> tuple[float, int]
     return f1, edits
 
 
+@dataclass(frozen=True)
+class _Part:
+    """One handed-in annotation's share of the sums."""
+
+    n_words: int
+    seconds: float
+    actions: dict[str, int]
+    distance: tuple[float, int] | None
+
+
+# Per process, per (database, corpus, corpus creation time): each handed-in annotation's share,
+# under the fingerprint it was computed for (head, submitted_at, updated_at, created_at, user).
+# A save, a token fix or a reopen moves the head or updated_at; a hand-in sets submitted_at; a
+# removal or a drop takes the annotation out of the list; an id used again comes with another
+# created_at. A view reads the fingerprints (one row per handed-in annotation, no tree text)
+# and computes only the shares whose fingerprint is new, so repeated views do no tree work.
+_Fingerprint = tuple[int, object, object, object, str]
+_parts: dict[tuple[str, int, object], dict[int, tuple[_Fingerprint, _Part | None]]] = {}
+_parts_lock = threading.Lock()
+
+
+def _compute_parts(db: Session, anns: list[Annotation]) -> dict[int, _Part | None]:
+    """The shares of ``anns`` from their revisions (None: no head revision)."""
+    by_ann: dict[int, list[Revision]] = defaultdict(list)
+    ids = [a.id for a in anns]
+    for start in range(0, len(ids), 500):
+        for rev in db.scalars(
+            select(Revision).where(Revision.annotation_id.in_(ids[start : start + 500]))
+        ):
+            by_ann[rev.annotation_id].append(rev)
+    out: dict[int, _Part | None] = {}
+    for ann in anns:
+        revs = by_ann[ann.id]
+        head = next((r for r in revs if r.number == ann.head), None)
+        if head is None:
+            out[ann.id] = None
+            continue
+        actions: dict[str, int] = defaultdict(int)
+        for r in revs:
+            for kind, n in (r.actions or {}).items():
+                actions[kind] += int(n)
+        out[ann.id] = _Part(
+            n_words=len(words(read_tree(head.tree))),
+            seconds=sum(r.active_seconds or 0.0 for r in revs),
+            actions=dict(actions),
+            distance=start_distance(ann.start_tree, head.tree),
+        )
+    return out
+
+
 def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
-    """Per annotator (by name) and for the whole corpus, over handed-in annotations."""
-    anns = db.execute(
-        select(Annotation, User.username)
+    """Per annotator (by name) and for the whole corpus, over handed-in annotations.
+
+    Cost per view: one row per handed-in annotation (ids, head, times, name) and the sums; the
+    revisions and trees are read only for annotations changed since the last view."""
+    rows = db.execute(
+        select(
+            Annotation.id,
+            Annotation.head,
+            Annotation.submitted_at,
+            Annotation.updated_at,
+            Annotation.created_at,
+            User.username,
+        )
         .join(Sentence, Sentence.id == Annotation.sentence_id)
         .join(User, User.id == Annotation.user_id)
         .where(
@@ -115,29 +177,49 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
             Annotation.state == ANN_SUBMITTED,
             Sentence.state != SENT_DROPPED,
         )
+        .order_by(Annotation.id)
     ).all()
-    by_ann: dict[int, list[Revision]] = defaultdict(list)
-    if anns:
-        ids = [a.id for a, _ in anns]
-        for rev in db.scalars(select(Revision).where(Revision.annotation_id.in_(ids))):
-            by_ann[rev.annotation_id].append(rev)
+    key = (
+        str(db.get_bind().engine.url),
+        corpus_id,
+        db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
+    )
+    prints: dict[int, _Fingerprint] = {
+        aid: (head, sub, upd, made, name) for aid, head, sub, upd, made, name in rows
+    }
+    with _parts_lock:
+        known = _parts.get(key, {})
+    stale = [aid for aid, fp in prints.items() if aid not in known or known[aid][0] != fp]
+    fresh: dict[int, _Part | None] = {}
+    if stale:
+        anns = list(db.scalars(select(Annotation).where(Annotation.id.in_(stale))))
+        # a row changed between the two reads is left for the next view to pick up
+        got = {a.id: a for a in anns}
+        fresh = _compute_parts(db, [got[a] for a in stale if a in got])
+    merged = {
+        aid: (fp, fresh[aid] if aid in fresh else known[aid][1])
+        for aid, fp in prints.items()
+        if aid in fresh or (aid in known and known[aid][0] == fp)
+    }
+    with _parts_lock:
+        _parts[key] = merged
     people: dict[str, Effort] = {}
     total = Effort("all annotators")
-    for ann, name in anns:
-        revs = sorted(by_ann[ann.id], key=lambda r: r.number)
-        head = next((r for r in revs if r.number == ann.head), None)
-        if head is None:
+    for fp, part in merged.values():
+        if part is None:
             continue
-        seconds = sum(r.active_seconds or 0.0 for r in revs)
-        actions: dict[str, int] = defaultdict(int)
-        for r in revs:
-            for kind, n in (r.actions or {}).items():
-                actions[kind] += int(n)
-        n_words = len(words(read_tree(head.tree)))
-        distance = start_distance(ann.start_tree, head.tree)
-        people.setdefault(name, Effort(name)).add(n_words, seconds, actions, distance)
-        total.add(n_words, seconds, actions, distance)
+        name = fp[4]
+        people.setdefault(name, Effort(name)).add(
+            part.n_words, part.seconds, part.actions, part.distance
+        )
+        total.add(part.n_words, part.seconds, part.actions, part.distance)
     return sorted(people.values(), key=lambda e: e.name), total
+
+
+def forget_cached_parts() -> None:
+    """Drop every kept share (the next view computes them all again)."""
+    with _parts_lock:
+        _parts.clear()
 
 
 #: The effort table's columns: (CSV header, heading on the Agreement page). The page and the

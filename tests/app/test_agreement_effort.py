@@ -141,3 +141,122 @@ def test_effort_refuses_unknown_action_kinds(db, people, login) -> None:
     )
     assert resp.status_code == 422
     assert db.scalars(select(Revision)).all() == []
+
+
+def _figures(effort, db, corpus_id):
+    people, total = effort.effort_figures(db, corpus_id)
+    return [vars(e) | {"by_kind": dict(e.by_kind)} for e in [*people, total]]
+
+
+def test_kept_effort_shares_equal_a_recount_after_random_work(db, people, login) -> None:
+    """The shares kept between views must equal a recount from the revisions after any mix of
+    saves, hand-ins, token fixes, drops, restores and removals; a change the kept shares miss
+    makes the two differ (the recount starts from nothing)."""
+    import random
+
+    from app.models import Sentence
+    from app.services import effort, held
+    from app.services.errors import Conflict
+
+    rng = random.Random(17)
+    corpus, sentences = make_corpus(
+        db,
+        [
+            SENTENCE,
+            SENTENCE.replace("first", "last"),
+            "Stow the ropes before dark .",
+            "Coil the line on the dock .",
+            "Read the chart twice before leaving .",
+        ],
+    )
+    assign(db, sentences, people.ann1, people.ann2)
+    who = {"ann1": login("ann1"), "ann2": login("ann2")}
+    users = {"ann1": people.ann1, "ann2": people.ann2}
+    ids = [s.id for s in sentences]
+
+    def same_after_recount(what: str) -> None:
+        db.expire_all()
+        kept = _figures(effort, db, corpus.id)
+        effort.forget_cached_parts()
+        assert kept == _figures(effort, db, corpus.id), what
+
+    # first a fixed path through a handed-in tree changing under kept shares: ann2 hands in,
+    # ann1's token fix sends it back to draft, ann2 saves on the new tokens and hands in again
+    s1 = sentences[0]
+    one, two = who["ann1"], who["ann2"]
+    _save(two, s1.id, 0, flat_text(s1.tokens), start=flat_text(s1.tokens), active_seconds=5.0)
+    assert two.client.post(
+        f"/api/bench/{s1.id}/submit", headers=two.headers(), json={"base": 1}
+    ).is_success
+    _save(one, s1.id, 0, flat_text(s1.tokens), active_seconds=1.0)
+    same_after_recount("ann2 handed in")
+    fixed = one.client.post(
+        f"/api/bench/{s1.id}/tokens",
+        headers=one.headers(),
+        json={"base": 1, "position": 2, "count": 2, "tokens": ["bilgepump"]},
+    )
+    assert fixed.status_code == 201, fixed.text
+    # (no view in between: the kept share of ann2's first hand-in is still there)
+    tokens = fixed.json()["tokens"]
+    _save(two, s1.id, 1, flat_text(tokens), active_seconds=7.0, actions={"text": 1})
+    assert two.client.post(
+        f"/api/bench/{s1.id}/submit", headers=two.headers(), json={"base": 2}
+    ).is_success
+    same_after_recount("ann2 handed in again on the new tokens")
+
+    done = 0
+    for _step in range(150):
+        db.expire_all()
+        name = rng.choice(list(who))
+        me, sid = who[name], rng.choice(ids)
+        sentence = db.get(Sentence, sid)
+        ann = db.scalar(
+            select(Annotation).where(
+                Annotation.user_id == users[name].id, Annotation.sentence_id == sid
+            )
+        )
+        head = ann.head if ann is not None else 0
+        op = rng.choice(["save"] * 4 + ["submit"] * 3 + ["tokens"] * 2 + ["drop", "remove"])
+        if op == "save":
+            flat = flat_text(sentence.tokens)
+            me.client.post(
+                f"/api/bench/{sid}/revisions",
+                headers=me.headers(),
+                json={
+                    "base": head,
+                    "tree": flat,
+                    "start": flat,
+                    "active_seconds": rng.choice([0.5, 3.0, 12.25]),
+                    "actions": {rng.choice(["edge", "text", "undo"]): rng.randint(1, 3)},
+                },
+            )
+        elif op == "submit" and head:
+            r = me.client.post(
+                f"/api/bench/{sid}/submit", headers=me.headers(), json={"base": head}
+            )
+            done += r.status_code == 200
+        elif op == "tokens" and head and len(sentence.tokens) > 3:
+            me.client.post(
+                f"/api/bench/{sid}/tokens",
+                headers=me.headers(),
+                json={
+                    "base": head,
+                    "position": 1,
+                    "count": 2,
+                    "tokens": [sentence.tokens[1] + sentence.tokens[2]],
+                    "active_seconds": 2.0,
+                },
+            )
+        elif op == "drop":
+            try:
+                if sentence.state == "dropped":
+                    held.restore(db, sid, people.admin)
+                else:
+                    held.drop(db, sid, people.admin)
+            except Conflict:  # a state that cannot move that way: nothing changed
+                db.rollback()
+        elif op == "remove" and ann is not None:
+            db.delete(ann)
+            db.commit()
+        same_after_recount(f"step {_step}: {op}")
+    assert done >= 3  # the walk did hand work in, so the sums were not empty throughout
