@@ -5,6 +5,7 @@ from __future__ import annotations
 from alembic import context
 from sqlalchemy import engine_from_config, pool
 
+from app.db import is_own_schema_name
 from app.models import Base
 from app.settings import get_settings
 
@@ -23,6 +24,7 @@ def run_migrations_offline() -> None:
         target_metadata=target_metadata,
         literal_binds=True,
         render_as_batch=True,
+        include_name=is_own_schema_name,
     )
     with context.begin_transaction():
         context.run_migrations()
@@ -37,7 +39,10 @@ def run_migrations_online() -> None:
     with connectable.connect() as connection:
         is_sqlite = connection.dialect.name == "sqlite"
         context.configure(
-            connection=connection, target_metadata=target_metadata, render_as_batch=is_sqlite
+            connection=connection,
+            target_metadata=target_metadata,
+            render_as_batch=is_sqlite,
+            include_name=is_own_schema_name,
         )
         with context.begin_transaction():
             context.run_migrations()
