@@ -117,12 +117,13 @@ class _Part:
 
 
 # Per process, per (database, corpus, corpus creation time): each handed-in annotation's share,
-# under the fingerprint it was computed for (head, submitted_at, updated_at, created_at, user).
-# A save, a token fix or a reopen moves the head or updated_at; a hand-in sets submitted_at; a
-# removal or a drop takes the annotation out of the list; an id used again comes with another
-# created_at. A view reads the fingerprints (one row per handed-in annotation, no tree text)
-# and computes only the shares whose fingerprint is new, so repeated views do no tree work.
-_Fingerprint = tuple[int, object, object, object, str]
+# under the fingerprint it was computed for (head, updated_at, user id). Every write that
+# changes an annotation's revisions or hands it in (a save, a token fix, a hand-in, an import)
+# sets updated_at to its own time and a save moves the head; a token fix that sends another's
+# hand-in back to draft, a removal or a drop takes it out of the list; an id used again comes
+# with a later updated_at. A view reads the fingerprints (one short row per handed-in
+# annotation, no tree text) and computes only the shares whose fingerprint is new.
+_Fingerprint = tuple[int, object, int]
 _parts: dict[tuple[str, int, object], dict[int, tuple[_Fingerprint, _Part | None]]] = {}
 _parts_lock = threading.Lock()
 
@@ -162,16 +163,8 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     Cost per view: one row per handed-in annotation (ids, head, times, name) and the sums; the
     revisions and trees are read only for annotations changed since the last view."""
     rows = db.execute(
-        select(
-            Annotation.id,
-            Annotation.head,
-            Annotation.submitted_at,
-            Annotation.updated_at,
-            Annotation.created_at,
-            User.username,
-        )
+        select(Annotation.id, Annotation.head, Annotation.updated_at, Annotation.user_id)
         .join(Sentence, Sentence.id == Annotation.sentence_id)
-        .join(User, User.id == Annotation.user_id)
         .where(
             Sentence.corpus_id == corpus_id,
             Annotation.state == ANN_SUBMITTED,
@@ -184,9 +177,7 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
         corpus_id,
         db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
     )
-    prints: dict[int, _Fingerprint] = {
-        aid: (head, sub, upd, made, name) for aid, head, sub, upd, made, name in rows
-    }
+    prints: dict[int, _Fingerprint] = {aid: (head, upd, uid) for aid, head, upd, uid in rows}
     with _parts_lock:
         known = _parts.get(key, {})
     stale = [aid for aid, fp in prints.items() if aid not in known or known[aid][0] != fp]
@@ -203,12 +194,17 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     }
     with _parts_lock:
         _parts[key] = merged
+    names = dict(
+        db.execute(
+            select(User.id, User.username).where(User.id.in_({fp[2] for fp in prints.values()}))
+        ).all()
+    )
     people: dict[str, Effort] = {}
     total = Effort("all annotators")
     for fp, part in merged.values():
         if part is None:
             continue
-        name = fp[4]
+        name = names[fp[2]]
         people.setdefault(name, Effort(name)).add(
             part.n_words, part.seconds, part.actions, part.distance
         )
