@@ -103,6 +103,9 @@ def test_counts_triggers_come_back_with_a_recount_when_missing(app, db) -> None:
     db.execute(update(Sentence).values(state="gold"))  # unseen by any trigger
     db.commit()
     assert _counts(db) != _recount(db)
+    # End this session's read transaction: on PostgreSQL, DROP TRIGGER (part of reinstalling)
+    # waits for every open transaction that has read the table, this one included.
+    db.rollback()
     assert ensure_triggers(engine) is True and ensure_triggers(engine) is False
     db.expire_all()
     assert _counts(db) == _recount(db)
