@@ -75,7 +75,7 @@ GRAMMAR_CACHE_SIZE = 3
 
 # keyed by (database URL, version id): ids repeat across databases (tests, several corpora
 # files), a grammar row never changes once ready.
-_grammars: OrderedDict[tuple[str, int], Grammar] = OrderedDict()
+_grammars: OrderedDict[tuple[str, int, str], Grammar] = OrderedDict()
 _grammar_lock = threading.Lock()
 
 
@@ -92,8 +92,15 @@ def grammar_from_bytes(data: bytes) -> Grammar:
 
 
 def grammar_for(db: Session, version_id: int) -> Grammar:
-    """The loaded grammar of a GrammarVersion, from the per-process cache when possible."""
-    key = (str(db.get_bind().engine.url), version_id)
+    """The loaded grammar of a GrammarVersion, from the per-process cache when possible.
+
+    The cache key holds the version's creation time besides its id: ids come back when a
+    database is emptied or restored, and another version with the same id must not be served
+    the old grammar."""
+    created = db.scalar(select(GrammarVersion.created_at).where(GrammarVersion.id == version_id))
+    if created is None:
+        raise NotFound(f"grammar version {version_id} has no saved grammar")
+    key = (str(db.get_bind().engine.url), version_id, created.isoformat())
     with _grammar_lock:
         cached = _grammars.get(key)
         if cached is not None:
