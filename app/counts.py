@@ -24,6 +24,15 @@ or from dropped; a dropped sentence deleted) keep it, so the Queue's and the Ben
 read one row per corpus of the user instead of counting the queue. Cost: one or two indexed
 row updates per such write (a change of a sentence's dropped state updates the rows of the
 users it is assigned to).
+
+The ``figure_marks`` table (:class:`app.models.FigureMark`) holds one row per corpus (made by
+a trigger on ``corpora``) with change marks for the Agreement page's kept sums: the number of
+agreement records (insert +1, delete -1), a count of every other change to what they sum (a
+record removed, a sentence moved to or from dropped, a sentence removed), and a count of
+changes to handed-in annotations (an annotation inserted, changed or removed while handed in
+before or after, and the same sentence changes). A view compares one row with the marks its
+sums were made at. Cost: one indexed row update per such write; on PostgreSQL hand-ins in
+one corpus queue at its row until each commits (short transactions).
 """
 
 from __future__ import annotations
@@ -42,6 +51,14 @@ TRIGGER_NAMES = (
     "tw_queue_counts_ann_update",
     "tw_queue_counts_sentence_state",
     "tw_queue_counts_sentence_delete",
+    "tw_marks_corpus_insert",
+    "tw_marks_record_insert",
+    "tw_marks_record_delete",
+    "tw_marks_sentence_state",
+    "tw_marks_sentence_delete",
+    "tw_marks_ann_insert",
+    "tw_marks_ann_update",
+    "tw_marks_ann_delete",
 )
 
 _ADD = (
@@ -91,6 +108,26 @@ _Q_DROP = (
 )
 _TO_DROPPED = "CASE WHEN NEW.state = 'dropped' THEN 1 ELSE -1 END"
 
+# figure_marks: {r} is NEW or OLD
+_M_CORPUS = (
+    "INSERT INTO figure_marks (corpus_id, agreement_records, agreement_changes, "
+    "handed_in_changes) VALUES (NEW.id, 0, 0, 0) ON CONFLICT (corpus_id) DO NOTHING"
+)
+_M_RECORD = (
+    "UPDATE figure_marks SET agreement_records = agreement_records {sign} 1, "
+    "agreement_changes = agreement_changes + {changed} WHERE corpus_id = {r}.corpus_id"
+)
+_M_SENTENCE = (
+    "UPDATE figure_marks SET agreement_changes = agreement_changes + 1, "
+    "handed_in_changes = handed_in_changes + 1 WHERE corpus_id = {r}.corpus_id"
+)
+_M_ANN = (
+    "UPDATE figure_marks SET handed_in_changes = handed_in_changes + 1 "
+    "WHERE corpus_id = (SELECT corpus_id FROM sentences WHERE id = {r}.sentence_id)"
+)
+_WAS_DROPPED = "(OLD.state = 'dropped') <> (NEW.state = 'dropped')"
+_HANDED_IN = "(OLD.state = 'submitted' OR NEW.state = 'submitted')"
+
 _SQLITE = [
     f"CREATE TRIGGER IF NOT EXISTS tw_sentence_counts_insert AFTER INSERT ON sentences "
     f"BEGIN {_ADD.format(r='NEW')}; END",
@@ -121,6 +158,22 @@ _SQLITE = [
     # before the row goes: its assignments' cascade then finds no dropped sentence to count
     "CREATE TRIGGER IF NOT EXISTS tw_queue_counts_sentence_delete BEFORE DELETE ON sentences "
     f"WHEN OLD.state = 'dropped' BEGIN {_Q_DROP.format(r='OLD', delta='-1')}; END",
+    f"CREATE TRIGGER IF NOT EXISTS tw_marks_corpus_insert AFTER INSERT ON corpora "
+    f"BEGIN {_M_CORPUS}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_record_insert AFTER INSERT ON agreement_records "
+    f"BEGIN {_M_RECORD.format(r='NEW', sign='+', changed=0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_record_delete AFTER DELETE ON agreement_records "
+    f"BEGIN {_M_RECORD.format(r='OLD', sign='-', changed=1)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_sentence_state AFTER UPDATE OF state ON sentences "
+    f"WHEN {_WAS_DROPPED} BEGIN {_M_SENTENCE.format(r='NEW')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_sentence_delete AFTER DELETE ON sentences "
+    f"BEGIN {_M_SENTENCE.format(r='OLD')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_insert AFTER INSERT ON annotations "
+    f"WHEN NEW.state = 'submitted' BEGIN {_M_ANN.format(r='NEW')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_update AFTER UPDATE ON annotations "
+    f"WHEN {_HANDED_IN} BEGIN {_M_ANN.format(r='OLD')}; {_M_ANN.format(r='NEW')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_delete AFTER DELETE ON annotations "
+    f"WHEN OLD.state = 'submitted' BEGIN {_M_ANN.format(r='OLD')}; END",
 ]
 
 
@@ -178,6 +231,45 @@ END $$ LANGUAGE plpgsql""",
     "CREATE TRIGGER tw_queue_counts_sentence_delete BEFORE DELETE ON sentences "
     "FOR EACH ROW EXECUTE FUNCTION tw_queue_counts_sentence()",
 ]
+_POSTGRES += [
+    f"""CREATE OR REPLACE FUNCTION tw_marks_corpus() RETURNS trigger AS $$
+BEGIN
+  {_M_CORPUS};
+  RETURN NULL;
+END $$ LANGUAGE plpgsql""",
+    _row_function(
+        "tw_marks_record",
+        _M_RECORD.format(r="OLD", sign="-", changed=1),
+        _M_RECORD.format(r="NEW", sign="+", changed=0),
+    ),
+    _row_function("tw_marks_sentence", _M_SENTENCE.format(r="OLD"), "PERFORM 1"),
+    f"""CREATE OR REPLACE FUNCTION tw_marks_ann() RETURNS trigger AS $$
+BEGIN
+  IF (TG_OP = 'DELETE' OR TG_OP = 'UPDATE') AND OLD.state = 'submitted' THEN
+    {_M_ANN.format(r="OLD")};
+  END IF;
+  IF (TG_OP = 'INSERT' OR TG_OP = 'UPDATE') AND NEW.state = 'submitted' THEN
+    {_M_ANN.format(r="NEW")};
+  END IF;
+  RETURN NULL;
+END $$ LANGUAGE plpgsql""",
+    "DROP TRIGGER IF EXISTS tw_marks_corpus_insert ON corpora",
+    "CREATE TRIGGER tw_marks_corpus_insert AFTER INSERT ON corpora "
+    "FOR EACH ROW EXECUTE FUNCTION tw_marks_corpus()",
+    "DROP TRIGGER IF EXISTS tw_marks_record ON agreement_records",
+    "CREATE TRIGGER tw_marks_record AFTER INSERT OR DELETE ON agreement_records "
+    "FOR EACH ROW EXECUTE FUNCTION tw_marks_record()",
+    "DROP TRIGGER IF EXISTS tw_marks_sentence_state ON sentences",
+    "CREATE TRIGGER tw_marks_sentence_state AFTER UPDATE OF state ON sentences "
+    "FOR EACH ROW WHEN ((OLD.state = 'dropped') IS DISTINCT FROM (NEW.state = 'dropped')) "
+    "EXECUTE FUNCTION tw_marks_sentence()",
+    "DROP TRIGGER IF EXISTS tw_marks_sentence_delete ON sentences",
+    "CREATE TRIGGER tw_marks_sentence_delete AFTER DELETE ON sentences "
+    "FOR EACH ROW EXECUTE FUNCTION tw_marks_sentence()",
+    "DROP TRIGGER IF EXISTS tw_marks_ann ON annotations",
+    "CREATE TRIGGER tw_marks_ann AFTER INSERT OR DELETE OR UPDATE ON annotations "
+    "FOR EACH ROW EXECUTE FUNCTION tw_marks_ann()",
+]
 # PostgreSQL folds several events into one trigger; these are the names it uses.
 _POSTGRES_NAMES = (
     "tw_sentence_counts_insert",
@@ -186,6 +278,11 @@ _POSTGRES_NAMES = (
     "tw_queue_counts_ann",
     "tw_queue_counts_sentence_state",
     "tw_queue_counts_sentence_delete",
+    "tw_marks_corpus_insert",
+    "tw_marks_record",
+    "tw_marks_sentence_state",
+    "tw_marks_sentence_delete",
+    "tw_marks_ann",
 )
 
 
@@ -211,6 +308,21 @@ def recount(conn: Connection) -> None:
             "GROUP BY a.user_id, a.corpus_id"
         )
     )
+    # the change marks move on (never back): sums a process kept are then summed again
+    conn.execute(
+        text(
+            "INSERT INTO figure_marks (corpus_id, agreement_records, agreement_changes, "
+            "handed_in_changes) SELECT id, 0, 0, 0 FROM corpora "
+            "WHERE id NOT IN (SELECT corpus_id FROM figure_marks)"
+        )
+    )
+    conn.execute(
+        text(
+            "UPDATE figure_marks SET agreement_records = (SELECT COUNT(*) FROM "
+            "agreement_records r WHERE r.corpus_id = figure_marks.corpus_id), "
+            "agreement_changes = agreement_changes + 1, handed_in_changes = handed_in_changes + 1"
+        )
+    )
 
 
 def installed(conn: Connection) -> bool:
@@ -224,7 +336,8 @@ def installed(conn: Connection) -> bool:
         conn.execute(
             text(
                 "SELECT tgname FROM pg_trigger WHERE tgrelid IN ('sentences'::regclass, "
-                "'assignments'::regclass, 'annotations'::regclass)"
+                "'assignments'::regclass, 'annotations'::regclass, "
+                "'agreement_records'::regclass, 'corpora'::regclass)"
             )
         ).scalars()
     )
@@ -255,26 +368,56 @@ _QUEUE_TRIGGERS_PG = {
 }
 
 
-def drop_queue_triggers(conn: Connection) -> None:
-    """Remove the queue_counts triggers (migration 0012's downgrade)."""
+_MARK_TRIGGERS_PG = {
+    "tw_marks_corpus_insert": "corpora",
+    "tw_marks_record": "agreement_records",
+    "tw_marks_sentence_state": "sentences",
+    "tw_marks_sentence_delete": "sentences",
+    "tw_marks_ann": "annotations",
+}
+
+
+def _drop(
+    conn: Connection, prefix: str, pg_triggers: dict[str, str], functions: tuple[str, ...]
+) -> None:
+    """Remove the triggers named ``prefix...`` (SQLite), or ``pg_triggers`` (name: table)
+    and their ``functions`` (PostgreSQL)."""
     if conn.dialect.name == "sqlite":
         for name in TRIGGER_NAMES:
-            if name.startswith("tw_queue_counts"):
+            if name.startswith(prefix):
                 conn.execute(text(f"DROP TRIGGER IF EXISTS {name}"))
         return
-    for name, table in _QUEUE_TRIGGERS_PG.items():
+    for name, table in pg_triggers.items():
         conn.execute(text(f"DROP TRIGGER IF EXISTS {name} ON {table}"))
-    for function in ("tw_queue_counts_assign", "tw_queue_counts_ann", "tw_queue_counts_sentence"):
+    for function in functions:
         conn.execute(text(f"DROP FUNCTION IF EXISTS {function}()"))
+
+
+def drop_mark_triggers(conn: Connection) -> None:
+    """Remove the figure_marks triggers (migration 0014's downgrade)."""
+    _drop(
+        conn,
+        "tw_marks",
+        _MARK_TRIGGERS_PG,
+        ("tw_marks_corpus", "tw_marks_record", "tw_marks_sentence", "tw_marks_ann"),
+    )
+
+
+def drop_queue_triggers(conn: Connection) -> None:
+    """Remove the queue_counts triggers (migration 0012's downgrade)."""
+    _drop(
+        conn,
+        "tw_queue_counts",
+        _QUEUE_TRIGGERS_PG,
+        ("tw_queue_counts_assign", "tw_queue_counts_ann", "tw_queue_counts_sentence"),
+    )
 
 
 def drop_triggers(conn: Connection) -> None:
     """Remove the sentence count triggers (migration 0005's downgrade)."""
-    if conn.dialect.name == "sqlite":
-        for name in TRIGGER_NAMES:
-            if name.startswith("tw_sentence_counts"):
-                conn.execute(text(f"DROP TRIGGER IF EXISTS {name}"))
-        return
-    for name in ("tw_sentence_counts_insert", "tw_sentence_counts_update"):
-        conn.execute(text(f"DROP TRIGGER IF EXISTS {name} ON sentences"))
-    conn.execute(text("DROP FUNCTION IF EXISTS tw_sentence_counts()"))
+    _drop(
+        conn,
+        "tw_sentence_counts",
+        {"tw_sentence_counts_insert": "sentences", "tw_sentence_counts_update": "sentences"},
+        ("tw_sentence_counts",),
+    )

@@ -370,6 +370,23 @@ class QueueCount(Base):
     dropped: Mapped[int] = mapped_column(Integer, default=0)
 
 
+class FigureMark(Base):
+    """Change marks of a corpus's figures, kept by database triggers (:mod:`app.counts`): how
+    many agreement records the corpus has, how many times a record was removed or a sentence
+    moved to or from ``dropped``, and how many times a handed-in annotation changed (handed in,
+    saved, sent back, removed, or its sentence dropped, brought back or removed). The
+    Agreement page keeps its sums per process and reads this one row to know whether they
+    are still current (:mod:`app.services.agreement`, :mod:`app.services.effort`)."""
+
+    __tablename__ = "figure_marks"
+    corpus_id: Mapped[int] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"), primary_key=True
+    )
+    agreement_records: Mapped[int] = mapped_column(Integer, default=0)
+    agreement_changes: Mapped[int] = mapped_column(Integer, default=0)
+    handed_in_changes: Mapped[int] = mapped_column(Integer, default=0)
+
+
 class SentenceCount(Base):
     """How many sentences of a document are in each state, kept by database triggers on
     ``sentences`` (:mod:`app.counts`), so that the corpus pages read a few rows instead of

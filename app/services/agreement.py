@@ -20,14 +20,18 @@ What it computes
     checked it yet. A sentence that is already gold keeps its gold; its records are still logged.
 
     The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records,
-    kept between views (per process) so that a view adds only the records logged since:
-    corpus labelled F1 micro-averaged over all pairs (summed matched and constituent counts),
-    the same per annotator pair, per label (from each record's ``detail["per_label"]``), the
-    most frequent label confusions (``detail["confusions"]``) and F1 per week.
+    kept between views (per process) and checked against the corpus's change marks (one row
+    of ``figure_marks``, kept by database triggers, :mod:`app.counts`): corpus labelled F1
+    micro-averaged over all pairs (summed matched and constituent counts), the same per
+    annotator pair, per label (from each record's ``detail["per_label"]``), the most frequent
+    label confusions (``detail["confusions"]``) and F1 per day or week.
 
 Complexity: on_submitted scores k(k-1)/2 pairs for k annotations, each O(n + g*t) (see
-parser.scoring); corpus_figures reads the records logged since its last call (all of them the
-first time in a process), O(new records * labels), plus O(pairs + labels + days) to show them.
+parser.scoring); a view of corpus_figures reads the marks row, then the records logged since
+its last view (all of them the first time in a process, or after a sentence with records was
+dropped, brought back or removed), O(new records * labels), plus O(pairs + labels + days) to
+show them, plus for a reader under the blind rule the records of the sentences hidden from
+them.
 Limits: records are never updated; a re-submission after a reopen logs new records beside
 the old ones (both stay in the log; the page counts each record once).
 """
@@ -43,7 +47,7 @@ from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from itertools import combinations
 
-from sqlalchemy import func, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -57,6 +61,7 @@ from app.models import (
     Corpus,
     Document,
     Event,
+    FigureMark,
     Revision,
     Sentence,
     User,
@@ -298,10 +303,18 @@ def timeline_of_sums(days: dict[datetime, tuple[int, Counts]]) -> tuple[str, lis
     return "week", [PeriodFigures(at, n, c) for at, (n, c) in sorted(weeks.items())]
 
 
+def _minus(a: Counts, b: Counts) -> Counts:
+    return Counts(a.matched - b.matched, a.gold - b.gold, a.test - b.test)
+
+
 @dataclass
 class _Tally:
     """Running sums of a corpus's agreement records (what :func:`corpus_figures` shows);
-    ``add`` takes one record, ``figures`` reads the sums without touching the records."""
+    ``add`` takes one record, ``figures`` reads the sums without touching the records.
+
+    ``seen`` and ``changes`` say what the sums are current for: ``seen`` records of the
+    corpus read (those of dropped sentences too, which are not summed), when the corpus's
+    ``figure_marks.agreement_changes`` stood at ``changes``."""
 
     last_id: int = 0
     records: int = 0
@@ -318,6 +331,8 @@ class _Tally:
     labels: dict[str, Counts] = field(default_factory=dict)
     confusions: Counter[tuple[str, str]] = field(default_factory=Counter)
     days: dict[datetime, tuple[int, Counts]] = field(default_factory=dict)
+    seen: int = 0
+    changes: int | None = None
 
     def add(self, r: AgreementRecord) -> None:
         c = Counts(r.matched, r.count_a, r.count_b)
@@ -349,46 +364,67 @@ class _Tally:
         n, summed = self.days.get(day_start(r.created_at), (0, Counts()))
         self.days[day_start(r.created_at)] = (n + 1, summed + c)
 
-    def figures(self, names: dict[int, str], top_confusions: int) -> CorpusAgreement:
+    def figures(
+        self, names: dict[int, str], top_confusions: int, minus: _Tally | None = None
+    ) -> CorpusAgreement:
+        """The figures of these sums, less the sums ``minus`` holds (records of whole
+        sentences that are among these: a pair, a label or a day left with nothing is not
+        shown)."""
+        m = minus or _Tally()
         pairs = []
         for key, pf in self.pairs.items():
+            sentences = len(self.pair_sentences[key]) - len(m.pair_sentences.get(key, ()))
+            if sentences <= 0:
+                continue
+            less = m.pairs.get(key) or PairFigures("?", "?")
             pairs.append(
                 PairFigures(
                     names.get(key[0], "?"),
                     names.get(key[1], "?"),
-                    sentences=len(self.pair_sentences[key]),
-                    counts=pf.counts,
-                    unlabelled=pf.unlabelled,
-                    pos_correct=pf.pos_correct,
-                    pos_total=pf.pos_total,
-                    identical=pf.identical,
+                    sentences=sentences,
+                    counts=_minus(pf.counts, less.counts),
+                    unlabelled=_minus(pf.unlabelled, less.unlabelled),
+                    pos_correct=pf.pos_correct - less.pos_correct,
+                    pos_total=pf.pos_total - less.pos_total,
+                    identical=pf.identical - less.identical,
                 )
             )
+        labels = {k: _minus(v, m.labels.get(k, Counts())) for k, v in self.labels.items()}
         label_rows = sorted(
-            (LabelFigures(k, v) for k, v in self.labels.items()),
+            (LabelFigures(k, v) for k, v in labels.items() if v != Counts()),
             key=lambda lf: (lf.counts.f1, -(lf.counts.gold + lf.counts.test), lf.label),
         )
-        period, period_rows = timeline_of_sums(self.days)
+        days = {}
+        for day, (n, c) in self.days.items():
+            less_n, less_c = m.days.get(day, (0, Counts()))
+            if n > less_n:
+                days[day] = (n - less_n, _minus(c, less_c))
+        period, period_rows = timeline_of_sums(days)
         return CorpusAgreement(
-            records=self.records,
-            sentences=len(self.sentences),
-            counts=self.total,
-            unlabelled=self.unlabelled,
-            pos_correct=self.pos_correct,
-            pos_total=self.pos_total,
-            identical=self.identical,
+            records=self.records - m.records,
+            sentences=len(self.sentences) - len(m.sentences),
+            counts=_minus(self.total, m.total),
+            unlabelled=_minus(self.unlabelled, m.unlabelled),
+            pos_correct=self.pos_correct - m.pos_correct,
+            pos_total=self.pos_total - m.pos_total,
+            identical=self.identical - m.identical,
             pairs=sorted(pairs, key=lambda p: (p.user_a, p.user_b)),
             labels=label_rows,
-            confusions=[(a, b, n) for (a, b), n in self.confusions.most_common(top_confusions)],
+            confusions=[
+                (a, b, n)
+                for (a, b), n in (self.confusions - m.confusions).most_common(top_confusions)
+            ],
             periods=period_rows,
             period=period,
         )
 
 
-# Per process, per (database, corpus): the sums so far. Records are only ever added (never
-# changed); a view reads the records logged since and adds them. When the count of records
-# then differs from what the sums hold (a record committed late with a lower id, records
-# removed with their sentences, a sentence dropped or brought back), the sums start again.
+# Per process, per (database, corpus, corpus creation time): the sums so far. The corpus's
+# row of figure_marks (kept by database triggers, app.counts) counts its records and every
+# change other than a record logged (a record removed, a sentence dropped, brought back or
+# removed). A view reads that row: the same marks, the sums are current and no record is
+# read; more records and no other change, the records logged since are read and added; any
+# other change (or records missing, one committed late with a lower id), all are summed again.
 _tallies: dict[tuple[str, int, datetime | None], _Tally] = {}
 _tally_lock = threading.Lock()
 
@@ -412,32 +448,40 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
     )
 
 
-def corpus_figures(
-    db: Session, corpus_id: int, *, top_confusions: int = 15, viewer: User | None = None
-) -> CorpusAgreement:
-    """The Agreement page's figures: sums over every agreement record of the corpus, kept
-    between views so that a view reads only the records logged since the last one.
+def _marks(db: Session, corpus_id: int) -> tuple[int, int] | None:
+    """(agreement records, other changes) of the corpus's figure marks; None without a row."""
+    row = db.execute(
+        select(FigureMark.agreement_records, FigureMark.agreement_changes).where(
+            FigureMark.corpus_id == corpus_id
+        )
+    ).one_or_none()
+    return None if row is None else (int(row[0]), int(row[1]))
 
-    Blind rule: for a ``viewer`` who still annotates a sentence with records, the figures
-    are summed afresh without that sentence's records (not kept: such viewers are few, a
-    dual-role adjudicator or someone assigned a sentence again), so no sum (a pair seen on
-    one sentence, a day with one record, a label met once) can give that sentence away."""
-    hidden = hidden_from(db, corpus_id, viewer)
-    if hidden:
-        fresh = _Tally()
-        for r in db.scalars(
-            select(AgreementRecord)
+
+def _read_records(db: Session, corpus_id: int, after: int) -> list[tuple[AgreementRecord, str]]:
+    """The corpus's records with an id above ``after`` and their sentences' states."""
+    return [
+        (r, state)
+        for r, state in db.execute(
+            select(AgreementRecord, Sentence.state)
             .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-            .where(
-                AgreementRecord.corpus_id == corpus_id,
-                Sentence.state != SENT_DROPPED,
-                AgreementRecord.sentence_id.not_in(hidden),
-            )
+            .where(AgreementRecord.corpus_id == corpus_id, AgreementRecord.id > after)
             .order_by(AgreementRecord.id)
-        ):
-            fresh.add(r)
-        names = _user_names(db, {u for pair in fresh.pairs for u in pair})
-        return fresh.figures(names, top_confusions)
+        ).all()
+    ]
+
+
+def _extend(tally: _Tally, rows: list[tuple[AgreementRecord, str]]) -> None:
+    """Add the records of sentences not dropped; count every record read."""
+    for r, state in rows:
+        if state != SENT_DROPPED:
+            tally.add(r)
+        tally.last_id = max(tally.last_id, r.id)
+    tally.seen += len(rows)
+
+
+def _current_tally(db: Session, corpus_id: int) -> _Tally:
+    """The corpus's sums, brought up to date (see ``_tallies``). Call with the lock held."""
     # the corpus's creation time is in the key: ids can come back (a corpus removed and
     # another made in its place, a database emptied), and old sums must never be reused
     key = (
@@ -445,35 +489,52 @@ def corpus_figures(
         corpus_id,
         db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
     )
-    # a dropped sentence is out of the figures (its records stay in the log)
-    counted = (
-        select(AgreementRecord)
-        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
-    )
-    count, last = db.execute(
-        select(func.count(), func.coalesce(func.max(AgreementRecord.id), 0))
-        .select_from(AgreementRecord)
-        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-        .where(AgreementRecord.corpus_id == corpus_id, Sentence.state != SENT_DROPPED)
-    ).one()
+    marks = _marks(db, corpus_id)
+    tally = _tallies.get(key)
+    if tally is not None and marks is not None and tally.changes == marks[1]:
+        if tally.seen == marks[0]:
+            return tally
+        if tally.seen < marks[0]:
+            _extend(tally, _read_records(db, corpus_id, tally.last_id))
+            if tally.seen >= marks[0]:  # more: logged since the marks were read
+                return tally
+    # a first view, another kind of change, or a record committed late: sum them all
+    tally = _Tally(changes=None if marks is None else marks[1])
+    _extend(tally, _read_records(db, corpus_id, 0))
+    _tallies[key] = tally
+    return tally
+
+
+def corpus_figures(
+    db: Session, corpus_id: int, *, top_confusions: int = 15, viewer: User | None = None
+) -> CorpusAgreement:
+    """The Agreement page's figures: sums over every agreement record of the corpus (those
+    of dropped sentences left out), kept between views; a view with nothing logged since
+    reads one row (the corpus's figure marks), otherwise the records logged since.
+
+    Blind rule: for a ``viewer`` who still annotates a sentence with records, that
+    sentence's records are summed apart and taken off the figures, so no sum (a pair seen on
+    one sentence, a day with one record, a label met once) can give that sentence away; the
+    cost is the hidden sentences' records."""
+    hidden = hidden_from(db, corpus_id, viewer)
     with _tally_lock:  # held while adding: the sums are shared by every request
-        tally = _tallies.get(key)
-        if tally is None or tally.last_id > last or tally.records > count:
-            tally = _Tally()
-        if (tally.records, tally.last_id) != (count, last):
-            new = db.scalars(
-                counted.where(AgreementRecord.id > tally.last_id).order_by(AgreementRecord.id)
-            ).all()
-            if tally.records + len(new) != count:  # a record came in late, or a sentence
-                tally = _Tally()  # came back: sum them all again
-                new = db.scalars(counted.order_by(AgreementRecord.id)).all()
-            for r in new:
-                tally.add(r)
-        _tallies[key] = tally
-        figures_of = tally
-        names = _user_names(db, {u for pair in figures_of.pairs for u in pair})
-        return figures_of.figures(names, top_confusions)
+        tally = _current_tally(db, corpus_id)
+        less = None
+        if hidden:
+            less = _Tally()
+            for r in db.scalars(
+                select(AgreementRecord)
+                .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+                .where(
+                    AgreementRecord.sentence_id.in_(hidden & tally.sentences),
+                    AgreementRecord.corpus_id == corpus_id,
+                    AgreementRecord.id <= tally.last_id,
+                    Sentence.state != SENT_DROPPED,
+                )
+            ):
+                less.add(r)
+        names = _user_names(db, {u for pair in tally.pairs for u in pair})
+        return tally.figures(names, top_confusions, minus=less)
 
 
 def _user_names(db: Session, ids: Iterable[int]) -> dict[int, str]:

@@ -14,8 +14,11 @@ What it computes
     Agreement page and for :func:`effort_csv` alike.
 
 Complexity: each handed-in annotation's share (its revisions summed, one PARSEVAL comparison,
-O(n) for n words) is kept per process under a fingerprint of the annotation; a view reads one
-short row per handed-in annotation and recomputes only the shares whose fingerprint changed.
+O(n) for n words) is kept per process under a fingerprint of the annotation, and so are the
+sums, under the corpus's change mark (``figure_marks.handed_in_changes``, moved by database
+triggers, :mod:`app.counts`). A view with the mark unchanged reads that row and the
+annotators' names; otherwise one short row per handed-in annotation, recomputing only the
+shares whose fingerprint changed.
 """
 
 from __future__ import annotations
@@ -24,12 +27,21 @@ import csv
 import io
 import threading
 from collections import defaultdict
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from app.models import ANN_SUBMITTED, SENT_DROPPED, Annotation, Corpus, Revision, Sentence, User
+from app.models import (
+    ANN_SUBMITTED,
+    SENT_DROPPED,
+    Annotation,
+    Corpus,
+    FigureMark,
+    Revision,
+    Sentence,
+    User,
+)
 from parser.errors import ParserError
 from parser.scoring import score_pair
 from parser.trees import constituents, pos_tags, read_tree, words
@@ -157,11 +169,21 @@ def _compute_parts(db: Session, anns: list[Annotation]) -> dict[int, _Part | Non
     return out
 
 
-def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
-    """Per annotator (by name) and for the whole corpus, over handed-in annotations.
+# Per process, per (database, corpus, corpus creation time): the sums per annotator (by user
+# id) and over the corpus, with the corpus's figure_marks.handed_in_changes they were summed
+# at (a database trigger moves it on every change of a handed-in annotation and every drop,
+# return or removal of a sentence, app.counts). A view with the same mark reads one row.
+_sums: dict[tuple[str, int, object], tuple[int, dict[int, Effort], Effort]] = {}
 
-    Cost per view: one row per handed-in annotation (ids, head, times, name) and the sums; the
-    revisions and trees are read only for annotations changed since the last view."""
+
+def _handed_in_mark(db: Session, corpus_id: int) -> int | None:
+    return db.scalar(select(FigureMark.handed_in_changes).where(FigureMark.corpus_id == corpus_id))
+
+
+def _summed(
+    db: Session, corpus_id: int, key: tuple[str, int, object]
+) -> tuple[dict[int, Effort], Effort]:
+    """The sums per user id and over the corpus, from the kept shares (see ``_parts``)."""
     rows = db.execute(
         select(Annotation.id, Annotation.head, Annotation.updated_at, Annotation.user_id)
         .join(Sentence, Sentence.id == Annotation.sentence_id)
@@ -172,11 +194,6 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
         )
         .order_by(Annotation.id)
     ).all()
-    key = (
-        str(db.get_bind().engine.url),
-        corpus_id,
-        db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
-    )
     prints: dict[int, _Fingerprint] = {aid: (head, upd, uid) for aid, head, upd, uid in rows}
     with _parts_lock:
         known = _parts.get(key, {})
@@ -194,28 +211,50 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     }
     with _parts_lock:
         _parts[key] = merged
-    names = dict(
-        db.execute(
-            select(User.id, User.username).where(User.id.in_({fp[2] for fp in prints.values()}))
-        ).all()
-    )
-    people: dict[str, Effort] = {}
+    people: dict[int, Effort] = {}
     total = Effort("all annotators")
     for fp, part in merged.values():
         if part is None:
             continue
-        name = names[fp[2]]
-        people.setdefault(name, Effort(name)).add(
+        people.setdefault(fp[2], Effort("")).add(
             part.n_words, part.seconds, part.actions, part.distance
         )
         total.add(part.n_words, part.seconds, part.actions, part.distance)
-    return sorted(people.values(), key=lambda e: e.name), total
+    return people, total
+
+
+def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
+    """Per annotator (by name) and for the whole corpus, over handed-in annotations.
+
+    Cost per view: one row (the corpus's figure marks) and a row per annotator when no
+    handed-in annotation changed since the last view; otherwise one row per handed-in
+    annotation (ids, head, times), and the revisions and trees only of annotations changed
+    since."""
+    key = (
+        str(db.get_bind().engine.url),
+        corpus_id,
+        db.scalar(select(Corpus.created_at).where(Corpus.id == corpus_id)),
+    )
+    mark = _handed_in_mark(db, corpus_id)  # read before the rows: a change after it is seen
+    with _parts_lock:  # by the next view
+        kept = _sums.get(key)
+    if kept is not None and mark is not None and kept[0] == mark:
+        people, total = kept[1], kept[2]
+    else:
+        people, total = _summed(db, corpus_id, key)
+        if mark is not None:
+            with _parts_lock:
+                _sums[key] = (mark, people, total)
+    names = dict(db.execute(select(User.id, User.username).where(User.id.in_(people))).all())
+    named = [replace(e, name=names[uid]) for uid, e in people.items() if uid in names]
+    return sorted(named, key=lambda e: e.name), total
 
 
 def forget_cached_parts() -> None:
     """Drop every kept share (the next view computes them all again)."""
     with _parts_lock:
         _parts.clear()
+        _sums.clear()
 
 
 #: The effort table's columns: (CSV header, heading on the Agreement page). The page and the

@@ -33,14 +33,13 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0012")
+    command.downgrade(cfg, "0013")
     engine = create_engine(settings.resolved_database_url)
     try:
         inspector = inspect(engine)
         tables = set(inspector.get_table_names())
-        run_columns = {c["name"] for c in inspector.get_columns("finding_runs")}
     finally:
         engine.dispose()
-    assert "queue_counts" in tables and "heartbeat_at" not in run_columns
+    assert "finding_runs" in tables and "figure_marks" not in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []
