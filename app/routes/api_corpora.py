@@ -60,7 +60,15 @@ class CorpusPublic(CorpusSummaryPublic):
     tag_set: list[str]
     settings: dict[str, Any]
     active_grammar_id: int | None
-    document_list: list[DocumentPublic]
+    document_list: list[DocumentPublic] = Field(
+        description="one page of the corpus's documents in their order (``documents`` is "
+        "how many there are in all)"
+    )
+    document_per_page: int
+    document_next_cursor: str | None = Field(
+        None,
+        description="pass as ``after`` for the next page of documents; null on the last page",
+    )
 
 
 class CorpusCreate(RequestModel):
@@ -163,7 +171,14 @@ def _summary(row: svc.CorpusCounts) -> dict[str, Any]:
     }
 
 
-def _detail(db: SessionDep, corpus: Corpus) -> CorpusPublic:
+#: Documents on one page of a corpus's detail unless ``per_page`` says otherwise.
+DOCUMENTS_PER_PAGE = 100
+
+
+def _detail(
+    db: SessionDep, corpus: Corpus, *, after: str | None = None, per_page: int = DOCUMENTS_PER_PAGE
+) -> CorpusPublic:
+    page = svc.document_page(db, corpus, per_page=per_page, after=after)
     docs = [
         DocumentPublic(
             id=d.document.id,
@@ -172,7 +187,7 @@ def _detail(db: SessionDep, corpus: Corpus) -> CorpusPublic:
             sentences=d.sentences,
             states=d.states,
         )
-        for d in svc.document_rows(db, corpus)
+        for d in page.rows
     ]
     return CorpusPublic(
         **_summary(svc.corpus_counts(db, corpus)),
@@ -181,6 +196,8 @@ def _detail(db: SessionDep, corpus: Corpus) -> CorpusPublic:
         settings=svc.effective_settings(corpus),
         active_grammar_id=corpus.active_grammar_id,
         document_list=docs,
+        document_per_page=page.per_page,
+        document_next_cursor=page.next_cursor,
     )
 
 
@@ -207,8 +224,20 @@ def create_corpus(body: CorpusCreate, login: ApiAdmin, db: SessionDep) -> Corpus
 
 
 @router.get("/api/corpora/{corpus_id}", response_model=CorpusPublic, responses=ERRORS)
-def corpus_detail(corpus_id: int, login: ApiUser, db: SessionDep) -> CorpusPublic:
-    return _detail(db, readable_corpus(db, corpus_id, login.user))
+def corpus_detail(
+    corpus_id: int,
+    login: ApiUser,
+    db: SessionDep,
+    after: str | None = Query(
+        None, max_length=64, description="a document cursor: the page after it"
+    ),
+    per_page: int = Query(
+        DOCUMENTS_PER_PAGE, ge=1, le=svc.DOCUMENTS_PER_PAGE_MAX, description="documents per page"
+    ),
+) -> CorpusPublic:
+    """The corpus with its counts and one page of its documents (keyset: a page costs the
+    same wherever it is)."""
+    return _detail(db, readable_corpus(db, corpus_id, login.user), after=after, per_page=per_page)
 
 
 @router.patch("/api/corpora/{corpus_id}", response_model=CorpusPublic, responses=ERRORS)

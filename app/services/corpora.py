@@ -404,17 +404,6 @@ class DocumentRow:
     states: dict[str, int]
 
 
-def document_rows(db: Session, corpus: Corpus) -> list[DocumentRow]:
-    """Every document of the corpus with its counts (the JSON API's detail; the corpus page
-    shows them a page at a time: :func:`document_page`)."""
-    docs = db.scalars(
-        select(Document)
-        .where(Document.corpus_id == corpus.id)
-        .order_by(Document.position, Document.id)
-    ).all()
-    return _with_counts(db, corpus, list(docs))
-
-
 def _with_counts(db: Session, corpus: Corpus, docs: list[Document]) -> list[DocumentRow]:
     where = [SentenceCount.corpus_id == corpus.id]
     if len(docs) <= DOCUMENTS_PER_PAGE_MAX:  # one page: only its documents' count rows

@@ -109,3 +109,38 @@ def test_corpus_page_shows_one_page_of_documents(login, db, people) -> None:
     assert far is not None
     chosen = admin.client.get(f"/corpora/{corpus.id}?document={far.id}").text
     assert f'<option value="{far.id}" selected>reel-0119</option>' in chosen
+
+
+def test_corpus_api_pages_list_every_document_once(login, db, people) -> None:
+    """/api/corpora/{id} gives one page of documents and a cursor to the next: following the
+    cursors lists every document once, in order, while documents are added between pages."""
+    corpus, _ = make_corpus(db, ["the tide turned ."], name="Reels")
+    _docs(db, corpus, 45)
+    at_start = set(db.scalars(select(Document.id).where(Document.corpus_id == corpus.id)))
+    reader = login("adj")  # adjudicators read every corpus
+    seen: list[int] = []
+    url = f"/api/corpora/{corpus.id}?per_page=7"
+    first = None
+    for pages in range(1, 100):
+        resp = reader.client.get(url)
+        assert resp.status_code == 200, resp.text
+        body = resp.json()
+        first = first or body
+        assert len(body["document_list"]) <= 7 and body["document_per_page"] == 7
+        seen += [d["id"] for d in body["document_list"]]
+        if pages == 2:  # added while someone pages through, at every position
+            _docs(db, corpus, 9, start=700)
+        if body["document_next_cursor"] is None:
+            break
+        url = f"/api/corpora/{corpus.id}?per_page=7&after={body['document_next_cursor']}"
+    everything = db.scalars(
+        select(Document.id)
+        .where(Document.corpus_id == corpus.id)
+        .order_by(Document.position, Document.id)
+    ).all()
+    assert len(seen) == len(set(seen))
+    assert at_start <= set(seen) and seen == [d for d in everything if d in set(seen)]
+    # the corpus's other fields stay: all documents counted, one page listed
+    assert first is not None and first["documents"] == 46 and first["name"] == "Reels"
+    bad = reader.client.get(f"/api/corpora/{corpus.id}?after=up-the-river")
+    assert bad.status_code == 422 and "POSITION-ID" in bad.text
