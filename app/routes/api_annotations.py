@@ -11,7 +11,7 @@ import logging
 import math
 from typing import Any
 
-from fastapi import APIRouter, Query, Request
+from fastapi import APIRouter, BackgroundTasks, Query, Request
 from sqlalchemy.orm import Session
 
 from app.deps import ApiUser, SessionDep
@@ -49,7 +49,7 @@ from app.schemas.annotation import (
     TokenFixRequest,
 )
 from app.services import annotation as svc
-from app.services import suggestions, tokens, training
+from app.services import refresh, suggestions, tokens, training
 from app.services.admission import ParserBusy
 from app.services.corpora import get_corpus
 from parser.trees import write_tree
@@ -269,11 +269,26 @@ def save_revision(
 
 @router.post("/api/bench/{sentence_id}/submit", response_model=AnnotationPublic, responses=ERRORS)
 def submit(
-    sentence_id: int, body: SubmitRequest, login: ApiUser, db: SessionDep
+    sentence_id: int,
+    body: SubmitRequest,
+    login: ApiUser,
+    db: SessionDep,
+    request: Request,
+    background: BackgroundTasks,
 ) -> AnnotationPublic:
-    """Mark your annotation submitted; ``base`` must be your current head."""
+    """Mark your annotation submitted; ``base`` must be your current head. After the
+    response, the next sentences of your queue are parsed under the active grammar if they
+    lack its suggestion (app.services.refresh.refresh_after_hand_in)."""
     sentence = svc.assigned_sentence(db, login.user, sentence_id)
-    return _annotation_public(svc.submit(db, login.user, sentence, base=body.base))
+    done = _annotation_public(svc.submit(db, login.user, sentence, base=body.base))
+    background.add_task(
+        refresh.refresh_after_hand_in,
+        request.app.state.sessionmaker,
+        sentence.corpus_id,
+        login.user.id,
+        k=request.app.state.settings.suggestion_k,
+    )
+    return done
 
 
 @router.patch("/api/bench/{sentence_id}/note", response_model=AnnotationPublic, responses=ERRORS)

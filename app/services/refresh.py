@@ -31,6 +31,15 @@ Where it runs
     parse admission's slots (:func:`app.services.admission.parallel_parses`), one numba
     thread each, so a background refresh never runs more parse threads than the cores.
 
+After a hand-in
+    The look-ahead moves as annotators work: :func:`refresh_after_hand_in` (run by the Bench's
+    hand-in after its response is sent) parses the next ``refresh_lookahead`` open sentences
+    of that annotator's queue that lack a complete suggestion of the active version, usually
+    the one sentence that just came into the window. It goes through the parse admission pool
+    like a page's parse, so it never runs more parses at once than the pool allows, and it
+    stops as soon as anybody is waiting in the pool's line: people at a page come first. Its
+    parses are the ones the annotator's next openings would otherwise wait for.
+
 Cost: one query per annotator for the look-ahead (an index walk of ``ix_assignments_queue``),
 then one complete parse (k-best with posteriors) per sentence refreshed, committed in batches.
 """
@@ -42,7 +51,7 @@ import time
 from dataclasses import dataclass
 
 from sqlalchemy import func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, sessionmaker
 
 from app.corpus_settings import retrain_interval
 from app.models import (
@@ -56,9 +65,16 @@ from app.models import (
     SentenceCount,
     Suggestion,
 )
-from app.services.admission import parallel_parses
+from app.services.admission import admission, parallel_parses
+from app.services.errors import ServiceError
 from app.services.queue_order import unfinished
-from app.services.suggestions import active_version, grammar_for, suggestion_values, too_long
+from app.services.suggestions import (
+    active_version,
+    grammar_for,
+    suggestion_for,
+    suggestion_values,
+    too_long,
+)
 from app.services.validation import stored_words
 from parser.batch import parse_many
 
@@ -262,3 +278,38 @@ def _record(
     db.execute(
         update(GrammarVersion).where(GrammarVersion.id == version.id).values(options=options)
     )
+
+
+def refresh_after_hand_in(
+    factory: sessionmaker[Session], corpus_id: int, user_id: int, *, k: int = 5
+) -> int:
+    """Parse the next open sentences of ``user_id``'s queue in the corpus (at most the
+    corpus's ``refresh_lookahead``) that lack a complete suggestion of the active version,
+    one at a time through the parse admission pool, stopping when anybody waits in its line
+    (see the module docstring). Opens its own session (it runs after the request's); commits
+    each suggestion. Returns how many sentences it parsed."""
+    with factory() as db:
+        corpus = db.get(Corpus, corpus_id)
+        if corpus is None:
+            return 0
+        version = active_version(db, corpus)
+        if version is None:
+            return 0
+        wanted = lookahead(db, corpus, [user_id], corpus.options.refresh_lookahead)
+        have = _complete_under(db, wanted, version.id)
+        parsed = 0
+        for sentence_id in wanted:
+            if sentence_id in have:
+                continue
+            if admission().waiting:  # a page is waiting for the parser: it comes first
+                break
+            sentence = db.get(Sentence, sentence_id)
+            if sentence is None or too_long(stored_words(sentence)):
+                continue
+            try:
+                if suggestion_for(db, sentence, corpus, k, complete=True) is not None:
+                    parsed += 1
+            except ServiceError:  # the pool is busy or the grammar changed: openings parse
+                db.rollback()
+                break
+        return parsed

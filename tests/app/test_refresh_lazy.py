@@ -17,7 +17,7 @@ from app.routes.api_annotations import _suggestion_public
 from app.services import refresh, suggestions
 from parser.grammar import train_grammar
 from parser.trees import read_trees
-from tests.app.bench_helpers import assign, install_grammar, make_corpus
+from tests.app.bench_helpers import assign, flat_text, install_grammar, make_corpus
 
 #: Invented workshop notes, one sentence each.
 TEXTS = [
@@ -159,3 +159,50 @@ def test_lazy_refresh_never_shows_an_inactive_grammar_s_suggestion_as_fresh(
     shown = _suggestion_public(db, db.get(Corpus, corpus.id), old)
     assert shown is not None and shown.stale is True and shown.grammar_version == 1
     assert db.get(Sentence, fixed.id).start_grammar_version_id == v1.id
+
+
+def _hand_in(who, sentence: Sentence) -> None:  # type: ignore[no-untyped-def]
+    saved = who.client.post(
+        f"/api/bench/{sentence.id}/revisions",
+        json={"base": 0, "tree": flat_text(sentence.tokens)},
+        headers=who.headers(),
+    )
+    assert saved.status_code == 201, saved.text
+    done = who.client.post(
+        f"/api/bench/{sentence.id}/submit",
+        json={"base": saved.json()["annotation"]["head"]},
+        headers=who.headers(),
+    )
+    assert done.status_code == 200, done.text
+
+
+def _complete_under(db, version_id: int) -> set[int]:  # type: ignore[no-untyped-def]
+    db.expire_all()
+    return {
+        row.sentence_id
+        for row in db.scalars(select(Suggestion).where(Suggestion.grammar_version_id == version_id))
+        if suggestions.is_complete(row)
+    }
+
+
+def test_a_hand_in_refreshes_the_next_sentences_of_that_queue(db, people, login) -> None:
+    """After a hand-in the look-ahead moves: the next ``refresh_lookahead`` open sentences of
+    the annotator's queue get a complete suggestion of the grammar active then (in the
+    background, after the response), and nobody else's queue is parsed."""
+    corpus, sentences = make_corpus(db, TEXTS)
+    assign(db, sentences[0:6], people.ann1)
+    assign(db, sentences[6:10], people.ann2)
+    _set(db, corpus, refresh_lookahead=2)
+    first = install_grammar(db, corpus, demo_grammar_bytes(3))
+    ids = [s.id for s in sentences]
+    ann1 = login("ann1")
+    _hand_in(ann1, sentences[0])
+    # the next two open sentences of ann1's queue, under the active version
+    assert _complete_under(db, first.id) == {ids[1], ids[2]}
+    # a new version becomes active: the next hand-in parses the look-ahead under it
+    second = install_grammar(db, corpus, demo_grammar_bytes(2), number=2)
+    _hand_in(ann1, sentences[1])
+    assert _complete_under(db, second.id) == {ids[2], ids[3]}
+    assert _complete_under(db, first.id) == {ids[1], ids[2]}  # nothing more under the old one
+    # ann2's queue was not touched by ann1's hand-ins
+    assert not (_parsed_under(db, second.id) | _parsed_under(db, first.id)) & set(ids[6:])
