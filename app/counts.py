@@ -33,11 +33,19 @@ changes to handed-in annotations (an annotation inserted, changed or removed whi
 before or after, and the same sentence changes). A view compares one row with the marks its
 sums were made at. Cost: one indexed row update per such write; on PostgreSQL hand-ins in
 one corpus queue at its row until each commits (short transactions).
+
+The ``queue_blocks`` table (:class:`app.models.QueueBlock`) counts each user's assignments per
+corpus and block of ranks (``rank >> QUEUE_BLOCK_BITS``), kept by triggers on ``assignments``
+(insert, delete, a change of user, corpus or rank), so a sentence's place in its queue sums
+the blocks before it and counts inside its own block: O(blocks + block size) instead of
+O(place). Cost: one indexed row update per assignment write.
 """
 
 from __future__ import annotations
 
 from sqlalchemy import Connection, Engine, text
+
+from app.models import QUEUE_BLOCK_BITS
 
 TRIGGER_NAMES = (
     "tw_sentence_counts_insert",
@@ -59,6 +67,9 @@ TRIGGER_NAMES = (
     "tw_marks_ann_insert",
     "tw_marks_ann_update",
     "tw_marks_ann_delete",
+    "tw_queue_blocks_insert",
+    "tw_queue_blocks_delete",
+    "tw_queue_blocks_update",
 )
 
 _ADD = (
@@ -125,6 +136,16 @@ _M_ANN = (
     "UPDATE figure_marks SET handed_in_changes = handed_in_changes + 1 "
     "WHERE corpus_id = (SELECT corpus_id FROM sentences WHERE id = {r}.sentence_id)"
 )
+# queue_blocks: {r} is NEW or OLD
+_B_ADD = (
+    "INSERT INTO queue_blocks (user_id, corpus_id, block, n) "
+    "VALUES ({r}.user_id, {r}.corpus_id, {r}.rank >> " + str(QUEUE_BLOCK_BITS) + ", 1) "
+    "ON CONFLICT (user_id, corpus_id, block) DO UPDATE SET n = queue_blocks.n + 1"
+)
+_B_REMOVE = (
+    "UPDATE queue_blocks SET n = n - 1 WHERE user_id = {r}.user_id "
+    "AND corpus_id = {r}.corpus_id AND block = {r}.rank >> " + str(QUEUE_BLOCK_BITS)
+)
 _WAS_DROPPED = "(OLD.state = 'dropped') <> (NEW.state = 'dropped')"
 _HANDED_IN = "(OLD.state = 'submitted' OR NEW.state = 'submitted')"
 
@@ -174,6 +195,13 @@ _SQLITE = [
     f"WHEN {_HANDED_IN} BEGIN {_M_ANN.format(r='OLD')}; {_M_ANN.format(r='NEW')}; END",
     "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_delete AFTER DELETE ON annotations "
     f"WHEN OLD.state = 'submitted' BEGIN {_M_ANN.format(r='OLD')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_insert AFTER INSERT ON assignments "
+    f"BEGIN {_B_ADD.format(r='NEW')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_delete AFTER DELETE ON assignments "
+    f"BEGIN {_B_REMOVE.format(r='OLD')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_update "
+    "AFTER UPDATE OF user_id, corpus_id, rank ON assignments "
+    f"BEGIN {_B_REMOVE.format(r='OLD')}; {_B_ADD.format(r='NEW')}; END",
 ]
 
 
@@ -269,6 +297,10 @@ END $$ LANGUAGE plpgsql""",
     "DROP TRIGGER IF EXISTS tw_marks_ann ON annotations",
     "CREATE TRIGGER tw_marks_ann AFTER INSERT OR DELETE OR UPDATE ON annotations "
     "FOR EACH ROW EXECUTE FUNCTION tw_marks_ann()",
+    _row_function("tw_queue_blocks", _B_REMOVE.format(r="OLD"), _B_ADD.format(r="NEW")),
+    "DROP TRIGGER IF EXISTS tw_queue_blocks ON assignments",
+    "CREATE TRIGGER tw_queue_blocks AFTER INSERT OR DELETE OR UPDATE OF user_id, corpus_id, "
+    "rank ON assignments FOR EACH ROW EXECUTE FUNCTION tw_queue_blocks()",
 ]
 # PostgreSQL folds several events into one trigger; these are the names it uses.
 _POSTGRES_NAMES = (
@@ -283,6 +315,7 @@ _POSTGRES_NAMES = (
     "tw_marks_sentence_state",
     "tw_marks_sentence_delete",
     "tw_marks_ann",
+    "tw_queue_blocks",
 )
 
 
@@ -306,6 +339,14 @@ def recount(conn: Connection) -> None:
             "LEFT JOIN annotations n ON n.sentence_id = a.sentence_id "
             "AND n.user_id = a.user_id AND n.state = 'submitted' "
             "GROUP BY a.user_id, a.corpus_id"
+        )
+    )
+    conn.execute(text("DELETE FROM queue_blocks"))
+    conn.execute(
+        text(
+            "INSERT INTO queue_blocks (user_id, corpus_id, block, n) "
+            f"SELECT user_id, corpus_id, rank >> {QUEUE_BLOCK_BITS}, COUNT(*) FROM assignments "
+            f"GROUP BY user_id, corpus_id, rank >> {QUEUE_BLOCK_BITS}"
         )
     )
     # the change marks move on (never back): sums a process kept are then summed again
@@ -401,6 +442,11 @@ def drop_mark_triggers(conn: Connection) -> None:
         _MARK_TRIGGERS_PG,
         ("tw_marks_corpus", "tw_marks_record", "tw_marks_sentence", "tw_marks_ann"),
     )
+
+
+def drop_block_triggers(conn: Connection) -> None:
+    """Remove the queue_blocks triggers (migration 0015's downgrade)."""
+    _drop(conn, "tw_queue_blocks", {"tw_queue_blocks": "assignments"}, ("tw_queue_blocks",))
 
 
 def drop_queue_triggers(conn: Connection) -> None:

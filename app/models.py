@@ -370,6 +370,24 @@ class QueueCount(Base):
     dropped: Mapped[int] = mapped_column(Integer, default=0)
 
 
+#: Queue ranks per block of :class:`QueueBlock`: a rank's block is ``rank >> QUEUE_BLOCK_BITS``.
+QUEUE_BLOCK_BITS = 10
+
+
+class QueueBlock(Base):
+    """How many of a user's assignments in a corpus have a rank in one block of ranks
+    (``rank >> QUEUE_BLOCK_BITS``: 1,024 ranks, so at most one document in reading order), kept
+    by database triggers on ``assignments`` (:mod:`app.counts`). A sentence's place in its
+    queue is the sum of the blocks before its own plus a count inside its block, instead of
+    a count of every assignment before it."""
+
+    __tablename__ = "queue_blocks"
+    user_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    block: Mapped[int] = mapped_column(BigInteger, primary_key=True)
+    n: Mapped[int] = mapped_column(Integer, default=0)
+
+
 class FigureMark(Base):
     """Change marks of a corpus's figures, kept by database triggers (:mod:`app.counts`): how
     many agreement records the corpus has, how many times a record was removed or a sentence

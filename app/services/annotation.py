@@ -35,6 +35,7 @@ from app.models import (
     ANN_DRAFT,
     ANN_FLAGGED,
     ANN_SUBMITTED,
+    QUEUE_BLOCK_BITS,
     REV_SOURCES,
     SENT_DROPPED,
     SENT_GOLD,
@@ -47,6 +48,7 @@ from app.models import (
     Corpus,
     Document,
     Event,
+    QueueBlock,
     QueueCount,
     Revision,
     Sentence,
@@ -473,15 +475,39 @@ def queue_counts(db: Session, user: User, corpus_id: int | None = None) -> tuple
     return assigned - dropped, submitted
 
 
-def _earlier(db: Session, user: User, corpus_id: int | None, earlier: Any) -> int:
-    """How many sentences of the user's queue come before a key: an index range over the
-    user's assignments (``ix_assignments_queue``), O(place in the queue) index entries;
+def _earlier(db: Session, user: User, corpus_id: int | None, here: tuple[int, int, int]) -> int:
+    """How many sentences of the user's queue (or of its part in one corpus) come before the
+    queue key ``here``: the maintained counts of the rank blocks before ``here``'s block
+    (``queue_blocks``, :mod:`app.counts`) plus an index range inside its block (at most 1,024
+    ranks of ``ix_assignments_queue``), so O(blocks + one block) rather than O(place);
     dropped ones are subtracted only when the user has any (the maintained counts say)."""
-    where = _mine(user, corpus_id)
-    count = db.scalar(select(func.count()).select_from(Assignment).where(*where, earlier)) or 0
+    in_corpus, rank, _ = here
+    block = rank >> QUEUE_BLOCK_BITS
+    where: list[Any] = [
+        QueueBlock.user_id == user.id,
+        tuple_(QueueBlock.corpus_id, QueueBlock.block) < tuple_(in_corpus, block),
+    ]
+    if corpus_id is not None:
+        where.append(QueueBlock.corpus_id == corpus_id)
+    blocks = db.scalar(select(func.coalesce(func.sum(QueueBlock.n), 0)).where(*where)) or 0
+    earlier = tuple_(*_QUEUE_KEY) < tuple_(*here)
+    inside = (
+        db.scalar(
+            select(func.count())
+            .select_from(Assignment)
+            .where(
+                Assignment.user_id == user.id,
+                Assignment.corpus_id == in_corpus,
+                Assignment.rank >= block << QUEUE_BLOCK_BITS,
+                earlier,
+            )
+        )
+        or 0
+    )
+    count = int(blocks) + int(inside)
     if _maintained(db, user, corpus_id)[2]:
         count -= _dropped(db, user, corpus_id, earlier)
-    return int(count)
+    return count
 
 
 def queue_page(
@@ -540,7 +566,7 @@ def queue_page(
     total, submitted = queue_counts(db, user, corpus_id)
     first_index = 1
     if rows and has_prev:
-        first_index += _earlier(db, user, corpus_id, key < tuple_(*_key_of(rows[0])))
+        first_index += _earlier(db, user, corpus_id, _key_of(rows[0]))
     items = [
         QueueItem(
             sentence_id=r[2],
@@ -620,7 +646,7 @@ def queue_place(db: Session, user: User, sentence_id: int) -> QueuePlace:
     key = tuple_(*_QUEUE_KEY)
     earlier, later = key < tuple_(*here), key > tuple_(*here)
     mine = _mine(user, None)
-    before = _earlier(db, user, None, earlier)
+    before = _earlier(db, user, None, here)
     in_queue = (
         select(Assignment.sentence_id)
         .join(Sentence, Sentence.id == Assignment.sentence_id)

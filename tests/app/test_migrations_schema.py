@@ -33,13 +33,13 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0013")
+    command.downgrade(cfg, "0014")
     engine = create_engine(settings.resolved_database_url)
     try:
         inspector = inspect(engine)
         tables = set(inspector.get_table_names())
     finally:
         engine.dispose()
-    assert "finding_runs" in tables and "figure_marks" not in tables
+    assert "figure_marks" in tables and "queue_blocks" not in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []

@@ -13,11 +13,13 @@ from sqlalchemy import delete, func, select, update
 from app.models import (
     ANN_DRAFT,
     ANN_SUBMITTED,
+    QUEUE_BLOCK_BITS,
     SENT_DROPPED,
     SENT_QUEUED,
     Annotation,
     Assignment,
     Corpus,
+    QueueBlock,
     QueueCount,
     Sentence,
     User,
@@ -50,9 +52,21 @@ def _kept(db) -> dict[tuple[int, int], tuple[int, int, int]]:  # type: ignore[no
     }
 
 
+def _blocks(db) -> tuple[dict, dict]:  # type: ignore[no-untyped-def]
+    """(kept, recounted) assignments per (user, corpus, rank block), zero counts left out."""
+    kept = {(b.user_id, b.corpus_id, b.block): b.n for b in db.scalars(select(QueueBlock)) if b.n}
+    recounted: dict[tuple[int, int, int], int] = {}
+    for a in db.scalars(select(Assignment)):
+        block = (a.user_id, a.corpus_id, a.rank >> QUEUE_BLOCK_BITS)
+        recounted[block] = recounted.get(block, 0) + 1
+    return kept, recounted
+
+
 def _check(db) -> None:  # type: ignore[no-untyped-def]
     db.expire_all()
     assert _kept(db) == _recount(db)
+    kept, recounted = _blocks(db)
+    assert kept == recounted
 
 
 def test_queue_counts_equal_a_recount_through_random_writes(db, people) -> None:
@@ -68,7 +82,7 @@ def test_queue_counts_equal_a_recount_through_random_writes(db, people) -> None:
         user = rng.choice(users)
         if db.get(Sentence, sentence.id) is None:
             continue
-        action = rng.randrange(7)
+        action = rng.randrange(8)
         assigned = db.scalar(
             select(Assignment).where(
                 Assignment.sentence_id == sentence.id, Assignment.user_id == user.id
@@ -98,6 +112,8 @@ def test_queue_counts_equal_a_recount_through_random_writes(db, people) -> None:
         elif action == 5:
             now = db.get(Sentence, sentence.id)
             now.state = SENT_QUEUED if now.state == SENT_DROPPED else SENT_DROPPED
+        elif action == 7 and assigned is not None:  # another queue order: a new rank
+            assigned.rank = rng.randrange(0, 8 << QUEUE_BLOCK_BITS)
         elif action == 6 and rng.random() < 0.15:
             db.execute(delete(Sentence).where(Sentence.id == sentence.id))
         db.commit()
@@ -147,3 +163,51 @@ def test_queue_counts_follow_an_annotation_import_and_feed_the_queue(db, people)
     last = db.scalar(select(Sentence.id).order_by(Sentence.id.desc()))
     place = queue.queue_place(db, people.ann2, last)
     assert (place.index, place.total) == (6, 6)
+
+
+def test_queue_place_from_rank_blocks_equals_a_count_of_the_queue(db, people) -> None:
+    """The Bench's place in the queue (blocks before it plus a count inside its block)
+    equals the place counted over the whole queue, with ranks spread over many blocks,
+    several in one block, dropped sentences, new ranks and removed assignments."""
+    rng = random.Random(11)  # common practice, no source: a seeded random layout
+    sentences = []
+    for name in ("East", "West"):
+        _, made = make_corpus(db, [f"cleat {i} ." for i in range(30)], name=name)
+        sentences += made
+    for s in sentences:
+        db.add(Assignment(sentence_id=s.id, user_id=people.ann1.id))
+    db.commit()
+
+    def shuffle_ranks(share: float) -> None:
+        for a in db.scalars(select(Assignment)):
+            if rng.random() < share:
+                a.rank = rng.randrange(0, 12 << QUEUE_BLOCK_BITS)
+        db.commit()
+
+    def check() -> None:
+        db.expire_all()
+        rows = db.execute(
+            select(Assignment.corpus_id, Assignment.rank, Assignment.sentence_id, Sentence.state)
+            .join(Sentence, Sentence.id == Assignment.sentence_id)
+            .where(Assignment.user_id == people.ann1.id)
+        ).all()
+        queue = sorted((c, r, sid) for c, r, sid, state in rows if state != SENT_DROPPED)
+        for place, (_, _, sid) in enumerate(queue, start=1):
+            assert queue_place(sid) == place, sid
+        kept, recounted = _blocks(db)
+        assert kept == recounted and len(kept) > 10  # ranks spread over many blocks
+
+    def queue_place(sid: int) -> int:
+        return queue.queue_place(db, people.ann1, sid).index
+
+    shuffle_ranks(1.0)
+    check()
+    for s in rng.sample(sentences, 8):
+        db.get(Sentence, s.id).state = SENT_DROPPED
+    db.commit()
+    check()
+    shuffle_ranks(0.3)
+    for a in rng.sample(list(db.scalars(select(Assignment))), 6):
+        db.delete(a)
+    db.commit()
+    check()
