@@ -522,17 +522,19 @@ def corpus_figures(
         less = None
         if hidden:
             less = _Tally()
-            for r in db.scalars(
-                select(AgreementRecord)
-                .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-                .where(
-                    AgreementRecord.sentence_id.in_(hidden & tally.sentences),
-                    AgreementRecord.corpus_id == corpus_id,
-                    AgreementRecord.id <= tally.last_id,
-                    Sentence.state != SENT_DROPPED,
-                )
-            ):
-                less.add(r)
+            ids = sorted(hidden & tally.sentences)
+            for at in range(0, len(ids), 500):  # a bounded list of parameters per query
+                for r in db.scalars(
+                    select(AgreementRecord)
+                    .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+                    .where(
+                        AgreementRecord.sentence_id.in_(ids[at : at + 500]),
+                        AgreementRecord.corpus_id == corpus_id,
+                        AgreementRecord.id <= tally.last_id,
+                        Sentence.state != SENT_DROPPED,
+                    )
+                ):
+                    less.add(r)
         names = _user_names(db, {u for pair in tally.pairs for u in pair})
         return tally.figures(names, top_confusions, minus=less)
 
