@@ -31,7 +31,7 @@ import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from nltk import Tree
@@ -98,6 +98,9 @@ class ParseResult:
     consensus: Tree | None = None
     #: With the posteriors: per word, {POS tag: posterior} for tags above the threshold.
     tag_posteriors: list[dict[str, float]] = field(default_factory=list)
+    #: With ``max_rule``: the max-rule-product tree (:meth:`_Chart.max_rule_tree`); None
+    #: otherwise or when it has none.
+    max_rule: Tree | None = None
 
 
 class _Tables:
@@ -314,6 +317,7 @@ def parse(
     posterior_threshold: float = POSTERIOR_THRESHOLD,
     consensus_cost: float = DEFAULT_COST,
     prune: float | None = REFINED_PRUNE,
+    max_rule: bool = False,
 ) -> ParseResult:
     """Parse ``words``; see the module docstring. Raises ConstraintError for malformed
     constraints and ParserError for an empty sentence; never for ordinary words.
@@ -321,7 +325,8 @@ def parse(
     With ``posteriors`` the result also holds the consensus tree (:mod:`parser.consensus`,
     bracket cost ``consensus_cost``); ``posterior_threshold`` must stay below that cost.
     A refined grammar (:mod:`parser.latent`) is parsed coarse-to-fine with the pruning
-    threshold ``prune`` (None: its full chart, exact)."""
+    threshold ``prune`` (None: its full chart, exact). With ``max_rule`` the result also
+    holds the max-rule-product tree (one more pass over the chart)."""
     t0 = time.perf_counter()
     words = [str(w) for w in words]
     if not words:
@@ -363,6 +368,8 @@ def parse(
             required=prob.required,
             cost=consensus_cost,
         )
+    if max_rule:
+        result.max_rule = chart.max_rule_tree(words)
     result.seconds = time.perf_counter() - t0
     return result
 
@@ -520,6 +527,7 @@ class _Chart:
         self.best = float(self.vt[self.full, g.start])
         self.ok = self.best > -math.inf
         self._inside: tuple[np.ndarray, ...] | None = None
+        self._outside_cache: tuple[bool, tuple[np.ndarray, ...]] | None = None
         self.tag_posteriors: list[dict[str, float]] = []
 
     # ------------------------------------------------------------- Viterbi tree
@@ -547,17 +555,16 @@ class _Chart:
         return unbinarize(holder[0])
 
     # ------------------------------------------------------------- inside / outside
+    def _span_data(self) -> tuple[Any, ...]:
+        """The leading arguments of the inside and max-rule kernels (sentence and constraints)."""
+        p = self.p
+        return p.n, self.g.n_symbols, p.sid, p.dead, p.code, p.req_off, p.req_lab
+
     def _inside_chart(self) -> tuple[np.ndarray, ...]:
         if self._inside is None:
             p, tab = self.p, self.tab
             self._inside = kernels.inside(
-                p.n,
-                self.g.n_symbols,
-                p.sid,
-                p.dead,
-                p.code,
-                p.req_off,
-                p.req_lab,
+                *self._span_data(),
                 np.maximum(p.lex, kernels.NEG),
                 np.maximum(self.vt, kernels.NEG),
                 tab.pair_left,
@@ -580,10 +587,12 @@ class _Chart:
         it, _, sigma, _, _ = self._inside_chart()
         return float(np.log(it[self.full, self.g.start]) + sigma[self.full])
 
-    def _outside(self, want_symbols: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _outside(self, want_symbols: bool) -> tuple[np.ndarray, ...]:
+        if self._outside_cache is not None and (not want_symbols or self._outside_cache[0]):
+            return self._outside_cache[1]
         it, ib, sigma, il, ir = self._inside_chart()
         p, tab = self.p, self.tab
-        out: tuple[np.ndarray, np.ndarray, np.ndarray] = kernels.outside(
+        out: tuple[np.ndarray, ...] = kernels.outside(
             p.n,
             self.g.n_symbols,
             self.g.start,
@@ -613,6 +622,7 @@ class _Chart:
             p.backoff,
             want_symbols,
         )
+        self._outside_cache = (want_symbols, out)
         return out
 
     def symbol_posteriors(self) -> np.ndarray:
@@ -621,7 +631,7 @@ class _Chart:
         return self._outside(True)[2]
 
     def posteriors(self, threshold: float) -> tuple[float, list[tuple[str, int, int, float]]]:
-        post, tpost, _ = self._outside(False)
+        post, tpost = self._outside(False)[:2]
         p, tab = self.p, self.tab
         self.tag_posteriors = []
         for i in range(p.n):
@@ -643,6 +653,66 @@ class _Chart:
         ]
         out.sort(key=lambda x: (x[1], -x[2], x[0]))
         return self.inside(), out
+
+    # ------------------------------------------------------------- max-rule
+    def max_rule_tree(self, words: Sequence[str]) -> Tree | None:
+        """The max-rule-product tree (:func:`parser.kernels.max_rule`) over the coarse
+        symbols of :func:`max_rule_tables` (a refined grammar's base symbols; a plain
+        grammar's own); None when no tree of positive posterior rules exists."""
+        it, ib, sigma, il, ir = self._inside_chart()
+        OL, OR = self._outside(False)[3:5]
+        p, tab = self.p, self.tab
+        m = max_rule_tables(self.g)
+        MT, _, bp_rule, bp_split, bp_edge = kernels.max_rule(
+            *self._span_data(),
+            ib,
+            sigma,
+            il,
+            ir,
+            OL,
+            OR,
+            tab.pair_left,
+            tab.pair_right,
+            tab.pair_off,
+            m.g_off,
+            m.g_rules,
+            m.g_coarse,
+            m.r_parent,
+            m.r_w,
+            tab.up,
+            tab.uc,
+            tab.uw,
+            m.e_coarse,
+            tab.nonempty,
+            tab.haslab,
+            p.backoff,
+            m.to_coarse,
+            m.n_coarse,
+            m.c_parent,
+            m.c_left,
+            m.c_right,
+            m.ce_parent,
+            m.ce_child,
+        )
+        if MT[self.full, m.start] <= kernels.LOW:
+            return None
+        holder: list[Tree] = []
+        todo: list[tuple[int, int, int, list[Any]]] = [(0, p.n, m.start, holder)]
+        while todo:
+            i, k, a, out = todo.pop()
+            s = p.sid[i, k]
+            ce = int(bp_edge[s, a])
+            top_node, low = open_chain(self.g.chains[m.ce_chain[ce]], [])
+            out.append(top_node)
+            if k - i == 1:
+                low.append(words[i])
+                continue
+            b = int(m.ce_child[ce])
+            cr = int(bp_rule[s, b])
+            j = int(bp_split[s, b])
+            todo.append((j, k, int(m.c_right[cr]), low))
+            todo.append((i, j, int(m.c_left[cr]), low))
+        return unbinarize(holder[0])
 
     # ------------------------------------------------------------- k-best
     def kbest(self, words: Sequence[str], k: int) -> tuple[list[Tree], list[float]]:
@@ -668,6 +738,76 @@ class _Chart:
             if len(trees) == k:
                 break
         return trees, scores
+
+
+@dataclass
+class _MaxRuleTables:
+    """The fine grammar's rules and edges grouped by the coarse rule or edge they project to
+    (see :func:`parser.kernels.max_rule`)."""
+
+    to_coarse: np.ndarray
+    n_coarse: int
+    start: int
+    g_off: np.ndarray
+    g_rules: np.ndarray
+    g_coarse: np.ndarray
+    r_parent: np.ndarray
+    r_w: np.ndarray
+    c_parent: np.ndarray
+    c_left: np.ndarray
+    c_right: np.ndarray
+    e_coarse: np.ndarray
+    ce_parent: np.ndarray
+    ce_child: np.ndarray
+    ce_chain: np.ndarray
+
+
+def max_rule_tables(g: Grammar) -> _MaxRuleTables:
+    """Tables of the max-rule decoder for ``g`` (cached on the grammar): a refined grammar's
+    rules project onto its base symbols (:func:`parser.latent.coarse_grammar`), a plain
+    grammar's onto themselves."""
+    cached = g.__dict__.get("_max_rule")
+    if cached is not None:
+        return cast(_MaxRuleTables, cached)
+    tab = tables(g)
+    if "latent" in g.meta:
+        from parser.latent import coarse_grammar
+
+        to_coarse = coarse_grammar(g)[1].astype(np.int64)
+    else:
+        to_coarse = np.arange(g.n_symbols, dtype=np.int64)
+    keys = np.stack(
+        [to_coarse[tab.lo_parent], to_coarse[tab.lo_left], to_coarse[tab.lo_right]], axis=1
+    )
+    crules, c_of_rule = np.unique(keys, axis=0, return_inverse=True)
+    c_of_rule = c_of_rule.ravel()
+    pair_of_rule = np.repeat(np.arange(len(tab.pair_left)), np.diff(tab.pair_off))
+    order = np.lexsort((c_of_rule, pair_of_rule))
+    pq, cq = pair_of_rule[order], c_of_rule[order]
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = (pq[1:] != pq[:-1]) | (cq[1:] != cq[:-1])
+    starts = np.flatnonzero(first)
+    ekeys = np.stack([to_coarse[tab.up], to_coarse[tab.uc], tab.uchain], axis=1)
+    cedges, e_coarse = np.unique(ekeys, axis=0, return_inverse=True)
+    m = _MaxRuleTables(
+        to_coarse=to_coarse,
+        n_coarse=int(to_coarse.max()) + 1,
+        start=int(to_coarse[g.start]),
+        g_off=np.searchsorted(pq[starts], np.arange(len(tab.pair_left) + 1)).astype(np.int64),
+        g_rules=np.append(starts, len(order)).astype(np.int64),
+        g_coarse=np.ascontiguousarray(cq[starts]).astype(np.int64),
+        r_parent=np.ascontiguousarray(tab.lo_parent[order]),
+        r_w=np.ascontiguousarray(tab.lo_w[order]),
+        c_parent=np.ascontiguousarray(crules[:, 0]),
+        c_left=np.ascontiguousarray(crules[:, 1]),
+        c_right=np.ascontiguousarray(crules[:, 2]),
+        e_coarse=np.ascontiguousarray(e_coarse.ravel()).astype(np.int64),
+        ce_parent=np.ascontiguousarray(cedges[:, 0]),
+        ce_child=np.ascontiguousarray(cedges[:, 1]),
+        ce_chain=np.ascontiguousarray(cedges[:, 2]),
+    )
+    g.__dict__["_max_rule"] = m
+    return m
 
 
 # ------------------------------------------------------------------------- fallback

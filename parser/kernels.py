@@ -84,6 +84,37 @@ def _edge_logw(
     return 0.0
 
 
+@njit(cache=True, inline="always")
+def _span_edges(
+    OL, OR, i, k, s, kind, ibot, up, uc, uw, code, req_off, req_lab, nonempty, haslab, backoff,
+    otop, obot, pe,
+):  # fmt: skip
+    """The outside pass at span ``s`` = (i, k) through its unary edges: fills ``otop`` (outside
+    of each top), adds to ``obot`` (outside of each bottom) and sets ``pe[e]`` (posterior of
+    edge e over the span; zeros expected). False when nothing reaches the span."""
+    any_out = False
+    for a in range(otop.shape[0]):
+        otop[a] = OL[i, a, k] + OR[k, a, i]
+        if otop[a] != 0.0:
+            any_out = True
+    if not any_out:
+        return False
+    for e in range(up.shape[0]):
+        oa = otop[up[e]]
+        if oa == 0.0:
+            continue
+        bv = ibot[uc[e]]
+        if bv == 0.0:
+            continue
+        pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
+        if pen <= LOW:
+            continue
+        w = uw[e] * (1.0 if pen == 0.0 else np.exp(pen))
+        obot[uc[e]] += oa * w
+        pe[e] = oa * w * bv
+    return True
+
+
 @njit(cache=True, inline="always", fastmath=True)
 def _split_max(XL, XR, i, k, floor, maxl, maxr):
     """maxl[a] = max over split points j of XL[i, a, j]; maxr[a] likewise of XR[k, a, j]."""
@@ -354,8 +385,9 @@ def outside(
 ):
     """Scaled outside pass; returns post: float64[S, n_labels], the posterior of each labelled
     span (for edge e and kind k, the labels of its nodes are
-    ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``), and tpost: float64[n, N], the
-    posterior of each symbol as word i's preterminal.
+    ``lab_ids[lab_off[2 * e + k]:lab_off[2 * e + k + 1]]``), tpost: float64[n, N], the
+    posterior of each symbol as word i's preterminal, spost (see the module docstring) and the
+    outside tops OL, OR (below; :func:`max_rule` reads them).
 
     Outside scores of tops accumulate in OL[a, i, j] (span (i, j) as a left child, or the root)
     and OR[a, k, j] (span (j, k) as a right child), scaled so that outside * inside / Z of a
@@ -371,7 +403,7 @@ def outside(
     n_pair = p_left.shape[0]
     full = sid[0, n]
     if it[full, start] == 0.0:
-        return post, tpost, spost
+        return post, tpost, spost, OL, OR
     OL[0, start, n] = 1.0 / it[full, start]
     for length in range(n, 0, -1):
         for i in prange(n - length + 1):
@@ -380,32 +412,20 @@ def outside(
             if dead[s]:
                 continue
             otop = np.empty(n_sym)
-            obot = np.empty(n_sym)
-            any_out = False
-            for a in range(n_sym):
-                otop[a] = OL[i, a, k] + OR[k, a, i]
-                obot[a] = 0.0
-                if otop[a] != 0.0:
-                    any_out = True
-            if not any_out:
-                continue
+            obot = np.zeros(n_sym)
+            pe = np.zeros(n_edge)
             kind = 0 if length == 1 else 1
             ibot = ib[s]
+            if not _span_edges(
+                OL, OR, i, k, s, kind, ibot, up, uc, uw, code, req_off, req_lab, nonempty,
+                haslab, backoff, otop, obot, pe,
+            ):  # fmt: skip
+                continue
             for e in range(n_edge):
-                oa = otop[up[e]]
-                if oa == 0.0:
+                if pe[e] == 0.0:
                     continue
-                bv = ibot[uc[e]]
-                if bv == 0.0:
-                    continue
-                pen = _edge_logw(e, kind, s, code, req_off, req_lab, nonempty, haslab, backoff)
-                if pen <= LOW:
-                    continue
-                w = uw[e] * (1.0 if pen == 0.0 else np.exp(pen))
-                obot[uc[e]] += oa * w
-                pe = oa * w * bv
                 for q in range(lab_off[2 * e + kind], lab_off[2 * e + kind + 1]):
-                    post[s, lab_ids[q]] += pe
+                    post[s, lab_ids[q]] += pe[e]
             if want_symbols:
                 itop = it[s]
                 for a in range(n_sym):
@@ -435,4 +455,143 @@ def outside(
                 for j in range(i + 1, k):
                     OL[i, b, j] += g * IR[k, c, j] * f[j]
                     OR[k, c, j] += g * IL[i, b, j] * f[j]
-    return post, tpost, spost
+    return post, tpost, spost, OL, OR
+
+
+@njit(cache=True, parallel=True, fastmath=True, nogil=True)
+def max_rule(
+    n,
+    n_sym,
+    sid,
+    dead,
+    code,
+    req_off,
+    req_lab,
+    ib,
+    sigma,
+    IL,
+    IR,
+    OL,
+    OR,
+    p_left,
+    p_right,
+    p_off,
+    g_off,
+    g_rules,
+    g_coarse,
+    r_parent,
+    r_w,
+    up,
+    uc,
+    uw,
+    e_coarse,
+    nonempty,
+    haslab,
+    backoff,
+    to_coarse,
+    n_coarse,
+    c_parent,
+    c_left,
+    c_right,
+    ce_parent,
+    ce_child,
+):
+    """Max-rule-product chart over coarse symbols (Petrov and Klein 2007, "Improved inference
+    for unlexicalized parsing", NAACL): every anchored coarse rule (a binary rule with its
+    split point, a unary edge over its span, a word's preterminal) scores the log of its
+    posterior under the fine grammar, the sum over the sub-symbols of its symbols; the chart
+    maximizes the sum of these logs over trees of coarse symbols.
+
+    Fine binary rules come per child pair ``q`` in groups of one coarse rule: group ``h`` of
+    pair ``q`` (``g_off[q] <= h < g_off[q + 1]``) is coarse rule ``g_coarse[h]``, made of the
+    fine rules ``g_rules[h]:g_rules[h + 1]`` of ``r_parent``, ``r_w`` (in group order); fine
+    edge ``e`` is coarse edge ``e_coarse[e]``. The fine chart's scaled inside and outside
+    scores give each posterior as in :func:`outside`. Returns MT, MB (float64[S, C]: best top
+    and bottom scores, NEG for none), bp_rule, bp_split (int32[S, C]: the bottom's coarse rule
+    and split point) and bp_edge (int32[S, C]: the top's coarse edge).
+    """
+    n_span = n * (n + 1) // 2
+    MT = np.full((n_span, n_coarse), NEG)
+    MB = np.full((n_span, n_coarse), NEG)
+    bp_rule = np.full((n_span, n_coarse), -1, np.int32)
+    bp_split = np.full((n_span, n_coarse), -1, np.int32)
+    bp_edge = np.full((n_span, n_coarse), -1, np.int32)
+    n_edge = up.shape[0]
+    n_pair = p_left.shape[0]
+    n_crule = c_parent.shape[0]
+    n_cedge = ce_parent.shape[0]
+    for length in range(1, n + 1):
+        for i in prange(n - length + 1):
+            k = i + length
+            s = sid[i, k]
+            if dead[s]:
+                continue
+            otop = np.empty(n_sym)
+            obot = np.zeros(n_sym)
+            pe = np.zeros(n_edge)
+            kind = 0 if length == 1 else 1
+            ibot = ib[s]
+            if not _span_edges(
+                OL, OR, i, k, s, kind, ibot, up, uc, uw, code, req_off, req_lab, nonempty,
+                haslab, backoff, otop, obot, pe,
+            ):  # fmt: skip
+                continue
+            epost = np.zeros(n_cedge)
+            for e in range(n_edge):
+                epost[e_coarse[e]] += pe[e]
+            if length == 1:
+                bpost = np.zeros(n_coarse)
+                for b in range(n_sym):
+                    bpost[to_coarse[b]] += obot[b] * ibot[b]
+                for cb in range(n_coarse):
+                    if bpost[cb] > 0.0:
+                        MB[s, cb] = np.log(bpost[cb])
+            else:
+                f = np.zeros(n + 1)
+                for j in range(i + 1, k):
+                    f[j] = np.exp(sigma[sid[i, j]] + sigma[sid[j, k]] - sigma[s])
+                maxl = np.empty(n_sym)
+                maxr = np.empty(n_sym)
+                _split_max(IL, IR, i, k, 0.0, maxl, maxr)
+                acc = np.zeros((n_crule, n + 1))
+                for q in range(n_pair):
+                    b = p_left[q]
+                    c = p_right[q]
+                    if maxl[b] == 0.0 or maxr[c] == 0.0:
+                        continue
+                    for h in range(g_off[q], g_off[q + 1]):
+                        g = 0.0
+                        for x in range(g_rules[h], g_rules[h + 1]):
+                            g += obot[r_parent[x]] * r_w[x]
+                        if g == 0.0:
+                            continue
+                        row = acc[g_coarse[h]]
+                        for j in range(i + 1, k):
+                            row[j] += g * IL[i, b, j] * IR[k, c, j] * f[j]
+                for cr in range(n_crule):
+                    row = acc[cr]
+                    a = c_parent[cr]
+                    for j in range(i + 1, k):
+                        if row[j] <= 0.0:
+                            continue
+                        left = MT[sid[i, j], c_left[cr]]
+                        right = MT[sid[j, k], c_right[cr]]
+                        if left <= LOW or right <= LOW:
+                            continue
+                        sc = np.log(row[j]) + left + right
+                        if sc > MB[s, a]:
+                            MB[s, a] = sc
+                            bp_rule[s, a] = cr
+                            bp_split[s, a] = j
+            for ce in range(n_cedge):
+                if epost[ce] <= 0.0:
+                    continue
+                below = MB[s, ce_child[ce]]
+                if below <= LOW:
+                    continue
+                sc = np.log(epost[ce]) + below
+                a = ce_parent[ce]
+                if sc > MT[s, a]:
+                    MT[s, a] = sc
+                    bp_edge[s, a] = ce
+    return MT, MB, bp_rule, bp_split, bp_edge

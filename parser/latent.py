@@ -838,10 +838,12 @@ def maximize(
     ex: Expectations,
     smoothing: float = DEFAULT_SMOOTHING,
     word_smoothing: float | None = DEFAULT_WORD_SMOOTHING,
+    lexical_smoothing: float | None = None,
 ) -> LatentGrammar:
     """The M-step: relative frequencies of the expected counts per left-hand side (a top or
     a bottom sub-symbol), then smoothing (module docstring). A sub-symbol with no expected
-    count keeps its old rules."""
+    count keeps its old rules. ``lexical_smoothing`` smooths the tags' word rows (None: as
+    much as the rules)."""
     g = lg.base
     binary, unary = lg._rule_arrays()
     (bpar, blef, brig, _), (upar, ulef, _, uident) = binary, unary
@@ -867,12 +869,13 @@ def maximize(
         su = _smooth(uw, lg.uoff[u_rule] + u_pos % u_inner, lg.ks[upar[u_rule]], smoothing)
         uw = np.where(uident[u_rule], uw, su)
     lex = _maximize_lexicon(lg, ex.lc, bottom[lex_owner], word_smoothing)
-    if smoothing > 0:
+    lex_alpha = smoothing if lexical_smoothing is None else lexical_smoothing
+    if lex_alpha > 0:
         tag_of_row = np.repeat(np.arange(len(g.lex_symbols)), lg.ks[g.lex_symbols])
         mean = np.zeros((len(g.lex_symbols), lex.shape[1]))
         np.add.at(mean, tag_of_row, lex)
         mean /= lg.ks[g.lex_symbols][:, None]
-        lex = (1 - smoothing) * lex + smoothing * mean[tag_of_row]
+        lex = (1 - lex_alpha) * lex + lex_alpha * mean[tag_of_row]
     return LatentGrammar(g, lg.ks, bw, uw, lex)
 
 
@@ -980,6 +983,7 @@ class RefineOptions:
     merge_fraction: float = DEFAULT_MERGE_FRACTION
     smoothing: float = DEFAULT_SMOOTHING
     word_smoothing: float | None = DEFAULT_WORD_SMOOTHING
+    lexical_smoothing: float | None = None
     noise: float = DEFAULT_NOISE
     seed: int = 0
 
@@ -990,6 +994,8 @@ class RefineOptions:
             raise GrammarError(f"merge fraction must be in [0, 1], got {self.merge_fraction}")
         if not 0 <= self.smoothing < 1:
             raise GrammarError(f"smoothing must be in [0, 1), got {self.smoothing}")
+        if self.lexical_smoothing is not None and not 0 <= self.lexical_smoothing < 1:
+            raise GrammarError(f"lexical smoothing must be in [0, 1), got {self.lexical_smoothing}")
         if self.word_smoothing is not None and self.word_smoothing <= 0:
             raise GrammarError(f"word smoothing must be positive, got {self.word_smoothing}")
 
@@ -1011,7 +1017,7 @@ def em(
             report(it, ex.loglik)
         if it == iterations:
             break
-        lg = maximize(lg, ex, options.smoothing, options.word_smoothing)
+        lg = maximize(lg, ex, options.smoothing, options.word_smoothing, options.lexical_smoothing)
     return lg, logliks
 
 

@@ -1,13 +1,14 @@
 """Chart results against brute-force enumeration of every tree of random tiny grammars.
 
 Oracle: enumerate all derivations of a plain PCFG (binary, unary and lexical rules; acyclic
-unaries) straight from its rule list, independently of the chart's top/bottom model.
+unaries) straight from its rule list, independently of the chart's top/bottom model; the
+max-rule-product tree from the derivations' anchored rules.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -94,6 +95,40 @@ def _nodes(t: Tree, start: int = 0) -> tuple[list[tuple[str, int, int, bool]], i
     return out, end
 
 
+def anchored_rules(tree: Tree, start: int = 0) -> tuple[list[tuple], int]:
+    """The anchored rules of a derivation as the max-rule decoder scores them: each top's
+    unary chain (labels top first) over its span, each bottom's binary rule with its split
+    point, each word's preterminal; returns also the end."""
+    chain = [tree.label()]
+    node = tree
+    while len(node) == 1 and not isinstance(node[0], str):
+        node = node[0]
+        chain.append(node.label())
+    if isinstance(node[0], str):
+        return [(tuple(chain), start, start + 1), (node.label(), start)], start + 1
+    left, mid = anchored_rules(node[0], start)
+    right, end = anchored_rules(node[1], mid)
+    rule = (node.label(), node[0].label(), node[1].label(), start, mid, end)
+    return [(tuple(chain), start, end), rule, *left, *right], end
+
+
+def max_rule_product(derivations: list[Tree], probs: Sequence[float]) -> Tree | None:
+    """Max-rule-product by enumeration (Petrov and Klein 2007, "Improved inference for
+    unlexicalized parsing", NAACL, section 3; from memory): the derivation maximizing the
+    product of its anchored rules' posteriors; None when the best two tie."""
+    z = sum(probs)
+    posterior: dict[tuple, float] = {}
+    rules = [anchored_rules(t)[0] for t in derivations]
+    for anchored, p in zip(rules, probs, strict=True):
+        for r in set(anchored):
+            posterior[r] = posterior.get(r, 0.0) + p / z
+    scores = [sum(math.log(posterior[r]) for r in anchored) for anchored in rules]
+    order = sorted(range(len(scores)), key=lambda x: -scores[x])
+    if len(order) > 1 and scores[order[0]] < scores[order[1]] + 1e-9:
+        return None
+    return derivations[order[0]]
+
+
 def _satisfies(t: Tree, c: Constraints) -> bool:
     nodes, _ = _nodes(t)
     for a, b, lab in c.required:
@@ -143,7 +178,7 @@ def _check(table: list, words: list[str], c: Constraints | None) -> None:
     if c is not None:
         every = [(t, p) for t, p in every if _satisfies(t, c)]
     k = 6
-    r = parse(g, words, k=k, posteriors=True, constraints=c, posterior_threshold=0.0)
+    r = parse(g, words, k=k, posteriors=True, constraints=c, posterior_threshold=0.0, max_rule=True)
     if not every:
         assert r.fallback
         assert r.trees[0].leaves() == words
@@ -172,6 +207,10 @@ def _check(table: list, words: list[str], c: Constraints | None) -> None:
     got_post = {(lab, a, b): p for lab, a, b, p in r.posteriors}
     for key in set(want_post) | set(got_post):
         assert abs(got_post.get(key, 0.0) - want_post.get(key, 0.0)) < 1e-9, key
+    # The max-rule-product tree, unless two derivations tie for it.
+    best = max_rule_product([t for t, _ in every], [p for _, p in every])
+    if best is not None:
+        assert str(r.max_rule) == str(best)
     # The consensus tree keeps the words, the constraints and only brackets worth their cost.
     assert r.consensus is not None and r.consensus.leaves() == words
     if c is not None:

@@ -3,7 +3,8 @@
 Checks: splitting keeps every gold tree's probability; splitting then merging every split back
 gives the grammar back; EM never lowers the training likelihood (the EM guarantee, Dempster,
 Laird and Rubin 1977, theorem 1; from memory); the refined grammar's span posteriors, projected
-onto ordinary labels by the chart, equal those of a brute-force enumeration of every tree.
+onto ordinary labels by the chart, equal those of a brute-force enumeration of every tree, and
+so does the max-rule-product tree.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from parser.chart import parse
 from parser.errors import GrammarError
 from parser.grammar import Grammar, train_grammar
 from parser.trees import read_trees
+from tests.parser.test_chart_bruteforce import max_rule_product
 
 DATA = Path(__file__).resolve().parent.parent / "data" / "latent_small.ptb"
 EXACT = latent.RefineOptions(smoothing=0.0, word_smoothing=None, em_iterations=6, em_after_merge=3)
@@ -225,6 +227,22 @@ def test_projected_posteriors_match_brute_force(
     assert result.inside_logprob == pytest.approx(total, abs=1e-9)
 
 
+@pytest.mark.parametrize("which", ["one-way", "refined"])
+def test_max_rule_tree_matches_brute_force(
+    base: Grammar, refined: latent.LatentGrammar, which: str
+) -> None:
+    # Each anchored rule's posterior sums over the sub-symbols of its symbols (the oracle
+    # enumerates the base grammar's derivations, scored by the refined grammar).
+    lg = latent.LatentGrammar.from_grammar(base) if which == "one-way" else refined
+    for words in SENTENCES:
+        trees = _derivations(base, words)
+        logp = latent.tree_logprobs(lg, latent.treebank(base, trees))
+        best = max_rule_product(trees, list(np.exp(logp - logp.max())))
+        assert best is not None
+        result = parse(lg.to_grammar(), words, posteriors=True, max_rule=True, prune=None)
+        assert str(result.max_rule) == str(latent.bz.unbinarize(best))
+
+
 # ------------------------------------------------------------------ coarse-to-fine parsing
 SENTENCES = [
     "the owner of the mill slept .".split(),
@@ -311,10 +329,10 @@ def test_pruning_never_removes_a_pinned_span(refined: latent.LatentGrammar) -> N
     sid = span_ids(len(words))
     assert mask[sid[i, k]].all()
     assert not mask.all()  # the threshold does prune elsewhere
-    result = parse(g, words, posteriors=True, constraints=pins, prune=threshold)
+    result = parse(g, words, posteriors=True, constraints=pins, prune=threshold, max_rule=True)
     assert not result.fallback
     exact = parse(g, words, posteriors=True, constraints=pins, prune=None)
-    for tree in (result.trees[0], result.consensus):
+    for tree in (result.trees[0], result.consensus, result.max_rule):
         assert tree is not None
         assert (lab, i, k) in set(_spans(tree))
     assert (lab, i, k) in set(_spans(exact.trees[0]))
