@@ -491,6 +491,11 @@ def _fine_chart(
 _NO_MASK = np.ones((1, 1), dtype=np.bool_)
 
 
+def _run(kernel: Any, *args: Any) -> Any:
+    """``kernel(*args)`` (numba's dispatcher type takes no unpacked arguments)."""
+    return kernel(*args)
+
+
 class _Chart:
     def __init__(
         self, g: Grammar, tab: _Tables, p: _Problem, allow: np.ndarray | None = None
@@ -563,7 +568,8 @@ class _Chart:
     def _inside_chart(self) -> tuple[np.ndarray, ...]:
         if self._inside is None:
             p, tab = self.p, self.tab
-            self._inside = kernels.inside(
+            self._inside = _run(
+                kernels.inside,
                 *self._span_data(),
                 np.maximum(p.lex, kernels.NEG),
                 np.maximum(self.vt, kernels.NEG),
@@ -663,7 +669,8 @@ class _Chart:
         OL, OR = self._outside(False)[3:5]
         p, tab = self.p, self.tab
         m = max_rule_tables(self.g)
-        MT, _, bp_rule, bp_split, bp_edge = kernels.max_rule(
+        MT, _, bp_rule, bp_split, bp_edge = _run(
+            kernels.max_rule,
             *self._span_data(),
             ib,
             sigma,

@@ -119,6 +119,22 @@ def test_em_never_lowers_the_training_likelihood(trees: list[Tree], base: Gramma
     assert runs[(1, False)][-1] > runs[(1, False)][0] + 1.0
 
 
+def test_lexical_smoothing_moves_only_the_word_rows(
+    refined: latent.LatentGrammar, bank: latent.Treebank
+) -> None:
+    with pytest.raises(GrammarError, match="lexical smoothing"):
+        latent.RefineOptions(lexical_smoothing=1.0)
+    ex = latent.expectations(refined, bank)
+    same = latent.maximize(refined, ex, 0.01, 1.0, None)
+    lex = latent.maximize(refined, ex, 0.01, 1.0, 0.5)
+    np.testing.assert_allclose(lex.bw, same.bw, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(lex.uw, same.uw, rtol=0, atol=1e-12)
+    assert np.abs(lex.lex - same.lex).max() > 1e-3
+    # A tag's sub-symbols here only emit words: each word row sums to one, smoothed or not.
+    np.testing.assert_allclose(lex.lex.sum(axis=1), 1.0, rtol=1e-9)
+    np.testing.assert_allclose(same.lex.sum(axis=1), 1.0, rtol=1e-9)
+
+
 def test_refined_grammar_is_a_proper_pcfg(refined: latent.LatentGrammar) -> None:
     report = refined.to_grammar().tightness(tolerance=1e-6)
     assert report.tight
