@@ -158,3 +158,15 @@ def install_grammar(db: Session, corpus: Corpus, data: bytes, number: int = 1) -
     corpus.active_grammar_id = version.id
     db.commit()
     return version
+
+
+def gum_sentence_corpus(
+    db: Session, trees: list, annotator: User, name: str = "GUM slice"
+) -> tuple[Corpus, list[tuple[Sentence, object]]]:
+    """A corpus (any label and tag) with one document holding ``trees``' words as sentences,
+    all assigned to ``annotator``; returns the corpus and its (sentence, gold tree) pairs."""
+    corpus, sentences = make_corpus(
+        db, [" ".join(words(t)) for t in trees], name=name, labels=[], tags=[]
+    )
+    assign(db, sentences, annotator)
+    return corpus, list(zip(sentences, trees, strict=True))

@@ -1,5 +1,6 @@
-"""A real Treewright server in a subprocess on a loopback port, for concurrency, crash and load
-checks, plus logged-in httpx clients for it.
+"""A real Treewright server on a loopback port: in a subprocess (:class:`LiveServer`, for
+concurrency, crash and load checks) or on a thread of the test process (:class:`ThreadServer`,
+for the browser tests), plus logged-in httpx clients for either.
 
 The server is ``uvicorn app.main:create_app --factory`` (or another ``factory``) with its
 settings in the environment (``TREEWRIGHT_DATA_DIR``, ``TREEWRIGHT_DATABASE_URL``...), so it
@@ -8,6 +9,11 @@ SIGKILL (no clean shutdown), which is what the crash tests want; ``stop()`` term
 
 Limits: one server per instance; start-up waits at most ``start_timeout`` seconds for
 ``/api/health``.
+
+:class:`ThreadServer` serves an app object the test already built (the ``app`` fixture) with
+uvicorn on a thread: no interpreter to start and no modules to import again, so it is up in
+milliseconds where a subprocess takes seconds. It shares the test process, so it cannot be
+killed and its background training runs as the app's settings say (a thread in the tests).
 """
 
 from __future__ import annotations
@@ -17,6 +23,7 @@ import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 from typing import Any
@@ -144,6 +151,59 @@ class LiveServer:
             self._log_fh = None
 
     def __enter__(self) -> LiveServer:
+        return self.start()
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
+
+
+class ThreadServer:
+    """``with ThreadServer(app) as server:`` serves ``app`` at ``server.url`` from a thread."""
+
+    def __init__(self, app: Any, *, start_timeout: float = 60.0) -> None:
+        self.app = app
+        self.start_timeout = start_timeout
+        self.port = 0
+        self._server: Any = None
+        self._thread: threading.Thread | None = None
+
+    @property
+    def url(self) -> str:
+        return f"http://{LOOPBACK}:{self.port}"
+
+    def start(self) -> ThreadServer:
+        import uvicorn
+
+        sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        sock.bind((LOOPBACK, 0))
+        self.port = int(sock.getsockname()[1])
+        config = uvicorn.Config(self.app, log_level="warning", lifespan="on")
+        self._server = uvicorn.Server(config)
+        self._thread = threading.Thread(
+            target=self._server.run, kwargs={"sockets": [sock]}, daemon=True
+        )
+        self._thread.start()
+        deadline = time.monotonic() + self.start_timeout
+        while not self._server.started:
+            if not self._thread.is_alive():
+                raise RuntimeError("the server thread ended on start (see the test's log)")
+            if time.monotonic() > deadline:
+                self.stop()
+                raise RuntimeError(f"the server did not start within {self.start_timeout} s")
+            time.sleep(0.01)
+        return self  # the server owns the socket now and closes it when it stops
+
+    def stop(self) -> None:
+        if self._server is not None:
+            self._server.should_exit = True
+        if self._thread is not None:
+            self._thread.join(timeout=30)
+            if self._thread.is_alive():
+                raise RuntimeError("the server thread did not stop within 30 s")
+        self._thread = None
+
+    def __enter__(self) -> ThreadServer:
         return self.start()
 
     def __exit__(self, *exc: object) -> None:

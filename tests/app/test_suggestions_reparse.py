@@ -6,35 +6,23 @@ from __future__ import annotations
 
 import pytest
 
-from app.models import Corpus, Document, Sentence
 from parser.trees import constituents, pos_tags, read_tree, words
-from tests.app.bench_helpers import assign, gum_grammar_bytes, heldout_gum_trees, install_grammar
+from tests.app.bench_helpers import (
+    assign,
+    gum_grammar_bytes,
+    gum_sentence_corpus,
+    heldout_gum_trees,
+    install_grammar,
+)
 
 
 @pytest.fixture
 def gum_bench(db, people, login):
-    trees = heldout_gum_trees(50, min_words=4, max_words=30)
-    corpus = Corpus(name="GUM slice", label_set=[], tag_set=[], settings={})
-    db.add(corpus)
-    db.flush()
-    doc = Document(corpus_id=corpus.id, name="gum", position=0)
-    db.add(doc)
-    db.flush()
-    sentences = []
-    for i, tree in enumerate(trees):
-        s = Sentence(
-            corpus_id=corpus.id,
-            document_id=doc.id,
-            position=i,
-            tokens=words(tree),
-            text=" ".join(words(tree)),
-        )
-        db.add(s)
-        sentences.append(s)
-    db.commit()
-    assign(db, sentences, people.ann1)
+    corpus, pairs = gum_sentence_corpus(
+        db, heldout_gum_trees(50, min_words=4, max_words=30), people.ann1
+    )
     install_grammar(db, corpus, gum_grammar_bytes())
-    return login("ann1"), list(zip(sentences, trees, strict=True))
+    return login("ann1"), pairs
 
 
 @pytest.mark.slow

@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import pytest
 
-from app.models import Corpus, Document, GrammarVersion, Sentence
+from app.models import GrammarVersion
 from app.services import training
 from app.services.suggestions import grammar_from_bytes
 from parser.latent import is_refined, train_refined
 from parser.trees import constituents, pos_tags, read_tree, read_trees, words
-from tests.app.bench_helpers import assign, heldout_gum_trees, install_grammar
+from tests.app.bench_helpers import gum_sentence_corpus, heldout_gum_trees, install_grammar
 from tests.app.review_helpers import import_demo_gold
 
 
@@ -56,28 +56,11 @@ def refined_bench(db, people, login):
 
     train = [t for p in gum_files()[:8] for t in read_trees(p.read_text(encoding="utf-8"))]
     data = training.grammar_bytes(train_refined(train, 1))
-    trees = heldout_gum_trees(12, min_words=4, max_words=25)
-    corpus = Corpus(name="GUM refined", label_set=[], tag_set=[], settings={})
-    db.add(corpus)
-    db.flush()
-    doc = Document(corpus_id=corpus.id, name="gum", position=0)
-    db.add(doc)
-    db.flush()
-    sentences = []
-    for i, tree in enumerate(trees):
-        s = Sentence(
-            corpus_id=corpus.id,
-            document_id=doc.id,
-            position=i,
-            tokens=words(tree),
-            text=" ".join(words(tree)),
-        )
-        db.add(s)
-        sentences.append(s)
-    db.commit()
-    assign(db, sentences, people.ann1)
+    corpus, pairs = gum_sentence_corpus(
+        db, heldout_gum_trees(12, min_words=4, max_words=25), people.ann1, name="GUM refined"
+    )
     install_grammar(db, corpus, data)
-    return login("ann1"), list(zip(sentences, trees, strict=True))
+    return login("ann1"), pairs
 
 
 def test_bench_suggests_and_reparses_with_a_refined_grammar(refined_bench, rng):

@@ -2,9 +2,12 @@
 Playwright (sync API). Reusable by every page's browser tests.
 
 Fixtures
-    ``live_server``   a started server (a uvicorn subprocess, see tests/app/live_server.py) on a
-                      fresh database; ``.base_url``, ``.settings``, ``.sessionmaker`` (sessions
-                      on the same database, to seed rows and read results), ``.log``.
+    ``live_server``   a started server on a fresh database: uvicorn on a thread of the test
+                      process serving the ``app`` fixture (see tests/app/live_server.py), or a
+                      uvicorn subprocess for a test marked ``server_process`` (one that needs
+                      the server's own process, e.g. to tell it from a training worker);
+                      ``.base_url``, ``.settings``, ``.sessionmaker`` (sessions on the same
+                      database, to seed rows and read results), ``.log``.
     ``browser``       one headless Chromium per test session (never downloaded: the Debian
                       binary at /usr/bin/chromium).
     ``browser_page``  a fresh context and page per test (1400x900); ``page.console_errors``
@@ -45,7 +48,7 @@ from tests.app.conftest import (  # noqa: F401  (fixtures re-exported for browse
     people,
     settings,
 )
-from tests.app.live_server import LiveServer
+from tests.app.live_server import LiveServer, ThreadServer
 
 CHROMIUM = Path("/usr/bin/chromium")
 CHROMIUM_ARGS = [
@@ -73,14 +76,18 @@ class Live:
     settings: Settings
     sessionmaker: sessionmaker[Session]
     log: Path
-    server: LiveServer
+    server: LiveServer | ThreadServer
 
 
 @pytest.fixture
-def live_server(app, people, tmp_path: Path) -> Iterator[Live]:  # noqa: F811
+def live_server(app, people, tmp_path: Path, request: pytest.FixtureRequest) -> Iterator[Live]:  # noqa: F811
     """A running server on the test's database (users from ``people`` already exist)."""
     log = tmp_path / "server.log"
-    server = LiveServer(app.state.settings, log=log).start()
+    server: LiveServer | ThreadServer
+    if request.node.get_closest_marker("server_process") is not None:
+        server = LiveServer(app.state.settings, log=log).start()
+    else:
+        server = ThreadServer(app).start()
     try:
         yield Live(
             base_url=server.url,

@@ -4,6 +4,7 @@ version; the Agreement page draws its charts. Gold is the demo's invented ferry 
 
 from __future__ import annotations
 
+import pytest
 from sqlalchemy import select
 
 from app.models import GV_READY, GrammarVersion
@@ -20,6 +21,7 @@ from tests.app.review_helpers import (
 from tests.browser.conftest import login_as
 
 
+@pytest.mark.server_process  # the training worker must be told from the server's own process
 def test_train_now_runs_in_the_background_and_the_page_follows(
     live_server, browser_page, db, people, output_dir
 ):
