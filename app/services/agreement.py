@@ -46,6 +46,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from itertools import combinations
+from typing import Any
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
@@ -334,7 +335,8 @@ class _Tally:
     seen: int = 0
     changes: int | None = None
 
-    def add(self, r: AgreementRecord) -> None:
+    def add(self, r: Any) -> None:
+        """Add one record (an AgreementRecord, or a row of its summed columns)."""
         c = Counts(r.matched, r.count_a, r.count_b)
         u = _triple(r.detail.get("unlabelled"))
         pos = r.detail.get("pos") or [0, 0]
@@ -458,12 +460,29 @@ def _marks(db: Session, corpus_id: int) -> tuple[int, int] | None:
     return None if row is None else (int(row[0]), int(row[1]))
 
 
-def _read_records(db: Session, corpus_id: int, after: int) -> list[tuple[AgreementRecord, str]]:
-    """The corpus's records with an id above ``after`` and their sentences' states."""
+#: The columns of a record the sums read (rows with these attributes, not whole records:
+#: a first view reads every record of the corpus).
+_SUMMED = (
+    AgreementRecord.id,
+    AgreementRecord.sentence_id,
+    AgreementRecord.user_a_id,
+    AgreementRecord.user_b_id,
+    AgreementRecord.matched,
+    AgreementRecord.count_a,
+    AgreementRecord.count_b,
+    AgreementRecord.identical,
+    AgreementRecord.detail,
+    AgreementRecord.created_at,
+)
+
+
+def _read_records(db: Session, corpus_id: int, after: int) -> list[tuple[Any, str]]:
+    """The corpus's records with an id above ``after`` (the summed columns) and their
+    sentences' states."""
     return [
-        (r, state)
-        for r, state in db.execute(
-            select(AgreementRecord, Sentence.state)
+        (row, row.state)
+        for row in db.execute(
+            select(*_SUMMED, Sentence.state)
             .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
             .where(AgreementRecord.corpus_id == corpus_id, AgreementRecord.id > after)
             .order_by(AgreementRecord.id)
@@ -471,7 +490,7 @@ def _read_records(db: Session, corpus_id: int, after: int) -> list[tuple[Agreeme
     ]
 
 
-def _extend(tally: _Tally, rows: list[tuple[AgreementRecord, str]]) -> None:
+def _extend(tally: _Tally, rows: list[tuple[Any, str]]) -> None:
     """Add the records of sentences not dropped; count every record read."""
     for r, state in rows:
         if state != SENT_DROPPED:
