@@ -48,7 +48,7 @@ from datetime import datetime, timedelta
 from itertools import combinations
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import exists, func, or_, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -63,6 +63,7 @@ from app.models import (
     Document,
     Event,
     FigureMark,
+    QueueCount,
     Revision,
     Sentence,
     User,
@@ -334,6 +335,9 @@ class _Tally:
     days: dict[datetime, tuple[int, Counts]] = field(default_factory=dict)
     seen: int = 0
     changes: int | None = None
+    # the sums of hidden sentences (blind rule) by (last_id, hidden sentence ids): readers
+    # whose hidden set has not changed since their last view reuse them
+    hidden_sums: dict[tuple[int, frozenset[int]], _Tally] = field(default_factory=dict)
 
     def add(self, r: Any) -> None:
         """Add one record (an AgreementRecord, or a row of its summed columns)."""
@@ -428,6 +432,8 @@ class _Tally:
 # read; more records and no other change, the records logged since are read and added; any
 # other change (or records missing, one committed late with a lower id), all are summed again.
 _tallies: dict[tuple[str, int, datetime | None], _Tally] = {}
+#: Hidden-sentence sums kept per corpus (one per reader under the blind rule, at most).
+HIDDEN_SUMS_KEPT = 32
 _tally_lock = threading.Lock()
 
 
@@ -435,16 +441,44 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
     """The sentences of the corpus with agreement records that ``viewer`` still annotates
     (the blind rule of :mod:`app.services.blind`): their records are left out of everything
     the viewer sees of the log, rows and sums alike. None (the command line) sees all.
-    Cost: one index walk over the viewer's assignments and annotations."""
+
+    Cost: the smaller of two walks: the viewer's assignments and annotations (as
+    :func:`app.services.blind.unfinished_query` does), or the corpus's records with three
+    index probes each; the viewer's queue length (the maintained queue counts) and the
+    record count (the figure marks) choose."""
     if viewer is None:
         return set()
+    queue = db.scalar(
+        select(func.coalesce(func.sum(QueueCount.assigned), 0)).where(
+            QueueCount.user_id == viewer.id
+        )
+    )
+    marks = _marks(db, corpus_id)
+    if marks is None or int(queue or 0) <= marks[0]:
+        return set(
+            db.scalars(
+                select(AgreementRecord.sentence_id)
+                .where(
+                    AgreementRecord.corpus_id == corpus_id,
+                    AgreementRecord.sentence_id.in_(blind.unfinished_query(viewer.id)),
+                )
+                .distinct()
+            )
+        )
+    sentence = AgreementRecord.sentence_id
+    started = or_(
+        exists().where(Assignment.sentence_id == sentence, Assignment.user_id == viewer.id),
+        exists().where(Annotation.sentence_id == sentence, Annotation.user_id == viewer.id),
+    )
+    handed_in = exists().where(
+        Annotation.sentence_id == sentence,
+        Annotation.user_id == viewer.id,
+        Annotation.state == ANN_SUBMITTED,
+    )
     return set(
         db.scalars(
-            select(AgreementRecord.sentence_id)
-            .where(
-                AgreementRecord.corpus_id == corpus_id,
-                AgreementRecord.sentence_id.in_(blind.unfinished_query(viewer.id)),
-            )
+            select(sentence)
+            .where(AgreementRecord.corpus_id == corpus_id, started, ~handed_in)
             .distinct()
         )
     )
@@ -533,27 +567,34 @@ def corpus_figures(
 
     Blind rule: for a ``viewer`` who still annotates a sentence with records, that
     sentence's records are summed apart and taken off the figures, so no sum (a pair seen on
-    one sentence, a day with one record, a label met once) can give that sentence away; the
-    cost is the hidden sentences' records."""
+    one sentence, a day with one record, a label met once) can give that sentence away. The
+    hidden sums are kept beside the sums for the same hidden set (and records), so a reader's
+    next view costs the query of what is hidden from them, not its records again."""
     hidden = hidden_from(db, corpus_id, viewer)
     with _tally_lock:  # held while adding: the sums are shared by every request
         tally = _current_tally(db, corpus_id)
         less = None
-        if hidden:
+        ids = frozenset(hidden & tally.sentences)
+        if ids:
+            less = tally.hidden_sums.get((tally.last_id, ids))
+        if ids and less is None:
             less = _Tally()
-            ids = sorted(hidden & tally.sentences)
-            for at in range(0, len(ids), 500):  # a bounded list of parameters per query
-                for r in db.scalars(
-                    select(AgreementRecord)
+            ordered = sorted(ids)
+            for at in range(0, len(ordered), 500):  # a bounded list of parameters per query
+                for r in db.execute(
+                    select(*_SUMMED)
                     .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
                     .where(
-                        AgreementRecord.sentence_id.in_(ids[at : at + 500]),
+                        AgreementRecord.sentence_id.in_(ordered[at : at + 500]),
                         AgreementRecord.corpus_id == corpus_id,
                         AgreementRecord.id <= tally.last_id,
                         Sentence.state != SENT_DROPPED,
                     )
                 ):
                     less.add(r)
+            while len(tally.hidden_sums) >= HIDDEN_SUMS_KEPT:  # the oldest goes
+                tally.hidden_sums.pop(next(iter(tally.hidden_sums)))
+            tally.hidden_sums[(tally.last_id, ids)] = less
         names = _user_names(db, {u for pair in tally.pairs for u in pair})
         return tally.figures(names, top_confusions, minus=less)
 
