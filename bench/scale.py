@@ -263,15 +263,19 @@ def build(settings: Settings, size: int, trees: list[Any]) -> dict[str, int]:
         engine.dispose()
 
 
-def median_ms(fn: Callable[[], Any], repeat: int) -> float:
+def median_ms(fn: Callable[[], Any], repeat: int) -> tuple[float, float]:
+    """Median wall and CPU milliseconds of ``fn`` after two unmeasured calls. The CPU time is
+    the process's (the in-process server's threads and the client alike), which a loaded
+    machine disturbs far less than the wall time."""
     for _ in range(2):
         fn()
-    times = []
+    walls, cpus = [], []
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         fn()
-        times.append((time.perf_counter() - t0) * 1000)
-    return statistics.median(times)
+        walls.append((time.perf_counter() - t0) * 1000)
+        cpus.append((time.process_time() - c0) * 1000)
+    return statistics.median(walls), statistics.median(cpus)
 
 
 def _get(client: TestClient, url: str) -> Callable[[], Any]:
@@ -292,9 +296,12 @@ def _last_link(html: str, fallback: str) -> str:
     return found.group(1).replace("&amp;", "&") if found else fallback
 
 
-def measure(settings: Settings, ids: dict[str, int], size: int, repeat: int) -> dict[str, float]:
+def measure(
+    settings: Settings, ids: dict[str, int], size: int, repeat: int
+) -> dict[str, tuple[float, float]]:
+    """(wall, CPU) milliseconds per request of the table (bytes for the ``bytes`` row)."""
     app = create_app(settings)
-    out: dict[str, float] = {}
+    out: dict[str, tuple[float, float]] = {}
     try:
         reader, admin = TestClient(app), TestClient(app)
         for client, name in ((reader, "reader"), (admin, "scale-admin")):
@@ -306,7 +313,8 @@ def measure(settings: Settings, ids: dict[str, int], size: int, repeat: int) -> 
         corpus = ids["corpus"]
         out["Queue page"] = median_ms(_get(reader, "/queue"), repeat)
         out["/api/queue"] = median_ms(_get(reader, "/api/queue"), repeat)
-        out["/api/queue bytes"] = float(len(reader.get("/api/queue").content))
+        size_bytes = float(len(reader.get("/api/queue").content))
+        out["/api/queue bytes"] = (size_bytes, size_bytes)
         out["Bench page (last sentence)"] = median_ms(_get(reader, f"/bench/{ids['last']}"), repeat)
         out["/api/bench (last sentence)"] = median_ms(
             _get(reader, f"/api/bench/{ids['last']}"), repeat
@@ -317,9 +325,12 @@ def measure(settings: Settings, ids: dict[str, int], size: int, repeat: int) -> 
         out["corpus page, first page"] = median_ms(_get(admin, f"/corpora/{corpus}"), repeat)
         out["Corpora overview"] = median_ms(_get(admin, "/"), repeat)
         agreement = _get(admin, f"/agreement?corpus={corpus}")
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         agreement()  # the first view in this process sums every record
-        out["Agreement page, first view"] = (time.perf_counter() - t0) * 1000
+        out["Agreement page, first view"] = (
+            (time.perf_counter() - t0) * 1000,
+            (time.process_time() - c0) * 1000,
+        )
         out["Agreement page"] = median_ms(agreement, repeat)
         # the reader is assigned every compared sentence and has handed in none: the blind
         # rule hides all of them from the reader, whose view sums them apart
@@ -364,7 +375,7 @@ def main() -> None:
     args = ap.parse_args()
     sizes = [int(s) for s in args.sizes.split(",")]
     trees = gum_trees()
-    columns: dict[int, dict[str, float]] = {}
+    columns: dict[int, dict[str, tuple[float, float]]] = {}
     for size in sizes:
         folder = Path(tempfile.mkdtemp(prefix="tw-scale-"))
         settings, pg_name = fresh_settings(folder / "data", args.database_url)
@@ -383,15 +394,21 @@ def main() -> None:
             shutil.rmtree(folder, ignore_errors=True)
     backend = "postgresql" if args.database_url else "sqlite"
     load = ", ".join(f"{x:.1f}" for x in os.getloadavg())
-    print(f"\nmedian ms of {args.repeat} requests, {backend}, in-process client, load {load}")
-    head = f"{'request':<34}" + "".join(f"{s:>12,}" for s in sizes) + f"{'ratio':>8}"
-    print(head)
-    print("-" * len(head))
-    for key in columns[sizes[0]]:
-        cells = [columns[s][key] for s in sizes]
-        fmt = "{:>12,.0f}" if key.endswith("bytes") else "{:>12.1f}"
-        ratio = cells[-1] / cells[0] if cells[0] else float("nan")
-        print(f"{key:<34}" + "".join(fmt.format(c) for c in cells) + f"{ratio:>8.2f}")
+    for which, what in ((0, "wall"), (1, "CPU")):
+        print(
+            f"\nmedian {what} ms of {args.repeat} requests, {backend}, in-process client, "
+            f"load {load}"
+        )
+        head = f"{'request':<34}" + "".join(f"{s:>12,}" for s in sizes) + f"{'ratio':>8}"
+        print(head)
+        print("-" * len(head))
+        for key in columns[sizes[0]]:
+            if which and key.endswith("bytes"):
+                continue
+            cells = [columns[s][key][which] for s in sizes]
+            fmt = "{:>12,.0f}" if key.endswith("bytes") else "{:>12.1f}"
+            ratio = cells[-1] / cells[0] if cells[0] else float("nan")
+            print(f"{key:<34}" + "".join(fmt.format(c) for c in cells) + f"{ratio:>8.2f}")
 
 
 if __name__ == "__main__":
