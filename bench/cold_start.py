@@ -3,6 +3,7 @@
 Usage: python bench/cold_start.py [--genres interview,voyage] [--test 120] [--draws 3]
                                   [--rows 0,100,300] [--columns plain,auto]
                                   [--extra "3;prior=200"] [--candidates 120] [--no-job]
+                                  [--self-trees 400] [--self-tree consensus|viterbi]
 
 Open data set: GUM (Zeldes 2017), ../shared/data/gum-trees. Each GUM genre named plays the new
 domain in turn: its documents sorted by name, the last four are the test set (whole
@@ -30,12 +31,20 @@ Columns (``--columns``, any of):
                2004) and the most uncertain trees are added, as the service's queue does. Only
                ``--candidates`` randomly drawn (seeded) unpicked pool sentences are ranked per
                row, to keep the run short.
+  self         self-training (McClosky, Charniak and Johnson 2006, "Reranking and
+               self-training for parser adaptation", from memory): the auto grammar parses
+               ``--self-trees`` raw in-domain sentences (the pool's sentences after the N
+               trees, at most 40 words, words only), and their trees (``--self-tree``:
+               consensus or viterbi) are added to the reference trees (plain counts) of a
+               grammar trained again with the auto weighting.
 A row of N at least the pool's size uses the whole pool (one draw: every draw is the same).
 ``--extra`` adds one column per fixed weighting (parser.adapt.parse_weighting text, separated
 by ``;``), counted with plain counts in one pass.
-After the first genre's table, the time to train with every other genre as reference + 300
-in-domain trees and the auto grid (CPU seconds and wall seconds; the machine's load shows
-beside them).
+After the first genre's table, the service's training job (app.services.training, run on a
+fresh SQLite database in this process, its held-out parses in worker processes as in the
+service) with every other genre as one reference set + 300 in-domain gold trees and the
+weight chosen automatically: CPU seconds of the job and of its parse workers, wall seconds,
+the grid's scores (the machine's load shows beside them).
 """
 
 from __future__ import annotations
@@ -66,7 +75,7 @@ from parser.grammar import Grammar, Weighting, train_grammar, train_weighted  # 
 from parser.trees import read_trees  # noqa: E402
 
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
-COLUMNS = ("only", "plain", "auto", "informative")
+COLUMNS = ("only", "plain", "auto", "informative", "self")
 
 
 def _rooted(tree: Tree) -> Tree:
@@ -117,6 +126,19 @@ def _informative(
     return [i for _, i in scored[:want]]
 
 
+def _self_trees(grammar: Grammar, sentences: list[list[str]], kind: str) -> list[Tree]:
+    """The grammar's trees of raw sentences (consensus or Viterbi), ROOT-rooted."""
+    from parser.chart import parse
+
+    out = []
+    for words in sentences:
+        result = parse(grammar, words, posteriors=kind == "consensus")
+        if result.fallback:
+            continue
+        out.append(_rooted(result.consensus if kind == "consensus" else result.trees[0]))
+    return out
+
+
 def _cell(values: list[float]) -> str:
     if not values:
         return "-"
@@ -135,6 +157,8 @@ def main() -> None:
     ap.add_argument("--extra", default="", help="fixed weightings to compare, ';'-separated")
     ap.add_argument("--candidates", type=int, default=120)
     ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--self-trees", type=int, default=400)
+    ap.add_argument("--self-tree", choices=("consensus", "viterbi"), default="consensus")
     ap.add_argument("--no-table", action="store_true", help="only the job's time")
     ap.add_argument("--no-job", action="store_true", help="only the table")
     args = ap.parse_args()
@@ -222,12 +246,18 @@ def _table(
                 results.setdefault(("plain", n), []).append(f1(grammars[0]))
             for w, g in zip(extras, grammars[1:], strict=True):
                 results.setdefault((describe(w), n), []).append(f1(g))
-            if "auto" in columns:
+            if "auto" in columns or "self" in columns:
                 g_auto, w_auto = _auto(trees, reference, grammars[0])
+                chosen.setdefault(n, []).append(describe(w_auto))
+            if "auto" in columns:
                 same = g_auto is grammars[0] and "plain" in columns
                 value = results[("plain", n)][-1] if same else f1(g_auto)
                 results.setdefault(("auto", n), []).append(value)
-                chosen.setdefault(n, []).append(describe(w_auto))
+            if "self" in columns:
+                raw = [t.leaves() for t in pool[n:] if len(t.leaves()) <= 40]
+                parsed = _self_trees(g_auto, raw[: args.self_trees], args.self_tree)
+                g_self = train_grammar(trees, reference=reference + parsed, weighting=w_auto)
+                results.setdefault(("self", n), []).append(f1(g_self))
             if "informative" in columns and n < len(pool):
                 picked, prev, rng = informative_state[d]
                 assert prev is not None
@@ -258,21 +288,74 @@ def _table(
             print(f"gain over the reference alone, {c}: " + ", ".join(gains), flush=True)
 
 
+def _flat(tree: Tree) -> str:
+    return " ".join(str(tree).split())
+
+
 def _job(reference: list[Tree], pool: list[Tree]) -> None:
-    """The service's job with all other genres as reference and 300 in-domain trees."""
+    """The service's training job (app.services.training.run_version, the code a background
+    worker runs) on a fresh SQLite database: a corpus with the other genres as one reference
+    set, 300 in-domain gold trees and the weight chosen automatically. CPU time is this
+    process's and its parse workers' (joined before the job ends)."""
+    import resource
+    import tempfile
+
+    from app.main import create_app
+    from app.models import GrammarVersion
+    from app.services import training
+    from app.services.corpora import create_corpus
+    from app.services.imports import import_bytes
+    from app.services.reference import add_reference
+    from app.settings import Settings
+
     trees = pool[:300]
-    c0, w0 = time.process_time(), time.perf_counter()
-    train, held = heldout_split(trees)
-    choice = choose_weighting(train, held, reference)
-    c1, w1 = time.process_time(), time.perf_counter()
-    train_grammar(trees, reference=reference, weighting=choice.weighting)
-    c2, w2 = time.process_time(), time.perf_counter()
-    print(
-        f"job with {len(reference)} reference + {len(trees)} in-domain trees: weight choice "
-        f"(grid on {len(held)} held-out) {c1 - c0:.1f} s CPU / {w1 - w0:.1f} s wall, "
-        f"final grammar {c2 - c1:.1f} s CPU / {w2 - w1:.1f} s wall; {_load()}",
-        flush=True,
-    )
+    with tempfile.TemporaryDirectory(prefix="tw-cold-") as tmp:
+        settings = Settings(data_dir=Path(tmp), secret_key="bench", training_in_process=True)
+        app = create_app(settings)
+        factory = app.state.sessionmaker
+        with factory() as db:
+            corpus = create_corpus(db, "cold", settings={"retrain_every": 0})
+            db.commit()
+            corpus_id = corpus.id
+            text = "".join(_flat(t) + "\n" for t in trees).encode()
+            import_bytes(db, text, source="pool.ptb", corpus_name="cold", kind="gold")
+            ref = "".join(_flat(t) + "\n" for t in reference).encode()
+            add_reference(
+                db,
+                corpus_id,
+                ref,
+                name="other genres",
+                source="GUM",
+                licence="CC BY",
+                filename="reference.ptb",
+            )
+            version_id = training.request_training(db, corpus_id, reason="bench").id
+        assert training.claim(factory, version_id) == version_id
+        children = resource.getrusage(resource.RUSAGE_CHILDREN)
+        c0, w0 = time.process_time(), time.perf_counter()
+        training.run_version(factory, version_id)
+        c1, w1 = time.process_time(), time.perf_counter()
+        after = resource.getrusage(resource.RUSAGE_CHILDREN)
+        child = (after.ru_utime + after.ru_stime) - (children.ru_utime + children.ru_stime)
+        with factory() as db:
+            row = db.get(GrammarVersion, version_id)
+            assert row is not None
+            opts = row.options or {}
+            adaptation = opts.get("adaptation", {})
+            grid = ", ".join(
+                f"{x['weighting']} {100 * x['f1']:.2f}" for x in adaptation.get("grid", [])
+            )
+            print(
+                f"service job with {len(reference)} reference + {len(trees)} in-domain trees "
+                f"({opts.get('heldout_sampled')} held out): {c1 - c0 + child:.1f} s CPU "
+                f"({c1 - c0:.1f} in the job's process, {child:.1f} in its parse workers), "
+                f"{w1 - w0:.1f} s wall; status {row.status}; weighting "
+                f"{adaptation.get('weighting')} (grid: {grid or '-'}); timing "
+                + ", ".join(f"{k} {v:.1f} s" for k, v in opts.get("timing", {}).items())
+                + f"; {_load()}",
+                flush=True,
+            )
+        app.state.engine.dispose()
 
 
 if __name__ == "__main__":

@@ -8,14 +8,17 @@ What it computes
     :func:`choose_weighting` picks the weighting of a small grid (:data:`GRID`) whose grammar,
     trained on the in-domain training trees plus the reference, parses the in-domain held-out
     trees best (labelled bracket F1 of the consensus tree, words only, the tree annotators
-    start from). The grid costs one count of the trees (:func:`parser.grammar.train_weighted`)
-    and one parse of the held-out trees per point. With fewer than :data:`MIN_HELDOUT`
+    start from). The grid costs one count of the trees (:func:`parser.grammar.train_weighted`),
+    one complete parse of the held-out trees and one parse per other point pruned by the
+    first point's posteriors (:func:`parser.chart.parse_family`, about a third of a complete
+    parse). With fewer than :data:`MIN_HELDOUT`
     held-out trees the choice would be noise, so :data:`DEFAULT` is used instead.
 
     :func:`heldout_split` holds out every n-th tree, the same rule the service applies to its
     gold (by position here, by sentence id there).
 
-Complexity: one training count plus len(grid) x held-out parses (O(n^3) each).
+Complexity: one training count plus held-out parses (O(n^3) each): one complete and
+len(grid) - 1 pruned ones per held-out tree.
 Limits: the grid is small on purpose; a finer one overfits a few dozen held-out trees.
 """
 
@@ -99,6 +102,10 @@ def heldout_split(trees: Sequence[Tree], every: int = 10) -> tuple[list[Tree], l
     return train, held
 
 
+def _rooted_like(gold: Tree, test: Tree) -> Tree:
+    return test if test.label() == gold.label() else Tree(gold.label(), [test])
+
+
 def heldout_f1(
     grammar: Grammar, held: Sequence[Tree], progress: Callable[[int, int], None] | None = None
 ) -> float:
@@ -109,13 +116,22 @@ def heldout_f1(
     pairs = []
     for i, gold in enumerate(held):
         result = parse(grammar, gold.leaves(), posteriors=True)
-        test = result.consensus or result.trees[0]
-        if test.label() != gold.label():
-            test = Tree(gold.label(), [test])
-        pairs.append((gold, test))
+        pairs.append((gold, _rooted_like(gold, result.consensus or result.trees[0])))
         if progress is not None:
             progress(i + 1, len(held))
     return score_corpus(pairs).f1
+
+
+def family_f1(grammars: Sequence[Grammar], held: Sequence[Tree]) -> list[float]:
+    """:func:`heldout_f1` of each grammar of a family (one count, several weightings), the
+    later ones parsed with the first one's pruning (:func:`parser.chart.parse_family`)."""
+    from parser.chart import parse_family
+
+    pairs: list[list[tuple[Tree, Tree]]] = [[] for _ in grammars]
+    for gold in held:
+        for out, result in zip(pairs, parse_family(grammars, gold.leaves()), strict=True):
+            out.append((gold, _rooted_like(gold, result.consensus or result.trees[0])))
+    return [score_corpus(p).f1 for p in pairs]
 
 
 @dataclass
@@ -143,14 +159,15 @@ def choose_weighting(
     reference: Sequence[Tree],
     grid: Sequence[Weighting] = GRID,
     default: Weighting = DEFAULT,
-    progress: Callable[[int, int], None] | None = None,
-    score: Callable[[Grammar], float] | None = None,
+    score: Callable[[Sequence[Grammar]], Sequence[float]] | None = None,
     **train_options: Any,
 ) -> Choice:
     """The grid point with the best held-out F1 (the first of equals), or ``default`` when
     there are fewer than MIN_HELDOUT held-out trees, no reference or no in-domain training
-    tree (then there is nothing to weigh). ``score(grammar)`` replaces :func:`heldout_f1` on
-    ``held`` (a caller that wants more than the F1 of each point)."""
+    tree (then there is nothing to weigh). The grid's grammars are scored together by
+    :func:`family_f1` on ``held`` (the first grid point parsed in full, the others pruned by
+    it), or by ``score(grammars)``, which returns one F1 per grammar (a caller that parses
+    elsewhere or wants more than the F1 of each point)."""
     if not reference:
         return Choice(Weighting(), reason="no reference trees: plain counts")
     if not train:
@@ -162,11 +179,10 @@ def choose_weighting(
             reason=f"{len(held)} held-out trees (fewer than {MIN_HELDOUT}): default",
         )
     grammars = train_weighted(train, reference=reference, weightings=grid, **train_options)
-    scores: list[tuple[Weighting, float]] = []
-    for i, (w, g) in enumerate(zip(grid, grammars, strict=True)):
-        scores.append((w, score(g) if score is not None else heldout_f1(g, held)))
-        if progress is not None:
-            progress(i + 1, len(grid))
+    f1s = list(score(grammars) if score is not None else family_f1(grammars, held))
+    if len(f1s) != len(grid):
+        raise GrammarError(f"{len(f1s)} scores for a grid of {len(grid)} weightings")
+    scores = list(zip(grid, f1s, strict=True))
     best = max(range(len(scores)), key=lambda i: (scores[i][1], -i))
     return Choice(
         scores[best][0],

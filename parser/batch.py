@@ -19,21 +19,32 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from multiprocessing import get_context
 from pathlib import Path
+from typing import Any
 
-from parser.chart import Constraints, ParseResult, parse
+from parser.chart import Constraints, ParseResult, parse, parse_family
 from parser.grammar import Grammar
 
 _WORKER_GRAMMAR: Grammar | None = None
+_WORKER_FAMILY: list[Grammar] = []
 
 
-def _init_worker(path: str, threads: int | None = None) -> None:
-    global _WORKER_GRAMMAR
+def _init_worker(path: str | list[str], threads: int | None = None) -> None:
+    global _WORKER_GRAMMAR, _WORKER_FAMILY
     if threads is not None:
         import numba
 
         most: int = numba.config.NUMBA_NUM_THREADS  # type: ignore[attr-defined]
         numba.set_num_threads(max(1, min(threads, most)))
-    _WORKER_GRAMMAR = Grammar.load(path)
+    if isinstance(path, list):
+        _WORKER_FAMILY = [Grammar.load(p) for p in path]
+    else:
+        _WORKER_GRAMMAR = Grammar.load(path)
+
+
+def _parse_family_chunk(sentences: list[list[str]]) -> list[list[ParseResult]]:
+    if not _WORKER_FAMILY:
+        raise RuntimeError("worker started without its grammars")
+    return [parse_family(_WORKER_FAMILY, words) for words in sentences]
 
 
 def _parse_chunk(
@@ -81,17 +92,61 @@ def parse_many(
             grammar.save(path)
         else:
             path = str(grammar)
-        chunks = [items[x : x + chunk] for x in range(0, total, chunk)]
-        results: list[ParseResult] = []
-        with ProcessPoolExecutor(
-            max_workers=workers,
-            mp_context=get_context("spawn"),
-            initializer=_init_worker,
-            initargs=(path, threads),
-        ) as pool:
-            futures = [pool.submit(_parse_chunk, c, k, posteriors) for c in chunks]
-            for fut in futures:
-                results.extend(fut.result())
-                if progress is not None:
-                    progress(len(results), total)
-        return results
+        calls = [(items[x : x + chunk], k, posteriors) for x in range(0, total, chunk)]
+        return _in_pool(path, threads, workers, _parse_chunk, calls, total, progress)
+
+
+def _in_pool(
+    grammar_paths: str | list[str],
+    threads: int | None,
+    workers: int,
+    task: Callable[..., list[Any]],
+    calls: list[tuple[Any, ...]],
+    total: int,
+    progress: Callable[[int, int], None] | None,
+) -> list[Any]:
+    """``task(*call)`` of each call, in order, on ``workers`` spawned processes that load the
+    grammar file(s) once; ``progress(done, total)`` after each call's results."""
+    results: list[Any] = []
+    with ProcessPoolExecutor(
+        max_workers=workers,
+        mp_context=get_context("spawn"),
+        initializer=_init_worker,
+        initargs=(grammar_paths, threads),
+    ) as pool:
+        futures = [pool.submit(task, *call) for call in calls]
+        for fut in futures:
+            results.extend(fut.result())
+            if progress is not None:
+                progress(len(results), total)
+    return results
+
+
+def parse_family_many(
+    grammars: Sequence[Grammar],
+    sentences: Sequence[Sequence[str]],
+    processes: int | None = None,
+    progress: Callable[[int, int], None] | None = None,
+    chunk: int = 16,
+    threads: int | None = None,
+) -> list[list[ParseResult]]:
+    """:func:`parser.chart.parse_family` of every sentence (one list of results per sentence,
+    one result per grammar), on ``processes`` workers that each load every grammar once: one
+    pool for the whole family instead of one per grammar."""
+    total = len(sentences)
+    items = [list(words) for words in sentences]
+    workers = processes or min(2, os.cpu_count() or 1)
+    if workers <= 1 or total < 2 * chunk:
+        out: list[list[ParseResult]] = []
+        for words in items:
+            out.append(parse_family(grammars, words))
+            if progress is not None:
+                progress(len(out), total)
+        return out
+    with tempfile.TemporaryDirectory(prefix="treewright-batch-") as tmp:
+        paths = []
+        for i, g in enumerate(grammars):
+            paths.append(str(Path(tmp) / f"grammar{i}.npz"))
+            g.save(paths[-1])
+        calls = [(items[x : x + chunk],) for x in range(0, total, chunk)]
+        return _in_pool(paths, threads, workers, _parse_family_chunk, calls, total, progress)

@@ -76,7 +76,7 @@ import tempfile
 import threading
 import time
 import weakref
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime
@@ -122,7 +122,8 @@ from app.services.refresh import refresh_step
 from app.services.suggestions import prune
 from app.settings import Settings
 from parser.adapt import choose_weighting, describe, parse_weighting
-from parser.batch import parse_many
+from parser.batch import parse_family_many, parse_many
+from parser.chart import ParseResult
 from parser.errors import ParserError
 from parser.grammar import Grammar, Weighting, train_grammar
 from parser.interval import f1_interval
@@ -451,12 +452,19 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
     heldout_f1: float | None = None
     heldout_detail: dict[str, Any] = {}
     adaptation: dict[str, Any] = {}
-    details: list[tuple[float, dict[str, Any]]] = []
+    # the reference-only start on today's held-out gold (the learning curve's baseline), parsed
+    # in the same batch as the grammars scored below
+    baseline = [train_grammar([], reference=reference)] if reference and held else []
+    baseline_f1: list[float] = []
 
-    def score(g: Grammar) -> float:
-        details.append(_score_heldout(g, held, progress))
-        return details[-1][0]
+    def score(grammars: Sequence[Grammar]) -> list[float]:
+        extra = [] if baseline_f1 else baseline
+        details = _score_heldout_family([*grammars, *extra], held, progress)
+        baseline_f1.extend(f for f, _ in details[len(grammars) :])
+        scored.extend(details[: len(grammars)])
+        return [f for f, _ in details[: len(grammars)]]
 
+    scored: list[tuple[float, dict[str, Any]]] = []
     if reference and weight_setting == AUTO_WEIGHT:
         choice = choose_weighting(
             [g.tree for g in train], [g.tree for g in held], reference, score=score
@@ -465,7 +473,7 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
         adaptation = {"setting": weight_setting, **choice.to_dict()}
         if choice.scores:
             best = [w for w, _ in choice.scores].index(weighting)
-            heldout_f1, heldout_detail = details[best]
+            heldout_f1, heldout_detail = scored[best]
     else:
         weighting = (
             parse_weighting(weight_setting)
@@ -484,10 +492,10 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
             weighting=weighting,
             progress=progress.phase(0.02, 0.2, "training on the slice"),
         )
-        heldout_f1, heldout_detail = _score_heldout(g_slice, held, progress)
-    if reference and held:
-        # the reference-only start on today's held-out gold (the learning curve's baseline)
-        adaptation["reference_only_f1"] = round(score(train_grammar([], reference=reference)), 5)
+        score([g_slice])
+        heldout_f1, heldout_detail = scored[-1]
+    if baseline_f1:
+        adaptation["reference_only_f1"] = round(baseline_f1[0], 5)
     cycles, refinement, refined_detail = refinement_choice.choose(
         [g.tree for g in train],
         len(gold),
@@ -647,6 +655,30 @@ def _score_heldout(
         threads=1,
         progress=report,
     )
+    return _heldout_detail(held, results)
+
+
+def _score_heldout_family(
+    grammars: Sequence[Grammar], held: list[GoldTree], progress: _Progress
+) -> list[tuple[float, dict[str, Any]]]:
+    """:func:`_score_heldout` of each grammar, all parsed in one batch of workers, the later
+    grammars pruned by the first one's posteriors (:func:`parser.batch.parse_family_many`)."""
+    report = progress.phase(0.2, 0.85, f"parsing the held-out gold with {len(grammars)} grammars")
+    workers = parallel_parses()
+    per_sentence = parse_family_many(
+        grammars,
+        [words(g.tree) for g in held],
+        processes=workers,
+        chunk=max(4, math.ceil(len(held) / (2 * workers))),
+        threads=1,
+        progress=report,
+    )
+    return [_heldout_detail(held, [rs[i] for rs in per_sentence]) for i in range(len(grammars))]
+
+
+def _heldout_detail(
+    held: list[GoldTree], results: Sequence[ParseResult]
+) -> tuple[float, dict[str, Any]]:
     pairs = [
         (g.tree, rooted(r.consensus or r.trees[0])) for g, r in zip(held, results, strict=True)
     ]

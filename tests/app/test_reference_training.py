@@ -29,7 +29,7 @@ from app.services.errors import BadInput, Conflict
 from app.services.exports import export_gold
 from app.services.imports import import_bytes
 from app.services.suggestions import grammar_from_bytes
-from parser.adapt import DEFAULT, describe
+from parser.adapt import DEFAULT, GRID, describe, parse_weighting
 from tests.app.review_helpers import import_demo_gold, wait_for_version
 from tests.parser.test_chart_entropy import SMALL
 
@@ -94,23 +94,31 @@ def test_reference_trees_never_reach_sentences_exports_or_agreement(app, db):
     assert db.scalar(select(func.count(AgreementRecord.id))) == 0
 
 
-def test_training_with_reference_records_weight_and_sets(app, db):
-    corpus = import_demo_gold(db, settings={"retrain_every": 0})
+def test_training_with_reference_records_weight_sets_and_grid(app, db, monkeypatch):
+    # every third demo tree held out: 25 of 75, enough for the grid (parsed in one batch with
+    # the reference-only grammar); the version records the best point's F1 as its own. Parsed
+    # in this process: worker processes would cost more to start than these short parses.
+    monkeypatch.setattr(training, "parallel_parses", lambda: 1)
+    corpus = import_demo_gold(db, settings={"retrain_every": 0, "heldout_every": 3})
     added = _add(db, corpus.id)
     v = training.run_training(app.state.sessionmaker, corpus.id, reason="test")
     assert v.status == GV_READY
     assert v.options["reference"] == [{"id": added.id, "trees": 3}]
     assert v.options["reference_trees"] == 3
     adaptation = v.options["adaptation"]
-    # 75 demo gold trees hold out fewer than 20: the measured default, no grid
-    assert adaptation["setting"] == "auto" and adaptation["grid"] == []
-    assert adaptation["weighting"] == describe(DEFAULT)
+    grid = adaptation["grid"]
+    assert adaptation["setting"] == "auto"
+    assert [x["weighting"] for x in grid] == [describe(w) for w in GRID]
+    best = max(range(len(grid)), key=lambda i: (grid[i]["f1"], -i))
+    assert adaptation["weighting"] == grid[best]["weighting"]
+    assert v.heldout_f1 == pytest.approx(grid[best]["f1"], abs=1e-5)
+    assert v.options["heldout"]["sentences"] == v.options["heldout_sampled"] >= 20
     # three harbour trees alone know almost nothing of the ferry's minutes
     assert 0.0 <= adaptation["reference_only_f1"] < v.heldout_f1
     stored = db.scalar(select(GrammarVersion).where(GrammarVersion.id == v.id))
     grammar = grammar_from_bytes(stored.data)
     assert "quayside" in grammar.vocab and grammar.meta["reference_trees"] == 3
-    assert grammar.meta["weighting"] == DEFAULT.to_dict()
+    assert grammar.meta["weighting"] == parse_weighting(adaptation["weighting"]).to_dict()
 
 
 def test_training_with_a_fixed_weight_and_a_set_not_in_use(app, db):

@@ -16,6 +16,7 @@ from parser.adapt import (
     heldout_split,
     parse_weighting,
 )
+from parser.chart import parse, parse_family
 from parser.errors import GrammarError
 from parser.grammar import Grammar, Weighting, train_grammar, train_weighted
 from parser.lexicon import estimate_lexicon
@@ -163,14 +164,13 @@ def test_choose_weighting_picks_the_grid_point_with_the_best_heldout_f1() -> Non
 
 def test_choose_weighting_takes_the_first_of_equal_scores_and_the_default_when_few() -> None:
     grid = (Weighting(rules=2.0), Weighting(rules=4.0), Weighting(rules=8.0))
-    scores = iter([0.5, 0.7, 0.7])
     tree = "(ROOT (S (NP (PRP it)) (VP (VBD ran))))"
     choice = choose_weighting(
         _trees(3, tree),
         _trees(MIN_HELDOUT, tree),
         REFERENCE,
         grid=grid,
-        score=lambda g: next(scores),
+        score=lambda grammars: [0.5, 0.7, 0.7][: len(grammars)],
         **PLAIN,
     )
     assert choice.weighting == grid[1]
@@ -186,3 +186,38 @@ def test_heldout_split_holds_out_every_tenth() -> None:
     train, held = heldout_split(trees)
     assert [t.leaves()[0] for t in held] == ["10", "20"]
     assert len(train) == 23
+
+
+def test_parse_family_equals_separate_parses_when_only_impossible_cells_are_pruned() -> None:
+    # A family of weightings of one count has one support, so pruning the cells of zero
+    # posterior under the first grammar (prune 0) leaves every later grammar exact; a grammar
+    # with other symbols (the reference alone) is matched by symbol name.
+    reference = [
+        Tree.fromstring(t)
+        for t in (
+            "(ROOT (S (NP (PRP she)) (VP (VBD saw) (NP (DT the) (NN man)) "
+            "(PP (IN with) (NP (DT the) (NN telescope))))))",
+            "(ROOT (S (NP (PRP she)) (VP (VBD saw) (NP (NP (DT the) (NN man)) "
+            "(PP (IN with) (NP (DT the) (NN hat)))))))",
+        )
+    ]
+    domain = [
+        Tree.fromstring(
+            "(ROOT (S (NP (PRP he)) (VP (VBD saw) (NP (NP (DT the) (NN man)) "
+            "(PP (IN with) (NP (DT the) (NN telescope)))))))"
+        )
+    ]
+    grid = (Weighting(), Weighting(rules=4.0, lexicon=1.0), Weighting(prior=2.0))
+    family = [
+        *train_weighted(domain, reference=reference, weightings=grid, **PLAIN),
+        train_grammar([], reference=reference, **PLAIN),
+    ]
+    words = "she saw the man with the telescope".split()
+    results = parse_family(family, words, prune=0.0)
+    alone = [parse(g, words, posteriors=True) for g in family]
+    for got, want in zip(results, alone, strict=True):
+        assert got.consensus == want.consensus
+        assert [p[:3] for p in got.posteriors] == [p[:3] for p in want.posteriors]
+        assert np.allclose([p[3] for p in got.posteriors], [p[3] for p in want.posteriors])
+    # the weightings disagree on the attachment, so the family is not one grammar four times
+    assert len({str(r.consensus) for r in alone}) > 1
