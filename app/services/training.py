@@ -457,12 +457,16 @@ def _run(factory: sessionmaker[Session], version_id: int, progress: _Progress) -
     baseline = [train_grammar([], reference=reference)] if reference and held else []
     baseline_f1: list[float] = []
 
-    def score(grammars: Sequence[Grammar]) -> list[float]:
+    def score(grammars: Sequence[Grammar]) -> list[list[tuple[int, int, int]]]:
+        """Per grammar, its per-sentence counts on the held-out sample."""
         extra = [] if baseline_f1 else baseline
         details = _score_heldout_family([*grammars, *extra], held, progress)
         baseline_f1.extend(f for f, _ in details[len(grammars) :])
         scored.extend(details[: len(grammars)])
-        return [f for f, _ in details[: len(grammars)]]
+        return [
+            [(c[0], c[1], c[2]) for c in d["per_sentence"].values()]
+            for _, d in details[: len(grammars)]
+        ]
 
     scored: list[tuple[float, dict[str, Any]]] = []
     if reference and weight_setting == AUTO_WEIGHT:

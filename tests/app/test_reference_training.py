@@ -110,8 +110,10 @@ def test_training_with_reference_records_weight_sets_and_grid(app, db, monkeypat
     assert adaptation["setting"] == "auto"
     assert [x["weighting"] for x in grid] == [describe(w) for w in GRID]
     best = max(range(len(grid)), key=lambda i: (grid[i]["f1"], -i))
-    assert adaptation["weighting"] == grid[best]["weighting"]
-    assert v.heldout_f1 == pytest.approx(grid[best]["f1"], abs=1e-5)
+    # the best point, or plain counts when the best gains within the noise of 25 trees
+    chosen = [x["weighting"] for x in grid].index(adaptation["weighting"])
+    assert chosen == best or (chosen == 0 and "within the noise" in adaptation["reason"])
+    assert v.heldout_f1 == pytest.approx(grid[chosen]["f1"], abs=1e-5)
     assert v.options["heldout"]["sentences"] == v.options["heldout_sampled"] >= 20
     # three harbour trees alone know almost nothing of the ferry's minutes
     assert 0.0 <= adaptation["reference_only_f1"] < v.heldout_f1

@@ -165,20 +165,42 @@ def test_choose_weighting_picks_the_grid_point_with_the_best_heldout_f1() -> Non
 def test_choose_weighting_takes_the_first_of_equal_scores_and_the_default_when_few() -> None:
     grid = (Weighting(rules=2.0), Weighting(rules=4.0), Weighting(rules=8.0))
     tree = "(ROOT (S (NP (PRP it)) (VP (VBD ran))))"
+    # per-sentence (matched, gold, test): F1 0.5, 0.7, 0.7 on every held-out sentence
+    counts = [[(f, 10, 10)] * MIN_HELDOUT for f in (5, 7, 7)]
     choice = choose_weighting(
         _trees(3, tree),
         _trees(MIN_HELDOUT, tree),
         REFERENCE,
         grid=grid,
-        score=lambda grammars: [0.5, 0.7, 0.7][: len(grammars)],
+        score=lambda grammars: counts[: len(grammars)],
         **PLAIN,
     )
     assert choice.weighting == grid[1]
+    assert [f for _, f in choice.scores] == pytest.approx([0.5, 0.7, 0.7])
     few = choose_weighting(
         _trees(3, tree), _trees(MIN_HELDOUT - 1, tree), REFERENCE, grid=grid, **PLAIN
     )
     assert few.weighting == DEFAULT and few.scores == []
     assert choose_weighting(_trees(3, tree), _trees(30, tree), [], **PLAIN).weighting == Weighting()
+
+
+def test_choose_weighting_keeps_the_first_point_when_the_best_gains_within_the_noise() -> None:
+    grid = (Weighting(), Weighting(rules=4.0))
+    tree = "(ROOT (S (NP (PRP it)) (VP (VBD ran))))"
+    # the second point is better overall (F1 0.55 against 0.5) but gains on half of the
+    # sentences and loses on the others: its paired bootstrap interval straddles 0
+    mixed = [(10, 10, 10), (1, 10, 10)] * (MIN_HELDOUT // 2)
+    counts = [[(5, 10, 10)] * MIN_HELDOUT, mixed]
+    choice = choose_weighting(
+        _trees(3, tree),
+        _trees(MIN_HELDOUT, tree),
+        REFERENCE,
+        grid=grid,
+        score=lambda grammars: counts,
+        **PLAIN,
+    )
+    assert [f for _, f in choice.scores] == pytest.approx([0.5, 0.55])
+    assert choice.weighting == grid[0] and "within the noise" in choice.reason
 
 
 def test_heldout_split_holds_out_every_tenth() -> None:
