@@ -33,16 +33,21 @@ The cost model: one action is one edit on the Bench, whatever keys or drags it t
   Choosing one of them (the proposal with g, another with the keys that step through them) is
   **one action**; the simulated annotator, who sees what each would change, takes the one
   closest to gold when it is at least 2 edits closer than the tree (one edit closer would only
-  pay for its own key). Before the first edit the same choice is offered among the start's
-  own readings (the Bench's readings list and 1-9 keys). Stepping through an offer (G),
+  pay for its own key). Before the first edit the same choice is offered (nothing said: the
+  start's own k best readings). Stepping through an offer (G),
   reading it and rejecting it cost nothing here (a real annotator spends time on them, which
   the action count does not see: with 30 readings that time is not small).
 
 Conditions (``--conditions``, side by side in one run): ``plain``; ``proposal`` (the
 constrained consensus alone is offered: the Bench before the readings were offered); ``kN``
-(the proposal and the N best readings under the constraints). ``k30`` is what the Bench offers
-(``OFFER_K`` in ``static/js/bench/loop.js``). An offer applied without the annotator's choice
-made the tree worse in most sentences when measured before, so no condition applies one unasked.
+(the proposal and the N best readings under the constraints); ``kNd`` (N distinct bracketings
+drawn from 4N derivations, each with the proposal's tags) and ``kNdo`` (the same keeping each
+one's own tags): :func:`parser.reparse.reparse` with ``distinct``. ``k30`` is what the Bench
+offers (``OFFER_K`` in ``static/js/bench/loop.js``). Before the first edit the Bench offers the
+same (the start's k best readings, nothing said): ``--start-readings 0``, the default; N
+models a page that offered only its readings list's N. An offer applied without the
+annotator's choice made the tree worse in most sentences when measured before, so no
+condition applies one unasked.
 
 Usage: ``python bench/simulate_annotator.py [--limit N] [--skip M] [--conditions plain,k30]
 [--only in|unseen] [--cache DIR]`` (N test sentences, default 40; ``--cache`` keeps the two
@@ -306,11 +311,28 @@ class Tally:
     seconds: float = 0.0
 
 
-def offered(g: Grammar, word_list: list[str], said: Said_, tree: Tree, k: int) -> list[Tree]:
+def offered(
+    g: Grammar,
+    word_list: list[str],
+    said: Said_,
+    tree: Tree,
+    k: int,
+    distinct: bool = True,
+    own_tags: bool = False,
+) -> list[Tree]:
     """What the page shows after an edit: the proposal, then the k best readings under the
-    constraints (k = 0: the proposal alone)."""
+    constraints (k = 0: the proposal alone; ``distinct``: as :func:`parser.reparse.reparse`
+    makes them)."""
     try:
-        out = reparse(g, word_list, said.frozen(), previous=tree, k=max(k, 1))
+        out = reparse(
+            g,
+            word_list,
+            said.frozen(),
+            previous=tree,
+            k=max(k, 1),
+            distinct=distinct,
+            own_tags=own_tags,
+        )
     except ConstraintError:
         return []
     return [out.tree] + ([t for t, _ in out.readings[:k]] if k else [])
@@ -328,13 +350,18 @@ def choose(trees: list[Tree], tree: Tree, gold: Tree) -> tuple[Tree, int] | None
 
 
 def annotate(
-    start: Tree, gold: Tree, ask: Callable[[Said_, Tree], list[Tree]] | None, tally: Tally
+    start: Tree,
+    gold: Tree,
+    ask: Callable[[Said_, Tree], list[Tree]] | None,
+    tally: Tally,
+    first: list[Tree] | None = None,
 ) -> None:
-    """Edit ``start`` to gold; with ``ask`` (the loop) an offer follows every edit."""
+    """Edit ``start`` to gold; with ``ask`` (the loop) an offer follows every edit, and
+    before the first edit the trees ``first`` are offered (None: what ``ask`` offers)."""
     tree = start
     said = Said_()
     if ask is not None:
-        got = choose(ask(said, tree), tree, gold)
+        got = choose(first if first is not None else ask(said, tree), tree, gold)
         tally.reparses += 1
         if got is not None:
             tree = got[0]
@@ -362,7 +389,9 @@ def annotate(
     raise RuntimeError(f"did not reach gold: {tree} / {gold}")
 
 
-def run(name: str, g: Grammar, tests: list[Tree], conds_spec: list[str]) -> None:
+def run(
+    name: str, g: Grammar, tests: list[Tree], conds_spec: list[str], start_readings: int
+) -> None:
     """``conds_spec``: ``plain``, ``proposal`` (the proposal alone), ``kN`` (the proposal and
     the N best readings under the constraints)."""
     t0 = time.process_time()
@@ -370,18 +399,30 @@ def run(name: str, g: Grammar, tests: list[Tree], conds_spec: list[str]) -> None
     per_sentence: dict[str, list[int]] = {c: [] for c in conds}
     for gold in tests:
         wl = [str(w) for w in words(gold)]
-        start = parse(g, wl, posteriors=True).consensus
+        first = parse(g, wl, k=max(start_readings, 1), posteriors=True)
+        start = first.consensus
         assert start is not None
+        start_offer = first.trees[:start_readings] if start_readings else None
         for cname, tally in conds.items():
             before = tally.actions
             c0 = time.process_time()
             ask = None
             if cname != "plain":
-                kk = 0 if cname == "proposal" else int(cname[1:])
-                ask = lambda said, tree, kk=kk, wl=wl: offered(g, wl, said, tree, kk)  # noqa: E731
-            annotate(start, gold, ask, tally)
+                kind = cname.rstrip("do")[1:]
+                kk = 0 if cname == "proposal" else int(kind)
+                mode = cname[len(kind) + 1 :] if cname != "proposal" else ""
+                ask = lambda said, tree, kk=kk, wl=wl, mode=mode: offered(  # noqa: E731
+                    g, wl, said, tree, kk, distinct=bool(mode), own_tags=mode == "do"
+                )
+            annotate(start, gold, ask, tally, start_offer)
             tally.seconds += time.process_time() - c0
             per_sentence[cname].append(tally.actions - before)
+        print(
+            f"  {len(next(iter(per_sentence.values())))}/{len(tests)} "
+            + " ".join(f"{c} {sum(v) / len(v):.2f}" for c, v in per_sentence.items()),
+            file=sys.stderr,
+            flush=True,
+        )
     n = len(tests)
     plain = conds["plain"].actions
     print(f"{name}: n = {n} sentences, CPU {time.process_time() - t0:.0f} s")
@@ -422,6 +463,13 @@ def main() -> None:
         help="comma-separated: plain, proposal, kN (default plain,k30: the Bench's offer)",
     )
     ap.add_argument("--cache", type=Path, help="directory keeping the trained grammars")
+    ap.add_argument(
+        "--start-readings",
+        type=int,
+        default=0,
+        help="readings offered before the first edit: 0 (default) the re-parse's offer, as "
+        "the Bench makes it on opening; N the start's N best alone (a readings list of N)",
+    )
     ap.add_argument("--only", choices=["in", "unseen"], help="one condition only")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
@@ -437,7 +485,13 @@ def main() -> None:
     conds = args.conditions.split(",")
     if args.only != "unseen":
         split = grammar("gum-split", lambda: [t for f in files[:89] for t in read(f)], args.cache)
-        run("in genre (GUM split: 89 files train, last 10 test)", split, tests, conds)
+        run(
+            "in genre (GUM split: 89 files train, last 10 test)",
+            split,
+            tests,
+            conds,
+            args.start_readings,
+        )
     if args.only != "in":
         genre = "GUM_" + files[-1].name.split("_")[1]
         unseen = grammar(
@@ -445,7 +499,7 @@ def main() -> None:
             lambda: [t for f in files if not f.name.startswith(genre) for t in read(f)],
             args.cache,
         )
-        run(f"unseen genre (trained without {genre}_*)", unseen, tests, conds)
+        run(f"unseen genre (trained without {genre}_*)", unseen, tests, conds, args.start_readings)
 
 
 if __name__ == "__main__":

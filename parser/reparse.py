@@ -59,6 +59,9 @@ from parser.trees import constituents, pos_tags, strip_label, tree_from_spans, w
 RELABEL_BACKOFF = 1e-5
 #: Bonus of the previous tree's brackets and tags in the proposal (see the module docstring).
 KEEP_BONUS = 0.15
+#: Derivations drawn per reading asked for when the readings are made distinct (see
+#: :func:`reparse`): many of the k best derivations differ from a better one only in a tag.
+DISTINCT_POOL = 4
 #: A best reading under the constraints less probable than the unconstrained best by more
 #: than this factor makes the proposal implausible.
 FAR_LESS = 1e-6
@@ -161,15 +164,25 @@ def reparse(
     previous: Tree | None = None,
     k: int = 5,
     keep_bonus: float = KEEP_BONUS,
+    distinct: bool = False,
+    own_tags: bool = False,
 ) -> Outcome:
     """Re-parse ``word_list`` around ``said``, favouring ``previous`` (see the module
     docstring). Raises :class:`parser.errors.ConstraintError` when the said brackets cross each
-    other or a bracket is both required and forbidden."""
+    other or a bracket is both required and forbidden.
+
+    The readings are the k best derivations with their own tags. With ``distinct`` they are
+    up to ``k`` different bracketings instead: each of the ``DISTINCT_POOL * k`` best
+    derivations takes the proposal's tags (``own_tags``: keeps its own), and one that brackets
+    the words as a better one did is dropped (its probability is that of its best derivation).
+    The Bench asks for the k best derivations: ``bench/simulate_annotator.py`` measured no
+    saving from distinct bracketings (DEVELOPERS.md)."""
     t0 = time.perf_counter()
     word_list = [str(w) for w in word_list]
     n = len(word_list)
     constraints = constraints_for(g, n, said)
-    result = parse(g, word_list, k=k, posteriors=True, constraints=constraints)
+    pool = k * DISTINCT_POOL if distinct else k
+    result = parse(g, word_list, k=pool, posteriors=True, constraints=constraints)
     reasons: list[str] = []
     if result.fallback:
         tree = graft(result.trees[0], said)
@@ -229,9 +242,22 @@ def reparse(
     proposal = graft(proposal, said)
     inside = result.inside_logprob
     readings: list[tuple[Tree, float | None]] = []
+    seen: set[tuple[tuple[str, int, int], ...]] = set()
     for t, lp in zip(result.trees, result.logprobs, strict=True):
         p = math.exp(min(0.0, lp - inside)) if inside is not None else None
-        readings.append((graft(t, said), p))
+        if not distinct:
+            readings.append((graft(t, said), p))
+            continue
+        reading = graft(
+            t if own_tags else tree_from_spans(word_list, tags, constituents(t), root=None), said
+        )
+        shape = tuple(constituents(reading))
+        if shape in seen:
+            continue
+        seen.add(shape)
+        readings.append((reading, p))
+        if len(readings) == k:
+            break
     if stand_ins:
         names = ", ".join(f"{lab} over words {s + 1}-{e}" for s, e, lab in stand_ins)
         reasons.append(

@@ -8,7 +8,7 @@ from __future__ import annotations
 import pytest
 from sqlalchemy import select
 
-from app.models import Corpus, GrammarVersion, User
+from app.models import Corpus, GrammarVersion, Sentence, User
 from app.services.suggestions import grammar_for
 from parser.chart import parse
 from parser.trees import constituents, pos_tags, read_tree, strip_label, words, write_tree
@@ -303,3 +303,40 @@ def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, f
     # with nothing offered, G says so
     page.keyboard.press("G")
     assert "no re-parse is offered now" in page.text_content("#bench-message")
+
+
+def test_bench_offers_the_grammars_readings_before_the_first_edit(
+    browser_page,
+    live_server,
+    ferry,  # noqa: F811
+) -> None:
+    """Opened with nothing said, the page offers the grammar's k best readings that differ
+    from the start (not only the readings list's five); G steps, g takes the one shown as one
+    action, saved as a revision with nothing said."""
+    with live_server.sessionmaker() as db:
+        sentence = db.get(Sentence, ferry["sentence_id"])
+        version = db.scalar(
+            select(GrammarVersion).where(GrammarVersion.corpus_id == sentence.corpus_id)
+        )
+        g = grammar_for(db, version.id)
+        best = [write_tree(t) for t in parse(g, sentence.tokens, k=30).trees]
+    page = browser_page
+    start = _open(page, live_server.base_url, "ann1", ferry["sentence_id"])
+    page.wait_for_selector("#bench[data-asked='1']", timeout=60_000)
+    assert page.is_visible("#regrow-offer")
+    # the start's own proposal changes nothing, so the offer is the k best that differ from it,
+    # best first
+    differ = [t for t in best if t != start]
+    assert page.locator("#regrow-readings button").count() == len(differ) > 5
+    assert page.get_attribute("#regrow-offer", "data-tree") == differ[0]
+    page.focus("#tree-pane")
+    page.keyboard.press("G")
+    assert page.get_attribute("#regrow-offer", "data-tree") == differ[1]
+    page.keyboard.press("g")
+    wait_tree(page, differ[1])
+    wait_saved(page)
+    _ann, revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])
+    assert revs[-1].tree == differ[1] and revs[-1].source == "reparse"
+    assert revs[-1].actions.get("reparse") == 1
+    said = revs[-1].pins
+    assert not (said.get("edited_spans") or said.get("removed_spans") or said.get("edited_tags"))

@@ -9,7 +9,7 @@ from nltk import Tree
 
 from parser.chart import parse
 from parser.grammar import Grammar
-from parser.reparse import Said, constraints_for, reparse
+from parser.reparse import DISTINCT_POOL, Said, constraints_for, graft, reparse
 from parser.trees import constituents, pos_tags, strip_function_tags, words
 from tests.parser.gum_grammar import split_grammar, split_trees
 
@@ -97,3 +97,42 @@ def test_reparse_gum_any_label_over_any_span_keeps_the_sentence_parsable(
         f"random label over a random span: {strict_failures} of {trials} had no parse "
         "without the back-off, none with it"
     )
+
+
+@pytest.mark.slow
+def test_reparse_gum_readings_are_distinct_bracketings_in_order_of_their_best_derivation(
+    grammar: Grammar, rng
+) -> None:
+    # Recomputed here from the chart's own k best derivations: keep each bracketing (with the
+    # said brackets grafted) the first time it appears, best first.
+    k = 8
+    shorter = 0
+    for gold in _test_sentences(12):
+        w = words(gold)
+        s, e, label = rng.choice([(s, e, lab) for lab, s, e in constituents(gold)[1:] if e - s > 1])
+        tag_at = rng.randrange(len(w))
+        said = Said(required=((s, e, label),), tags=((tag_at, pos_tags(gold)[tag_at]),))
+        start = parse(grammar, w, posteriors=True).consensus
+        out = reparse(grammar, w, said, previous=start, k=k, distinct=True)
+        raw = reparse(grammar, w, said, previous=start, k=k)
+        pool = parse(
+            grammar, w, k=k * DISTINCT_POOL, constraints=constraints_for(grammar, len(w), said)
+        )
+        expected: list[list[tuple[str, int, int]]] = []
+        for t in pool.trees:
+            shape = constituents(graft(t, said))
+            if shape not in expected:
+                expected.append(shape)
+        assert [constituents(t) for t, _ in out.readings] == expected[:k], w
+        # every reading carries the proposal's tags (the said one among them)
+        assert all(pos_tags(t) == pos_tags(out.tree) for t, _ in out.readings)
+        assert pos_tags(out.tree)[tag_at] == pos_tags(gold)[tag_at]
+        # a reading's probability is that of its best derivation: falls with the rank
+        probs = [p for _, p in out.readings]
+        assert all(p is not None for p in probs) and probs == sorted(probs, reverse=True)
+        # the derivations as they come repeat bracketings that differ only in tags
+        shapes = [constituents(t) for t, _ in raw.readings]
+        shorter += len({tuple(x) for x in shapes}) < len(shapes)
+        assert raw.readings[0][1] == probs[0]
+    print(f"{shorter} of 12 sentences had derivations differing only in tags among their {k} best")
+    assert shorter > 0

@@ -97,9 +97,10 @@ export async function ask(apply) {
   $("bench").dataset.answered = String(mine);  // answers so far (tests wait on it)
   S.posteriors = new Map(body.posteriors.map(([l, a, b, p]) => [`${l} ${a} ${b}`, p]));
   S.tagPosteriors = body.tag_posteriors;
-  // readings are offered once something has been said; before that they are the start's own
-  // (the readings list and keys 1-9), and only a proposal that changes the tree is offered
-  S.offer = offerOf(body, text, saidCount() > 0);
+  // the readings are offered from the start too (then they are the grammar's k best, the
+  // readings list's 5 and more): bench/simulate_annotator.py measures what that choice before
+  // the first edit saves (DEVELOPERS.md)
+  S.offer = offerOf(body, text);
   if (apply && S.offer && S.offer.choices[0].proposal && body.plausible) {
     take();
     return body;
@@ -109,12 +110,12 @@ export async function ask(apply) {
   return body;
 }
 
-// The offer of a re-parse answer: the proposal and (`withReadings`) the readings that differ
-// from the tree (`text`), each with its probability under the constraints and what it would change.
-function offerOf(body, text, withReadings) {
+// The offer of a re-parse answer: the proposal and the readings that differ from the tree
+// (`text`), each with its probability under the constraints and what it would change.
+function offerOf(body, text) {
   const probability = new Map(body.readings.map((r) => [r.tree, r.probability]));
   const now = T.readTree(text);
-  const choices = body.trees.slice(0, withReadings ? undefined : 1)
+  const choices = body.trees
     .map((t, i) => ({tree: t, proposal: i === 0, probability: probability.get(t)}))
     .filter((c) => c.tree !== text);
   if (!choices.length) return null;
