@@ -27,6 +27,11 @@ def pytest_configure(config: pytest.Config) -> None:
         os.environ.setdefault("NUMBA_CACHE_DIR", str(cache.mkdir("numba")))
     workers = getattr(config.option, "numprocesses", None)
     if workers and not hasattr(config, "workerinput"):
+        # One numba thread per test worker (the workers inherit this process's environment):
+        # with -n 2 on two cores each worker's parallel kernels would run two threads that
+        # spin against the other worker's. Measured with tests/parser/test_reparse_gum.py
+        # alone on a busy machine: 20 CPU-seconds with one thread against 45-68 with two.
+        os.environ.setdefault("NUMBA_NUM_THREADS", "1")
         _warm_numba_cache()
 
 
