@@ -5,9 +5,10 @@ PYTHON ?= $(shell command -v python3.11 || command -v python3)
 VENV   := .venv
 BIN    := $(VENV)/bin
 DATA   ?= data
-# Three test workers on two cores: tests that wait (browsers, servers, background jobs) leave a
-# core idle with two (whole suite, warm numba cache, side by side: 365 s with three, 434 s
-# with two, load about 2 to 4).
+# Three test workers on two cores, so that tests that wait (browsers, servers, background jobs)
+# leave no core idle. Whole suite, load about 2 to 4: three workers 365 s (warm numba cache) and
+# 424 s (fresh clone); two workers 434 s (warm) and 388 s (fresh clone). The difference is
+# within the noise between runs; three was not slower.
 PYTEST_WORKERS ?= 3
 # Seconds one test may take before it fails as hung (pytest-timeout); generous on purpose.
 PYTEST_TIMEOUT ?= 900
