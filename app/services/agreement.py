@@ -48,7 +48,7 @@ from datetime import datetime, timedelta
 from itertools import combinations
 from typing import Any
 
-from sqlalchemy import exists, func, or_, select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -442,10 +442,10 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
     (the blind rule of :mod:`app.services.blind`): their records are left out of everything
     the viewer sees of the log, rows and sums alike. None (the command line) sees all.
 
-    Cost: the smaller of two walks: the viewer's assignments and annotations (as
-    :func:`app.services.blind.unfinished_query` does), or the corpus's records with three
-    index probes each; the viewer's queue length (the maintained queue counts) and the
-    record count (the figure marks) choose."""
+    Cost: the smaller of two walks: the viewer's assignments and annotations
+    (:func:`app.services.blind.unfinished_query`), or the corpus's records with three index
+    probes each (:func:`app.services.blind.unfinished_clause`); the viewer's queue length
+    (the maintained queue counts) and the record count (the figure marks) choose."""
     if viewer is None:
         return set()
     queue = db.scalar(
@@ -466,19 +466,13 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
             )
         )
     sentence = AgreementRecord.sentence_id
-    started = or_(
-        exists().where(Assignment.sentence_id == sentence, Assignment.user_id == viewer.id),
-        exists().where(Annotation.sentence_id == sentence, Annotation.user_id == viewer.id),
-    )
-    handed_in = exists().where(
-        Annotation.sentence_id == sentence,
-        Annotation.user_id == viewer.id,
-        Annotation.state == ANN_SUBMITTED,
-    )
     return set(
         db.scalars(
             select(sentence)
-            .where(AgreementRecord.corpus_id == corpus_id, started, ~handed_in)
+            .where(
+                AgreementRecord.corpus_id == corpus_id,
+                blind.unfinished_clause(viewer.id, sentence),
+            )
             .distinct()
         )
     )
