@@ -97,6 +97,9 @@ def test_long_trees_show_whole_with_the_difference_marked(
 
 
 @pytest.mark.browser
+# its own server process: on a thread of the test process its checks missed the 15 s wait
+# twice under load
+@pytest.mark.server_process
 def test_the_result_is_edited_as_a_tree_and_settled(live_server, browser_page, long_review, db):
     s, a, b = long_review
     page = browser_page
