@@ -37,27 +37,42 @@ The cost model: one action is one edit on the Bench, whatever keys or drags it t
   start's own k best readings). Stepping through an offer (G),
   reading it and rejecting it cost nothing here (a real annotator spends time on them, which
   the action count does not see: with 30 readings that time is not small).
+* Taking a reading inside one constituent (the ``kNi`` conditions; the Bench's i, *Take
+  inside*): the annotator chooses a constituent of the tree (walking to it is free, as above)
+  and takes only what the reading shown has inside it (its brackets strictly inside the
+  constituent's words and those words' tags; the constituent and everything outside stay:
+  :func:`within`, the rule of treemodel.js's graftInside), **one action** like taking it whole.
+  The simulated annotator considers every offered tree, whole and inside every constituent of
+  the tree, and takes the closest to gold under the same 2-edit rule (ties: the earlier
+  offer first, whole before inside, the wider constituent first). What it reads to find that
+  pair is again not counted.
 
 Conditions (``--conditions``, side by side in one run): ``plain``; ``proposal`` (the
 constrained consensus alone is offered: the Bench before the readings were offered); ``kN``
 (the proposal and the N best readings under the constraints); ``kNd`` (N distinct bracketings
 drawn from 4N derivations, each with the proposal's tags) and ``kNdo`` (the same keeping each
 one's own tags): :func:`parser.reparse.reparse` with ``distinct``. ``k30`` is what the Bench
-offers (``OFFER_K`` in ``static/js/bench/loop.js``). Before the first edit the Bench offers the
+offers (``OFFER_K`` in ``static/js/bench/loop.js``); ``kNi`` (any of the above with ``i``)
+adds taking the shown reading inside a chosen constituent, which the Bench offers too
+(``k30i`` is the Bench's page as it is). Before the first edit the Bench offers the
 same (the start's k best readings, nothing said): ``--start-readings 0``, the default; N
 models a page that offered only its readings list's N. An offer applied without the
 annotator's choice made the tree worse in most sentences when measured before, so no
 condition applies one unasked.
 
 Usage: ``python bench/simulate_annotator.py [--limit N] [--skip M] [--conditions plain,k30]
-[--only in|unseen] [--cache DIR]`` (N test sentences, default 40; ``--cache`` keeps the two
-trained grammars between runs). Prints per condition the mean and median actions per sentence,
+[--only in|unseen] [--refine C] [--cache DIR]`` (N test sentences, default 40; ``--cache`` keeps
+the two trained grammars between runs; ``--refine C`` uses refined grammars of C split-merge
+cycles, the grammar the service trains once a corpus has enough gold and it scores better on
+held-out gold, as it does with these training sets: ``app.services.refinement``). Prints per
+condition the mean and median actions per sentence,
 the hand edits and choices taken, and the ratio loop/plain.
 """
 
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 import time
 from collections import Counter
@@ -72,6 +87,7 @@ from nltk import Tree  # noqa: E402
 from parser.chart import parse  # noqa: E402
 from parser.errors import ConstraintError  # noqa: E402
 from parser.grammar import Grammar, train_grammar  # noqa: E402
+from parser.latent import train_refined  # noqa: E402
 from parser.reparse import Said, reparse  # noqa: E402
 from parser.trees import (  # noqa: E402
     constituents,
@@ -349,19 +365,82 @@ def choose(trees: list[Tree], tree: Tree, gold: Tree) -> tuple[Tree, int] | None
     return (best, i) if best_d <= d - 2 else None
 
 
+def _span_costs(have: Counter[Bracket], want: Counter[Bracket]) -> dict[tuple[int, int], int]:
+    """Per span, the single-bracket edits :func:`distance` counts there (a relabel pairs an
+    extra and a missing bracket of the same span, so the distance is a sum over spans)."""
+    extra: Counter[tuple[int, int]] = Counter()
+    missing: Counter[tuple[int, int]] = Counter()
+    for (_, s, e), c in (have - want).items():
+        extra[(s, e)] += c
+    for (_, s, e), c in (want - have).items():
+        missing[(s, e)] += c
+    return {sp: max(extra[sp], missing[sp]) for sp in set(extra) | set(missing)}
+
+
+def within(tree: Tree, reading: Tree, s: int, e: int) -> Tree:
+    """``tree`` with what ``reading`` has inside the constituent over words s..e-1 (its
+    brackets strictly inside the span and the tags of its words): the page's "take inside the
+    chosen constituent" (``static/js/treemodel.js``, graftInside). The constituent and
+    everything outside it stay."""
+    items = [b for b in constituents(tree)[1:] if not (s <= b[1] and b[2] <= e) or b[1:] == (s, e)]
+    items += [b for b in constituents(reading)[1:] if s <= b[1] and b[2] <= e and b[1:] != (s, e)]
+    tags = pos_tags(tree)
+    tags[s:e] = pos_tags(reading)[s:e]
+    return _rebuild(tree, items, tags)
+
+
+def choose_within(trees: list[Tree], tree: Tree, gold: Tree) -> tuple[Tree, int] | None:
+    """The best of taking an offered tree whole or inside one constituent of the tree (the
+    annotator chooses the constituent and takes the reading shown inside it: one action),
+    when at least 2 edits closer to gold; with its place in the offer, or None."""
+    d = distance(tree, gold)
+    want = brackets(gold)
+    gold_tags = pos_tags(gold)
+    here = _span_costs(brackets(tree), want)
+    here_tags = [a != b for a, b in zip(pos_tags(tree), gold_tags, strict=True)]
+    nodes = sorted({(s, e) for _, s, e in constituents(tree)[1:]}, key=lambda x: x[0] - x[1])
+    best: tuple[int, int, int, int] | None = None  # (distance, offer, start, end)
+    for i, t in enumerate(trees):
+        there = _span_costs(brackets(t), want)
+        there_tags = [a != b for a, b in zip(pos_tags(t), gold_tags, strict=True)]
+        whole = sum(there.values()) + sum(there_tags)
+        cands = [(whole, i, -1, -1)]
+        for s, e in nodes:
+            gain = (
+                sum(
+                    here.get(sp, 0) - there.get(sp, 0)
+                    for sp in set(here) | set(there)
+                    if s <= sp[0] and sp[1] <= e and sp != (s, e)
+                )
+                + sum(here_tags[s:e])
+                - sum(there_tags[s:e])
+            )
+            cands.append((d - gain, i, s, e))
+        for c in cands:
+            if best is None or c[0] < best[0]:
+                best = c
+    if best is None or best[0] > d - 2:
+        return None
+    _, i, s, e = best
+    out = trees[i] if s < 0 else within(tree, trees[i], s, e)
+    assert distance(out, gold) == best[0], (distance(out, gold), best)
+    return out, i
+
+
 def annotate(
     start: Tree,
     gold: Tree,
     ask: Callable[[Said_, Tree], list[Tree]] | None,
     tally: Tally,
     first: list[Tree] | None = None,
+    chooser: Callable[[list[Tree], Tree, Tree], tuple[Tree, int] | None] = choose,
 ) -> None:
     """Edit ``start`` to gold; with ``ask`` (the loop) an offer follows every edit, and
     before the first edit the trees ``first`` are offered (None: what ``ask`` offers)."""
     tree = start
     said = Said_()
     if ask is not None:
-        got = choose(first if first is not None else ask(said, tree), tree, gold)
+        got = chooser(first if first is not None else ask(said, tree), tree, gold)
         tally.reparses += 1
         if got is not None:
             tree = got[0]
@@ -379,7 +458,7 @@ def annotate(
         if ask is None or distance(tree, gold) < 2:
             continue
         tally.reparses += 1
-        got = choose(ask(said, tree), tree, gold)
+        got = chooser(ask(said, tree), tree, gold)
         if got is not None:
             tree = got[0]
             said = said.after(tree, tree)
@@ -407,14 +486,19 @@ def run(
             before = tally.actions
             c0 = time.process_time()
             ask = None
+            chooser = choose
             if cname != "plain":
-                kind = cname.rstrip("do")[1:]
-                kk = 0 if cname == "proposal" else int(kind)
-                mode = cname[len(kind) + 1 :] if cname != "proposal" else ""
+                m = re.fullmatch(r"k(\d+)(do|d)?(i)?", cname)
+                if cname != "proposal" and m is None:
+                    sys.exit(f"unknown condition {cname!r}")
+                kk = int(m.group(1)) if m else 0
+                mode = (m.group(2) or "") if m else ""
+                if m and m.group(3):
+                    chooser = choose_within
                 ask = lambda said, tree, kk=kk, wl=wl, mode=mode: offered(  # noqa: E731
                     g, wl, said, tree, kk, distinct=bool(mode), own_tags=mode == "do"
                 )
-            annotate(start, gold, ask, tally, start_offer)
+            annotate(start, gold, ask, tally, start_offer, chooser)
             tally.seconds += time.process_time() - c0
             per_sentence[cname].append(tally.actions - before)
         print(
@@ -443,10 +527,16 @@ def run(
         print(line, flush=True)
 
 
-def grammar(name: str, trees: Callable[[], list[Tree]], cache: Path | None) -> Grammar:
+def grammar(
+    name: str, trees: Callable[[], list[Tree]], cache: Path | None, refine: int = 0
+) -> Grammar:
+    """The plain grammar of ``trees``, or with ``refine`` the refined one of that many
+    split-merge cycles (parser.latent.train_refined, as the service trains it)."""
+    if refine:
+        name = f"refined{refine}-{name}"
     if cache is not None and (cache / f"{name}.npz").exists():
         return Grammar.load(cache / f"{name}.npz")
-    g = train_grammar(trees())
+    g = train_refined(trees(), refine) if refine else train_grammar(trees())
     if cache is not None:
         cache.mkdir(parents=True, exist_ok=True)
         g.save(cache / f"{name}.npz")
@@ -470,6 +560,12 @@ def main() -> None:
         help="readings offered before the first edit: 0 (default) the re-parse's offer, as "
         "the Bench makes it on opening; N the start's N best alone (a readings list of N)",
     )
+    ap.add_argument(
+        "--refine",
+        type=int,
+        default=0,
+        help="split-merge cycles of a refined grammar (0, the default: the plain grammar)",
+    )
     ap.add_argument("--only", choices=["in", "unseen"], help="one condition only")
     args = ap.parse_args()
     files = sorted(GUM.glob("*.ptb"))
@@ -484,7 +580,9 @@ def main() -> None:
     tests = tests[args.skip : args.skip + args.limit]
     conds = args.conditions.split(",")
     if args.only != "unseen":
-        split = grammar("gum-split", lambda: [t for f in files[:89] for t in read(f)], args.cache)
+        split = grammar(
+            "gum-split", lambda: [t for f in files[:89] for t in read(f)], args.cache, args.refine
+        )
         run(
             "in genre (GUM split: 89 files train, last 10 test)",
             split,
@@ -498,6 +596,7 @@ def main() -> None:
             f"without-{genre}",
             lambda: [t for f in files if not f.name.startswith(genre) for t in read(f)],
             args.cache,
+            args.refine,
         )
         run(f"unseen genre (trained without {genre}_*)", unseen, tests, conds, args.start_readings)
 

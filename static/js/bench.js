@@ -27,7 +27,7 @@ function wire() {
     add: () => cmd.add(), "add-pin": cmd.addPin, relabel: cmd.relabel, dissolve: cmd.dissolve,
     "edge-start-out": () => cmd.edge("start", -1), "edge-start-in": () => cmd.edge("start", 1),
     "edge-end-in": () => cmd.edge("end", -1), "edge-end-out": () => cmd.edge("end", 1),
-    pin: cmd.pin, carry: cmd.carry, tokens: cmd.tokens, regrow: cmd.regrow, undo: cmd.undo, redo: cmd.redo,
+    pin: cmd.pin, carry: cmd.carry, tokens: cmd.tokens, regrow: cmd.regrow, "take-inside": cmd.takeInside, undo: cmd.undo, redo: cmd.redo,
     "zoom-in": () => setZoom(S.zoom * 1.2), "zoom-out": () => setZoom(S.zoom / 1.2),
     help: () => toggleHelp(true), handin: cmd.handIn, "apply-text": cmd.applyText,
     "reset-text": () => { S.textEditing = false; renderText(); },

@@ -379,6 +379,28 @@ export function toggleTagPin(pins, i, tag) {
   return {...pins, tags};
 }
 
+// `tree` with what `reading` (same words) has inside phrase `index` of `tree`: the reading's
+// phrases strictly inside that node's words and the tags of those words. The node itself (and
+// any unary chain over the same words) and everything outside it stay as they are. The result
+// is always a valid tree: nothing outside the node crosses its words, so nothing the reading
+// puts inside them can cross anything kept.
+export function graftInside(tree, reading, index) {
+  const spans = plain(spansOf(tree));
+  if (index < 0 || index >= spans.length) throw new EditError("choose a constituent first");
+  const words = wordsOf(tree);
+  const other = wordsOf(reading);
+  if (other.length !== words.length || other.some((w, i) => w !== words[i])) {
+    throw new EditError("the reading has other words than the tree");
+  }
+  const {start, end} = spans[index];
+  const inside = (s) => start <= s.start && s.end <= end && !(s.start === start && s.end === end);
+  const tags = tagsOf(tree);
+  const theirs = tagsOf(reading);
+  for (let i = start; i < end; i++) tags[i] = theirs[i];
+  const kept = spans.filter((s) => !inside(s));
+  return treeFromSpans(words, tags, kept.concat(plain(spansOf(reading)).filter(inside)));
+}
+
 // The pins that still hold in `tree`, and how many were dropped.
 export function pinsKept(pins, tree) {
   const spans = spansOf(tree);

@@ -355,6 +355,25 @@ def offered_readings(page, keys, bench) -> None:
     )
 
 
+def take_inside(page, keys, bench) -> None:
+    # with an offer shown and a phrase chosen, the reading shown is taken inside it (or the
+    # page says it changes nothing there); with none, the page says so (the tree taken is
+    # checked against the database in test_bench_loop.py)
+    offered = page.is_visible("#regrow-offer")
+    choose(page, "phrase", 1)
+    page.keyboard.press(keys[0])
+    if offered:
+        page.wait_for_function(
+            "() => /taken inside|changes nothing inside/.test("
+            "document.getElementById('bench-message').textContent)"
+        )
+        return
+    page.wait_for_function(
+        "() => document.getElementById('bench-message').textContent"
+        ".includes('no re-parse is offered now')"
+    )
+
+
 def readings(page, keys, bench) -> None:
     page.keyboard.press(keys[0])
     assert page.evaluate("() => document.activeElement.closest('#readings') !== null")
@@ -505,6 +524,7 @@ EFFECTS: dict[str, Callable[..., None]] = {
     "pin / unpin": pin,
     "regrow": regrow,
     "next offered reading": offered_readings,
+    "take the offered reading shown only inside the chosen constituent": take_inside,
     "go to the readings": readings,
     "start from the grammar's n-th best tree": reading_n,
     "undo": undo,

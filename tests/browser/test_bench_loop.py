@@ -5,6 +5,8 @@ Grammars trained on slices of GUM (Zeldes 2017, CC BY; ../shared/data/gum-trees)
 
 from __future__ import annotations
 
+from collections import Counter
+
 import pytest
 from sqlalchemy import select
 
@@ -235,6 +237,19 @@ def _asked(page) -> int:
     return int(page.get_attribute("#bench", "data-answered") or 0)
 
 
+def _dissolve_answered(page, k: int) -> None:
+    """Dissolve phrase k and wait for the grammar's answer to the edit."""
+    asked = _asked(page)
+    page.click(f"#tree-pane g.tw-phrase[data-index='{k}']")
+    page.wait_for_selector(f"#tree-pane g.tw-phrase.tw-selected[data-index='{k}']")
+    page.keyboard.press("x")
+    page.wait_for_function(
+        "n => Number(document.getElementById('bench').dataset.answered || 0) > n",
+        arg=asked,
+        timeout=60_000,
+    )
+
+
 def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, ferry) -> None:  # noqa: F811
     """After an edit the page offers the re-parse's proposal and the k best readings under what
     was said; G and the reading buttons step through them, g takes the one shown as one
@@ -249,15 +264,7 @@ def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, f
     # holds at least three readings that differ from the tree
     choices, edited = 0, None
     for k in range(1, len(constituents(read_tree(START)))):
-        asked = _asked(page)
-        page.click(f"#tree-pane g.tw-phrase[data-index='{k}']")
-        page.wait_for_selector(f"#tree-pane g.tw-phrase.tw-selected[data-index='{k}']")
-        page.keyboard.press("x")
-        page.wait_for_function(
-            "n => Number(document.getElementById('bench').dataset.answered || 0) > n",
-            arg=asked,
-            timeout=60_000,
-        )
+        _dissolve_answered(page, k)
         choices = page.locator("#regrow-readings button").count()
         if choices >= 3:
             edited = shown_tree(page)
@@ -340,3 +347,101 @@ def test_bench_offers_the_grammars_readings_before_the_first_edit(
     assert revs[-1].actions.get("reparse") == 1
     said = revs[-1].pins
     assert not (said.get("edited_spans") or said.get("removed_spans") or said.get("edited_tags"))
+
+
+def _bracketing(text: str) -> tuple[Counter, list[str]]:
+    """A tree's brackets (root excluded) and tags: what PARSEVAL compares."""
+    t = read_tree(text)
+    return Counter(constituents(t)[1:]), pos_tags(t)
+
+
+def _inside(tree_text: str, reading_text: str, s: int, e: int) -> tuple[Counter, list[str]]:
+    """The brackets and tags of the tree with what the reading has inside words s..e-1 (its
+    brackets strictly inside and the tags of those words), the rest kept: written here from
+    the rule, independently of treemodel.js's graftInside."""
+    tree, reading = read_tree(tree_text), read_tree(reading_text)
+    items = [b for b in constituents(tree)[1:] if not (s <= b[1] and b[2] <= e) or b[1:] == (s, e)]
+    items += [b for b in constituents(reading)[1:] if s <= b[1] and b[2] <= e and b[1:] != (s, e)]
+    tags = pos_tags(tree)
+    tags[s:e] = pos_tags(reading)[s:e]
+    return Counter(items), tags
+
+
+def _find_inside(page, tree_text: str) -> tuple[int, tuple[Counter, list[str]]] | None:
+    """Step through the offer (G) to a reading and a phrase of the tree whose inside, taken,
+    gives neither the tree nor the whole reading: (the phrase's id, the expected bracketing)."""
+    spans = constituents(read_tree(tree_text))
+    page.focus("#tree-pane")
+    for _ in range(max(1, page.locator("#regrow-readings button").count())):
+        reading = page.get_attribute("#regrow-offer", "data-tree")
+        for k, (_lab, s, e) in enumerate(spans[1:], start=1):
+            want = _inside(tree_text, reading, s, e)
+            if want not in (_bracketing(tree_text), _bracketing(reading)):
+                return k, want
+        page.keyboard.press("G")
+    return None
+
+
+def test_bench_takes_an_offered_reading_inside_the_chosen_constituent(
+    browser_page,
+    live_server,
+    ferry,  # noqa: F811
+) -> None:
+    """i (or Take inside) takes what the reading shown has inside the chosen constituent and
+    keeps the rest of the tree: one action, saved as a revision (the database holds the
+    intended bracketing), undone by one undo; with nothing offered, i says so."""
+    page = browser_page
+    start = _open(page, live_server.base_url, "ann1", ferry["sentence_id"])
+    page.wait_for_selector("#bench[data-asked='1']", timeout=60_000)
+    assert page.is_visible("#regrow-offer")
+    found = _find_inside(page, start)
+    assert found is not None, "no offered reading differs from the start inside a phrase only"
+    k, want = found
+    page.click(f"#tree-pane g.tw-phrase[data-index='{k}']")
+    page.wait_for_selector(f"#tree-pane g.tw-phrase.tw-selected[data-index='{k}']")
+    page.keyboard.press("i")
+    page.wait_for_function(
+        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t", arg=start
+    )
+    wait_saved(page)
+    assert _bracketing(shown_tree(page)) == want
+    _ann, revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])
+    assert _bracketing(revs[-1].tree) == want and revs[-1].source == "reparse"
+    assert revs[-1].actions.get("reparse") == 1
+    assert page.is_hidden("#regrow-offer")
+    # one undo brings the start back, saved
+    page.keyboard.press("u")
+    wait_tree(page, start)
+    wait_saved(page)
+    assert (
+        write_tree(
+            read_tree(stored(live_server, ferry["user_id"], ferry["sentence_id"])[1][-1].tree)
+        )
+        == start
+    )
+    page.keyboard.press("i")
+    assert "no re-parse is offered now" in page.text_content("#bench-message")
+    # the mouse: after an edit (a dissolve) the button takes the reading inside the phrase
+    taken = None
+    for j in range(1, len(constituents(read_tree(start)))):
+        _dissolve_answered(page, j)
+        edited = shown_tree(page)
+        taken = _find_inside(page, edited) if page.is_visible("#regrow-offer") else None
+        if taken is not None:
+            break
+        page.keyboard.press("u")
+        wait_tree(page, start)
+    assert taken is not None, "no dissolve brought a reading to take inside a phrase"
+    k, want = taken
+    wait_saved(page)
+    before = stored(live_server, ferry["user_id"], ferry["sentence_id"])[1][-1]
+    page.click(f"#tree-pane g.tw-phrase[data-index='{k}']")
+    page.wait_for_selector(f"#tree-pane g.tw-phrase.tw-selected[data-index='{k}']")
+    page.click("[data-cmd='take-inside']")
+    page.wait_for_function(
+        "t => document.querySelector('#tree-pane svg.tw-tree').dataset.tree !== t", arg=edited
+    )
+    wait_saved(page)
+    revs = stored(live_server, ferry["user_id"], ferry["sentence_id"])[1]
+    assert _bracketing(revs[-1].tree) == want and revs[-1].source == "reparse"
+    assert revs[-1].actions.get("reparse", 0) == before.actions.get("reparse", 0) + 1

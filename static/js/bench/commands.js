@@ -6,7 +6,7 @@ import {api, errorText} from "./api.js";
 import {askLabel, confirmBox} from "./dialogs.js";
 import {moveTargets, render, spanWords, wordsLabel} from "./draw.js";
 import {commit, flush, tally, markDirty, setTree, showConflict, snapshot, unknownIn} from "./saving.js";
-import {ask, showOffer, showReading, take} from "./loop.js";
+import {ask, showOffer, showReading, take, takeInside} from "./loop.js";
 import {renderSide} from "./side.js";
 import {$, S, root, sentenceId} from "./state.js";
 import {say, setStatus} from "./status.js";
@@ -162,6 +162,9 @@ export const cmd = {
     } finally {
       btn.classList.remove("busy");
     }
+  }),
+  takeInside: guard(async () => {
+    takeInside();
   }),
   nextOffered: guard(async () => {
     if (!showReading()) throw new T.EditError("no re-parse is offered now: edit, or ask with g");

@@ -103,6 +103,10 @@ export const KEYS = [
     text: "next offered reading: step through the re-parse's proposal and the k best " +
       "readings under what you said (g takes the one shown)",
     match: is("G"), run: () => cmd.nextOffered()},
+  {id: "take-inside", group: "change", keys: [["i"]],
+    text: "take the offered reading shown only inside the chosen constituent (the rest of " +
+      "the tree stays)",
+    match: is("i"), run: () => cmd.takeInside()},
   {id: "readings", group: "change", keys: [["o"]],
     text: "go to the readings (the consensus first; ↑ ↓ choose, ⏎ starts from one)",
     match: is("o"),

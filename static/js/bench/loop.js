@@ -5,7 +5,8 @@
 // and, when it would change the tree, is offered with what it would change: the proposal (the
 // consensus under what was said) and the k best readings under the same constraints, one shown
 // at a time. G (or a reading's button) shows the next one, g (or Take it) takes the one shown,
-// as one action (bench/simulate_annotator.py measures what that choice saves).
+// as one action; i (or Take inside) takes only what the reading shown has inside the chosen
+// constituent (bench/simulate_annotator.py measures what these choices save).
 
 import * as T from "../treemodel.js";
 import {api, errorText} from "./api.js";
@@ -165,6 +166,30 @@ export function take() {
   say(`${choice.proposal ? offer.body.summary : `Reading ${offer.at + 1} of the offer:`} ` +
     `Taken${offer.body.plausible ? "" : " although implausible"}.`);
   showOffer(false);
+  return true;
+}
+
+// Take what the reading shown has inside the chosen constituent, keeping the rest of the tree
+// (i when one is offered): one action, undone by one undo like any other.
+export function takeInside() {
+  const offer = S.offer;
+  if (!offer) throw new T.EditError("no re-parse is offered now: edit, or ask with g");
+  if (!S.sel || S.sel.kind !== "phrase") {
+    throw new T.EditError("choose the constituent whose inside to take first");
+  }
+  const choice = offer.choices[offer.at];
+  const s = S.spans[S.sel.index];
+  const tree = T.graftInside(S.tree, T.readTree(choice.tree), S.sel.index);
+  if (T.writeTree(tree) === T.writeTree(S.tree)) {
+    throw new T.EditError(`the reading shown changes nothing inside ${s.label}: G shows the next`);
+  }
+  const kept = T.pinsKept(S.pins, tree);
+  const at = T.spansOf(tree).findIndex((x) => x.start === s.start && x.end === s.end &&
+    x.label === s.label);
+  commit(tree, keepSaid(kept.pins, tree), "reparse", {kind: "phrase", index: Math.max(at, 0)});
+  say(`${choice.proposal ? "The proposal" : `Reading ${offer.at + 1} of the offer`} taken ` +
+    `inside ${s.label} over words ${s.start + 1}-${s.end}; the rest stays.` +
+    (kept.dropped ? ` ${kept.dropped} pins not in it were released.` : ""));
   return true;
 }
 

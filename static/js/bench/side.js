@@ -30,7 +30,8 @@ export function renderSide() {
     add: ed && (S.range || S.sel), relabel: ed && S.sel, dissolve: ed && phrase && S.sel.index > 0,
     "edge-start-out": ed && phrase && S.sel.index > 0, "edge-start-in": ed && phrase && S.sel.index > 0,
     "edge-end-in": ed && phrase && S.sel.index > 0, "edge-end-out": ed && phrase && S.sel.index > 0,
-    pin: ed && S.sel, carry: ed && S.sel && !(phrase && S.sel.index === 0), regrow: ed && !!S.data.suggestion, undo: ed && S.undo.length > 0,
+    pin: ed && S.sel, carry: ed && S.sel && !(phrase && S.sel.index === 0), regrow: ed && !!S.data.suggestion,
+    "take-inside": ed && phrase && Boolean(S.offer), undo: ed && S.undo.length > 0,
     redo: ed && S.redo.length > 0, handin: ed, "apply-text": ed,
   };
   for (const btn of root.querySelectorAll("[data-cmd]")) {
