@@ -405,6 +405,26 @@ class FigureMark(Base):
     handed_in_changes: Mapped[int] = mapped_column(Integer, default=0)
 
 
+class KeptSums(Base):
+    """A corpus's figures summed so far, kept in the database so that a new process (or
+    another server) starts from them instead of summing every record again
+    (:mod:`app.services.agreement`, :mod:`app.services.effort`). ``kind`` says which sums
+    (``agreement``, ``effort``); ``changes`` is the corpus's figure mark they were made at
+    (``figure_marks.agreement_changes`` or ``handed_in_changes``); for the agreement sums,
+    ``last_id`` is the highest record id summed and ``seen`` the records read up to it.
+    A cache: removing a row costs one full sum at the next view."""
+
+    __tablename__ = "kept_sums"
+    corpus_id: Mapped[int] = mapped_column(
+        ForeignKey("corpora.id", ondelete="CASCADE"), primary_key=True
+    )
+    kind: Mapped[str] = mapped_column(String(16), primary_key=True)
+    changes: Mapped[int] = mapped_column(Integer, default=0)
+    seen: Mapped[int] = mapped_column(Integer, default=0)
+    last_id: Mapped[int] = mapped_column(Integer, default=0)
+    sums: Mapped[dict[str, Any]] = mapped_column(JSON, default=dict)
+
+
 class SentenceCount(Base):
     """How many sentences of a document are in each state, kept by database triggers on
     ``sentences`` (:mod:`app.counts`), so that the corpus pages read a few rows instead of

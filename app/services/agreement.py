@@ -20,17 +20,20 @@ What it computes
     checked it yet. A sentence that is already gold keeps its gold; its records are still logged.
 
     The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records,
-    kept between views (per process) and checked against the corpus's change marks (one row
-    of ``figure_marks``, kept by database triggers, :mod:`app.counts`): corpus labelled F1
+    kept between views (in the process's memory, and in the database's ``kept_sums`` so that
+    a new process starts from them, :mod:`app.services.kept_sums`) and checked against the
+    corpus's change marks (one row of ``figure_marks``, kept by database triggers,
+    :mod:`app.counts`): corpus labelled F1
     micro-averaged over all pairs (summed matched and constituent counts), the same per
     annotator pair, per label (from each record's ``detail["per_label"]``), the most frequent
     label confusions (``detail["confusions"]``) and F1 per day or week.
 
 Complexity: on_submitted scores k(k-1)/2 pairs for k annotations, each O(n + g*t) (see
 parser.scoring); a view of corpus_figures reads the marks row, then the records logged since
-its last view (all of them the first time in a process, or after a sentence with records was
-dropped, brought back or removed), O(new records * labels), plus O(pairs + labels + days) to
-show them, plus for a reader under the blind rule the records of the sentences hidden from
+its last view (in a new process, those after the stored sums; all of them the first time
+ever, or after a sentence with records was dropped, brought back or removed), O(new records
+* labels) plus an index probe per new record's sentence, plus O(pairs + labels + days) to
+show them and to store them, plus for a reader under the blind rule the records of the sentences hidden from
 them.
 Limits: records are never updated; a re-submission after a reopen logs new records beside
 the old ones (both stay in the log; the page counts each record once).
@@ -41,7 +44,7 @@ from __future__ import annotations
 import csv
 import io
 import threading
-from collections import Counter, defaultdict
+from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
@@ -68,7 +71,7 @@ from app.models import (
     Sentence,
     User,
 )
-from app.services import blind
+from app.services import blind, kept_sums
 from app.services.gold import current_revision, gold_added, make_gold
 from parser.scoring import Counts, label_confusions, score_pair
 from parser.trees import read_tree, write_tree
@@ -315,8 +318,11 @@ class _Tally:
     ``add`` takes one record, ``figures`` reads the sums without touching the records.
 
     ``seen`` and ``changes`` say what the sums are current for: ``seen`` records of the
-    corpus read (those of dropped sentences too, which are not summed), when the corpus's
-    ``figure_marks.agreement_changes`` stood at ``changes``."""
+    corpus read (those of dropped sentences too, which are not summed), every id up to
+    ``last_id``, when the corpus's ``figure_marks.agreement_changes`` stood at ``changes``.
+    Sentences are counted, not listed (``sentences``, and ``PairFigures.sentences`` per
+    pair): whether a record's sentence is new to the sums is asked of the records before
+    ``last_id`` (:func:`_extend`), so the sums stay as small as the pairs, labels and days."""
 
     last_id: int = 0
     records: int = 0
@@ -325,43 +331,40 @@ class _Tally:
     pos_correct: int = 0
     pos_total: int = 0
     identical: int = 0
-    sentences: set[int] = field(default_factory=set)
+    sentences: int = 0
     pairs: dict[tuple[int, int], PairFigures] = field(default_factory=dict)
-    pair_sentences: dict[tuple[int, int], set[int]] = field(
-        default_factory=lambda: defaultdict(set)
-    )
     labels: dict[str, Counts] = field(default_factory=dict)
     confusions: Counter[tuple[str, str]] = field(default_factory=Counter)
     days: dict[datetime, tuple[int, Counts]] = field(default_factory=dict)
     seen: int = 0
     changes: int | None = None
     # the sums of hidden sentences (blind rule) by (last_id, hidden sentence ids): readers
-    # whose hidden set has not changed since their last view reuse them
+    # whose hidden set has not changed since their last view reuse them (in memory only)
     hidden_sums: dict[tuple[int, frozenset[int]], _Tally] = field(default_factory=dict)
 
-    def add(self, r: Any) -> None:
-        """Add one record (an AgreementRecord, or a row of its summed columns)."""
+    def add(self, r: Any, new_sentence: bool, new_pair: bool) -> None:
+        """Add one record (a row of its summed columns); ``new_sentence``: the first record
+        of its sentence in these sums, ``new_pair``: the first of its sentence and pair."""
         c = Counts(r.matched, r.count_a, r.count_b)
         u = _triple(r.detail.get("unlabelled"))
         pos = r.detail.get("pos") or [0, 0]
         self.last_id = max(self.last_id, r.id)
         self.records += 1
-        self.sentences.add(r.sentence_id)
+        self.sentences += new_sentence
         self.total += c
         self.unlabelled += u
         self.pos_correct += int(pos[0])
         self.pos_total += int(pos[1])
         self.identical += bool(r.identical)
-        key = (min(r.user_a_id, r.user_b_id), max(r.user_a_id, r.user_b_id))
-        pf = self.pairs.get(key)
+        pf = self.pairs.get(_pair_key(r))
         if pf is None:
-            pf = self.pairs[key] = PairFigures("?", "?")
+            pf = self.pairs[_pair_key(r)] = PairFigures("?", "?")
+        pf.sentences += new_pair
         pf.counts += c
         pf.unlabelled += u
         pf.pos_correct += int(pos[0])
         pf.pos_total += int(pos[1])
         pf.identical += bool(r.identical)
-        self.pair_sentences[key].add(r.sentence_id)
         for label, v in (r.detail.get("per_label") or {}).items():
             self.labels[label] = self.labels.get(label, Counts()) + _triple(v)
         for ga, tb, n in r.detail.get("confusions") or []:
@@ -379,10 +382,10 @@ class _Tally:
         m = minus or _Tally()
         pairs = []
         for key, pf in self.pairs.items():
-            sentences = len(self.pair_sentences[key]) - len(m.pair_sentences.get(key, ()))
+            less = m.pairs.get(key) or PairFigures("?", "?")
+            sentences = pf.sentences - less.sentences
             if sentences <= 0:
                 continue
-            less = m.pairs.get(key) or PairFigures("?", "?")
             pairs.append(
                 PairFigures(
                     names.get(key[0], "?"),
@@ -408,7 +411,7 @@ class _Tally:
         period, period_rows = timeline_of_sums(days)
         return CorpusAgreement(
             records=self.records - m.records,
-            sentences=len(self.sentences) - len(m.sentences),
+            sentences=self.sentences - m.sentences,
             counts=_minus(self.total, m.total),
             unlabelled=_minus(self.unlabelled, m.unlabelled),
             pos_correct=self.pos_correct - m.pos_correct,
@@ -416,25 +419,84 @@ class _Tally:
             identical=self.identical - m.identical,
             pairs=sorted(pairs, key=lambda p: (p.user_a, p.user_b)),
             labels=label_rows,
-            confusions=[
-                (a, b, n)
-                for (a, b), n in (self.confusions - m.confusions).most_common(top_confusions)
-            ],
+            confusions=sorted(  # most frequent first, ties by name (whatever order summed)
+                ((a, b, n) for (a, b), n in (self.confusions - m.confusions).items()),
+                key=lambda c: (-c[2], c[0], c[1]),
+            )[:top_confusions],
             periods=period_rows,
             period=period,
         )
 
+    def to_json(self) -> dict[str, Any]:
+        """The sums as JSON (what ``kept_sums.sums`` stores)."""
 
-# Per process, per (database, corpus, corpus creation time): the sums so far. The corpus's
-# row of figure_marks (kept by database triggers, app.counts) counts its records and every
-# change other than a record logged (a record removed, a sentence dropped, brought back or
-# removed). A view reads that row: the same marks, the sums are current and no record is
-# read; more records and no other change, the records logged since are read and added; any
-# other change (or records missing, one committed late with a lower id), all are summed again.
+        def c3(c: Counts) -> list[int]:
+            return [c.matched, c.gold, c.test]
+
+        return {
+            "records": self.records,
+            "total": c3(self.total),
+            "unlabelled": c3(self.unlabelled),
+            "pos": [self.pos_correct, self.pos_total],
+            "identical": self.identical,
+            "sentences": self.sentences,
+            "pairs": [
+                [a, b, p.sentences, c3(p.counts), c3(p.unlabelled)]
+                + [p.pos_correct, p.pos_total, p.identical]
+                for (a, b), p in sorted(self.pairs.items())
+            ],
+            "labels": {k: c3(v) for k, v in sorted(self.labels.items())},
+            "confusions": [[a, b, n] for (a, b), n in sorted(self.confusions.items())],
+            "days": [[d.isoformat(), n, c3(c)] for d, (n, c) in sorted(self.days.items())],
+        }
+
+    @classmethod
+    def from_json(cls, data: dict[str, Any], last_id: int, seen: int, changes: int) -> _Tally:
+        """Sums stored by :meth:`to_json`, current for ``last_id``, ``seen`` and ``changes``."""
+        tally = cls(last_id=last_id, seen=seen, changes=changes)
+        tally.records = int(data["records"])
+        tally.total = _triple(data["total"])
+        tally.unlabelled = _triple(data["unlabelled"])
+        tally.pos_correct, tally.pos_total = (int(v) for v in data["pos"])
+        tally.identical = int(data["identical"])
+        tally.sentences = int(data["sentences"])
+        for a, b, sentences, counts, unlabelled, pos_c, pos_t, identical in data["pairs"]:
+            tally.pairs[(int(a), int(b))] = PairFigures(
+                "?",
+                "?",
+                sentences=int(sentences),
+                counts=_triple(counts),
+                unlabelled=_triple(unlabelled),
+                pos_correct=int(pos_c),
+                pos_total=int(pos_t),
+                identical=int(identical),
+            )
+        tally.labels = {str(k): _triple(v) for k, v in data["labels"].items()}
+        tally.confusions = Counter({(str(a), str(b)): int(n) for a, b, n in data["confusions"]})
+        tally.days = {datetime.fromisoformat(d): (int(n), _triple(c)) for d, n, c in data["days"]}
+        return tally
+
+
+def _pair_key(r: Any) -> tuple[int, int]:
+    """A record's pair of annotators, in either order."""
+    return (min(r.user_a_id, r.user_b_id), max(r.user_a_id, r.user_b_id))
+
+
+# Per process, per (database, corpus, corpus creation time): the sums so far, and in the
+# database (``kept_sums``, kind "agreement") the latest sums any process made, so that a new
+# process starts from them. The corpus's row of figure_marks (kept by database triggers,
+# app.counts) counts its records and every change other than a record logged (a record
+# removed, a sentence dropped, brought back or removed). A view reads that row: the same
+# marks, the sums are current and no record is read; more records and no other change, the
+# records logged since are read and added; any other change (or records missing, one
+# committed late with a lower id), all are summed again. Sums made or brought up to date by a
+# view are written back to kept_sums when they are newer than what is stored there.
 _tallies: dict[tuple[str, int, datetime | None], _Tally] = {}
 #: Hidden-sentence sums kept per corpus (one per reader under the blind rule, at most).
 HIDDEN_SUMS_KEPT = 32
 _tally_lock = threading.Lock()
+#: kept_sums.kind of the agreement sums.
+KIND = "agreement"
 
 
 def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
@@ -518,19 +580,80 @@ def _read_records(db: Session, corpus_id: int, after: int) -> list[tuple[Any, st
     ]
 
 
-def _extend(tally: _Tally, rows: list[tuple[Any, str]]) -> None:
-    """Add the records of sentences not dropped; count every record read."""
-    for r, state in rows:
-        if state != SENT_DROPPED:
-            tally.add(r)
+def _sum_into(
+    tally: _Tally,
+    rows: Iterable[Any],
+    sentences: set[int],
+    pairs: set[tuple[int, tuple[int, int]]],
+) -> None:
+    """Add ``rows`` to ``tally``; ``sentences`` and ``pairs`` (sentence, pair) are those
+    the tally has records of already (both grow as rows are added)."""
+    for r in rows:
+        pair = (r.sentence_id, _pair_key(r))
+        tally.add(r, r.sentence_id not in sentences, pair not in pairs)
+        sentences.add(r.sentence_id)
+        pairs.add(pair)
+
+
+def _extend(db: Session, corpus_id: int, tally: _Tally, rows: list[tuple[Any, str]]) -> None:
+    """Add the records of sentences not dropped; count every record read. Whether a
+    record's sentence (and its pair on that sentence) is already in the sums is asked of
+    the records up to ``tally.last_id`` (an index probe per new sentence): with the same
+    change mark, no sentence moved to or from dropped since they were summed."""
+    summed = [r for r, state in rows if state != SENT_DROPPED]
+    sentences: set[int] = set()
+    pairs: set[tuple[int, tuple[int, int]]] = set()
+    if tally.last_id and summed:
+        ids = sorted({r.sentence_id for r in summed})
+        for at in range(0, len(ids), 500):  # a bounded list of parameters per query
+            for old in db.execute(
+                select(
+                    AgreementRecord.sentence_id,
+                    AgreementRecord.user_a_id,
+                    AgreementRecord.user_b_id,
+                ).where(
+                    AgreementRecord.sentence_id.in_(ids[at : at + 500]),
+                    AgreementRecord.corpus_id == corpus_id,
+                    AgreementRecord.id <= tally.last_id,
+                )
+            ):
+                sentences.add(old.sentence_id)
+                pairs.add((old.sentence_id, _pair_key(old)))
+    _sum_into(tally, summed, sentences, pairs)
+    for r, _ in rows:
         tally.last_id = max(tally.last_id, r.id)
     tally.seen += len(rows)
+
+
+def summed_afresh(db: Session, corpus_id: int) -> _Tally:
+    """Every record of the corpus summed from nothing, without the kept sums (what a view
+    falls back to, and the tests' reference)."""
+    marks = _marks(db, corpus_id)
+    tally = _Tally(changes=None if marks is None else marks[1])
+    _extend(db, corpus_id, tally, _read_records(db, corpus_id, 0))
+    return tally
+
+
+def figures_afresh(db: Session, corpus_id: int, *, top_confusions: int = 15) -> CorpusAgreement:
+    """:func:`corpus_figures` for a reader who sees everything, summed from nothing."""
+    tally = summed_afresh(db, corpus_id)
+    names = _user_names(db, {u for pair in tally.pairs for u in pair})
+    return tally.figures(names, top_confusions)
+
+
+def _kept(db: Session, corpus_id: int, changes: int) -> _Tally | None:
+    """The sums stored in ``kept_sums`` when they were made at the mark ``changes``."""
+    row = kept_sums.load(db, corpus_id, KIND)
+    if row is None or row.changes != changes:
+        return None
+    return _Tally.from_json(row.sums, row.last_id, row.seen, row.changes)
 
 
 def _current_tally(db: Session, corpus_id: int) -> _Tally:
     """The corpus's sums, brought up to date (see ``_tallies``). Call with the lock held."""
     # the corpus's creation time is in the key: ids can come back (a corpus removed and
     # another made in its place, a database emptied), and old sums must never be reused
+    # (kept_sums rows go with their corpus)
     key = (
         str(db.get_bind().engine.url),
         corpus_id,
@@ -538,26 +661,49 @@ def _current_tally(db: Session, corpus_id: int) -> _Tally:
     )
     marks = _marks(db, corpus_id)
     tally = _tallies.get(key)
+    if marks is not None and (tally is None or tally.changes != marks[1] or tally.seen != marks[0]):
+        # not current here: the sums another process (or an earlier one) kept may be
+        kept = _kept(db, corpus_id, marks[1])
+        if kept is not None and (
+            tally is None or tally.changes != marks[1] or kept.seen > tally.seen
+        ):
+            tally = _tallies[key] = kept
     if tally is not None and marks is not None and tally.changes == marks[1]:
         if tally.seen == marks[0]:
             return tally
         if tally.seen < marks[0]:
-            _extend(tally, _read_records(db, corpus_id, tally.last_id))
+            _extend(db, corpus_id, tally, _read_records(db, corpus_id, tally.last_id))
             if tally.seen >= marks[0]:  # more: logged since the marks were read
+                _keep(db, corpus_id, tally)
                 return tally
     # a first view, another kind of change, or a record committed late: sum them all
-    tally = _Tally(changes=None if marks is None else marks[1])
-    _extend(tally, _read_records(db, corpus_id, 0))
+    tally = summed_afresh(db, corpus_id)
     _tallies[key] = tally
+    _keep(db, corpus_id, tally)
     return tally
+
+
+def _keep(db: Session, corpus_id: int, tally: _Tally) -> None:
+    """Store ``tally`` in kept_sums unless what is there is as new (see kept_sums.store)."""
+    if tally.changes is not None:
+        kept_sums.store(
+            db, corpus_id, KIND, tally.changes, tally.seen, tally.last_id, tally.to_json()
+        )
+
+
+def forget_kept_in_memory() -> None:
+    """Drop this process's sums (the next view starts from kept_sums, as a new process)."""
+    with _tally_lock:
+        _tallies.clear()
 
 
 def corpus_figures(
     db: Session, corpus_id: int, *, top_confusions: int = 15, viewer: User | None = None
 ) -> CorpusAgreement:
     """The Agreement page's figures: sums over every agreement record of the corpus (those
-    of dropped sentences left out), kept between views; a view with nothing logged since
-    reads one row (the corpus's figure marks), otherwise the records logged since.
+    of dropped sentences left out), kept between views and in the database; a view with
+    nothing logged since reads one row (the corpus's figure marks), otherwise the records
+    logged since (and, in a new process, the stored sums first).
 
     Blind rule: for a ``viewer`` who still annotates a sentence with records, that
     sentence's records are summed apart and taken off the figures, so no sum (a pair seen on
@@ -568,24 +714,30 @@ def corpus_figures(
     with _tally_lock:  # held while adding: the sums are shared by every request
         tally = _current_tally(db, corpus_id)
         less = None
-        ids = frozenset(hidden & tally.sentences)
+        ids = frozenset(hidden)
         if ids:
             less = tally.hidden_sums.get((tally.last_id, ids))
         if ids and less is None:
             less = _Tally()
             ordered = sorted(ids)
+            sentences: set[int] = set()
+            pairs: set[tuple[int, tuple[int, int]]] = set()
             for at in range(0, len(ordered), 500):  # a bounded list of parameters per query
-                for r in db.execute(
-                    select(*_SUMMED)
-                    .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
-                    .where(
-                        AgreementRecord.sentence_id.in_(ordered[at : at + 500]),
-                        AgreementRecord.corpus_id == corpus_id,
-                        AgreementRecord.id <= tally.last_id,
-                        Sentence.state != SENT_DROPPED,
-                    )
-                ):
-                    less.add(r)
+                _sum_into(
+                    less,
+                    db.execute(
+                        select(*_SUMMED)
+                        .join(Sentence, Sentence.id == AgreementRecord.sentence_id)
+                        .where(
+                            AgreementRecord.sentence_id.in_(ordered[at : at + 500]),
+                            AgreementRecord.corpus_id == corpus_id,
+                            AgreementRecord.id <= tally.last_id,
+                            Sentence.state != SENT_DROPPED,
+                        )
+                    ),
+                    sentences,
+                    pairs,
+                )
             while len(tally.hidden_sums) >= HIDDEN_SUMS_KEPT:  # the oldest goes
                 tally.hidden_sums.pop(next(iter(tally.hidden_sums)))
             tally.hidden_sums[(tally.last_id, ids)] = less

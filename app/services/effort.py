@@ -43,6 +43,7 @@ from app.models import (
     Sentence,
     User,
 )
+from app.services import kept_sums
 from parser.errors import ParserError
 from parser.scoring import score_pair
 from parser.trees import constituents, pos_tags, read_tree, words
@@ -188,9 +189,10 @@ def _handed_in_mark(db: Session, corpus_id: int) -> int | None:
 
 
 def _summed(
-    db: Session, corpus_id: int, key: tuple[str, int, object]
+    db: Session, corpus_id: int, key: tuple[str, int, object] | None
 ) -> tuple[dict[int, Effort], Effort]:
-    """The sums per user id and over the corpus, from the kept shares (see ``_parts``)."""
+    """The sums per user id and over the corpus, from the kept shares (see ``_parts``);
+    with ``key`` None, every share computed afresh and none kept."""
     rows = db.execute(
         select(Annotation.id, Annotation.head, Annotation.updated_at, Annotation.user_id)
         .join(Sentence, Sentence.id == Annotation.sentence_id)
@@ -203,7 +205,7 @@ def _summed(
     ).all()
     prints: dict[int, _Fingerprint] = {aid: (head, upd, uid) for aid, head, upd, uid in rows}
     with _parts_lock:
-        known = _parts.get(key, {})
+        known = {} if key is None else _parts.get(key, {})
     stale = [aid for aid, fp in prints.items() if aid not in known or known[aid][0] != fp]
     fresh: dict[int, _Part | None] = {}
     if stale:
@@ -216,8 +218,9 @@ def _summed(
         for aid, fp in prints.items()
         if aid in fresh or (aid in known and known[aid][0] == fp)
     }
-    with _parts_lock:
-        _parts[key] = merged
+    if key is not None:
+        with _parts_lock:
+            _parts[key] = merged
     people: dict[int, Effort] = {}
     total = Effort("all annotators")
     for fp, part in merged.values():
@@ -230,13 +233,42 @@ def _summed(
     return people, total
 
 
+def _sums_json(people: dict[int, Effort], total: Effort) -> dict[str, Any]:
+    """The sums as JSON (kept_sums.sums of kind "effort")."""
+
+    def one(e: Effort) -> list[Any]:
+        return [e.sentences, e.words, e.seconds, e.actions, dict(e.by_kind)] + [
+            e.compared,
+            e.f1_sum,
+            e.edits,
+        ]
+
+    return {"people": [[uid, one(e)] for uid, e in sorted(people.items())], "total": one(total)}
+
+
+def _sums_from_json(data: dict[str, Any]) -> tuple[dict[int, Effort], Effort]:
+    def one(name: str, v: list[Any]) -> Effort:
+        e = Effort(name, int(v[0]), int(v[1]), float(v[2]), int(v[3]))
+        e.by_kind.update({str(k): int(n) for k, n in v[4].items()})
+        e.compared, e.f1_sum, e.edits = int(v[5]), float(v[6]), int(v[7])
+        return e
+
+    people = {int(uid): one("", v) for uid, v in data["people"]}
+    return people, one("all annotators", data["total"])
+
+
+#: kept_sums.kind of the effort sums.
+KIND = "effort"
+
+
 def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     """Per annotator (by name) and for the whole corpus, over handed-in annotations.
 
     Cost per view: one row (the corpus's figure marks) and a row per annotator when no
-    handed-in annotation changed since the last view; otherwise one row per handed-in
+    handed-in annotation changed since the last view (in this process, or in any process
+    that stored its sums in kept_sums: one more row); otherwise one row per handed-in
     annotation (ids, head, times), and the revisions and trees only of annotations changed
-    since."""
+    since (in this process)."""
     key = (
         str(db.get_bind().engine.url),
         corpus_id,
@@ -248,13 +280,30 @@ def effort_figures(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
     if kept is not None and mark is not None and kept[0] == mark:
         people, total = kept[1], kept[2]
     else:
-        people, total = _summed(db, corpus_id, key)
+        stored = None if mark is None else kept_sums.load(db, corpus_id, KIND)
+        if stored is not None and stored.changes == mark:
+            people, total = _sums_from_json(stored.sums)
+        else:
+            people, total = _summed(db, corpus_id, key)
+            if mark is not None:
+                kept_sums.store(db, corpus_id, KIND, mark, 0, 0, _sums_json(people, total))
         if mark is not None:
             with _parts_lock:
                 _sums[key] = (mark, people, total)
+    return _named(db, people), total
+
+
+def _named(db: Session, people: dict[int, Effort]) -> list[Effort]:
     names = dict(db.execute(select(User.id, User.username).where(User.id.in_(people))).all())
     named = [replace(e, name=names[uid]) for uid, e in people.items() if uid in names]
-    return sorted(named, key=lambda e: e.name), total
+    return sorted(named, key=lambda e: e.name)
+
+
+def effort_afresh(db: Session, corpus_id: int) -> tuple[list[Effort], Effort]:
+    """:func:`effort_figures` computed from nothing: no kept share or sum read or kept (the
+    tests' reference)."""
+    people, total = _summed(db, corpus_id, None)
+    return _named(db, people), total
 
 
 def forget_cached_parts() -> None:

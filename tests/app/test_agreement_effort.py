@@ -9,6 +9,7 @@ import html
 import io
 import re
 
+import pytest
 from sqlalchemy import select
 
 from app.models import Annotation, Revision
@@ -143,8 +144,9 @@ def test_effort_refuses_unknown_action_kinds(db, people, login) -> None:
     assert db.scalars(select(Revision)).all() == []
 
 
-def _figures(effort, db, corpus_id):
-    people, total = effort.effort_figures(db, corpus_id)
+def _figures(effort, db, corpus_id, afresh=False):
+    how = effort.effort_afresh if afresh else effort.effort_figures
+    people, total = how(db, corpus_id)
     return [vars(e) | {"by_kind": dict(e.by_kind)} for e in [*people, total]]
 
 
@@ -177,8 +179,16 @@ def test_kept_effort_shares_equal_a_recount_after_random_work(db, people, login)
     def same_after_recount(what: str) -> None:
         db.expire_all()
         kept = _figures(effort, db, corpus.id)
+        recount = _figures(effort, db, corpus.id, afresh=True)
+        assert kept == recount, what
+        # a new process: nothing in memory, the sums stored in the database (nothing summed)
         effort.forget_cached_parts()
-        assert kept == _figures(effort, db, corpus.id), what
+        summed = effort._summed
+        calls: list[int] = []
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(effort, "_summed", lambda *args: calls.append(1) or summed(*args))
+            assert _figures(effort, db, corpus.id) == recount, what
+        assert calls == [], what
 
     # first a fixed path through a handed-in tree changing under kept shares: ann2 hands in,
     # ann1's token fix sends it back to draft, ann2 saves on the new tokens and hands in again

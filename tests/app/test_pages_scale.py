@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import random
 
+import pytest
 from sqlalchemy import delete, func, select, update
 from sqlalchemy.orm import Session
 
@@ -278,10 +279,19 @@ def test_queue_api_pages_with_a_cursor(db, people, login) -> None:
 def _record(
     db: Session, corpus: Corpus, sentence: Sentence, a: User, b: User, rng: random.Random
 ) -> None:
-    anns = [
-        Annotation(sentence_id=sentence.id, user_id=u.id, state="submitted", head=1) for u in (a, b)
-    ]
-    db.add_all(anns)
+    """One agreement record of ``a`` and ``b`` on the sentence (their annotations made if
+    they have none: a second record of a pair stands for a hand-in again after a reopen)."""
+    anns = []
+    for u in (a, b):
+        ann = db.scalar(
+            select(Annotation).where(
+                Annotation.sentence_id == sentence.id, Annotation.user_id == u.id
+            )
+        )
+        if ann is None:
+            ann = Annotation(sentence_id=sentence.id, user_id=u.id, state="submitted", head=1)
+            db.add(ann)
+        anns.append(ann)
     db.flush()
     m, ca, cb = rng.randint(1, 9), rng.randint(9, 12), rng.randint(9, 12)
     db.add(
@@ -313,9 +323,7 @@ def _record(
 
 
 def _fresh(db: Session, corpus_id: int) -> agreement.CorpusAgreement:
-    with agreement._tally_lock:
-        agreement._tallies.clear()
-    return agreement.corpus_figures(db, corpus_id)
+    return agreement.figures_afresh(db, corpus_id)
 
 
 def test_agreement_sums_kept_between_views_equal_a_fresh_sum(db, people, rng) -> None:
@@ -333,3 +341,85 @@ def test_agreement_sums_kept_between_views_equal_a_fresh_sum(db, people, rng) ->
     _record(db, corpus, sentences[26], people.ann1, people.ann2, rng)
     after_removal = agreement.corpus_figures(db, corpus.id)
     assert after_removal.records == 25 and after_removal == _fresh(db, corpus.id)
+
+
+def test_stored_agreement_sums_equal_a_recount_through_a_random_walk(db, people, rng) -> None:
+    """Records logged, sentences dropped, brought back and removed, in a seeded order, with
+    views from two processes (one keeps its sums in memory, the other starts afresh each
+    time, from the stored sums): after every view the stored sums are current and equal a
+    sum from nothing, and both readers' figures equal it; a process starting afresh adds the
+    records after the stored sums instead of summing every record again."""
+    corpus, sentences = make_corpus(db, [f"Mast {i} creaks ." for i in range(24)])
+    who = [people.ann1, people.ann2, people.adjudicator, people.admin]
+    sums_everything = agreement.summed_afresh
+    afresh_calls = []
+
+    def counted(db: Session, corpus_id: int) -> object:
+        afresh_calls.append(corpus_id)
+        return sums_everything(db, corpus_id)
+
+    for step in range(60):
+        op = rng.choice(["record"] * 6 + ["drop", "back", "remove"])
+        live = [s for s in sentences if db.get(Sentence, s.id) is not None]
+        if op == "record" and live:
+            a, b = rng.sample(who, 2)
+            _record(db, corpus, rng.choice(live), a, b, rng)
+        elif op in ("drop", "back") and live:
+            state = "dropped" if op == "drop" else "queued"
+            db.execute(
+                update(Sentence).where(Sentence.id == rng.choice(live).id).values(state=state)
+            )
+            db.commit()
+        elif op == "remove" and len(live) > 12:
+            db.execute(delete(Sentence).where(Sentence.id == rng.choice(live).id))
+            db.commit()
+        if step % 3:
+            continue
+        db.expire_all()
+        expected = agreement.figures_afresh(db, corpus.id)
+        assert agreement.corpus_figures(db, corpus.id) == expected, step  # sums in memory
+        marks = agreement._marks(db, corpus.id)
+        kept = agreement._kept(db, corpus.id, marks[1])
+        assert kept is not None and (kept.seen, kept.changes) == marks, step
+        assert kept.to_json() == agreement.summed_afresh(db, corpus.id).to_json(), step
+        # a new process: nothing in memory, the stored sums and the records after them
+        agreement.forget_kept_in_memory()
+        logged_since = op == "record"
+        if logged_since:
+            # a record logged after the stored sums: the new process adds just that one
+            _record(db, corpus, rng.choice(live), *rng.sample(who, 2), rng)
+            expected = agreement.figures_afresh(db, corpus.id)
+        afresh_calls.clear()
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(agreement, "summed_afresh", counted)
+            assert agreement.corpus_figures(db, corpus.id) == expected, step
+        assert afresh_calls == [], step  # started from the stored sums
+        agreement.forget_kept_in_memory()
+
+
+def test_stored_sums_are_never_replaced_by_older_ones(db, people, rng) -> None:
+    """Two processes storing at once: sums made over fewer records (or at an older change
+    mark) never replace newer stored ones, whichever stores last."""
+    from app.services import kept_sums
+
+    corpus, sentences = make_corpus(db, [f"Keel {i} dries ." for i in range(3)])
+    _record(db, corpus, sentences[0], people.ann1, people.ann2, rng)
+    old = agreement.summed_afresh(db, corpus.id)
+    _record(db, corpus, sentences[1], people.ann1, people.ann2, rng)
+    new = agreement.summed_afresh(db, corpus.id)
+    assert (old.seen, new.seen) == (1, 2)
+    for tally in (new, old):  # the newer stores first, the older tries after it
+        kept_sums.store(
+            db, corpus.id, "agreement", tally.changes, tally.seen, tally.last_id, tally.to_json()
+        )
+    kept = agreement._kept(db, corpus.id, new.changes)
+    assert kept is not None and kept.seen == 2 and kept.to_json() == new.to_json()
+    # a change: the mark moves on
+    db.execute(delete(Sentence).where(Sentence.id == sentences[0].id))
+    db.commit()
+    after = agreement.summed_afresh(db, corpus.id)
+    assert after.changes > new.changes and after.seen == 1
+    assert kept_sums.store(
+        db, corpus.id, "agreement", after.changes, after.seen, after.last_id, after.to_json()
+    )
+    assert agreement._kept(db, corpus.id, new.changes) is None  # the older mark is gone
