@@ -307,3 +307,42 @@ def test_bench_js_reattach_refusals_say_why(js) -> None:
         "(ROOT (S (NP (PRP I)) (VP (VBD saw) (NP (DT the) (NN man)) (PP (IN "
         "with) (NP (DT a) (NN scope))))) (. .))"
     )
+
+
+def test_bench_js_graft_inside_takes_the_reading_inside_the_node_only(js, rng) -> None:
+    """graftInside (the Bench's Take inside) against the rule written here from spans: the
+    reading's brackets strictly inside the node's words and those words' tags, the tree's
+    everywhere else; the node itself stays. Readings: GUM trees with brackets dropped and tags
+    changed at random."""
+    trees = [t for t in read_trees(gum_files()[3].read_text("utf-8")) if len(constituents(t)) > 4]
+    cases, wants = [], []
+    for tree in trees[:60]:
+        spans = constituents(tree)
+        tags = pos_tags(tree)
+        kept = [spans[0]] + [b for b in spans[1:] if rng.random() < 0.6]
+        their_tags = [t if rng.random() < 0.7 else "ZZ" for t in tags]
+        reading = tree_from_spans(words(tree), their_tags, kept, root=None)
+        k = rng.randrange(1, len(spans))
+        _, s, e = spans[k]
+        items = [b for b in spans[1:] if not (s <= b[1] and b[2] <= e) or b[1:] == (s, e)]
+        items += [b for b in kept[1:] if s <= b[1] and b[2] <= e and b[1:] != (s, e)]
+        want_tags = tags[:s] + their_tags[s:e] + tags[e:]
+        wants.append((sorted(items), want_tags))
+        cases.append({"text": write_tree(tree), "reading": write_tree(reading), "k": k})
+    got = js.evaluate(
+        """cases => cases.map(c => T.writeTree(
+            T.graftInside(T.readTree(c.text), T.readTree(c.reading), c.k)))""",
+        cases,
+    )
+    assert len(got) == len(cases) >= 30
+    changed = 0
+    for text, want, case in zip(got, wants, cases, strict=True):
+        t = read_tree(text)
+        assert (sorted(constituents(t)[1:]), pos_tags(t)) == want
+        changed += text != case["text"]
+    assert changed > len(cases) // 3  # the cases do change something inside the node
+    with pytest.raises(Exception, match="other words"):
+        js.evaluate(
+            "() => T.graftInside(T.readTree('(ROOT (S (NN a) (NN b)))'), "
+            "T.readTree('(ROOT (S (NN a) (NN c)))'), 1)"
+        )
