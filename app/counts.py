@@ -39,6 +39,16 @@ corpus and block of ranks (``rank >> QUEUE_BLOCK_BITS``), kept by triggers on ``
 (insert, delete, a change of user, corpus or rank), so a sentence's place in its queue sums
 the blocks before it and counts inside its own block: O(blocks + block size) instead of
 O(place). Cost: one indexed row update per assignment write.
+
+The ``hidden_sentences`` table (:class:`app.models.HiddenSentence`) lists, per user and
+corpus, the sentences with agreement records that the user still annotates (the blind rule
+of :mod:`app.services.blind`: assigned to it or started an annotation of it, and not handed
+in), so the Agreement page finds what is hidden from a reader with one index range of their
+own rows: O(hidden) instead of a walk of their queue or of the corpus's records. Triggers on
+``agreement_records`` (insert: a row per unfinished annotator of the sentence; delete: the
+sentence's rows once it has no record left), ``assignments`` and ``annotations`` (insert,
+delete, a change of user, sentence or state: the row of that user and sentence worked out
+again) keep it. Cost: two or three index probes per such write.
 """
 
 from __future__ import annotations
@@ -70,6 +80,14 @@ TRIGGER_NAMES = (
     "tw_queue_blocks_insert",
     "tw_queue_blocks_delete",
     "tw_queue_blocks_update",
+    "tw_hidden_record_insert",
+    "tw_hidden_record_delete",
+    "tw_hidden_assign_insert",
+    "tw_hidden_assign_delete",
+    "tw_hidden_assign_update",
+    "tw_hidden_ann_insert",
+    "tw_hidden_ann_delete",
+    "tw_hidden_ann_update",
 )
 
 _ADD = (
@@ -146,6 +164,36 @@ _B_REMOVE = (
     "UPDATE queue_blocks SET n = n - 1 WHERE user_id = {r}.user_id "
     "AND corpus_id = {r}.corpus_id AND block = {r}.rank >> " + str(QUEUE_BLOCK_BITS)
 )
+# hidden_sentences: {r} is NEW or OLD (of assignments or annotations: the row of that user
+# and sentence worked out again), or of agreement_records
+_H_UNFINISHED = (
+    "(EXISTS (SELECT 1 FROM assignments a WHERE a.sentence_id = {s} AND a.user_id = {u}) "
+    "OR EXISTS (SELECT 1 FROM annotations n WHERE n.sentence_id = {s} AND n.user_id = {u})) "
+    "AND NOT EXISTS (SELECT 1 FROM annotations n WHERE n.sentence_id = {s} "
+    "AND n.user_id = {u} AND n.state = 'submitted')"
+)
+_H_FORGET = (
+    "DELETE FROM hidden_sentences WHERE user_id = {r}.user_id AND sentence_id = {r}.sentence_id"
+)
+_H_WORK_OUT = (
+    "INSERT INTO hidden_sentences (user_id, corpus_id, sentence_id) "
+    "SELECT DISTINCT {r}.user_id, c.corpus_id, {r}.sentence_id FROM agreement_records c "
+    "WHERE c.sentence_id = {r}.sentence_id AND "
+    + _H_UNFINISHED.format(s="{r}.sentence_id", u="{r}.user_id")
+    + " ON CONFLICT (user_id, corpus_id, sentence_id) DO NOTHING"
+)
+_H_RECORD_INSERT = (
+    "INSERT INTO hidden_sentences (user_id, corpus_id, sentence_id) "
+    "SELECT w.user_id, NEW.corpus_id, NEW.sentence_id FROM (SELECT user_id FROM assignments "
+    "WHERE sentence_id = NEW.sentence_id UNION SELECT user_id FROM annotations "
+    "WHERE sentence_id = NEW.sentence_id) w WHERE NOT EXISTS (SELECT 1 FROM annotations n "
+    "WHERE n.sentence_id = NEW.sentence_id AND n.user_id = w.user_id AND n.state = 'submitted') "
+    "ON CONFLICT (user_id, corpus_id, sentence_id) DO NOTHING"
+)
+_H_RECORD_DELETE = (
+    "DELETE FROM hidden_sentences WHERE sentence_id = OLD.sentence_id AND NOT EXISTS "
+    "(SELECT 1 FROM agreement_records c WHERE c.sentence_id = OLD.sentence_id)"
+)
 _WAS_DROPPED = "(OLD.state = 'dropped') <> (NEW.state = 'dropped')"
 _HANDED_IN = "(OLD.state = 'submitted' OR NEW.state = 'submitted')"
 
@@ -202,7 +250,25 @@ _SQLITE = [
     "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_update "
     "AFTER UPDATE OF user_id, corpus_id, rank ON assignments "
     f"BEGIN {_B_REMOVE.format(r='OLD')}; {_B_ADD.format(r='NEW')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_hidden_record_insert AFTER INSERT ON agreement_records "
+    f"BEGIN {_H_RECORD_INSERT}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_hidden_record_delete AFTER DELETE ON agreement_records "
+    f"BEGIN {_H_RECORD_DELETE}; END",
 ]
+for _table, _short, _columns in (
+    ("assignments", "assign", "user_id, sentence_id"),
+    ("annotations", "ann", "user_id, sentence_id, state"),
+):
+    _SQLITE += [
+        f"CREATE TRIGGER IF NOT EXISTS tw_hidden_{_short}_insert AFTER INSERT ON {_table} "
+        f"BEGIN {_H_FORGET.format(r='NEW')}; {_H_WORK_OUT.format(r='NEW')}; END",
+        f"CREATE TRIGGER IF NOT EXISTS tw_hidden_{_short}_delete AFTER DELETE ON {_table} "
+        f"BEGIN {_H_FORGET.format(r='OLD')}; {_H_WORK_OUT.format(r='OLD')}; END",
+        f"CREATE TRIGGER IF NOT EXISTS tw_hidden_{_short}_update "
+        f"AFTER UPDATE OF {_columns} ON {_table} "
+        f"BEGIN {_H_FORGET.format(r='OLD')}; {_H_WORK_OUT.format(r='OLD')}; "
+        f"{_H_FORGET.format(r='NEW')}; {_H_WORK_OUT.format(r='NEW')}; END",
+    ]
 
 
 def _row_function(name: str, on_old: str, on_new: str) -> str:
@@ -302,6 +368,23 @@ END $$ LANGUAGE plpgsql""",
     "CREATE TRIGGER tw_queue_blocks AFTER INSERT OR DELETE OR UPDATE OF user_id, corpus_id, "
     "rank ON assignments FOR EACH ROW EXECUTE FUNCTION tw_queue_blocks()",
 ]
+_POSTGRES += [
+    _row_function("tw_hidden_record", _H_RECORD_DELETE, _H_RECORD_INSERT),
+    "DROP TRIGGER IF EXISTS tw_hidden_record ON agreement_records",
+    "CREATE TRIGGER tw_hidden_record AFTER INSERT OR DELETE ON agreement_records "
+    "FOR EACH ROW EXECUTE FUNCTION tw_hidden_record()",
+    _row_function(
+        "tw_hidden_work",
+        f"{_H_FORGET.format(r='OLD')}; {_H_WORK_OUT.format(r='OLD')}",
+        f"{_H_FORGET.format(r='NEW')}; {_H_WORK_OUT.format(r='NEW')}",
+    ),
+    "DROP TRIGGER IF EXISTS tw_hidden_assign ON assignments",
+    "CREATE TRIGGER tw_hidden_assign AFTER INSERT OR DELETE OR UPDATE OF user_id, sentence_id "
+    "ON assignments FOR EACH ROW EXECUTE FUNCTION tw_hidden_work()",
+    "DROP TRIGGER IF EXISTS tw_hidden_ann ON annotations",
+    "CREATE TRIGGER tw_hidden_ann AFTER INSERT OR DELETE OR UPDATE OF user_id, sentence_id, "
+    "state ON annotations FOR EACH ROW EXECUTE FUNCTION tw_hidden_work()",
+]
 # PostgreSQL folds several events into one trigger; these are the names it uses.
 _POSTGRES_NAMES = (
     "tw_sentence_counts_insert",
@@ -316,6 +399,9 @@ _POSTGRES_NAMES = (
     "tw_marks_sentence_delete",
     "tw_marks_ann",
     "tw_queue_blocks",
+    "tw_hidden_record",
+    "tw_hidden_assign",
+    "tw_hidden_ann",
 )
 
 
@@ -347,6 +433,17 @@ def recount(conn: Connection) -> None:
             "INSERT INTO queue_blocks (user_id, corpus_id, block, n) "
             f"SELECT user_id, corpus_id, rank >> {QUEUE_BLOCK_BITS}, COUNT(*) FROM assignments "
             f"GROUP BY user_id, corpus_id, rank >> {QUEUE_BLOCK_BITS}"
+        )
+    )
+    conn.execute(text("DELETE FROM hidden_sentences"))
+    conn.execute(
+        text(
+            "INSERT INTO hidden_sentences (user_id, corpus_id, sentence_id) "
+            "SELECT DISTINCT w.user_id, c.corpus_id, c.sentence_id FROM agreement_records c "
+            "JOIN (SELECT user_id, sentence_id FROM assignments UNION "
+            "SELECT user_id, sentence_id FROM annotations) w ON w.sentence_id = c.sentence_id "
+            "WHERE NOT EXISTS (SELECT 1 FROM annotations n WHERE n.sentence_id = c.sentence_id "
+            "AND n.user_id = w.user_id AND n.state = 'submitted')"
         )
     )
     # the change marks move on (never back): sums a process kept are then summed again
@@ -441,6 +538,20 @@ def drop_mark_triggers(conn: Connection) -> None:
         "tw_marks",
         _MARK_TRIGGERS_PG,
         ("tw_marks_corpus", "tw_marks_record", "tw_marks_sentence", "tw_marks_ann"),
+    )
+
+
+def drop_hidden_triggers(conn: Connection) -> None:
+    """Remove the hidden_sentences triggers (migration 0017's downgrade)."""
+    _drop(
+        conn,
+        "tw_hidden",
+        {
+            "tw_hidden_record": "agreement_records",
+            "tw_hidden_assign": "assignments",
+            "tw_hidden_ann": "annotations",
+        },
+        ("tw_hidden_record", "tw_hidden_work"),
     )
 
 

@@ -405,6 +405,19 @@ class FigureMark(Base):
     handed_in_changes: Mapped[int] = mapped_column(Integer, default=0)
 
 
+class HiddenSentence(Base):
+    """A sentence with agreement records that a user still annotates (assigned to it or
+    started an annotation of it, not handed in: the blind rule of
+    :mod:`app.services.blind`), kept by database triggers (:mod:`app.counts`), so that what is
+    hidden from a reader of the Agreement page is one index range of their own rows."""
+
+    __tablename__ = "hidden_sentences"
+    __table_args__ = (Index("ix_hidden_sentences_sentence", "sentence_id"),)
+    user_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    corpus_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    sentence_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+
+
 class KeptSums(Base):
     """A corpus's figures summed so far, kept in the database so that a new process (or
     another server) starts from them instead of summing every record again

@@ -33,8 +33,8 @@ parser.scoring); a view of corpus_figures reads the marks row, then the records 
 its last view (in a new process, those after the stored sums; all of them the first time
 ever, or after a sentence with records was dropped, brought back or removed), O(new records
 * labels) plus an index probe per new record's sentence, plus O(pairs + labels + days) to
-show them and to store them, plus for a reader under the blind rule the records of the sentences hidden from
-them.
+show them and to store them, plus for a reader under the blind rule one index range of what
+is hidden from them (``hidden_sentences``) and, when that changed, its records.
 Limits: records are never updated; a re-submission after a reopen logs new records beside
 the old ones (both stay in the log; the page counts each record once).
 """
@@ -51,7 +51,7 @@ from datetime import datetime, timedelta
 from itertools import combinations
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -66,12 +66,12 @@ from app.models import (
     Document,
     Event,
     FigureMark,
-    QueueCount,
+    HiddenSentence,
     Revision,
     Sentence,
     User,
 )
-from app.services import blind, kept_sums
+from app.services import kept_sums
 from app.services.gold import current_revision, gold_added, make_gold
 from parser.scoring import Counts, label_confusions, score_pair
 from parser.trees import read_tree, write_tree
@@ -504,38 +504,16 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
     (the blind rule of :mod:`app.services.blind`): their records are left out of everything
     the viewer sees of the log, rows and sums alike. None (the command line) sees all.
 
-    Cost: the smaller of two walks: the viewer's assignments and annotations
-    (:func:`app.services.blind.unfinished_query`), or the corpus's records with three index
-    probes each (:func:`app.services.blind.unfinished_clause`); the viewer's queue length
-    (the maintained queue counts) and the record count (the figure marks) choose."""
+    Cost: one index range of the viewer's own rows of ``hidden_sentences`` (kept by database
+    triggers, :mod:`app.counts`): O(what is hidden from them), whatever the size of their
+    queue or of the corpus's log."""
     if viewer is None:
         return set()
-    queue = db.scalar(
-        select(func.coalesce(func.sum(QueueCount.assigned), 0)).where(
-            QueueCount.user_id == viewer.id
-        )
-    )
-    marks = _marks(db, corpus_id)
-    if marks is None or int(queue or 0) <= marks[0]:
-        return set(
-            db.scalars(
-                select(AgreementRecord.sentence_id)
-                .where(
-                    AgreementRecord.corpus_id == corpus_id,
-                    AgreementRecord.sentence_id.in_(blind.unfinished_query(viewer.id)),
-                )
-                .distinct()
-            )
-        )
-    sentence = AgreementRecord.sentence_id
     return set(
         db.scalars(
-            select(sentence)
-            .where(
-                AgreementRecord.corpus_id == corpus_id,
-                blind.unfinished_clause(viewer.id, sentence),
+            select(HiddenSentence.sentence_id).where(
+                HiddenSentence.user_id == viewer.id, HiddenSentence.corpus_id == corpus_id
             )
-            .distinct()
         )
     )
 

@@ -16,9 +16,9 @@ The rule
     its name leaks. Adjudicators may be listed too (the list says who works on the corpus,
     and keeps them a reader should their role be lowered to annotator).
 
-Cost: two index walks (the caller's assignment rows: ``ix_assignments_queue`` starts with the
-user id; the caller's member rows: ``ix_corpus_members_user_id``) per request that lists or
-opens corpora; adjudicators and admins cost nothing.
+Cost: two index walks of one row per corpus (the caller's queue counts, whose key starts with
+the user id; the caller's member rows: ``ix_corpus_members_user_id``) per request that lists
+or opens corpora; adjudicators and admins cost nothing.
 """
 
 from __future__ import annotations
@@ -31,7 +31,7 @@ from typing import TypeVar
 from sqlalchemy import func, select, union
 from sqlalchemy.orm import Session
 
-from app.models import Assignment, Corpus, CorpusMember, Event, User
+from app.models import Assignment, Corpus, CorpusMember, Event, QueueCount, User
 from app.services.corpora import find_corpus, is_staging
 from app.services.errors import BadInput, NotFound
 from app.services.transactions import unit_of_work
@@ -40,11 +40,15 @@ T = TypeVar("T")
 
 
 def member_corpus_ids(db: Session, user: User) -> set[int]:
-    """The corpora ``user`` is an explicit member of or has a sentence assigned in."""
+    """The corpora ``user`` is an explicit member of or has a sentence assigned in (the
+    latter from the user's queue counts, kept by database triggers, app.counts: one row per
+    corpus, not one per assigned sentence)."""
     return set(
         db.scalars(
             union(
-                select(Assignment.corpus_id).where(Assignment.user_id == user.id),
+                select(QueueCount.corpus_id).where(
+                    QueueCount.user_id == user.id, QueueCount.assigned > 0
+                ),
                 select(CorpusMember.corpus_id).where(CorpusMember.user_id == user.id),
             )
         )
