@@ -1,15 +1,17 @@
 """Background jobs on a PostgreSQL task queue, run by ``treewright worker`` processes.
 
-With the setting ``job_runner = "workers"`` (PostgreSQL only) a server does not train grammars
-or run the inconsistency finder itself: for each queued grammar version and findings run it
-puts a job on a queue kept in the same PostgreSQL database (procrastinate, see DEVELOPERS.md
-for the choice), and any number of ``treewright worker`` processes, on this machine or on
-others that reach the database, take the jobs one at a time each. On SQLite, and by default,
+With the setting ``job_runner = "workers"`` (PostgreSQL only) a server does not train grammars,
+run the inconsistency finder or parse the look-ahead after a hand-in itself: for each queued
+grammar version, findings run and hand-in it puts a job on a queue kept in the same
+PostgreSQL database (procrastinate, see DEVELOPERS.md for the choice), and any number of
+``treewright worker`` processes, on this machine or on others that reach the database, take
+the jobs one at a time each. On SQLite, and by default,
 the per-server runner of :mod:`app.services.training` runs them as before.
 
 This module is only the runner: a job calls the same service functions as the in-process
 runner (:func:`app.services.training.take` and ``run_version``,
-:func:`app.services.findings.claim_run` and ``run_finder``). It imports procrastinate, which
+:func:`app.services.findings.claim_run` and ``run_finder``,
+:func:`app.services.refresh.refresh_after_hand_in`). It imports procrastinate, which
 the ``postgres`` extra installs; nothing else imports it at start-up.
 
 Never lost, never twice in effect
@@ -62,7 +64,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
 from app.models import GV_QUEUED, GV_TRAINING, RUN_QUEUED, RUN_RUNNING, FindingRun, GrammarVersion
-from app.services import findings, training
+from app.services import findings, refresh, training
 from app.services.admission import configure_from
 from app.settings import Settings
 
@@ -72,6 +74,10 @@ log = logging.getLogger(__name__)
 QUEUE = "treewright"
 TRAIN = "treewright.train_version"
 FIND = "treewright.find_inconsistencies"
+REFRESH = "treewright.refresh_after_hand_in"
+#: The refresh after a hand-in goes before trainings and findings runs (it is short, and the
+#: annotator's next sentences wait for it).
+REFRESH_PRIORITY = 2
 #: PostgreSQL advisory lock taken while the queue's schema is applied (any constant of ours).
 SCHEMA_LOCK = 0x7472_6565
 #: Failures of the job itself (the database unreachable while claiming): tried again with
@@ -210,6 +216,24 @@ class QueueRunner:
             self.last_error = exc
             log.error("could not put jobs on the queue: %r", exc)
 
+    def defer_refresh(self, corpus_id: int, user_id: int, k: int) -> bool:
+        """Put the look-ahead refresh after a hand-in on the queue (:func:`refresh_job`);
+        one waiting job per annotator and corpus (a hand-in while one waits adds none: that
+        job parses the look-ahead as it stands when it runs). False when the queue could not
+        be reached (the caller then refreshes in its own process)."""
+        lock = f"{REFRESH}:{corpus_id}:{user_id}"
+        deferrer = self._app.configure_task(
+            REFRESH, queue=QUEUE, lock=lock, queueing_lock=lock, priority=REFRESH_PRIORITY
+        )
+        try:
+            with contextlib.suppress(AlreadyEnqueued):
+                deferrer.defer(corpus_id=corpus_id, user_id=user_id, k=k)
+        except Exception as exc:  # noqa: BLE001 - the hand-in is stored; refresh here instead
+            self.last_error = exc
+            log.error("could not put the refresh on the queue: %r", exc)
+            return False
+        return True
+
     def wait_idle(self, timeout: float = 600.0) -> None:
         """Block until no grammar version or findings run is queued or running (scripts and
         tests; the work itself happens in the workers)."""
@@ -279,12 +303,22 @@ def find_inconsistencies(context: procrastinate.JobContext, run_id: int) -> str:
     return "found"
 
 
+def refresh_job(corpus_id: int, user_id: int, k: int) -> str:
+    """The queue job of the look-ahead refresh after a hand-in
+    (:func:`app.services.refresh.refresh_after_hand_in`): idempotent, since it parses only
+    the look-ahead sentences that lack a complete suggestion of the active version, so a
+    job run twice (or after the sentences were opened and parsed) does nothing more."""
+    parsed = refresh.refresh_after_hand_in(_worker().factory, corpus_id, user_id, k=k)
+    return f"parsed {parsed}"
+
+
 def make_worker_app(settings: Settings) -> procrastinate.App:
-    """The procrastinate app a worker runs: Treewright's two job kinds on its queue."""
+    """The procrastinate app a worker runs: Treewright's three job kinds on its queue."""
     connector = procrastinate.PsycopgConnector(conninfo=conninfo(settings), min_size=1, max_size=4)
     app = procrastinate.App(connector=connector)
     app.task(name=TRAIN, queue=QUEUE, retry=RETRY)(train_version)
     app.task(name=FIND, queue=QUEUE, retry=RETRY, pass_context=True)(find_inconsistencies)
+    app.task(name=REFRESH, queue=QUEUE, retry=RETRY)(refresh_job)
     return app
 
 

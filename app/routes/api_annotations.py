@@ -278,16 +278,19 @@ def submit(
 ) -> AnnotationPublic:
     """Mark your annotation submitted; ``base`` must be your current head. After the
     response, the next sentences of your queue are parsed under the active grammar if they
-    lack its suggestion (app.services.refresh.refresh_after_hand_in)."""
+    lack its suggestion (app.services.refresh.refresh_after_hand_in): by a worker when the
+    server hands its jobs to ``treewright worker`` processes, otherwise in this process."""
     sentence = svc.assigned_sentence(db, login.user, sentence_id)
     done = _annotation_public(svc.submit(db, login.user, sentence, base=body.base))
-    background.add_task(
-        refresh.refresh_after_hand_in,
-        request.app.state.sessionmaker,
-        sentence.corpus_id,
-        login.user.id,
-        k=request.app.state.settings.suggestion_k,
-    )
+    k = request.app.state.settings.suggestion_k
+    if not training.defer_refresh(request.app.state, sentence.corpus_id, login.user.id, k):
+        background.add_task(
+            refresh.refresh_after_hand_in,
+            request.app.state.sessionmaker,
+            sentence.corpus_id,
+            login.user.id,
+            k=k,
+        )
     return done
 
 

@@ -1079,6 +1079,17 @@ def get_runner(target: Any, *, in_process: bool | None = None) -> Runner:
     return runner
 
 
+def defer_refresh(state: Any, corpus_id: int, user_id: int, k: int) -> bool:
+    """With ``job_runner = "workers"``: put the look-ahead refresh after a hand-in on the
+    worker queue (app.jobs) and return True; otherwise (this server runs its own jobs, or
+    the queue could not be reached) False, and the caller refreshes in this process."""
+    if state.settings.job_runner != "workers":
+        return False
+    runner = get_runner(state)
+    defer = getattr(runner, "defer_refresh", None)
+    return bool(defer is not None and defer(corpus_id, user_id, k))
+
+
 def schedule_training(
     target: Any, corpus_id: int, reason: str, user_id: int | None = None
 ) -> GrammarVersion:

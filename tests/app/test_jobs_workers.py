@@ -262,3 +262,37 @@ def test_queue_runner_puts_one_queue_job_per_row(queue_app: Any) -> None:
         assert jobs[0].priority > jobs[1].priority
     finally:
         db.close()
+
+
+@needs_postgres
+def test_a_hand_in_defers_the_refresh_to_the_queue_and_its_job_fills_the_lookahead(
+    settings: Settings, queue_app: Any, db: Session, people: Any
+) -> None:
+    """With workers, the refresh after a hand-in is a queue job (one waiting per annotator
+    and corpus), not work of the server's process; the job, run as a worker runs it, parses
+    the look-ahead under the active grammar, and run again it parses nothing more."""
+    from app import jobs
+    from tests.app.bench_helpers import assign, install_grammar, make_corpus
+    from tests.app.conftest import LoggedIn
+    from tests.app.test_refresh_lazy import TEXTS, _complete_under, _hand_in, demo_grammar_bytes
+
+    corpus, sentences = make_corpus(db, TEXTS[:6])
+    assign(db, sentences, people.ann1)
+    corpus.settings = {**corpus.settings, "refresh_lookahead": 2}
+    db.commit()
+    version = install_grammar(db, corpus, demo_grammar_bytes(3))
+    ids = [s.id for s in sentences]
+    ann1 = LoggedIn(queue_app, "ann1")
+    _hand_in(ann1, sentences[0])
+    # (the test client runs a background task before the call returns: none was run)
+    assert _complete_under(db, version.id) == set()
+    wanted = {"corpus_id": corpus.id, "user_id": people.ann1.id, "k": settings.suggestion_k}
+    assert [(j.task_name, j.status, j.args) for j in _queue_jobs(db)] == [
+        (jobs.REFRESH, "todo", wanted)
+    ]
+    _hand_in(ann1, sentences[1])  # while the job waits: no second job
+    assert len(_queue_jobs(db)) == 1
+    with jobs._worker_state(settings):
+        assert jobs.refresh_job(**wanted) == "parsed 2"
+        assert _complete_under(db, version.id) == {ids[2], ids[3]}
+        assert jobs.refresh_job(**wanted) == "parsed 0"  # delivered twice: nothing more
