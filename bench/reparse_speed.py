@@ -8,10 +8,14 @@ service's most); the sentences are the first ``--sentences`` test sentences of 3
 last 10 files. What is said: two gold constituents of the cleaned tree pinned and one gold tag
 fixed, as after a few edits on the Bench; the tree re-parsed is the start's consensus.
 
-Columns, median single-thread CPU ms over sentences x ``--repeats`` runs: the re-parse with 30
-distinct readings (what the Bench asks: ``parser.reparse.reparse``, k = 30, drawn from
-``DISTINCT_POOL`` x 30 derivations), with the 30 best derivations as they come
-(``distinct=False``), and with one reading (the proposal alone).
+Rows: the plain grammar; the refined grammar pruned coarse-to-fine through its base symbols
+only (``one level``: as a grammar saved without its cycle hierarchy is parsed); the refined
+grammar pruned through every level of its hierarchy (``levels``, the default).
+Columns, median single-thread CPU ms over sentences x ``--repeats`` runs:
+``parser.reparse.reparse`` with the 30 best derivations (what the Bench asks), with one reading
+(the proposal alone), each as a sentence's *first* re-parse (the unconstrained best computed,
+``free_best_logprob``'s cache emptied first) and as a *later* one (that best kept); then 30
+distinct bracketings (``distinct=True``, drawn from ``DISTINCT_POOL`` x 30 derivations, later).
 
 Usage: ``python bench/reparse_speed.py [--sentences N] [--repeats R] [--refine C]
 [--cache DIR]`` (``--cache`` keeps the trained grammars between runs).
@@ -33,8 +37,8 @@ import numba  # noqa: E402
 from parser.binarize import clean_tree  # noqa: E402
 from parser.chart import parse  # noqa: E402
 from parser.grammar import Grammar, train_grammar  # noqa: E402
-from parser.latent import train_refined  # noqa: E402
-from parser.reparse import DISTINCT_POOL, Said, reparse  # noqa: E402
+from parser.latent import train_refined, without_hierarchy  # noqa: E402
+from parser.reparse import DISTINCT_POOL, Said, free_best_logprob, reparse  # noqa: E402
 from parser.trees import constituents, pos_tags, read_trees, words  # noqa: E402
 
 GUM = ROOT.parent / "shared" / "data" / "gum-trees"
@@ -85,27 +89,38 @@ def main() -> None:
     )
     numba.set_num_threads(1)
     print(
-        f"single thread, median CPU ms: k=30 distinct (from {DISTINCT_POOL * 30} derivations) | "
-        "k=30 derivations | k=1"
+        "single thread, median CPU ms: k=30 first | k=30 later | k=1 first | k=1 later | "
+        f"k=30 distinct (from {DISTINCT_POOL * 30} derivations), later"
     )
-    for name, g in (("plain", plain), ("refined", refined)):
+    kinds = (
+        ({"k": 30}, True),
+        ({"k": 30}, False),
+        ({"k": 1}, True),
+        ({"k": 1}, False),
+        ({"k": 30, "distinct": True}, False),
+    )
+    rows = (("plain", plain), ("one level", without_hierarchy(refined)), ("levels", refined))
+    for name, g in rows:
         parse(g, ["warm", "up", "."], k=2, posteriors=True)  # compile or load the numba cache
-        cols: list[list[float]] = [[], [], []]
+        cols: list[list[float]] = [[] for _ in kinds]
         for gold in tests:
             w = [str(x) for x in words(gold)]
             spans = [(s, e, lab) for lab, s, e in constituents(gold)[1:] if e - s > 1][:2]
             said = Said(required=tuple(spans), tags=((0, pos_tags(gold)[0]),))
             start = parse(g, w, posteriors=True).consensus
-            for col, kw in zip(
-                cols, ({"k": 30}, {"k": 30, "distinct": False}, {"k": 1}), strict=True
-            ):
+            for col, (kw, first) in zip(cols, kinds, strict=True):
                 for _ in range(args.repeats):
+                    if first:
+                        g.__dict__.pop("_free_best", None)
+                    else:
+                        free_best_logprob(g, w)
                     t0 = time.process_time()
                     reparse(g, w, said, previous=start, **kw)
                     col.append(time.process_time() - t0)
         print(
-            f"{name:8s} len {LENGTH}: "
-            + " | ".join(f"{1000 * statistics.median(c):8.1f}" for c in cols)
+            f"{name:10s} len {LENGTH}: "
+            + " | ".join(f"{1000 * statistics.median(c):7.1f}" for c in cols),
+            flush=True,
         )
 
 

@@ -47,9 +47,10 @@ from parser.trees import tree_from_spans
 POSTERIOR_THRESHOLD = 1e-3
 #: Coarse-to-fine pruning of a refined grammar's chart (Petrov and Klein 2007, "Improved
 #: inference for unlexicalized parsing", NAACL; they prune at posteriors of about 1e-4, from
-#: memory): a sub-symbol of a span is left out when its base symbol's posterior under the
-#: projected grammar (:func:`parser.latent.coarse_grammar`) is at most this. Required spans are
-#: never pruned, and a pruned chart without a tree is parsed again unpruned.
+#: memory): a sub-symbol of a span is left out when its ancestor's posterior under the
+#: projection onto the level before (:func:`pruning_mask`: the base symbols, then each
+#: split-merge cycle's sub-symbols) is at most this. Required spans are never pruned, and a
+#: pruned chart without a tree is parsed again unpruned.
 REFINED_PRUNE = 1e-4
 #: A refined grammar's k-best search looks at this many times more derivations (each tree has
 #: one per choice of sub-symbols; with 4 times, 10 distinct trees are found for most 30-word
@@ -531,24 +532,49 @@ def pruning_mask(
     threshold: float,
 ) -> np.ndarray | None:
     """bool[S, N]: the (span, symbol) cells of refined grammar ``g`` kept by coarse-to-fine
-    pruning (see :data:`REFINED_PRUNE`): those whose base symbol has a posterior above
-    ``threshold`` under the projected grammar with the same constraints; every cell of a
-    required span is kept. None when the projected grammar has no tree."""
-    from parser.latent import coarse_grammar
+    pruning (see :data:`REFINED_PRUNE`). The projections of ``g`` onto the levels of its cycle
+    hierarchy (:func:`parser.latent.level_grammar`: the base symbols, then the sub-symbols
+    after each split-merge cycle) are parsed in turn under the same constraints, each level's
+    chart keeping only the cells whose parent sub-symbol has a posterior above ``threshold``
+    in the level before; the last level's posteriors give the mask of ``g``. Every cell of a
+    required span is kept at every level. A grammar saved without its hierarchy has one level
+    (the base symbols). When a level after the first has no tree, the last level that had one
+    gives the mask; None when the first has none."""
+    from parser.latent import level_grammar, n_levels
 
-    coarse, to_coarse = coarse_grammar(g)
-    ctab = tables(coarse)
-    cprob = _prepare(coarse, ctab, words, constraints)
-    if not cprob.satisfiable:
-        return None
-    cchart = _Chart(coarse, ctab, cprob)
-    if not cchart.ok:
-        return None
-    spost = cchart.symbol_posteriors()
-    allow: np.ndarray = spost[:, to_coarse] > threshold
-    for a, b, _ in cprob.required:
-        allow[cprob.sid[a, b], :] = True
-    return allow
+    spost: np.ndarray | None = None
+    to_prev: np.ndarray | None = None  # symbol of g -> its ancestor at the level parsed last
+    required: list[tuple[int, int, str | None]] = []
+    sid: np.ndarray | None = None
+    for level in range(max(1, n_levels(g))):
+        lgram, to_level = level_grammar(g, level)
+        ltab = tables(lgram)
+        lprob = _prepare(lgram, ltab, words, constraints)
+        if not lprob.satisfiable:
+            return None
+        required, sid = lprob.required, lprob.sid
+        allow: np.ndarray | None = None
+        if spost is not None and to_prev is not None:
+            parent = np.zeros(lgram.n_symbols, dtype=np.int64)
+            parent[to_level] = to_prev
+            allow = _keep(spost[:, parent] > threshold, required, sid)
+        level_post = _Chart.symbol_posteriors_only(lgram, ltab, lprob, allow)
+        if level_post is None:
+            if spost is None:
+                return None
+            break
+        spost, to_prev = level_post, to_level
+    assert spost is not None and to_prev is not None and sid is not None
+    return _keep(spost[:, to_prev] > threshold, required, sid)
+
+
+def _keep(
+    allow: np.ndarray, required: Sequence[tuple[int, int, str | None]], sid: np.ndarray
+) -> np.ndarray:
+    """``allow`` with every cell of the required spans kept."""
+    for a, b, _ in required:
+        allow[sid[a, b], :] = True
+    return np.ascontiguousarray(allow)
 
 
 def _fine_chart(
@@ -617,6 +643,26 @@ class _Chart:
         self._outside_cache: tuple[bool, tuple[np.ndarray, ...]] | None = None
         self.tag_posteriors: list[dict[str, float]] = []
         self.keep_symbol_posteriors = False
+
+    @classmethod
+    def symbol_posteriors_only(
+        cls, g: Grammar, tab: _Tables, p: _Problem, allow: np.ndarray | None
+    ) -> np.ndarray | None:
+        """:meth:`symbol_posteriors` of the chart of ``g`` without its Viterbi pass (a coarse
+        level of coarse-to-fine parsing needs only its posteriors); None when it has no tree."""
+        chart = cls.__new__(cls)
+        chart.g, chart.tab, chart.p = g, tab, p
+        chart.allow = _NO_MASK if allow is None else allow
+        chart.use_allow = allow is not None
+        # Zeros: every span may hold something; the inside pass finds which do.
+        chart.vt = np.zeros((p.n * (p.n + 1) // 2, g.n_symbols))
+        chart.full = int(p.sid[0, p.n])
+        chart._inside = None
+        chart._outside_cache = None
+        it = chart._inside_chart()[0]
+        if not it[chart.full, g.start] > 0.0:
+            return None
+        return chart.symbol_posteriors()
 
     # ------------------------------------------------------------- Viterbi tree
     def viterbi_tree(self, words: Sequence[str]) -> Tree:
@@ -817,10 +863,15 @@ class _Chart:
         trees: list[Tree] = []
         scores: list[float] = []
         seen: set[str] = set()
+        shapes: set[tuple[int, ...]] = set()
         for rank in range(cap):
             d = kb.get(root, rank)
             if d is None:
                 break
+            shape = kb.shape(root, rank)
+            if shape in shapes:
+                continue  # the tree of an earlier derivation (another choice of sub-symbols)
+            shapes.add(shape)
             tree = unbinarize(kb.build(root, rank, words))
             key = tree_key(tree)
             if key in seen:

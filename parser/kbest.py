@@ -230,6 +230,9 @@ class LazyKBest:
 
     # ------------------------------------------------------------------ trees
     def _known(self, node: Node, rank: int) -> Deriv:
+        found = self.derivs.get(node)
+        if found is not None and rank < len(found):
+            return found[rank]
         d = self.get(node, rank)
         if d is None:
             raise ParserError(f"k-best: node {node} has no derivation of rank {rank}")
@@ -253,6 +256,27 @@ class LazyKBest:
                 todo.append((b_tails[1], b_ranks[1], low))
                 todo.append((b_tails[0], b_ranks[0], low))
         return holder[0]
+
+    def shape(self, node: Node, rank: int) -> tuple[int, ...]:
+        """What the tree of a TOP node's rank-th derivation is made of, without building it:
+        per node in pre-order, its unary chain and its split point (-1 for a word). Two
+        derivations of the same shape build the same tree (:meth:`build` reads nothing else;
+        a refined grammar's derivations that differ only in sub-symbols do)."""
+        out: list[int] = []
+        todo: list[tuple[Node, int]] = [(node, rank)]
+        uchain = self.c.tab.uchain
+        while todo:
+            top, rk = todo.pop()
+            _, edge, tails, ranks = self._known(top, rk)
+            _, b_edge, b_tails, b_ranks = self._known(tails[0], ranks[0])
+            out.append(int(uchain[edge[1]]))
+            if b_edge[0] == "l":
+                out.append(-1)
+            else:
+                out.append(int(b_edge[2]))
+                todo.append((b_tails[1], b_ranks[1]))
+                todo.append((b_tails[0], b_ranks[0]))
+        return tuple(out)
 
 
 def tree_key(tree: Tree | str) -> str:

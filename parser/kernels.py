@@ -115,6 +115,16 @@ def _span_edges(
     return True
 
 
+@njit(cache=True, inline="always")
+def _any_allowed(allow, s):
+    """Whether coarse-to-fine pruning keeps any symbol of span ``s`` (a span with none holds
+    nothing, so the passes skip it whole)."""
+    for a in range(allow.shape[1]):
+        if allow[s, a]:
+            return True
+    return False
+
+
 @njit(cache=True, inline="always", fastmath=True)
 def _split_max(XL, XR, i, k, floor, maxl, maxr):
     """maxl[a] = max over split points j of XL[i, a, j]; maxr[a] likewise of XR[k, a, j]."""
@@ -171,7 +181,7 @@ def viterbi(
         for i in prange(n - length + 1):
             k = i + length
             s = sid[i, k]
-            if dead[s]:
+            if dead[s] or (use_allow and not _any_allowed(allow, s)):
                 continue
             bot = vb[s]
             if length == 1:
@@ -260,12 +270,15 @@ def inside(
     IL, IR (float64[N, n + 1, n + 1]) of ``it``.
 
     True inside score = it[s, a] * exp(sigma[s]) (likewise ib); max over a of it and ib is 1.
-    Spans with no finite Viterbi top score (``vt``) are skipped: they hold no tree.
+    Spans with no finite Viterbi top score (``vt``) are skipped: they hold no tree (a ``vt``
+    of zeros looks everywhere; a span whose scores all come out zero then counts as empty).
     """
     n_span = n * (n + 1) // 2
     it = np.zeros((n_span, n_sym))
     ib = np.zeros((n_span, n_sym))
-    sigma = np.zeros(n_span)
+    # NEG for a span that holds nothing: the outside pass's split weights exp(sigma_left +
+    # sigma_right - sigma_parent) are then 0 there, never an overflow times a zero score.
+    sigma = np.full(n_span, NEG)
     IL = np.zeros((n + 1, n_sym, n + 1))
     IR = np.zeros((n + 1, n_sym, n + 1))
     live = np.zeros(n_span, np.bool_)
@@ -275,7 +288,7 @@ def inside(
         for i in prange(n - length + 1):
             k = i + length
             s = sid[i, k]
-            if dead[s]:
+            if dead[s] or (use_allow and not _any_allowed(allow, s)):
                 continue
             any_top = False
             for a in range(n_sym):
@@ -346,6 +359,11 @@ def inside(
                     top[a] *= inv
                     bot[a] *= inv
                 sigma[s] += np.log(c)
+            else:
+                # Nothing built here (possible when ``vt`` only marks where to look): no
+                # parent may count on it, and its scale must not weigh in theirs.
+                live[s] = False
+                sigma[s] = NEG
             for a in range(n_sym):
                 IL[i, a, k] = top[a]
                 IR[k, a, i] = top[a]

@@ -42,10 +42,13 @@ accurate, compact, and interpretable tree annotation", ACL; details from memory)
     projected onto ordinary labels, and the consensus tree decodes them.
 
     Parsing: the exported grammar is parsed coarse-to-fine by :func:`parser.chart.parse`
-    (Petrov and Klein 2007): :func:`coarse_grammar` projects it onto its base symbols, that
-    grammar's posteriors under the same constraints prune the refined chart
+    (Petrov and Klein 2007): it keeps its cycle hierarchy (each sub-symbol's ancestor after
+    every earlier cycle, ``meta["latent"]["levels"]``); :func:`level_grammar` projects it onto
+    each level (the base symbols first, as :func:`coarse_grammar`), each level's posteriors
+    under the same constraints prune the next level's chart and the last the refined chart
     (:data:`parser.chart.REFINED_PRUNE`), and the consensus tree decodes the refined
-    posteriors projected onto ordinary labels. :func:`train_refined` starts from
+    posteriors projected onto ordinary labels. A grammar saved without the hierarchy is
+    pruned through its base symbols alone. :func:`train_refined` starts from
     :data:`COARSE_BASE`, not from the annotated default: split from the annotated grammar the
     sub-symbols overfit (see the figures there).
 
@@ -524,10 +527,23 @@ class LatentGrammar:
     """
 
     def __init__(
-        self, base: Grammar, ks: np.ndarray, bw: np.ndarray, uw: np.ndarray, lex: np.ndarray
+        self,
+        base: Grammar,
+        ks: np.ndarray,
+        bw: np.ndarray,
+        uw: np.ndarray,
+        lex: np.ndarray,
+        ancestry: Sequence[np.ndarray] = (),
+        level_ks: Sequence[np.ndarray] = (),
     ) -> None:
         self.base = base
         self.ks = np.asarray(ks, dtype=np.int64)
+        #: The cycle hierarchy: ``ancestry[L][x]`` is the global id of sub-symbol x's ancestor
+        #: in the grammar of level L (level 0: the base symbols; level L: after L split-merge
+        #: cycles), and ``level_ks[L]`` that level's sub-symbols per symbol; one entry per
+        #: level coarser than this grammar.
+        self.ancestry = [np.asarray(a, dtype=np.int64) for a in ancestry]
+        self.level_ks = [np.asarray(k, dtype=np.int64) for k in level_ks]
         self.soff = _offsets(self.ks)
         self.boff = _offsets(
             self.ks[base.bin_parent] * self.ks[base.bin_left] * self.ks[base.bin_right]
@@ -597,7 +613,18 @@ class LatentGrammar:
                 )
             )
         lex = np.repeat(self.lex, fs[g.lex_symbols].repeat(self.ks[g.lex_symbols]), axis=0)
-        return LatentGrammar(g, ks_new, blocks[0], blocks[1], lex)
+        sym_new = np.repeat(np.arange(g.n_symbols), ks_new)
+        local = np.arange(int(ks_new.sum())) - _offsets(ks_new)[sym_new]
+        parent = self.soff[sym_new] + local // fs[sym_new]
+        return LatentGrammar(
+            g,
+            ks_new,
+            blocks[0],
+            blocks[1],
+            lex,
+            [a[parent] for a in self.ancestry] + [parent],
+            [*self.level_ks, self.ks],
+        )
 
     # ----------------------------------------------------------------- merge
     def merge(
@@ -657,7 +684,19 @@ class LatentGrammar:
         lex = np.zeros((int(new_k.sum()), self.lex.shape[1]))
         np.add.at(lex, target, self.lex * wr[:, None])
         lex /= np.bincount(target, wr, minlength=len(lex))[:, None]
-        return LatentGrammar(g, ks_new, blocks[0], blocks[1], lex)
+        # A merged pair shares its ancestors (both halves of one split), so any member does.
+        member = np.zeros(int(soff_new[-1]), dtype=np.int64)
+        old_sym = np.repeat(np.arange(g.n_symbols), self.ks)
+        member[soff_new[old_sym] + submap] = np.arange(self.n_subsymbols)
+        return LatentGrammar(
+            g,
+            ks_new,
+            blocks[0],
+            blocks[1],
+            lex,
+            [a[member] for a in self.ancestry],
+            self.level_ks,
+        )
 
     # ----------------------------------------------------------------- export
     def subsymbol_names(self) -> list[str]:
@@ -702,7 +741,15 @@ class LatentGrammar:
         with np.errstate(divide="ignore"):
             lex_logp = np.log(self.lex)
         meta = dict(g.meta)
-        meta["latent"] = {"subsymbols": self.n_subsymbols, "base_symbols": g.n_symbols}
+        meta["latent"] = {
+            "subsymbols": self.n_subsymbols,
+            "base_symbols": g.n_symbols,
+            # The cycle hierarchy (see __init__), for coarse-to-fine parsing level by level.
+            "levels": [
+                {"ks": [int(x) for x in k], "ancestor": [int(x) for x in a]}
+                for k, a in zip(self.level_ks, self.ancestry, strict=True)
+            ],
+        }
         start = int(self.soff[g.start])
         return Grammar(
             symbols=self.subsymbol_names(),
@@ -876,7 +923,7 @@ def maximize(
         np.add.at(mean, tag_of_row, lex)
         mean /= lg.ks[g.lex_symbols][:, None]
         lex = (1 - lex_alpha) * lex + lex_alpha * mean[tag_of_row]
-    return LatentGrammar(g, lg.ks, bw, uw, lex)
+    return LatentGrammar(g, lg.ks, bw, uw, lex, lg.ancestry, lg.level_ks)
 
 
 def _smooth(w: np.ndarray, group: np.ndarray, k_parent: np.ndarray, alpha: float) -> np.ndarray:
@@ -1104,8 +1151,70 @@ def coarse_grammar(g: Grammar) -> tuple[Grammar, np.ndarray]:
     to_coarse = np.array(
         [names.setdefault(_SUFFIX.sub("", s), len(names)) for s in g.symbols], dtype=np.int64
     )
+    out = _project(g, to_coarse, sorted(names, key=names.__getitem__))
+    g.__dict__["_coarse"] = out
+    return out
+
+
+def n_levels(g: Grammar) -> int:
+    """How many levels of the cycle hierarchy a refined grammar keeps (0 for a grammar saved
+    without it, or one refined by a single cycle beyond its base symbols: level 0)."""
+    return len(g.meta.get("latent", {}).get("levels", []))
+
+
+def without_hierarchy(g: Grammar) -> Grammar:
+    """``g`` as saved before the cycle hierarchy was kept: coarse-to-fine then prunes through
+    the base symbols alone (to compare both, and to read older files)."""
+    latent = {k: v for k, v in g.meta.get("latent", {}).items() if k != "levels"}
+    return Grammar(
+        symbols=g.symbols,
+        start=g.start,
+        bin_parent=g.bin_parent,
+        bin_left=g.bin_left,
+        bin_right=g.bin_right,
+        bin_logp=g.bin_logp,
+        un_parent=g.un_parent,
+        un_child=g.un_child,
+        un_chain=g.un_chain,
+        un_logp=g.un_logp,
+        chains=g.chains,
+        lex_symbols=g.lex_symbols,
+        lex_logp=g.lex_logp,
+        vocab=g.vocab,
+        signatures=g.signatures,
+        meta={**g.meta, "latent": latent},
+    )
+
+
+def level_grammar(g: Grammar, level: int) -> tuple[Grammar, np.ndarray]:
+    """The projection of refined grammar ``g`` onto level ``level`` of its cycle hierarchy
+    (0: the base symbols, as :func:`coarse_grammar`; L: the sub-symbols after L split-merge
+    cycles), weighted as :func:`coarse_grammar` does, so every level is a projection of the
+    same grammar (Petrov and Klein 2007's hierarchical coarse-to-fine, from memory); and the
+    level symbol of each symbol of ``g``. Cached on ``g``."""
+    if level == 0:
+        return coarse_grammar(g)
+    cache = g.__dict__.setdefault("_levels", {})
+    if level not in cache:
+        info = g.meta["latent"]["levels"][level]
+        ks = np.asarray(info["ks"], dtype=np.int64)
+        to_level = np.asarray(info["ancestor"], dtype=np.int64)
+        base_names = coarse_grammar(g)[0].symbols
+        names = [
+            name if k == 1 else f"{name}{SUBSYMBOL}{x}"
+            for name, k in zip(base_names, ks, strict=True)
+            for x in range(int(k))
+        ]
+        cache[level] = _project(g, to_level, names)
+    return cast(tuple[Grammar, np.ndarray], cache[level])
+
+
+def _project(g: Grammar, to_coarse: np.ndarray, names: Sequence[str]) -> tuple[Grammar, np.ndarray]:
+    """``g`` projected onto the symbols ``names`` (symbol i of ``g`` onto ``to_coarse[i]``)."""
     n = len(names)
-    c_top, c_bot = expected_counts(g)
+    if "_expected" not in g.__dict__:
+        g.__dict__["_expected"] = expected_counts(g)
+    c_top, c_bot = g.__dict__["_expected"]
     tot_top = np.bincount(to_coarse, c_top, minlength=n)
     tot_bot = np.bincount(to_coarse, c_bot, minlength=n)
 
@@ -1135,7 +1244,7 @@ def coarse_grammar(g: Grammar) -> tuple[Grammar, np.ndarray]:
         lex_logp = np.log(lex) - np.log(np.maximum(tot_bot[lex_ids], 1e-300))[:, None]
     meta = {k: v for k, v in g.meta.items() if k != "latent"}
     coarse = Grammar(
-        symbols=sorted(names, key=names.__getitem__),
+        symbols=list(names),
         start=int(to_coarse[g.start]),
         bin_parent=bins[:, 0],
         bin_left=bins[:, 1],
@@ -1152,7 +1261,6 @@ def coarse_grammar(g: Grammar) -> tuple[Grammar, np.ndarray]:
         signatures=g.signatures,
         meta=meta,
     )
-    g.__dict__["_coarse"] = (coarse, to_coarse)
     return coarse, to_coarse
 
 

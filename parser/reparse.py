@@ -35,7 +35,8 @@ implausible proposal is never applied by itself: the caller shows it and keeps t
 tree unless the annotator takes it.
 
 Complexity: two chart parses (the constrained one with posteriors and k-best, and an
-unconstrained Viterbi pass for the comparison), O(n^3 R) each, plus the O(n^3) consensus.
+unconstrained Viterbi pass for the comparison, kept per sentence by :func:`free_best_logprob`
+so that later re-parses of the sentence skip it), O(n^3 R) each, plus the O(n^3) consensus.
 Limits: one sentence per call.
 """
 
@@ -198,10 +199,10 @@ def reparse(
             fallback=True,
             seconds=time.perf_counter() - t0,
         )
-    free = parse(g, word_list, k=1)
+    free_best = free_best_logprob(g, word_list)
     log10_ratio = None
-    if not free.fallback and math.isfinite(free.logprobs[0]):
-        log10_ratio = (result.logprobs[0] - free.logprobs[0]) / math.log(10)
+    if math.isfinite(free_best):
+        log10_ratio = (result.logprobs[0] - free_best) / math.log(10)
     best = result.trees[0]
     have = set(constituents(best))
     stand_ins = [
@@ -284,6 +285,27 @@ def reparse(
         tag_posteriors=result.tag_posteriors,
         seconds=time.perf_counter() - t0,
     )
+
+
+#: Sentences whose unconstrained best :func:`free_best_logprob` keeps per grammar.
+FREE_BEST_CACHE = 256
+
+
+def free_best_logprob(g: Grammar, word_list: Sequence[str]) -> float:
+    """log P of the best derivation of ``word_list`` with nothing said (-inf without one).
+    It does not change while the annotator edits, so each grammar object keeps it for the
+    last :data:`FREE_BEST_CACHE` sentences: only a sentence's first re-parse pays for it."""
+    cache: dict[tuple[str, ...], float] = g.__dict__.setdefault("_free_best", {})
+    key = tuple(word_list)
+    found = cache.get(key)
+    if found is not None:
+        return found
+    free = parse(g, list(key), k=1)
+    value = -math.inf if free.fallback else float(free.logprobs[0])
+    if len(cache) >= FREE_BEST_CACHE:
+        cache.clear()
+    cache[key] = value
+    return value
 
 
 @dataclass

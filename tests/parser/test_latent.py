@@ -326,10 +326,19 @@ def test_pruning_keeps_the_fine_posteriors(refined: latent.LatentGrammar) -> Non
             assert pruned[key] == pytest.approx(p, abs=1e-6), key
 
 
-def test_pruning_never_removes_a_pinned_span(refined: latent.LatentGrammar) -> None:
+@pytest.fixture(scope="module")
+def refined2(trees: list[Tree], base: Grammar) -> latent.LatentGrammar:
+    return latent.refine(base, trees, latent.RefineOptions(cycles=2, em_iterations=8))
+
+
+@pytest.mark.parametrize("cycles", [1, 2])
+def test_pruning_never_removes_a_pinned_span(
+    refined: latent.LatentGrammar, refined2: latent.LatentGrammar, cycles: int
+) -> None:
     from parser.chart import Constraints, pruning_mask, span_ids
 
-    g = refined.to_grammar()
+    g = (refined if cycles == 1 else refined2).to_grammar()
+    assert latent.n_levels(g) == cycles  # two cycles: pruned through two levels
     words = SENTENCES[1]
     free = parse(g, words, posteriors=True, posterior_threshold=0.0, prune=None)
     post = _posterior_map(free)
@@ -352,3 +361,86 @@ def test_pruning_never_removes_a_pinned_span(refined: latent.LatentGrammar) -> N
         assert tree is not None
         assert (lab, i, k) in set(_spans(tree))
     assert (lab, i, k) in set(_spans(exact.trees[0]))
+
+
+# ------------------------------------------------------------- the cycle hierarchy
+def test_hierarchy_follows_the_cycles(
+    refined: latent.LatentGrammar, refined2: latent.LatentGrammar
+) -> None:
+    # Same seed and options: the first cycle of a two-cycle run is the one-cycle run, so the
+    # hierarchy's level 1 must be that grammar's sub-symbols.
+    assert [len(k) for k in refined2.level_ks] == [refined.base.n_symbols] * 2
+    assert np.array_equal(refined2.level_ks[0], np.ones(refined.base.n_symbols))
+    assert np.array_equal(refined2.level_ks[1], refined.ks)
+    g = refined2.to_grammar()
+    up = np.full(refined.n_subsymbols, -1)
+    for level in (0, 1):
+        coarse, to_level = latent.level_grammar(g, level)
+        assert coarse.n_symbols == int(refined2.level_ks[level].sum())
+        for name, a in zip(g.symbols, to_level, strict=True):
+            assert coarse.symbols[a].split(latent.SUBSYMBOL)[0] == name.split(latent.SUBSYMBOL)[0]
+    # Every level-1 sub-symbol has one level-0 ancestor, and each split made two children.
+    to0, to1 = refined2.ancestry
+    for a0, a1 in zip(to0, to1, strict=True):
+        assert up[a1] in (-1, a0)
+        up[a1] = a0
+    assert np.all(np.bincount(to1, minlength=refined.n_subsymbols) >= 1)
+
+
+def test_projection_of_a_split_grammar_onto_its_parent_level(
+    refined: latent.LatentGrammar,
+) -> None:
+    # A freshly split grammar gives every tree the probability of the grammar it was split
+    # from, so its projection onto the level before the split is that grammar again (the
+    # hierarchical form of test_projection_of_a_split_grammar_is_the_base_grammar).
+    split = refined.split(np.random.default_rng(4), noise=0.05).to_grammar()
+    assert latent.n_levels(split) == 2
+    parent, _ = latent.level_grammar(split, 1)
+    before = refined.to_grammar()
+    assert parent.symbols == before.symbols
+    for words in SENTENCES:
+        a = parse(parent, words, k=3, posteriors=True, prune=None)
+        b = parse(before, words, k=3, posteriors=True, prune=None)
+        assert a.inside_logprob == pytest.approx(b.inside_logprob, abs=1e-9)
+        assert a.logprobs == pytest.approx(b.logprobs, abs=1e-9)
+
+
+def test_hierarchical_pruning_off_equals_the_unpruned_parse(
+    refined2: latent.LatentGrammar, tmp_path: Path
+) -> None:
+    # Each level's grammar gives positive probability to every coarse rule under which a finer
+    # rule is positive, so at threshold 0 no cell of positive posterior is pruned at any level:
+    # the same trees, posteriors and inside probability as the complete refined chart.
+    from parser.chart import Constraints, pruning_mask, span_ids
+
+    g = refined2.to_grammar()
+    g.save(tmp_path / "refined.npz")
+    loaded = Grammar.load(tmp_path / "refined.npz")
+    assert loaded.meta["latent"]["levels"] == g.meta["latent"]["levels"]
+    assert latent.n_levels(loaded) == 2
+    for words in SENTENCES:
+        for pins in (None, Constraints(required=[(0, 2, None)], tags=["DT"] + [None] * 6)):
+            if pins is not None and len(words) != 7:
+                continue
+            full = parse(g, words, k=4, posteriors=True, constraints=pins, prune=None)
+            off = parse(loaded, words, k=4, posteriors=True, constraints=pins, prune=0.0)
+            assert [str(t) for t in off.trees] == [str(t) for t in full.trees]
+            assert off.logprobs == pytest.approx(full.logprobs, abs=1e-9)
+            assert str(off.consensus) == str(full.consensus)
+            assert off.inside_logprob == pytest.approx(full.inside_logprob, abs=1e-9)
+            a, b = _posterior_map(full), _posterior_map(off)
+            assert a.keys() == b.keys()
+            for key, p in a.items():
+                assert b[key] == pytest.approx(p, abs=1e-9), key
+    # The finer level prunes cells the base symbols keep (the point of the hierarchy), and a
+    # grammar saved without it still parses, through the base symbols alone.
+    words = SENTENCES[1]
+    multi = pruning_mask(g, words, None, 1e-2)
+    single = pruning_mask(latent.without_hierarchy(g), words, None, 1e-2)
+    assert multi is not None and single is not None
+    assert multi.sum() < single.sum()
+    assert not (multi & ~single).any()
+    old = latent.without_hierarchy(g)
+    assert latent.n_levels(old) == 0
+    assert not parse(old, words, posteriors=True).fallback
+    assert span_ids(len(words)).max() + 1 == multi.shape[0]
