@@ -25,14 +25,17 @@ read one row per corpus of the user instead of counting the queue. Cost: one or 
 row updates per such write (a change of a sentence's dropped state updates the rows of the
 users it is assigned to).
 
-The ``figure_marks`` table (:class:`app.models.FigureMark`) holds one row per corpus (made by
-a trigger on ``corpora``) with change marks for the Agreement page's kept sums: the number of
-agreement records (insert +1, delete -1), a count of every other change to what they sum (a
-record removed, a sentence moved to or from dropped, a sentence removed), and a count of
-changes to handed-in annotations (an annotation inserted, changed or removed while handed in
-before or after, and the same sentence changes). A view compares one row with the marks its
-sums were made at. Cost: one indexed row update per such write; on PostgreSQL hand-ins in
-one corpus queue at its row until each commits (short transactions).
+The ``figure_mark_shards`` table (:class:`app.models.FigureMark`) holds change marks for the
+Agreement page's kept sums, per corpus in rows the marks are the sums of (a row made by a
+trigger on ``corpora``; on PostgreSQL each writing server process adds to one of 64 rows by
+its process id, so hand-ins of one corpus in different connections do not wait for each
+other at one row; on SQLite, which serializes writes, one row): the number of agreement
+records (insert +1, delete -1), a count of every other change to what they sum (a record
+removed, a sentence moved to or from dropped, a sentence removed), and a count of changes to
+handed-in annotations (an annotation inserted, changed or removed while handed in before or
+after, and the same sentence changes). A view compares the sums of a corpus's rows with the
+marks its sums were made at. Cost: one indexed upsert per such write; a view reads at most
+64 rows.
 
 The ``queue_blocks`` table (:class:`app.models.QueueBlock`) counts each user's assignments per
 corpus and block of ranks (``rank >> QUEUE_BLOCK_BITS``), kept by triggers on ``assignments``
@@ -69,14 +72,14 @@ TRIGGER_NAMES = (
     "tw_queue_counts_ann_update",
     "tw_queue_counts_sentence_state",
     "tw_queue_counts_sentence_delete",
-    "tw_marks_corpus_insert",
-    "tw_marks_record_insert",
-    "tw_marks_record_delete",
-    "tw_marks_sentence_state",
-    "tw_marks_sentence_delete",
-    "tw_marks_ann_insert",
-    "tw_marks_ann_update",
-    "tw_marks_ann_delete",
+    "tw_mshard_corpus_insert",
+    "tw_mshard_record_insert",
+    "tw_mshard_record_delete",
+    "tw_mshard_sentence_state",
+    "tw_mshard_sentence_delete",
+    "tw_mshard_ann_insert",
+    "tw_mshard_ann_update",
+    "tw_mshard_ann_delete",
     "tw_queue_blocks_insert",
     "tw_queue_blocks_delete",
     "tw_queue_blocks_update",
@@ -137,23 +140,37 @@ _Q_DROP = (
 )
 _TO_DROPPED = "CASE WHEN NEW.state = 'dropped' THEN 1 ELSE -1 END"
 
-# figure_marks: {r} is NEW or OLD
+# figure_mark_shards: {r} is NEW or OLD; {shard} the writer's shard (_SHARD)
+_M_COLUMNS = "(corpus_id, shard, agreement_records, agreement_changes, handed_in_changes)"
+_M_ADD = (
+    " ON CONFLICT (corpus_id, shard) DO UPDATE SET "
+    "agreement_records = figure_mark_shards.agreement_records + excluded.agreement_records, "
+    "agreement_changes = figure_mark_shards.agreement_changes + excluded.agreement_changes, "
+    "handed_in_changes = figure_mark_shards.handed_in_changes + excluded.handed_in_changes"
+)
 _M_CORPUS = (
-    "INSERT INTO figure_marks (corpus_id, agreement_records, agreement_changes, "
-    "handed_in_changes) VALUES (NEW.id, 0, 0, 0) ON CONFLICT (corpus_id) DO NOTHING"
+    f"INSERT INTO figure_mark_shards {_M_COLUMNS} VALUES (NEW.id, 0, 0, 0, 0) "
+    "ON CONFLICT (corpus_id, shard) DO NOTHING"
 )
 _M_RECORD = (
-    "UPDATE figure_marks SET agreement_records = agreement_records {sign} 1, "
-    "agreement_changes = agreement_changes + {changed} WHERE corpus_id = {r}.corpus_id"
+    f"INSERT INTO figure_mark_shards {_M_COLUMNS} "
+    "VALUES ({r}.corpus_id, {shard}, {sign}1, {changed}, 0)" + _M_ADD
 )
 _M_SENTENCE = (
-    "UPDATE figure_marks SET agreement_changes = agreement_changes + 1, "
-    "handed_in_changes = handed_in_changes + 1 WHERE corpus_id = {r}.corpus_id"
+    f"INSERT INTO figure_mark_shards {_M_COLUMNS} "
+    "VALUES ({r}.corpus_id, {shard}, 0, 1, 1)" + _M_ADD
 )
+# (no row when the sentence is gone: its removal counted the change)
 _M_ANN = (
-    "UPDATE figure_marks SET handed_in_changes = handed_in_changes + 1 "
-    "WHERE corpus_id = (SELECT corpus_id FROM sentences WHERE id = {r}.sentence_id)"
+    f"INSERT INTO figure_mark_shards {_M_COLUMNS} "
+    "SELECT s.corpus_id, {shard}, 0, 0, 1 FROM sentences s WHERE s.id = {r}.sentence_id" + _M_ADD
 )
+#: The shard a writer's changes go to: on PostgreSQL one of 64 by server process, so that
+#: hand-ins of one corpus in different connections mostly update different rows; SQLite
+#: serializes every write anyway (one row).
+_SHARDS = 64
+_SHARD = {"sqlite": "0", "postgresql": f"(pg_backend_pid() % {_SHARDS})"}
+_S0 = _SHARD["sqlite"]
 # queue_blocks: {r} is NEW or OLD
 _B_ADD = (
     "INSERT INTO queue_blocks (user_id, corpus_id, block, n) "
@@ -227,22 +244,23 @@ _SQLITE = [
     # before the row goes: its assignments' cascade then finds no dropped sentence to count
     "CREATE TRIGGER IF NOT EXISTS tw_queue_counts_sentence_delete BEFORE DELETE ON sentences "
     f"WHEN OLD.state = 'dropped' BEGIN {_Q_DROP.format(r='OLD', delta='-1')}; END",
-    f"CREATE TRIGGER IF NOT EXISTS tw_marks_corpus_insert AFTER INSERT ON corpora "
+    f"CREATE TRIGGER IF NOT EXISTS tw_mshard_corpus_insert AFTER INSERT ON corpora "
     f"BEGIN {_M_CORPUS}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_record_insert AFTER INSERT ON agreement_records "
-    f"BEGIN {_M_RECORD.format(r='NEW', sign='+', changed=0)}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_record_delete AFTER DELETE ON agreement_records "
-    f"BEGIN {_M_RECORD.format(r='OLD', sign='-', changed=1)}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_sentence_state AFTER UPDATE OF state ON sentences "
-    f"WHEN {_WAS_DROPPED} BEGIN {_M_SENTENCE.format(r='NEW')}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_sentence_delete AFTER DELETE ON sentences "
-    f"BEGIN {_M_SENTENCE.format(r='OLD')}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_insert AFTER INSERT ON annotations "
-    f"WHEN NEW.state = 'submitted' BEGIN {_M_ANN.format(r='NEW')}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_update AFTER UPDATE ON annotations "
-    f"WHEN {_HANDED_IN} BEGIN {_M_ANN.format(r='OLD')}; {_M_ANN.format(r='NEW')}; END",
-    "CREATE TRIGGER IF NOT EXISTS tw_marks_ann_delete AFTER DELETE ON annotations "
-    f"WHEN OLD.state = 'submitted' BEGIN {_M_ANN.format(r='OLD')}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_record_insert AFTER INSERT ON agreement_records "
+    f"BEGIN {_M_RECORD.format(r='NEW', sign='', changed=0, shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_record_delete AFTER DELETE ON agreement_records "
+    f"BEGIN {_M_RECORD.format(r='OLD', sign='-', changed=1, shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_sentence_state AFTER UPDATE OF state ON sentences "
+    f"WHEN {_WAS_DROPPED} BEGIN {_M_SENTENCE.format(r='NEW', shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_sentence_delete AFTER DELETE ON sentences "
+    f"BEGIN {_M_SENTENCE.format(r='OLD', shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_ann_insert AFTER INSERT ON annotations "
+    f"WHEN NEW.state = 'submitted' BEGIN {_M_ANN.format(r='NEW', shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_ann_update AFTER UPDATE ON annotations "
+    f"WHEN {_HANDED_IN} BEGIN {_M_ANN.format(r='OLD', shard=_S0)}; "
+    f"{_M_ANN.format(r='NEW', shard=_S0)}; END",
+    "CREATE TRIGGER IF NOT EXISTS tw_mshard_ann_delete AFTER DELETE ON annotations "
+    f"WHEN OLD.state = 'submitted' BEGIN {_M_ANN.format(r='OLD', shard=_S0)}; END",
     "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_insert AFTER INSERT ON assignments "
     f"BEGIN {_B_ADD.format(r='NEW')}; END",
     "CREATE TRIGGER IF NOT EXISTS tw_queue_blocks_delete AFTER DELETE ON assignments "
@@ -326,43 +344,45 @@ END $$ LANGUAGE plpgsql""",
     "FOR EACH ROW EXECUTE FUNCTION tw_queue_counts_sentence()",
 ]
 _POSTGRES += [
-    f"""CREATE OR REPLACE FUNCTION tw_marks_corpus() RETURNS trigger AS $$
+    f"""CREATE OR REPLACE FUNCTION tw_mshard_corpus() RETURNS trigger AS $$
 BEGIN
   {_M_CORPUS};
   RETURN NULL;
 END $$ LANGUAGE plpgsql""",
     _row_function(
-        "tw_marks_record",
-        _M_RECORD.format(r="OLD", sign="-", changed=1),
-        _M_RECORD.format(r="NEW", sign="+", changed=0),
+        "tw_mshard_record",
+        _M_RECORD.format(r="OLD", sign="-", changed=1, shard=_SHARD["postgresql"]),
+        _M_RECORD.format(r="NEW", sign="", changed=0, shard=_SHARD["postgresql"]),
     ),
-    _row_function("tw_marks_sentence", _M_SENTENCE.format(r="OLD"), "PERFORM 1"),
-    f"""CREATE OR REPLACE FUNCTION tw_marks_ann() RETURNS trigger AS $$
+    _row_function(
+        "tw_mshard_sentence", _M_SENTENCE.format(r="OLD", shard=_SHARD["postgresql"]), "PERFORM 1"
+    ),
+    f"""CREATE OR REPLACE FUNCTION tw_mshard_ann() RETURNS trigger AS $$
 BEGIN
   IF (TG_OP = 'DELETE' OR TG_OP = 'UPDATE') AND OLD.state = 'submitted' THEN
-    {_M_ANN.format(r="OLD")};
+    {_M_ANN.format(r="OLD", shard=_SHARD["postgresql"])};
   END IF;
   IF (TG_OP = 'INSERT' OR TG_OP = 'UPDATE') AND NEW.state = 'submitted' THEN
-    {_M_ANN.format(r="NEW")};
+    {_M_ANN.format(r="NEW", shard=_SHARD["postgresql"])};
   END IF;
   RETURN NULL;
 END $$ LANGUAGE plpgsql""",
-    "DROP TRIGGER IF EXISTS tw_marks_corpus_insert ON corpora",
-    "CREATE TRIGGER tw_marks_corpus_insert AFTER INSERT ON corpora "
-    "FOR EACH ROW EXECUTE FUNCTION tw_marks_corpus()",
-    "DROP TRIGGER IF EXISTS tw_marks_record ON agreement_records",
-    "CREATE TRIGGER tw_marks_record AFTER INSERT OR DELETE ON agreement_records "
-    "FOR EACH ROW EXECUTE FUNCTION tw_marks_record()",
-    "DROP TRIGGER IF EXISTS tw_marks_sentence_state ON sentences",
-    "CREATE TRIGGER tw_marks_sentence_state AFTER UPDATE OF state ON sentences "
+    "DROP TRIGGER IF EXISTS tw_mshard_corpus_insert ON corpora",
+    "CREATE TRIGGER tw_mshard_corpus_insert AFTER INSERT ON corpora "
+    "FOR EACH ROW EXECUTE FUNCTION tw_mshard_corpus()",
+    "DROP TRIGGER IF EXISTS tw_mshard_record ON agreement_records",
+    "CREATE TRIGGER tw_mshard_record AFTER INSERT OR DELETE ON agreement_records "
+    "FOR EACH ROW EXECUTE FUNCTION tw_mshard_record()",
+    "DROP TRIGGER IF EXISTS tw_mshard_sentence_state ON sentences",
+    "CREATE TRIGGER tw_mshard_sentence_state AFTER UPDATE OF state ON sentences "
     "FOR EACH ROW WHEN ((OLD.state = 'dropped') IS DISTINCT FROM (NEW.state = 'dropped')) "
-    "EXECUTE FUNCTION tw_marks_sentence()",
-    "DROP TRIGGER IF EXISTS tw_marks_sentence_delete ON sentences",
-    "CREATE TRIGGER tw_marks_sentence_delete AFTER DELETE ON sentences "
-    "FOR EACH ROW EXECUTE FUNCTION tw_marks_sentence()",
-    "DROP TRIGGER IF EXISTS tw_marks_ann ON annotations",
-    "CREATE TRIGGER tw_marks_ann AFTER INSERT OR DELETE OR UPDATE ON annotations "
-    "FOR EACH ROW EXECUTE FUNCTION tw_marks_ann()",
+    "EXECUTE FUNCTION tw_mshard_sentence()",
+    "DROP TRIGGER IF EXISTS tw_mshard_sentence_delete ON sentences",
+    "CREATE TRIGGER tw_mshard_sentence_delete AFTER DELETE ON sentences "
+    "FOR EACH ROW EXECUTE FUNCTION tw_mshard_sentence()",
+    "DROP TRIGGER IF EXISTS tw_mshard_ann ON annotations",
+    "CREATE TRIGGER tw_mshard_ann AFTER INSERT OR DELETE OR UPDATE ON annotations "
+    "FOR EACH ROW EXECUTE FUNCTION tw_mshard_ann()",
     _row_function("tw_queue_blocks", _B_REMOVE.format(r="OLD"), _B_ADD.format(r="NEW")),
     "DROP TRIGGER IF EXISTS tw_queue_blocks ON assignments",
     "CREATE TRIGGER tw_queue_blocks AFTER INSERT OR DELETE OR UPDATE OF user_id, corpus_id, "
@@ -393,11 +413,11 @@ _POSTGRES_NAMES = (
     "tw_queue_counts_ann",
     "tw_queue_counts_sentence_state",
     "tw_queue_counts_sentence_delete",
-    "tw_marks_corpus_insert",
-    "tw_marks_record",
-    "tw_marks_sentence_state",
-    "tw_marks_sentence_delete",
-    "tw_marks_ann",
+    "tw_mshard_corpus_insert",
+    "tw_mshard_record",
+    "tw_mshard_sentence_state",
+    "tw_mshard_sentence_delete",
+    "tw_mshard_ann",
     "tw_queue_blocks",
     "tw_hidden_record",
     "tw_hidden_assign",
@@ -446,21 +466,23 @@ def recount(conn: Connection) -> None:
             "AND n.user_id = w.user_id AND n.state = 'submitted')"
         )
     )
-    # the change marks move on (never back): sums a process kept are then summed again
+    # the change marks move on (never back): sums a process kept are then summed again, and
+    # the sums kept in the database (made while a trigger may have been missing) go
     conn.execute(
         text(
-            "INSERT INTO figure_marks (corpus_id, agreement_records, agreement_changes, "
-            "handed_in_changes) SELECT id, 0, 0, 0 FROM corpora "
-            "WHERE id NOT IN (SELECT corpus_id FROM figure_marks)"
+            f"INSERT INTO figure_mark_shards {_M_COLUMNS} SELECT id, 0, 0, 0, 0 FROM corpora "
+            "WHERE true ON CONFLICT (corpus_id, shard) DO NOTHING"
         )
     )
     conn.execute(
         text(
-            "UPDATE figure_marks SET agreement_records = (SELECT COUNT(*) FROM "
-            "agreement_records r WHERE r.corpus_id = figure_marks.corpus_id), "
+            "UPDATE figure_mark_shards SET agreement_records = CASE WHEN shard = 0 THEN "
+            "(SELECT COUNT(*) FROM agreement_records r "
+            "WHERE r.corpus_id = figure_mark_shards.corpus_id) ELSE 0 END, "
             "agreement_changes = agreement_changes + 1, handed_in_changes = handed_in_changes + 1"
         )
     )
+    conn.execute(text("DELETE FROM kept_sums"))
 
 
 def installed(conn: Connection) -> bool:
@@ -507,11 +529,11 @@ _QUEUE_TRIGGERS_PG = {
 
 
 _MARK_TRIGGERS_PG = {
-    "tw_marks_corpus_insert": "corpora",
-    "tw_marks_record": "agreement_records",
-    "tw_marks_sentence_state": "sentences",
-    "tw_marks_sentence_delete": "sentences",
-    "tw_marks_ann": "annotations",
+    "tw_mshard_corpus_insert": "corpora",
+    "tw_mshard_record": "agreement_records",
+    "tw_mshard_sentence_state": "sentences",
+    "tw_mshard_sentence_delete": "sentences",
+    "tw_mshard_ann": "annotations",
 }
 
 
@@ -532,13 +554,28 @@ def _drop(
 
 
 def drop_mark_triggers(conn: Connection) -> None:
-    """Remove the figure_marks triggers (migration 0014's downgrade)."""
+    """Remove the figure_mark_shards triggers (migration 0018's downgrade)."""
     _drop(
         conn,
-        "tw_marks",
+        "tw_mshard",
         _MARK_TRIGGERS_PG,
-        ("tw_marks_corpus", "tw_marks_record", "tw_marks_sentence", "tw_marks_ann"),
+        ("tw_mshard_corpus", "tw_mshard_record", "tw_mshard_sentence", "tw_mshard_ann"),
     )
+
+
+def drop_single_mark_triggers(conn: Connection) -> None:
+    """Remove the triggers of the one-row-per-corpus figure_marks (migration 0018's upgrade,
+    0014's downgrade)."""
+    if conn.dialect.name == "sqlite":
+        for event in ("corpus_insert", "record_insert", "record_delete", "sentence_state"):
+            conn.execute(text(f"DROP TRIGGER IF EXISTS tw_marks_{event}"))
+        for event in ("sentence_delete", "ann_insert", "ann_update", "ann_delete"):
+            conn.execute(text(f"DROP TRIGGER IF EXISTS tw_marks_{event}"))
+        return
+    for name, table in _MARK_TRIGGERS_PG.items():
+        conn.execute(text(f"DROP TRIGGER IF EXISTS {name.replace('mshard', 'marks')} ON {table}"))
+    for function in ("corpus", "record", "sentence", "ann"):
+        conn.execute(text(f"DROP FUNCTION IF EXISTS tw_marks_{function}()"))
 
 
 def drop_hidden_triggers(conn: Connection) -> None:

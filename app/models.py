@@ -389,17 +389,19 @@ class QueueBlock(Base):
 
 
 class FigureMark(Base):
-    """Change marks of a corpus's figures, kept by database triggers (:mod:`app.counts`): how
-    many agreement records the corpus has, how many times a record was removed or a sentence
-    moved to or from ``dropped``, and how many times a handed-in annotation changed (handed in,
-    saved, sent back, removed, or its sentence dropped, brought back or removed). The
-    Agreement page keeps its sums per process and reads this one row to know whether they
-    are still current (:mod:`app.services.agreement`, :mod:`app.services.effort`)."""
+    """Change marks of a corpus's figures, kept by database triggers (:mod:`app.counts`) in
+    rows whose sums are the marks (one row per writing server process's shard, so concurrent
+    hand-ins of one corpus do not queue at one row): how many agreement records the corpus
+    has, how many times a record was removed or a sentence moved to or from ``dropped``, and
+    how many times a handed-in annotation changed (handed in, saved, sent back, removed, or
+    its sentence dropped, brought back or removed). The Agreement page keeps its sums and
+    reads these rows to know whether they are still current (:mod:`app.services.agreement`,
+    :mod:`app.services.effort`). No foreign key: a removed corpus's records take its counts
+    back to zero, and kept sums go with the corpus."""
 
-    __tablename__ = "figure_marks"
-    corpus_id: Mapped[int] = mapped_column(
-        ForeignKey("corpora.id", ondelete="CASCADE"), primary_key=True
-    )
+    __tablename__ = "figure_mark_shards"
+    corpus_id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    shard: Mapped[int] = mapped_column(Integer, primary_key=True)
     agreement_records: Mapped[int] = mapped_column(Integer, default=0)
     agreement_changes: Mapped[int] = mapped_column(Integer, default=0)
     handed_in_changes: Mapped[int] = mapped_column(Integer, default=0)

@@ -51,7 +51,7 @@ from datetime import datetime, timedelta
 from itertools import combinations
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -519,13 +519,14 @@ def hidden_from(db: Session, corpus_id: int, viewer: User | None) -> set[int]:
 
 
 def _marks(db: Session, corpus_id: int) -> tuple[int, int] | None:
-    """(agreement records, other changes) of the corpus's figure marks; None without a row."""
+    """(agreement records, other changes) of the corpus's figure marks (the sums of its
+    rows); None without a row."""
     row = db.execute(
-        select(FigureMark.agreement_records, FigureMark.agreement_changes).where(
-            FigureMark.corpus_id == corpus_id
-        )
-    ).one_or_none()
-    return None if row is None else (int(row[0]), int(row[1]))
+        select(
+            func.sum(FigureMark.agreement_records), func.sum(FigureMark.agreement_changes)
+        ).where(FigureMark.corpus_id == corpus_id)
+    ).one()
+    return None if row[0] is None else (int(row[0]), int(row[1]))
 
 
 #: The columns of a record the sums read (rows with these attributes, not whole records:

@@ -30,7 +30,7 @@ from collections import defaultdict
 from dataclasses import dataclass, field, replace
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.models import (
@@ -185,7 +185,10 @@ _sums: dict[tuple[str, int, object], tuple[int, dict[int, Effort], Effort]] = {}
 
 
 def _handed_in_mark(db: Session, corpus_id: int) -> int | None:
-    return db.scalar(select(FigureMark.handed_in_changes).where(FigureMark.corpus_id == corpus_id))
+    mark = db.scalar(
+        select(func.sum(FigureMark.handed_in_changes)).where(FigureMark.corpus_id == corpus_id)
+    )
+    return None if mark is None else int(mark)
 
 
 def _summed(

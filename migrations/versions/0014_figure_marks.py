@@ -31,7 +31,7 @@ def upgrade() -> None:
 
 
 def downgrade() -> None:
-    from app.counts import drop_mark_triggers
+    from app.counts import drop_single_mark_triggers
 
-    drop_mark_triggers(op.get_bind())
+    drop_single_mark_triggers(op.get_bind())
     op.drop_table("figure_marks")

@@ -4,9 +4,10 @@ queue's neighbours equal a brute-force walk, the Agreement sums equal a fresh su
 from __future__ import annotations
 
 import random
+from typing import Any
 
 import pytest
-from sqlalchemy import delete, func, select, update
+from sqlalchemy import create_engine, delete, func, insert, select, text, update
 from sqlalchemy.orm import Session
 
 from app.counts import ensure_triggers, installed
@@ -28,6 +29,7 @@ from app.services import annotation as svc
 from app.services.corpora import delete_corpus, sentence_page
 from app.services.imports import import_bytes
 from tests.app.bench_helpers import assign, make_corpus
+from tests.app.conftest import on_postgres
 
 TREE = "(ROOT (S (NP (NNS Gulls)) (VP (VBD circled)) (. .)))"
 
@@ -423,3 +425,62 @@ def test_stored_sums_are_never_replaced_by_older_ones(db, people, rng) -> None:
         db, corpus.id, "agreement", after.changes, after.seen, after.last_id, after.to_json()
     )
     assert agreement._kept(db, corpus.id, new.changes) is None  # the older mark is gone
+
+
+@pytest.mark.skipif(not on_postgres(), reason="two writers at once need PostgreSQL")
+def test_hand_ins_of_one_corpus_in_two_connections_do_not_wait_at_one_row(
+    settings, db, people
+) -> None:
+    """Two transactions of one corpus, each handing in annotations and logging a record,
+    both open at once: the second's change marks do not wait for the first's commit (each
+    server process adds to its own row), and the marks then equal a recount."""
+    corpus, sentences = make_corpus(db, ["Buoy one drifts .", "Buoy two drifts ."])
+    engine = create_engine(settings.resolved_database_url)
+    opened = []
+    try:
+        # two connections whose server processes write to different rows
+        writers: dict[int, Any] = {}
+        while len(writers) < 2:
+            conn = engine.connect()
+            opened.append(conn)
+            writers.setdefault(int(conn.scalar(text("SELECT pg_backend_pid() % 64"))), conn)
+        for conn, sentence in zip(writers.values(), sentences, strict=True):
+            conn.execute(text("SET LOCAL lock_timeout = '2s'"))
+            ids = [
+                conn.scalar(
+                    insert(Annotation)
+                    .values(sentence_id=sentence.id, user_id=u.id, state="submitted", head=1)
+                    .returning(Annotation.id)
+                )
+                for u in (people.ann1, people.ann2)
+            ]
+            conn.execute(
+                insert(AgreementRecord).values(
+                    corpus_id=corpus.id,
+                    sentence_id=sentence.id,
+                    annotation_a_id=ids[0],
+                    annotation_b_id=ids[1],
+                    user_a_id=people.ann1.id,
+                    user_b_id=people.ann2.id,
+                    matched=3,
+                    count_a=4,
+                    count_b=4,
+                    labelled_precision=0.75,
+                    labelled_recall=0.75,
+                    labelled_f1=0.75,
+                    unlabelled_f1=1.0,
+                    pos_agreement=1.0,
+                    identical=False,
+                    detail={},
+                )
+            )
+        for conn in writers.values():  # both were open at once: neither waited
+            conn.commit()
+    finally:
+        for conn in opened:
+            conn.close()
+        engine.dispose()
+    db.expire_all()
+    records, _ = agreement._marks(db, corpus.id)
+    assert records == 2 == len(db.scalars(select(AgreementRecord)).all())
+    assert agreement.corpus_figures(db, corpus.id) == agreement.figures_afresh(db, corpus.id)
