@@ -82,6 +82,7 @@ DEFAULT_NOISE = 0.01
 DEFAULT_WORD_SMOOTHING = 1.0
 DEFAULT_EM_ITERATIONS = 20
 DEFAULT_EM_AFTER_MERGE = 5
+DEFAULT_EM_TOLERANCE = 0.0
 #: Refined rules at most this probable are left out of a grammar exported for parsing
 #: (common practice, no source: the chart's cost grows with the rules, and such rules
 #: change no decision that matters).
@@ -1033,6 +1034,12 @@ class RefineOptions:
     lexical_smoothing: float | None = None
     noise: float = DEFAULT_NOISE
     seed: int = 0
+    #: Stop a run of EM early once an iteration raises the training log-likelihood by at most
+    #: this fraction of its magnitude after an earlier one of the run raised it by at least ten
+    #: times as much (``em_iterations`` and ``em_after_merge`` are then the most); 0: always
+    #: the full count. The gains start tiny after a split (the halves begin nearly alike and
+    #: take some iterations to part), rise, then fall: the condition waits for the fall.
+    em_tolerance: float = DEFAULT_EM_TOLERANCE
 
     def __post_init__(self) -> None:
         if self.cycles < 0 or self.em_iterations < 0 or self.em_after_merge < 0:
@@ -1043,6 +1050,8 @@ class RefineOptions:
             raise GrammarError(f"smoothing must be in [0, 1), got {self.smoothing}")
         if self.lexical_smoothing is not None and not 0 <= self.lexical_smoothing < 1:
             raise GrammarError(f"lexical smoothing must be in [0, 1), got {self.lexical_smoothing}")
+        if not 0 <= self.em_tolerance < 1:
+            raise GrammarError(f"EM tolerance must be in [0, 1), got {self.em_tolerance}")
         if self.word_smoothing is not None and self.word_smoothing <= 0:
             raise GrammarError(f"word smoothing must be positive, got {self.word_smoothing}")
 
@@ -1054,9 +1063,12 @@ def em(
     options: RefineOptions,
     report: Callable[[int, float], None] | None = None,
 ) -> tuple[LatentGrammar, list[float]]:
-    """``iterations`` EM steps; returns the grammar and the training log-likelihood before
-    each step and after the last."""
+    """At most ``iterations`` EM steps (fewer with ``options.em_tolerance``, see
+    :class:`RefineOptions`); returns the grammar and the training log-likelihood before each
+    step and after the last."""
     logliks = []
+    tol = options.em_tolerance
+    peak = 0.0
     for it in range(iterations + 1):
         ex = expectations(lg, tb)
         logliks.append(ex.loglik)
@@ -1064,6 +1076,11 @@ def em(
             report(it, ex.loglik)
         if it == iterations:
             break
+        if tol > 0 and it > 0:
+            gain = (logliks[-1] - logliks[-2]) / abs(logliks[-2])
+            peak = max(peak, gain)
+            if gain <= tol and peak >= 10 * tol:
+                break
         lg = maximize(lg, ex, options.smoothing, options.word_smoothing, options.lexical_smoothing)
     return lg, logliks
 
