@@ -55,15 +55,19 @@ def split_trees() -> tuple[tuple[Tree, ...], tuple[Tree, ...]]:
     return train, test
 
 
-def trained_path(name: str, trees: Callable[[], Sequence[Tree]]) -> Path:
-    """The path of the default grammar trained on ``trees()``, trained by the first process
-    of the run that asks for it."""
+def trained_path(
+    name: str,
+    trees: Callable[[], Sequence[Tree]],
+    train: Callable[[Sequence[Tree]], Grammar] = train_grammar,
+) -> Path:
+    """The path of the grammar ``train`` (default: the default grammar) makes of ``trees()``,
+    trained by the first process of the run that asks for it."""
     path = _CACHE / f"{name}.npz"
     with open(_CACHE / f"{name}.lock", "w") as lock:
         fcntl.flock(lock, fcntl.LOCK_EX)
         if not path.exists():
             partial = _CACHE / f"{name}.{os.getpid()}.partial.npz"
-            train_grammar(trees()).save(partial)
+            train(trees()).save(partial)
             os.replace(partial, path)
     return path
 

@@ -444,3 +444,27 @@ def test_hierarchical_pruning_off_equals_the_unpruned_parse(
     assert latent.n_levels(old) == 0
     assert not parse(old, words, posteriors=True).fallback
     assert span_ids(len(words)).max() + 1 == multi.shape[0]
+
+
+# ------------------------------------------------------------- EM stopping by likelihood
+def test_em_stops_once_the_gain_has_fallen_under_the_tolerance(
+    trees: list[Tree], base: Grammar, bank: latent.Treebank
+) -> None:
+    lg = latent.LatentGrammar.from_grammar(base).split(np.random.default_rng(1), noise=0.05)
+    tol = 1e-3
+    fixed = latent.RefineOptions(em_iterations=40)
+    stopping = latent.RefineOptions(em_iterations=40, em_tolerance=tol)
+    _, full = latent.em(lg, bank, 40, fixed)
+    _, early = latent.em(lg, bank, 40, stopping)
+    assert len(full) == 41  # without a tolerance: the whole count
+    assert 2 < len(early) < len(full)
+    # Until the stop the two runs are the same iterations.
+    np.testing.assert_allclose(early, full[: len(early)], rtol=1e-12)
+    gains = [(b - a) / abs(a) for a, b in zip(early, early[1:], strict=False)]
+    # The last step gained at most the tolerance, after an earlier one gained ten times more;
+    # no earlier step met both.
+    assert gains[-1] <= tol and max(gains[:-1]) >= 10 * tol
+    for x, g in enumerate(gains[:-1]):
+        assert not (g <= tol and max(gains[: x + 1]) >= 10 * tol)
+    with pytest.raises(GrammarError, match="EM tolerance"):
+        latent.RefineOptions(em_tolerance=1.0)
