@@ -863,7 +863,7 @@ class _Chart:
         trees: list[Tree] = []
         scores: list[float] = []
         seen: set[str] = set()
-        shapes: set[tuple[int, ...]] = set()
+        shapes: set[int] = set()
         for rank in range(cap):
             d = kb.get(root, rank)
             if d is None:

@@ -87,6 +87,8 @@ class LazyKBest:
         self.cand: dict[Node, list[_Candidate]] = {}
         self.seen: dict[Node, set[tuple[Edge, tuple[int, ...]]]] = {}
         self.expanded: dict[Node, int] = {}  # derivations whose successors are candidates
+        self.shape_of: dict[tuple[Node, int], int] = {}  # see shape()
+        self.shape_ids: dict[tuple[int, ...], int] = {}
         self.tick = 0
         p = chart.p
         self.start_of = np.empty(p.n * (p.n + 1) // 2, dtype=np.int64)
@@ -257,26 +259,35 @@ class LazyKBest:
                 todo.append((b_tails[0], b_ranks[0], low))
         return holder[0]
 
-    def shape(self, node: Node, rank: int) -> tuple[int, ...]:
-        """What the tree of a TOP node's rank-th derivation is made of, without building it:
-        per node in pre-order, its unary chain and its split point (-1 for a word). Two
-        derivations of the same shape build the same tree (:meth:`build` reads nothing else;
-        a refined grammar's derivations that differ only in sub-symbols do)."""
-        out: list[int] = []
-        todo: list[tuple[Node, int]] = [(node, rank)]
+    def shape(self, node: Node, rank: int) -> int:
+        """What the tree of a TOP node's rank-th derivation is made of, as a number, without
+        building it: two derivations of one node get the same number exactly when every node
+        of theirs has the same unary chain and split point (:meth:`build` reads nothing else,
+        so they build the same tree; a refined grammar's derivations that differ only in
+        sub-symbols do). Each (node, rank) is numbered once, from its chain, split point and
+        its children's numbers, so a derivation costs only the parts no earlier one had."""
+        memo, ids = self.shape_of, self.shape_ids
         uchain = self.c.tab.uchain
-        while todo:
-            top, rk = todo.pop()
+        stack: list[tuple[Node, int]] = [(node, rank)]
+        while stack:
+            top, rk = stack[-1]
+            if (top, rk) in memo:
+                stack.pop()
+                continue
             _, edge, tails, ranks = self._known(top, rk)
             _, b_edge, b_tails, b_ranks = self._known(tails[0], ranks[0])
-            out.append(int(uchain[edge[1]]))
             if b_edge[0] == "l":
-                out.append(-1)
+                key: tuple[int, ...] = (int(uchain[edge[1]]), -1)
             else:
-                out.append(int(b_edge[2]))
-                todo.append((b_tails[1], b_ranks[1]))
-                todo.append((b_tails[0], b_ranks[0]))
-        return tuple(out)
+                left, right = (b_tails[0], b_ranks[0]), (b_tails[1], b_ranks[1])
+                missing = [x for x in (left, right) if x not in memo]
+                if missing:
+                    stack.extend(missing)
+                    continue
+                key = (int(uchain[edge[1]]), int(b_edge[2]), memo[left], memo[right])
+            memo[(top, rk)] = ids.setdefault(key, len(ids))
+            stack.pop()
+        return memo[(node, rank)]
 
 
 def tree_key(tree: Tree | str) -> str:
