@@ -420,6 +420,20 @@ class HiddenSentence(Base):
     sentence_id: Mapped[int] = mapped_column(Integer, primary_key=True)
 
 
+class EffortShare(Base):
+    """One handed-in annotation's share of the effort table (its revisions' seconds and
+    actions, its words, its distance from the start), stored under the fingerprint it was
+    computed for (``head|updated_at|user_id``), so that a new process computes only the
+    shares of annotations changed since (:mod:`app.services.effort`). A cache."""
+
+    __tablename__ = "effort_shares"
+    annotation_id: Mapped[int] = mapped_column(
+        ForeignKey("annotations.id", ondelete="CASCADE"), primary_key=True
+    )
+    fingerprint: Mapped[str] = mapped_column(String(80))
+    share: Mapped[Any] = mapped_column(JSON, nullable=True)
+
+
 class KeptSums(Base):
     """A corpus's figures summed so far, kept in the database so that a new process (or
     another server) starts from them instead of summing every record again

@@ -14,9 +14,11 @@ What it computes
     Agreement page and for :func:`effort_csv` alike.
 
 Complexity: each handed-in annotation's share (its revisions summed, one PARSEVAL comparison,
-O(n) for n words) is kept per process under a fingerprint of the annotation, and so are the
-sums, under the corpus's change mark (``figure_marks.handed_in_changes``, moved by database
-triggers, :mod:`app.counts`). A view with the mark unchanged reads that row and the
+O(n) for n words) is kept per process and in the database (``effort_shares``, so a new
+process computes only the shares changed since) under a fingerprint of the annotation, and so
+are the sums (per process and in ``kept_sums``), under the corpus's change mark
+(``handed_in_changes`` of its figure marks, moved by database triggers, :mod:`app.counts`).
+A view with the mark unchanged reads the marks and the
 annotators' names; otherwise one short row per handed-in annotation, recomputing only the
 shares whose fingerprint changed.
 """
@@ -28,6 +30,7 @@ import io
 import threading
 from collections import defaultdict
 from dataclasses import dataclass, field, replace
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy import func, select
@@ -38,6 +41,7 @@ from app.models import (
     SENT_DROPPED,
     Annotation,
     Corpus,
+    EffortShare,
     FigureMark,
     Revision,
     Sentence,
@@ -191,6 +195,48 @@ def _handed_in_mark(db: Session, corpus_id: int) -> int | None:
     return None if mark is None else int(mark)
 
 
+def _print_text(fp: _Fingerprint) -> str:
+    """A fingerprint as stored in effort_shares."""
+    head, updated_at, user_id = fp
+    stamp = updated_at.isoformat() if isinstance(updated_at, datetime) else str(updated_at)
+    return f"{head}|{stamp}|{user_id}"
+
+
+def _part_json(part: _Part | None) -> Any:
+    if part is None:
+        return None
+    distance = None if part.distance is None else [part.distance[0], part.distance[1]]
+    return [part.n_words, part.seconds, part.actions, distance]
+
+
+def _stored_parts(
+    db: Session, wanted: dict[int, _Fingerprint]
+) -> dict[int, tuple[_Fingerprint, _Part | None]]:
+    """The stored shares of ``wanted`` (annotation id: fingerprint) whose fingerprint is
+    still the annotation's."""
+    out: dict[int, tuple[_Fingerprint, _Part | None]] = {}
+    ids = sorted(wanted)
+    for at in range(0, len(ids), 500):
+        for aid, text, share in db.execute(
+            select(EffortShare.annotation_id, EffortShare.fingerprint, EffortShare.share).where(
+                EffortShare.annotation_id.in_(ids[at : at + 500])
+            )
+        ):
+            if text != _print_text(wanted[aid]):
+                continue
+            part = None
+            if share is not None:
+                n_words, seconds, actions, distance = share
+                part = _Part(
+                    n_words=int(n_words),
+                    seconds=float(seconds),
+                    actions={str(k): int(n) for k, n in actions.items()},
+                    distance=None if distance is None else (float(distance[0]), int(distance[1])),
+                )
+            out[aid] = (wanted[aid], part)
+    return out
+
+
 def _summed(
     db: Session, corpus_id: int, key: tuple[str, int, object] | None
 ) -> tuple[dict[int, Effort], Effort]:
@@ -208,14 +254,21 @@ def _summed(
     ).all()
     prints: dict[int, _Fingerprint] = {aid: (head, upd, uid) for aid, head, upd, uid in rows}
     with _parts_lock:
-        known = {} if key is None else _parts.get(key, {})
+        known = {} if key is None else dict(_parts.get(key, {}))
     stale = [aid for aid, fp in prints.items() if aid not in known or known[aid][0] != fp]
+    if key is not None and stale:  # shares a process stored (this one before, or another)
+        known.update(_stored_parts(db, {aid: prints[aid] for aid in stale}))
+        stale = [aid for aid in stale if aid not in known]
     fresh: dict[int, _Part | None] = {}
     if stale:
         anns = list(db.scalars(select(Annotation).where(Annotation.id.in_(stale))))
         # a row changed between the two reads is left for the next view to pick up
         got = {a.id: a for a in anns}
         fresh = _compute_parts(db, [got[a] for a in stale if a in got])
+        if key is not None:
+            kept_sums.store_shares(
+                db, {aid: (_print_text(prints[aid]), _part_json(p)) for aid, p in fresh.items()}
+            )
     merged = {
         aid: (fp, fresh[aid] if aid in fresh else known[aid][1])
         for aid, fp in prints.items()

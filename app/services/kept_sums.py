@@ -21,6 +21,7 @@ Cost: one primary-key read; one upsert of a row the size of the sums (pairs, lab
 from __future__ import annotations
 
 import logging
+from collections.abc import Sequence
 from typing import Any
 
 from sqlalchemy import Table, or_, select
@@ -29,7 +30,7 @@ from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
-from app.models import KeptSums
+from app.models import EffortShare, KeptSums
 
 log = logging.getLogger(__name__)
 
@@ -67,7 +68,6 @@ def store(
 ) -> bool:
     """Store the sums unless the stored ones are as new; True when this row was written.
     Commits its own short transaction (see the module doc); never raises for a lock."""
-    engine = db.get_bind().engine
     table = KeptSums.__table__
     assert isinstance(table, Table)
     values = {
@@ -78,35 +78,75 @@ def store(
         "last_id": last_id,
         "sums": sums,
     }
-    postgres = engine.dialect.name == "postgresql"
+    postgres = db.get_bind().engine.dialect.name == "postgresql"
     insert = pg_insert(table) if postgres else sqlite_insert(table)
-    statement = insert.values(**values)
-    statement = statement.on_conflict_do_update(
+    new = insert.values(**values)
+    statement = new.on_conflict_do_update(
         index_elements=[table.c.corpus_id, table.c.kind],
-        set_={k: statement.excluded[k] for k in ("changes", "seen", "last_id", "sums")},
+        set_={k: new.excluded[k] for k in ("changes", "seen", "last_id", "sums")},
         where=or_(
-            table.c.changes < statement.excluded.changes,
-            (table.c.changes == statement.excluded.changes)
-            & (table.c.seen < statement.excluded.seen),
+            table.c.changes < new.excluded.changes,
+            (table.c.changes == new.excluded.changes) & (table.c.seen < new.excluded.seen),
         ),
+    ).returning(table.c.corpus_id)  # a row back when this one was written
+    return _apart(db, [(statement, None)], kind, corpus_id) > 0
+
+
+def store_shares(db: Session, shares: dict[int, tuple[str, Any]]) -> bool:
+    """Store effort shares (annotation id: (fingerprint, share)), replacing older ones, in a
+    short transaction of its own like :func:`store`; False when they could not be."""
+    if not shares:
+        return True
+    table = EffortShare.__table__
+    assert isinstance(table, Table)
+    postgres = db.get_bind().engine.dialect.name == "postgresql"
+    insert = pg_insert(table) if postgres else sqlite_insert(table)
+    statement = insert.on_conflict_do_update(
+        index_elements=[table.c.annotation_id],
+        set_={"fingerprint": insert.excluded.fingerprint, "share": insert.excluded.share},
     )
+    rows = [
+        {"annotation_id": aid, "fingerprint": fp, "share": share}
+        for aid, (fp, share) in sorted(shares.items())
+    ]
+    chunks = [(statement, rows[at : at + 500]) for at in range(0, len(rows), 500)]
+    return _apart(db, chunks, "effort shares", None) >= 0
+
+
+def _apart(
+    db: Session,
+    statements: Sequence[tuple[Any, list[dict[str, Any]] | None]],
+    what: str,
+    corpus: Any,
+) -> int:
+    """Run ``statements`` (with their rows, for many at once) in one short transaction on a
+    connection of its own that never waits long for a lock (see the module doc); the rows
+    the last one wrote (one statement: the rows it returned), or -1 when it gave up."""
+    engine = db.get_bind().engine
+    postgres = engine.dialect.name == "postgresql"
+    written = 0
     try:
         with engine.connect() as conn:
+            was = None
             if postgres:
                 conn.exec_driver_sql(f"SET LOCAL lock_timeout = '{WAIT_MS}ms'")
-                written = conn.execute(statement).rowcount
-                conn.commit()
             else:
                 was = conn.exec_driver_sql("PRAGMA busy_timeout").scalar()
                 conn.exec_driver_sql(f"PRAGMA busy_timeout = {WAIT_MS}")
-                try:
-                    written = conn.execute(statement).rowcount
-                    conn.commit()
-                finally:
+            try:
+                for statement, rows in statements:
+                    if rows is None:  # one row, returned when written
+                        written = len(conn.execute(statement).all())
+                    else:
+                        conn.execute(statement, rows)
+                        written = len(rows)
+                conn.commit()
+            finally:
+                if not postgres:
                     conn.rollback()
                     conn.exec_driver_sql(f"PRAGMA busy_timeout = {int(was or 0)}")
                     conn.commit()
-    except DBAPIError as exc:  # a lock held elsewhere, or the corpus removed meanwhile
-        log.info("kept %s sums of corpus %s not stored: %s", kind, corpus_id, exc.orig)
-        return False
-    return bool(written)
+    except DBAPIError as exc:  # a lock held elsewhere, or the rows removed meanwhile
+        log.info("kept %s (corpus %s) not stored: %s", what, corpus, exc.orig)
+        return -1
+    return int(written)

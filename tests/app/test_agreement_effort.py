@@ -270,3 +270,46 @@ def test_kept_effort_shares_equal_a_recount_after_random_work(db, people, login)
             db.commit()
         same_after_recount(f"step {_step}: {op}")
     assert done >= 3  # the walk did hand work in, so the sums were not empty throughout
+
+
+def test_a_new_process_computes_only_the_shares_changed_since_they_were_stored(
+    db, people, login
+) -> None:
+    """The shares a view computed are stored with their fingerprints: a process with
+    nothing in memory, after another hand-in, computes only that hand-in's share, and its
+    figures equal a recount from the revisions."""
+    from app.services import effort
+
+    corpus, sentences = make_corpus(
+        db, [SENTENCE, SENTENCE.replace("first", "last"), SENTENCE.replace("first", "next")]
+    )
+    assign(db, sentences, people.ann1)
+    ann1 = login("ann1")
+
+    def hand_in(sentence, seconds: float) -> int:
+        _save(ann1, sentence.id, 0, flat_text(sentence.tokens), active_seconds=seconds)
+        done = ann1.client.post(
+            f"/api/bench/{sentence.id}/submit", headers=ann1.headers(), json={"base": 1}
+        )
+        assert done.status_code == 200, done.text
+        return int(done.json()["id"])
+
+    hand_in(sentences[0], 3.0)
+    hand_in(sentences[1], 5.0)
+    assert _figures(effort, db, corpus.id) == _figures(effort, db, corpus.id, afresh=True)
+    effort.forget_cached_parts()  # a new process
+    third = hand_in(sentences[2], 7.0)
+    computed: list[int] = []
+    compute = effort._compute_parts
+
+    def counted(db, anns):  # type: ignore[no-untyped-def]
+        computed.extend(a.id for a in anns)
+        return compute(db, anns)
+
+    db.expire_all()
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(effort, "_compute_parts", counted)
+        shown = _figures(effort, db, corpus.id)
+    assert computed == [third]
+    assert shown == _figures(effort, db, corpus.id, afresh=True)
+    assert shown[-1]["sentences"] == 3 and shown[-1]["seconds"] == 15.0

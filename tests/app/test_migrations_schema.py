@@ -33,13 +33,13 @@ def test_migrated_database_matches_the_models(settings: Settings) -> None:
 
 def test_latest_migration_steps_down_and_up(settings: Settings) -> None:
     cfg = alembic_config(settings)
-    command.downgrade(cfg, "0017")
+    command.downgrade(cfg, "0018")
     engine = create_engine(settings.resolved_database_url)
     try:
         inspector = inspect(engine)
         tables = set(inspector.get_table_names())
     finally:
         engine.dispose()
-    assert "figure_marks" in tables and "figure_mark_shards" not in tables
+    assert "figure_mark_shards" in tables and "effort_shares" not in tables
     command.upgrade(cfg, "head")
     assert _differences(settings.resolved_database_url) == []
