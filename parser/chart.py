@@ -53,9 +53,12 @@ POSTERIOR_THRESHOLD = 1e-3
 #: pruned chart without a tree is parsed again unpruned.
 REFINED_PRUNE = 1e-4
 #: A refined grammar's k-best search looks at this many times more derivations (each tree has
-#: one per choice of sub-symbols; with 4 times, 10 distinct trees are found for most 30-word
-#: GUM sentences; measured in bench/parse_speed.py).
-REFINED_KBEST_FACTOR = 4
+#: one per choice of sub-symbols). Measured (refined 4 cycles on the GUM split, single thread):
+#: with 4, the Bench's 30 readings under two pins and a fixed tag found 73 distinct trees on
+#: five 30-word test sentences (8 to 21 each), with 8, 100 (10 to 30), 169 against 173 ms
+#: median; k = 10 with posteriors on twelve 20- and 30-word sentences, 112 and 118 of 120
+#: trees at 121 and 120-125 ms; with 16, 129 of 150 readings at 223 ms.
+REFINED_KBEST_FACTOR = 8
 #: :func:`parse_family`'s pruning: a cell of a later grammar is left out when its symbol's
 #: posterior under the first grammar is at most this (the refined grammars' threshold). On
 #: GUM interview, 300 in-domain trees and the other genres as reference, the grid of
