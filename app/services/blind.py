@@ -8,17 +8,18 @@ The rule
     other annotators' trees of it in search results, only once their own tree is submitted.
     Their own work is always theirs to see; gold trees are not annotators' trees.
 
+    The Agreement page reads the rule's result from ``hidden_sentences``, whose database
+    triggers (:mod:`app.counts`) state the same rule in SQL: a change to the rule changes both.
+
 Cost: one indexed query (assignments and annotations by user), for one sentence or for all of
-a user's sentences (a set of ids, as big as the user's queue); or, as a condition on rows
-that name a sentence (:func:`unfinished_clause`), three index probes per row.
+a user's sentences (a set of ids, as big as the user's queue).
 """
 
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
 
-from sqlalchemy import ColumnElement, Select, exists, or_, select, union
+from sqlalchemy import Select, select, union
 from sqlalchemy.orm import Session
 
 from app.models import ANN_SUBMITTED, Annotation, Assignment, User
@@ -43,22 +44,6 @@ def unfinished_query(user_id: int) -> Select[tuple[int]]:
     """The ids of every sentence ``user_id`` still annotates, as a query to nest in another
     (``sentence_id.in_(...)``)."""
     return _unfinished(user_id, None)
-
-
-def unfinished_clause(user_id: int, sentence_id: Any) -> ColumnElement[bool]:
-    """The rule as a condition on a column of sentence ids (``sentence_id``): true where
-    ``user_id`` still annotates that sentence. For walks over other rows (e.g. a corpus's
-    agreement records) that are shorter than the user's queue."""
-    started = or_(
-        exists().where(Assignment.sentence_id == sentence_id, Assignment.user_id == user_id),
-        exists().where(Annotation.sentence_id == sentence_id, Annotation.user_id == user_id),
-    )
-    submitted = exists().where(
-        Annotation.sentence_id == sentence_id,
-        Annotation.user_id == user_id,
-        Annotation.state == ANN_SUBMITTED,
-    )
-    return started & ~submitted
 
 
 def unfinished_sentences(
