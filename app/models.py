@@ -439,7 +439,8 @@ class KeptSums(Base):
     another server) starts from them instead of summing every record again
     (:mod:`app.services.agreement`, :mod:`app.services.effort`). ``kind`` says which sums
     (``agreement``, ``effort``); ``changes`` is the corpus's figure mark they were made at
-    (``figure_marks.agreement_changes`` or ``handed_in_changes``); for the agreement sums,
+    (``agreement_changes`` or ``handed_in_changes`` of ``figure_mark_shards``, summed); for
+    the agreement sums,
     ``last_id`` is the highest record id summed and ``seen`` the records read up to it.
     A cache: removing a row costs one full sum at the next view."""
 

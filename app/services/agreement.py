@@ -22,8 +22,8 @@ What it computes
     The Agreement page's figures (:func:`corpus_figures`) are sums over the stored records,
     kept between views (in the process's memory, and in the database's ``kept_sums`` so that
     a new process starts from them, :mod:`app.services.kept_sums`) and checked against the
-    corpus's change marks (one row of ``figure_marks``, kept by database triggers,
-    :mod:`app.counts`): corpus labelled F1
+    corpus's change marks (the sums of its rows of ``figure_mark_shards``, kept by database
+    triggers, :mod:`app.counts`): corpus labelled F1
     micro-averaged over all pairs (summed matched and constituent counts), the same per
     annotator pair, per label (from each record's ``detail["per_label"]``), the most frequent
     label confusions (``detail["confusions"]``) and F1 per day or week.
@@ -319,7 +319,7 @@ class _Tally:
 
     ``seen`` and ``changes`` say what the sums are current for: ``seen`` records of the
     corpus read (those of dropped sentences too, which are not summed), every id up to
-    ``last_id``, when the corpus's ``figure_marks.agreement_changes`` stood at ``changes``.
+    ``last_id``, when the corpus's summed ``agreement_changes`` mark stood at ``changes``.
     Sentences are counted, not listed (``sentences``, and ``PairFigures.sentences`` per
     pair): whether a record's sentence is new to the sums is asked of the records before
     ``last_id`` (:func:`_extend`), so the sums stay as small as the pairs, labels and days."""
@@ -484,9 +484,10 @@ def _pair_key(r: Any) -> tuple[int, int]:
 
 # Per process, per (database, corpus, corpus creation time): the sums so far, and in the
 # database (``kept_sums``, kind "agreement") the latest sums any process made, so that a new
-# process starts from them. The corpus's row of figure_marks (kept by database triggers,
+# process starts from them. The corpus's figure marks (the sums of its rows of
+# figure_mark_shards, kept by database triggers,
 # app.counts) counts its records and every change other than a record logged (a record
-# removed, a sentence dropped, brought back or removed). A view reads that row: the same
+# removed, a sentence dropped, brought back or removed). A view reads those rows: the same
 # marks, the sums are current and no record is read; more records and no other change, the
 # records logged since are read and added; any other change (or records missing, one
 # committed late with a lower id), all are summed again. Sums made or brought up to date by a

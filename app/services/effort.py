@@ -182,9 +182,10 @@ def _compute_parts(db: Session, anns: list[Annotation]) -> dict[int, _Part | Non
 
 
 # Per process, per (database, corpus, corpus creation time): the sums per annotator (by user
-# id) and over the corpus, with the corpus's figure_marks.handed_in_changes they were summed
+# id) and over the corpus, with the corpus's handed_in_changes mark (summed over its rows of
+# figure_mark_shards) they were summed
 # at (a database trigger moves it on every change of a handed-in annotation and every drop,
-# return or removal of a sentence, app.counts). A view with the same mark reads one row.
+# return or removal of a sentence, app.counts). A view with the same mark reads those rows.
 _sums: dict[tuple[str, int, object], tuple[int, dict[int, Effort], Effort]] = {}
 
 
