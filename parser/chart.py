@@ -611,9 +611,7 @@ class _Chart:
     def __init__(
         self, g: Grammar, tab: _Tables, p: _Problem, allow: np.ndarray | None = None
     ) -> None:
-        self.g, self.tab, self.p = g, tab, p
-        self.allow = _NO_MASK if allow is None else allow
-        self.use_allow = allow is not None
+        self._setup(g, tab, p, allow)
         (self.vt, self.vb, self.bp_rule, self.bp_edge, self.VL, self.VR) = kernels.viterbi(
             p.n,
             g.n_symbols,
@@ -639,9 +637,15 @@ class _Chart:
         )
         for arr in (self.vt, self.vb):
             arr[arr <= kernels.LOW] = -np.inf
-        self.full = int(p.sid[0, p.n])
         self.best = float(self.vt[self.full, g.start])
         self.ok = self.best > -math.inf
+
+    def _setup(self, g: Grammar, tab: _Tables, p: _Problem, allow: np.ndarray | None) -> None:
+        """What every chart holds before its passes (the full chart's and a coarse level's)."""
+        self.g, self.tab, self.p = g, tab, p
+        self.allow = _NO_MASK if allow is None else allow
+        self.use_allow = allow is not None
+        self.full = int(p.sid[0, p.n])
         self._inside: tuple[np.ndarray, ...] | None = None
         self._outside_cache: tuple[bool, tuple[np.ndarray, ...]] | None = None
         self.tag_posteriors: list[dict[str, float]] = []
@@ -654,14 +658,9 @@ class _Chart:
         """:meth:`symbol_posteriors` of the chart of ``g`` without its Viterbi pass (a coarse
         level of coarse-to-fine parsing needs only its posteriors); None when it has no tree."""
         chart = cls.__new__(cls)
-        chart.g, chart.tab, chart.p = g, tab, p
-        chart.allow = _NO_MASK if allow is None else allow
-        chart.use_allow = allow is not None
+        chart._setup(g, tab, p, allow)
         # Zeros: every span may hold something; the inside pass finds which do.
         chart.vt = np.zeros((p.n * (p.n + 1) // 2, g.n_symbols))
-        chart.full = int(p.sid[0, p.n])
-        chart._inside = None
-        chart._outside_cache = None
         it = chart._inside_chart()[0]
         if not it[chart.full, g.start] > 0.0:
             return None
