@@ -6,6 +6,10 @@ with ``spawn`` (safe inside threaded servers); the grammar reaches them as its s
 file, never pickled. Sentences go out in chunks; ``progress(done, total)`` is called after
 each chunk.
 
+Every worker ends itself as soon as the process that started the pool is gone
+(:func:`watch_parent`): a parent killed mid-batch (``kill -9``, the out-of-memory killer) leaves
+no workers behind holding memory, or the parent's inherited pipes open.
+
 Complexity: the per-sentence cost of :mod:`parser.chart`, divided over ``processes`` workers,
 plus a start-up of about a second per worker (imports and the compiled kernels' cache).
 Limits: small batches (fewer than two chunks) run in the calling process.
@@ -15,6 +19,8 @@ from __future__ import annotations
 
 import os
 import tempfile
+import threading
+import time
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from multiprocessing import get_context
@@ -28,8 +34,33 @@ _WORKER_GRAMMAR: Grammar | None = None
 _WORKER_FAMILY: list[Grammar] = []
 
 
-def _init_worker(path: str | list[str], threads: int | None = None) -> None:
+#: How often a pool worker checks that the process that started it is still there (seconds).
+PARENT_POLL_SECONDS = 1.0
+
+
+def watch_parent(parent_pid: int, poll: float = PARENT_POLL_SECONDS) -> None:
+    """In a worker process: exit as soon as the process that started it (``parent_pid``) is
+    gone.
+
+    A worker outliving a killed parent (``kill -9`` runs no shutdown) would hold memory for
+    nothing, keep multiprocessing's resource tracker alive with it (the tracker exits when the
+    last process holding its pipe does), and keep the parent's inherited file descriptors open
+    (a reader of the parent's output then never sees its end). The worker is reparented when its
+    parent dies, so a daemon thread compares ``os.getppid()`` with the parent's pid every
+    ``poll`` seconds and ends the process at once (no clean-up: the work it was doing was
+    the dead parent's)."""
+
+    def watch() -> None:
+        while os.getppid() == parent_pid:
+            time.sleep(poll)
+        os._exit(0)
+
+    threading.Thread(target=watch, name="parent-watch", daemon=True).start()
+
+
+def _init_worker(path: str | list[str], threads: int | None, parent_pid: int) -> None:
     global _WORKER_GRAMMAR, _WORKER_FAMILY
+    watch_parent(parent_pid)
     if threads is not None:
         import numba
 
@@ -112,7 +143,7 @@ def _in_pool(
         max_workers=workers,
         mp_context=get_context("spawn"),
         initializer=_init_worker,
-        initargs=(grammar_paths, threads),
+        initargs=(grammar_paths, threads, os.getpid()),
     ) as pool:
         futures = [pool.submit(task, *call) for call in calls]
         for fut in futures:

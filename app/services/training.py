@@ -122,7 +122,7 @@ from app.services.refresh import refresh_step
 from app.services.suggestions import prune
 from app.settings import Settings
 from parser.adapt import choose_weighting, describe, parse_weighting
-from parser.batch import parse_family_many, parse_many
+from parser.batch import parse_family_many, parse_many, watch_parent
 from parser.chart import ParseResult
 from parser.errors import ParserError
 from parser.grammar import Grammar, Weighting, train_grammar
@@ -897,27 +897,6 @@ def _drain_in_worker(url: str) -> int:
         # the same parse bounds as the web process (background parses: parallel_parses)
         configure_admission(settings)
     return drain(factory)
-
-
-PARENT_POLL_SECONDS = 1.0
-
-
-def watch_parent(parent_pid: int, poll: float = PARENT_POLL_SECONDS) -> None:
-    """In the training worker: exit as soon as the web process that started it is gone.
-
-    A worker outliving a killed server (``kill -9`` runs no shutdown) would hold memory and
-    the database for nothing, and keep multiprocessing's resource tracker alive with it (the
-    tracker exits when the last process holding its pipe does). The worker is reparented when
-    its parent dies, so a daemon thread compares ``os.getppid()`` with the parent's pid every
-    ``poll`` seconds and ends the process at once (no clean-up: a job it was running is
-    marked failed by the next server's start, ``fail_interrupted``)."""
-
-    def watch() -> None:
-        while os.getppid() == parent_pid:
-            time.sleep(poll)
-        os._exit(0)
-
-    threading.Thread(target=watch, name="parent-watch", daemon=True).start()
 
 
 class Runner(Protocol):
