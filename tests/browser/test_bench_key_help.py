@@ -346,6 +346,9 @@ def offered_readings(page, keys, bench) -> None:
         n = max(1, page.locator("#regrow-readings button").count())
         at = int(page.get_attribute("#regrow-offer", "data-at"))
         page.keyboard.press(keys[0])
+        page.wait_for_selector(  # the key is handled asynchronously
+            f"#regrow-offer[data-at='{(at + 1) % n}']", state="attached", timeout=15_000
+        )
         assert page.get_attribute("#regrow-offer", "data-at") == str((at + 1) % n)
         return
     page.keyboard.press(keys[0])

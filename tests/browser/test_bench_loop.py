@@ -250,6 +250,12 @@ def _dissolve_answered(page, k: int) -> None:
     )
 
 
+def _offer_at(page, at: int) -> None:
+    """Wait until the offer shows its reading ``at`` (a key or click is handled
+    asynchronously); fails after 15 s."""
+    page.wait_for_selector(f"#regrow-offer[data-at='{at}']", state="attached", timeout=15_000)
+
+
 def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, ferry) -> None:  # noqa: F811
     """After an edit the page offers the re-parse's proposal and the k best readings under what
     was said; G and the reading buttons step through them, g takes the one shown as one
@@ -278,15 +284,18 @@ def test_bench_offered_readings_step_take_undo_redo(browser_page, live_server, f
     # keyboard: G shows the next one
     page.focus("#tree-pane")
     page.keyboard.press("G")
+    _offer_at(page, 1)
     assert page.get_attribute("#regrow-offer", "data-at") == "1"
     second = page.get_attribute("#regrow-offer", "data-tree")
     assert second not in (first, edited)
     assert f"2 of {choices}:" in page.text_content("#regrow-offer-text")
     # mouse: the third button shows the third, the second button back to the second
     page.click("#regrow-readings button:nth-child(3)")
+    _offer_at(page, 2)
     assert page.get_attribute("#regrow-offer", "data-at") == "2"
     assert page.get_attribute("#regrow-offer", "data-tree") not in (first, second)
     page.click("#regrow-readings button:nth-child(2)")
+    _offer_at(page, 1)
     assert page.get_attribute("#regrow-offer", "data-tree") == second
     # g takes the one shown: one action, saved as a revision of its own
     page.focus("#tree-pane")
@@ -338,6 +347,7 @@ def test_bench_offers_the_grammars_readings_before_the_first_edit(
     assert page.get_attribute("#regrow-offer", "data-tree") == differ[0]
     page.focus("#tree-pane")
     page.keyboard.press("G")
+    _offer_at(page, 1)
     assert page.get_attribute("#regrow-offer", "data-tree") == differ[1]
     page.keyboard.press("g")
     wait_tree(page, differ[1])
